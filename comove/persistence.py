@@ -1,0 +1,266 @@
+"""Persistence over time: keep the role sets that stay prevalent.
+
+For a role set C, present(C) is the set of snapshots at which every role of C
+has at least one object present, and
+
+    time_prevalence(C) = (snapshots at which C is prevalent) / |present(C)|.
+
+C is kept when its time prevalence reaches ``min_prevalence`` and its prevalent
+time (prevalent snapshots x step) reaches ``min_duration``. The longest run is
+the longest stretch of consecutive grid snapshots at which C is prevalent.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from comove.alignment import Snapshots
+from comove.colocation import RATIO_EPS, LevelResult, RolePresence
+from comove.errors import InputError
+
+ROLE_SEP = ";"
+
+
+@dataclass(frozen=True)
+class PersistenceParams:
+    """Settings of the persistence filter.
+
+    Parameters
+    ----------
+    min_prevalence : float, default 0.5
+        Share of present(C) snapshots at which C must be prevalent, in (0, 1].
+    min_duration : float, default 0.0
+        Least total prevalent time in seconds.
+    """
+
+    min_prevalence: float = field(
+        default=0.5,
+        metadata={
+            "help": "least share of the snapshots where all its roles are present at "
+            "which a role set is prevalent, in (0, 1]"
+        },
+    )
+    min_duration: float = field(
+        default=0.0, metadata={"help": "least total prevalent time in seconds"}
+    )
+
+    def __post_init__(self) -> None:
+        if not (0 < self.min_prevalence <= 1):
+            raise InputError("--min-prevalence must be in (0, 1]")
+        if not (np.isfinite(self.min_duration) and self.min_duration >= 0):
+            raise InputError("--min-duration must be zero or a positive number of seconds")
+
+    def min_prevalent_snapshots(self, step_s: float) -> int:
+        """Return the fewest prevalent snapshots a kept set can have (at least 1).
+
+        Any set below this count fails ``min_duration``, and so do all its
+        supersets (prevalent snapshots are anti-monotone), so the miner may stop
+        extending it.
+        """
+        return max(1, math.ceil(self.min_duration / step_s - RATIO_EPS))
+
+
+@dataclass
+class PatternTables:
+    """The kept role sets as tables.
+
+    Attributes
+    ----------
+    patterns : DataFrame
+        One row per kept role set (see :func:`durable_patterns`).
+    participation : DataFrame
+        One row per (kept role set, role): mean participation ratios.
+    series : DataFrame
+        Participation index of every kept set at every snapshot of present(C).
+    """
+
+    patterns: pd.DataFrame
+    participation: pd.DataFrame
+    series: pd.DataFrame
+
+
+def _runs(set_id: np.ndarray, snap: np.ndarray, n_sets: int) -> tuple[np.ndarray, np.ndarray]:
+    """Return the longest run length and its first snapshot per set.
+
+    ``set_id``/``snap`` list prevalent snapshots sorted by set then snapshot.
+    """
+    longest = np.zeros(n_sets, dtype=np.int64)
+    start = np.full(n_sets, -1, dtype=np.int64)
+    if set_id.size == 0:
+        return longest, start
+    brk = np.ones(set_id.size, dtype=bool)
+    brk[1:] = (set_id[1:] != set_id[:-1]) | (snap[1:] != snap[:-1] + 1)
+    run_first = np.flatnonzero(brk)
+    run_len = np.diff(np.append(run_first, set_id.size))
+    run_set = set_id[run_first]
+    # longest per set; ties go to the earliest run
+    order = np.lexsort((run_first, -run_len, run_set))
+    best = order[np.r_[True, run_set[order][1:] != run_set[order][:-1]]]
+    longest[run_set[best]] = run_len[best]
+    start[run_set[best]] = snap[run_first[best]]
+    return longest, start
+
+
+def _role_label(roles: np.ndarray, names: np.ndarray) -> str:
+    return ROLE_SEP.join(sorted(str(names[r]) for r in roles))
+
+
+def durable_patterns(
+    levels: list[LevelResult],
+    snaps: Snapshots,
+    params: PersistenceParams,
+    min_participation: float,
+    presence: RolePresence | None = None,
+) -> PatternTables:
+    """Return the role sets that persist, with their per-snapshot series.
+
+    Parameters
+    ----------
+    levels : list of LevelResult
+        Output of :func:`comove.colocation.mine_levels`.
+    snaps : Snapshots
+        The aligned snapshots the levels were mined from.
+    params : PersistenceParams
+        Thresholds.
+    min_participation : float
+        The participation-index threshold used by the miner.
+    presence : RolePresence, optional
+        Role presence of ``snaps``, when the caller already has it.
+
+    Returns
+    -------
+    PatternTables
+        ``patterns`` has columns ``roles`` (role names sorted, joined by ';'),
+        ``size``, ``present_snapshots``, ``prevalent_snapshots``,
+        ``time_prevalence``, ``prevalent_seconds``, ``longest_run_seconds``,
+        ``longest_run_start`` (UTC), ``mean_participation_index`` (over
+        present(C), absent instances counting as 0) and ``participation_ratios``
+        (``role=mean PR`` joined by ';'); sorted by time prevalence, descending.
+
+    References
+    ----------
+    .. [1] Y. Huang, S. Shekhar, H. Xiong, "Discovering colocation patterns from
+       spatial data sets: a general approach", IEEE TKDE 16(12), 2004.
+    .. [2] M. Celik, S. Shekhar, J. P. Rogers, J. A. Shine, "Mixed-drove
+       spatiotemporal co-occurrence pattern mining", IEEE TKDE 20(10), 2008.
+    """
+    presence = presence or RolePresence(snaps)
+    step_s = snaps.step_s
+    min_count = params.min_prevalent_snapshots(step_s)
+    names = snaps.roles
+    pattern_rows: list[dict] = []
+    part_rows: list[dict] = []
+    series_parts: list[pd.DataFrame] = []
+    for level in levels:
+        n_sets = level.roles.shape[0]
+        present = level.present
+        with np.errstate(invalid="ignore", divide="ignore"):
+            prevalence = np.where(present > 0, level.prevalent / np.maximum(present, 1), 0.0)
+        kept = (prevalence >= params.min_prevalence - RATIO_EPS) & (level.prevalent >= min_count)
+        if not kept.any():
+            continue
+        is_prev = level.pi >= min_participation - RATIO_EPS
+        longest, run_start = _runs(level.set_id[is_prev], level.snap[is_prev], n_sets)
+        pi_sum = np.bincount(level.set_id, weights=level.pi, minlength=n_sets)
+        k = level.size
+        pr_sum = np.column_stack(
+            [np.bincount(level.set_id, weights=level.pr[:, c], minlength=n_sets) for c in range(k)]
+        )
+        pr_prev_sum = np.column_stack(
+            [
+                np.bincount(level.set_id[is_prev], weights=level.pr[is_prev, c], minlength=n_sets)
+                for c in range(k)
+            ]
+        )
+        for s in np.flatnonzero(kept):  # per kept role set
+            roles = level.roles[s]
+            label = _role_label(roles, names)
+            mean_pr = pr_sum[s] / present[s]
+            mean_pr_prev = pr_prev_sum[s] / level.prevalent[s]
+            order = np.argsort([str(names[r]) for r in roles])
+            pattern_rows.append(
+                {
+                    "roles": label,
+                    "size": k,
+                    "present_snapshots": int(present[s]),
+                    "prevalent_snapshots": int(level.prevalent[s]),
+                    "time_prevalence": float(prevalence[s]),
+                    "prevalent_seconds": float(level.prevalent[s] * step_s),
+                    "longest_run_seconds": float(longest[s] * step_s),
+                    "longest_run_start": pd.Timestamp(
+                        int(snaps.times(run_start[s : s + 1])[0]), tz="UTC"
+                    ),
+                    "mean_participation_index": float(pi_sum[s] / present[s]),
+                    "participation_ratios": ROLE_SEP.join(
+                        f"{names[roles[c]]}={mean_pr[c]:.4f}" for c in order
+                    ),
+                }
+            )
+            for c in order:
+                part_rows.append(
+                    {
+                        "roles": label,
+                        "role": str(names[roles[c]]),
+                        "mean_participation_ratio": float(mean_pr[c]),
+                        "mean_participation_ratio_when_prevalent": float(mean_pr_prev[c]),
+                    }
+                )
+            series_parts.append(_series(level, s, label, snaps, presence, min_participation))
+    patterns = pd.DataFrame(pattern_rows, columns=PATTERN_COLUMNS)
+    if len(patterns):
+        patterns = patterns.sort_values(
+            ["time_prevalence", "size", "roles"], ascending=[False, True, True], kind="stable"
+        ).reset_index(drop=True)
+        patterns["size"] = patterns["size"].astype("int64")
+    participation = pd.DataFrame(part_rows, columns=PARTICIPATION_COLUMNS)
+    series = (
+        pd.concat(series_parts, ignore_index=True)
+        if series_parts
+        else pd.DataFrame({c: pd.Series(dtype=t) for c, t in SERIES_DTYPES.items()})
+    )
+    series["roles"] = series["roles"].astype("category")
+    return PatternTables(patterns, participation, series)
+
+
+PATTERN_COLUMNS = [
+    "roles", "size", "present_snapshots", "prevalent_snapshots", "time_prevalence",
+    "prevalent_seconds", "longest_run_seconds", "longest_run_start",
+    "mean_participation_index", "participation_ratios",
+]  # fmt: skip
+PARTICIPATION_COLUMNS = [
+    "roles",
+    "role",
+    "mean_participation_ratio",
+    "mean_participation_ratio_when_prevalent",
+]
+SERIES_DTYPES = {
+    "roles": "object", "time": "datetime64[ns, UTC]", "participation_index": "float32",
+    "prevalent": "bool",
+}  # fmt: skip
+
+
+def _series(
+    level: LevelResult,
+    s: int,
+    label: str,
+    snaps: Snapshots,
+    presence: RolePresence,
+    min_participation: float,
+) -> pd.DataFrame:
+    """Return PI of set ``s`` at every snapshot of present(C), zeros included."""
+    snap = presence.snapshots(level.roles[s])
+    lo, hi = np.searchsorted(level.set_id, [s, s + 1])
+    pi = np.zeros(snap.size, dtype=np.float64)
+    pi[np.searchsorted(snap, level.snap[lo:hi])] = level.pi[lo:hi]
+    return pd.DataFrame(
+        {
+            "roles": np.full(snap.size, label, dtype=object),
+            "time": pd.to_datetime(snaps.times(snap), utc=True),
+            "participation_index": pi.astype(np.float32),
+            "prevalent": pi >= min_participation - RATIO_EPS,
+        }
+    )

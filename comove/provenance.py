@@ -1,0 +1,94 @@
+"""What a run was made from: input digest, settings and versions."""
+
+from __future__ import annotations
+
+import glob
+import hashlib
+import platform
+from collections.abc import Iterable
+from dataclasses import asdict, fields, is_dataclass
+from datetime import UTC, datetime
+from importlib.metadata import PackageNotFoundError, version
+from pathlib import Path
+from typing import Any
+
+import pandas as pd
+
+import comove
+
+_VERSIONED = ("numpy", "scipy", "pandas", "pyarrow", "geopandas", "shapely", "pyproj")
+
+
+def _paths(source: Any) -> list[Path] | None:
+    """Return the files behind ``source`` when it names files, else None."""
+    items: Iterable[Any] = source if isinstance(source, (list, tuple)) else [source]
+    paths: list[Path] = []
+    for item in items:
+        if not isinstance(item, (str, Path)):
+            return None
+        text = str(item)
+        matched = sorted(glob.glob(text)) if glob.has_magic(text) else [text]
+        paths.extend(Path(m) for m in matched)
+    return sorted(set(paths))
+
+
+def input_digest(source: Any) -> str:
+    """Return ``sha256:<hex>`` of the input's bytes (files) or of its values (frames).
+
+    For files the digest covers each file's name and content in sorted order,
+    so renaming or editing any file changes it. For in-memory frames it covers
+    pandas' row hashes of the columns, index excluded.
+    """
+    h = hashlib.sha256()
+    paths = _paths(source)
+    if paths is not None:
+        for path in paths:
+            h.update(path.name.encode() + b"\0")
+            with open(path, "rb") as fh:
+                for block in iter(lambda fh=fh: fh.read(1 << 20), b""):
+                    h.update(block)
+        return "sha256:" + h.hexdigest()
+    frame = source
+    if hasattr(source, "trajectories"):  # a movingpandas TrajectoryCollection
+        frame = pd.concat([t.df.assign(_traj=str(t.id)) for t in source.trajectories])
+    if isinstance(frame, pd.DataFrame):
+        plain = pd.DataFrame(frame).copy()
+        if "geometry" in plain and hasattr(plain["geometry"], "to_wkb"):
+            plain["geometry"] = plain["geometry"].to_wkb()
+        h.update(pd.util.hash_pandas_object(plain, index=False).values.tobytes())
+        return "sha256:" + h.hexdigest()
+    raise TypeError(f"cannot hash an input of type {type(source).__name__}")
+
+
+def settings_record(*stage_params: Any) -> dict[str, dict[str, Any]]:
+    """Return the effective settings of each stage as plain values, keyed by stage."""
+    out: dict[str, dict[str, Any]] = {}
+    for params in stage_params:
+        if params is None:
+            continue
+        if not is_dataclass(params):
+            raise TypeError("stage settings must be dataclasses")
+        out[type(params).__name__] = {f.name: asdict(params)[f.name] for f in fields(params)}
+    return out
+
+
+def run_record(
+    command: str, source: Any, settings: dict[str, dict[str, Any]], extra: dict | None = None
+) -> dict[str, Any]:
+    """Return the content of ``run.json``: what was run, on what, with which versions."""
+    versions = {"comove": comove.__version__, "python": platform.python_version()}
+    for name in _VERSIONED:
+        try:
+            versions[name] = version(name)
+        except PackageNotFoundError:
+            versions[name] = None
+    paths = _paths(source)
+    return {
+        "command": command,
+        "created": datetime.now(UTC).isoformat(timespec="seconds").replace("+00:00", "Z"),
+        "input": [str(p) for p in paths] if paths is not None else f"<{type(source).__name__}>",
+        "input_digest": input_digest(source),
+        "settings": settings,
+        "versions": versions,
+        **(extra or {}),
+    }

@@ -1,0 +1,130 @@
+"""Write a results folder atomically: all of it or nothing, never half.
+
+Files are written into a hidden sibling folder that is renamed into place only
+when every file is complete. An existing folder is replaced only when the
+caller asks (``force``), and then only after the new one is complete.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import shutil
+import tempfile
+from collections.abc import Callable, Mapping
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from comove.errors import InputError
+
+Writer = Callable[[Path], None]
+
+
+def _plain(value: Any) -> Any:
+    """Return ``value`` with numpy and pandas scalars turned into JSON types."""
+    if isinstance(value, dict):
+        return {str(k): _plain(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_plain(v) for v in value]
+    if isinstance(value, np.generic):
+        return value.item()
+    if isinstance(value, pd.Timestamp):
+        return iso_utc(value)
+    if isinstance(value, Path):
+        return str(value)
+    return value
+
+
+def iso_utc(ts: pd.Timestamp) -> str:
+    """Return an ISO 8601 UTC text with a trailing ``Z``."""
+    ts = ts.tz_convert("UTC") if ts.tzinfo else ts.tz_localize("UTC")
+    return ts.isoformat().replace("+00:00", "Z")
+
+
+def json_writer(content: Mapping[str, Any]) -> Writer:
+    """Return a writer of ``content`` as indented JSON."""
+
+    def write(path: Path) -> None:
+        path.write_text(json.dumps(_plain(dict(content)), indent=2, allow_nan=False) + "\n")
+
+    return write
+
+
+def csv_writer(frame: pd.DataFrame) -> Writer:
+    """Return a writer of ``frame`` as CSV, times as ISO 8601 UTC with ``Z``."""
+
+    def write(path: Path) -> None:
+        out = frame.copy()
+        for col in out.columns:
+            if isinstance(out[col].dtype, pd.DatetimeTZDtype):
+                out[col] = out[col].dt.strftime("%Y-%m-%dT%H:%M:%S.%fZ")
+        out.to_csv(path, index=False, float_format="%.6g")
+
+    return write
+
+
+def parquet_writer(frame: pd.DataFrame) -> Writer:
+    """Return a writer of ``frame`` as Parquet."""
+
+    def write(path: Path) -> None:
+        frame.to_parquet(path, index=False)
+
+    return write
+
+
+def write_folder(
+    out_dir: str | os.PathLike[str], files: Mapping[str, Writer], force: bool = False
+) -> Path:
+    """Write ``files`` into ``out_dir`` atomically and return the folder's path.
+
+    Parameters
+    ----------
+    out_dir : path
+        The results folder. Its parent folders are created when missing.
+    files : mapping of file name to writer
+        Each writer is called with the full path to write.
+    force : bool, default False
+        Replace an existing ``out_dir``. Without it an existing folder is an
+        error and nothing is written.
+
+    Returns
+    -------
+    Path
+        ``out_dir``.
+
+    Raises
+    ------
+    InputError
+        When ``out_dir`` exists and ``force`` is false, or is not a folder.
+    """
+    out = Path(out_dir)
+    if out.exists() and not out.is_dir():
+        raise InputError(f"{out}: exists and is not a folder; choose another --out")
+    if out.exists() and not force:
+        raise InputError(
+            f"{out}: already exists; choose another --out or add --force to replace it"
+        )
+    out.parent.mkdir(parents=True, exist_ok=True)
+    tmp = Path(tempfile.mkdtemp(prefix=f".{out.name}.partial-", dir=out.parent))
+    try:
+        for name, write in files.items():
+            write(tmp / name)
+        if out.exists():
+            old = Path(tempfile.mkdtemp(prefix=f".{out.name}.old-", dir=out.parent))
+            old.rmdir()
+            out.rename(old)
+            try:
+                tmp.rename(out)
+            except BaseException:
+                old.rename(out)
+                raise
+            shutil.rmtree(old, ignore_errors=True)
+        else:
+            tmp.rename(out)
+    except BaseException:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise
+    return out
