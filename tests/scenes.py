@@ -8,7 +8,6 @@ import networkx as nx
 import numpy as np
 
 from comove.alignment import AlignParams, Snapshots, align
-
 from comove.cleaning import Fixes
 
 NS = 1_000_000_000

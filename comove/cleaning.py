@@ -1,0 +1,627 @@
+"""Cleaning read fixes: parse times, drop unusable rows (counting each), project to metres.
+
+The result is a compact column store of fixes sorted by object and time, plus a quality
+report that accounts for every row read.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+import pyarrow as pa
+import pyarrow.compute as pc
+import pyproj
+
+from comove.errors import InputError
+from comove.projection import crs_to_lonlat, local_metric_crs, to_metric
+from comove.reading import RawTracks
+
+__all__ = ["DROP_REASONS", "CleanParams", "Fixes", "clean_fixes", "format_quality_summary"]
+
+#: Every reason a row can be dropped for, in the order rows are tested.
+DROP_REASONS = (
+    "missing_id",
+    "missing_role",
+    "missing_coordinates",
+    "coordinates_out_of_range",
+    "unparseable_time",
+    "exact_duplicate",
+    "conflicting_duplicate",
+    "speed_spike",
+)
+_CODE = {name: i for i, name in enumerate(DROP_REASONS)}
+
+MAX_SPIKE_PASSES = 10
+MAX_EXAMPLES = 5
+MS_THRESHOLD = 1e11  # epoch seconds this large would lie after the year 5000
+
+_NS_PER = {"s": 1_000_000_000, "ms": 1_000_000, "us": 1_000, "ns": 1}
+_INT64_MAX = np.iinfo(np.int64).max
+_NULL_TOKENS = ("", "na", "nan", "nat", "null", "none")
+# A zone designator after a time part: Z, +hh, +hhmm or +hh:mm (and minus).
+_NUMBER_PATTERN = r"^[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?$"
+_ZONE_PATTERN = r"(?:T\d{2}|\d:\d{2})[\d:.,]*\s*(?:[zZ]|[+-]\d{2}(?::?\d{2})?)$"
+
+_ADVICE = {
+    "missing_id": "fill in the object ids or name another column with --id",
+    "missing_role": "fill in the roles or name another column with --role",
+    "missing_coordinates": "check the coordinate columns (--x/--y or --lon/--lat)",
+    "coordinates_out_of_range": (
+        "longitudes must lie in [-180, 180] and latitudes in [-90, 90]; check --lon/--lat, "
+        "or give projected x/y with --x/--y and --crs"
+    ),
+    "unparseable_time": (
+        "give times as ISO 8601 (e.g. 2026-03-01T12:00:00Z) or epoch seconds or "
+        "milliseconds, or name another column with --time"
+    ),
+    "exact_duplicate": "each object needs fixes at distinct times",
+    "conflicting_duplicate": "each object needs one position per time",
+    "speed_spike": "raise --max-speed",
+}
+
+
+@dataclass(frozen=True)
+class CleanParams:
+    """Cleaning: which implausible fixes to drop.
+
+    Options for :func:`clean_fixes`.
+
+    Parameters
+    ----------
+    max_speed : float or None
+        Largest plausible speed in metres per second (``--max-speed``). When given, fixes
+        reached and left faster than this (speed spikes) are dropped.
+
+    Raises
+    ------
+    InputError
+        If ``max_speed`` is not a positive finite number.
+    """
+
+    max_speed: float | None = field(
+        default=None,
+        metadata={
+            "help": "largest plausible speed in m/s; fixes reached and left faster are dropped "
+            "(default: no speed filter)"
+        },
+    )
+
+    def __post_init__(self) -> None:
+        if self.max_speed is None:
+            return
+        ok = isinstance(self.max_speed, (int, float)) and not isinstance(self.max_speed, bool)
+        if not ok or not math.isfinite(self.max_speed) or self.max_speed <= 0:
+            raise InputError(
+                f"--max-speed {self.max_speed!r} is not a positive number; give the largest "
+                "plausible speed in metres per second, e.g. --max-speed 12"
+            )
+
+
+@dataclass
+class Fixes:
+    """Cleaned fixes, sorted by (object, time) with strictly increasing time per object.
+
+    Attributes
+    ----------
+    obj : numpy.ndarray
+        int32 object codes, ``0 .. len(objects) - 1``.
+    time : numpy.ndarray
+        int64 nanoseconds since the Unix epoch, UTC.
+    x, y : numpy.ndarray
+        float64 metres in the working plane.
+    role : numpy.ndarray
+        int32 role codes, ``0 .. len(roles) - 1``.
+    objects : numpy.ndarray
+        Object ids (str), sorted; the index is the code.
+    roles : numpy.ndarray
+        Role names (str), sorted; the index is the code.
+    metric_crs : pyproj.CRS or None
+        The CRS ``x`` and ``y`` are in: the local azimuthal equidistant CRS for lon/lat and
+        other-CRS input; the file's own CRS for planar input that came with one; ``None`` for
+        plain planar input.
+    input_crs : str or None
+        ``"EPSG:4326"`` for lon/lat input, the input CRS for ``"crs"`` input (and for planar
+        input that came with one), ``None`` for plain planar input.
+    """
+
+    obj: np.ndarray
+    time: np.ndarray
+    x: np.ndarray
+    y: np.ndarray
+    role: np.ndarray
+    objects: np.ndarray
+    roles: np.ndarray
+    metric_crs: pyproj.CRS | None
+    input_crs: str | None
+
+    @property
+    def n_fixes(self) -> int:
+        """Number of fixes."""
+        return int(self.obj.size)
+
+
+# --------------------------------------------------------------------------- times
+
+
+@dataclass
+class _Times:
+    ns: np.ndarray  # int64, 0 where not ok
+    ok: np.ndarray  # bool
+    zone_less: np.ndarray  # bool: parsed, but written without a time zone
+    kind: str  # how the times were written, for the report
+
+
+def _datetimes_to_ns(series: pd.Series) -> tuple[np.ndarray, np.ndarray]:
+    """Naive (UTC) datetime64 values of any unit to int64 ns, flagging NaT and overflow."""
+    values = series.to_numpy()
+    unit = np.datetime_data(values.dtype)[0]
+    ints = values.view(np.int64)
+    ok = ~np.isnat(values)
+    factor = _NS_PER.get(unit)
+    if factor is None:  # coarser units (days, ...) are rare; numpy converts them exactly
+        factor = int(np.timedelta64(1, unit) / np.timedelta64(1, "ns"))
+    ok &= np.abs(ints) <= _INT64_MAX // factor
+    return np.where(ok, ints * factor, 0).astype(np.int64), ok
+
+
+def _parse_datetimes(series: pd.Series) -> _Times:
+    zone_less = np.zeros(len(series), dtype=bool)
+    if isinstance(series.dtype, pd.DatetimeTZDtype):
+        series = series.dt.tz_convert("UTC").dt.tz_localize(None)
+        ns, ok = _datetimes_to_ns(series)
+    else:
+        ns, ok = _datetimes_to_ns(series)
+        zone_less = ok.copy()
+    return _Times(ns, ok, zone_less, "datetimes")
+
+
+def _parse_numbers(values: pd.Series | np.ndarray, unit: str | None) -> _Times:
+    if isinstance(values, pd.Series) and pd.api.types.is_integer_dtype(values.dtype):
+        present = values.notna().to_numpy()
+        ints = values.to_numpy(dtype=np.int64, na_value=0)
+        floats = np.where(present, ints.astype(np.float64), np.nan)
+    else:
+        floats = np.asarray(values, dtype=np.float64)
+        ints = None
+    finite = np.isfinite(floats)
+    if unit is None:
+        biggest = np.max(np.abs(floats[finite])) if finite.any() else 0.0
+        unit = "ms" if biggest > MS_THRESHOLD else "s"
+    factor = _NS_PER[unit]
+    ok = finite & (np.abs(np.where(finite, floats, 0.0)) < (_INT64_MAX // factor) - 1)
+    if ints is not None:
+        ns = np.where(ok, ints * factor, 0)
+    else:
+        # Whole and fractional parts apart, so integer epochs (even milliseconds near 2e12,
+        # whose nanoseconds exceed float64's 2**53) convert exactly.
+        safe = np.where(ok, floats, 0.0)
+        whole = np.floor(safe)
+        ns = whole.astype(np.int64) * factor + np.round((safe - whole) * factor).astype(np.int64)
+        ns = np.where(ok, ns, 0)
+    kind = "epoch seconds" if unit == "s" else "epoch milliseconds"
+    return _Times(ns.astype(np.int64), ok, np.zeros(floats.size, dtype=bool), kind)
+
+
+def _parse_text(values: pd.Series, unit: str | None) -> _Times:
+    # pyarrow's compute kernels do the string work; pandas' .str methods would fall back to
+    # a Python loop per value for these patterns.
+    text = pc.utf8_trim_whitespace(pa.array(values.astype("str"), type=pa.large_string()))
+    blank = pc.fill_null(
+        pc.is_in(pc.utf8_lower(text), value_set=pa.array(_NULL_TOKENS, pa.large_string())),
+        True,
+    )
+    text = pc.if_else(blank, pa.scalar(None, pa.large_string()), text)
+    n = len(text)
+    numeric_like = pc.fill_null(pc.match_substring_regex(text, _NUMBER_PATTERN), False)
+    n_numeric = pc.sum(numeric_like).as_py() or 0
+    n_present = n - (pc.sum(blank).as_py() or 0)
+    numbers = np.full(n, np.nan)
+    if n_numeric:
+        mask = numeric_like.to_numpy(zero_copy_only=False)
+        numbers[mask] = pc.cast(pc.filter(text, numeric_like), pa.float64()).to_numpy()
+        if n_numeric == n_present:
+            return _parse_numbers(numbers, unit)
+    # "... UTC"/"... GMT" suffixes are common in exports; ISO 8601 spells them "Z".
+    text = pc.replace_substring_regex(text, r"\s*(?:UTC|GMT)$", "Z")
+    parsed = pd.to_datetime(
+        pd.Series(text.to_pandas(), dtype="str"), utc=True, format="ISO8601", errors="coerce"
+    )
+    ns, ok = _datetimes_to_ns(parsed.dt.tz_localize(None))
+    # A column is either epoch numbers or ISO 8601 text; the reading that parses more rows
+    # wins, so a stray bad cell only costs its own row.
+    if n_numeric > ok.sum():
+        return _parse_numbers(numbers, unit)
+    has_zone = pc.fill_null(pc.match_substring_regex(text, _ZONE_PATTERN), False)
+    zone_less = ok & ~has_zone.to_numpy(zero_copy_only=False)
+    return _Times(ns, ok, zone_less, "ISO 8601 text")
+
+
+def _parse_times(values: pd.Series, unit: str | None) -> _Times:
+    """Turn the time column as read into int64 ns since the epoch, UTC.
+
+    Strings must be ISO 8601 (zone-less ones are UTC), numbers are epoch seconds or
+    milliseconds (milliseconds when the largest magnitude exceeds 1e11, unless ``unit``
+    says), and datetimes are taken as they are (naive ones are UTC).
+    """
+    values = values.reset_index(drop=True)
+    dtype = values.dtype
+    if pd.api.types.is_datetime64_any_dtype(dtype):
+        return _parse_datetimes(values)
+    if pd.api.types.is_bool_dtype(dtype):
+        none = np.zeros(len(values), dtype=bool)
+        return _Times(np.zeros(len(values), dtype=np.int64), none, none, "booleans")
+    if pd.api.types.is_numeric_dtype(dtype):
+        return _parse_numbers(values, unit)
+    inferred = pd.api.types.infer_dtype(values, skipna=True)
+    if inferred in ("integer", "floating", "mixed-integer-float", "decimal"):
+        return _parse_numbers(pd.to_numeric(values, errors="coerce").to_numpy(float), unit)
+    if inferred in ("datetime", "datetime64", "date"):
+        # Python datetime objects: naive ones are UTC. Telling them from aware ones would take
+        # a loop per value, so they are not counted as zone-less.
+        parsed = pd.to_datetime(values, errors="coerce", utc=True)
+        ns, ok = _datetimes_to_ns(parsed.dt.tz_localize(None))
+        return _Times(ns, ok, np.zeros(len(values), dtype=bool), "datetimes")
+    return _parse_text(values, unit)
+
+
+# --------------------------------------------------------------------------- helpers
+
+
+def _iso(ns: int) -> str:
+    stamp = pd.Timestamp(int(ns), unit="ns", tz="UTC")
+    text = stamp.strftime("%Y-%m-%dT%H:%M:%S")
+    fraction = int(ns) % 1_000_000_000
+    if fraction:
+        text += f".{fraction:09d}".rstrip("0")
+    return text + "Z"
+
+
+def _missing_labels(series: pd.Series) -> np.ndarray:
+    text = series.astype("str")
+    return (text.isna() | (text.str.strip() == "")).to_numpy(dtype=bool)
+
+
+def _labels(series: pd.Series, blank_as: str | None = None) -> np.ndarray:
+    text = series.astype("str").str.strip()
+    if blank_as is not None:
+        text = text.fillna(blank_as)
+    return text.to_numpy(dtype=object)
+
+
+def _describe_sources(sources: list[str]) -> str:
+    if not sources:
+        return "<input>"
+    if len(sources) == 1:
+        return sources[0]
+    return f"{sources[0]} (and {len(sources) - 1} more files)"
+
+
+def _spike_mask(
+    obj: np.ndarray, t: np.ndarray, x: np.ndarray, y: np.ndarray, max_speed: float
+) -> np.ndarray:
+    """One pass of the speed-spike rule over fixes sorted by (object, time)."""
+    same = obj[1:] == obj[:-1]
+    dt_s = (t[1:] - t[:-1]) / 1e9
+    fast = same & (np.hypot(x[1:] - x[:-1], y[1:] - y[:-1]) > max_speed * dt_s)
+    no = np.zeros(1, dtype=bool)
+    has_prev = np.concatenate([no, same])
+    has_next = np.concatenate([same, no])
+    fast_prev = np.concatenate([no, fast])
+    fast_next = np.concatenate([fast, no])
+    interior = has_prev & has_next & fast_prev & fast_next
+    first = ~has_prev & has_next & fast_next
+    last = has_prev & ~has_next & fast_prev
+    # An end fix beside an interior spike only looks fast because of that spike; it is judged
+    # again in the next pass, once the spike is gone.
+    first &= ~np.concatenate([interior[1:], no])
+    last &= ~np.concatenate([no, interior[:-1]])
+    return interior | first | last
+
+
+def _quantiles(values: np.ndarray) -> dict[str, float | None]:
+    if values.size == 0:
+        return {"median": None, "p10": None, "p90": None, "iqr": None}
+    p10, p25, p50, p75, p90 = np.percentile(values, [10, 25, 50, 75, 90])
+    return {
+        "median": float(p50),
+        "p10": float(p10),
+        "p90": float(p90),
+        "iqr": float(p75 - p25),
+    }
+
+
+# --------------------------------------------------------------------------- cleaning
+
+
+def clean_fixes(raw: RawTracks, params: CleanParams | None = None) -> tuple[Fixes, dict]:
+    """Parse times, drop unusable rows, and project the fixes into a metric plane.
+
+    Parameters
+    ----------
+    raw : RawTracks
+        Fixes as read by :func:`comove.reading.read_tracks`.
+    params : CleanParams, optional
+        Cleaning options; by default no speed filter.
+
+    Returns
+    -------
+    fixes : Fixes
+        The kept fixes, sorted by (object, time), strictly increasing in time per object.
+    quality : dict
+        JSON-serialisable report: ``rows_read``, ``rows_kept``, ``dropped`` (count per reason
+        in :data:`DROP_REASONS`), ``merged``, ``examples`` (up to five ``{"source", "row"}``
+        per reason), ``objects``, ``roles``, ``role_names``, ``time_start``, ``time_end``,
+        ``time_span_s``, ``sampling_interval_s`` (``median``, ``p10``, ``p90``, ``iqr`` of the
+        gaps between consecutive fixes of an object), ``zone_less_times`` (kept rows whose
+        times carried no zone and were read as UTC), ``time_note``,
+        ``time_input``, ``coordinates``, ``max_speed_m_s``, ``speed_spike_passes`` and
+        ``sources``. ``rows_read == rows_kept + sum(dropped.values())``.
+
+    Raises
+    ------
+    InputError
+        If no row survives; the message names the source and the main reason.
+
+    Notes
+    -----
+    Each row is dropped for the first reason that applies, tested in this order:
+    ``missing_id``; ``missing_role`` (only when roles are required; otherwise a missing role
+    becomes ``""``); ``missing_coordinates`` (NaN or infinite); ``coordinates_out_of_range``
+    (lon/lat input outside [-180, 180] x [-90, 90], or "crs" input the transformation cannot
+    take to lon/lat); ``unparseable_time``; ``exact_duplicate`` (same object, time, position
+    and role as a kept row: merged into it); ``conflicting_duplicate`` (same object and time,
+    different position or role: all such rows go, since the true position is unknown);
+    ``speed_spike`` (only with ``max_speed``: a fix reached and left faster than
+    ``max_speed``, or a track's first or last fix whose one adjacent speed is too fast;
+    repeated for at most ten passes). A first or last fix whose neighbour is itself an
+    interior spike waits for the next pass, when that spike is gone, so that one bad fix does
+    not take a good end fix with it. A two-fix track that is too fast loses both fixes, since
+    nothing tells which one is wrong.
+
+    Lon/lat input is projected to :func:`comove.projection.local_metric_crs`; "crs" input is
+    first taken to lon/lat, so distances are true metres even for distorting CRSs such as
+    Web Mercator; planar input is used as it is.
+    """
+    params = params if params is not None else CleanParams()
+    frame = raw.frame.reset_index(drop=True)
+    n = len(frame)
+    reason = np.full(n, -1, dtype=np.int8)
+
+    def mark(mask: np.ndarray, name: str) -> None:
+        reason[mask & (reason < 0)] = _CODE[name]
+
+    mark(_missing_labels(frame["object"]), "missing_id")
+    if raw.role_required:
+        mark(_missing_labels(frame["role"]), "missing_role")
+
+    lonlat = raw.coords == "lonlat"
+    a_col, b_col = ("lon", "lat") if lonlat else ("x", "y")
+    a = pd.to_numeric(frame[a_col], errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan)
+    b = pd.to_numeric(frame[b_col], errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan)
+    finite = np.isfinite(a) & np.isfinite(b)
+    mark(~finite, "missing_coordinates")
+
+    lon = lat = None
+    if lonlat:
+        lon, lat = a, b
+    elif raw.coords == "crs":
+        lon = np.full(n, np.nan)
+        lat = np.full(n, np.nan)
+        lon[finite], lat[finite] = crs_to_lonlat(a[finite], b[finite], raw.crs)
+    elif raw.coords != "planar":
+        raise ValueError(f"unknown coordinate kind {raw.coords!r}")
+    if lon is not None:
+        with np.errstate(invalid="ignore"):
+            inside = (
+                np.isfinite(lon) & np.isfinite(lat) & (np.abs(lon) <= 180) & (np.abs(lat) <= 90)
+            )
+        mark(finite & ~inside, "coordinates_out_of_range")
+
+    times = _parse_times(frame["time"], raw.time_unit)
+    mark(~times.ok, "unparseable_time")
+
+    # ---- duplicates, on the rows still valid
+    valid = np.flatnonzero(reason < 0)
+    obj_codes, obj_names = pd.factorize(_labels(frame["object"].iloc[valid]), sort=True)
+    role_codes, role_names = pd.factorize(
+        _labels(frame["role"].iloc[valid], blank_as=""), sort=True
+    )
+    t = times.ns[valid]
+    va, vb = a[valid], b[valid]
+    order = np.lexsort((role_codes, vb, va, t, obj_codes))
+    so, st = obj_codes[order], t[order]
+    same_time = (so[1:] == so[:-1]) & (st[1:] == st[:-1])
+    identical = (
+        same_time
+        & (va[order][1:] == va[order][:-1])
+        & (vb[order][1:] == vb[order][:-1])
+        & (role_codes[order][1:] == role_codes[order][:-1])
+    )
+    # lexsort is stable, so the first copy in file order is the one kept.
+    exact = np.zeros(order.size, dtype=bool)
+    exact[1:] = identical
+    reason[valid[order[exact]]] = _CODE["exact_duplicate"]
+    order = order[~exact]
+    so, st = obj_codes[order], t[order]
+    clash = (so[1:] == so[:-1]) & (st[1:] == st[:-1])
+    conflict = np.zeros(order.size, dtype=bool)
+    conflict[1:] |= clash
+    conflict[:-1] |= clash
+    reason[valid[order[conflict]]] = _CODE["conflicting_duplicate"]
+    order = order[~conflict]
+    kept = valid[order]  # original row numbers, sorted by (object, time)
+    k_obj, k_role = obj_codes[order], role_codes[order]
+
+    # ---- projection
+    metric_crs: pyproj.CRS | None
+    if lon is not None:
+        if kept.size:
+            metric_crs = local_metric_crs(lon[kept], lat[kept])
+            kx, ky = to_metric(lon[kept], lat[kept], metric_crs)
+        else:
+            metric_crs, kx, ky = None, np.empty(0), np.empty(0)
+        input_crs = "EPSG:4326" if lonlat else raw.crs
+    else:
+        metric_crs = pyproj.CRS.from_user_input(raw.crs) if raw.crs else None
+        kx, ky = a[kept], b[kept]
+        input_crs = raw.crs
+
+    # ---- speed spikes, each pass vectorised over all fixes still kept
+    passes = 0
+    if params.max_speed is not None and kept.size:
+        alive = np.arange(kept.size)
+        kt = times.ns[kept]
+        while passes < MAX_SPIKE_PASSES:
+            passes += 1
+            spike = _spike_mask(k_obj[alive], kt[alive], kx[alive], ky[alive], params.max_speed)
+            if not spike.any():
+                break
+            reason[kept[alive[spike]]] = _CODE["speed_spike"]
+            alive = alive[~spike]
+        kept, k_obj, k_role = kept[alive], k_obj[alive], k_role[alive]
+        kx, ky = kx[alive], ky[alive]
+
+    # ---- report
+    counts = np.bincount(reason[reason >= 0].astype(np.intp), minlength=len(DROP_REASONS))
+    dropped = {name: int(counts[i]) for i, name in enumerate(DROP_REASONS)}
+    sources_col = (
+        frame["source"].astype("str").to_numpy(dtype=object)
+        if "source" in frame
+        else np.full(n, _describe_sources(raw.sources), dtype=object)
+    )
+    rows_col = (
+        frame["row"].to_numpy(dtype=np.int64)
+        if "row" in frame
+        else np.arange(1, n + 1, dtype=np.int64)
+    )
+    examples = {}
+    for i, name in enumerate(DROP_REASONS):
+        where = np.flatnonzero(reason == i)[:MAX_EXAMPLES]
+        examples[name] = [{"source": str(sources_col[j]), "row": int(rows_col[j])} for j in where]
+
+    if kept.size == 0:
+        main = max(DROP_REASONS, key=lambda r: dropped[r]) if n else None
+        where = _describe_sources(raw.sources)
+        if main is None:
+            raise InputError(f"{where}: no rows to clean; give a file with data rows")
+        example = examples[main][0]
+        raise InputError(
+            f"{where}: no usable rows — all {n} were dropped, most ({dropped[main]}) for "
+            f"{main.replace('_', ' ')} (e.g. {example['source']} row {example['row']}); "
+            f"{_ADVICE[main]}"
+        )
+
+    # Codes are re-made over the kept fixes so that they run 0..n-1 without gaps.
+    obj_used, obj_final = np.unique(k_obj, return_inverse=True)
+    role_used, role_final = np.unique(k_role, return_inverse=True)
+    objects = np.asarray(obj_names, dtype=object)[obj_used].astype(str)
+    roles = np.asarray(role_names, dtype=object)[role_used].astype(str)
+    kt = times.ns[kept]
+    fixes = Fixes(
+        obj=obj_final.astype(np.int32),
+        time=kt.astype(np.int64),
+        x=np.asarray(kx, dtype=np.float64),
+        y=np.asarray(ky, dtype=np.float64),
+        role=role_final.astype(np.int32),
+        objects=objects,
+        roles=roles,
+        metric_crs=metric_crs,
+        input_crs=input_crs,
+    )
+
+    gaps = np.diff(kt)[fixes.obj[1:] == fixes.obj[:-1]] / 1e9
+    zone_less = int(times.zone_less[kept].sum())
+    t0, t1 = int(kt.min()), int(kt.max())
+    quality = {
+        "rows_read": int(n),
+        "rows_kept": int(kept.size),
+        "dropped": dropped,
+        "merged": {"exact_duplicate": dropped["exact_duplicate"]},
+        "examples": examples,
+        "objects": int(objects.size),
+        "roles": int(roles.size),
+        "role_names": [str(r) for r in roles],
+        "time_start": _iso(t0),
+        "time_end": _iso(t1),
+        "time_span_s": (t1 - t0) / 1e9,
+        "sampling_interval_s": _quantiles(gaps),
+        "zone_less_times": zone_less,
+        "time_note": (
+            f"{zone_less} kept {'row' if zone_less == 1 else 'rows'} had times without a "
+            "time zone; they were read as UTC."
+            if zone_less
+            else None
+        ),
+        "time_input": times.kind,
+        "coordinates": {
+            "input": raw.coords,
+            "input_crs": input_crs,
+            "working_crs": metric_crs.to_string() if metric_crs is not None else "planar metres",
+        },
+        "max_speed_m_s": params.max_speed,
+        "speed_spike_passes": passes,
+        "sources": [str(s) for s in raw.sources],
+    }
+    return fixes, quality
+
+
+def _human_seconds(seconds: float) -> str:
+    if seconds < 120:
+        return f"{seconds:.3g} s"
+    if seconds < 7200:
+        return f"{seconds / 60:.3g} min"
+    if seconds < 2 * 86400:
+        return f"{seconds / 3600:.3g} h"
+    return f"{seconds / 86400:.3g} days"
+
+
+def format_quality_summary(quality: dict) -> str:
+    """Summarise a quality report from :func:`clean_fixes` in a few lines for people.
+
+    Parameters
+    ----------
+    quality : dict
+        The report returned by :func:`clean_fixes`.
+
+    Returns
+    -------
+    str
+        Lines on rows read and kept, rows dropped by reason (only reasons that occurred),
+        objects, roles, time span, sampling interval and any time-zone note, without a
+        trailing newline.
+    """
+    read, kept = quality["rows_read"], quality["rows_kept"]
+    lines = [f"rows: {read:,} read, {kept:,} kept, {read - kept:,} dropped"]
+    dropped = {k: v for k, v in quality["dropped"].items() if v > 0}
+    if dropped:
+        parts = []
+        for name, count in dropped.items():
+            label = name.replace("_", " ")
+            if name == "exact_duplicate":
+                label += " (merged)"
+            parts.append(f"{label} {count:,}")
+        lines.append("dropped: " + ", ".join(parts))
+    names = quality.get("role_names") or []
+    shown = ", ".join(repr(r) if r == "" else r for r in names[:8])
+    if len(names) > 8:
+        shown += ", …"
+    lines.append(f"objects: {quality['objects']:,}; roles: {quality['roles']:,} ({shown})")
+    lines.append(
+        f"time: {quality['time_start']} to {quality['time_end']} "
+        f"({_human_seconds(quality['time_span_s'])})"
+    )
+    interval = quality["sampling_interval_s"]
+    if interval["median"] is None:
+        lines.append("sampling interval: no object has two fixes")
+    else:
+        lines.append(
+            f"sampling interval: median {_human_seconds(interval['median'])} "
+            f"(10-90 %: {_human_seconds(interval['p10'])} to {_human_seconds(interval['p90'])}, "
+            f"IQR {_human_seconds(interval['iqr'])})"
+        )
+    if quality.get("time_note"):
+        lines.append("note: " + quality["time_note"])
+    return "\n".join(lines)
