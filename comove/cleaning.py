@@ -248,6 +248,15 @@ def _parse_times(values: pd.Series, unit: str | None) -> _Times:
     """
     values = values.reset_index(drop=True)
     dtype = values.dtype
+    if isinstance(dtype, pd.CategoricalDtype):
+        # parse each distinct value once: fixes of one snapshot share their time text
+        codes = values.cat.codes.to_numpy()
+        distinct = _parse_times(pd.Series(np.asarray(values.cat.categories)), unit)
+        at = np.where(codes >= 0, codes, 0)
+        ok = distinct.ok[at] & (codes >= 0)
+        return _Times(
+            np.where(ok, distinct.ns[at], 0), ok, distinct.zone_less[at] & ok, distinct.kind
+        )
     if pd.api.types.is_datetime64_any_dtype(dtype):
         return _parse_datetimes(values)
     if pd.api.types.is_bool_dtype(dtype):
@@ -279,16 +288,37 @@ def _iso(ns: int) -> str:
     return text + "Z"
 
 
-def _missing_labels(series: pd.Series) -> np.ndarray:
-    text = series.astype("str")
-    return (text.isna() | (text.str.strip() == "")).to_numpy(dtype=bool)
+def _label_codes(series: pd.Series) -> tuple[np.ndarray, np.ndarray]:
+    """Return integer codes (-1 where missing or blank) and the sorted names behind them."""
+    if not isinstance(series.dtype, pd.CategoricalDtype):
+        text = series.astype("str").str.strip()
+        series = text.where(text != "").astype("category")
+    codes = series.cat.codes.to_numpy().astype(np.int64)
+    names = np.asarray(series.cat.categories, dtype=object).astype(str)
+    order = np.argsort(names, kind="stable")
+    rank = np.empty(order.size + 1, dtype=np.int64)
+    rank[order] = np.arange(order.size)
+    rank[-1] = -1
+    return rank[codes], names[order]
 
 
-def _labels(series: pd.Series, blank_as: str | None = None) -> np.ndarray:
-    text = series.astype("str").str.strip()
-    if blank_as is not None:
-        text = text.fillna(blank_as)
-    return text.to_numpy(dtype=object)
+def _sort_by_object_time(obj: np.ndarray, t: np.ndarray) -> np.ndarray:
+    """Return the stable order of rows by (object, time).
+
+    Two stable sorts instead of a lexsort: tracking files are usually already in
+    time order or object order, which the time sort's run detection makes cheap,
+    and the object codes are small integers.
+    """
+    by_time = np.argsort(t, kind="stable")
+    small = obj.astype(np.int16) if obj.size and obj.max() < 2**15 else obj
+    return by_time[np.argsort(small[by_time], kind="stable")]
+
+
+def _compact_codes(codes: np.ndarray, n_names: int) -> tuple[np.ndarray, np.ndarray]:
+    """Return the codes in use and the codes renumbered 0..k-1 in the same order."""
+    used = np.bincount(codes, minlength=n_names) > 0
+    remap = np.cumsum(used) - 1
+    return np.flatnonzero(used), remap[codes]
 
 
 def _describe_sources(sources: list[str]) -> str:
@@ -393,9 +423,15 @@ def clean_fixes(raw: RawTracks, params: CleanParams | None = None) -> tuple[Fixe
     def mark(mask: np.ndarray, name: str) -> None:
         reason[mask & (reason < 0)] = _CODE[name]
 
-    mark(_missing_labels(frame["object"]), "missing_id")
+    obj_all, obj_names = _label_codes(frame["object"])
+    role_all, role_names = _label_codes(frame["role"])
+    mark(obj_all < 0, "missing_id")
     if raw.role_required:
-        mark(_missing_labels(frame["role"]), "missing_role")
+        mark(role_all < 0, "missing_role")
+    elif (role_all < 0).any():
+        # roles are optional here: a missing one is the role "", which sorts first
+        role_names = np.append([""], role_names)
+        role_all = role_all + 1
 
     lonlat = raw.coords == "lonlat"
     a_col, b_col = ("lon", "lat") if lonlat else ("x", "y")
@@ -425,33 +461,37 @@ def clean_fixes(raw: RawTracks, params: CleanParams | None = None) -> tuple[Fixe
 
     # ---- duplicates, on the rows still valid
     valid = np.flatnonzero(reason < 0)
-    obj_codes, obj_names = pd.factorize(_labels(frame["object"].iloc[valid]), sort=True)
-    role_codes, role_names = pd.factorize(
-        _labels(frame["role"].iloc[valid], blank_as=""), sort=True
-    )
+    obj_codes, role_codes = obj_all[valid], role_all[valid]
     t = times.ns[valid]
     va, vb = a[valid], b[valid]
-    order = np.lexsort((role_codes, vb, va, t, obj_codes))
+    order = _sort_by_object_time(obj_codes, t)
     so, st = obj_codes[order], t[order]
-    same_time = (so[1:] == so[:-1]) & (st[1:] == st[:-1])
-    identical = (
-        same_time
-        & (va[order][1:] == va[order][:-1])
-        & (vb[order][1:] == vb[order][:-1])
-        & (role_codes[order][1:] == role_codes[order][:-1])
-    )
-    # lexsort is stable, so the first copy in file order is the one kept.
-    exact = np.zeros(order.size, dtype=bool)
-    exact[1:] = identical
-    reason[valid[order[exact]]] = _CODE["exact_duplicate"]
-    order = order[~exact]
-    so, st = obj_codes[order], t[order]
-    clash = (so[1:] == so[:-1]) & (st[1:] == st[:-1])
-    conflict = np.zeros(order.size, dtype=bool)
-    conflict[1:] |= clash
-    conflict[:-1] |= clash
-    reason[valid[order[conflict]]] = _CODE["conflicting_duplicate"]
-    order = order[~conflict]
+    tie = (so[1:] == so[:-1]) & (st[1:] == st[:-1])
+    if tie.any():
+        # only rows sharing an (object, time) need their positions and roles compared
+        in_tie = np.zeros(order.size, dtype=bool)
+        in_tie[1:] |= tie
+        in_tie[:-1] |= tie
+        sub = order[in_tie]
+        sub = sub[np.lexsort((role_codes[sub], vb[sub], va[sub], t[sub], obj_codes[sub]))]
+        same_key = (obj_codes[sub][1:] == obj_codes[sub][:-1]) & (t[sub][1:] == t[sub][:-1])
+        identical = (
+            same_key
+            & (va[sub][1:] == va[sub][:-1])
+            & (vb[sub][1:] == vb[sub][:-1])
+            & (role_codes[sub][1:] == role_codes[sub][:-1])
+        )
+        # lexsort is stable, so the first copy in file order is the one kept.
+        exact = np.zeros(sub.size, dtype=bool)
+        exact[1:] = identical
+        reason[valid[sub[exact]]] = _CODE["exact_duplicate"]
+        rest = sub[~exact]
+        clash = (obj_codes[rest][1:] == obj_codes[rest][:-1]) & (t[rest][1:] == t[rest][:-1])
+        conflict = np.zeros(rest.size, dtype=bool)
+        conflict[1:] |= clash
+        conflict[:-1] |= clash
+        reason[valid[rest[conflict]]] = _CODE["conflicting_duplicate"]
+        order = order[reason[valid[order]] < 0]
     kept = valid[order]  # original row numbers, sorted by (object, time)
     k_obj, k_role = obj_codes[order], role_codes[order]
 
@@ -487,20 +527,16 @@ def clean_fixes(raw: RawTracks, params: CleanParams | None = None) -> tuple[Fixe
     # ---- report
     counts = np.bincount(reason[reason >= 0].astype(np.intp), minlength=len(DROP_REASONS))
     dropped = {name: int(counts[i]) for i, name in enumerate(DROP_REASONS)}
-    sources_col = (
-        frame["source"].astype("str").to_numpy(dtype=object)
-        if "source" in frame
-        else np.full(n, _describe_sources(raw.sources), dtype=object)
-    )
-    rows_col = (
-        frame["row"].to_numpy(dtype=np.int64)
-        if "row" in frame
-        else np.arange(1, n + 1, dtype=np.int64)
-    )
     examples = {}
     for i, name in enumerate(DROP_REASONS):
         where = np.flatnonzero(reason == i)[:MAX_EXAMPLES]
-        examples[name] = [{"source": str(sources_col[j]), "row": int(rows_col[j])} for j in where]
+        src = (
+            frame["source"].iloc[where].astype("str").tolist()
+            if "source" in frame
+            else [_describe_sources(raw.sources)] * where.size
+        )
+        rows = frame["row"].iloc[where].tolist() if "row" in frame else (where + 1).tolist()
+        examples[name] = [{"source": str(f), "row": int(r)} for f, r in zip(src, rows, strict=True)]
 
     if kept.size == 0:
         main = max(DROP_REASONS, key=lambda r: dropped[r]) if n else None
@@ -515,8 +551,8 @@ def clean_fixes(raw: RawTracks, params: CleanParams | None = None) -> tuple[Fixe
         )
 
     # Codes are re-made over the kept fixes so that they run 0..n-1 without gaps.
-    obj_used, obj_final = np.unique(k_obj, return_inverse=True)
-    role_used, role_final = np.unique(k_role, return_inverse=True)
+    obj_used, obj_final = _compact_codes(k_obj, len(obj_names))
+    role_used, role_final = _compact_codes(k_role, len(role_names))
     objects = np.asarray(obj_names, dtype=object)[obj_used].astype(str)
     roles = np.asarray(role_names, dtype=object)[role_used].astype(str)
     kt = times.ns[kept]

@@ -283,14 +283,16 @@ def read_tracks(source: Any, columns: ColumnSpec | None = None) -> RawTracks:
                 )
         parts.append(part)
 
-    frame = pd.concat([p.frame for p in parts], ignore_index=True)
+    frame = (
+        parts[0].frame
+        if len(parts) == 1
+        else pd.concat([p.frame for p in parts], ignore_index=True)
+    )
     lengths = [len(p.frame) for p in parts]
     frame["source"] = pd.Categorical.from_codes(
         np.repeat(np.arange(len(tables)), lengths), categories=[t.name for t in tables]
     )
     frame["row"] = np.concatenate([np.arange(1, n + 1, dtype=np.int64) for n in lengths])
-    coord_cols = ["lon", "lat"] if parts[0].coords == "lonlat" else ["x", "y"]
-    frame = frame[["object", "time", *coord_cols, "role", "source", "row"]]
     return RawTracks(
         frame=frame,
         coords=parts[0].coords,
@@ -594,6 +596,23 @@ def _has_geo_metadata(path: str) -> bool:
     return b"geo" in metadata
 
 
+def _read_plain_parquet(path: str) -> pd.DataFrame:
+    """Return a Parquet file as a frame, text columns as categoricals.
+
+    Ids, roles and often times repeat across millions of rows: dictionary
+    decoding is several times faster than building Python strings, and later
+    stages then work on the distinct values only.
+    """
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    schema = pq.read_schema(path)
+    text = [
+        f.name for f in schema if pa.types.is_string(f.type) or pa.types.is_large_string(f.type)
+    ]
+    return pq.read_table(path, read_dictionary=text).to_pandas()
+
+
 def _read_table(table: _Table) -> _Table:
     """Load a Parquet or geo file into ``table.data``."""
     path = table.name
@@ -606,7 +625,7 @@ def _read_table(table: _Table) -> _Table:
                 return _Table(
                     table.name, table.resolved, geopandas.read_parquet(path), geometry=True
                 )
-            return _Table(table.name, table.resolved, pd.read_parquet(path))
+            return _Table(table.name, table.resolved, _read_plain_parquet(path))
         except Exception as exc:  # noqa: BLE001 - any reader failure is a bad file to the user
             raise _read_error(table.name, "Parquet", exc) from exc
     import geopandas
@@ -665,12 +684,8 @@ def _standardise(
                 table.name, visible, spec, geometry=table.geometry, time_index=time_index
             )
 
-    frame = pd.DataFrame(index=pd.RangeIndex(len(data)))
     # .array keeps time zones and assigns by position whatever the input's index is.
-    frame["object"] = _labels(data[mapping["id"]]).array
     time_values = data.index if mapping["time"] == _INDEX else data[mapping["time"]]
-    frame["time"] = time_values.array
-
     crs: str | None
     if "lon" in mapping or "x" in mapping:
         pair = ("lon", "lat") if "lon" in mapping else ("x", "y")
@@ -679,15 +694,24 @@ def _standardise(
         coords, crs = _column_coords(table.name, spec, lonlat=pair[0] == "lon")
     else:
         a, b, coords, crs = _geometry_coords(table, spec)
-    if coords == "lonlat":
-        frame["lon"], frame["lat"] = a, b
-    else:
-        frame["x"], frame["y"] = a, b
-
-    if "role" in mapping:
-        frame["role"] = _labels(data[mapping["role"]]).array
-    else:
-        frame["role"] = pd.Series("", index=frame.index, dtype="str")
+    a_name, b_name = ("lon", "lat") if coords == "lonlat" else ("x", "y")
+    role = (
+        _labels(data[mapping["role"]]).array
+        if "role" in mapping
+        else pd.Categorical.from_codes(np.zeros(len(data), int), categories=pd.Index([""], "str"))
+    )
+    # one constructor call, no per-column copies: these columns can be millions of rows
+    frame = pd.DataFrame(
+        {
+            "object": _labels(data[mapping["id"]]).array,
+            "time": time_values.array,
+            a_name: a,
+            b_name: b,
+            "role": role,
+        },
+        index=pd.RangeIndex(len(data)),
+        copy=False,
+    )
 
     report = dict(mapping)
     if table.fixed:
@@ -730,12 +754,30 @@ def _floats(series: pd.Series) -> np.ndarray:
 
 
 def _labels(series: pd.Series) -> pd.Series:
-    """Ids or roles as strings; integer-valued numbers print without a decimal point."""
+    """Ids or roles as a categorical of stripped strings; blanks and NaN become missing.
+
+    The values are factorised first and only the distinct values are turned into text,
+    so millions of rows with a few dozen ids cost one factorisation. Integer-valued
+    numbers print without a decimal point ("7", not "7.0").
+    """
     if isinstance(series.dtype, pd.CategoricalDtype):
-        categories = _labels(pd.Series(series.cat.categories)).to_numpy(dtype=object)
         codes = series.cat.codes.to_numpy()
-        values = np.where(codes >= 0, categories[np.maximum(codes, 0)], None)
-        return pd.Series(values, index=series.index, dtype="str")
+        uniques = pd.Series(np.asarray(series.cat.categories))
+    else:
+        codes, uniq = pd.factorize(series, use_na_sentinel=True)
+        uniques = pd.Series(np.asarray(uniq), dtype=series.dtype if len(uniq) else None)
+    names = _label_text(uniques).to_numpy(dtype=object)
+    valid = pd.notna(names)
+    categories, inverse = np.unique(names[valid].astype(str), return_inverse=True)
+    remap = np.full(names.size + 1, -1, dtype=np.int64)
+    remap[:-1][valid] = inverse
+    new_codes = remap[np.where(codes >= 0, codes, names.size)]
+    categorical = pd.Categorical.from_codes(new_codes, categories=pd.Index(categories, dtype="str"))
+    return pd.Series(categorical, index=series.index)
+
+
+def _label_text(series: pd.Series) -> pd.Series:
+    """Distinct id or role values as strings; blank strings become missing."""
     dtype = series.dtype
     if pd.api.types.is_bool_dtype(dtype):
         return series.astype("str")

@@ -12,11 +12,15 @@ from comove.results import csv_writer, json_writer, write_folder
 
 
 def test_writes_every_file(tmp_path):
-    out = write_folder(tmp_path / "res", {
-        "a.csv": csv_writer(pd.DataFrame({"v": [1, 2],
-                                          "t": pd.to_datetime([0, 10**9], utc=True)})),
-        "b.json": json_writer({"k": 1}),
-    })
+    out = write_folder(
+        tmp_path / "res",
+        {
+            "a.csv": csv_writer(
+                pd.DataFrame({"v": [1, 2], "t": pd.to_datetime([0, 10**9], utc=True)})
+            ),
+            "b.json": json_writer({"k": 1}),
+        },
+    )
     assert sorted(p.name for p in out.iterdir()) == ["a.csv", "b.json"]
     assert json.loads((out / "b.json").read_text()) == {"k": 1}
     assert "1970-01-01T00:00:01.000000Z" in (out / "a.csv").read_text()

@@ -1,0 +1,170 @@
+"""Command line: a thin layer over :mod:`comove.pipeline`.
+
+Every option of a stage comes from the fields of that stage's settings
+dataclass, so flags, defaults and the library share one definition.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import typing
+from dataclasses import MISSING, fields
+from pathlib import Path
+from typing import Any, NoReturn
+
+import comove
+from comove.cleaning import format_quality_summary
+from comove.errors import InputError
+from comove.pipeline import CAUTION, MINE_STAGES, mine
+
+EXIT_INPUT = 2
+
+#: Help for the column options, which the reading stage names but documents here.
+_COLUMN_HELP = {
+    "id": "column of object ids (default: detected from common names)",
+    "time": "column of times: ISO 8601 (zone-less means UTC), epoch s or ms (default: detected)",
+    "x": "column of planar x in metres, or in --crs units (default: detected)",
+    "y": "column of planar y in metres, or in --crs units (default: detected)",
+    "lon": "column of longitude in degrees (WGS84); projected to a local metric CRS",
+    "lat": "column of latitude in degrees (WGS84)",
+    "role": "column of object roles (default: detected)",
+    "crs": "CRS of the x/y columns when they are not planar metres, e.g. EPSG:32633",
+    "time_unit": "unit of numeric times: s or ms (default: ms when values exceed 1e11)",
+}
+_HIDDEN = {"require_role"}
+
+
+class _Parser(argparse.ArgumentParser):
+    """An argument parser whose errors are one line and exit with status 2."""
+
+    def error(self, message: str) -> NoReturn:
+        self.exit(EXIT_INPUT, f"{self.prog}: error: {message} (see {self.prog} --help)\n")
+
+
+def _scalar_type(annotation: Any) -> type:
+    """Return the non-None type of a field annotation such as ``float | None``."""
+    args = [a for a in typing.get_args(annotation) if a is not type(None)]
+    return args[0] if args else annotation
+
+
+def _add_stage_options(
+    parser: argparse.ArgumentParser, stages: tuple[type, ...], required: set[str]
+) -> None:
+    for stage in stages:
+        group = parser.add_argument_group(stage.__doc__.splitlines()[0].rstrip("."))
+        hints = typing.get_type_hints(stage)
+        for f in fields(stage):
+            if f.name in _HIDDEN:
+                continue
+            default = None if f.default is MISSING else f.default
+            help_text = f.metadata.get("help") or _COLUMN_HELP.get(f.name, "")
+            if default is not None:
+                help_text += f" (default: {default})"
+            group.add_argument(
+                "--" + f.name.replace("_", "-"),
+                dest=f.name,
+                type=_scalar_type(hints[f.name]),
+                default=None,
+                required=f.name in required,
+                metavar=f.name.upper(),
+                help=help_text,
+            )
+
+
+def _stage_options(args: argparse.Namespace, stages: tuple[type, ...]) -> dict[str, Any]:
+    names = {f.name for stage in stages for f in fields(stage)} - _HIDDEN
+    return {n: getattr(args, n) for n in names if getattr(args, n) is not None}
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """Return the parser of the ``comove`` command."""
+    parser = _Parser(prog="comove", description="Which roles and which objects move together.")
+    parser.add_argument("--version", action="version", version=f"comove {comove.__version__}")
+    sub = parser.add_subparsers(dest="command", required=True, parser_class=_Parser)
+
+    p = sub.add_parser(
+        "mine",
+        help="durable role co-location patterns of tracks",
+        description="Find the sets of roles whose objects stay close together.",
+    )
+    p.add_argument(
+        "input",
+        nargs="+",
+        help="track file(s) or glob(s): CSV, TSV, Parquet, GeoParquet, GeoPackage, GeoJSON",
+    )
+    p.add_argument("--out", required=True, type=Path, help="results folder to create")
+    _add_stage_options(p, MINE_STAGES, required={"radius"})
+    _add_common(p)
+
+    d = sub.add_parser(
+        "demo",
+        help="run the miner on a bundled invented scenario",
+        description="Run `comove mine` on the bundled small-sided game.",
+    )
+    d.add_argument(
+        "--out",
+        type=Path,
+        default=Path("comove-demo"),
+        help="results folder to create (default: comove-demo)",
+    )
+    _add_common(d)
+    return parser
+
+
+def _add_common(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--force", action="store_true", help="replace an existing results folder")
+    p.add_argument("--quiet", action="store_true", help="print nothing but errors")
+
+
+def _report(result: comove.pipeline.MiningResult, out: Path, quiet: bool) -> None:
+    if quiet:
+        return
+    print(format_quality_summary(result.quality))
+    n = len(result.patterns)
+    print(f"\n{n} durable role set{'s' if n != 1 else ''} kept.")
+    if n:
+        top = result.patterns.head(10)[["roles", "time_prevalence", "longest_run_seconds"]]
+        print(top.to_string(index=False, float_format=lambda v: f"{v:.3f}"))
+    print(f"\nResults written to {out}/")
+    print(f"Caution: {CAUTION}")
+
+
+def _run_mine(args: argparse.Namespace) -> None:
+    source = args.input[0] if len(args.input) == 1 else list(args.input)
+    result = mine(source, progress=not args.quiet, **_stage_options(args, MINE_STAGES))
+    out = result.write(args.out, force=args.force)
+    _report(result, out, args.quiet)
+
+
+def _run_demo(args: argparse.Namespace) -> None:
+    from comove.scenarios import demo_options
+
+    source, options = demo_options()
+    if not args.quiet:
+        print(f"Demo scenario: {source}")
+    result = mine(source, progress=not args.quiet, **options)
+    out = result.write(args.out, force=args.force)
+    _report(result, out, args.quiet)
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Run the ``comove`` command and return its exit status."""
+    args = build_parser().parse_args(argv)
+    try:
+        {"mine": _run_mine, "demo": _run_demo}[args.command](args)
+    except InputError as err:
+        print(f"comove {args.command}: error: {err}", file=sys.stderr)
+        return EXIT_INPUT
+    except KeyboardInterrupt:
+        print(f"comove {args.command}: interrupted; nothing was written", file=sys.stderr)
+        return 130
+    except OSError as err:
+        where = f"{err.filename}: " if err.filename else ""
+        print(f"comove {args.command}: error: {where}{err.strerror or err}", file=sys.stderr)
+        return 1
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

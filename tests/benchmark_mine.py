@@ -1,0 +1,214 @@
+"""Benchmark of ``comove mine`` at sports scale, beside a bare reference.
+
+Run from the repository root::
+
+    python tests/benchmark_mine.py [--minutes 90] [--hz 25] [--out bench-out]
+
+It writes an invented match (23 objects at 25 Hz for 90 minutes: 3.1 M fixes)
+to Parquet, then measures, each in a fresh subprocess so that peak memory is
+its own:
+
+1. the bare reference: read the file with pyarrow, put the fixes on the grid
+   (they already are), and one scipy cKDTree radius query over all snapshots
+   laid side by side;
+2. ``comove mine`` on the same file with ``--max-size 3``;
+3. a straightforward per-snapshot loop (networkx graph + clique enumeration
+   per snapshot, counting participation from the cliques), timed on a sample
+   of snapshots and scaled to the whole match.
+
+Wall time and peak resident memory (ru_maxrss) are printed as a Markdown
+table; paste it into docs/performance.md with the date and machine.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import subprocess
+import sys
+import textwrap
+import time
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+RADIUS = 5.0
+ROLES = (
+    ["keeper"]
+    + ["centre_back"] * 2
+    + ["full_back"] * 2
+    + ["midfielder"] * 3
+    + ["winger"] * 2
+    + ["striker"]
+)
+
+
+def invented_match(minutes: float, hz: float, seed: int = 5) -> pd.DataFrame:
+    """Return an invented match: two sides of 11 and one official on a 105 x 68 m pitch."""
+    rng = np.random.default_rng(seed)
+    n_t = int(minutes * 60 * hz)
+    dt = 1.0 / hz
+    # a slowly wandering ball-side centre that everyone is drawn towards
+    walk = np.cumsum(rng.normal(0, 3.0, (n_t, 2)), axis=0) * np.sqrt(dt)
+    centre = np.array([52.5, 34.0]) + np.array([30.0, 20.0]) * np.tanh(walk / 40)
+    frames = []
+    roles = [f"home_{r}" for r in ROLES] + [f"away_{r}" for r in ROLES] + ["official"]
+    for k, role in enumerate(roles):
+        home_spot = rng.uniform([10, 5], [95, 63])
+        drift = np.cumsum(rng.normal(0, 1.0, (n_t, 2)), axis=0) * np.sqrt(dt)
+        pos = 0.6 * home_spot + 0.4 * centre + 8 * np.tanh(drift / 8)
+        frames.append(
+            pd.DataFrame(
+                {
+                    "player": f"P{k:02d}",
+                    "t": 1_790_000_000 + np.arange(n_t) * dt,
+                    "x": np.clip(pos[:, 0], 0, 105),
+                    "y": np.clip(pos[:, 1], 0, 68),
+                    "role": role,
+                }
+            )
+        )
+    return pd.concat(frames, ignore_index=True)
+
+
+REFERENCE = textwrap.dedent("""
+    import sys, time, numpy as np, pyarrow.parquet as pq
+    from scipy.spatial import cKDTree
+    t0 = time.perf_counter()
+    table = pq.read_table(sys.argv[1], columns=["player", "t", "x", "y"])
+    t = table["t"].to_numpy(); x = table["x"].to_numpy(); y = table["y"].to_numpy()
+    snap = np.round((t - t.min()) * float(sys.argv[3])).astype(np.int64)
+    order = np.argsort(snap, kind="stable")
+    snap, x, y = snap[order], x[order], y[order]
+    r = float(sys.argv[2])
+    pitch = (x.max() - x.min()) + 2 * r + 1
+    tree = cKDTree(np.column_stack([x - x.min() + snap * pitch, y]),
+                   balanced_tree=False, compact_nodes=False)
+    pairs = tree.query_pairs(r, output_type="ndarray")
+    print(len(pairs), time.perf_counter() - t0)
+""")
+
+NAIVE = textwrap.dedent("""
+    import sys, time, itertools, numpy as np, pandas as pd, networkx as nx
+    frame = pd.read_parquet(sys.argv[1])
+    r = float(sys.argv[2]); sample = int(sys.argv[3])
+    times = np.sort(frame["t"].unique())
+    pick = set(times[np.linspace(0, times.size - 1, sample).astype(int)].tolist())
+    frame = frame[frame["t"].isin(pick)]
+    t0 = time.perf_counter()
+    for _, snap in frame.groupby("t"):
+        pts = snap[["x", "y"]].to_numpy(); roles = snap["role"].to_numpy()
+        g = nx.Graph(); g.add_nodes_from(range(len(pts)))
+        for a, b in itertools.combinations(range(len(pts)), 2):
+            if np.hypot(*(pts[a] - pts[b])) <= r:
+                g.add_edge(a, b)
+        members = {}
+        for clique in nx.enumerate_all_cliques(g):
+            if len(clique) > 3:
+                break
+            key = tuple(sorted(roles[clique]))
+            if len(clique) > 1 and len(set(key)) == len(key):
+                members.setdefault(key, set()).update(clique)
+        counts = pd.Series(roles).value_counts()
+        for key, objs in members.items():
+            min(sum(roles[o] == f for o in objs) / counts[f] for f in key)
+    print(time.perf_counter() - t0)
+""")
+
+
+def run_measured(cmd: list[str], repeat: int = 1) -> tuple[float, float, str]:
+    """Return the median wall seconds, peak RSS MiB and stdout of ``repeat`` subprocess runs."""
+    runs = [_run_once(cmd) for _ in range(repeat)]
+    walls = sorted(r[0] for r in runs)
+    return walls[len(walls) // 2], max(r[1] for r in runs), runs[-1][2]
+
+
+def _run_once(cmd: list[str]) -> tuple[float, float, str]:
+    wrapper = textwrap.dedent("""
+        import resource, subprocess, sys, time, json
+        t0 = time.perf_counter()
+        p = subprocess.run(sys.argv[1:], capture_output=True, text=True)
+        wall = time.perf_counter() - t0
+        peak = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1024
+        if p.returncode:
+            sys.stderr.write(p.stderr); sys.exit(p.returncode)
+        print(json.dumps({"wall": wall, "peak": peak, "out": p.stdout}))
+    """)
+    done = subprocess.run(
+        [sys.executable, "-c", wrapper, *cmd], capture_output=True, text=True, check=True
+    )
+    res = json.loads(done.stdout)
+    return res["wall"], res["peak"], res["out"]
+
+
+def main() -> None:
+    """Run the benchmark and print the table."""
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--minutes", type=float, default=90.0)
+    parser.add_argument("--hz", type=float, default=25.0)
+    parser.add_argument("--naive-sample", type=int, default=3000)
+    parser.add_argument("--repeat", type=int, default=3, help="runs of each; the median counts")
+    parser.add_argument("--out", type=Path, default=Path("bench-out"))
+    args = parser.parse_args()
+    args.out.mkdir(parents=True, exist_ok=True)
+    data = args.out / "match.parquet"
+    frame = invented_match(args.minutes, args.hz)
+    frame.to_parquet(data, index=False)
+    n_snap = frame["t"].nunique()
+    print(f"{len(frame):,} fixes, {n_snap:,} snapshots, {frame['player'].nunique()} objects")
+
+    ref_wall, ref_peak, ref_out = run_measured(
+        [sys.executable, "-c", REFERENCE, str(data), str(RADIUS), str(args.hz)], args.repeat
+    )
+    results = args.out / "results"
+    mine_wall, mine_peak, _ = run_measured(
+        [
+            sys.executable,
+            "-m",
+            "comove.cli",
+            "mine",
+            str(data),
+            "--radius",
+            str(RADIUS),
+            "--max-size",
+            "3",
+            "--step",
+            str(1 / args.hz),
+            "--out",
+            str(results),
+            "--force",
+            "--quiet",
+        ],
+        args.repeat,
+    )
+    naive_wall, _, naive_out = run_measured(
+        [sys.executable, "-c", NAIVE, str(data), str(RADIUS), str(args.naive_sample)]
+    )
+    naive_per_snapshot = float(naive_out.split()[-1]) / args.naive_sample
+    naive_total = naive_per_snapshot * n_snap
+    patterns = pd.read_csv(results / "patterns.csv")
+    print()
+    print("| run | wall time (s) | peak memory (MiB) |")
+    print("|---|---:|---:|")
+    print(
+        f"| bare reference (pyarrow read + one cKDTree radius pass) | {ref_wall:.1f} | "
+        f"{ref_peak:.0f} |"
+    )
+    print(f"| `comove mine --max-size 3` | {mine_wall:.1f} | {mine_peak:.0f} |")
+    print(
+        f"| per-snapshot networkx cliques (scaled from {args.naive_sample:,} snapshots) | "
+        f"{naive_total:.0f} | — |"
+    )
+    print()
+    print(
+        f"comove / reference: {mine_wall / ref_wall:.2f}x; "
+        f"per-snapshot loop / comove: {naive_total / mine_wall:.1f}x; "
+        f"{ref_out.split()[0]} neighbour pairs; {len(patterns)} patterns kept"
+    )
+    print(f"cores: {os.cpu_count()}, python {sys.version.split()[0]}, {time.strftime('%Y-%m-%d')}")
+
+
+if __name__ == "__main__":
+    main()
