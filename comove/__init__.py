@@ -4,11 +4,12 @@ from __future__ import annotations
 
 from importlib.metadata import PackageNotFoundError, version
 
-from comove.errors import InputError
-
 try:
     __version__ = version("comove")
 except PackageNotFoundError:  # running from a source tree that is not installed
     __version__ = "0.0.0+unknown"
 
-__all__ = ["InputError", "__version__"]
+from comove.errors import InputError  # noqa: E402
+from comove.pipeline import MiningResult, mine  # noqa: E402
+
+__all__ = ["InputError", "MiningResult", "__version__", "mine"]

@@ -150,7 +150,10 @@ def _run_demo(args: argparse.Namespace) -> None:
 
 def main(argv: list[str] | None = None) -> int:
     """Run the ``comove`` command and return its exit status."""
-    args = build_parser().parse_args(argv)
+    try:
+        args = build_parser().parse_args(argv)
+    except SystemExit as done:  # --help, --version, or a usage error already printed
+        return int(done.code or 0)
     try:
         {"mine": _run_mine, "demo": _run_demo}[args.command](args)
     except InputError as err:

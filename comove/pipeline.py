@@ -66,7 +66,8 @@ class _Progress:
     """A stage progress bar that can be switched off."""
 
     def __init__(self, enabled: bool, total: int) -> None:
-        self.bar = tqdm(total=total, disable=not enabled, unit="stage", leave=False)
+        # disable=None: shown on a terminal only, so logs and pipes get no bar debris
+        self.bar = tqdm(total=total, disable=None if enabled else True, unit="stage", leave=False)
 
     @contextmanager
     def stage(self, name: str) -> Iterator[None]:

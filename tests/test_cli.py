@@ -1,0 +1,139 @@
+"""The command line: results on disk, and one-line errors with exit status 2."""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from comove.cli import main
+
+
+@pytest.fixture
+def tracks_csv(tmp_path):
+    rng = np.random.default_rng(0)
+    rows = []
+    for k, role in enumerate(["dog", "dog", "owner", "owner", "cat"]):
+        base = rng.uniform(0, 50, 2)
+        for t in range(60):
+            # each dog walks beside one owner; the cat wanders alone
+            anchor = np.array([t * 0.5, 10.0 * (k % 2)]) if role != "cat" else base
+            pos = anchor + rng.normal(0, 0.3, 2) + (0.8 if role == "owner" else 0.0)
+            rows.append((f"a{k}", 1_790_000_000 + t, pos[0], pos[1], role))
+    path = tmp_path / "walks.csv"
+    pd.DataFrame(rows, columns=["id", "time", "x", "y", "role"]).to_csv(path, index=False)
+    return path
+
+
+def run(argv, capsys):
+    code = main([str(a) for a in argv])
+    out, err = capsys.readouterr()
+    return code, out, err
+
+
+def test_mine_writes_the_results_folder(tracks_csv, tmp_path, capsys):
+    out_dir = tmp_path / "res"
+    code, out, err = run(["mine", tracks_csv, "--radius", 2, "--out", out_dir], capsys)
+    assert code == 0, err
+    assert sorted(p.name for p in out_dir.iterdir()) == [
+        "participation.csv", "patterns.csv", "pi_series.parquet", "quality.json", "run.json",
+    ]  # fmt: skip
+    patterns = pd.read_csv(out_dir / "patterns.csv")
+    assert patterns["roles"].tolist() == ["dog;owner"]
+    assert patterns["time_prevalence"].iloc[0] == pytest.approx(1.0)
+    run_json = json.loads((out_dir / "run.json").read_text())
+    assert run_json["settings"]["ColocationParams"]["radius"] == 2.0
+    assert run_json["settings"]["AlignParams"]["step"] == 1.0
+    assert run_json["input_digest"].startswith("sha256:")
+    assert run_json["versions"]["comove"]
+    quality = json.loads((out_dir / "quality.json").read_text())
+    assert quality["rows_read"] == 300
+    series = pd.read_parquet(out_dir / "pi_series.parquet")
+    assert len(series) == 60 and series["prevalent"].all()
+    assert "dog;owner" in out and "personal data" in out
+
+
+def test_quiet_prints_nothing(tracks_csv, tmp_path, capsys):
+    code, out, err = run(
+        ["mine", tracks_csv, "--radius", 2, "--out", tmp_path / "r", "--quiet"], capsys
+    )
+    assert (code, out, err) == (0, "", "")
+
+
+def test_existing_results_are_not_overwritten_without_force(tracks_csv, tmp_path, capsys):
+    out_dir = tmp_path / "res"
+    out_dir.mkdir()
+    (out_dir / "keep.txt").write_text("mine")
+    code, _, err = run(["mine", tracks_csv, "--radius", 2, "--out", out_dir], capsys)
+    assert code == 2
+    assert err.strip().endswith("already exists; choose another --out or add --force to replace it")
+    assert (out_dir / "keep.txt").read_text() == "mine"
+    code, _, _ = run(["mine", tracks_csv, "--radius", 2, "--out", out_dir, "--force"], capsys)
+    assert code == 0
+    assert not (out_dir / "keep.txt").exists()
+
+
+def _bad(tmp_path, name, text):
+    path = tmp_path / name
+    path.write_text(text)
+    return path
+
+
+@pytest.mark.parametrize(
+    ("make_input", "extra", "expected"),
+    [
+        (lambda p: p / "missing.csv", [], "missing.csv"),
+        (lambda p: _bad(p, "tracks.xlsx", "x"), [], "unknown file type"),
+        (lambda p: _bad(p, "empty.csv", "id,time,x,y,role\n"), [], "empty.csv"),
+        (lambda p: _bad(p, "norole.csv", "id,time,x,y\na,0,0,0\n"), [], "--role"),
+        (lambda p: _bad(p, "t.csv", "id,time,x,y,role\na,0,0,0,r\n"), ["--lon", "x", "--lat", "north"],
+         "north"),
+        (lambda p: _bad(p, "badtime.csv", "id,time,x,y,role\na,soon,0,0,r\nb,later,1,1,s\n"),
+         [], "unparseable time"),
+        (lambda p: p / "nothing-*.csv", [], "nothing-*.csv"),
+    ],
+)  # fmt: skip
+def test_bad_input_is_one_line_with_status_2(tmp_path, capsys, make_input, extra, expected):
+    source = make_input(tmp_path)
+    code, out, err = run(["mine", source, "--radius", 2, "--out", tmp_path / "o", *extra], capsys)
+    assert code == 2
+    assert err.count("\n") == 1 and "Traceback" not in err
+    assert expected in err
+    assert not (tmp_path / "o").exists()
+
+
+@pytest.mark.parametrize(
+    ("options", "expected"),
+    [
+        ([], "--radius"),
+        (["--radius", "abc"], "--radius"),
+        (["--radius", "-1"], "--radius must be a positive"),
+        (["--radius", "2", "--min-participation", "1.5"], "--min-participation must be in"),
+        (["--radius", "2", "--min-prevalence", "0"], "--min-prevalence must be in"),
+        (["--radius", "2", "--max-size", "1"], "--max-size"),
+        (["--radius", "2", "--step", "0"], "--step"),
+        (["--radius", "2", "--time-unit", "h"], "time"),
+        (["--radius", "2", "--x", "x"], "--y"),
+    ],
+)
+def test_bad_options_are_one_line_with_status_2(tracks_csv, tmp_path, capsys, options,
+                                                expected):
+    code, _, err = run(["mine", tracks_csv, "--out", tmp_path / "o", *options], capsys)
+    assert code == 2
+    assert err.count("\n") == 1 and expected in err
+    assert not (tmp_path / "o").exists()
+
+
+def test_real_process_exit_status_and_no_traceback(tmp_path):
+    done = subprocess.run(
+        [sys.executable, "-m", "comove.cli", "mine", str(tmp_path / "absent.parquet"),
+         "--radius", "3", "--out", str(tmp_path / "o")],
+        capture_output=True, text=True,
+    )  # fmt: skip
+    assert done.returncode == 2
+    assert done.stderr.count("\n") == 1 and "Traceback" not in done.stderr
+    assert "absent.parquet" in done.stderr
