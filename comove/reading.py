@@ -81,6 +81,30 @@ TEXT_SUFFIXES = (".csv", ".tsv", ".tab", ".txt")
 PARQUET_SUFFIXES = (".parquet", ".pq")
 GEO_SUFFIXES = (".gpkg", ".geojson", ".json")
 _ALL_SUFFIXES = TEXT_SUFFIXES + PARQUET_SUFFIXES + GEO_SUFFIXES
+#: Compressions of text files, read transparently (``tracks.csv.gz``).
+COMPRESSION_SUFFIXES = {".gz": "gzip", ".bz2": "bz2", ".xz": "lzma"}
+
+
+def _kind_suffix(path: str) -> str:
+    """Return the suffix that names a file's format, looking past a compression suffix."""
+    p = Path(path)
+    suffix = p.suffix.lower()
+    if suffix in COMPRESSION_SUFFIXES:
+        suffix = Path(p.stem).suffix.lower()
+    return suffix
+
+
+def _open_text(path: str):
+    """Open a possibly compressed text file for reading its first lines."""
+    module = COMPRESSION_SUFFIXES.get(Path(path).suffix.lower())
+    if module is None:
+        return open(path, encoding="utf-8-sig", errors="replace", newline="")
+    import importlib
+
+    return importlib.import_module(module).open(
+        path, "rt", encoding="utf-8-sig", errors="replace", newline=""
+    )
+
 
 # A projected CRS in metres is used as the working plane as it stands only when its scale
 # error over the data stays below this; UTM inside its zone does (under about 1000 ppm),
@@ -539,9 +563,9 @@ def _read_error(name: str, kind: str, exc: BaseException) -> InputError:
 
 def _text_layout(path: str, name: str) -> tuple[str, list[str]]:
     """Delimiter and header of a delimited text file."""
-    suffix = Path(path).suffix.lower()
+    suffix = _kind_suffix(path)
     try:
-        with open(path, encoding="utf-8-sig", errors="replace", newline="") as handle:
+        with _open_text(path) as handle:
             sample = handle.read(65536)
     except OSError as exc:
         raise _read_error(name, "text", exc) from exc
@@ -645,11 +669,11 @@ def _standardise(
     table: _Table, spec: ColumnSpec, reference: tuple[_Table, dict[str, str]] | None
 ) -> tuple[_Part, dict[str, str]]:
     if table.is_file:
-        suffix = Path(table.name).suffix.lower()
+        suffix = _kind_suffix(table.name)
         if suffix not in _ALL_SUFFIXES:
             raise InputError(
                 f"{table.name}: unknown file type {suffix or '(no extension)'!r}; use "
-                f"{', '.join(_ALL_SUFFIXES)}"
+                f"{', '.join(_ALL_SUFFIXES)} (text files may be compressed: .gz, .bz2, .xz)"
             )
         if suffix in TEXT_SUFFIXES:
             data, mapping = _read_text(table, spec, reference)

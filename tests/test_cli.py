@@ -90,8 +90,8 @@ def _bad(tmp_path, name, text):
         (lambda p: _bad(p, "tracks.xlsx", "x"), [], "unknown file type"),
         (lambda p: _bad(p, "empty.csv", "id,time,x,y,role\n"), [], "empty.csv"),
         (lambda p: _bad(p, "norole.csv", "id,time,x,y\na,0,0,0\n"), [], "--role"),
-        (lambda p: _bad(p, "t.csv", "id,time,x,y,role\na,0,0,0,r\n"), ["--lon", "x", "--lat", "north"],
-         "north"),
+        (lambda p: _bad(p, "t.csv", "id,time,x,y,role\na,0,0,0,r\n"),
+         ["--lon", "x", "--lat", "north"], "north"),
         (lambda p: _bad(p, "badtime.csv", "id,time,x,y,role\na,soon,0,0,r\nb,later,1,1,s\n"),
          [], "unparseable time"),
         (lambda p: p / "nothing-*.csv", [], "nothing-*.csv"),
@@ -120,8 +120,7 @@ def test_bad_input_is_one_line_with_status_2(tmp_path, capsys, make_input, extra
         (["--radius", "2", "--x", "x"], "--y"),
     ],
 )
-def test_bad_options_are_one_line_with_status_2(tracks_csv, tmp_path, capsys, options,
-                                                expected):
+def test_bad_options_are_one_line_with_status_2(tracks_csv, tmp_path, capsys, options, expected):
     code, _, err = run(["mine", tracks_csv, "--out", tmp_path / "o", *options], capsys)
     assert code == 2
     assert err.count("\n") == 1 and expected in err

@@ -500,3 +500,15 @@ def test_projected_crs_with_lonlat_columns_is_refused() -> None:
     df = _table().rename(columns={"x": "lon", "y": "lat"})
     with pytest.raises(InputError, match="--x/--y"):
         read_tracks(df, ColumnSpec(crs="EPSG:32632"))
+
+
+@pytest.mark.parametrize("suffix", [".csv.gz", ".csv.bz2", ".tsv.xz"])
+def test_compressed_text_files_are_read(tmp_path, suffix) -> None:
+    frame = pd.DataFrame(
+        {"id": ["a", "b"], "time": [0, 1], "x": [1.0, 2.0], "y": [0.0, 0.5], "role": ["r", "s"]}
+    )
+    path = tmp_path / f"tracks{suffix}"
+    frame.to_csv(path, index=False, sep="\t" if ".tsv" in suffix else ",")
+    raw = read_tracks(path)
+    assert raw.frame["object"].astype(str).tolist() == ["a", "b"]
+    assert raw.frame["x"].tolist() == [1.0, 2.0]

@@ -1,0 +1,286 @@
+"""Which objects move together at each snapshot: links and per-snapshot groups.
+
+Two present objects are *linked* at a snapshot when they are within the radius
+and, when both move faster than ``min_speed``, their headings differ by at most
+``max_heading`` degrees and the faster is at most ``max_speed_ratio`` times as
+fast as the slower. The motion predicates separate moving together from
+crossing paths; either can be switched off (``None``).
+
+Groups are formed on the link graph of each snapshot in one of three ways:
+
+- ``"clique"``: maximal sets in which every two objects are linked;
+- ``"component"``: objects connected through a chain of links;
+- ``"dbscan"``: density-connected sets (Ester et al. 1996) on the link graph:
+  an object with at least ``min_members - 1`` linked objects is a core; cores
+  linked to each other share a group, and a non-core linked to a core joins
+  that core's group. With ``min_members = m`` this gives the snapshot clusters
+  of convoys (Jeung et al. 2008).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+from scipy.sparse import coo_matrix
+from scipy.sparse.csgraph import connected_components
+
+from comove.alignment import Snapshots
+from comove.errors import InputError
+from comove.motion import Motion
+from comove.neighbours import NeighbourPairs
+
+GROUP_MODES = ("clique", "component", "dbscan")
+
+
+@dataclass(frozen=True)
+class GroupParams:
+    """Settings of links and per-snapshot groups.
+
+    Parameters
+    ----------
+    radius : float
+        Link distance in metres (inclusive).
+    mode : {"clique", "component", "dbscan"}, default "component"
+        How linked objects form a group at a snapshot.
+    min_members : int, default 2
+        For ``"dbscan"``: least number of objects, itself included, within
+        links of an object for it to be a core (DBSCAN's ``min_samples``).
+    min_speed : float, default 0.5
+        Speed in m/s above which an object counts as moving; the heading and
+        speed predicates apply only when both objects are moving.
+    max_heading : float or None, default 45.0
+        Largest heading difference in degrees for moving objects to link;
+        ``None`` switches the predicate off.
+    max_speed_ratio : float or None, default 2.0
+        Largest ratio of the faster to the slower speed for moving objects to
+        link; ``None`` switches the predicate off.
+    velocity_window : float, default 1.0
+        Width in seconds of the window over which velocities are differenced.
+    """
+
+    radius: float = field(metadata={"help": "link distance in metres (inclusive)"})
+    mode: str = field(
+        default="component",
+        metadata={"help": "group structure per snapshot: clique, component or dbscan"},
+    )
+    min_members: int = field(
+        default=2, metadata={"help": "dbscan: objects (itself included) linked to a core"}
+    )
+    min_speed: float = field(
+        default=0.5, metadata={"help": "m/s above which heading and speed predicates apply"}
+    )
+    max_heading: float | None = field(
+        default=45.0,
+        metadata={"help": "largest heading difference in degrees of moving linked objects "
+                  "(negative: off)"},
+    )  # fmt: skip
+    max_speed_ratio: float | None = field(
+        default=2.0,
+        metadata={"help": "largest faster/slower speed ratio of moving linked objects "
+                  "(negative: off)"},
+    )  # fmt: skip
+    velocity_window: float = field(
+        default=1.0, metadata={"help": "seconds over which velocities are differenced"}
+    )
+
+    def __post_init__(self) -> None:
+        if not (np.isfinite(self.radius) and self.radius > 0):
+            raise InputError("--radius must be a positive distance in metres")
+        if self.mode not in GROUP_MODES:
+            raise InputError(f"--mode must be one of {', '.join(GROUP_MODES)}, not {self.mode!r}")
+        if int(self.min_members) != self.min_members or self.min_members < 2:
+            raise InputError("--min-members must be a whole number of at least 2")
+        if not (np.isfinite(self.min_speed) and self.min_speed >= 0):
+            raise InputError("--min-speed must be zero or a positive speed in m/s")
+        if self.max_heading is not None and not (0 <= self.max_heading <= 180):
+            raise InputError("--max-heading must be between 0 and 180 degrees")
+        if self.max_speed_ratio is not None and not (self.max_speed_ratio >= 1):
+            raise InputError("--max-speed-ratio must be at least 1")
+        if not (np.isfinite(self.velocity_window) and self.velocity_window > 0):
+            raise InputError("--velocity-window must be a positive number of seconds")
+
+
+@dataclass
+class SnapshotGroups:
+    """Groups of entries at each snapshot, as a compressed membership table.
+
+    Attributes
+    ----------
+    snap : ndarray of int64
+        Snapshot of each group, non-decreasing.
+    offsets : ndarray of int64
+        Members of group ``g`` are ``entries[offsets[g]:offsets[g+1]]``.
+    entries : ndarray of int64
+        Entry indices, ascending within each group (so ascending by object).
+    """
+
+    snap: np.ndarray
+    offsets: np.ndarray
+    entries: np.ndarray
+
+    @property
+    def n_groups(self) -> int:
+        """Return the number of groups."""
+        return int(self.snap.size)
+
+    def sizes(self) -> np.ndarray:
+        """Return the number of members of each group."""
+        return np.diff(self.offsets)
+
+    def group_of_entry(self) -> np.ndarray:
+        """Return the group index of each membership row (aligned with ``entries``)."""
+        return np.repeat(np.arange(self.n_groups), self.sizes())
+
+
+def linked_pairs(pairs: NeighbourPairs, motion: Motion, params: GroupParams) -> NeighbourPairs:
+    """Return the neighbour pairs that also satisfy the motion predicates.
+
+    Parameters
+    ----------
+    pairs : NeighbourPairs
+        Pairs within ``params.radius``.
+    motion : Motion
+        Velocity of every entry.
+    params : GroupParams
+        Predicate settings.
+
+    Returns
+    -------
+    NeighbourPairs
+        The linked pairs (a subset of ``pairs``, same order).
+    """
+    i, j = pairs.i, pairs.j
+    si, sj = motion.speed[i], motion.speed[j]
+    with np.errstate(invalid="ignore"):
+        moving = (si > params.min_speed) & (sj > params.min_speed)
+    keep = np.ones(i.size, dtype=bool)
+    if params.max_heading is not None:
+        diff = np.abs(np.angle(np.exp(1j * (motion.heading[i] - motion.heading[j]))))
+        keep &= ~moving | (np.degrees(diff) <= params.max_heading + 1e-9)
+    if params.max_speed_ratio is not None:
+        with np.errstate(invalid="ignore", divide="ignore"):
+            ratio = np.maximum(si, sj) / np.minimum(si, sj)
+        keep &= ~moving | (ratio <= params.max_speed_ratio * (1 + 1e-12))
+    return NeighbourPairs(i[keep], j[keep], pairs.radius)
+
+
+def _components(n: int, i: np.ndarray, j: np.ndarray) -> np.ndarray:
+    graph = coo_matrix((np.ones(i.size, dtype=np.int8), (i, j)), shape=(n, n))
+    return connected_components(graph, directed=False)[1]
+
+
+def _table(snaps: Snapshots, member: np.ndarray, label: np.ndarray) -> SnapshotGroups:
+    """Return groups from (entry, label) rows, dropping groups of a single entry."""
+    # every member of a group is in one snapshot, so the entry's snapshot orders groups
+    order = np.lexsort((member, label, snaps.snap[member]))
+    member, label = member[order], label[order]
+    first = np.ones(label.size, dtype=bool)
+    first[1:] = label[1:] != label[:-1]
+    starts = np.flatnonzero(first)
+    sizes = np.diff(np.append(starts, label.size))
+    big = sizes >= 2
+    member = member[np.repeat(big, sizes)]
+    sizes = sizes[big]
+    offsets = np.append(0, np.cumsum(sizes)).astype(np.int64)
+    return SnapshotGroups(
+        snap=snaps.snap[member[offsets[:-1]]].astype(np.int64),
+        offsets=offsets,
+        entries=member.astype(np.int64),
+    )
+
+
+def snapshot_groups(snaps: Snapshots, links: NeighbourPairs, params: GroupParams) -> SnapshotGroups:
+    """Return the groups of linked objects at every snapshot.
+
+    Parameters
+    ----------
+    snaps : Snapshots
+        Aligned snapshots.
+    links : NeighbourPairs
+        Linked pairs (see :func:`linked_pairs`).
+    params : GroupParams
+        ``mode`` and ``min_members``.
+
+    Returns
+    -------
+    SnapshotGroups
+        Groups of two or more entries. In ``"component"`` and ``"dbscan"``
+        modes an entry is in at most one group; in ``"clique"`` mode in every
+        maximal clique it belongs to.
+
+    Notes
+    -----
+    Components and DBSCAN clusters of all snapshots come from one call of
+    ``scipy.sparse.csgraph.connected_components`` on the links of every
+    snapshot at once (links never cross snapshots). Maximal cliques: a
+    component whose every two members are linked is its own maximal clique;
+    only the other components are searched with ``networkx.find_cliques``
+    (Bron–Kerbosch), one call per such component.
+
+    References
+    ----------
+    .. [1] M. Ester, H.-P. Kriegel, J. Sander, X. Xu, "A density-based
+       algorithm for discovering clusters in large spatial databases with
+       noise", KDD 1996.
+    .. [2] H. Jeung, M. L. Yiu, X. Zhou, C. S. Jensen, H. T. Shen, "Discovery
+       of convoys in trajectory databases", PVLDB 1(1), 2008.
+    .. [3] C. Bron, J. Kerbosch, "Algorithm 457: finding all cliques of an
+       undirected graph", Communications of the ACM 16(9), 1973.
+    """
+    n = snaps.n_entries
+    i, j = links.i, links.j
+    if params.mode == "dbscan":
+        degree = np.bincount(i, minlength=n) + np.bincount(j, minlength=n)
+        core = degree + 1 >= params.min_members
+        both = core[i] & core[j]
+        label = _components(n, i[both], j[both])
+        # a border entry joins the group of its linked core with the smallest index
+        border_i = core[j] & ~core[i]
+        border_j = core[i] & ~core[j]
+        b_entry = np.concatenate([i[border_i], j[border_j]])
+        b_core = np.concatenate([j[border_i], i[border_j]])
+        order = np.lexsort((b_core, b_entry))
+        b_entry, b_core = b_entry[order], b_core[order]
+        first = np.ones(b_entry.size, dtype=bool)
+        first[1:] = b_entry[1:] != b_entry[:-1]
+        assigned = np.full(n, -1, dtype=np.int64)
+        assigned[core] = label[core]
+        assigned[b_entry[first]] = label[b_core[first]]
+        member = np.flatnonzero(assigned >= 0)
+        return _table(snaps, member, assigned[member])
+    label = _components(n, i, j)
+    if params.mode == "component":
+        return _table(snaps, np.arange(n), label)
+    return _maximal_cliques(snaps, links, label)
+
+
+def _maximal_cliques(snaps: Snapshots, links: NeighbourPairs, label: np.ndarray) -> SnapshotGroups:
+    import networkx as nx
+
+    n = snaps.n_entries
+    size = np.bincount(label, minlength=label.max() + 1 if n else 0)
+    edges = np.bincount(label[links.i], minlength=size.size)
+    complete = edges == size * (size - 1) // 2
+    whole = complete[label] & (size[label] >= 2)
+    member = [np.flatnonzero(whole)]
+    group = [label[whole]]
+    next_label = int(size.size)
+    # components that are not cliques: usually few; search each one on its own
+    open_comp = np.flatnonzero(~complete & (size >= 3))
+    if open_comp.size:
+        in_open = np.isin(label[links.i], open_comp)
+        sub_i, sub_j = links.i[in_open], links.j[in_open]
+        comp_of_edge = label[sub_i]
+        order = np.argsort(comp_of_edge, kind="stable")
+        sub_i, sub_j, comp_of_edge = sub_i[order], sub_j[order], comp_of_edge[order]
+        bounds = np.searchsorted(comp_of_edge, np.append(open_comp, open_comp[-1] + 1))
+        for c in range(open_comp.size):  # per component that is not already a clique
+            lo, hi = bounds[c], bounds[c + 1]
+            graph = nx.Graph()
+            graph.add_edges_from(zip(sub_i[lo:hi].tolist(), sub_j[lo:hi].tolist(), strict=True))
+            for clique in nx.find_cliques(graph):
+                member.append(np.asarray(clique, dtype=np.int64))
+                group.append(np.full(len(clique), next_label, dtype=np.int64))
+                next_label += 1
+    return _table(snaps, np.concatenate(member), np.concatenate(group))
