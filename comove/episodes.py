@@ -1,0 +1,372 @@
+"""Episodes: sets of objects that stay grouped over time, with their splits and merges.
+
+An *episode* is a set S of at least ``min_size`` objects and a time span such
+that at every snapshot of the span all of S lie in one group (see
+:mod:`comove.grouping`), except for separations no longer than ``tolerance``
+seconds, and that lasts at least ``min_duration`` seconds. Only maximal
+episodes are reported: none whose members and time span are both contained in
+another episode's. With DBSCAN groups this is a convoy (Jeung et al. 2008);
+with ``tolerance > 0`` short separations do not break it, in the spirit of
+the evolving and gathering variants of convoy discovery.
+
+The search follows the candidate-intersection scheme of convoy discovery:
+live candidates are intersected with the groups of each snapshot, a subset
+that stays together inherits its parent's start, and a candidate closes once
+it has been separated for longer than the tolerance. Because group structure
+changes much less often than snapshots tick (at 25 Hz, most consecutive
+snapshots have identical groups), snapshots with the same groups are first
+merged into *spans* with one vectorised hashing pass, and the scheme runs per
+span rather than per snapshot.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from comove.alignment import Snapshots
+from comove.errors import InputError
+from comove.grouping import SnapshotGroups
+from comove.motion import Motion
+
+MEMBER_SEP = ";"
+
+
+@dataclass(frozen=True)
+class EpisodeParams:
+    """Settings of episode discovery.
+
+    Parameters
+    ----------
+    min_size : int, default 2
+        Least number of objects in an episode.
+    min_duration : float, default 0.0
+        Least duration of an episode in seconds (first to last snapshot, plus
+        one step).
+    tolerance : float, default 0.0
+        Longest separation in seconds that does not break an episode.
+    """
+
+    min_size: int = field(default=2, metadata={"help": "least number of objects in an episode"})
+    min_duration: float = field(
+        default=0.0, metadata={"help": "least duration of an episode in seconds"}
+    )
+    tolerance: float = field(
+        default=0.0, metadata={"help": "longest separation in seconds that does not break one"}
+    )
+
+    def __post_init__(self) -> None:
+        if int(self.min_size) != self.min_size or self.min_size < 2:
+            raise InputError("--min-size must be a whole number of at least 2")
+        if not (np.isfinite(self.min_duration) and self.min_duration >= 0):
+            raise InputError("--min-duration must be zero or a positive number of seconds")
+        if not (np.isfinite(self.tolerance) and self.tolerance >= 0):
+            raise InputError("--tolerance must be zero or a positive number of seconds")
+
+
+@dataclass
+class Episodes:
+    """Maximal episodes as arrays (one row per episode, sorted by start).
+
+    Attributes
+    ----------
+    members : list of ndarray of int
+        Object codes of each episode, ascending.
+    start, end : ndarray of int64
+        First and last snapshot of each episode.
+    came_from, went_into : list of list of int
+        Indices of the episodes each one was formed from (smaller episodes
+        running when it began, whose members it contains) and split into
+        (smaller episodes of its members still running after it ended).
+    """
+
+    members: list[np.ndarray]
+    start: np.ndarray
+    end: np.ndarray
+    came_from: list[list[int]]
+    went_into: list[list[int]]
+
+    @property
+    def n_episodes(self) -> int:
+        """Return the number of episodes."""
+        return int(self.start.size)
+
+
+def _spans(
+    snaps: Snapshots, groups: SnapshotGroups
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Return (first snapshot, last snapshot, first group index) of each span.
+
+    A span is a maximal run of consecutive snapshots with identical groups.
+    Group identity is tested with Zobrist hashing: each object draws a fixed
+    random 64-bit key; a group's hash is the XOR of its members' keys and a
+    snapshot's the wrapping sum of mixed group hashes, so equal group sets give
+    equal hashes (a collision is ~2^-64 per comparison).
+    """
+    rng = np.random.default_rng(0x5EED)
+    keys = rng.integers(1, 2**63 - 1, size=len(snaps.objects), dtype=np.int64).astype(np.uint64)
+    n_snap = snaps.n_snapshots
+    snap_hash = np.zeros(n_snap, dtype=np.uint64)
+    if groups.n_groups:
+        obj_keys = keys[snaps.obj[groups.entries]]
+        group_hash = np.bitwise_xor.reduceat(obj_keys, groups.offsets[:-1])
+        # a multiply-xorshift mix, so that sums of group hashes do not cancel
+        mixed = group_hash * np.uint64(0x9E3779B97F4A7C15)
+        mixed ^= mixed >> np.uint64(29)
+        with np.errstate(over="ignore"):
+            np.add.at(snap_hash, groups.snap, mixed)
+    change = np.ones(n_snap, dtype=bool)
+    change[1:] = snap_hash[1:] != snap_hash[:-1]
+    first = np.flatnonzero(change)
+    last = np.append(first[1:] - 1, n_snap - 1)
+    first_group = np.searchsorted(groups.snap, first, side="left")
+    return first, last, first_group
+
+
+def find_episodes(snaps: Snapshots, groups: SnapshotGroups, params: EpisodeParams) -> Episodes:
+    """Return the maximal episodes of objects that stay grouped.
+
+    Parameters
+    ----------
+    snaps : Snapshots
+        Aligned snapshots.
+    groups : SnapshotGroups
+        Groups at every snapshot.
+    params : EpisodeParams
+        Size, duration and tolerance.
+
+    Returns
+    -------
+    Episodes
+
+    Notes
+    -----
+    Work is proportional to the number of spans times the live candidates
+    times the groups per span; candidates are Python frozensets, which is
+    cheap because spans are few compared with snapshots and groups are small.
+
+    References
+    ----------
+    .. [1] H. Jeung, M. L. Yiu, X. Zhou, C. S. Jensen, H. T. Shen, "Discovery
+       of convoys in trajectory databases", PVLDB 1(1), 2008.
+    .. [2] K. Zheng, Y. Zheng, N. J. Yuan, S. Shang, X. Zhou, "Online discovery
+       of gathering patterns over trajectories", IEEE TKDE 26(8), 2014.
+    .. [3] A. L. Zobrist, "A new hashing method with application for game
+       playing", Technical Report 88, University of Wisconsin, 1970.
+    """
+    step = snaps.step_s
+    tol_snaps = int(np.floor(params.tolerance / step + 1e-9))
+    min_snaps = max(1, int(np.ceil(params.min_duration / step - 1e-9)))
+    min_size = int(params.min_size)
+    first, last, first_group = _spans(snaps, groups)
+    sizes = groups.sizes()
+    member_obj = snaps.obj[groups.entries]
+
+    # live: members -> [start, last snapshot seen]
+    live: dict[frozenset, list[int]] = {}
+    closed: list[tuple[frozenset, int, int]] = []
+
+    def close(members: frozenset, start: int, seen: int) -> None:
+        if seen - start + 1 >= min_snaps:
+            closed.append((members, start, seen))
+
+    n_groups = groups.n_groups
+    for k in range(first.size):  # per span of identical groups, not per snapshot
+        a, b = int(first[k]), int(last[k])
+        g0 = int(first_group[k])
+        span_groups = []
+        g = g0
+        while g < n_groups and groups.snap[g] == a:
+            if sizes[g] >= min_size:
+                lo, hi = groups.offsets[g], groups.offsets[g + 1]
+                span_groups.append(frozenset(member_obj[lo:hi].tolist()))
+            g += 1
+        nxt: dict[frozenset, list[int]] = {}
+
+        def offer(members: frozenset, start: int, seen: int, into=nxt) -> None:
+            held = into.get(members)
+            if held is None or start < held[0]:
+                into[members] = [start, seen]
+
+        for members, (start, seen) in live.items():
+            whole = False
+            for grp in span_groups:
+                common = members & grp
+                if len(common) >= min_size:
+                    offer(frozenset(common), start, b)
+                    whole |= len(common) == len(members)
+            if whole:
+                continue
+            # separated for this whole span (its groups do not change within it)
+            if b - seen <= tol_snaps:
+                offer(members, start, seen)
+            else:
+                close(members, start, seen)
+        for grp in span_groups:
+            offer(grp, a, b)
+        # drop candidates contained in another that started no later and is seen as late
+        live = _prune_dominated(nxt)
+    for members, (start, seen) in live.items():
+        close(members, start, seen)
+    return _maximal(closed, tol_snaps)
+
+
+def _prune_dominated(cands: dict[frozenset, list[int]]) -> dict[frozenset, list[int]]:
+    """Return candidates not contained in another with an earlier start and later sighting."""
+    if len(cands) < 2:
+        return cands
+    items = sorted(cands.items(), key=lambda kv: -len(kv[0]))
+    kept: dict[frozenset, list[int]] = {}
+    for members, (start, seen) in items:
+        if any(
+            members < other and o_start <= start and o_seen >= seen
+            for other, (o_start, o_seen) in kept.items()
+        ):
+            continue
+        kept[members] = [start, seen]
+    return kept
+
+
+def _maximal(closed: list[tuple[frozenset, int, int]], tol_snaps: int) -> Episodes:
+    """Return the closed candidates that no other contains, with splits and merges."""
+    closed = sorted(set(closed), key=lambda e: (e[1], -len(e[0]), e[2], sorted(e[0])))
+    keep = [
+        (members, start, end)
+        for idx, (members, start, end) in enumerate(closed)
+        if not any(
+            o != idx and members <= other and o_start <= start and o_end >= end
+            for o, (other, o_start, o_end) in enumerate(closed)
+        )
+    ]
+    came_from: list[list[int]] = [[] for _ in keep]
+    went_into: list[list[int]] = [[] for _ in keep]
+    for e, (m_e, s_e, t_e) in enumerate(keep):
+        for f, (m_f, s_f, t_f) in enumerate(keep):
+            if f == e or not m_f < m_e:
+                continue
+            if s_f < s_e <= t_f + 1 + tol_snaps:  # f was running when e formed
+                came_from[e].append(f)
+            if s_f <= t_e < t_f:  # f goes on after e broke up
+                went_into[e].append(f)
+    return Episodes(
+        members=[np.asarray(sorted(m), dtype=np.int64) for m, _, _ in keep],
+        start=np.asarray([st for _, st, _ in keep], dtype=np.int64),
+        end=np.asarray([en for _, _, en in keep], dtype=np.int64),
+        came_from=came_from,
+        went_into=went_into,
+    )
+
+
+def episode_table(
+    snaps: Snapshots, episodes: Episodes, motion: Motion, min_speed: float
+) -> tuple[pd.DataFrame, list[np.ndarray]]:
+    """Return one row per episode and the centroid path of each.
+
+    Parameters
+    ----------
+    snaps : Snapshots
+        Aligned snapshots the episodes were found in.
+    episodes : Episodes
+        Output of :func:`find_episodes`.
+    motion : Motion
+        Velocity of every entry.
+    min_speed : float
+        Speed in m/s above which a member counts as moving.
+
+    Returns
+    -------
+    table : DataFrame
+        Columns ``episode``, ``start``, ``end`` (UTC, first and last
+        snapshot), ``duration_s``, ``size``, ``members`` and ``roles`` (sorted,
+        joined by ';'), ``mean_spacing_m`` and ``max_spacing_m`` (pairwise
+        distances of present members), ``moving_share`` (share of snapshots at
+        which the median member speed exceeds ``min_speed``), ``came_from``
+        and ``went_into`` (episode ids joined by ';').
+    paths : list of ndarray, shape (n_snapshots, 3)
+        Per episode: snapshot time (ns), centroid x and y in the working plane.
+    """
+    n_obj = len(snaps.objects)
+    keys = snaps.snap * n_obj + snaps.obj  # sorted: entries are in (snapshot, object) order
+    rows = []
+    paths = []
+    ids = [f"E{k + 1:04d}" for k in range(episodes.n_episodes)]
+    for k in range(episodes.n_episodes):  # per episode, vectorised over its snapshots
+        members = episodes.members[k]
+        s = np.arange(episodes.start[k], episodes.end[k] + 1)
+        want = (s[:, None] * n_obj + members[None, :]).ravel()
+        pos = np.searchsorted(keys, want)
+        found = (pos < keys.size) & (keys[np.minimum(pos, keys.size - 1)] == want)
+        entry = np.where(found, pos, -1).reshape(s.size, members.size)
+        present = entry >= 0
+        ex = np.where(present, snaps.x[np.maximum(entry, 0)], np.nan)
+        ey = np.where(present, snaps.y[np.maximum(entry, 0)], np.nan)
+        with np.errstate(invalid="ignore"):
+            cx, cy = np.nanmean(ex, axis=1), np.nanmean(ey, axis=1)
+        iu, ju = np.triu_indices(members.size, 1)
+        d = np.hypot(ex[:, iu] - ex[:, ju], ey[:, iu] - ey[:, ju])
+        speed = np.where(present, motion.speed[np.maximum(entry, 0)], np.nan)
+        with np.errstate(invalid="ignore"):
+            per_snap_spacing = np.nanmean(d, axis=1) if d.size else np.full(s.size, np.nan)
+            moving = np.nanmedian(speed, axis=1) > min_speed
+        observed = np.isfinite(cx)
+        roles = sorted({str(snaps.roles[r]) for r in snaps.role[entry[present]]})
+        rows.append({
+            "episode": ids[k],
+            "start": int(snaps.times(s[:1])[0]),
+            "end": int(snaps.times(s[-1:])[0]),
+            "duration_s": s.size * snaps.step_s,
+            "size": int(members.size),
+            "members": MEMBER_SEP.join(str(snaps.objects[m]) for m in members),
+            "roles": MEMBER_SEP.join(roles),
+            "mean_spacing_m": float(np.nanmean(per_snap_spacing)),
+            "max_spacing_m": float(np.nanmax(d)) if np.isfinite(d).any() else np.nan,
+            "moving_share": float(moving[observed].mean()) if observed.any() else np.nan,
+            "came_from": MEMBER_SEP.join(ids[f] for f in episodes.came_from[k]),
+            "went_into": MEMBER_SEP.join(ids[f] for f in episodes.went_into[k]),
+        })
+        paths.append(np.column_stack([snaps.times(s[observed]), cx[observed], cy[observed]]))
+    table = pd.DataFrame(rows, columns=EPISODE_COLUMNS)
+    for col in ("start", "end"):
+        table[col] = pd.to_datetime(table[col].astype("int64"), utc=True)
+    return table, paths
+
+
+EPISODE_COLUMNS = [
+    "episode", "start", "end", "duration_s", "size", "members", "roles", "mean_spacing_m",
+    "max_spacing_m", "moving_share", "came_from", "went_into",
+]  # fmt: skip
+
+
+def role_rollup(table: pd.DataFrame) -> pd.DataFrame:
+    """Return, per role set of episodes, their count and total and longest time.
+
+    Parameters
+    ----------
+    table : DataFrame
+        Output of :func:`episode_table`.
+
+    Returns
+    -------
+    DataFrame
+        Columns ``roles``, ``episodes``, ``total_seconds``, ``longest_seconds``,
+        ``mean_size``; sorted by total time, descending.
+    """
+    if table.empty:
+        return pd.DataFrame(
+            columns=["roles", "episodes", "total_seconds", "longest_seconds", "mean_size"]
+        )
+    out = (
+        table.groupby("roles", sort=True)
+        .agg(
+            episodes=("episode", "size"),
+            total_seconds=("duration_s", "sum"),
+            longest_seconds=("duration_s", "max"),
+            mean_size=("size", "mean"),
+        )
+        .reset_index()
+        .sort_values(["total_seconds", "roles"], ascending=[False, True], kind="stable")
+        .reset_index(drop=True)
+    )
+    return out
