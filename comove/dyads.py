@@ -1,0 +1,428 @@
+"""Association of pairs of objects (dyads): how often and how closely two stay together.
+
+For every unordered pair of objects that are both present at one snapshot or
+more, the counts of the pair over the common time grid are
+
+    x    = snapshots at which the pair is *together* (a pair of ``together``),
+    y_ab = snapshots at which both are present but not together,
+    y_a  = snapshots at which a is present and b is not,
+    y_b  = snapshots at which b is present and a is not,
+
+and the association indices are computed from them and from the distances
+between the two tracks. See ``docs/association.md`` for the definitions.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+from scipy.spatial.distance import cdist
+
+from comove.alignment import Snapshots
+from comove.errors import InputError
+from comove.neighbours import NeighbourPairs
+from comove.persistence import _runs
+
+#: Bytes allowed for the dense per-object grids of one chunk of snapshots (positions,
+#: presence and the temporaries of one distance pass).
+GRID_BYTES = 200_000_000
+
+#: Snapshots per pass of the mean-distance loop.
+DISTANCE_BLOCK = 8192
+
+#: Distances evaluated by one ``cdist`` call for the expected distance; bounds its
+#: memory (32 MB) whatever ``max_expected_pairs`` is.
+EXPECTED_BLOCK = 4_000_000
+
+#: float64 arrays alive at once per grid cell in a chunk: x, y, presence and the
+#: two differences of a distance pass.
+_GRID_ARRAYS = 5
+
+DYAD_COLUMNS = [
+    "object_a", "object_b", "role_a", "role_b",
+    "shared_snapshots", "together_snapshots", "only_a_snapshots", "only_b_snapshots",
+    "together_seconds", "longest_together_seconds", "first_together", "last_together",
+    "mean_distance_m", "expected_distance_m",
+    "simple_ratio_index", "half_weight_index", "proximity_index", "coefficient_of_sociality",
+]  # fmt: skip
+_COUNT_COLUMNS = {
+    "shared_snapshots",
+    "together_snapshots",
+    "only_a_snapshots",
+    "only_b_snapshots",
+}
+_TIME_COLUMNS = {"first_together", "last_together"}
+_TEXT_COLUMNS = {"object_a", "object_b", "role_a", "role_b"}
+
+
+def _check_together(snaps: Snapshots, together: NeighbourPairs) -> None:
+    """Raise ValueError unless every pair joins two entries of one snapshot."""
+    i, j = np.asarray(together.i), np.asarray(together.j)
+    if i.shape != j.shape or i.ndim != 1:
+        raise ValueError("together.i and together.j must be 1-d arrays of the same length")
+    if i.size == 0:
+        return
+    n = snaps.n_entries
+    if min(int(i.min()), int(j.min())) < 0 or max(int(i.max()), int(j.max())) >= n:
+        raise ValueError("together holds entry indices outside these snapshots")
+    if np.any(snaps.snap[i] != snaps.snap[j]):
+        raise ValueError("together joins entries of different snapshots")
+    if np.any(snaps.obj[i] == snaps.obj[j]):
+        raise ValueError("together joins an object with itself")
+
+
+def _main_roles(snaps: Snapshots, n_obj: int) -> np.ndarray:
+    """Return each object's most frequent role code (ties: lowest code)."""
+    n_roles = max(len(snaps.roles), int(snaps.role.max()) + 1 if snaps.n_entries else 1)
+    if n_obj * n_roles <= 50_000_000:
+        counts = np.bincount(
+            snaps.obj.astype(np.int64) * n_roles + snaps.role, minlength=n_obj * n_roles
+        ).reshape(n_obj, n_roles)
+        return counts.argmax(axis=1)
+    # many objects and roles: count only the (object, role) keys that occur
+    keys = np.sort(snaps.obj.astype(np.int64) * n_roles + snaps.role)
+    first = np.flatnonzero(np.r_[True, keys[1:] != keys[:-1]])
+    count = np.diff(np.append(first, keys.size))
+    key = keys[first]
+    order = np.lexsort((key % n_roles, -count, key // n_roles))
+    obj = key[order] // n_roles
+    best = order[np.r_[True, obj[1:] != obj[:-1]]]
+    roles = np.zeros(n_obj, dtype=np.int64)
+    roles[key[best] // n_roles] = key[best] % n_roles
+    return roles
+
+
+def _shared_and_distance_sums(snaps: Snapshots, n_obj: int) -> tuple[np.ndarray, np.ndarray]:
+    """Return (shared snapshot counts, summed distance over them), both (n_obj, n_obj).
+
+    Only the upper triangle (a < b) of the distance sums is filled.
+    """
+    shared = np.zeros((n_obj, n_obj), dtype=np.float64)
+    dist_sum = np.zeros((n_obj, n_obj), dtype=np.float64)
+    n_snap = snaps.n_snapshots
+    if snaps.n_entries == 0:
+        return shared.astype(np.int64), dist_sum
+    width = max(1, GRID_BYTES // (8 * _GRID_ARRAYS * max(n_obj, 1)))
+    offsets = snaps.offsets()
+    for c0 in range(0, n_snap, width):  # per chunk of snapshots
+        c1 = min(c0 + width, n_snap)
+        lo, hi = offsets[c0], offsets[c1]
+        if hi == lo:
+            continue
+        obj, col = snaps.obj[lo:hi], snaps.snap[lo:hi] - c0
+        gx = np.full((n_obj, c1 - c0), np.nan)
+        gy = np.full((n_obj, c1 - c0), np.nan)
+        present = np.zeros((n_obj, c1 - c0), dtype=np.float64)
+        gx[obj, col] = snaps.x[lo:hi]
+        gy[obj, col] = snaps.y[lo:hi]
+        present[obj, col] = 1.0
+        # a matrix product of 0/1 float64 rows counts exactly (far below 2**53)
+        chunk_shared = present @ present.T
+        shared += chunk_shared
+        # blocks of columns keep the temporaries of a pass in cache (about 1.5x faster)
+        for b0 in range(0, c1 - c0, DISTANCE_BLOCK):
+            b1 = min(b0 + DISTANCE_BLOCK, c1 - c0)
+            for a in range(n_obj - 1):  # per object: distances to all objects after it
+                if not chunk_shared[a, a + 1 :].any() or not present[a, b0:b1].any():
+                    continue
+                dx = gx[a + 1 :, b0:b1] - gx[a, b0:b1]
+                dy = gy[a + 1 :, b0:b1] - gy[a, b0:b1]
+                dx *= dx
+                dy *= dy
+                dx += dy
+                np.sqrt(dx, out=dx)
+                # NaN marks "one of the two absent"; such snapshots are not shared
+                dist_sum[a, a + 1 :] += np.nansum(dx, axis=1)
+    return np.rint(shared).astype(np.int64), dist_sum
+
+
+def _subsample_sizes(n_a: int, n_b: int, cap: int) -> tuple[int, int]:
+    """Return track sample sizes (m_a, m_b) with m_a * m_b <= cap, as balanced as possible.
+
+    Both tracks are thinned by the same factor sqrt(cap / (n_a n_b)); a track
+    that would drop below one fix keeps one, and the other takes up the slack.
+    """
+    if n_a * n_b <= cap:
+        return n_a, n_b
+    f = np.sqrt(cap / (n_a * n_b))
+    m_a = int(min(n_a, max(1, np.floor(n_a * f))))
+    m_b = int(min(n_b, max(1, cap // m_a)))
+    m_a = int(min(n_a, max(1, cap // m_b)))
+    return m_a, m_b
+
+
+def _even_sample(n: int, m: int) -> np.ndarray:
+    """Return m indices into 0..n-1, the middles of m equal strata (all when m == n)."""
+    return (2 * np.arange(m, dtype=np.int64) + 1) * n // (2 * m)
+
+
+def _expected_distances(
+    snaps: Snapshots, n_obj: int, a: np.ndarray, b: np.ndarray, cap: int
+) -> np.ndarray:
+    """Return the mean distance over all pairings of a fix of a with a fix of b, per pair."""
+    small = np.int16 if n_obj <= np.iinfo(np.int16).max else np.int32
+    # stable: each object's entries stay in time order, so strata are stretches of time
+    by_obj = np.argsort(snaps.obj.astype(small), kind="stable")
+    counts = np.bincount(snaps.obj, minlength=n_obj)
+    start = np.concatenate([[0], np.cumsum(counts)])
+    xy = np.column_stack([snaps.x, snaps.y])
+    cache: dict[tuple[int, int], np.ndarray] = {}
+
+    def track(o: int, m: int) -> np.ndarray:
+        if (o, m) not in cache:
+            entries = by_obj[start[o] : start[o + 1]]
+            cache[(o, m)] = xy[entries[_even_sample(entries.size, m)]]
+        return cache[(o, m)]
+
+    out = np.empty(a.size, dtype=np.float64)
+    for k in range(a.size):  # per pair of objects
+        m_a, m_b = _subsample_sizes(int(counts[a[k]]), int(counts[b[k]]), cap)
+        pa, pb = track(int(a[k]), m_a), track(int(b[k]), m_b)
+        rows = max(1, EXPECTED_BLOCK // m_b)
+        total = 0.0
+        for r0 in range(0, m_a, rows):  # per block of rows, to bound memory
+            total += float(cdist(pa[r0 : r0 + rows], pb).sum())
+        out[k] = total / (m_a * m_b)
+    return out
+
+
+def _empty_table() -> pd.DataFrame:
+    data: dict[str, pd.Series] = {}
+    for c in DYAD_COLUMNS:
+        if c in _TEXT_COLUMNS:
+            data[c] = pd.Series(dtype=str)
+        elif c in _COUNT_COLUMNS:
+            data[c] = pd.Series(dtype=np.int64)
+        elif c in _TIME_COLUMNS:
+            data[c] = pd.Series(dtype="datetime64[ns, UTC]")
+        else:
+            data[c] = pd.Series(dtype=np.float64)
+    return pd.DataFrame(data)
+
+
+def dyad_table(
+    snaps: Snapshots, together: NeighbourPairs, max_expected_pairs: int = 1_000_000
+) -> pd.DataFrame:
+    """Return association counts and indices for every pair of objects seen at the same time.
+
+    Parameters
+    ----------
+    snaps : Snapshots
+        Aligned snapshots.
+    together : NeighbourPairs
+        The pairs of entries counted as together, normally
+        ``neighbour_pairs(snaps, radius)``; any subset of such pairs (for
+        example those that also move alike) may be given. Pairs are used as
+        given, never recomputed.
+    max_expected_pairs : int, default 1_000_000
+        Most pairings of a fix of a with a fix of b used for the expected
+        distance of one pair; above it, both tracks are thinned (see Notes).
+
+    Returns
+    -------
+    DataFrame
+        One row per unordered pair of objects (``object_a`` has the lower
+        object code) that are both present at one snapshot or more, with columns
+
+        - ``object_a``, ``object_b``: object ids; ``role_a``, ``role_b``: the
+          role each object has at most of its present snapshots (ties: the
+          first role in ``snaps.roles``);
+        - ``shared_snapshots`` (both present), ``together_snapshots`` (x),
+          ``only_a_snapshots`` (y_a), ``only_b_snapshots`` (y_b);
+        - ``together_seconds`` (x times the step), ``longest_together_seconds``
+          (longest run of consecutive grid snapshots together, times the step),
+          ``first_together``, ``last_together`` (UTC; NaT when never together);
+        - ``mean_distance_m`` (Do), ``expected_distance_m`` (De);
+        - ``simple_ratio_index``, ``half_weight_index``, ``proximity_index``,
+          ``coefficient_of_sociality``.
+
+        Sorted by half-weight index, descending, then ``object_a``,
+        ``object_b``. ``attrs`` holds ``radius_m``, ``step_s`` and
+        ``max_expected_pairs``.
+
+    Notes
+    -----
+    With y_ab = shared - x (both present, not together):
+
+    - SRI = x / (x + y_ab + y_a + y_b) and HWI = x / (x + y_ab + (y_a + y_b) / 2)
+      (Cairns & Schwager 1987). All objects are located on one common grid, so a
+      snapshot at which only one of the two is present counts as one at which
+      they were seen apart (y_a or y_b); snapshots with neither present do not
+      count.
+    - Prox = x / shared: the share of simultaneous fixes at which the two are
+      together (Bertrand et al. 1996; reviewed by Joo et al. 2018).
+    - Cs = (De - Do) / (De + Do) (Kenward et al. 1993), where Do is the mean
+      distance between the two at their shared snapshots and De the mean
+      distance between every aligned position of a and every aligned position
+      of b, at any times. Cs is NaN when De + Do is 0.
+
+    When n_a * n_b (present snapshots of a times those of b) exceeds
+    ``max_expected_pairs``, De uses evenly spaced subsamples of both tracks: a
+    track of n positions thinned to m keeps, in time order, the middle position
+    of each of m equal strata, with m_a * m_b <= ``max_expected_pairs`` and
+    both tracks thinned by the same factor where possible. The result is
+    deterministic; it approximates the exact De closely for tracks that do not
+    oscillate in step with the stride.
+
+    Counts are whole-array numpy: shared counts are a matrix product of
+    per-object presence grids, together counts a bincount over pair rows, and
+    runs come from one sort of (pair, snapshot) keys. Do uses dense
+    (objects x snapshots) position grids, in chunks of snapshots of about
+    ``GRID_BYTES`` bytes, with one pass per object per chunk. Time is
+    O(n_objects^2 x n_snapshots + P log P) for P together pairs, plus
+    O(n_pairs x max_expected_pairs) for De; memory O(GRID_BYTES + n_objects^2 + P).
+
+    References
+    ----------
+    .. [1] R. J. Cairns, S. J. Schwager, "A comparison of association indices",
+       Animal Behaviour 35(5), 1454-1469, 1987.
+    .. [2] R. E. Kenward, V. Marcström, M. Karlbom, "Post-nestling behaviour in
+       goshawks, Accipiter gentilis: II. Sex differences in sociality and
+       nest-switching", Animal Behaviour 46(2), 371-378, 1993 (details from memory).
+    .. [3] M. R. Bertrand, A. J. DeNicola, S. R. Beissinger, R. K. Swihart,
+       "Effects of parturition on home ranges and social affiliations of female
+       white-tailed deer", Journal of Wildlife Management 60(4), 899-909, 1996 (from
+       memory).
+    .. [4] R. Joo, M.-P. Etienne, N. Bez, S. Mahévas, "Metrics for describing
+       dyadic movement: a review", Movement Ecology 6, 26, 2018.
+    """
+    if max_expected_pairs < 1:
+        raise ValueError("max_expected_pairs must be at least 1")
+    _check_together(snaps, together)
+    n_obj = len(snaps.objects)
+    shared_m, dist_sum = _shared_and_distance_sums(snaps, n_obj)
+    a, b = np.nonzero(np.triu(shared_m, 1))  # row-major: sorted by a, then b
+    table = _empty_table()
+    table.attrs.update(
+        radius_m=float(together.radius),
+        step_s=snaps.step_s,
+        max_expected_pairs=int(max_expected_pairs),
+    )
+    if a.size == 0:
+        return table
+    n_rows = a.size
+    present = np.bincount(snaps.obj, minlength=n_obj)
+    shared = shared_m[a, b]
+    only_a = present[a] - shared
+    only_b = present[b] - shared
+    mean_dist = dist_sum[a, b] / shared
+
+    # together pairs -> dyad rows; both ends are present, so the pair has a row
+    oa, ob = snaps.obj[together.i].astype(np.int64), snaps.obj[together.j].astype(np.int64)
+    pair_key = np.minimum(oa, ob) * n_obj + np.maximum(oa, ob)
+    row = np.searchsorted(a.astype(np.int64) * n_obj + b, pair_key)
+    snap = snaps.snap[together.i]
+    n_snap = max(snaps.n_snapshots, 1)
+    if n_rows * n_snap < 2**62:
+        key = np.sort(row * n_snap + snap)
+        row, snap = key // n_snap, key % n_snap
+    else:
+        order = np.lexsort((snap, row))
+        row, snap = row[order], snap[order]
+    if row.size > 1 and np.any((row[1:] == row[:-1]) & (snap[1:] == snap[:-1])):
+        raise ValueError("together lists the same pair of objects twice in one snapshot")
+    x = np.bincount(row, minlength=n_rows)
+    longest, _ = _runs(row, snap, n_rows)
+    first_snap = np.zeros(n_rows, dtype=np.int64)
+    last_snap = np.zeros(n_rows, dtype=np.int64)
+    if row.size:
+        brk = np.flatnonzero(row[1:] != row[:-1])
+        first_snap[row[np.r_[0, brk + 1]]] = snap[np.r_[0, brk + 1]]
+        last_snap[row[np.r_[brk, row.size - 1]]] = snap[np.r_[brk, row.size - 1]]
+    never = x == 0
+
+    def utc(s: np.ndarray) -> pd.DatetimeIndex:
+        t = snaps.times(s).astype("datetime64[ns]")
+        t[never] = np.datetime64("NaT")
+        return pd.DatetimeIndex(t).tz_localize("UTC")
+
+    expected = _expected_distances(snaps, n_obj, a, b, int(max_expected_pairs))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        cs = (expected - mean_dist) / (expected + mean_dist)
+    apart = shared - x
+    step = snaps.step_s
+    roles = _main_roles(snaps, n_obj)
+    objects = np.asarray(snaps.objects).astype(str)
+    role_names = np.asarray(snaps.roles).astype(str)
+    table = pd.DataFrame(
+        {
+            "object_a": pd.array(objects[a], dtype=str),
+            "object_b": pd.array(objects[b], dtype=str),
+            "role_a": pd.array(role_names[roles[a]], dtype=str),
+            "role_b": pd.array(role_names[roles[b]], dtype=str),
+            "shared_snapshots": shared.astype(np.int64),
+            "together_snapshots": x.astype(np.int64),
+            "only_a_snapshots": only_a.astype(np.int64),
+            "only_b_snapshots": only_b.astype(np.int64),
+            "together_seconds": x * step,
+            "longest_together_seconds": longest * step,
+            "first_together": utc(first_snap),
+            "last_together": utc(last_snap),
+            "mean_distance_m": mean_dist,
+            "expected_distance_m": expected,
+            "simple_ratio_index": x / (x + apart + only_a + only_b),
+            "half_weight_index": x / (x + apart + 0.5 * (only_a + only_b)),
+            "proximity_index": x / shared,
+            "coefficient_of_sociality": cs,
+        },
+        columns=DYAD_COLUMNS,
+    )
+    table = table.sort_values(
+        ["half_weight_index", "object_a", "object_b"],
+        ascending=[False, True, True],
+        kind="stable",
+    ).reset_index(drop=True)
+    table.attrs.update(
+        radius_m=float(together.radius),
+        step_s=step,
+        max_expected_pairs=int(max_expected_pairs),
+    )
+    return table
+
+
+def dyad_matrix(dyads: pd.DataFrame, index: str = "half_weight_index") -> pd.DataFrame:
+    """Return the symmetric object x object matrix of one dyad column.
+
+    Parameters
+    ----------
+    dyads : DataFrame
+        Output of :func:`dyad_table` (or a subset of its rows).
+    index : str, default "half_weight_index"
+        Numeric column to spread, e.g. ``simple_ratio_index``,
+        ``proximity_index``, ``coefficient_of_sociality``, ``together_seconds``.
+
+    Returns
+    -------
+    DataFrame
+        Square, indexed and columned by the object ids of ``dyads`` (sorted);
+        cell (a, b) = cell (b, a) = the value of the pair. The diagonal and
+        pairs without a row (never present at the same time) are NaN.
+
+    Notes
+    -----
+    O(n_objects^2 + n_rows) time and memory.
+    """
+    numeric = [
+        c
+        for c in dyads.columns
+        if c not in _TEXT_COLUMNS and pd.api.types.is_numeric_dtype(dyads[c])
+    ]
+    if index not in numeric:
+        raise InputError(
+            f"dyad table: no numeric column {index!r}; choose one of {', '.join(numeric)}"
+        )
+    id_a = dyads["object_a"].to_numpy().astype(str)
+    id_b = dyads["object_b"].to_numpy().astype(str)
+    ids = np.unique(np.concatenate([id_a, id_b]))
+    ia, ib = np.searchsorted(ids, id_a), np.searchsorted(ids, id_b)
+    if np.any(ia == ib):
+        raise ValueError("dyads pairs an object with itself")
+    lo, hi = np.minimum(ia, ib), np.maximum(ia, ib)
+    if np.unique(lo * ids.size + hi).size != lo.size:
+        raise ValueError("dyads holds the same pair of objects more than once")
+    values = dyads[index].to_numpy(dtype=np.float64)
+    matrix = np.full((ids.size, ids.size), np.nan)
+    matrix[ia, ib] = values
+    matrix[ib, ia] = values
+    labels = pd.Index(ids, name="object")
+    return pd.DataFrame(matrix, index=labels, columns=labels.rename("object"))
