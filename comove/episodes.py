@@ -3,7 +3,11 @@
 An *episode* is a set S of at least ``min_size`` objects and a time span such
 that at every snapshot of the span all of S lie in one group (see
 :mod:`comove.grouping`), except for separations no longer than ``tolerance``
-seconds, and that lasts at least ``min_duration`` seconds. Only maximal
+seconds, and that lasts at least ``min_duration`` seconds. A member with no
+data at a snapshot (a missed fix beyond the interpolation gap) is not taken to
+have left: while its absence lasts no longer than ``tolerance``, the others
+being grouped is enough. The episode's end is the last snapshot at which every
+member has data. Only maximal
 episodes are reported: none whose members and time span are both contained in
 another episode's. With DBSCAN groups this is a convoy (Jeung et al. 2008);
 with ``tolerance > 0`` short separations do not break it, in the spirit of
@@ -94,9 +98,7 @@ class Episodes:
         return int(self.start.size)
 
 
-def _spans(
-    snaps: Snapshots, groups: SnapshotGroups
-) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def _spans(snaps: Snapshots, groups: SnapshotGroups) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Return (first snapshot, last snapshot, first group index) of each span.
 
     A span is a maximal run of consecutive snapshots with identical groups.
@@ -164,13 +166,34 @@ def find_episodes(snaps: Snapshots, groups: SnapshotGroups, params: EpisodeParam
     sizes = groups.sizes()
     member_obj = snaps.obj[groups.entries]
 
-    # live: members -> [start, last snapshot seen]
+    # each object's present snapshots, for telling absence (no data) from separation
+    by_obj = np.argsort(snaps.obj, kind="stable")
+    bounds = np.searchsorted(snaps.obj[by_obj], np.arange(len(snaps.objects) + 1))
+    present_at = [snaps.snap[by_obj[bounds[o] : bounds[o + 1]]] for o in range(len(snaps.objects))]
+
+    def excused(obj: int, a: int, b: int) -> bool:
+        """Tell whether ``obj`` has no data over [a, b] and has been missing <= tolerance."""
+        ps = present_at[obj]
+        i = int(np.searchsorted(ps, a))
+        if i < ps.size and ps[i] <= b:
+            return False  # it has data in the span, so it is present and elsewhere
+        return i > 0 and b - int(ps[i - 1]) <= tol_snaps
+
+    def last_present(members: frozenset, seen: int) -> int:
+        """Return the last snapshot up to ``seen`` at which every member has data."""
+        return min(
+            int(present_at[m][np.searchsorted(present_at[m], seen, side="right") - 1])
+            for m in members
+        )
+
+    # live: members -> [start, last snapshot seen together]
     live: dict[frozenset, list[int]] = {}
     closed: list[tuple[frozenset, int, int]] = []
 
     def close(members: frozenset, start: int, seen: int) -> None:
-        if seen - start + 1 >= min_snaps:
-            closed.append((members, start, seen))
+        end = last_present(members, seen)
+        if end - start + 1 >= min_snaps:
+            closed.append((members, start, end))
 
     n_groups = groups.n_groups
     for k in range(first.size):  # per span of identical groups, not per snapshot
@@ -187,16 +210,25 @@ def find_episodes(snaps: Snapshots, groups: SnapshotGroups, params: EpisodeParam
 
         def offer(members: frozenset, start: int, seen: int, into=nxt) -> None:
             held = into.get(members)
-            if held is None or start < held[0]:
+            if held is None:
                 into[members] = [start, seen]
+            else:  # the same set reached two ways: it has been together since the earlier
+                held[0], held[1] = min(held[0], start), max(held[1], seen)
 
         for members, (start, seen) in live.items():
             whole = False
             for grp in span_groups:
                 common = members & grp
-                if len(common) >= min_size:
-                    offer(frozenset(common), start, b)
-                    whole |= len(common) == len(members)
+                if len(common) < min_size:
+                    continue
+                rest = members - common
+                if not rest:
+                    whole = True
+                elif all(excused(m, a, b) for m in rest):
+                    # the missing members have no data here: absence is not separation
+                    whole = True
+                    offer(members, start, b)
+                offer(frozenset(common), start, b)
             if whole:
                 continue
             # separated for this whole span (its groups do not change within it)
@@ -312,20 +344,22 @@ def episode_table(
             moving = np.nanmedian(speed, axis=1) > min_speed
         observed = np.isfinite(cx)
         roles = sorted({str(snaps.roles[r]) for r in snaps.role[entry[present]]})
-        rows.append({
-            "episode": ids[k],
-            "start": int(snaps.times(s[:1])[0]),
-            "end": int(snaps.times(s[-1:])[0]),
-            "duration_s": s.size * snaps.step_s,
-            "size": int(members.size),
-            "members": MEMBER_SEP.join(str(snaps.objects[m]) for m in members),
-            "roles": MEMBER_SEP.join(roles),
-            "mean_spacing_m": float(np.nanmean(per_snap_spacing)),
-            "max_spacing_m": float(np.nanmax(d)) if np.isfinite(d).any() else np.nan,
-            "moving_share": float(moving[observed].mean()) if observed.any() else np.nan,
-            "came_from": MEMBER_SEP.join(ids[f] for f in episodes.came_from[k]),
-            "went_into": MEMBER_SEP.join(ids[f] for f in episodes.went_into[k]),
-        })
+        rows.append(
+            {
+                "episode": ids[k],
+                "start": int(snaps.times(s[:1])[0]),
+                "end": int(snaps.times(s[-1:])[0]),
+                "duration_s": s.size * snaps.step_s,
+                "size": int(members.size),
+                "members": MEMBER_SEP.join(str(snaps.objects[m]) for m in members),
+                "roles": MEMBER_SEP.join(roles),
+                "mean_spacing_m": float(np.nanmean(per_snap_spacing)),
+                "max_spacing_m": float(np.nanmax(d)) if np.isfinite(d).any() else np.nan,
+                "moving_share": float(moving[observed].mean()) if observed.any() else np.nan,
+                "came_from": MEMBER_SEP.join(ids[f] for f in episodes.came_from[k]),
+                "went_into": MEMBER_SEP.join(ids[f] for f in episodes.went_into[k]),
+            }
+        )
         paths.append(np.column_stack([snaps.times(s[observed]), cx[observed], cy[observed]]))
     table = pd.DataFrame(rows, columns=EPISODE_COLUMNS)
     for col in ("start", "end"):

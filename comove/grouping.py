@@ -85,6 +85,11 @@ class GroupParams:
     )
 
     def __post_init__(self) -> None:
+        # a negative value switches a predicate off, so that flags can say so too
+        for name in ("max_heading", "max_speed_ratio"):
+            value = getattr(self, name)
+            if value is not None and value < 0:
+                object.__setattr__(self, name, None)
         if not (np.isfinite(self.radius) and self.radius > 0):
             raise InputError("--radius must be a positive distance in metres")
         if self.mode not in GROUP_MODES:

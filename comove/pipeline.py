@@ -1,12 +1,15 @@
-"""The main job end to end: raw tracks in, durable role co-location patterns out.
+"""The jobs end to end: raw tracks in, role patterns or co-moving groups out.
 
 Stages run forward, each a plain function of the previous stage's output::
 
-    read_tracks -> clean_fixes -> align -> neighbour_pairs -> mine_levels
-                -> durable_patterns
+    read_tracks -> clean_fixes -> align -> neighbour_pairs
+        -> mine_levels -> durable_patterns                       (mine)
+        -> entry_motion -> linked_pairs -> snapshot_groups
+           -> find_episodes -> episode_table, role_rollup;
+           dyad_table                                            (groups)
 
-:func:`mine` runs them all and returns a :class:`MiningResult`;
-:meth:`MiningResult.write` stores it as a results folder.
+:func:`mine` and :func:`groups` run them and return a :class:`MiningResult` or
+:class:`GroupsResult`, whose ``write`` stores a results folder.
 """
 
 from __future__ import annotations
@@ -18,22 +21,38 @@ from dataclasses import dataclass, field, fields
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 import pandas as pd
 from tqdm.auto import tqdm
 
 from comove.alignment import AlignParams, Snapshots, align, alignment_summary
 from comove.cleaning import CleanParams, clean_fixes
 from comove.colocation import ColocationParams, RolePresence, mine_levels
+from comove.dyads import dyad_table
+from comove.episodes import EpisodeParams, episode_table, find_episodes, role_rollup
+from comove.grouping import GroupParams, linked_pairs, snapshot_groups
+from comove.motion import entry_motion
 from comove.neighbours import neighbour_pairs
 from comove.persistence import PersistenceParams, durable_patterns
+from comove.presets import preset_values
 from comove.provenance import run_record, settings_record
 from comove.reading import ColumnSpec, read_tracks
-from comove.results import csv_writer, json_writer, parquet_writer, write_folder
+from comove.results import (
+    csv_writer,
+    geojson_writer,
+    geoparquet_writer,
+    json_writer,
+    parquet_writer,
+    write_folder,
+)
 
 #: The stage settings of ``mine``, in pipeline order.
 MINE_STAGES: tuple[type, ...] = (
     ColumnSpec, CleanParams, AlignParams, ColocationParams, PersistenceParams,
 )  # fmt: skip
+
+#: The stage settings of ``groups``, in pipeline order.
+GROUP_STAGES: tuple[type, ...] = (ColumnSpec, CleanParams, AlignParams, GroupParams, EpisodeParams)
 
 CAUTION = (
     "Positions of tracked people are personal data; co-location is association, "
@@ -56,10 +75,7 @@ def split_options(stages: tuple[type, ...], options: dict[str, Any]) -> list[Any
     unknown = sorted(set(options) - set(known))
     if unknown:
         raise TypeError(f"unknown option(s): {', '.join(unknown)}")
-    return [
-        stage(**{k: v for k, v in options.items() if known[k] is stage and v is not None})
-        for stage in stages
-    ]
+    return [stage(**{k: v for k, v in options.items() if known[k] is stage}) for stage in stages]
 
 
 class _Progress:
@@ -160,13 +176,7 @@ def mine(source: Any, *, progress: bool = False, **options: Any) -> MiningResult
     columns, cleaning, alignment, colocation, persistence = split_options(MINE_STAGES, options)
     bar = _Progress(progress, total=6)
     try:
-        with bar.stage("reading"):
-            raw = read_tracks(source, columns)
-        with bar.stage("cleaning"):
-            fixes, quality = clean_fixes(raw, cleaning)
-        with bar.stage("aligning"):
-            snaps = align(fixes, alignment)
-            quality["alignment"] = alignment_summary(snaps)
+        snaps, quality = _aligned(source, columns, cleaning, alignment, bar)
         with bar.stage("neighbour search"):
             pairs = neighbour_pairs(snaps, colocation.radius)
         with bar.stage("co-location"):
@@ -184,11 +194,195 @@ def mine(source: Any, *, progress: bool = False, **options: Any) -> MiningResult
             )
     finally:
         bar.close()
-    effective_alignment = AlignParams(step=snaps.step_s, max_gap=snaps.max_gap_ns / 1e9)
     run = run_record(
         "mine",
         source,
-        settings_record(columns, cleaning, effective_alignment, colocation, persistence),
+        settings_record(columns, cleaning, _effective(snaps), colocation, persistence),
         extra={"caution": CAUTION},
     )
     return MiningResult(tables.patterns, tables.participation, tables.series, quality, run, snaps)
+
+
+def _aligned(
+    source: Any,
+    columns: ColumnSpec,
+    cleaning: CleanParams,
+    alignment: AlignParams,
+    bar: _Progress,
+) -> tuple[Snapshots, dict]:
+    """Return the aligned snapshots of ``source`` and its quality report."""
+    with bar.stage("reading"):
+        raw = read_tracks(source, columns)
+    with bar.stage("cleaning"):
+        fixes, quality = clean_fixes(raw, cleaning)
+    with bar.stage("aligning"):
+        snaps = align(fixes, alignment)
+        quality["alignment"] = alignment_summary(snaps)
+    return snaps, quality
+
+
+def _effective(snaps: Snapshots) -> AlignParams:
+    """Return the alignment settings actually used (defaults resolved)."""
+    return AlignParams(step=snaps.step_s, max_gap=snaps.max_gap_ns / 1e9)
+
+
+@dataclass
+class GroupsResult:
+    """Co-moving groups of objects: episodes, their role roll-up, and dyads.
+
+    Attributes
+    ----------
+    episodes : DataFrame
+        One row per maximal episode; see :func:`comove.episodes.episode_table`.
+    roles : DataFrame
+        Per role set of episodes: count, total and longest time.
+    dyads : DataFrame
+        One row per pair of objects with shared presence; see
+        :func:`comove.dyads.dyad_table`.
+    paths : GeoDataFrame
+        The centroid path of each episode as a LineString, in the input's CRS
+        (lon/lat input gives lon/lat paths; planar input has no CRS).
+    quality, run : dict
+        As in :class:`MiningResult`.
+    snapshots : Snapshots
+        The aligned tracks.
+    """
+
+    episodes: pd.DataFrame
+    roles: pd.DataFrame
+    dyads: pd.DataFrame
+    paths: Any
+    quality: dict
+    run: dict
+    snapshots: Snapshots = field(repr=False)
+    centroids: list = field(repr=False, default_factory=list)
+
+    def write(self, out_dir: str | os.PathLike[str], force: bool = False) -> Path:
+        """Write the results folder atomically and return its path.
+
+        Files: ``episodes.csv``, ``episode_roles.csv``, ``dyads.csv``,
+        ``episode_paths.parquet`` (GeoParquet), ``episode_paths.geojson``,
+        ``quality.json`` and ``run.json``.
+        """
+        return write_folder(
+            out_dir,
+            {
+                "episodes.csv": csv_writer(self.episodes),
+                "episode_roles.csv": csv_writer(self.roles),
+                "dyads.csv": csv_writer(self.dyads),
+                "episode_paths.parquet": geoparquet_writer(self.paths),
+                "episode_paths.geojson": geojson_writer(self.paths),
+                "quality.json": json_writer(self.quality),
+                "run.json": json_writer(self.run),
+            },
+            force=force,
+        )
+
+    def to_trajectories(self) -> Any:
+        """Return the episode centroid paths as a movingpandas ``TrajectoryCollection``."""
+        import geopandas as gpd
+        import movingpandas as mpd
+
+        frames = []
+        for (_, row), path in zip(self.episodes.iterrows(), self.centroids, strict=True):
+            x, y = _to_output_crs(self.snapshots, path[:, 1], path[:, 2])
+            frames.append(pd.DataFrame({
+                "episode": row["episode"],
+                "time": pd.to_datetime(path[:, 0].astype("int64"), utc=True).tz_localize(None),
+                "x": x, "y": y,
+            }))  # fmt: skip
+        points = (
+            pd.concat(frames, ignore_index=True)
+            if frames
+            else pd.DataFrame(columns=["episode", "time", "x", "y"])
+        )
+        gdf = gpd.GeoDataFrame(
+            points, geometry=gpd.points_from_xy(points["x"], points["y"]),
+            crs=self.paths.crs,
+        )  # fmt: skip
+        return mpd.TrajectoryCollection(gdf, "episode", t="time")
+
+
+def _to_output_crs(snaps: Snapshots, x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Return working-plane coordinates in the input's CRS (lon/lat for lon/lat input)."""
+    if snaps.metric_crs is None or snaps.input_crs is None:
+        return x, y
+    import pyproj
+
+    to_input = pyproj.Transformer.from_crs(snaps.metric_crs, snaps.input_crs, always_xy=True)
+    return to_input.transform(x, y)
+
+
+def _paths_frame(snaps: Snapshots, table: pd.DataFrame, centroids: list) -> Any:
+    """Return a GeoDataFrame of episode centroid LineStrings in the input's CRS."""
+    import geopandas as gpd
+    import shapely
+
+    counts = np.array([max(len(c), 2) for c in centroids], dtype=np.int64)
+    xs = np.concatenate([c[:, 1] if len(c) > 1 else np.repeat(c[:, 1], 2) for c in centroids]
+                        ) if centroids else np.empty(0)  # fmt: skip
+    ys = np.concatenate([c[:, 2] if len(c) > 1 else np.repeat(c[:, 2], 2) for c in centroids]
+                        ) if centroids else np.empty(0)  # fmt: skip
+    xs, ys = _to_output_crs(snaps, xs, ys)
+    lines = shapely.linestrings(
+        np.column_stack([xs, ys]), indices=np.repeat(np.arange(counts.size), counts)
+    ) if centroids else []  # fmt: skip
+    attrs = table[["episode", "start", "end", "duration_s", "size", "members", "roles"]].copy()
+    return gpd.GeoDataFrame(attrs, geometry=list(lines) if len(lines) else [],
+                            crs=snaps.input_crs)  # fmt: skip
+
+
+def groups(
+    source: Any, *, preset: str | None = None, progress: bool = False, **options: Any
+) -> GroupsResult:
+    """Return the co-moving groups (episodes) and dyads of the tracks in ``source``.
+
+    Parameters
+    ----------
+    source : path, glob, list of paths, DataFrame, GeoDataFrame or TrajectoryCollection
+        The tracks; see :func:`comove.reading.read_tracks`. A role column is
+        optional here.
+    preset : str, optional
+        Name of a preset of defaults (see :mod:`comove.presets`); options given
+        explicitly override it.
+    progress : bool, default False
+        Show a progress bar over the stages.
+    **options
+        Any field of :class:`~comove.reading.ColumnSpec`,
+        :class:`~comove.cleaning.CleanParams`,
+        :class:`~comove.alignment.AlignParams`,
+        :class:`~comove.grouping.GroupParams` (``radius`` is required unless a
+        preset gives it) or :class:`~comove.episodes.EpisodeParams`.
+
+    Returns
+    -------
+    GroupsResult
+    """
+    merged = preset_values(preset)
+    merged.update(options)  # an explicit None (a predicate switched off) overrides too
+    merged.setdefault("require_role", False)
+    columns, cleaning, alignment, grouping, episode_params = split_options(GROUP_STAGES, merged)
+    bar = _Progress(progress, total=8)
+    try:
+        snaps, quality = _aligned(source, columns, cleaning, alignment, bar)
+        with bar.stage("neighbour search"):
+            pairs = neighbour_pairs(snaps, grouping.radius)
+        with bar.stage("motion and links"):
+            motion = entry_motion(snaps, grouping.velocity_window)
+            links = linked_pairs(pairs, motion, grouping)
+        with bar.stage("episodes"):
+            found = find_episodes(snaps, snapshot_groups(snaps, links, grouping), episode_params)
+            table, centroids = episode_table(snaps, found, motion, grouping.min_speed)
+        with bar.stage("dyads"):
+            dyads = dyad_table(snaps, pairs)
+        with bar.stage("paths"):
+            paths = _paths_frame(snaps, table, centroids)
+    finally:
+        bar.close()
+    run = run_record(
+        "groups",
+        source,
+        settings_record(columns, cleaning, _effective(snaps), grouping, episode_params),
+        extra={"preset": preset, "caution": CAUTION},
+    )
+    return GroupsResult(table, role_rollup(table), dyads, paths, quality, run, snaps, centroids)

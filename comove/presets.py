@@ -43,26 +43,27 @@ PRESETS: dict[str, Preset] = {
             name="pedestrians",
             summary="people walking together in a crowd (overhead video or indoor tracking)",
             values={
-                "radius": 2.0,
+                "radius": 1.5,
                 "mode": "component",
                 "min_speed": 0.3,
                 "max_heading": 30.0,
-                "max_speed_ratio": 1.5,
+                "max_speed_ratio": 1.25,
                 "velocity_window": 1.2,
                 "min_size": 2,
                 "min_duration": 4.0,
                 "tolerance": 2.0,
             },
             why={
-                "radius": "Hall's proxemics: personal distance ends at about 1.2 m and the "
-                "close phase of social distance at about 2.1 m (Hall 1966); companions "
-                "walk within that",
+                "radius": "Hall's proxemics: personal distance, kept among companions, ends "
+                "at about 1.2 m; social distance (1.2–3.6 m) is kept among strangers "
+                "(Hall 1966); plus about 0.3 m for the position error of person tracking "
+                "(common practice)",
                 "min_speed": "about a quarter of normal walking speed (1.2–1.4 m/s, "
                 "Fruin 1971): slower counts as standing, where headings are noise",
                 "max_heading": "companions walk in step; 30 degrees allows for weaving "
                 "(common practice)",
-                "max_speed_ratio": "companions share a pace; 1.5 allows for catching up "
-                "(common practice)",
+                "max_speed_ratio": "companions keep a common pace: 1.25 allows about 10 % "
+                "either side of it, the spread of one walker's speed (common practice)",
                 "velocity_window": "about one stride pair, which averages out body sway "
                 "(common practice)",
                 "min_duration": "a few seconds together, so that passing strangers who fall "
@@ -116,13 +117,11 @@ PRESETS: dict[str, Preset] = {
             why={
                 "radius": "the two-second following headway (common practice in driver "
                 "guidance) at about 30 m/s, i.e. 60 m",
-                "min_speed": "2 m/s: below it a vehicle is queueing or parked "
-                "(common practice)",
+                "min_speed": "2 m/s: below it a vehicle is queueing or parked (common practice)",
                 "max_heading": "30 degrees (common practice)",
                 "max_speed_ratio": "1.5 (common practice)",
                 "velocity_window": "20 s, a few GPS/AIS fixes (common practice)",
-                "min_duration": "2 minutes: longer than meeting at a junction "
-                "(common practice)",
+                "min_duration": "2 minutes: longer than meeting at a junction (common practice)",
                 "tolerance": "30 s covers a missed fix or two (common practice)",
             },
         ),
@@ -138,7 +137,7 @@ PRESETS: dict[str, Preset] = {
                 "velocity_window": 7200.0,
                 "min_size": 2,
                 "min_duration": 6 * 3600.0,
-                "tolerance": 3 * 3600.0,
+                "tolerance": 6 * 3600.0,
             },
             why={
                 "radius": "proximity thresholds of 50–100 m are widely used for "
@@ -148,7 +147,8 @@ PRESETS: dict[str, Preset] = {
                 "moving together (common practice)",
                 "max_speed_ratio": "off, for the same reason",
                 "min_duration": "6 hours (common practice)",
-                "tolerance": "3 hours bridges two or three missed fixes (common practice)",
+                "tolerance": "6 hours: with hourly fixes and 10–30 % of them missed, runs "
+                "of three or four missed fixes are routine (common practice)",
                 "min_speed": "0: with the motion predicates off it does not matter",
                 "velocity_window": "two fixes at hourly sampling",
             },

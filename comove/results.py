@@ -75,6 +75,28 @@ def parquet_writer(frame: pd.DataFrame) -> Writer:
     return write
 
 
+def geoparquet_writer(frame: Any) -> Writer:
+    """Return a writer of a GeoDataFrame as GeoParquet."""
+
+    def write(path: Path) -> None:
+        frame.to_parquet(path, index=False)
+
+    return write
+
+
+def geojson_writer(frame: Any) -> Writer:
+    """Return a writer of a GeoDataFrame as GeoJSON, times as ISO 8601 text."""
+
+    def write(path: Path) -> None:
+        out = frame.copy()
+        for col in out.columns:
+            if isinstance(out[col].dtype, pd.DatetimeTZDtype):
+                out[col] = out[col].dt.strftime("%Y-%m-%dT%H:%M:%S.%fZ")
+        out.to_file(path, driver="GeoJSON", engine="pyogrio")
+
+    return write
+
+
 def write_folder(
     out_dir: str | os.PathLike[str], files: Mapping[str, Writer], force: bool = False
 ) -> Path:
