@@ -16,7 +16,8 @@ from typing import Any, NoReturn
 import comove
 from comove.cleaning import format_quality_summary
 from comove.errors import InputError
-from comove.pipeline import CAUTION, MINE_STAGES, mine
+from comove.pipeline import CAUTION, GROUP_STAGES, MINE_STAGES, groups, mine
+from comove.presets import PRESETS
 
 EXIT_INPUT = 2
 
@@ -97,6 +98,25 @@ def build_parser() -> argparse.ArgumentParser:
     _add_stage_options(p, MINE_STAGES, required={"radius"})
     _add_common(p)
 
+    g = sub.add_parser(
+        "groups",
+        help="co-moving groups of objects: episodes and dyads",
+        description="Find which objects travel together, when groups form and split, and "
+        "how strongly each pair is associated. A preset supplies defaults; flags override "
+        "them.",
+    )
+    g.add_argument("input", nargs="+", help="track file(s) or glob(s), as for `comove mine`")
+    g.add_argument("--out", required=True, type=Path, help="results folder to create")
+    g.add_argument(
+        "--preset",
+        choices=sorted(PRESETS),
+        default=None,
+        help="defaults for a kind of data: "
+        + "; ".join(f"{p.name}: {p.summary}" for p in PRESETS.values()),
+    )
+    _add_stage_options(g, GROUP_STAGES, required=set())
+    _add_common(g)
+
     d = sub.add_parser(
         "demo",
         help="run the miner on a bundled invented scenario",
@@ -137,6 +157,25 @@ def _run_mine(args: argparse.Namespace) -> None:
     _report(result, out, args.quiet)
 
 
+def _run_groups(args: argparse.Namespace) -> None:
+    source = args.input[0] if len(args.input) == 1 else list(args.input)
+    result = groups(
+        source, preset=args.preset, progress=not args.quiet, **_stage_options(args, GROUP_STAGES)
+    )
+    out = result.write(args.out, force=args.force)
+    if args.quiet:
+        return
+    print(format_quality_summary(result.quality))
+    n = len(result.episodes)
+    print(f"\n{n} episode{'s' if n != 1 else ''} of objects moving together.")
+    if n:
+        top = result.episodes.sort_values("duration_s", ascending=False).head(10)
+        print(top[["episode", "start", "duration_s", "members"]].to_string(index=False))
+    print(f"{len(result.dyads)} pairs of objects with shared presence in dyads.csv.")
+    print(f"\nResults written to {out}/")
+    print(f"Caution: {CAUTION}")
+
+
 def _run_demo(args: argparse.Namespace) -> None:
     from comove.scenarios import demo_options
 
@@ -155,7 +194,7 @@ def main(argv: list[str] | None = None) -> int:
     except SystemExit as done:  # --help, --version, or a usage error already printed
         return int(done.code or 0)
     try:
-        {"mine": _run_mine, "demo": _run_demo}[args.command](args)
+        {"mine": _run_mine, "groups": _run_groups, "demo": _run_demo}[args.command](args)
     except InputError as err:
         print(f"comove {args.command}: error: {err}", file=sys.stderr)
         return EXIT_INPUT

@@ -25,6 +25,7 @@ span rather than per snapshot.
 
 from __future__ import annotations
 
+import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -334,12 +335,14 @@ def episode_table(
         present = entry >= 0
         ex = np.where(present, snaps.x[np.maximum(entry, 0)], np.nan)
         ey = np.where(present, snaps.y[np.maximum(entry, 0)], np.nan)
-        with np.errstate(invalid="ignore"):
+        with warnings.catch_warnings():  # a tolerated gap can leave no member with data
+            warnings.simplefilter("ignore", RuntimeWarning)
             cx, cy = np.nanmean(ex, axis=1), np.nanmean(ey, axis=1)
         iu, ju = np.triu_indices(members.size, 1)
         d = np.hypot(ex[:, iu] - ex[:, ju], ey[:, iu] - ey[:, ju])
         speed = np.where(present, motion.speed[np.maximum(entry, 0)], np.nan)
-        with np.errstate(invalid="ignore"):
+        with warnings.catch_warnings():  # snapshots with one member present have no spacing
+            warnings.simplefilter("ignore", RuntimeWarning)
             per_snap_spacing = np.nanmean(d, axis=1) if d.size else np.full(s.size, np.nan)
             moving = np.nanmedian(speed, axis=1) > min_speed
         observed = np.isfinite(cx)

@@ -30,6 +30,7 @@ from comove.cleaning import CleanParams, clean_fixes
 from comove.colocation import ColocationParams, RolePresence, mine_levels
 from comove.dyads import dyad_table
 from comove.episodes import EpisodeParams, episode_table, find_episodes, role_rollup
+from comove.errors import InputError
 from comove.grouping import GroupParams, linked_pairs, snapshot_groups
 from comove.motion import entry_motion
 from comove.neighbours import neighbour_pairs
@@ -361,6 +362,8 @@ def groups(
     merged = preset_values(preset)
     merged.update(options)  # an explicit None (a predicate switched off) overrides too
     merged.setdefault("require_role", False)
+    if merged.get("radius") is None:
+        raise InputError("give --radius (metres) or a --preset that sets one")
     columns, cleaning, alignment, grouping, episode_params = split_options(GROUP_STAGES, merged)
     bar = _Progress(progress, total=8)
     try:

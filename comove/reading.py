@@ -74,6 +74,12 @@ ROLE_NAMES = (
     "species",
     "sex",
     "age_class",
+    "sex_age",
+    "age_sex",
+    "vehicle_type",
+    "vessel_type",
+    "ship_type",
+    "object_type",
     "group",
 )
 

@@ -21,8 +21,8 @@ def tracks_csv(tmp_path):
         base = rng.uniform(0, 50, 2)
         for t in range(60):
             # each dog walks beside one owner; the cat wanders alone
-            anchor = np.array([t * 0.5, 10.0 * (k % 2)]) if role != "cat" else base
-            pos = anchor + rng.normal(0, 0.3, 2) + (0.8 if role == "owner" else 0.0)
+            anchor = np.array([t * 1.5, 10.0 * (k % 2)]) if role != "cat" else base
+            pos = anchor + rng.normal(0, 0.1, 2) + (0.8 if role == "owner" else 0.0)
             rows.append((f"a{k}", 1_790_000_000 + t, pos[0], pos[1], role))
     path = tmp_path / "walks.csv"
     pd.DataFrame(rows, columns=["id", "time", "x", "y", "role"]).to_csv(path, index=False)
@@ -136,3 +136,61 @@ def test_real_process_exit_status_and_no_traceback(tmp_path):
     assert done.returncode == 2
     assert done.stderr.count("\n") == 1 and "Traceback" not in done.stderr
     assert "absent.parquet" in done.stderr
+
+
+def test_groups_writes_episodes_dyads_and_paths(tracks_csv, tmp_path, capsys):
+    out_dir = tmp_path / "g"
+    code, out, err = run(
+        ["groups", tracks_csv, "--radius", 2, "--min-duration", 10, "--out", out_dir], capsys
+    )
+    assert code == 0, err
+    assert sorted(p.name for p in out_dir.iterdir()) == [
+        "dyads.csv", "episode_paths.geojson", "episode_paths.parquet", "episode_roles.csv",
+        "episodes.csv", "quality.json", "run.json",
+    ]  # fmt: skip
+    episodes = pd.read_csv(out_dir / "episodes.csv")
+    # each dog walks beside its owner for the whole minute; the cat sits apart
+    assert sorted(episodes["members"]) == ["a0;a2", "a1;a3"]
+    assert episodes["duration_s"].tolist() == [60.0, 60.0]
+    dyads = pd.read_csv(out_dir / "dyads.csv")
+    assert len(dyads) == 10  # every pair of 5 objects shares presence
+    run_json = json.loads((out_dir / "run.json").read_text())
+    assert run_json["command"] == "groups"
+    assert run_json["settings"]["EpisodeParams"]["min_duration"] == 10.0
+
+
+def test_groups_preset_supplies_defaults_and_flags_override(tracks_csv, tmp_path, capsys):
+    out_dir = tmp_path / "g"
+    code, _, err = run(
+        [
+            "groups",
+            tracks_csv,
+            "--preset",
+            "pedestrians",
+            "--max-heading",
+            "-1",
+            "--out",
+            out_dir,
+            "--quiet",
+        ],
+        capsys,
+    )
+    assert code == 0, err
+    settings = json.loads((out_dir / "run.json").read_text())["settings"]
+    assert settings["GroupParams"]["radius"] == 1.5  # from the preset
+    assert settings["GroupParams"]["max_heading"] is None  # switched off by the flag
+
+
+@pytest.mark.parametrize(
+    ("options", "expected"),
+    [
+        ([], "give --radius (metres) or a --preset"),
+        (["--preset", "robots"], "--preset"),
+        (["--radius", "2", "--mode", "blob"], "--mode must be one of"),
+        (["--radius", "2", "--min-size", "1"], "--min-size"),
+    ],
+)
+def test_groups_bad_options(tracks_csv, tmp_path, capsys, options, expected):
+    code, _, err = run(["groups", tracks_csv, "--out", tmp_path / "o", *options], capsys)
+    assert code == 2
+    assert err.count("\n") == 1 and expected in err
