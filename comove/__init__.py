@@ -10,6 +10,6 @@ except PackageNotFoundError:  # running from a source tree that is not installed
     __version__ = "0.0.0+unknown"
 
 from comove.errors import InputError  # noqa: E402
-from comove.pipeline import MiningResult, mine  # noqa: E402
+from comove.pipeline import GroupsResult, MiningResult, groups, mine  # noqa: E402
 
-__all__ = ["InputError", "MiningResult", "__version__", "mine"]
+__all__ = ["GroupsResult", "InputError", "MiningResult", "__version__", "groups", "mine"]

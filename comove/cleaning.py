@@ -314,9 +314,16 @@ def _sort_by_object_time(obj: np.ndarray, t: np.ndarray) -> np.ndarray:
     return by_time[np.argsort(small[by_time], kind="stable")]
 
 
+def _take(values: np.ndarray, index: np.ndarray, whole: bool) -> np.ndarray:
+    """Return ``values[index]``, or ``values`` itself when ``index`` is known to be 0..n-1."""
+    return values if whole else values[index]
+
+
 def _compact_codes(codes: np.ndarray, n_names: int) -> tuple[np.ndarray, np.ndarray]:
     """Return the codes in use and the codes renumbered 0..k-1 in the same order."""
     used = np.bincount(codes, minlength=n_names) > 0
+    if used.all():
+        return np.arange(n_names), codes
     remap = np.cumsum(used) - 1
     return np.flatnonzero(used), remap[codes]
 
@@ -461,9 +468,11 @@ def clean_fixes(raw: RawTracks, params: CleanParams | None = None) -> tuple[Fixe
 
     # ---- duplicates, on the rows still valid
     valid = np.flatnonzero(reason < 0)
-    obj_codes, role_codes = obj_all[valid], role_all[valid]
-    t = times.ns[valid]
-    va, vb = a[valid], b[valid]
+    # clean, sorted input is the common case: gathers of millions of rows are then skipped
+    every = valid.size == n
+    obj_codes, role_codes = _take(obj_all, valid, every), _take(role_all, valid, every)
+    t = _take(times.ns, valid, every)
+    va, vb = _take(a, valid, every), _take(b, valid, every)
     order = _sort_by_object_time(obj_codes, t)
     so, st = obj_codes[order], t[order]
     tie = (so[1:] == so[:-1]) & (st[1:] == st[:-1])
@@ -492,28 +501,31 @@ def clean_fixes(raw: RawTracks, params: CleanParams | None = None) -> tuple[Fixe
         conflict[:-1] |= clash
         reason[valid[rest[conflict]]] = _CODE["conflicting_duplicate"]
         order = order[reason[valid[order]] < 0]
-    kept = valid[order]  # original row numbers, sorted by (object, time)
-    k_obj, k_role = obj_codes[order], role_codes[order]
+    in_order = bool(np.all(order[1:] > order[:-1]) and order.size == valid.size)
+    kept = _take(valid, order, in_order)  # original row numbers, sorted by (object, time)
+    everything = every and in_order  # kept is then 0..n-1: arrays are used as they are
+    k_obj, k_role = _take(obj_codes, order, in_order), _take(role_codes, order, in_order)
 
     # ---- projection
     metric_crs: pyproj.CRS | None
     if lon is not None:
         if kept.size:
-            metric_crs = local_metric_crs(lon[kept], lat[kept])
-            kx, ky = to_metric(lon[kept], lat[kept], metric_crs)
+            k_lon, k_lat = _take(lon, kept, everything), _take(lat, kept, everything)
+            metric_crs = local_metric_crs(k_lon, k_lat)
+            kx, ky = to_metric(k_lon, k_lat, metric_crs)
         else:
             metric_crs, kx, ky = None, np.empty(0), np.empty(0)
         input_crs = "EPSG:4326" if lonlat else raw.crs
     else:
         metric_crs = pyproj.CRS.from_user_input(raw.crs) if raw.crs else None
-        kx, ky = a[kept], b[kept]
+        kx, ky = _take(a, kept, everything), _take(b, kept, everything)
         input_crs = raw.crs
 
     # ---- speed spikes, each pass vectorised over all fixes still kept
     passes = 0
     if params.max_speed is not None and kept.size:
         alive = np.arange(kept.size)
-        kt = times.ns[kept]
+        kt = _take(times.ns, kept, everything)
         while passes < MAX_SPIKE_PASSES:
             passes += 1
             spike = _spike_mask(k_obj[alive], kt[alive], kx[alive], ky[alive], params.max_speed)
@@ -521,8 +533,10 @@ def clean_fixes(raw: RawTracks, params: CleanParams | None = None) -> tuple[Fixe
                 break
             reason[kept[alive[spike]]] = _CODE["speed_spike"]
             alive = alive[~spike]
-        kept, k_obj, k_role = kept[alive], k_obj[alive], k_role[alive]
-        kx, ky = kx[alive], ky[alive]
+        if alive.size < kept.size:
+            kept, k_obj, k_role = kept[alive], k_obj[alive], k_role[alive]
+            kx, ky = kx[alive], ky[alive]
+            everything = False
 
     # ---- report
     counts = np.bincount(reason[reason >= 0].astype(np.intp), minlength=len(DROP_REASONS))
@@ -555,7 +569,7 @@ def clean_fixes(raw: RawTracks, params: CleanParams | None = None) -> tuple[Fixe
     role_used, role_final = _compact_codes(k_role, len(role_names))
     objects = np.asarray(obj_names, dtype=object)[obj_used].astype(str)
     roles = np.asarray(role_names, dtype=object)[role_used].astype(str)
-    kt = times.ns[kept]
+    kt = _take(times.ns, kept, everything)
     fixes = Fixes(
         obj=obj_final.astype(np.int32),
         time=kt.astype(np.int64),
@@ -569,7 +583,7 @@ def clean_fixes(raw: RawTracks, params: CleanParams | None = None) -> tuple[Fixe
     )
 
     gaps = np.diff(kt)[fixes.obj[1:] == fixes.obj[:-1]] / 1e9
-    zone_less = int(times.zone_less[kept].sum())
+    zone_less = int(_take(times.zone_less, kept, everything).sum())
     t0, t1 = int(kt.min()), int(kt.max())
     quality = {
         "rows_read": int(n),

@@ -201,7 +201,7 @@ def _empty_table() -> pd.DataFrame:
 
 
 def dyad_table(
-    snaps: Snapshots, together: NeighbourPairs, max_expected_pairs: int = 1_000_000
+    snaps: Snapshots, together: NeighbourPairs, max_expected_pairs: int = 250_000
 ) -> pd.DataFrame:
     """Return association counts and indices for every pair of objects seen at the same time.
 
@@ -214,7 +214,7 @@ def dyad_table(
         ``neighbour_pairs(snaps, radius)``; any subset of such pairs (for
         example those that also move alike) may be given. Pairs are used as
         given, never recomputed.
-    max_expected_pairs : int, default 1_000_000
+    max_expected_pairs : int, default 250_000
         Most pairings of a fix of a with a fix of b used for the expected
         distance of one pair; above it, both tracks are thinned (see Notes).
 

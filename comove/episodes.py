@@ -27,6 +27,7 @@ from __future__ import annotations
 
 import warnings
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -35,6 +36,7 @@ from comove.alignment import Snapshots
 from comove.errors import InputError
 from comove.grouping import SnapshotGroups
 from comove.motion import Motion
+from comove.projection import working_to_input
 
 MEMBER_SEP = ";"
 
@@ -292,6 +294,32 @@ def _maximal(closed: list[tuple[frozenset, int, int]], tol_snaps: int) -> Episod
     )
 
 
+class _EntryLookup:
+    """Entry index of (snapshot, object) pairs, -1 where the object is absent."""
+
+    #: Cells of the dense (snapshot x object) table used when it fits (int32: 200 MB).
+    MAX_DENSE = 50_000_000
+
+    def __init__(self, snaps: Snapshots) -> None:
+        self.n_obj = len(snaps.objects)
+        if snaps.n_snapshots * self.n_obj <= self.MAX_DENSE:
+            self.dense = np.full((snaps.n_snapshots, self.n_obj), -1, dtype=np.int32)
+            self.dense[snaps.snap, snaps.obj] = np.arange(snaps.n_entries, dtype=np.int32)
+        else:
+            self.dense = None
+            # sorted, since entries are in (snapshot, object) order
+            self.keys = snaps.snap * self.n_obj + snaps.obj
+
+    def entries(self, snapshots: np.ndarray, objects: np.ndarray) -> np.ndarray:
+        """Return an (n_snapshots, n_objects) array of entry indices or -1."""
+        if self.dense is not None:
+            return self.dense[np.ix_(snapshots, objects)].astype(np.int64)
+        want = (snapshots[:, None] * self.n_obj + objects[None, :]).ravel()
+        pos = np.searchsorted(self.keys, want)
+        found = (pos < self.keys.size) & (self.keys[np.minimum(pos, self.keys.size - 1)] == want)
+        return np.where(found, pos, -1).reshape(snapshots.size, objects.size)
+
+
 def episode_table(
     snaps: Snapshots, episodes: Episodes, motion: Motion, min_speed: float
 ) -> tuple[pd.DataFrame, list[np.ndarray]]:
@@ -315,23 +343,19 @@ def episode_table(
         snapshot), ``duration_s``, ``size``, ``members`` and ``roles`` (sorted,
         joined by ';'), ``mean_spacing_m`` and ``max_spacing_m`` (pairwise
         distances of present members), ``moving_share`` (share of snapshots at
-        which the median member speed exceeds ``min_speed``), ``came_from``
+        which most present members move faster than ``min_speed``), ``came_from``
         and ``went_into`` (episode ids joined by ';').
     paths : list of ndarray, shape (n_snapshots, 3)
         Per episode: snapshot time (ns), centroid x and y in the working plane.
     """
-    n_obj = len(snaps.objects)
-    keys = snaps.snap * n_obj + snaps.obj  # sorted: entries are in (snapshot, object) order
+    lookup = _EntryLookup(snaps)
     rows = []
     paths = []
     ids = [f"E{k + 1:04d}" for k in range(episodes.n_episodes)]
     for k in range(episodes.n_episodes):  # per episode, vectorised over its snapshots
         members = episodes.members[k]
         s = np.arange(episodes.start[k], episodes.end[k] + 1)
-        want = (s[:, None] * n_obj + members[None, :]).ravel()
-        pos = np.searchsorted(keys, want)
-        found = (pos < keys.size) & (keys[np.minimum(pos, keys.size - 1)] == want)
-        entry = np.where(found, pos, -1).reshape(s.size, members.size)
+        entry = lookup.entries(s, members)
         present = entry >= 0
         ex = np.where(present, snaps.x[np.maximum(entry, 0)], np.nan)
         ey = np.where(present, snaps.y[np.maximum(entry, 0)], np.nan)
@@ -340,13 +364,14 @@ def episode_table(
             cx, cy = np.nanmean(ex, axis=1), np.nanmean(ey, axis=1)
         iu, ju = np.triu_indices(members.size, 1)
         d = np.hypot(ex[:, iu] - ex[:, ju], ey[:, iu] - ey[:, ju])
-        speed = np.where(present, motion.speed[np.maximum(entry, 0)], np.nan)
+        fast = present & (motion.speed[np.maximum(entry, 0)] > min_speed)
         with warnings.catch_warnings():  # snapshots with one member present have no spacing
             warnings.simplefilter("ignore", RuntimeWarning)
             per_snap_spacing = np.nanmean(d, axis=1) if d.size else np.full(s.size, np.nan)
-            moving = np.nanmedian(speed, axis=1) > min_speed
+        # most present members faster than min_speed (NaN speeds count as not moving)
+        moving = 2 * fast.sum(axis=1) > present.sum(axis=1)
         observed = np.isfinite(cx)
-        roles = sorted({str(snaps.roles[r]) for r in snaps.role[entry[present]]})
+        roles = sorted(str(r) for r in snaps.roles[np.unique(snaps.role[entry[present]])])
         rows.append(
             {
                 "episode": ids[k],
@@ -374,6 +399,59 @@ EPISODE_COLUMNS = [
     "episode", "start", "end", "duration_s", "size", "members", "roles", "mean_spacing_m",
     "max_spacing_m", "moving_share", "came_from", "went_into",
 ]  # fmt: skip
+
+
+#: Display paths keep at most one vertex per this many seconds (plus each path's ends).
+DISPLAY_INTERVAL_S = 1.0
+
+
+def episode_paths(
+    snaps: Snapshots, table: pd.DataFrame, centroids: list[np.ndarray]
+) -> tuple[Any, Any]:
+    """Return the episode centroid paths as LineStrings: full, and thinned for display.
+
+    Parameters
+    ----------
+    snaps : Snapshots
+        Aligned snapshots (for the coordinate reference systems).
+    table : DataFrame
+        Output of :func:`episode_table`.
+    centroids : list of ndarray
+        The per-episode centroid arrays from :func:`episode_table`.
+
+    Returns
+    -------
+    paths, display : GeoDataFrame
+        One row per episode, geometry in the input's CRS. ``paths`` has a vertex
+        at every snapshot; ``display`` keeps the first vertex in each
+        ``DISPLAY_INTERVAL_S`` of time and each path's last vertex, for files
+        meant for viewing such as GeoJSON (a match at 25 Hz would otherwise
+        put a million vertices in one).
+    """
+    import geopandas as gpd
+    import shapely
+
+    attrs = table[["episode", "start", "end", "duration_s", "size", "members", "roles"]]
+    if not centroids:
+        empty = gpd.GeoDataFrame(attrs.copy(), geometry=[], crs=snaps.input_crs)
+        return empty, empty.copy()
+    # a one-snapshot episode becomes a line of two equal points
+    parts = [c if len(c) > 1 else np.repeat(c, 2, axis=0) for c in centroids]
+    counts = np.array([len(c) for c in parts])
+    owner = np.repeat(np.arange(counts.size), counts)
+    allc = np.concatenate(parts)
+    x, y = working_to_input(snaps, allc[:, 1], allc[:, 2])
+    xy = np.column_stack([x, y])
+    slot = (allc[:, 0] // (DISPLAY_INTERVAL_S * 1e9)).astype(np.int64)
+    first = np.r_[True, (owner[1:] != owner[:-1]) | (slot[1:] != slot[:-1])]
+    last = np.r_[owner[1:] != owner[:-1], True]
+    keep = first | last
+    return (
+        gpd.GeoDataFrame(attrs.copy(), geometry=shapely.linestrings(xy, indices=owner),
+                         crs=snaps.input_crs),
+        gpd.GeoDataFrame(attrs.copy(), geometry=shapely.linestrings(xy[keep],
+                         indices=owner[keep]), crs=snaps.input_crs),
+    )  # fmt: skip
 
 
 def role_rollup(table: pd.DataFrame) -> pd.DataFrame:

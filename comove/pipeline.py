@@ -21,7 +21,6 @@ from dataclasses import dataclass, field, fields
 from pathlib import Path
 from typing import Any
 
-import numpy as np
 import pandas as pd
 from tqdm.auto import tqdm
 
@@ -29,13 +28,20 @@ from comove.alignment import AlignParams, Snapshots, align, alignment_summary
 from comove.cleaning import CleanParams, clean_fixes
 from comove.colocation import ColocationParams, RolePresence, mine_levels
 from comove.dyads import dyad_table
-from comove.episodes import EpisodeParams, episode_table, find_episodes, role_rollup
+from comove.episodes import (
+    EpisodeParams,
+    episode_paths,
+    episode_table,
+    find_episodes,
+    role_rollup,
+)
 from comove.errors import InputError
 from comove.grouping import GroupParams, linked_pairs, snapshot_groups
 from comove.motion import entry_motion
 from comove.neighbours import neighbour_pairs
 from comove.persistence import PersistenceParams, durable_patterns
 from comove.presets import preset_values
+from comove.projection import working_to_input
 from comove.provenance import run_record, settings_record
 from comove.reading import ColumnSpec, read_tracks
 from comove.results import (
@@ -242,7 +248,11 @@ class GroupsResult:
         :func:`comove.dyads.dyad_table`.
     paths : GeoDataFrame
         The centroid path of each episode as a LineString, in the input's CRS
-        (lon/lat input gives lon/lat paths; planar input has no CRS).
+        (lon/lat input gives lon/lat paths; planar input has no CRS), one
+        vertex per snapshot.
+    display_paths : GeoDataFrame
+        The same paths thinned to about one vertex per second for viewing
+        (written as GeoJSON); see :func:`comove.episodes.episode_paths`.
     quality, run : dict
         As in :class:`MiningResult`.
     snapshots : Snapshots
@@ -253,6 +263,7 @@ class GroupsResult:
     roles: pd.DataFrame
     dyads: pd.DataFrame
     paths: Any
+    display_paths: Any
     quality: dict
     run: dict
     snapshots: Snapshots = field(repr=False)
@@ -262,7 +273,8 @@ class GroupsResult:
         """Write the results folder atomically and return its path.
 
         Files: ``episodes.csv``, ``episode_roles.csv``, ``dyads.csv``,
-        ``episode_paths.parquet`` (GeoParquet), ``episode_paths.geojson``,
+        ``episode_paths.parquet`` (GeoParquet, every snapshot),
+        ``episode_paths.geojson`` (thinned for viewing),
         ``quality.json`` and ``run.json``.
         """
         return write_folder(
@@ -272,7 +284,7 @@ class GroupsResult:
                 "episode_roles.csv": csv_writer(self.roles),
                 "dyads.csv": csv_writer(self.dyads),
                 "episode_paths.parquet": geoparquet_writer(self.paths),
-                "episode_paths.geojson": geojson_writer(self.paths),
+                "episode_paths.geojson": geojson_writer(self.display_paths),
                 "quality.json": json_writer(self.quality),
                 "run.json": json_writer(self.run),
             },
@@ -286,7 +298,7 @@ class GroupsResult:
 
         frames = []
         for (_, row), path in zip(self.episodes.iterrows(), self.centroids, strict=True):
-            x, y = _to_output_crs(self.snapshots, path[:, 1], path[:, 2])
+            x, y = working_to_input(self.snapshots, path[:, 1], path[:, 2])
             frames.append(pd.DataFrame({
                 "episode": row["episode"],
                 "time": pd.to_datetime(path[:, 0].astype("int64"), utc=True).tz_localize(None),
@@ -302,35 +314,6 @@ class GroupsResult:
             crs=self.paths.crs,
         )  # fmt: skip
         return mpd.TrajectoryCollection(gdf, "episode", t="time")
-
-
-def _to_output_crs(snaps: Snapshots, x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Return working-plane coordinates in the input's CRS (lon/lat for lon/lat input)."""
-    if snaps.metric_crs is None or snaps.input_crs is None:
-        return x, y
-    import pyproj
-
-    to_input = pyproj.Transformer.from_crs(snaps.metric_crs, snaps.input_crs, always_xy=True)
-    return to_input.transform(x, y)
-
-
-def _paths_frame(snaps: Snapshots, table: pd.DataFrame, centroids: list) -> Any:
-    """Return a GeoDataFrame of episode centroid LineStrings in the input's CRS."""
-    import geopandas as gpd
-    import shapely
-
-    counts = np.array([max(len(c), 2) for c in centroids], dtype=np.int64)
-    xs = np.concatenate([c[:, 1] if len(c) > 1 else np.repeat(c[:, 1], 2) for c in centroids]
-                        ) if centroids else np.empty(0)  # fmt: skip
-    ys = np.concatenate([c[:, 2] if len(c) > 1 else np.repeat(c[:, 2], 2) for c in centroids]
-                        ) if centroids else np.empty(0)  # fmt: skip
-    xs, ys = _to_output_crs(snaps, xs, ys)
-    lines = shapely.linestrings(
-        np.column_stack([xs, ys]), indices=np.repeat(np.arange(counts.size), counts)
-    ) if centroids else []  # fmt: skip
-    attrs = table[["episode", "start", "end", "duration_s", "size", "members", "roles"]].copy()
-    return gpd.GeoDataFrame(attrs, geometry=list(lines) if len(lines) else [],
-                            crs=snaps.input_crs)  # fmt: skip
 
 
 def groups(
@@ -379,7 +362,7 @@ def groups(
         with bar.stage("dyads"):
             dyads = dyad_table(snaps, pairs)
         with bar.stage("paths"):
-            paths = _paths_frame(snaps, table, centroids)
+            paths, display = episode_paths(snaps, table, centroids)
     finally:
         bar.close()
     run = run_record(
@@ -388,4 +371,6 @@ def groups(
         settings_record(columns, cleaning, _effective(snaps), grouping, episode_params),
         extra={"preset": preset, "caution": CAUTION},
     )
-    return GroupsResult(table, role_rollup(table), dyads, paths, quality, run, snaps, centroids)
+    return GroupsResult(
+        table, role_rollup(table), dyads, paths, display, quality, run, snaps, centroids
+    )

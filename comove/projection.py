@@ -9,6 +9,7 @@ data.
 from __future__ import annotations
 
 from functools import lru_cache
+from typing import Any
 
 import numpy as np
 import pyproj
@@ -217,3 +218,24 @@ def max_scale_error(lon: np.ndarray, lat: np.ndarray, crs: pyproj.CRS | str) -> 
     if k.size == 0:
         return float("inf")
     return float(np.max(np.abs(k - 1.0)))
+
+
+def working_to_input(snaps: Any, x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Return working-plane coordinates in the input's CRS (lon/lat for lon/lat input).
+
+    Parameters
+    ----------
+    snaps : Snapshots or Fixes
+        Anything with ``metric_crs`` and ``input_crs`` attributes.
+    x, y : ndarray
+        Coordinates in the working plane (metres).
+
+    Returns
+    -------
+    tuple of ndarray
+        The coordinates in ``input_crs``; unchanged for planar input.
+    """
+    if snaps.metric_crs is None or snaps.input_crs is None:
+        return np.asarray(x), np.asarray(y)
+    to_input = pyproj.Transformer.from_crs(snaps.metric_crs, snaps.input_crs, always_xy=True)
+    return to_input.transform(x, y)

@@ -11,6 +11,7 @@ import json
 import os
 import shutil
 import tempfile
+import warnings
 from collections.abc import Callable, Mapping
 from pathlib import Path
 from typing import Any
@@ -92,7 +93,9 @@ def geojson_writer(frame: Any) -> Writer:
         for col in out.columns:
             if isinstance(out[col].dtype, pd.DatetimeTZDtype):
                 out[col] = out[col].dt.strftime("%Y-%m-%dT%H:%M:%S.%fZ")
-        out.to_file(path, driver="GeoJSON", engine="pyogrio")
+        with warnings.catch_warnings():  # planar data have no CRS, by design
+            warnings.filterwarnings("ignore", message=".*'crs' was not provided")
+            out.to_file(path, driver="GeoJSON", engine="pyogrio")
 
     return write
 

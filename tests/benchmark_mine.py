@@ -1,4 +1,4 @@
-"""Benchmark of ``comove mine`` at sports scale, beside a bare reference.
+"""Benchmark of ``comove mine`` and ``comove groups`` at sports scale, beside a bare reference.
 
 Run from the repository root::
 
@@ -12,7 +12,8 @@ its own:
    (they already are), and one scipy cKDTree radius query over all snapshots
    laid side by side;
 2. ``comove mine`` on the same file with ``--max-size 3``;
-3. a straightforward per-snapshot loop (networkx graph + clique enumeration
+3. ``comove groups --preset team-sport`` (episodes and dyads) on the same file;
+4. a straightforward per-snapshot loop (networkx graph + clique enumeration
    per snapshot, counting participation from the cliques), timed on a sample
    of snapshots and scaled to the whole match.
 
@@ -183,6 +184,24 @@ def main() -> None:
         ],
         args.repeat,
     )
+    groups_wall, groups_peak, _ = run_measured(
+        [
+            sys.executable,
+            "-m",
+            "comove.cli",
+            "groups",
+            str(data),
+            "--preset",
+            "team-sport",
+            "--step",
+            str(1 / args.hz),
+            "--out",
+            str(args.out / "groups"),
+            "--force",
+            "--quiet",
+        ],
+        args.repeat,
+    )
     naive_wall, _, naive_out = run_measured(
         [sys.executable, "-c", NAIVE, str(data), str(RADIUS), str(args.naive_sample)]
     )
@@ -198,10 +217,15 @@ def main() -> None:
     )
     print(f"| `comove mine --max-size 3` | {mine_wall:.1f} | {mine_peak:.0f} |")
     print(
+        f"| `comove groups --preset team-sport` (episodes and dyads) | {groups_wall:.1f} | "
+        f"{groups_peak:.0f} |"
+    )
+    print(
         f"| per-snapshot networkx cliques (scaled from {args.naive_sample:,} snapshots) | "
         f"{naive_total:.0f} | — |"
     )
     print()
+    print(f"groups / reference: {groups_wall / ref_wall:.2f}x")
     print(
         f"comove / reference: {mine_wall / ref_wall:.2f}x; "
         f"per-snapshot loop / comove: {naive_total / mine_wall:.1f}x; "
