@@ -40,6 +40,9 @@ from comove.projection import working_to_input
 
 MEMBER_SEP = ";"
 
+#: Live candidates above which dominated ones are pruned during the search.
+PRUNE_ABOVE = 64
+
 
 @dataclass(frozen=True)
 class EpisodeParams:
@@ -231,6 +234,7 @@ def find_episodes(snaps: Snapshots, groups: SnapshotGroups, params: EpisodeParam
                     # the missing members have no data here: absence is not separation
                     whole = True
                     offer(members, start, b)
+                    continue  # its present part goes on inside it, not on its own
                 offer(frozenset(common), start, b)
             if whole:
                 continue
@@ -241,8 +245,11 @@ def find_episodes(snaps: Snapshots, groups: SnapshotGroups, params: EpisodeParam
                 close(members, start, seen)
         for grp in span_groups:
             offer(grp, a, b)
-        # drop candidates contained in another that started no later and is seen as late
-        live = _prune_dominated(nxt)
+        # Candidates contained in another that started no later and is seen as late can
+        # go; the final maximality filter removes them anyway, so only prune when many
+        # are live (measured: ~1 % of candidates pruned in a 25 Hz match, for 60 % of
+        # the time of the whole search).
+        live = _prune_dominated(nxt) if len(nxt) > PRUNE_ABOVE else nxt
     for members, (start, seen) in live.items():
         close(members, start, seen)
     return _maximal(closed, tol_snaps)
@@ -264,31 +271,50 @@ def _prune_dominated(cands: dict[frozenset, list[int]]) -> dict[frozenset, list[
     return kept
 
 
+def _containment(members: list[frozenset], n_obj: int, block: int = 2048):
+    """Yield (rows, counts) blocks: counts[r, j] = |members[rows[r]] & members[j]|."""
+    matrix = np.zeros((len(members), n_obj), dtype=np.float32)
+    for k, m in enumerate(members):  # per episode
+        matrix[k, list(m)] = 1.0
+    for lo in range(0, len(members), block):  # bounded memory: block x n rows at a time
+        rows = np.arange(lo, min(lo + block, len(members)))
+        yield rows, matrix[rows] @ matrix.T
+
+
 def _maximal(closed: list[tuple[frozenset, int, int]], tol_snaps: int) -> Episodes:
     """Return the closed candidates that no other contains, with splits and merges."""
     closed = sorted(set(closed), key=lambda e: (e[1], -len(e[0]), e[2], sorted(e[0])))
-    keep = [
-        (members, start, end)
-        for idx, (members, start, end) in enumerate(closed)
-        if not any(
-            o != idx and members <= other and o_start <= start and o_end >= end
-            for o, (other, o_start, o_end) in enumerate(closed)
-        )
-    ]
-    came_from: list[list[int]] = [[] for _ in keep]
-    went_into: list[list[int]] = [[] for _ in keep]
-    for e, (m_e, s_e, t_e) in enumerate(keep):
-        for f, (m_f, s_f, t_f) in enumerate(keep):
-            if f == e or not m_f < m_e:
-                continue
-            if s_f < s_e <= t_f + 1 + tol_snaps:  # f was running when e formed
-                came_from[e].append(f)
-            if s_f <= t_e < t_f:  # f goes on after e broke up
-                went_into[e].append(f)
+    if not closed:
+        return Episodes([], np.empty(0, np.int64), np.empty(0, np.int64), [], [])
+    sets = [m for m, _, _ in closed]
+    n_obj = max(max(m) for m in sets) + 1
+    size = np.array([len(m) for m in sets])
+    start = np.array([st for _, st, _ in closed])
+    end = np.array([en for _, _, en in closed])
+    contained = np.zeros(len(closed), dtype=bool)
+    for rows, common in _containment(sets, n_obj):
+        # another candidate holds all of its members over at least its whole span
+        inside = (common == size[rows, None]) & (start[None, :] <= start[rows, None])
+        inside &= end[None, :] >= end[rows, None]
+        inside[np.arange(rows.size), rows] = False  # not itself (duplicates were merged)
+        contained[rows] = inside.any(axis=1)
+    keep = np.flatnonzero(~contained)
+    sets = [sets[k] for k in keep]
+    size, start, end = size[keep], start[keep], end[keep]
+    came_from: list[list[int]] = []
+    went_into: list[list[int]] = []
+    for rows, common in _containment(sets, n_obj):
+        # f is a smaller episode of members of e: common == |f| and |f| < |e|
+        sub = (common == size[None, :]) & (size[None, :] < size[rows, None])
+        formed = sub & (start[None, :] < start[rows, None])
+        formed &= start[rows, None] <= end[None, :] + 1 + tol_snaps  # f ran when e formed
+        broke = sub & (start[None, :] <= end[rows, None]) & (end[rows, None] < end[None, :])
+        came_from += [np.flatnonzero(r).tolist() for r in formed]
+        went_into += [np.flatnonzero(r).tolist() for r in broke]
     return Episodes(
-        members=[np.asarray(sorted(m), dtype=np.int64) for m, _, _ in keep],
-        start=np.asarray([st for _, st, _ in keep], dtype=np.int64),
-        end=np.asarray([en for _, _, en in keep], dtype=np.int64),
+        members=[np.asarray(sorted(m), dtype=np.int64) for m in sets],
+        start=start.astype(np.int64),
+        end=end.astype(np.int64),
         came_from=came_from,
         went_into=went_into,
     )
