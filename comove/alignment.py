@@ -222,21 +222,26 @@ def align(fixes: Fixes, params: AlignParams | None = None) -> Snapshots:
             "give a smaller --step or a larger --max-gap"
         )
 
-    owner = np.repeat(np.arange(n), count)
-    start = np.cumsum(count) - count
-    grid = first[owner] + (np.arange(total) - start[owner])
-
-    x0, y0 = fixes.x[owner], fixes.y[owner]
-    nxt = np.minimum(owner + 1, n - 1)
-    span = (t_next - t)[owner]
-    with np.errstate(invalid="ignore", divide="ignore"):
-        w = np.where(span > 0, (grid * step_ns - t[owner]) / np.where(span > 0, span, 1), 0.0)
-    x = x0 + w * (fixes.x[nxt] - x0)
-    y = y0 + w * (fixes.y[nxt] - y0)
+    if total == n and on_grid.all() and (count == 1).all():
+        # every fix sits on its own grid point (regular sampling at the step, the usual
+        # case for 10-25 Hz tracking): nothing to interpolate
+        owner = None
+        grid, x, y, obj, role = first, fixes.x, fixes.y, fixes.obj, fixes.role
+    else:
+        owner = np.repeat(np.arange(n), count)
+        start = np.cumsum(count) - count
+        grid = first[owner] + (np.arange(total) - start[owner])
+        x0, y0 = fixes.x[owner], fixes.y[owner]
+        nxt = np.minimum(owner + 1, n - 1)
+        span = (t_next - t)[owner]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            w = np.where(span > 0, (grid * step_ns - t[owner]) / np.where(span > 0, span, 1), 0.0)
+        x = x0 + w * (fixes.x[nxt] - x0)
+        y = y0 + w * (fixes.y[nxt] - y0)
+        obj, role = fixes.obj[owner], fixes.role[owner]
 
     first_index = int(grid.min())
     snap = grid - first_index
-    obj = fixes.obj[owner]
     # entries come grouped by object with increasing snapshots: a stable sort by
     # snapshot only merges those runs, giving (snapshot, object) order cheaply
     order = np.argsort(snap, kind="stable")
@@ -246,7 +251,7 @@ def align(fixes: Fixes, params: AlignParams | None = None) -> Snapshots:
         n_snapshots=int(snap.max()) + 1,
         snap=snap[order].astype(np.int64),
         obj=obj[order].astype(np.int32),
-        role=fixes.role[owner][order].astype(np.int32),
+        role=role[order].astype(np.int32),
         x=x[order],
         y=y[order],
         objects=fixes.objects,

@@ -173,7 +173,8 @@ def find_episodes(snaps: Snapshots, groups: SnapshotGroups, params: EpisodeParam
     member_obj = snaps.obj[groups.entries]
 
     # each object's present snapshots, for telling absence (no data) from separation
-    by_obj = np.argsort(snaps.obj, kind="stable")
+    codes = snaps.obj.astype(np.int16) if len(snaps.objects) < 2**15 else snaps.obj
+    by_obj = np.argsort(codes, kind="stable")  # small codes: numpy's radix sort
     bounds = np.searchsorted(snaps.obj[by_obj], np.arange(len(snaps.objects) + 1))
     present_at = [snaps.snap[by_obj[bounds[o] : bounds[o + 1]]] for o in range(len(snaps.objects))]
 
@@ -385,9 +386,10 @@ def episode_table(
         present = entry >= 0
         ex = np.where(present, snaps.x[np.maximum(entry, 0)], np.nan)
         ey = np.where(present, snaps.y[np.maximum(entry, 0)], np.nan)
-        with warnings.catch_warnings():  # a tolerated gap can leave no member with data
-            warnings.simplefilter("ignore", RuntimeWarning)
-            cx, cy = np.nanmean(ex, axis=1), np.nanmean(ey, axis=1)
+        n_present = present.sum(axis=1)
+        with np.errstate(invalid="ignore", divide="ignore"):  # a tolerated gap: no data
+            cx = np.where(present, ex, 0.0).sum(axis=1) / n_present
+            cy = np.where(present, ey, 0.0).sum(axis=1) / n_present
         iu, ju = np.triu_indices(members.size, 1)
         d = np.hypot(ex[:, iu] - ex[:, ju], ey[:, iu] - ey[:, ju])
         fast = present & (motion.speed[np.maximum(entry, 0)] > min_speed)
@@ -395,7 +397,7 @@ def episode_table(
             warnings.simplefilter("ignore", RuntimeWarning)
             per_snap_spacing = np.nanmean(d, axis=1) if d.size else np.full(s.size, np.nan)
         # most present members faster than min_speed (NaN speeds count as not moving)
-        moving = 2 * fast.sum(axis=1) > present.sum(axis=1)
+        moving = 2 * fast.sum(axis=1) > n_present
         observed = np.isfinite(cx)
         roles = sorted(str(r) for r in snaps.roles[np.unique(snaps.role[entry[present]])])
         rows.append(

@@ -62,7 +62,9 @@ def entry_motion(snaps: Snapshots, window_s: float = 1.0) -> Motion:
     """
     n = snaps.n_entries
     half = max(1, int(round(window_s / snaps.step_s / 2)))
-    order = np.argsort(snaps.obj, kind="stable")  # snapshot order is kept within objects
+    # stable, so snapshot order is kept within objects; small codes take numpy's radix sort
+    codes = snaps.obj.astype(np.int16) if len(snaps.objects) < 2**15 else snaps.obj
+    order = np.argsort(codes, kind="stable")
     obj, snap = snaps.obj[order], snaps.snap[order]
     new_run = np.ones(n, dtype=bool)
     new_run[1:] = (obj[1:] != obj[:-1]) | (snap[1:] != snap[:-1] + 1)
