@@ -105,7 +105,8 @@ def _runs(set_id: np.ndarray, snap: np.ndarray, n_sets: int) -> tuple[np.ndarray
     return longest, start
 
 
-def _role_label(roles: np.ndarray, names: np.ndarray) -> str:
+def role_label(roles: np.ndarray, names: np.ndarray) -> str:
+    """Return the role names of ``roles`` sorted and joined by ';'."""
     return ROLE_SEP.join(sorted(str(names[r]) for r in roles))
 
 
@@ -178,7 +179,7 @@ def durable_patterns(
         )
         for s in np.flatnonzero(kept):  # per kept role set
             roles = level.roles[s]
-            label = _role_label(roles, names)
+            label = role_label(roles, names)
             mean_pr = pr_sum[s] / present[s]
             mean_pr_prev = pr_prev_sum[s] / level.prevalent[s]
             order = np.argsort([str(names[r]) for r in roles])

@@ -52,10 +52,11 @@ from comove.results import (
     parquet_writer,
     write_folder,
 )
+from comove.significance import TEST_COLUMNS, SignificanceParams, pattern_tests
 
 #: The stage settings of ``mine``, in pipeline order.
 MINE_STAGES: tuple[type, ...] = (
-    ColumnSpec, CleanParams, AlignParams, ColocationParams, PersistenceParams,
+    ColumnSpec, CleanParams, AlignParams, ColocationParams, PersistenceParams, SignificanceParams,
 )  # fmt: skip
 
 #: The stage settings of ``groups``, in pipeline order.
@@ -121,6 +122,9 @@ class MiningResult:
         Settings, versions and input digest (the content of ``run.json``).
     snapshots : Snapshots
         The aligned tracks, for further analysis.
+    tests : DataFrame or None
+        Monte Carlo tests of every role set with a prevalent snapshot (see
+        :func:`comove.significance.pattern_tests`); None when not run.
     """
 
     patterns: pd.DataFrame
@@ -129,24 +133,25 @@ class MiningResult:
     quality: dict
     run: dict
     snapshots: Snapshots = field(repr=False)
+    tests: pd.DataFrame | None = None
 
     def write(self, out_dir: str | os.PathLike[str], force: bool = False) -> Path:
         """Write the results folder atomically and return its path.
 
         Files: ``patterns.csv``, ``participation.csv``, ``pi_series.parquet``,
-        ``quality.json`` and ``run.json``.
+        ``quality.json``, ``run.json``, and ``significance.csv`` (every role
+        set tested) when significance tests ran.
         """
-        return write_folder(
-            out_dir,
-            {
-                "patterns.csv": csv_writer(self.patterns),
-                "participation.csv": csv_writer(self.participation),
-                "pi_series.parquet": parquet_writer(self.series),
-                "quality.json": json_writer(self.quality),
-                "run.json": json_writer(self.run),
-            },
-            force=force,
-        )
+        files = {
+            "patterns.csv": csv_writer(self.patterns),
+            "participation.csv": csv_writer(self.participation),
+            "pi_series.parquet": parquet_writer(self.series),
+            "quality.json": json_writer(self.quality),
+            "run.json": json_writer(self.run),
+        }
+        if self.tests is not None:
+            files["significance.csv"] = csv_writer(self.tests)
+        return write_folder(out_dir, files, force=force)
 
 
 def mine(source: Any, *, progress: bool = False, **options: Any) -> MiningResult:
@@ -180,8 +185,11 @@ def mine(source: Any, *, progress: bool = False, **options: Any) -> MiningResult
     >>> result.patterns[["roles", "time_prevalence"]].to_dict("records")
     [{'roles': 'dog;owner', 'time_prevalence': 1.0}]
     """
-    columns, cleaning, alignment, colocation, persistence = split_options(MINE_STAGES, options)
-    bar = _Progress(progress, total=6)
+    columns, cleaning, alignment, colocation, persistence, significance = split_options(
+        MINE_STAGES, options
+    )
+    significance = significance.resolved()
+    bar = _Progress(progress, total=7)
     try:
         snaps, quality = _aligned(source, columns, cleaning, alignment, bar)
         with bar.stage("neighbour search"):
@@ -199,15 +207,25 @@ def mine(source: Any, *, progress: bool = False, **options: Any) -> MiningResult
             tables = durable_patterns(
                 levels, snaps, persistence, colocation.min_participation, presence
             )
+        tests = None
+        patterns = tables.patterns
+        if significance.permutations > 0:
+            with bar.stage("significance"):
+                tests = pattern_tests(snaps, levels, colocation, significance, progress)
+                patterns = patterns.merge(
+                    tests[["roles", *TEST_COLUMNS]], on="roles", how="left", validate="1:1"
+                )
     finally:
         bar.close()
     run = run_record(
         "mine",
         source,
-        settings_record(columns, cleaning, _effective(snaps), colocation, persistence),
+        settings_record(
+            columns, cleaning, _effective(snaps), colocation, persistence, significance
+        ),
         extra={"caution": CAUTION},
     )
-    return MiningResult(tables.patterns, tables.participation, tables.series, quality, run, snaps)
+    return MiningResult(patterns, tables.participation, tables.series, quality, run, snaps, tests)
 
 
 def _aligned(

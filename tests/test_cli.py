@@ -41,6 +41,7 @@ def test_mine_writes_the_results_folder(tracks_csv, tmp_path, capsys):
     assert code == 0, err
     assert sorted(p.name for p in out_dir.iterdir()) == [
         "participation.csv", "patterns.csv", "pi_series.parquet", "quality.json", "run.json",
+        "significance.csv",
     ]  # fmt: skip
     patterns = pd.read_csv(out_dir / "patterns.csv")
     assert patterns["roles"].tolist() == ["dog;owner"]

@@ -1,0 +1,501 @@
+"""Is it real? Monte Carlo tests against movement-preserving null models.
+
+A high time prevalence can come from crowding alone: every player bunches near
+the ball, every vessel uses the one channel, every animal goes to the one
+waterhole. The null models here keep how each object moves and break only what
+the question is about:
+
+- ``"time-shift"`` (default): each object's aligned track is shifted in time
+  by its own random offset, circularly. Each track keeps its own
+  autocorrelation, speed, space use and gaps; only the timing *between*
+  objects is broken (the toroidal-shift idea of Lotwick & Silverman 1982,
+  applied along time). It asks: are these objects together more than their
+  separate movements would bring them together by chance?
+- ``"role-shuffle"``: role labels are permuted among objects (optionally only
+  within strata, such as a team), keeping every track and every meeting
+  intact. It asks: is the association specific to these *roles*, rather than
+  to who happens to be near whom?
+
+For each statistic (a role set's time prevalence, a pair's time together, a
+role set's number of episodes) the Monte Carlo p-value is
+``(1 + #{null >= observed}) / (1 + N)`` for N null replicates (Davison &
+Hinkley 1997), and Benjamini–Hochberg q-values control the false discovery
+rate across every statistic tested (Benjamini & Hochberg 1995).
+
+Replicates run in worker processes. Each replicate ``k`` draws from its own
+``numpy.random.SeedSequence(seed).spawn`` child, so results do not depend on
+the number of workers or their scheduling.
+"""
+
+from __future__ import annotations
+
+import os
+from collections.abc import Callable
+from concurrent.futures import ProcessPoolExecutor, as_completed
+from dataclasses import dataclass, field, replace
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from tqdm.auto import tqdm
+
+from comove.alignment import Snapshots
+from comove.errors import InputError
+
+NULL_MODELS = ("time-shift", "role-shuffle")
+
+#: Columns every family of tests adds to its table.
+TEST_COLUMNS = ["p_value", "q_value", "null_mean", "null_sd", "effect", "significant"]
+SHIFT_SPANS = ("period", "object")
+
+
+@dataclass(frozen=True)
+class SignificanceParams:
+    """Settings of the Monte Carlo tests.
+
+    Parameters
+    ----------
+    permutations : int, default 199
+        Null replicates N; 0 switches the tests off. The smallest attainable
+        p-value is 1 / (N + 1).
+    null : {"time-shift", "role-shuffle"}, default "time-shift"
+        The null model.
+    shift_within : {"period", "object"}, default "period"
+        Time shift: wrap each track around the whole analysed period, or
+        around the object's own span from first to last presence.
+    shuffle_strata : str or None, default None
+        Role shuffle: permute roles only among objects whose role names share
+        the text before this separator (``"_"`` keeps ``home_*`` and ``away_*``
+        apart).
+    seed : int or None, default None
+        Seed of the replicates; ``None`` draws one, which is recorded in
+        ``run.json`` so that the run can be repeated.
+    alpha : float, default 0.05
+        False discovery rate for the ``significant`` column.
+    jobs : int or None, default None
+        Worker processes; ``None`` uses every core.
+    """
+
+    permutations: int = field(
+        default=199, metadata={"help": "null replicates for Monte Carlo p-values; 0: no test"}
+    )
+    null: str = field(
+        default="time-shift", metadata={"help": "null model: time-shift or role-shuffle"}
+    )
+    shift_within: str = field(
+        default="period",
+        metadata={"help": "time-shift wraps around the whole period or each object's own span"},
+    )
+    shuffle_strata: str | None = field(
+        default=None,
+        metadata={"help": "role-shuffle only among roles sharing the text before this "
+                  "separator"},
+    )  # fmt: skip
+    seed: int | None = field(default=None, metadata={"help": "seed of the null replicates"})
+    alpha: float = field(default=0.05, metadata={"help": "false discovery rate for `significant`"})
+    jobs: int | None = field(default=None, metadata={"help": "worker processes (default: all)"})
+
+    def __post_init__(self) -> None:
+        if int(self.permutations) != self.permutations or self.permutations < 0:
+            raise InputError("--permutations must be a whole number, 0 or more")
+        if self.null not in NULL_MODELS:
+            raise InputError(f"--null must be one of {', '.join(NULL_MODELS)}, not {self.null!r}")
+        if self.shift_within not in SHIFT_SPANS:
+            raise InputError(f"--shift-within must be one of {', '.join(SHIFT_SPANS)}")
+        if self.shuffle_strata == "":
+            raise InputError("--shuffle-strata must be a non-empty separator such as _")
+        if not (0 < self.alpha < 1):
+            raise InputError("--alpha must be between 0 and 1")
+        if self.jobs is not None and (int(self.jobs) != self.jobs or self.jobs < 1):
+            raise InputError("--jobs must be a whole number of at least 1")
+        if self.seed is not None and (int(self.seed) != self.seed or self.seed < 0):
+            raise InputError("--seed must be a whole number, 0 or more")
+
+    def resolved(self) -> SignificanceParams:
+        """Return these settings with a drawn seed in place of ``None``."""
+        if self.seed is not None:
+            return self
+        return replace(self, seed=int(np.random.SeedSequence().generate_state(1)[0] >> 1))
+
+
+# --------------------------------------------------------------------------- null models
+
+
+class NullModel:
+    """Draws null replicates of aligned snapshots.
+
+    Per-object facts that do not change between replicates (each object's
+    entries in time order, its presence span, its main role) are computed
+    once here and reused by every replicate.
+
+    Parameters
+    ----------
+    snaps : Snapshots
+        The observed aligned snapshots.
+    params : SignificanceParams
+        Which null model and its options.
+    """
+
+    def __init__(self, snaps: Snapshots, params: SignificanceParams) -> None:
+        self.snaps = snaps
+        self.params = params
+        n_obj = len(snaps.objects)
+        codes = snaps.obj.astype(np.int16) if n_obj < 2**15 else snaps.obj
+        # entries in (object, snapshot) order: each object's track is one run
+        self.by_obj = np.argsort(codes, kind="stable")
+        obj_sorted = snaps.obj[self.by_obj]
+        self.bounds = np.searchsorted(obj_sorted, np.arange(n_obj + 1))
+        snap_sorted = snaps.snap[self.by_obj]
+        present = np.diff(self.bounds) > 0
+        self.present = present
+        self.first = np.where(
+            present, snap_sorted[np.minimum(self.bounds[:-1], snaps.n_entries - 1)], 0
+        )
+        self.last = np.where(present, snap_sorted[np.maximum(self.bounds[1:] - 1, 0)], 0)
+        # each object's most frequent role, for the role shuffle
+        n_roles = len(snaps.roles)
+        counts = np.bincount(snaps.obj * n_roles + snaps.role, minlength=n_obj * n_roles)
+        self.main_role = counts.reshape(n_obj, n_roles).argmax(axis=1)
+        if params.shuffle_strata:
+            sep = params.shuffle_strata
+            stratum_names = np.array([str(r).split(sep, 1)[0] for r in snaps.roles])
+            _, self.stratum = np.unique(stratum_names[self.main_role], return_inverse=True)
+        else:
+            self.stratum = np.zeros(n_obj, dtype=np.int64)
+
+    def draw(self, rng: np.random.Generator) -> tuple[Snapshots, np.ndarray | None]:
+        """Return one null replicate and how its entries map to the observed ones.
+
+        Returns
+        -------
+        snaps : Snapshots
+            The replicate.
+        order : ndarray or None
+            Entry ``e`` of the replicate is observed entry ``order[e]`` (apply
+            it to per-entry arrays such as velocities); ``None`` when entries
+            keep their places (role shuffle).
+        """
+        if self.params.null == "time-shift":
+            return self._time_shift(rng)
+        return self._role_shuffle(rng), None
+
+    def _time_shift(self, rng: np.random.Generator) -> tuple[Snapshots, np.ndarray]:
+        snaps = self.snaps
+        n_obj = len(snaps.objects)
+        if self.params.shift_within == "period":
+            span = np.full(n_obj, snaps.n_snapshots)
+            base = np.zeros(n_obj, dtype=np.int64)
+        else:
+            span = np.where(self.present, self.last - self.first + 1, 1)
+            base = self.first
+        offset = (rng.random(n_obj) * span).astype(np.int64)
+        obj = snaps.obj
+        new_snap = base[obj] + (snaps.snap - base[obj] + offset[obj]) % span[obj]
+        # in (object, snapshot) order each track is a rotation, two increasing runs,
+        # so the stable sort by new snapshot is a cheap merge and keeps objects in order
+        order = self.by_obj[np.argsort(new_snap[self.by_obj], kind="stable")]
+        shifted = replace(
+            snaps,
+            snap=new_snap[order],
+            obj=snaps.obj[order],
+            role=snaps.role[order],
+            x=snaps.x[order],
+            y=snaps.y[order],
+        )
+        return shifted, order
+
+    def _role_shuffle(self, rng: np.random.Generator) -> Snapshots:
+        new_role = self.main_role.copy()
+        for s in np.unique(self.stratum[self.present]):  # per stratum
+            members = np.flatnonzero(self.present & (self.stratum == s))
+            new_role[members] = self.main_role[members][rng.permutation(members.size)]
+        return replace(self.snaps, role=new_role[self.snaps.obj].astype(np.int32))
+
+
+# --------------------------------------------------------------------------- engine
+
+_WORKER: dict[str, Any] = {}
+
+
+Statistic = Callable[["NullModel", np.random.Generator], np.ndarray]
+
+#: Below this many entry-replicates the work stays in this process: starting
+#: workers and sending them the snapshots would cost more than it saves.
+IN_PROCESS_WORK = 5_000_000
+
+
+def _init_worker(model: NullModel, statistic: Statistic) -> None:
+    _WORKER["model"] = model
+    _WORKER["statistic"] = statistic
+
+
+def _run_replicates(seeds: list[np.random.SeedSequence], first: int) -> tuple[int, np.ndarray]:
+    model, statistic = _WORKER["model"], _WORKER["statistic"]
+    out = [statistic(model, np.random.default_rng(seq)) for seq in seeds]
+    return first, np.vstack(out)
+
+
+def null_distribution(
+    model: NullModel,
+    statistic: Statistic,
+    params: SignificanceParams,
+    progress: bool = False,
+    label: str = "null replicates",
+) -> np.ndarray:
+    """Return the statistic on ``params.permutations`` null replicates.
+
+    Parameters
+    ----------
+    model : NullModel
+        Draws replicates of the observed snapshots.
+    statistic : callable
+        ``statistic(model, rng)`` returns a 1-d array (one value per tested
+        item); it must be a picklable top-level function or partial.
+    params : SignificanceParams
+        ``permutations``, ``seed`` (must be resolved) and ``jobs``.
+    progress : bool, default False
+        Show a progress bar with the time left.
+    label : str
+        Progress bar text.
+
+    Returns
+    -------
+    ndarray, shape (permutations, n_items)
+        Row k is replicate k, whatever the number of workers.
+    """
+    n = int(params.permutations)
+    if params.seed is None:
+        raise ValueError("resolve the seed first (SignificanceParams.resolved)")
+    seeds = np.random.SeedSequence(params.seed).spawn(n)
+    jobs = params.jobs or os.cpu_count() or 1
+    jobs = max(1, min(jobs, n))
+    if params.jobs is None and model.snaps.n_entries * n < IN_PROCESS_WORK:
+        jobs = 1
+    bar = tqdm(total=n, desc=label, unit="replicate", disable=None if progress else True,
+               leave=False)  # fmt: skip
+    rows: list[np.ndarray | None] = [None] * n
+    if jobs == 1:
+        for k, seq in enumerate(seeds):
+            rows[k] = statistic(model, np.random.default_rng(seq))
+            bar.update(1)
+    else:
+        # a few chunks per worker: little pickling, and the bar still moves
+        size = max(1, n // (jobs * 4))
+        with ProcessPoolExecutor(
+            max_workers=jobs, initializer=_init_worker, initargs=(model, statistic)
+        ) as pool:
+            futures = [pool.submit(_run_replicates, seeds[i:i + size], i)
+                       for i in range(0, n, size)]  # fmt: skip
+            for fut in as_completed(futures):
+                first, block = fut.result()
+                for j, row in enumerate(block):
+                    rows[first + j] = row
+                bar.update(len(block))
+    bar.close()
+    return np.vstack(rows) if rows else np.empty((0, 0))
+
+
+# --------------------------------------------------------------------------- p and q values
+
+
+def monte_carlo_p(observed: np.ndarray, null: np.ndarray) -> np.ndarray:
+    """Return one-sided Monte Carlo p-values, (1 + #{null >= observed}) / (1 + N).
+
+    Parameters
+    ----------
+    observed : ndarray, shape (n_items,)
+        The statistic on the observed data.
+    null : ndarray, shape (N, n_items)
+        The statistic on N null replicates.
+
+    References
+    ----------
+    .. [1] A. C. A. Hope, "A simplified Monte Carlo significance test
+       procedure", JRSS B 30(3), 1968.
+    .. [2] A. C. Davison, D. V. Hinkley, "Bootstrap Methods and their
+       Application", Cambridge University Press, 1997, section 4.2.
+    """
+    n = null.shape[0]
+    exceed = (null >= observed[None, :] - 1e-12).sum(axis=0)
+    return (1.0 + exceed) / (1.0 + n)
+
+
+def bh_qvalues(p: np.ndarray) -> np.ndarray:
+    """Return Benjamini–Hochberg adjusted p-values (q-values).
+
+    q_(i) = min over j >= i of min(1, m p_(j) / j) for p sorted ascending.
+
+    References
+    ----------
+    .. [1] Y. Benjamini, Y. Hochberg, "Controlling the false discovery rate: a
+       practical and powerful approach to multiple testing", JRSS B 57(1), 1995.
+    """
+    p = np.asarray(p, dtype=np.float64)
+    m = p.size
+    if m == 0:
+        return p.copy()
+    order = np.argsort(p, kind="stable")
+    scaled = p[order] * m / np.arange(1, m + 1)
+    q_sorted = np.minimum.accumulate(scaled[::-1])[::-1]
+    q = np.empty(m)
+    q[order] = np.minimum(q_sorted, 1.0)
+    return q
+
+
+def summary_table(observed: np.ndarray, null: np.ndarray, alpha: float) -> pd.DataFrame:
+    """Return p_value, q_value, null_mean, null_sd, effect and significant per item."""
+    p = monte_carlo_p(observed, null)
+    q = bh_qvalues(p)
+    mean = null.mean(axis=0) if null.size else np.full(observed.size, np.nan)
+    sd = null.std(axis=0, ddof=1) if null.shape[0] > 1 else np.full(observed.size, np.nan)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        effect = np.where(mean > 0, observed / mean, np.where(observed > 0, np.inf, np.nan))
+    return pd.DataFrame({
+        "p_value": p, "q_value": q, "null_mean": mean, "null_sd": sd, "effect": effect,
+        "significant": q <= alpha,
+    })  # fmt: skip
+
+
+# --------------------------------------------------------------------------- statistics
+
+
+def _codes(role_sets: np.ndarray, n_roles: int) -> np.ndarray:
+    code = np.zeros(role_sets.shape[0], dtype=np.int64)
+    for col in range(role_sets.shape[1]):
+        code = code * n_roles + role_sets[:, col]
+    return code
+
+
+@dataclass(frozen=True)
+class RoleSetPrevalence:
+    """Statistic: the time prevalence of fixed role sets in a replicate.
+
+    Parameters
+    ----------
+    colocation : ColocationParams
+        Radius, participation threshold and largest size.
+    tested : tuple of ndarray
+        Role-code rows of the tested sets, one array per size (2, 3, ...).
+    """
+
+    colocation: Any
+    tested: tuple[np.ndarray, ...]
+
+    def __call__(self, model: NullModel, rng: np.random.Generator) -> np.ndarray:
+        """Return the tested sets' time prevalence in one null replicate."""
+        snaps, _ = model.draw(rng)
+        return role_set_prevalence(snaps, self.colocation, self.tested)
+
+
+def role_set_prevalence(
+    snaps: Snapshots, colocation: Any, tested: tuple[np.ndarray, ...]
+) -> np.ndarray:
+    """Return the time prevalence of each tested role set (0 where never prevalent)."""
+    from comove.colocation import RolePresence, mine_levels
+    from comove.neighbours import neighbour_pairs
+
+    n_roles = len(snaps.roles)
+    pairs = neighbour_pairs(snaps, colocation.radius)
+    levels = mine_levels(snaps, pairs, colocation, min_prevalent_snapshots=1,
+                         presence=RolePresence(snaps))  # fmt: skip
+    by_size = {lv.size: lv for lv in levels}
+    out = []
+    for sets in tested:
+        values = np.zeros(sets.shape[0])
+        level = by_size.get(sets.shape[1]) if sets.size else None
+        if level is not None and level.roles.shape[0]:
+            have = _codes(level.roles, n_roles)
+            order = np.argsort(have)
+            want = _codes(sets, n_roles)
+            pos = np.searchsorted(have[order], want)
+            pos = np.minimum(pos, have.size - 1)
+            hit = have[order][pos] == want
+            rows = order[pos]
+            with np.errstate(invalid="ignore", divide="ignore"):
+                prevalence = level.prevalent / np.maximum(level.present, 1)
+            values[hit] = prevalence[rows[hit]]
+        out.append(values)
+    return np.concatenate(out) if out else np.empty(0)
+
+
+@dataclass(frozen=True)
+class PairTogether:
+    """Statistic: snapshots together (within the radius) of fixed object pairs.
+
+    Parameters
+    ----------
+    radius : float
+        Distance in metres.
+    keys : ndarray of int64
+        ``object_a * n_objects + object_b`` of each tested pair (a < b).
+    """
+
+    radius: float
+    keys: np.ndarray
+
+    def __call__(self, model: NullModel, rng: np.random.Generator) -> np.ndarray:
+        """Return the tested pairs' snapshots together in one null replicate."""
+        snaps, _ = model.draw(rng)
+        return pair_together(snaps, self.radius, self.keys)
+
+
+def pair_together(snaps: Snapshots, radius: float, keys: np.ndarray) -> np.ndarray:
+    """Return, per pair key, the number of snapshots the two objects are within ``radius``."""
+    from comove.neighbours import neighbour_pairs
+
+    n_obj = len(snaps.objects)
+    pairs = neighbour_pairs(snaps, radius)
+    a, b = snaps.obj[pairs.i].astype(np.int64), snaps.obj[pairs.j].astype(np.int64)
+    found = np.minimum(a, b) * n_obj + np.maximum(a, b)
+    counts = np.bincount(found, minlength=n_obj * n_obj)
+    return counts[keys].astype(np.float64)
+
+
+# --------------------------------------------------------------------------- families of tests
+
+
+def pattern_tests(
+    snaps: Snapshots,
+    levels: list,
+    colocation: Any,
+    params: SignificanceParams,
+    progress: bool = False,
+) -> pd.DataFrame:
+    """Return Monte Carlo tests of the time prevalence of every role set mined.
+
+    The family tested is every role set with at least one prevalent snapshot
+    (any other has time prevalence 0 and cannot be significant).
+
+    Parameters
+    ----------
+    snaps : Snapshots
+        The observed aligned snapshots.
+    levels : list of LevelResult
+        The observed levels from :func:`comove.colocation.mine_levels`.
+    colocation : ColocationParams
+        The miner's settings, reused for every replicate.
+    params : SignificanceParams
+        Null model, replicates and seed (resolved).
+    progress : bool, default False
+        Show a progress bar.
+
+    Returns
+    -------
+    DataFrame
+        ``roles``, ``size``, ``time_prevalence`` and the columns of
+        :func:`summary_table`, sorted by p-value.
+    """
+    from comove.persistence import role_label
+
+    tested = tuple(lv.roles[lv.prevalent >= 1] for lv in levels)
+    observed = role_set_prevalence(snaps, colocation, tested)
+    labels = [role_label(row, snaps.roles) for sets in tested for row in sets]
+    sizes = [sets.shape[1] for sets in tested for _ in sets]
+    model = NullModel(snaps, params)
+    null = null_distribution(model, RoleSetPrevalence(colocation, tested), params, progress,
+                             label=f"{params.null} replicates")  # fmt: skip
+    table = summary_table(observed, null, params.alpha)
+    table.insert(0, "roles", labels)
+    table.insert(1, "size", np.asarray(sizes, dtype=np.int64))
+    table.insert(2, "time_prevalence", observed)
+    return table.sort_values(["p_value", "roles"], kind="stable").reset_index(drop=True)
