@@ -365,7 +365,7 @@ def envelopes(
         envelope of ``l``), ``null_mean`` (mean ``l`` over replicates) and
         ``above`` / ``below`` (observed ``l`` strictly above ``null_high`` /
         below ``null_low``). ``attrs`` gains ``envelope_replicates``,
-        ``envelope_level`` (as asked) and ``envelope_rank`` (the k below).
+        ``envelope_level`` (as asked) and ``envelope_rank`` (the largest k below over the rows).
 
     Raises
     ------

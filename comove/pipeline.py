@@ -52,7 +52,7 @@ from comove.results import (
     parquet_writer,
     write_folder,
 )
-from comove.significance import TEST_COLUMNS, SignificanceParams, pattern_tests
+from comove.significance import TEST_COLUMNS, SignificanceParams, group_tests, pattern_tests
 
 #: The stage settings of ``mine``, in pipeline order.
 MINE_STAGES: tuple[type, ...] = (
@@ -60,7 +60,9 @@ MINE_STAGES: tuple[type, ...] = (
 )  # fmt: skip
 
 #: The stage settings of ``groups``, in pipeline order.
-GROUP_STAGES: tuple[type, ...] = (ColumnSpec, CleanParams, AlignParams, GroupParams, EpisodeParams)
+GROUP_STAGES: tuple[type, ...] = (
+    ColumnSpec, CleanParams, AlignParams, GroupParams, EpisodeParams, SignificanceParams,
+)  # fmt: skip
 
 CAUTION = (
     "Positions of tracked people are personal data; co-location is association, "
@@ -365,8 +367,11 @@ def groups(
     merged.setdefault("require_role", False)
     if merged.get("radius") is None:
         raise InputError("give --radius (metres) or a --preset that sets one")
-    columns, cleaning, alignment, grouping, episode_params = split_options(GROUP_STAGES, merged)
-    bar = _Progress(progress, total=8)
+    columns, cleaning, alignment, grouping, episode_params, significance = split_options(
+        GROUP_STAGES, merged
+    )
+    significance = significance.resolved()
+    bar = _Progress(progress, total=9)
     try:
         snaps, quality = _aligned(source, columns, cleaning, alignment, bar)
         with bar.stage("neighbour search"):
@@ -381,14 +386,24 @@ def groups(
             dyads = dyad_table(snaps, pairs)
         with bar.stage("paths"):
             paths, display = episode_paths(snaps, table, centroids)
+        roles = role_rollup(table)
+        if significance.permutations > 0:
+            with bar.stage("significance"):
+                pair_tests, role_tests = group_tests(
+                    snaps, dyads, grouping, episode_params, motion, significance, progress
+                )
+            if pair_tests is not None:
+                dyads = dyads.merge(pair_tests, on=["object_a", "object_b"], how="left",
+                                    validate="1:1")  # fmt: skip
+            roles = roles.merge(role_tests.drop(columns="episodes"), on="roles", how="left")
     finally:
         bar.close()
     run = run_record(
         "groups",
         source,
-        settings_record(columns, cleaning, _effective(snaps), grouping, episode_params),
+        settings_record(
+            columns, cleaning, _effective(snaps), grouping, episode_params, significance
+        ),
         extra={"preset": preset, "caution": CAUTION},
     )
-    return GroupsResult(
-        table, role_rollup(table), dyads, paths, display, quality, run, snaps, centroids
-    )
+    return GroupsResult(table, roles, dyads, paths, display, quality, run, snaps, centroids)

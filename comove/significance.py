@@ -499,3 +499,126 @@ def pattern_tests(
     table.insert(1, "size", np.asarray(sizes, dtype=np.int64))
     table.insert(2, "time_prevalence", observed)
     return table.sort_values(["p_value", "roles"], kind="stable").reset_index(drop=True)
+
+
+@dataclass(frozen=True)
+class GroupStatistic:
+    """Statistic: time together of fixed pairs, and episode counts of fixed role sets.
+
+    Parameters
+    ----------
+    grouping : GroupParams
+        Link and group settings.
+    episodes : EpisodeParams
+        Episode settings.
+    pair_keys : ndarray of int64
+        ``object_a * n_objects + object_b`` of each tested pair.
+    labels : tuple of str
+        Tested role sets of episodes (role names sorted, joined by ';').
+    speed, heading : ndarray
+        Observed velocity of every entry, carried along with the entries.
+    """
+
+    grouping: Any
+    episodes: Any
+    pair_keys: np.ndarray
+    labels: tuple[str, ...]
+    speed: np.ndarray
+    heading: np.ndarray
+
+    def __call__(self, model: NullModel, rng: np.random.Generator) -> np.ndarray:
+        """Return [time together of each pair, episodes of each role set] in one replicate."""
+        snaps, order = model.draw(rng)
+        speed = self.speed if order is None else self.speed[order]
+        heading = self.heading if order is None else self.heading[order]
+        return group_statistics(snaps, self, speed, heading)
+
+
+def group_statistics(snaps: Snapshots, stat: GroupStatistic, speed: np.ndarray,
+                     heading: np.ndarray) -> np.ndarray:  # fmt: skip
+    """Return [snapshots together per tested pair, episodes per tested role set]."""
+    from comove.episodes import find_episodes
+    from comove.grouping import linked_pairs, snapshot_groups
+    from comove.motion import Motion
+    from comove.neighbours import neighbour_pairs
+
+    n_obj = len(snaps.objects)
+    pairs = neighbour_pairs(snaps, stat.grouping.radius)
+    a, b = snaps.obj[pairs.i].astype(np.int64), snaps.obj[pairs.j].astype(np.int64)
+    counts = np.bincount(np.minimum(a, b) * n_obj + np.maximum(a, b), minlength=n_obj * n_obj)
+    together = counts[stat.pair_keys].astype(np.float64)
+    motion = Motion(vx=np.empty(0), vy=np.empty(0), speed=speed, heading=heading)
+    links = linked_pairs(pairs, motion, stat.grouping)
+    found = find_episodes(snaps, snapshot_groups(snaps, links, stat.grouping), stat.episodes)
+    main = object_roles(snaps)
+    tally: dict[str, int] = {}
+    for members in found.members:
+        label = ";".join(sorted({str(snaps.roles[main[m]]) for m in members}))
+        tally[label] = tally.get(label, 0) + 1
+    episodes = np.array([tally.get(label, 0) for label in stat.labels], dtype=np.float64)
+    return np.concatenate([together, episodes])
+
+
+def object_roles(snaps: Snapshots) -> np.ndarray:
+    """Return each object's most frequent role code (its role for episode role sets)."""
+    n_obj, n_roles = len(snaps.objects), len(snaps.roles)
+    counts = np.bincount(snaps.obj * n_roles + snaps.role, minlength=n_obj * n_roles)
+    return counts.reshape(n_obj, n_roles).argmax(axis=1)
+
+
+def group_tests(
+    snaps: Snapshots,
+    dyads: pd.DataFrame,
+    grouping: Any,
+    episodes: Any,
+    motion: Any,
+    params: SignificanceParams,
+    progress: bool = False,
+) -> tuple[pd.DataFrame | None, pd.DataFrame]:
+    """Return Monte Carlo tests of pairs' time together and role sets' episode counts.
+
+    Pairs are tested only under the time shift: a role shuffle leaves every
+    pair's time together unchanged, so it says nothing about pairs.
+
+    Returns
+    -------
+    pair_tests : DataFrame or None
+        ``object_a``, ``object_b``, ``together_snapshots`` and the columns of
+        :func:`summary_table`; None under the role shuffle.
+    role_tests : DataFrame
+        ``roles``, ``episodes`` (observed count) and the columns of
+        :func:`summary_table`.
+    """
+    index = {str(name): k for k, name in enumerate(snaps.objects)}
+    n_obj = len(snaps.objects)
+    pair_keys = np.asarray(
+        [index[a] * n_obj + index[b] for a, b in zip(dyads["object_a"], dyads["object_b"],
+                                                      strict=True)],
+        dtype=np.int64,
+    )  # fmt: skip
+    from comove.episodes import find_episodes
+    from comove.grouping import linked_pairs, snapshot_groups
+    from comove.neighbours import neighbour_pairs
+
+    # the family of role sets: those with an observed episode
+    links = linked_pairs(neighbour_pairs(snaps, grouping.radius), motion, grouping)
+    observed_episodes = find_episodes(snaps, snapshot_groups(snaps, links, grouping), episodes)
+    main = object_roles(snaps)
+    labels = tuple(sorted({
+        ";".join(sorted({str(snaps.roles[main[m]]) for m in members}))
+        for members in observed_episodes.members
+    }))  # fmt: skip
+    stat = GroupStatistic(grouping, episodes, pair_keys, labels, motion.speed, motion.heading)
+    observed = group_statistics(snaps, stat, motion.speed, motion.heading)
+    null = null_distribution(NullModel(snaps, params), stat, params, progress,
+                             label=f"{params.null} replicates")  # fmt: skip
+    k = pair_keys.size
+    role_tests = summary_table(observed[k:], null[:, k:], params.alpha)
+    role_tests.insert(0, "roles", list(labels))
+    role_tests.insert(1, "episodes", observed[k:].astype(np.int64))
+    if params.null != "time-shift":
+        return None, role_tests
+    pair_tests = summary_table(observed[:k], null[:, :k], params.alpha)
+    pair_tests.insert(0, "object_a", dyads["object_a"].to_numpy())
+    pair_tests.insert(1, "object_b", dyads["object_b"].to_numpy())
+    return pair_tests, role_tests

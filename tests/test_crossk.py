@@ -79,7 +79,7 @@ def test_uncorrected_k_is_biased_low(csr_points):
     se = per_snap.reshape(N_BATCH, -1, r.size).mean(axis=1).std(axis=0, ddof=1) / np.sqrt(N_BATCH)
     # the naive estimator's mean is the integral of the rectangle's set covariance
     # (Wx-|h1|)(Wy-|h2|) over the disc, divided by Wx Wy (derived here from the set covariance
-    # of a rectangle, Baddeley, Rubak & Turner 2015, sec. 7.4):
+    # of a rectangle, Baddeley, Rubak & Turner 2015, ch. 7):
     # pi r^2 - (4/3) r^3 (Wx+Wy)/(Wx Wy) + r^4 / (2 Wx Wy)
     expected = np.pi * r**2 - 4 / 3 * r**3 * (WX + WY) / (WX * WY) + r**4 / (2 * WX * WY)
     assert np.all(np.abs(k_naive - expected) < 4 * se)
