@@ -21,12 +21,14 @@ from dataclasses import dataclass, field, fields
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 import pandas as pd
 from tqdm.auto import tqdm
 
 from comove.alignment import AlignParams, Snapshots, align, alignment_summary
 from comove.cleaning import CleanParams, clean_fixes
 from comove.colocation import ColocationParams, RolePresence, mine_levels
+from comove.crossk import CrossKParams
 from comove.dyads import dyad_table
 from comove.episodes import (
     EpisodeParams,
@@ -52,11 +54,76 @@ from comove.results import (
     parquet_writer,
     write_folder,
 )
-from comove.significance import TEST_COLUMNS, SignificanceParams, group_tests, pattern_tests
+from comove.significance import (
+    TEST_COLUMNS,
+    SignificanceParams,
+    cross_k_tests,
+    group_tests,
+    pattern_tests,
+)
+
+
+@dataclass(frozen=True)
+class CrossKRequest:
+    """Settings of the optional cross-K/L companion of ``mine``.
+
+    Parameters
+    ----------
+    k_radii : str or None, default None
+        Radii in metres, as ``start:stop:step`` or a comma-separated list;
+        None skips cross-K.
+    k_correction : {"translation", "border"}, default "translation"
+        Edge correction.
+    k_window : str or None, default None
+        Window ``xmin,ymin,xmax,ymax`` in the working plane (metres); None uses
+        the bounding box of all positions.
+    """
+
+    k_radii: str | None = field(
+        default=None,
+        metadata={"help": "cross-K/L per role pair at these radii (m): start:stop:step or "
+                  "r1,r2,...; envelopes from time-shift replicates"},
+    )  # fmt: skip
+    k_correction: str = field(
+        default="translation", metadata={"help": "cross-K edge correction: translation or border"}
+    )
+    k_window: str | None = field(
+        default=None,
+        metadata={"help": "cross-K window xmin,ymin,xmax,ymax in working-plane metres"},
+    )
+
+    def params(self) -> CrossKParams | None:
+        """Return the cross-K settings, or None when cross-K was not asked for."""
+        if self.k_radii is None:
+            return None
+        return CrossKParams(
+            radii=_number_list(self.k_radii, "--k-radii"),
+            window=tuple(_number_list(self.k_window, "--k-window")) if self.k_window else None,
+            correction=self.k_correction,
+        )
+
+
+def _number_list(text: str, flag: str) -> tuple[float, ...]:
+    """Return numbers from ``a:b:step`` (b included) or ``a,b,c`` text."""
+    try:
+        if ":" in text:
+            start, stop, step = (float(v) for v in text.split(":"))
+            if step <= 0:
+                raise ValueError
+            values = np.arange(start, stop + step / 2, step)
+        else:
+            values = np.array([float(v) for v in text.split(",") if v.strip()])
+    except ValueError:
+        raise InputError(
+            f"{flag} must be start:stop:step or a comma-separated list of numbers"
+        ) from None
+    return tuple(float(v) for v in values)
+
 
 #: The stage settings of ``mine``, in pipeline order.
 MINE_STAGES: tuple[type, ...] = (
     ColumnSpec, CleanParams, AlignParams, ColocationParams, PersistenceParams, SignificanceParams,
+    CrossKRequest,
 )  # fmt: skip
 
 #: The stage settings of ``groups``, in pipeline order.
@@ -127,6 +194,9 @@ class MiningResult:
     tests : DataFrame or None
         Monte Carlo tests of every role set with a prevalent snapshot (see
         :func:`comove.significance.pattern_tests`); None when not run.
+    cross_k : DataFrame or None
+        Cross-K/L per role pair and radius with pointwise envelopes (see
+        :func:`comove.significance.cross_k_tests`); None when not asked for.
     """
 
     patterns: pd.DataFrame
@@ -136,13 +206,14 @@ class MiningResult:
     run: dict
     snapshots: Snapshots = field(repr=False)
     tests: pd.DataFrame | None = None
+    cross_k: pd.DataFrame | None = None
 
     def write(self, out_dir: str | os.PathLike[str], force: bool = False) -> Path:
         """Write the results folder atomically and return its path.
 
         Files: ``patterns.csv``, ``participation.csv``, ``pi_series.parquet``,
-        ``quality.json``, ``run.json``, and ``significance.csv`` (every role
-        set tested) when significance tests ran.
+        ``quality.json``, ``run.json``, ``significance.csv`` (every role set
+        tested) when significance tests ran, and ``cross_k.csv`` when asked for.
         """
         files = {
             "patterns.csv": csv_writer(self.patterns),
@@ -153,6 +224,8 @@ class MiningResult:
         }
         if self.tests is not None:
             files["significance.csv"] = csv_writer(self.tests)
+        if self.cross_k is not None:
+            files["cross_k.csv"] = csv_writer(self.cross_k)
         return write_folder(out_dir, files, force=force)
 
 
@@ -187,11 +260,12 @@ def mine(source: Any, *, progress: bool = False, **options: Any) -> MiningResult
     >>> result.patterns[["roles", "time_prevalence"]].to_dict("records")
     [{'roles': 'dog;owner', 'time_prevalence': 1.0}]
     """
-    columns, cleaning, alignment, colocation, persistence, significance = split_options(
+    columns, cleaning, alignment, colocation, persistence, significance, k_request = split_options(
         MINE_STAGES, options
     )
     significance = significance.resolved()
-    bar = _Progress(progress, total=7)
+    k_params = k_request.params()
+    bar = _Progress(progress, total=8)
     try:
         snaps, quality = _aligned(source, columns, cleaning, alignment, bar)
         with bar.stage("neighbour search"):
@@ -217,17 +291,29 @@ def mine(source: Any, *, progress: bool = False, **options: Any) -> MiningResult
                 patterns = patterns.merge(
                     tests[["roles", *TEST_COLUMNS]], on="roles", how="left", validate="1:1"
                 )
+        cross = None
+        if k_params is not None:
+            with bar.stage("cross-K"):
+                cross = cross_k_tests(snaps, k_params, significance, progress)
     finally:
         bar.close()
     run = run_record(
         "mine",
         source,
         settings_record(
-            columns, cleaning, _effective(snaps), colocation, persistence, significance
-        ),
+            columns,
+            cleaning,
+            _effective(snaps),
+            colocation,
+            persistence,
+            significance,
+            k_request,
+        ),  # fmt: skip
         extra={"caution": CAUTION},
     )
-    return MiningResult(patterns, tables.participation, tables.series, quality, run, snaps, tests)
+    return MiningResult(
+        patterns, tables.participation, tables.series, quality, run, snaps, tests, cross
+    )
 
 
 def _aligned(

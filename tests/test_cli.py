@@ -195,3 +195,98 @@ def test_groups_bad_options(tracks_csv, tmp_path, capsys, options, expected):
     code, _, err = run(["groups", tracks_csv, "--out", tmp_path / "o", *options], capsys)
     assert code == 2
     assert err.count("\n") == 1 and expected in err
+
+
+def test_mine_significance_and_cross_k_options(tracks_csv, tmp_path, capsys):
+    out_dir = tmp_path / "s"
+    code, _, err = run(
+        [
+            "mine",
+            tracks_csv,
+            "--radius",
+            2,
+            "--out",
+            out_dir,
+            "--quiet",
+            "--permutations",
+            49,
+            "--seed",
+            3,
+            "--null",
+            "role-shuffle",
+            "--k-radii",
+            "1:3:1",
+        ],
+        capsys,
+    )
+    assert code == 0, err
+    patterns = pd.read_csv(out_dir / "patterns.csv")
+    assert {"p_value", "q_value", "null_mean", "null_sd", "effect", "significant"} <= set(
+        patterns.columns
+    )
+    assert patterns["p_value"].between(1 / 50, 1).all()
+    cross = pd.read_csv(out_dir / "cross_k.csv")
+    assert sorted(cross["radius_m"].unique()) == [1.0, 2.0, 3.0]
+    assert {"null_low", "null_high", "above", "below"} <= set(cross.columns)
+    settings = json.loads((out_dir / "run.json").read_text())["settings"]
+    assert settings["SignificanceParams"] == {
+        **settings["SignificanceParams"],
+        "seed": 3,
+        "null": "role-shuffle",
+        "permutations": 49,
+    }
+
+
+def test_permutations_zero_switches_the_tests_off(tracks_csv, tmp_path, capsys):
+    out_dir = tmp_path / "s"
+    code, _, err = run(
+        ["mine", tracks_csv, "--radius", 2, "--out", out_dir, "--quiet", "--permutations", 0],
+        capsys,
+    )
+    assert code == 0, err
+    assert "p_value" not in pd.read_csv(out_dir / "patterns.csv").columns
+    assert not (out_dir / "significance.csv").exists()
+
+
+def test_groups_tests_pairs_and_role_sets(tracks_csv, tmp_path, capsys):
+    out_dir = tmp_path / "g"
+    code, _, err = run(
+        [
+            "groups",
+            tracks_csv,
+            "--radius",
+            2,
+            "--out",
+            out_dir,
+            "--quiet",
+            "--permutations",
+            39,
+            "--seed",
+            1,
+        ],
+        capsys,
+    )
+    assert code == 0, err
+    dyads = pd.read_csv(out_dir / "dyads.csv").set_index(["object_a", "object_b"])
+    assert {"p_value", "q_value", "effect"} <= set(dyads.columns)
+    # each dog with its owner: together every snapshot, never so in a shifted replicate
+    assert dyads.loc[("a0", "a2"), "p_value"] == pytest.approx(1 / 40)
+    roles = pd.read_csv(out_dir / "episode_roles.csv")
+    assert "p_value" in roles.columns
+
+
+@pytest.mark.parametrize(
+    ("options", "expected"),
+    [
+        (["--null", "bootstrap"], "--null must be one of"),
+        (["--permutations", "-2"], "--permutations"),
+        (["--k-radii", "a:b"], "--k-radii must be"),
+        (["--k-radii", "3,1"], "--radii must be strictly ascending"),
+    ],
+)
+def test_bad_significance_options(tracks_csv, tmp_path, capsys, options, expected):
+    code, _, err = run(
+        ["mine", tracks_csv, "--radius", 2, "--out", tmp_path / "o", *options], capsys
+    )
+    assert code == 2
+    assert err.count("\n") == 1 and expected in err

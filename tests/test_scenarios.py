@@ -60,3 +60,12 @@ def test_demo_command_says_where_the_results_are(tmp_path, capsys):
     printed = capsys.readouterr().out
     assert f"Results written to {out}" in printed
     assert (out / "patterns.csv").is_file()
+
+
+def test_planted_role_sets_are_significant_at_the_default_number_of_replicates(mined):
+    # default 199 time-shift replicates: the smallest attainable p-value is 1/200
+    truth, result = mined
+    assert result.run["settings"]["SignificanceParams"]["permutations"] == 199
+    kept = result.patterns.set_index("roles")
+    for planted in truth["planted"]:
+        assert kept.loc[label(planted["roles"]), "p_value"] < 0.01

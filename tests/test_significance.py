@@ -173,8 +173,9 @@ def test_role_shuffle_keeps_tracks_and_respects_strata():
         assert order is None
         np.testing.assert_array_equal(shuffled.x, snaps.x)
         before = dict(zip(snaps.obj.tolist(), snaps.roles[snaps.role].tolist(), strict=False))
-        after = dict(zip(shuffled.obj.tolist(), shuffled.roles[shuffled.role].tolist(),
-                         strict=False))
+        after = dict(
+            zip(shuffled.obj.tolist(), shuffled.roles[shuffled.role].tolist(), strict=False)
+        )
         for o in before:
             assert before[o].split("_")[0] == after[o].split("_")[0]
         seen.add(tuple(after[o] for o in sorted(after)))
