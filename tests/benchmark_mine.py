@@ -151,6 +151,10 @@ def main() -> None:
     parser.add_argument("--hz", type=float, default=25.0)
     parser.add_argument("--naive-sample", type=int, default=3000)
     parser.add_argument("--repeat", type=int, default=3, help="runs of each; the median counts")
+    parser.add_argument(
+        "--permutations", type=int, default=0,
+        help="also time `comove mine --permutations N` (one run; 199 takes minutes)",
+    )  # fmt: skip
     parser.add_argument("--out", type=Path, default=Path("bench-out"))
     args = parser.parse_args()
     args.out.mkdir(parents=True, exist_ok=True)
@@ -181,6 +185,8 @@ def main() -> None:
             str(results),
             "--force",
             "--quiet",
+            "--permutations",
+            "0",
         ],
         args.repeat,
     )
@@ -199,9 +205,19 @@ def main() -> None:
             str(args.out / "groups"),
             "--force",
             "--quiet",
+            "--permutations",
+            "0",
         ],
         args.repeat,
     )
+    mine_args = [sys.executable, "-m", "comove.cli", "mine", str(data), "--radius", str(RADIUS),
+                 "--max-size", "3", "--step", str(1 / args.hz), "--force", "--quiet"]  # fmt: skip
+    perm_wall = None
+    if args.permutations:
+        perm_wall, _, _ = run_measured(
+            [*mine_args, "--permutations", str(args.permutations), "--seed", "1",
+             "--out", str(args.out / "permuted")]
+        )  # fmt: skip
     naive_wall, _, naive_out = run_measured(
         [sys.executable, "-c", NAIVE, str(data), str(RADIUS), str(args.naive_sample)]
     )
@@ -224,8 +240,12 @@ def main() -> None:
         f"| per-snapshot networkx cliques (scaled from {args.naive_sample:,} snapshots) | "
         f"{naive_total:.0f} | — |"
     )
+    if perm_wall is not None:
+        print(f"| `comove mine --permutations {args.permutations}` | {perm_wall:.1f} | — |")
     print()
     print(f"groups / reference: {groups_wall / ref_wall:.2f}x")
+    if perm_wall is not None:
+        print(f"permuted / unpermuted mine: {perm_wall / mine_wall:.1f}x")
     print(
         f"comove / reference: {mine_wall / ref_wall:.2f}x; "
         f"per-snapshot loop / comove: {naive_total / mine_wall:.1f}x; "
