@@ -273,3 +273,44 @@ def alignment_summary(snaps: Snapshots) -> dict:
         "mean_objects_per_snapshot": float(snaps.n_entries / max(snaps.n_snapshots, 1)),
         "objects_never_present": int((per_obj == 0).sum()),
     }
+
+
+#: Most positions kept in a results folder's track sample (for drawing only).
+SAMPLE_POSITIONS = 200_000
+
+
+def track_sample(snaps: Snapshots, to_input=None, limit: int = SAMPLE_POSITIONS):
+    """Return an evenly thinned sample of the aligned positions, for drawing maps.
+
+    Parameters
+    ----------
+    snaps : Snapshots
+        Aligned snapshots.
+    to_input : callable, optional
+        ``to_input(x, y) -> (x, y)`` taking working-plane metres to the input's
+        CRS (lon/lat for lon/lat input); identity when omitted.
+    limit : int, default 200_000
+        Most positions kept: every k-th snapshot is kept, with k the smallest
+        whole number that brings the count under the limit.
+
+    Returns
+    -------
+    DataFrame
+        ``object``, ``role``, ``time`` (UTC), ``x``, ``y``; ``attrs["every"]``
+        holds k. Only drawing uses it; every computation uses all snapshots.
+    """
+    import pandas as pd
+
+    every = max(1, -(-snaps.n_entries // max(limit, 1)))
+    keep = snaps.snap % every == 0
+    x, y = snaps.x[keep], snaps.y[keep]
+    if to_input is not None:
+        x, y = to_input(x, y)
+    frame = pd.DataFrame({
+        "object": pd.Categorical.from_codes(snaps.obj[keep], categories=snaps.objects),
+        "role": pd.Categorical.from_codes(snaps.role[keep], categories=snaps.roles),
+        "time": pd.to_datetime(snaps.times(snaps.snap[keep]), utc=True),
+        "x": x, "y": y,
+    })  # fmt: skip
+    frame.attrs["every"] = int(every)
+    return frame

@@ -134,6 +134,10 @@ def build_parser() -> argparse.ArgumentParser:
 
 def _add_common(p: argparse.ArgumentParser) -> None:
     p.add_argument("--force", action="store_true", help="replace an existing results folder")
+    p.add_argument(
+        "--merge", action="store_true",
+        help="add to an existing results folder of the other command (mine/groups)",
+    )  # fmt: skip
     p.add_argument("--quiet", action="store_true", help="print nothing but errors")
 
 
@@ -153,7 +157,7 @@ def _report(result: comove.pipeline.MiningResult, out: Path, quiet: bool) -> Non
 def _run_mine(args: argparse.Namespace) -> None:
     source = args.input[0] if len(args.input) == 1 else list(args.input)
     result = mine(source, progress=not args.quiet, **_stage_options(args, MINE_STAGES))
-    out = result.write(args.out, force=args.force)
+    out = result.write(args.out, force=args.force, merge=getattr(args, "merge", False))
     _report(result, out, args.quiet)
 
 
@@ -162,7 +166,7 @@ def _run_groups(args: argparse.Namespace) -> None:
     result = groups(
         source, preset=args.preset, progress=not args.quiet, **_stage_options(args, GROUP_STAGES)
     )
-    out = result.write(args.out, force=args.force)
+    out = result.write(args.out, force=args.force, merge=getattr(args, "merge", False))
     if args.quiet:
         return
     print(format_quality_summary(result.quality))
@@ -183,7 +187,7 @@ def _run_demo(args: argparse.Namespace) -> None:
     if not args.quiet:
         print(f"Demo scenario: {source}")
     result = mine(source, progress=not args.quiet, **options)
-    out = result.write(args.out, force=args.force)
+    out = result.write(args.out, force=args.force, merge=getattr(args, "merge", False))
     _report(result, out, args.quiet)
 
 

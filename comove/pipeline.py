@@ -25,7 +25,7 @@ import numpy as np
 import pandas as pd
 from tqdm.auto import tqdm
 
-from comove.alignment import AlignParams, Snapshots, align, alignment_summary
+from comove.alignment import AlignParams, Snapshots, align, alignment_summary, track_sample
 from comove.cleaning import CleanParams, clean_fixes
 from comove.colocation import ColocationParams, RolePresence, mine_levels
 from comove.crossk import CrossKParams
@@ -208,14 +208,18 @@ class MiningResult:
     tests: pd.DataFrame | None = None
     cross_k: pd.DataFrame | None = None
 
-    def write(self, out_dir: str | os.PathLike[str], force: bool = False) -> Path:
+    def write(
+        self, out_dir: str | os.PathLike[str], force: bool = False, merge: bool = False
+    ) -> Path:
         """Write the results folder atomically and return its path.
 
         Files: ``patterns.csv``, ``participation.csv``, ``pi_series.parquet``,
+        ``track_sample.parquet`` (thinned positions for maps),
         ``quality.json``, ``run.json``, ``significance.csv`` (every role set
         tested) when significance tests ran, and ``cross_k.csv`` when asked for.
         """
         files = {
+            "track_sample.parquet": parquet_writer(_sample(self.snapshots)),
             "patterns.csv": csv_writer(self.patterns),
             "participation.csv": csv_writer(self.participation),
             "pi_series.parquet": parquet_writer(self.series),
@@ -226,7 +230,7 @@ class MiningResult:
             files["significance.csv"] = csv_writer(self.tests)
         if self.cross_k is not None:
             files["cross_k.csv"] = csv_writer(self.cross_k)
-        return write_folder(out_dir, files, force=force)
+        return write_folder(out_dir, files, force=force, merge="mine" if merge else None)
 
 
 def mine(source: Any, *, progress: bool = False, **options: Any) -> MiningResult:
@@ -316,6 +320,11 @@ def mine(source: Any, *, progress: bool = False, **options: Any) -> MiningResult
     )
 
 
+def _sample(snaps: Snapshots) -> pd.DataFrame:
+    """Return the thinned positions a results folder keeps for drawing maps."""
+    return track_sample(snaps, lambda x, y: working_to_input(snaps, x, y))
+
+
 def _aligned(
     source: Any,
     columns: ColumnSpec,
@@ -375,10 +384,13 @@ class GroupsResult:
     snapshots: Snapshots = field(repr=False)
     centroids: list = field(repr=False, default_factory=list)
 
-    def write(self, out_dir: str | os.PathLike[str], force: bool = False) -> Path:
+    def write(
+        self, out_dir: str | os.PathLike[str], force: bool = False, merge: bool = False
+    ) -> Path:
         """Write the results folder atomically and return its path.
 
         Files: ``episodes.csv``, ``episode_roles.csv``, ``dyads.csv``,
+        ``track_sample.parquet`` (thinned positions for maps),
         ``episode_paths.parquet`` (GeoParquet, every snapshot),
         ``episode_paths.geojson`` (thinned for viewing),
         ``quality.json`` and ``run.json``.
@@ -386,6 +398,7 @@ class GroupsResult:
         return write_folder(
             out_dir,
             {
+                "track_sample.parquet": parquet_writer(_sample(self.snapshots)),
                 "episodes.csv": csv_writer(self.episodes),
                 "episode_roles.csv": csv_writer(self.roles),
                 "dyads.csv": csv_writer(self.dyads),
@@ -395,6 +408,7 @@ class GroupsResult:
                 "run.json": json_writer(self.run),
             },
             force=force,
+            merge="groups" if merge else None,
         )
 
     def to_trajectories(self) -> Any:

@@ -45,13 +45,37 @@ def iso_utc(ts: pd.Timestamp) -> str:
     return ts.isoformat().replace("+00:00", "Z")
 
 
-def json_writer(content: Mapping[str, Any]) -> Writer:
-    """Return a writer of ``content`` as indented JSON."""
+class json_writer:  # noqa: N801 - used like the other writer factories
+    """A writer of ``content`` as indented JSON (the content stays readable for merging)."""
 
-    def write(path: Path) -> None:
-        path.write_text(json.dumps(_plain(dict(content)), indent=2, allow_nan=False) + "\n")
+    def __init__(self, content: Mapping[str, Any]) -> None:
+        self.content = dict(content)
 
-    return write
+    def __call__(self, path: Path) -> None:
+        """Write the content to ``path``."""
+        path.write_text(json.dumps(_plain(self.content), indent=2, allow_nan=False) + "\n")
+
+
+#: Files that two commands' results in one folder share, combined per command.
+SHARED_JSON = ("run.json", "quality.json")
+#: Files both commands write with the same content for one input: the newer is kept.
+SHARED_SAME = ("track_sample.parquet",)
+
+
+def _combined(existing: dict, new: dict, command: str, prior: str) -> dict:
+    """Return ``existing`` (made by ``prior``) and ``new`` JSON content keyed by command."""
+    merged = dict(existing["by_command"]) if "by_command" in existing else {prior: existing}
+    merged[command] = new
+    return {"by_command": merged}
+
+
+def _prior_command(folder: Path) -> str:
+    """Return the command that made a results folder, from its run.json."""
+    try:
+        run = json.loads((folder / "run.json").read_text())
+    except (OSError, ValueError):
+        return "earlier"
+    return str(run.get("command", "earlier"))
 
 
 def csv_writer(frame: pd.DataFrame) -> Writer:
@@ -62,7 +86,7 @@ def csv_writer(frame: pd.DataFrame) -> Writer:
         for col in out.columns:
             if isinstance(out[col].dtype, pd.DatetimeTZDtype):
                 out[col] = out[col].dt.strftime("%Y-%m-%dT%H:%M:%S.%fZ")
-        out.to_csv(path, index=False, float_format="%.6g")
+        out.to_csv(path, index=False, float_format="%.10g")
 
     return write
 
@@ -101,7 +125,10 @@ def geojson_writer(frame: Any) -> Writer:
 
 
 def write_folder(
-    out_dir: str | os.PathLike[str], files: Mapping[str, Writer], force: bool = False
+    out_dir: str | os.PathLike[str],
+    files: Mapping[str, Writer],
+    force: bool = False,
+    merge: str | None = None,
 ) -> Path:
     """Write ``files`` into ``out_dir`` atomically and return the folder's path.
 
@@ -112,8 +139,14 @@ def write_folder(
     files : mapping of file name to writer
         Each writer is called with the full path to write.
     force : bool, default False
-        Replace an existing ``out_dir``. Without it an existing folder is an
-        error and nothing is written.
+        Replace an existing ``out_dir`` (with ``merge``: replace files of the
+        same name). Without it an existing folder is an error and nothing is
+        written.
+    merge : str, optional
+        Add these files to an existing results folder of another command
+        (named here, e.g. ``"groups"``): its files are kept, and ``run.json``
+        and ``quality.json`` are combined as ``{"by_command": {...}}``. The
+        folder is still replaced in one step.
 
     Returns
     -------
@@ -128,15 +161,34 @@ def write_folder(
     out = Path(out_dir)
     if out.exists() and not out.is_dir():
         raise InputError(f"{out}: exists and is not a folder; choose another --out")
-    if out.exists() and not force:
+    merging = merge is not None and out.exists()
+    if out.exists() and not force and not merging:
         raise InputError(
-            f"{out}: already exists; choose another --out or add --force to replace it"
+            f"{out}: already exists; choose another --out, add --force to replace it or "
+            "--merge to add to it"
         )
+    if merging and not force:
+        shared = SHARED_JSON + SHARED_SAME
+        clash = sorted(n for n in files if n not in shared and (out / n).exists())
+        if clash:
+            raise InputError(
+                f"{out}: already holds {', '.join(clash)}; add --force to replace them"
+            )
     out.parent.mkdir(parents=True, exist_ok=True)
     tmp = Path(tempfile.mkdtemp(prefix=f".{out.name}.partial-", dir=out.parent))
     try:
+        if merging:
+            prior = _prior_command(out)
+            for old_file in out.iterdir():
+                if old_file.is_file() and (old_file.name not in files or
+                                           old_file.name in SHARED_JSON):  # fmt: skip
+                    shutil.copy2(old_file, tmp / old_file.name)
         for name, write in files.items():
-            write(tmp / name)
+            target = tmp / name
+            if merging and name in SHARED_JSON and target.exists() and hasattr(write, "content"):
+                existing = json.loads(target.read_text())
+                write = json_writer(_combined(existing, write.content, merge, prior))
+            write(target)
         if out.exists():
             old = Path(tempfile.mkdtemp(prefix=f".{out.name}.old-", dir=out.parent))
             old.rmdir()

@@ -41,7 +41,7 @@ def test_mine_writes_the_results_folder(tracks_csv, tmp_path, capsys):
     assert code == 0, err
     assert sorted(p.name for p in out_dir.iterdir()) == [
         "participation.csv", "patterns.csv", "pi_series.parquet", "quality.json", "run.json",
-        "significance.csv",
+        "significance.csv", "track_sample.parquet",
     ]  # fmt: skip
     patterns = pd.read_csv(out_dir / "patterns.csv")
     assert patterns["roles"].tolist() == ["dog;owner"]
@@ -71,7 +71,7 @@ def test_existing_results_are_not_overwritten_without_force(tracks_csv, tmp_path
     (out_dir / "keep.txt").write_text("mine")
     code, _, err = run(["mine", tracks_csv, "--radius", 2, "--out", out_dir], capsys)
     assert code == 2
-    assert err.strip().endswith("already exists; choose another --out or add --force to replace it")
+    assert "already exists; choose another --out, add --force to replace it" in err
     assert (out_dir / "keep.txt").read_text() == "mine"
     code, _, _ = run(["mine", tracks_csv, "--radius", 2, "--out", out_dir, "--force"], capsys)
     assert code == 0
@@ -147,7 +147,7 @@ def test_groups_writes_episodes_dyads_and_paths(tracks_csv, tmp_path, capsys):
     assert code == 0, err
     assert sorted(p.name for p in out_dir.iterdir()) == [
         "dyads.csv", "episode_paths.geojson", "episode_paths.parquet", "episode_roles.csv",
-        "episodes.csv", "quality.json", "run.json",
+        "episodes.csv", "quality.json", "run.json", "track_sample.parquet",
     ]  # fmt: skip
     episodes = pd.read_csv(out_dir / "episodes.csv")
     # each dog walks beside its owner for the whole minute; the cat sits apart
@@ -290,3 +290,22 @@ def test_bad_significance_options(tracks_csv, tmp_path, capsys, options, expecte
     )
     assert code == 2
     assert err.count("\n") == 1 and expected in err
+
+
+def test_mine_and_groups_results_merge_into_one_folder(tracks_csv, tmp_path, capsys):
+    out_dir = tmp_path / "both"
+    base = ["--radius", 2, "--out", out_dir, "--quiet", "--permutations", 0]
+    assert run(["mine", tracks_csv, *base], capsys)[0] == 0
+    code, _, err = run(["groups", tracks_csv, *base], capsys)
+    assert code == 2 and "--merge" in err  # never silently mixed in
+    assert run(["groups", tracks_csv, *base, "--merge"], capsys)[0] == 0
+    names = {p.name for p in out_dir.iterdir()}
+    assert {"patterns.csv", "episodes.csv", "dyads.csv", "run.json"} <= names
+    runs = json.loads((out_dir / "run.json").read_text())["by_command"]
+    assert set(runs) == {"mine", "groups"}
+    assert runs["groups"]["command"] == "groups"
+    quality = json.loads((out_dir / "quality.json").read_text())["by_command"]
+    assert quality["mine"]["rows_read"] == quality["groups"]["rows_read"] == 300
+    # merging again would overwrite the groups files: that needs --force
+    code, _, err = run(["groups", tracks_csv, *base, "--merge"], capsys)
+    assert code == 2 and "already holds" in err and "--force" in err

@@ -38,7 +38,7 @@ def test_failed_write_leaves_nothing(tmp_path):
 
 def test_existing_folder_needs_force_and_survives_a_failed_replace(tmp_path):
     out = write_folder(tmp_path / "res", {"a.json": json_writer({"run": 1})})
-    with pytest.raises(InputError, match="already exists; choose another --out or add --force"):
+    with pytest.raises(InputError, match="already exists; choose another --out, add --force"):
         write_folder(out, {"a.json": json_writer({"run": 2})})
 
     def boom(path):
