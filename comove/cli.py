@@ -18,6 +18,7 @@ from comove.cleaning import format_quality_summary
 from comove.errors import InputError
 from comove.pipeline import CAUTION, GROUP_STAGES, MINE_STAGES, groups, mine
 from comove.presets import PRESETS
+from comove.runfile import load_run_file
 
 EXIT_INPUT = 2
 
@@ -91,11 +92,12 @@ def build_parser() -> argparse.ArgumentParser:
     )
     p.add_argument(
         "input",
-        nargs="+",
+        nargs="*",
         help="track file(s) or glob(s): CSV, TSV, Parquet, GeoParquet, GeoPackage, GeoJSON",
     )
-    p.add_argument("--out", required=True, type=Path, help="results folder to create")
-    _add_stage_options(p, MINE_STAGES, required={"radius"})
+    p.add_argument("--out", type=Path, help="results folder to create")
+    _add_config(p)
+    _add_stage_options(p, MINE_STAGES, required=set())
     _add_common(p)
 
     g = sub.add_parser(
@@ -105,8 +107,9 @@ def build_parser() -> argparse.ArgumentParser:
         "how strongly each pair is associated. A preset supplies defaults; flags override "
         "them.",
     )
-    g.add_argument("input", nargs="+", help="track file(s) or glob(s), as for `comove mine`")
-    g.add_argument("--out", required=True, type=Path, help="results folder to create")
+    g.add_argument("input", nargs="*", help="track file(s) or glob(s), as for `comove mine`")
+    g.add_argument("--out", type=Path, help="results folder to create")
+    _add_config(g)
     g.add_argument(
         "--preset",
         choices=sorted(PRESETS),
@@ -132,6 +135,35 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+def _add_config(p: argparse.ArgumentParser) -> None:
+    p.add_argument(
+        "--config", type=Path, metavar="FILE",
+        help="run file: a TOML file of options (and input, out), or a results folder's "
+        "run.json to repeat that run; flags given here override it",
+    )  # fmt: skip
+
+
+def _resolve(
+    args: argparse.Namespace, stages: tuple[type, ...]
+) -> tuple[Any, Path, dict[str, Any]]:
+    """Return (source, out folder, options) from a run file overridden by the flags."""
+    options: dict[str, Any] = {}
+    if args.config is not None:
+        options = load_run_file(args.config, args.command, stages)
+    inputs = list(args.input) or options.pop("input", [])
+    options.pop("input", None)
+    out = args.out or (Path(options["out"]) if options.get("out") else None)
+    options.pop("out", None)
+    if getattr(args, "preset", None):
+        options["preset"] = args.preset
+    options.update(_stage_options(args, stages))
+    if not inputs:
+        raise InputError("no INPUT given; name track files, or an input in the --config file")
+    if out is None:
+        raise InputError("no --out given; name the results folder to create")
+    return (inputs[0] if len(inputs) == 1 else inputs), out, options
+
+
 def _add_common(p: argparse.ArgumentParser) -> None:
     p.add_argument("--force", action="store_true", help="replace an existing results folder")
     p.add_argument(
@@ -155,18 +187,20 @@ def _report(result: comove.pipeline.MiningResult, out: Path, quiet: bool) -> Non
 
 
 def _run_mine(args: argparse.Namespace) -> None:
-    source = args.input[0] if len(args.input) == 1 else list(args.input)
-    result = mine(source, progress=not args.quiet, **_stage_options(args, MINE_STAGES))
-    out = result.write(args.out, force=args.force, merge=getattr(args, "merge", False))
+    source, out_dir, options = _resolve(args, MINE_STAGES)
+    options.pop("preset", None)
+    if options.get("radius") is None:
+        raise InputError("give --radius (metres), or radius in the --config file")
+    result = mine(source, progress=not args.quiet, **options)
+    out = result.write(out_dir, force=args.force, merge=args.merge)
     _report(result, out, args.quiet)
 
 
 def _run_groups(args: argparse.Namespace) -> None:
-    source = args.input[0] if len(args.input) == 1 else list(args.input)
-    result = groups(
-        source, preset=args.preset, progress=not args.quiet, **_stage_options(args, GROUP_STAGES)
-    )
-    out = result.write(args.out, force=args.force, merge=getattr(args, "merge", False))
+    source, out_dir, options = _resolve(args, GROUP_STAGES)
+    preset = options.pop("preset", None)
+    result = groups(source, preset=preset, progress=not args.quiet, **options)
+    out = result.write(out_dir, force=args.force, merge=args.merge)
     if args.quiet:
         return
     print(format_quality_summary(result.quality))
@@ -187,7 +221,7 @@ def _run_demo(args: argparse.Namespace) -> None:
     if not args.quiet:
         print(f"Demo scenario: {source}")
     result = mine(source, progress=not args.quiet, **options)
-    out = result.write(args.out, force=args.force, merge=getattr(args, "merge", False))
+    out = result.write(args.out, force=args.force, merge=args.merge)
     _report(result, out, args.quiet)
 
 

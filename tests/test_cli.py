@@ -309,3 +309,44 @@ def test_mine_and_groups_results_merge_into_one_folder(tracks_csv, tmp_path, cap
     # merging again would overwrite the groups files: that needs --force
     code, _, err = run(["groups", tracks_csv, *base, "--merge"], capsys)
     assert code == 2 and "already holds" in err and "--force" in err
+
+
+def test_toml_run_file_and_flags_override(tracks_csv, tmp_path, capsys):
+    # the run file's input is relative to the file's own folder
+    (tmp_path / "run.toml").write_text(
+        f'input = "{tracks_csv.name}"\nout = "from-file"\nradius = 2.0\n'
+        'min-prevalence = 0.9\npermutations = 0\n'
+    )
+    code, _, err = run(["mine", "--config", tmp_path / "run.toml", "--quiet",
+                        "--min-prevalence", "0.5"], capsys)
+    assert code == 0, err
+    out_dir = tmp_path / "from-file"
+    settings = json.loads((out_dir / "run.json").read_text())["settings"]
+    assert settings["ColocationParams"]["radius"] == 2.0  # from the file
+    assert settings["PersistenceParams"]["min_prevalence"] == 0.5  # the flag wins
+
+
+def test_unknown_run_file_key_is_named(tracks_csv, tmp_path, capsys):
+    (tmp_path / "run.toml").write_text('radius = 2\nradiuss = 3\n')
+    code, _, err = run(["mine", tracks_csv, "--config", tmp_path / "run.toml", "--out",
+                        tmp_path / "o"], capsys)
+    assert code == 2 and err.count("\n") == 1
+    assert "unknown key 'radiuss'" in err and "run.toml" in err
+
+
+@pytest.mark.parametrize("command", ["mine", "groups"])
+def test_run_json_repeats_the_run_exactly(tracks_csv, tmp_path, capsys, command):
+    first = tmp_path / "first"
+    code, _, err = run([command, tracks_csv, "--radius", 2, "--out", first, "--quiet",
+                        "--permutations", 19], capsys)
+    assert code == 0, err
+    again = tmp_path / "again"
+    code, _, err = run([command, "--config", first / "run.json", "--out", again, "--quiet"],
+                       capsys)
+    assert code == 0, err
+    for name in sorted(p.name for p in first.iterdir()):
+        if name.endswith(".csv") or name.endswith(".geojson"):
+            assert (first / name).read_bytes() == (again / name).read_bytes(), name
+    a = json.loads((first / "run.json").read_text())
+    b = json.loads((again / "run.json").read_text())
+    assert a["settings"] == b["settings"] and a["input_digest"] == b["input_digest"]
