@@ -315,10 +315,11 @@ def test_toml_run_file_and_flags_override(tracks_csv, tmp_path, capsys):
     # the run file's input is relative to the file's own folder
     (tmp_path / "run.toml").write_text(
         f'input = "{tracks_csv.name}"\nout = "from-file"\nradius = 2.0\n'
-        'min-prevalence = 0.9\npermutations = 0\n'
+        "min-prevalence = 0.9\npermutations = 0\n"
     )
-    code, _, err = run(["mine", "--config", tmp_path / "run.toml", "--quiet",
-                        "--min-prevalence", "0.5"], capsys)
+    code, _, err = run(
+        ["mine", "--config", tmp_path / "run.toml", "--quiet", "--min-prevalence", "0.5"], capsys
+    )
     assert code == 0, err
     out_dir = tmp_path / "from-file"
     settings = json.loads((out_dir / "run.json").read_text())["settings"]
@@ -327,9 +328,10 @@ def test_toml_run_file_and_flags_override(tracks_csv, tmp_path, capsys):
 
 
 def test_unknown_run_file_key_is_named(tracks_csv, tmp_path, capsys):
-    (tmp_path / "run.toml").write_text('radius = 2\nradiuss = 3\n')
-    code, _, err = run(["mine", tracks_csv, "--config", tmp_path / "run.toml", "--out",
-                        tmp_path / "o"], capsys)
+    (tmp_path / "run.toml").write_text("radius = 2\nradiuss = 3\n")
+    code, _, err = run(
+        ["mine", tracks_csv, "--config", tmp_path / "run.toml", "--out", tmp_path / "o"], capsys
+    )
     assert code == 2 and err.count("\n") == 1
     assert "unknown key 'radiuss'" in err and "run.toml" in err
 
@@ -337,12 +339,13 @@ def test_unknown_run_file_key_is_named(tracks_csv, tmp_path, capsys):
 @pytest.mark.parametrize("command", ["mine", "groups"])
 def test_run_json_repeats_the_run_exactly(tracks_csv, tmp_path, capsys, command):
     first = tmp_path / "first"
-    code, _, err = run([command, tracks_csv, "--radius", 2, "--out", first, "--quiet",
-                        "--permutations", 19], capsys)
+    code, _, err = run(
+        [command, tracks_csv, "--radius", 2, "--out", first, "--quiet", "--permutations", 19],
+        capsys,
+    )
     assert code == 0, err
     again = tmp_path / "again"
-    code, _, err = run([command, "--config", first / "run.json", "--out", again, "--quiet"],
-                       capsys)
+    code, _, err = run([command, "--config", first / "run.json", "--out", again, "--quiet"], capsys)
     assert code == 0, err
     for name in sorted(p.name for p in first.iterdir()):
         if name.endswith(".csv") or name.endswith(".geojson"):

@@ -1,0 +1,263 @@
+"""Choosing thresholds: the miner over a grid of radii and participation thresholds.
+
+The tracks are read, cleaned and aligned once; the neighbour pairs are found
+once, at the largest radius, with their distances, and every smaller radius
+takes the pairs within it from that one search (a pair within r is within
+every larger radius). The grid points then run in worker processes that
+receive the aligned snapshots and pairs once.
+"""
+
+from __future__ import annotations
+
+import os
+from concurrent.futures import ProcessPoolExecutor
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from tqdm.auto import tqdm
+
+from comove.alignment import AlignParams, Snapshots
+from comove.cleaning import CleanParams
+from comove.colocation import RATIO_EPS, ColocationParams, RolePresence, mine_levels
+from comove.errors import InputError
+from comove.neighbours import NeighbourPairs, neighbour_pairs
+from comove.persistence import PersistenceParams, _runs, role_label
+from comove.reading import ColumnSpec
+from comove.results import csv_writer, json_writer, write_folder
+
+SWEEP_COLUMNS = [
+    "radius", "min_participation", "roles", "size", "time_prevalence", "prevalent_seconds",
+    "longest_run_seconds", "kept",
+]  # fmt: skip
+
+#: The stage settings a sweep takes as they are (radius and threshold become grids).
+SWEEP_STAGES: tuple[type, ...] = (ColumnSpec, CleanParams, AlignParams, PersistenceParams)
+
+#: Patterns drawn in the sweep plot.
+PLOTTED = 8
+
+
+def parse_grid(text: str, flag: str) -> tuple[float, ...]:
+    """Return the values of ``start:stop:step`` (stop included) or ``a,b,c`` text."""
+    try:
+        if ":" in text:
+            start, stop, step = (float(v) for v in text.split(":"))
+            if step <= 0 or stop < start:
+                raise ValueError
+            values = np.round(np.arange(start, stop + step / 2, step), 10)
+        else:
+            values = np.array([float(v) for v in text.split(",") if v.strip()])
+    except ValueError:
+        raise InputError(
+            f"{flag} must be start:stop:step (stop >= start, step > 0) or a comma-separated "
+            "list of numbers"
+        ) from None
+    if values.size == 0:
+        raise InputError(f"{flag} is empty; give at least one value")
+    return tuple(float(v) for v in values)
+
+
+@dataclass(frozen=True)
+class SweepParams:
+    """The grid of a sweep.
+
+    Parameters
+    ----------
+    radii : tuple of float
+        Neighbour distances in metres.
+    min_participation : tuple of float, default (0.5,)
+        Participation-index thresholds.
+    max_size : int, default 3
+        Largest role set mined.
+    jobs : int or None, default None
+        Worker processes; ``None`` uses every core.
+    """
+
+    radii: tuple[float, ...]
+    min_participation: tuple[float, ...] = (0.5,)
+    max_size: int = 3
+    jobs: int | None = field(default=None)
+
+    def __post_init__(self) -> None:
+        for r in self.radii:
+            ColocationParams(radius=r, max_size=self.max_size)  # validates each value
+        for m in self.min_participation:
+            ColocationParams(radius=1.0, min_participation=m)
+        if self.jobs is not None and self.jobs < 1:
+            raise InputError("--jobs must be a whole number of at least 1")
+
+
+_SHARED: dict[str, Any] = {}
+
+
+def _init(snaps: Snapshots, pairs: NeighbourPairs, distance: np.ndarray, persistence) -> None:
+    _SHARED.update(snaps=snaps, pairs=pairs, distance=distance, persistence=persistence)
+
+
+def _grid_point(radius: float, min_participation: float, max_size: int) -> pd.DataFrame:
+    snaps, pairs, distance = _SHARED["snaps"], _SHARED["pairs"], _SHARED["distance"]
+    persistence: PersistenceParams = _SHARED["persistence"]
+    within = distance <= radius
+    subset = NeighbourPairs(pairs.i[within], pairs.j[within], float(radius))
+    params = ColocationParams(radius=radius, min_participation=min_participation,
+                              max_size=max_size)  # fmt: skip
+    bound = persistence.min_prevalent_snapshots(snaps.step_s)
+    levels = mine_levels(snaps, subset, params, min_prevalent_snapshots=1,
+                         presence=RolePresence(snaps))  # fmt: skip
+    rows = []
+    for level in levels:
+        with np.errstate(invalid="ignore", divide="ignore"):
+            prevalence = level.prevalent / np.maximum(level.present, 1)
+        kept = (prevalence >= persistence.min_prevalence - RATIO_EPS) & (level.prevalent >= bound)
+        longest = _longest_runs(level, min_participation)
+        for s in np.flatnonzero(level.prevalent >= 1):  # per role set seen prevalent
+            rows.append((radius, min_participation, role_label(level.roles[s], snaps.roles),
+                         level.size, float(prevalence[s]),
+                         float(level.prevalent[s] * snaps.step_s),
+                         float(longest[s] * snaps.step_s), bool(kept[s])))  # fmt: skip
+    return pd.DataFrame(rows, columns=SWEEP_COLUMNS)
+
+
+def _longest_runs(level, min_participation: float) -> np.ndarray:
+
+    is_prev = level.pi >= min_participation - RATIO_EPS
+    longest, _ = _runs(level.set_id[is_prev], level.snap[is_prev], level.roles.shape[0])
+    return longest
+
+
+@dataclass
+class SweepResult:
+    """Role sets over a grid of radii and thresholds.
+
+    Attributes
+    ----------
+    table : DataFrame
+        One row per (radius, min_participation, role set with a prevalent
+        snapshot): ``time_prevalence``, ``prevalent_seconds``,
+        ``longest_run_seconds`` and ``kept`` (meets the persistence
+        thresholds there).
+    quality, run : dict
+        As for ``comove mine``.
+    """
+
+    table: pd.DataFrame
+    quality: dict
+    run: dict
+
+    def plot(self) -> Any:
+        """Return a matplotlib Figure of time prevalence against radius for the leading sets."""
+        from matplotlib.figure import Figure
+
+        fig = Figure(figsize=(7.5, 4.5), dpi=100)
+        ax = fig.add_subplot()
+        palette = ["#0072B2", "#E69F00", "#009E73", "#CC79A7", "#56B4E9", "#D55E00",
+                   "#F0E442", "#000000"]  # fmt: skip
+        table = self.table
+        thresholds = sorted(table["min_participation"].unique())
+        first = table[table["min_participation"] == thresholds[len(thresholds) // 2]]
+        lead = (first.groupby("roles")["time_prevalence"].max()
+                .sort_values(ascending=False).head(PLOTTED).index)  # fmt: skip
+        for colour, roles in zip(palette, lead, strict=False):
+            rows = first[first["roles"] == roles].sort_values("radius")
+            ax.plot(rows["radius"], rows["time_prevalence"], marker="o", ms=3, color=colour,
+                    label=roles)  # fmt: skip
+        threshold = self.run["settings"]["PersistenceParams"]["min_prevalence"]
+        ax.axhline(threshold, color="#555555", lw=1, ls="--")
+        ax.annotate("min. prevalence", (ax.get_xlim()[0], threshold), xytext=(4, 3),
+                    textcoords="offset points", fontsize=7, color="#555555")  # fmt: skip
+        ax.set_xlabel("radius (m)")
+        ax.set_ylabel("time prevalence")
+        ax.set_ylim(0, 1.02)
+        ax.set_title(f"Leading role sets by radius (min. participation "
+                     f"{thresholds[len(thresholds) // 2]:g})")  # fmt: skip
+        ax.grid(alpha=0.3)
+        if len(lead):
+            ax.legend(fontsize=7, loc="best", frameon=False)
+        fig.tight_layout()
+        return fig
+
+    def write(self, out_dir: str | os.PathLike[str], force: bool = False) -> Path:
+        """Write ``sweep.csv``, ``sweep.png``, ``quality.json`` and ``run.json`` atomically."""
+
+        def write_png(path: Path) -> None:
+            self.plot().savefig(path)
+
+        return write_folder(
+            out_dir,
+            {
+                "sweep.csv": csv_writer(self.table),
+                "sweep.png": write_png,
+                "quality.json": json_writer(self.quality),
+                "run.json": json_writer(self.run),
+            },
+            force=force,
+        )
+
+
+def sweep(
+    source: Any, params: SweepParams, *, progress: bool = False, **options: Any
+) -> SweepResult:
+    """Return the role sets mined at every point of a grid of radii and thresholds.
+
+    Parameters
+    ----------
+    source : path, glob, list, DataFrame, GeoDataFrame or TrajectoryCollection
+        The tracks, as for :func:`comove.pipeline.mine`.
+    params : SweepParams
+        The grid.
+    progress : bool, default False
+        Show a progress bar.
+    **options
+        Fields of ColumnSpec, CleanParams, AlignParams and PersistenceParams.
+
+    Returns
+    -------
+    SweepResult
+        At each radius the results equal those of a separate ``mine`` run.
+    """
+    from comove.pipeline import CAUTION, _aligned, _effective, _Progress, split_options
+    from comove.provenance import run_record, settings_record
+
+    columns, cleaning, alignment, persistence = split_options(SWEEP_STAGES, options)
+    bar = _Progress(progress, total=4)
+    try:
+        snaps, quality = _aligned(source, columns, cleaning, alignment, bar)
+        with bar.stage("neighbour search"):
+            pairs = neighbour_pairs(snaps, max(params.radii))
+            distance = np.hypot(snaps.x[pairs.i] - snaps.x[pairs.j],
+                                snaps.y[pairs.i] - snaps.y[pairs.j])  # fmt: skip
+    finally:
+        bar.close()
+    grid = [(r, m) for m in params.min_participation for r in params.radii]
+    jobs = max(1, min(params.jobs or os.cpu_count() or 1, len(grid)))
+    if params.jobs is None and snaps.n_entries * len(grid) < 2_000_000:
+        jobs = 1  # starting workers would cost more than it saves
+    tick = tqdm(total=len(grid), desc="sweep", unit="grid point",
+                disable=None if progress else True, leave=False)  # fmt: skip
+    parts: list[pd.DataFrame] = []
+    if jobs == 1:
+        _init(snaps, pairs, distance, persistence)
+        for r, m in grid:
+            parts.append(_grid_point(r, m, params.max_size))
+            tick.update(1)
+        _SHARED.clear()
+    else:
+        with ProcessPoolExecutor(
+            jobs, initializer=_init, initargs=(snaps, pairs, distance, persistence)
+        ) as pool:
+            futures = [pool.submit(_grid_point, r, m, params.max_size) for r, m in grid]
+            for fut in futures:  # in grid order: the table does not depend on scheduling
+                parts.append(fut.result())
+                tick.update(1)
+    tick.close()
+    table = pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(columns=SWEEP_COLUMNS)
+    run = run_record(
+        "sweep", source,
+        settings_record(columns, cleaning, _effective(snaps), persistence,
+                        replace(params, radii=tuple(params.radii))),
+        extra={"caution": CAUTION},
+    )  # fmt: skip
+    return SweepResult(table, quality, run)
