@@ -18,8 +18,8 @@ from comove.cleaning import format_quality_summary
 from comove.errors import InputError
 from comove.pipeline import CAUTION, GROUP_STAGES, MINE_STAGES, groups, mine
 from comove.presets import PRESETS
-from comove.runfile import load_run_file
-from comove.sweep import SWEEP_STAGES, SweepParams, parse_grid, sweep
+from comove.runfile import load_run_file, parse_grid
+from comove.sweep import SWEEP_STAGES, SweepParams, sweep
 
 EXIT_INPUT = 2
 
@@ -147,6 +147,22 @@ def build_parser() -> argparse.ArgumentParser:
     _add_stage_options(w, SWEEP_STAGES, required=set())
     _add_common(w)
 
+    r = sub.add_parser(
+        "report",
+        help="an HTML report with figures of a results folder",
+        description="Turn a results folder of `comove mine`, `comove groups` or both into "
+        "one self-contained DIR/report.html, with the figures also as PNG files in "
+        "DIR/figures/.",
+    )
+    r.add_argument("folder", type=Path, help="results folder")
+    r.add_argument(
+        "--max-points",
+        type=int,
+        default=50_000,
+        help="most track positions drawn on the map (default: 50000)",
+    )
+    r.add_argument("--quiet", action="store_true", help="print nothing but errors")
+
     d = sub.add_parser(
         "demo",
         help="run the miner on a bundled invented scenario",
@@ -261,6 +277,14 @@ def _run_sweep(args: argparse.Namespace) -> None:
     print(f"Results written to {out}/ (sweep.csv, sweep.png)")
 
 
+def _run_report(args: argparse.Namespace) -> None:
+    from comove.report import build_report
+
+    path = build_report(args.folder, max_points=args.max_points)
+    if not args.quiet:
+        print(f"Report written to {path}")
+
+
 def _run_demo(args: argparse.Namespace) -> None:
     from comove.scenarios import demo_options
 
@@ -280,7 +304,7 @@ def main(argv: list[str] | None = None) -> int:
         return int(done.code or 0)
     try:
         commands = {"mine": _run_mine, "groups": _run_groups, "sweep": _run_sweep,
-                    "demo": _run_demo}  # fmt: skip
+                    "report": _run_report, "demo": _run_demo}  # fmt: skip
         commands[args.command](args)
     except InputError as err:
         print(f"comove {args.command}: error: {err}", file=sys.stderr)

@@ -21,7 +21,6 @@ from dataclasses import dataclass, field, fields
 from pathlib import Path
 from typing import Any
 
-import numpy as np
 import pandas as pd
 from tqdm.auto import tqdm
 
@@ -54,6 +53,7 @@ from comove.results import (
     parquet_writer,
     write_folder,
 )
+from comove.runfile import parse_grid
 from comove.significance import (
     TEST_COLUMNS,
     SignificanceParams,
@@ -97,27 +97,10 @@ class CrossKRequest:
         if self.k_radii is None:
             return None
         return CrossKParams(
-            radii=_number_list(self.k_radii, "--k-radii"),
-            window=tuple(_number_list(self.k_window, "--k-window")) if self.k_window else None,
+            radii=parse_grid(self.k_radii, "--k-radii"),
+            window=parse_grid(self.k_window, "--k-window") if self.k_window else None,
             correction=self.k_correction,
         )
-
-
-def _number_list(text: str, flag: str) -> tuple[float, ...]:
-    """Return numbers from ``a:b:step`` (b included) or ``a,b,c`` text."""
-    try:
-        if ":" in text:
-            start, stop, step = (float(v) for v in text.split(":"))
-            if step <= 0:
-                raise ValueError
-            values = np.arange(start, stop + step / 2, step)
-        else:
-            values = np.array([float(v) for v in text.split(",") if v.strip()])
-    except ValueError:
-        raise InputError(
-            f"{flag} must be start:stop:step or a comma-separated list of numbers"
-        ) from None
-    return tuple(float(v) for v in values)
 
 
 #: The stage settings of ``mine``, in pipeline order.

@@ -24,6 +24,8 @@ from dataclasses import fields
 from pathlib import Path
 from typing import Any
 
+import numpy as np
+
 from comove.errors import InputError
 
 #: Keys of a run file that are not stage settings.
@@ -125,3 +127,23 @@ def _from_run_json(p: Path, command: str, known: set[str]) -> dict[str, Any]:
     if run.get("preset") is not None:
         options["preset"] = run["preset"]
     return options
+
+
+def parse_grid(text: str, flag: str) -> tuple[float, ...]:
+    """Return the values of ``start:stop:step`` (stop included) or ``a,b,c`` text."""
+    try:
+        if ":" in text:
+            start, stop, step = (float(v) for v in text.split(":"))
+            if step <= 0 or stop < start:
+                raise ValueError
+            values = np.round(np.arange(start, stop + step / 2, step), 10)
+        else:
+            values = np.array([float(v) for v in text.split(",") if v.strip()])
+    except ValueError:
+        raise InputError(
+            f"{flag} must be start:stop:step (stop >= start, step > 0) or a comma-separated "
+            "list of numbers"
+        ) from None
+    if values.size == 0:
+        raise InputError(f"{flag} is empty; give at least one value")
+    return tuple(float(v) for v in values)

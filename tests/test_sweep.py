@@ -10,8 +10,9 @@ import pytest
 from comove.cli import main
 from comove.errors import InputError
 from comove.pipeline import mine
+from comove.runfile import parse_grid
 from comove.scenarios import mine_options
-from comove.sweep import SweepParams, parse_grid, sweep
+from comove.sweep import SweepParams, sweep
 
 GRID = SweepParams(radii=(1.5, 3.0, 5.0), min_participation=(0.3, 0.5))
 
