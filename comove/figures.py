@@ -12,6 +12,7 @@ Labels taken from the data (object ids, role names) are passed through
 from __future__ import annotations
 
 import io
+import textwrap
 from collections.abc import Iterator, Sequence
 from contextlib import contextmanager
 from dataclasses import dataclass
@@ -20,6 +21,7 @@ import matplotlib
 import matplotlib.dates as mdates
 import numpy as np
 import pandas as pd
+from matplotlib.axes import Axes
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.colors import ListedColormap
 from matplotlib.figure import Figure
@@ -108,9 +110,10 @@ def plain_text(text: object, limit: int | None = None) -> str:
     return s.replace("$", r"\$")
 
 
-def _figure(height_in: float) -> Figure:
+def _figure(height_in: float, layout: str | None = "constrained") -> Figure:
     """Return an empty figure of the report's width, rendering with Agg."""
-    fig = Figure(figsize=(WIDTH_IN, height_in), dpi=DPI, layout="constrained")
+    height_in = round(height_in * DPI) / DPI  # whole pixels, so the PNG is exactly this size
+    fig = Figure(figsize=(WIDTH_IN, height_in), dpi=DPI, layout=layout)
     FigureCanvasAgg(fig)
     return fig
 
@@ -137,17 +140,19 @@ def to_png(fig: Figure) -> Png:
     buf = io.BytesIO()
     with style():
         fig.savefig(buf, format="png", dpi=DPI, metadata={"Software": None})
-    width, height = (int(round(v * DPI)) for v in fig.get_size_inches())
-    return Png(buf.getvalue(), width, height)
+    data = buf.getvalue()
+    # the size as written, from the PNG header (IHDR width and height, big-endian)
+    width, height = int.from_bytes(data[16:20], "big"), int.from_bytes(data[20:24], "big")
+    return Png(data, width, height)
 
 
-def _date_axis(ax: object, label: str = "time (UTC)") -> None:
+def _date_axis(ax: Axes, label: str = "time (UTC)") -> None:
     """Format the x axis of ``ax`` as UTC dates."""
     locator = mdates.AutoDateLocator(minticks=3, maxticks=8)
-    ax.xaxis.set_major_locator(locator)  # type: ignore[attr-defined]
-    ax.xaxis.set_major_formatter(mdates.ConciseDateFormatter(locator))  # type: ignore[attr-defined]
+    ax.xaxis.set_major_locator(locator)
+    ax.xaxis.set_major_formatter(mdates.ConciseDateFormatter(locator))
     if label:
-        ax.set_xlabel(label)  # type: ignore[attr-defined]
+        ax.set_xlabel(label)
 
 
 def _days(ns: np.ndarray) -> np.ndarray:
@@ -155,9 +160,9 @@ def _days(ns: np.ndarray) -> np.ndarray:
     return mdates.date2num(np.asarray(ns, dtype="int64").astype("datetime64[ns]"))
 
 
-def _ns(times: pd.Series) -> np.ndarray:
-    """Return UTC timestamps as int64 nanoseconds since the epoch."""
-    return pd.to_datetime(times, utc=True).dt.as_unit("ns").to_numpy().astype("int64")
+def ns_times(times: pd.Series) -> np.ndarray:
+    """Return timestamps (UTC; text or datetimes) as int64 nanoseconds since the epoch."""
+    return pd.DatetimeIndex(pd.to_datetime(times, utc=True)).as_unit("ns").asi8
 
 
 def bin_series(
@@ -271,10 +276,10 @@ def pi_timelines(
         when bins hold more than one snapshot).
     """
     with style():
-        fig = _figure(0.9 + 1.25 * len(patterns))
+        fig = _figure(1.1 + 1.25 * len(patterns))
         axes = fig.subplots(len(patterns), 1, sharex=True, squeeze=False)[:, 0]
         codes = series["roles"].astype(str).to_numpy()
-        t_all = _ns(series["time"])
+        t_all = ns_times(series["time"])
         pi_all = series["participation_index"].to_numpy(dtype="float64")
         prev_all = series["prevalent"].to_numpy(dtype=bool)
         downsampled = False
@@ -290,28 +295,30 @@ def pi_timelines(
             first, stop = _runs(binned["any"])
             left = _days(binned["left"])
             w_days = width / 86_400e9
-            spans = [(left[a], (stop_i - a) * w_days) for a, stop_i in zip(first, stop, strict=True)]
+            spans = [
+                (left[a], (stop_i - a) * w_days) for a, stop_i in zip(first, stop, strict=True)
+            ]
             ax.broken_barh(spans, (0, 1.05), facecolors=PALETTE[1], alpha=0.22, linewidth=0,
                            label="prevalent")  # fmt: skip
             if binned["downsampled"]:
                 ax.fill_between(x, binned["low"], binned["high"], color=PALETTE[3], alpha=0.25,
                                 linewidth=0, label="bin min–max")  # fmt: skip
-            ax.plot(x, binned["mean"], color=PALETTE[3], linewidth=1.0,
-                    label="participation index" + (" (bin mean)" if binned["downsampled"] else ""))  # fmt: skip
+            line_label = "participation index" + (" (bin mean)" if binned["downsampled"] else "")
+            ax.plot(x, binned["mean"], color=PALETTE[3], linewidth=1.0, label=line_label)
             if threshold is not None:
                 ax.axhline(threshold, color=INK, linewidth=0.8, linestyle="--",
                            label=f"threshold {threshold:g}")  # fmt: skip
             ax.set_ylim(0, 1.05)
             ax.set_xlim(_days(np.array([start_ns]))[0], _days(np.array([end_ns + step_ns]))[0])
-            ax.set_ylabel("PI")
+            ax.set_ylabel("participation\nindex")
             title = " + ".join(roles.split(";"))
             if labels is not None:
                 title = f"{title}  ({labels[i]})"
             ax.set_title(plain_text(title, 110))
             _date_axis(ax, "time (UTC)" if i == len(patterns) - 1 else "")
         handles, names = axes[0].get_legend_handles_labels()
-        fig.legend(handles, names, loc="outside upper right", ncols=4)
-        fig.suptitle("Participation index over the whole period", x=0.01, ha="left")
+        # the legend takes the title's place: constrained layout does not stack the two
+        fig.legend(handles, names, loc="outside upper center", ncols=4)
         if downsampled:
             note = (
                 f"Downsampled for drawing: {len(series):,} snapshot values in time bins of "
@@ -320,8 +327,13 @@ def pi_timelines(
             )
         else:
             note = "Every snapshot drawn; shading marks prevalent snapshots; gaps = pattern absent."
-        fig.supxlabel(note, fontsize=7.5, color=MUTED)
+        _note(fig, note)
     return fig, note
+
+
+def _note(fig: Figure, note: str) -> None:
+    """Print ``note`` under the figure, wrapped to the figure's width."""
+    fig.supxlabel(textwrap.fill(note, 130), fontsize=7.5, color=MUTED)
 
 
 def _span_text(seconds: float) -> str:
@@ -351,15 +363,15 @@ def _metres_text(m: float) -> str:
     return f"{m / 1000:g} km" if m >= 1000 else f"{m:g} m"
 
 
-def _scale_bar(ax: object, metres_per_unit: float) -> None:
+def _scale_bar(ax: Axes, metres_per_unit: float) -> None:
     """Draw a horizontal scale bar about a fifth of the axes wide, bottom left."""
-    x0, x1 = ax.get_xlim()  # type: ignore[attr-defined]
-    y0, y1 = ax.get_ylim()  # type: ignore[attr-defined]
+    x0, x1 = ax.get_xlim()
+    y0, y1 = ax.get_ylim()
     length_m = _nice_length(0.2 * (x1 - x0) * metres_per_unit)
     length = length_m / metres_per_unit
     bx, by = x0 + 0.04 * (x1 - x0), y0 + 0.05 * (y1 - y0)
-    ax.plot([bx, bx + length], [by, by], color=INK, linewidth=2.5, solid_capstyle="butt")  # type: ignore[attr-defined]
-    ax.text(bx + length / 2, by + 0.015 * (y1 - y0), _metres_text(length_m), ha="center",  # type: ignore[attr-defined]
+    ax.plot([bx, bx + length], [by, by], color=INK, linewidth=2.5, solid_capstyle="butt")
+    ax.text(bx + length / 2, by + 0.025 * (y1 - y0), _metres_text(length_m), ha="center",
             va="bottom", fontsize=8, color=INK)  # fmt: skip
 
 
@@ -415,78 +427,91 @@ def track_map(
     middle of the map; the scale bar's metres per degree of longitude come
     from the WGS 84 ellipsoid at the mean latitude.
     """
+    note = "No track sample in the results folder; episode paths only."
+    x = y = np.zeros(0)
+    if sample is not None and len(sample):
+        n = len(sample)
+        x = sample["x"].to_numpy(dtype="float64")
+        y = sample["y"].to_numpy(dtype="float64")
+        if n > max_points:
+            keep = np.unique(np.linspace(0, n - 1, max(int(max_points), 1)).round().astype(int))
+            x, y = x[keep], y[keep]
+        stored = (
+            f"the folder keeps 1 snapshot in {stored_every}"
+            if stored_every > 1
+            else "the folder keeps every snapshot"
+        )
+        if n > max_points:
+            note = (f"Positions thinned for drawing: {len(x):,} of {n:,} sampled positions "
+                    f"drawn, evenly spaced ({stored}).")  # fmt: skip
+        else:
+            note = f"All {n:,} sampled positions drawn ({stored})."
+    lines = [_thin_line(np.asarray(c, dtype="float64").reshape(-1, 2)) for c in path_coords]
+    allx = np.concatenate([x, *(c[:, 0] for c in lines)])
+    ally = np.concatenate([y, *(c[:, 1] for c in lines)])
+    finite = np.isfinite(allx) & np.isfinite(ally)
+    allx, ally = (allx[finite], ally[finite]) if finite.any() else (np.zeros(1), np.zeros(1))
+    xr = max(float(np.ptp(allx)), 1e-9)
+    yr = max(float(np.ptp(ally)), 1e-9)
+    xlim = (allx.min() - 0.04 * xr, allx.max() + 0.04 * xr)
+    ylim = (ally.min() - 0.09 * yr, ally.max() + 0.04 * yr)
+    mean_lat = float(np.mean(ally))
+    aspect = 1.0 / max(np.cos(np.radians(mean_lat)), 1e-6) if lonlat else 1.0
+    legend = paths is not None and len(paths) > 0
+    # placed by hand: constrained layout cuts labels of fixed-aspect axes
+    left, bottom, top = 0.85, 0.8, 0.35
+    right = 2.7 if legend else 0.3
+    shape = (ylim[1] - ylim[0]) * aspect / (xlim[1] - xlim[0])
+    plot_w = WIDTH_IN - left - right
+    plot_h = plot_w * shape
+    if plot_h > 6.5:
+        plot_h = 6.5
+        plot_w = plot_h / shape
+    if plot_h < 2.5:  # a flat scene: widen the y range instead of drawing a sliver
+        plot_h = 2.5
+        half = 0.5 * plot_h / plot_w * (xlim[1] - xlim[0]) / aspect
+        mid = 0.5 * (ylim[0] + ylim[1])
+        ylim = (mid - half, mid + half)
+    height = round((plot_h + bottom + top) * DPI) / DPI  # whole pixels
     with style():
-        fig = _figure(6.0)
-        ax = fig.add_subplot()
-        xs: list[np.ndarray] = []
-        ys: list[np.ndarray] = []
-        note = "No track sample in the results folder; episode paths only."
-        if sample is not None and len(sample):
-            n = len(sample)
-            x = sample["x"].to_numpy(dtype="float64")
-            y = sample["y"].to_numpy(dtype="float64")
-            if n > max_points:
-                keep = np.unique(np.linspace(0, n - 1, max(int(max_points), 1)).round().astype(int))
-                x, y = x[keep], y[keep]
+        fig = _figure(height, layout=None)
+        ax = fig.add_axes((left / WIDTH_IN, bottom / height, plot_w / WIDTH_IN, plot_h / height))
+        if len(x):
             ax.scatter(x, y, s=1.2, color=MUTED, alpha=0.45, linewidths=0, rasterized=True,
                        label="positions (sample)")  # fmt: skip
-            xs.append(x)
-            ys.append(y)
-            stored = (
-                f"the folder keeps 1 snapshot in {stored_every}"
-                if stored_every > 1
-                else "the folder keeps every snapshot"
-            )
-            if n > max_points:
-                note = (f"Positions thinned for drawing: {len(x):,} of {n:,} sampled positions "
-                        f"drawn, evenly spaced ({stored}).")  # fmt: skip
-            else:
-                note = f"All {n:,} sampled positions drawn ({stored})."
         if paths is not None:
-            for i, ((_, row), coords) in enumerate(zip(paths.iterrows(), path_coords,
-                                                       strict=True)):  # fmt: skip
-                if len(coords) == 0:
+            for i, ((_, row), c) in enumerate(zip(paths.iterrows(), lines, strict=True)):
+                if len(c) == 0:
                     continue
-                c = _thin_line(np.asarray(coords, dtype="float64"))
                 colour = PALETTE[i % len(PALETTE)]
-                label = plain_text(f"{row['episode']}: {_members_text(row['members'])}", 60)
+                label = plain_text(f"{row['episode']}: {_members_text(row['members'], 3)}", 38)
                 ax.plot(c[:, 0], c[:, 1], color=colour, linewidth=2.0, label=label)
                 ax.plot(c[:1, 0], c[:1, 1], marker="o", color=colour, markersize=4)
-                xs.append(c[:, 0])
-                ys.append(c[:, 1])
-        allx = np.concatenate(xs) if xs else np.zeros(1)
-        ally = np.concatenate(ys) if ys else np.zeros(1)
-        finite = np.isfinite(allx) & np.isfinite(ally)
-        allx, ally = allx[finite], ally[finite]
-        if not len(allx):
-            allx, ally = np.zeros(1), np.zeros(1)
-        xr = max(float(np.ptp(allx)), 1e-9)
-        yr = max(float(np.ptp(ally)), 1e-9)
-        ax.set_xlim(allx.min() - 0.04 * xr, allx.max() + 0.04 * xr)
-        ax.set_ylim(ally.min() - 0.08 * yr, ally.max() + 0.04 * yr)
+        ax.set_xlim(*xlim)
+        ax.set_ylim(*ylim)
+        ax.set_aspect(aspect)
         if lonlat:
             from pyproj import Geod
 
-            mean_lat = float(np.mean(ally))
-            ax.set_aspect(1.0 / max(np.cos(np.radians(mean_lat)), 1e-6))
             lon0 = float(np.mean(allx))
             metres_per_degree = Geod(ellps="WGS84").inv(lon0, mean_lat, lon0 + 1.0, mean_lat)[2]
             ax.set_xlabel("longitude (°)")
             ax.set_ylabel("latitude (°)")
             _scale_bar(ax, metres_per_degree)
         else:
-            ax.set_aspect("equal")
             ax.set_xlabel("x (m)")
             ax.set_ylabel("y (m)")
             _scale_bar(ax, 1.0)
         ax.ticklabel_format(useOffset=False, style="plain")
-        if paths is not None and len(paths):
-            ax.legend(loc="upper left", bbox_to_anchor=(1.02, 1.0), title="Longest episodes",
-                      alignment="left", markerscale=4)  # fmt: skip
+        if legend:
+            anchor = ((left + plot_w + 0.15) / WIDTH_IN, (bottom + plot_h) / height)
+            fig.legend(loc="upper left", bbox_to_anchor=anchor, title="Longest episodes",
+                       alignment="left", markerscale=4)  # fmt: skip
             ax.set_title("Tracks, with the longest co-moving episodes (dot = start)")
         else:
             ax.set_title("Tracks")
-        fig.supxlabel(note, fontsize=7.5, color=MUTED)
+        fig.text(0.5, 0.1 / height, textwrap.fill(note, 130), ha="center", va="bottom",
+                 fontsize=7.5, color=MUTED)  # fmt: skip
     return fig, note
 
 
@@ -515,8 +540,8 @@ def episode_timeline(episodes: pd.DataFrame, top: int = 40) -> tuple[Figure, str
     with style():
         fig = _figure(1.3 + 0.2 * max(len(chosen), 4))
         ax = fig.add_subplot()
-        start = _days(_ns(chosen["start"]))
-        end = _days(_ns(chosen["end"]))
+        start = _days(ns_times(chosen["start"]))
+        end = _days(ns_times(chosen["end"]))
         y = np.arange(len(chosen))
         colours = [colour_of.get(r, MUTED) for r in roles]
         ax.barh(y, np.maximum(end - start, 1e-9), left=start, height=0.7, color=colours)
@@ -533,7 +558,7 @@ def episode_timeline(episodes: pd.DataFrame, top: int = 40) -> tuple[Figure, str
             note = f"The {len(chosen)} longest of {len(episodes):,} episodes drawn."
         else:
             note = f"All {len(episodes):,} episodes drawn."
-        fig.supxlabel(note, fontsize=7.5, color=MUTED)
+        _note(fig, note)
     return fig, note
 
 
@@ -631,7 +656,7 @@ def dyad_heatmap(matrix: pd.DataFrame, note: str = "") -> Figure:
         ax.set_title("Dyad association, objects ordered by average-linkage clustering")
         text = note + (f" 1 object in {every} labelled." if every > 1 else "")
         text += " Blank: diagonal, or never present together."
-        fig.supxlabel(text.strip(), fontsize=7.5, color=MUTED)
+        _note(fig, text.strip())
     return fig
 
 
@@ -678,9 +703,7 @@ def cross_l_curves(cross: pd.DataFrame, top: int = 6) -> tuple[Figure, list[tupl
         for ax in axes[len(pairs) :]:
             ax.set_visible(False)
         handles, names = axes[0].get_legend_handles_labels()
-        fig.legend(handles, names, loc="outside upper right", ncols=4)
-        fig.suptitle("Cross-L of role pairs, largest departures first", x=0.01, ha="left")
+        fig.legend(handles, names, loc="outside upper center", ncols=4)
         if not has_env:
-            fig.supxlabel("No envelopes: significance tests were not run.", fontsize=7.5,
-                          color=MUTED)  # fmt: skip
+            _note(fig, "No envelopes: significance tests were not run.")
     return fig, pairs
