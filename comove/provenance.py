@@ -86,7 +86,10 @@ def run_record(
     return {
         "command": command,
         "created": datetime.now(UTC).isoformat(timespec="seconds").replace("+00:00", "Z"),
-        "input": [str(p) for p in paths] if paths is not None else f"<{type(source).__name__}>",
+        # absolute, so that `--config run.json` repeats the run from any folder
+        "input": [str(p.resolve()) for p in paths]
+        if paths is not None
+        else f"<{type(source).__name__}>",
         "input_digest": input_digest(source),
         "settings": settings,
         "versions": versions,
