@@ -625,7 +625,8 @@ def clean_fixes(raw: RawTracks, params: CleanParams | None = None) -> tuple[Fixe
     return fixes, quality
 
 
-def _human_seconds(seconds: float) -> str:
+def human_seconds(seconds: float) -> str:
+    """Return a short duration text for people, such as ``"2.5 s"`` or ``"3 h"``."""
     if seconds < 120:
         return f"{seconds:.3g} s"
     if seconds < 7200:
@@ -668,16 +669,16 @@ def format_quality_summary(quality: dict) -> str:
     lines.append(f"objects: {quality['objects']:,}; roles: {quality['roles']:,} ({shown})")
     lines.append(
         f"time: {quality['time_start']} to {quality['time_end']} "
-        f"({_human_seconds(quality['time_span_s'])})"
+        f"({human_seconds(quality['time_span_s'])})"
     )
     interval = quality["sampling_interval_s"]
     if interval["median"] is None:
         lines.append("sampling interval: no object has two fixes")
     else:
         lines.append(
-            f"sampling interval: median {_human_seconds(interval['median'])} "
-            f"(10-90 %: {_human_seconds(interval['p10'])} to {_human_seconds(interval['p90'])}, "
-            f"IQR {_human_seconds(interval['iqr'])})"
+            f"sampling interval: median {human_seconds(interval['median'])} "
+            f"(10-90 %: {human_seconds(interval['p10'])} to {human_seconds(interval['p90'])}, "
+            f"IQR {human_seconds(interval['iqr'])})"
         )
     if quality.get("time_note"):
         lines.append("note: " + quality["time_note"])

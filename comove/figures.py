@@ -26,6 +26,8 @@ from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.colors import ListedColormap
 from matplotlib.figure import Figure
 
+from comove.cleaning import human_seconds
+
 #: Okabe–Ito colours without black, for lines and bars (Okabe & Ito 2008).
 PALETTE: tuple[str, ...] = (
     "#E69F00",  # orange
@@ -322,7 +324,8 @@ def pi_timelines(
         if downsampled:
             note = (
                 f"Downsampled for drawing: {len(series):,} snapshot values in time bins of "
-                f"{_span_text(width / 1e9)} (at most {max_bins:,} per pattern); line = bin mean, "
+                f"{human_seconds(width / 1e9)} (at most {max_bins:,} per pattern); "
+                "line = bin mean, "
                 "band = bin min–max, shading = bins with a prevalent snapshot."
             )
         else:
@@ -334,17 +337,6 @@ def pi_timelines(
 def _note(fig: Figure, note: str) -> None:
     """Print ``note`` under the figure, wrapped to the figure's width."""
     fig.supxlabel(textwrap.fill(note, 130), fontsize=7.5, color=MUTED)
-
-
-def _span_text(seconds: float) -> str:
-    """Return a short duration text such as ``"2.5 s"``, ``"4 min"`` or ``"3 h"``."""
-    if seconds < 60:
-        return f"{seconds:.3g} s"
-    if seconds < 3600:
-        return f"{seconds / 60:.3g} min"
-    if seconds < 86_400 * 2:
-        return f"{seconds / 3600:.3g} h"
-    return f"{seconds / 86_400:.3g} d"
 
 
 def _nice_length(target: float) -> float:
