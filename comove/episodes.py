@@ -186,36 +186,37 @@ def find_episodes(snaps: Snapshots, groups: SnapshotGroups, params: EpisodeParam
             return False  # it has data in the span, so it is present and elsewhere
         return i > 0 and b - int(ps[i - 1]) <= tol_snaps
 
-    def last_present(members: frozenset, seen: int) -> int:
+    def last_present(members: int, seen: int) -> int:
         """Return the last snapshot up to ``seen`` at which every member has data."""
         return min(
             int(present_at[m][np.searchsorted(present_at[m], seen, side="right") - 1])
-            for m in members
+            for m in _bits(members)
         )
 
+    # Member sets are Python ints used as bitmasks (bit o = object o): intersections,
+    # sizes and subset tests are then single integer operations, whatever the count.
+    group_masks = _group_masks(member_obj, groups.offsets, len(snaps.objects))
     # live: members -> [start, last snapshot seen together]
-    live: dict[frozenset, list[int]] = {}
+    live: dict[int, list[int]] = {}
     closed: list[tuple[frozenset, int, int]] = []
 
-    def close(members: frozenset, start: int, seen: int) -> None:
+    def close(members: int, start: int, seen: int) -> None:
         end = last_present(members, seen)
         if end - start + 1 >= min_snaps:
-            closed.append((members, start, end))
+            closed.append((frozenset(_bits(members)), start, end))
 
     n_groups = groups.n_groups
     for k in range(first.size):  # per span of identical groups, not per snapshot
         a, b = int(first[k]), int(last[k])
-        g0 = int(first_group[k])
+        g = int(first_group[k])
         span_groups = []
-        g = g0
         while g < n_groups and groups.snap[g] == a:
             if sizes[g] >= min_size:
-                lo, hi = groups.offsets[g], groups.offsets[g + 1]
-                span_groups.append(frozenset(member_obj[lo:hi].tolist()))
+                span_groups.append(group_masks[g])
             g += 1
-        nxt: dict[frozenset, list[int]] = {}
+        nxt: dict[int, list[int]] = {}
 
-        def offer(members: frozenset, start: int, seen: int, into=nxt) -> None:
+        def offer(members: int, start: int, seen: int, into=nxt) -> None:
             held = into.get(members)
             if held is None:
                 into[members] = [start, seen]
@@ -226,17 +227,17 @@ def find_episodes(snaps: Snapshots, groups: SnapshotGroups, params: EpisodeParam
             whole = False
             for grp in span_groups:
                 common = members & grp
-                if len(common) < min_size:
+                if common.bit_count() < min_size:
                     continue
-                rest = members - common
+                rest = members & ~common
                 if not rest:
                     whole = True
-                elif all(excused(m, a, b) for m in rest):
+                elif all(excused(m, a, b) for m in _bits(rest)):
                     # the missing members have no data here: absence is not separation
                     whole = True
                     offer(members, start, b)
                     continue  # its present part goes on inside it, not on its own
-                offer(frozenset(common), start, b)
+                offer(common, start, b)
             if whole:
                 continue
             # separated for this whole span (its groups do not change within it)
@@ -256,17 +257,44 @@ def find_episodes(snaps: Snapshots, groups: SnapshotGroups, params: EpisodeParam
     return _maximal(closed, tol_snaps)
 
 
-def _prune_dominated(cands: dict[frozenset, list[int]]) -> dict[frozenset, list[int]]:
+def _bits(mask: int) -> list[int]:
+    """Return the positions of the set bits of ``mask``, ascending."""
+    out = []
+    while mask:
+        low = mask & -mask
+        out.append(low.bit_length() - 1)
+        mask ^= low
+    return out
+
+
+def _group_masks(member_obj: np.ndarray, offsets: np.ndarray, n_obj: int) -> list[int]:
+    """Return each group's members as an int bitmask, vectorised when objects fit 63 bits."""
+    if member_obj.size == 0:
+        return []
+    if n_obj <= 63:
+        bit = np.left_shift(np.uint64(1), member_obj.astype(np.uint64))
+        return [int(m) for m in np.bitwise_or.reduceat(bit, offsets[:-1]).tolist()]
+    masks = []
+    for g in range(offsets.size - 1):  # per group; only for more than 63 objects
+        mask = 0
+        for m in member_obj[offsets[g] : offsets[g + 1]].tolist():
+            mask |= 1 << m
+        masks.append(mask)
+    return masks
+
+
+def _prune_dominated(cands: dict[int, list[int]]) -> dict[int, list[int]]:
     """Return candidates not contained in another with an earlier start and later sighting."""
     if len(cands) < 2:
         return cands
-    items = sorted(cands.items(), key=lambda kv: -len(kv[0]))
-    kept: dict[frozenset, list[int]] = {}
+    items = sorted(cands.items(), key=lambda kv: -kv[0].bit_count())
+    kept: dict[int, list[int]] = {}
     for members, (start, seen) in items:
         if any(
-            members < other and o_start <= start and o_seen >= seen
+            members != other and members & other == members and o_start <= start
+            and o_seen >= seen
             for other, (o_start, o_seen) in kept.items()
-        ):
+        ):  # fmt: skip
             continue
         kept[members] = [start, seen]
     return kept
