@@ -145,7 +145,7 @@ def build_parser() -> argparse.ArgumentParser:
     w.add_argument("--max-size", type=int, default=3, help="largest role set mined (default: 3)")
     w.add_argument("--jobs", type=int, default=None, help="worker processes (default: all)")
     _add_stage_options(w, SWEEP_STAGES, required=set())
-    _add_common(w)
+    _add_common(w, merge=False)
 
     r = sub.add_parser(
         "report",
@@ -174,7 +174,7 @@ def build_parser() -> argparse.ArgumentParser:
         default=Path("comove-demo"),
         help="results folder to create (default: comove-demo)",
     )
-    _add_common(d)
+    _add_common(d, merge=False)
     return parser
 
 
@@ -207,12 +207,13 @@ def _resolve(
     return (inputs[0] if len(inputs) == 1 else inputs), out, options
 
 
-def _add_common(p: argparse.ArgumentParser) -> None:
+def _add_common(p: argparse.ArgumentParser, merge: bool = True) -> None:
     p.add_argument("--force", action="store_true", help="replace an existing results folder")
-    p.add_argument(
-        "--merge", action="store_true",
-        help="add to an existing results folder of the other command (mine/groups)",
-    )  # fmt: skip
+    if merge:
+        p.add_argument(
+            "--merge", action="store_true",
+            help="add to an existing results folder of the other command (mine/groups)",
+        )  # fmt: skip
     p.add_argument("--quiet", action="store_true", help="print nothing but errors")
 
 
@@ -292,7 +293,7 @@ def _run_demo(args: argparse.Namespace) -> None:
     if not args.quiet:
         print(f"Demo scenario: {source}")
     result = mine(source, progress=not args.quiet, **options)
-    out = result.write(args.out, force=args.force, merge=args.merge)
+    out = result.write(args.out, force=args.force)
     _report(result, out, args.quiet)
 
 
