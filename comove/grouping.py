@@ -161,7 +161,8 @@ def linked_pairs(pairs: NeighbourPairs, motion: Motion, params: GroupParams) -> 
         moving = (si > params.min_speed) & (sj > params.min_speed)
     keep = np.ones(i.size, dtype=bool)
     if params.max_heading is not None:
-        diff = np.abs(np.angle(np.exp(1j * (motion.heading[i] - motion.heading[j]))))
+        # smallest angle between the headings, in [0, pi]
+        diff = np.abs((motion.heading[i] - motion.heading[j] + np.pi) % (2 * np.pi) - np.pi)
         keep &= ~moving | (np.degrees(diff) <= params.max_heading + 1e-9)
     if params.max_speed_ratio is not None:
         with np.errstate(invalid="ignore", divide="ignore"):

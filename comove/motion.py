@@ -62,26 +62,27 @@ def entry_motion(snaps: Snapshots, window_s: float = 1.0) -> Motion:
     """
     n = snaps.n_entries
     half = max(1, int(round(window_s / snaps.step_s / 2)))
+    index = np.int32 if n < 2**31 else np.int64  # half the memory traffic of int64
     # stable, so snapshot order is kept within objects; small codes take numpy's radix sort
     codes = snaps.obj.astype(np.int16) if len(snaps.objects) < 2**15 else snaps.obj
-    order = np.argsort(codes, kind="stable")
+    order = np.argsort(codes, kind="stable").astype(index)
     obj, snap = snaps.obj[order], snaps.snap[order]
     new_run = np.ones(n, dtype=bool)
-    new_run[1:] = (obj[1:] != obj[:-1]) | (snap[1:] != snap[:-1] + 1)
-    run_start = np.maximum.accumulate(np.where(new_run, np.arange(n), 0))
-    run_end = np.empty(n, dtype=np.int64)
-    starts = np.flatnonzero(new_run)
-    ends = np.append(starts[1:], n) - 1
-    run_end[:] = np.repeat(ends, np.diff(np.append(starts, n)))
-    pos = np.arange(n)
-    lo = np.maximum(pos - half, run_start)
-    hi = np.minimum(pos + half, run_end)
+    np.not_equal(obj[1:], obj[:-1], out=new_run[1:])
+    new_run[1:] |= snap[1:] != snap[:-1] + 1
+    starts = np.flatnonzero(new_run).astype(index)
+    lengths = np.diff(np.append(starts, n)).astype(index)
+    run_start = np.repeat(starts, lengths)
+    run_end = run_start + np.repeat(lengths - 1, lengths)
+    pos = np.arange(n, dtype=index)
+    lo = np.maximum(pos - half, run_start, out=run_start)
+    hi = np.minimum(pos + half, run_end, out=run_end)
     span = (snap[hi] - snap[lo]) * snaps.step_s
-    x, y = snaps.x[order], snaps.y[order]
+    at_hi, at_lo = order[hi], order[lo]  # entry indices of each window's ends
     with np.errstate(invalid="ignore", divide="ignore"):
-        vx_o = np.where(span > 0, (x[hi] - x[lo]) / span, np.nan)
-        vy_o = np.where(span > 0, (y[hi] - y[lo]) / span, np.nan)
+        per_second = np.where(span > 0, 1.0 / span, np.nan)
     vx = np.empty(n)
     vy = np.empty(n)
-    vx[order], vy[order] = vx_o, vy_o
+    vx[order] = (snaps.x[at_hi] - snaps.x[at_lo]) * per_second
+    vy[order] = (snaps.y[at_hi] - snaps.y[at_lo]) * per_second
     return Motion(vx=vx, vy=vy, speed=np.hypot(vx, vy), heading=np.arctan2(vy, vx))

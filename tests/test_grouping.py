@@ -155,3 +155,27 @@ def test_bad_group_settings():
         GroupParams(radius=1, max_heading=200)
     with pytest.raises(InputError, match="--min-members"):
         GroupParams(radius=1, min_members=1)
+
+
+def test_velocity_equals_windowed_differences_clipped_to_presence_runs():
+    # reference: a direct loop per object and snapshot over the same definition
+    rng = np.random.default_rng(8)
+    n_snap, n_obj = 40, 4
+    x = np.cumsum(rng.normal(0, 1, (n_snap, n_obj)), axis=0)
+    y = np.cumsum(rng.normal(0, 1, (n_snap, n_obj)), axis=0)
+    present = rng.random((n_snap, n_obj)) < 0.85
+    snaps = grid_scene(x, y, np.zeros((n_snap, n_obj), int), present, 1)
+    motion = entry_motion(snaps, window_s=4.0)  # half-window of 2 snapshots at 1 s
+    for e in range(snaps.n_entries):
+        o, t = snaps.obj[e], snaps.snap[e]
+        lo = t
+        while lo - 1 >= max(t - 2, 0) and present[lo - 1, o]:
+            lo -= 1
+        hi = t
+        while hi + 1 <= min(t + 2, n_snap - 1) and present[hi + 1, o]:
+            hi += 1
+        if hi == lo:
+            assert np.isnan(motion.vx[e])
+        else:
+            assert motion.vx[e] == pytest.approx((x[hi, o] - x[lo, o]) / (hi - lo))
+            assert motion.vy[e] == pytest.approx((y[hi, o] - y[lo, o]) / (hi - lo))
