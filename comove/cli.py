@@ -224,9 +224,10 @@ def _report(result: comove.pipeline.MiningResult, out: Path, quiet: bool) -> Non
     n = len(result.patterns)
     print(f"\n{n} durable role set{'s' if n != 1 else ''} kept.")
     if n:
-        top = result.patterns.head(10)[["roles", "time_prevalence", "longest_run_seconds"]]
+        shown = ["roles", "time_prevalence", "longest_run_seconds", "p_value", "q_value"]
+        top = result.patterns.head(10)[[c for c in shown if c in result.patterns]]
         print(top.to_string(index=False, float_format=lambda v: f"{v:.3f}"))
-    print(f"\nResults written to {out}/")
+    print(f"\nResults written to {out}/ — for figures: comove report {out}")
     print(f"Caution: {CAUTION}")
 
 
