@@ -152,7 +152,14 @@ def _date_axis(ax: Axes, label: str = "time (UTC)") -> None:
     """Format the x axis of ``ax`` as UTC dates."""
     locator = mdates.AutoDateLocator(minticks=3, maxticks=8)
     ax.xaxis.set_major_locator(locator)
-    ax.xaxis.set_major_formatter(mdates.ConciseDateFormatter(locator))
+    # days carry their month ("08 May"), so the offset needs only the year; the default
+    # offset names the month of the last tick, which misleads when a month boundary falls
+    # inside the axis
+    ax.xaxis.set_major_formatter(mdates.ConciseDateFormatter(
+        locator,
+        formats=["%Y", "%b", "%d %b", "%H:%M", "%H:%M", "%S.%f"],
+        offset_formats=["", "%Y", "%Y", "%Y-%m-%d", "%Y-%m-%d", "%Y-%m-%d %H:%M"],
+    ))  # fmt: skip
     if label:
         ax.set_xlabel(label)
 
