@@ -195,18 +195,12 @@ def _parse_numbers(values: pd.Series | np.ndarray, unit: str | None) -> _Times:
     if ints is not None:
         ns = np.where(ok, ints * factor, 0)
     else:
-        # Whole and fractional parts apart, so integer epochs (even milliseconds near 2e12,
-        # whose nanoseconds exceed float64's 2**53) convert exactly.
-        # The fraction is rounded to whole microseconds: a float64 epoch in seconds carries
-        # only ~0.2 us near the present, and finer digits are representation noise that
-        # would put regularly sampled fixes a few ns off their grid.
+        # Counted in whole microseconds: a float64 epoch in seconds carries only ~0.2 us
+        # near the present, so finer digits are representation noise that would put
+        # regularly sampled fixes a few ns off their grid. Microsecond counts of epochs
+        # before the year 2255 stay below 2**53, so integer epochs convert exactly.
         safe = np.where(ok, floats, 0.0)
-        frac, whole = np.modf(safe)
-        micro = factor // 1000
-        ns = (
-            whole.astype(np.int64) * factor
-            + np.round(frac * (factor / micro)).astype(np.int64) * micro
-        )
+        ns = np.round(safe * (factor / 1000)).astype(np.int64) * 1000
         ns = np.where(ok, ns, 0)
     kind = "epoch seconds" if unit == "s" else "epoch milliseconds"
     return _Times(ns.astype(np.int64), ok, np.zeros(floats.size, dtype=bool), kind)

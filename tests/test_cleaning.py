@@ -395,3 +395,15 @@ def test_quality_report_and_summary() -> None:
     assert "objects: 2; roles: 2 (r, s)" in text
     assert "2026-03-01T12:00:00Z to 2026-03-01T12:00:40Z" in text
     assert "median 6 s" in text
+
+
+def test_float_epoch_seconds_keep_microseconds_and_land_on_a_regular_grid() -> None:
+    # 25 Hz samples as float seconds: each must be an exact multiple of 40 ms after parsing
+    t = 1_790_000_000 + np.arange(500) * 0.04
+    frame = pd.DataFrame({"id": "a", "time": t, "x": np.arange(500.0), "y": 0.0, "role": "r"})
+    fixes, _ = clean_fixes(read_tracks(frame))
+    assert np.all(fixes.time % 40_000_000 == 0)
+    one = pd.DataFrame(
+        {"id": ["a"], "time": [1772366400.123456], "x": [0.0], "y": [0.0], "role": ["r"]}
+    )
+    assert clean_fixes(read_tracks(one))[0].time[0] == 1_772_366_400_123_456_000
