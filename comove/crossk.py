@@ -70,31 +70,31 @@ class CrossKParams:
         try:
             radii = tuple(float(r) for r in np.atleast_1d(np.asarray(self.radii, dtype=float)))
         except (TypeError, ValueError):
-            raise InputError("--radii must be a list of distances in metres") from None
+            raise InputError("--k-radii must be a list of distances in metres") from None
         r = np.asarray(radii)
         if r.size == 0:
-            raise InputError("--radii is empty; give one or more distances in metres")
+            raise InputError("--k-radii is empty; give one or more distances in metres")
         if not (np.all(np.isfinite(r)) and np.all(r > 0)):
-            raise InputError("--radii must all be positive distances in metres")
+            raise InputError("--k-radii must all be positive distances in metres")
         if np.any(np.diff(r) <= 0):
-            raise InputError("--radii must be strictly ascending, without repeats")
+            raise InputError("--k-radii must be strictly ascending, without repeats")
         object.__setattr__(self, "radii", radii)
 
         if self.window is not None:
             try:
                 window = tuple(float(v) for v in self.window)
             except (TypeError, ValueError):
-                raise InputError("--window must be four numbers xmin,ymin,xmax,ymax") from None
+                raise InputError("--k-window must be four numbers xmin,ymin,xmax,ymax") from None
             if len(window) != 4 or not np.all(np.isfinite(window)):
-                raise InputError("--window must be four finite numbers xmin,ymin,xmax,ymax")
+                raise InputError("--k-window must be four finite numbers xmin,ymin,xmax,ymax")
             xmin, ymin, xmax, ymax = window
             if not (xmin < xmax and ymin < ymax):
-                raise InputError("--window needs xmin < xmax and ymin < ymax")
+                raise InputError("--k-window needs xmin < xmax and ymin < ymax")
             object.__setattr__(self, "window", window)
 
         if self.correction not in CORRECTIONS:
             raise InputError(
-                f"--correction {self.correction!r} is unknown; use one of {', '.join(CORRECTIONS)}"
+                f"--k-correction {self.correction!r} is unknown; use one of {', '.join(CORRECTIONS)}"
             )
 
 
@@ -119,11 +119,11 @@ def _resolve_window(
     if window is not None:
         return window
     if snaps.n_entries == 0:
-        raise InputError("no positions to build a window from; give --window")
+        raise InputError("no positions to build a window from; give --k-window")
     box = (float(snaps.x.min()), float(snaps.y.min()), float(snaps.x.max()), float(snaps.y.max()))
     if not (box[0] < box[2] and box[1] < box[3]):
         raise InputError(
-            "the bounding box of all positions has zero area (all on one line); give --window"
+            "the bounding box of all positions has zero area (all on one line); give --k-window"
         )
     return box
 
@@ -234,8 +234,8 @@ def cross_k(
     radii = np.asarray(params.radii, dtype=np.float64)
     if params.correction == "translation" and radii[-1] >= min(wx, wy):
         raise InputError(
-            f"--radii: the largest radius {radii[-1]:g} m is not below the shorter window "
-            f"side {min(wx, wy):g} m; give smaller --radii or a larger --window"
+            f"--k-radii: the largest radius {radii[-1]:g} m is not below the shorter window "
+            f"side {min(wx, wy):g} m; give smaller --k-radii or a larger --k-window"
         )
 
     inside = (snaps.x >= xmin) & (snaps.x <= xmax) & (snaps.y >= ymin) & (snaps.y <= ymax)

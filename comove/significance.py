@@ -517,7 +517,7 @@ def pattern_tests(
     null = null_distribution(model, RoleSetPrevalence(colocation, tested), params, progress,
                              label=f"{params.null} replicates")  # fmt: skip
     table = summary_table(observed, null, params.alpha)
-    table.insert(0, "roles", labels)
+    table.insert(0, "roles", pd.Series(labels, dtype=object))
     table.insert(1, "size", np.asarray(sizes, dtype=np.int64))
     table.insert(2, "time_prevalence", observed)
     return table.sort_values(["p_value", "roles"], kind="stable").reset_index(drop=True)
@@ -636,13 +636,13 @@ def group_tests(
                              label=f"{params.null} replicates")  # fmt: skip
     k = pair_keys.size
     role_tests = summary_table(observed[k:], null[:, k:], params.alpha)
-    role_tests.insert(0, "roles", list(labels))
+    role_tests.insert(0, "roles", pd.Series(list(labels), dtype=object))
     role_tests.insert(1, "episodes", observed[k:].astype(np.int64))
     if params.null != "time-shift":
         return None, role_tests
     pair_tests = summary_table(observed[:k], null[:, :k], params.alpha)
-    pair_tests.insert(0, "object_a", dyads["object_a"].to_numpy())
-    pair_tests.insert(1, "object_b", dyads["object_b"].to_numpy())
+    pair_tests.insert(0, "object_a", dyads["object_a"].to_numpy(dtype=object))
+    pair_tests.insert(1, "object_b", dyads["object_b"].to_numpy(dtype=object))
     return pair_tests, role_tests
 
 

@@ -281,7 +281,7 @@ def test_groups_tests_pairs_and_role_sets(tracks_csv, tmp_path, capsys):
         (["--null", "bootstrap"], "--null must be one of"),
         (["--permutations", "-2"], "--permutations"),
         (["--k-radii", "a:b"], "--k-radii must be"),
-        (["--k-radii", "3,1"], "--radii must be strictly ascending"),
+        (["--k-radii", "3,1"], "--k-radii must be strictly ascending"),
     ],
 )
 def test_bad_significance_options(tracks_csv, tmp_path, capsys, options, expected):

@@ -325,17 +325,17 @@ def test_absent_role_pair_and_single_role():
 @pytest.mark.parametrize(
     "kwargs, option",
     [
-        ({"radii": ()}, "--radii"),
-        ({"radii": (2.0, 1.0)}, "--radii"),
-        ({"radii": (1.0, 1.0)}, "--radii"),
-        ({"radii": (-1.0,)}, "--radii"),
-        ({"radii": (np.nan,)}, "--radii"),
-        ({"radii": ("far",)}, "--radii"),
-        ({"radii": (1.0,), "window": (0, 0, 1)}, "--window"),
-        ({"radii": (1.0,), "window": (0, 0, 0, 5)}, "--window"),
-        ({"radii": (1.0,), "window": (0, 5, 5, 1)}, "--window"),
-        ({"radii": (1.0,), "window": (0, 0, np.inf, 5)}, "--window"),
-        ({"radii": (1.0,), "correction": "ripley"}, "--correction"),
+        ({"radii": ()}, "--k-radii"),
+        ({"radii": (2.0, 1.0)}, "--k-radii"),
+        ({"radii": (1.0, 1.0)}, "--k-radii"),
+        ({"radii": (-1.0,)}, "--k-radii"),
+        ({"radii": (np.nan,)}, "--k-radii"),
+        ({"radii": ("far",)}, "--k-radii"),
+        ({"radii": (1.0,), "window": (0, 0, 1)}, "--k-window"),
+        ({"radii": (1.0,), "window": (0, 0, 0, 5)}, "--k-window"),
+        ({"radii": (1.0,), "window": (0, 5, 5, 1)}, "--k-window"),
+        ({"radii": (1.0,), "window": (0, 0, np.inf, 5)}, "--k-window"),
+        ({"radii": (1.0,), "correction": "ripley"}, "--k-correction"),
     ],
 )
 def test_bad_parameters(kwargs, option):
@@ -347,12 +347,12 @@ def test_bad_parameters(kwargs, option):
 def test_radius_beyond_window_and_flat_window():
     x, y, role, present = random_scene(2)
     snaps = grid_scene(x, y, role, present, 3)
-    with pytest.raises(InputError, match="--radii"):
+    with pytest.raises(InputError, match="--k-radii"):
         cross_k(snaps, CrossKParams(radii=(5.0, 30.0), window=(0, 0, 40, 25)))
     # border correction: no centre lies 30 m from the edge, K is undefined there
     border = cross_k(snaps, CrossKParams(radii=(5.0, 30.0), window=(0, 0, 40, 25),
                                          correction="border"))  # fmt: skip
     assert border.loc[border["radius_m"] == 30.0, "k"].isna().all()
     flat = grid_scene(x, np.zeros_like(y), role, present, 3)
-    with pytest.raises(InputError, match="--window"):
+    with pytest.raises(InputError, match="--k-window"):
         cross_k(flat, CrossKParams(radii=(1.0,)))
