@@ -94,7 +94,8 @@ class CrossKParams:
 
         if self.correction not in CORRECTIONS:
             raise InputError(
-                f"--k-correction {self.correction!r} is unknown; use one of {', '.join(CORRECTIONS)}"
+                f"--k-correction {self.correction!r} is unknown; "
+                f"use one of {', '.join(CORRECTIONS)}"
             )
 
 
