@@ -9,7 +9,7 @@ from scenes import grid_scene
 from scipy.stats import false_discovery_control
 
 from comove.errors import InputError
-from comove.pipeline import mine
+from comove.pipeline import groups, mine
 from comove.significance import (
     NullModel,
     SignificanceParams,
@@ -191,3 +191,20 @@ def test_bad_significance_settings():
         SignificanceParams(alpha=1.5)
     with pytest.raises(InputError, match="--jobs"):
         SignificanceParams(jobs=0)
+
+
+def test_nothing_to_test_gives_empty_tables_not_errors(tmp_path):
+    # three objects that never meet: no role set, no episode, dyads never together
+    n = 50
+    frame = pd.DataFrame({
+        "id": np.repeat(["a", "b", "c"], n), "time": np.tile(np.arange(n), 3).astype(float),
+        "x": np.r_[np.zeros(n), np.full(n, 100.0), np.full(n, 200.0)], "y": 0.0,
+        "role": np.repeat(["r", "s", "t"], n),
+    })  # fmt: skip
+    mined = mine(frame, radius=2.0, permutations=9, seed=1)
+    assert mined.patterns.empty and mined.tests.empty
+    found = groups(frame, radius=2.0, permutations=9, seed=1)
+    assert found.episodes.empty and len(found.dyads) == 3
+    assert (found.dyads["p_value"] == 1.0).all()  # never together, nor in any replicate
+    mined.write(tmp_path / "r")
+    found.write(tmp_path / "r", merge=True)
