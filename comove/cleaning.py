@@ -188,7 +188,9 @@ def _parse_numbers(values: pd.Series | np.ndarray, unit: str | None) -> _Times:
         ints = None
     finite = np.isfinite(floats)
     if unit is None:
-        biggest = np.max(np.abs(floats[finite])) if finite.any() else 0.0
+        # no temporary arrays: millions of rows are scanned twice in place
+        biggest = max(np.max(floats, where=finite, initial=0.0),
+                      -np.min(floats, where=finite, initial=0.0))  # fmt: skip
         unit = "ms" if biggest > MS_THRESHOLD else "s"
     factor = _NS_PER[unit]
     ok = finite & (np.abs(np.where(finite, floats, 0.0)) < (_INT64_MAX // factor) - 1)
@@ -294,10 +296,12 @@ def _label_codes(series: pd.Series) -> tuple[np.ndarray, np.ndarray]:
     if not isinstance(series.dtype, pd.CategoricalDtype):
         text = series.astype("str").str.strip()
         series = text.where(text != "").astype("category")
-    codes = series.cat.codes.to_numpy().astype(np.int64)
+    codes = series.cat.codes.to_numpy()
     names = np.asarray(series.cat.categories, dtype=object).astype(str)
     order = np.argsort(names, kind="stable")
-    rank = np.empty(order.size + 1, dtype=np.int64)
+    if np.array_equal(order, np.arange(order.size)):  # already sorted (as the reader makes them)
+        return codes.astype(np.int32), names
+    rank = np.empty(order.size + 1, dtype=np.int32)
     rank[order] = np.arange(order.size)
     rank[-1] = -1
     return rank[codes], names[order]
@@ -310,9 +314,21 @@ def _sort_by_object_time(obj: np.ndarray, t: np.ndarray) -> np.ndarray:
     time order or object order, which the time sort's run detection makes cheap,
     and the object codes are small integers.
     """
-    by_time = np.argsort(t, kind="stable")
     small = obj.astype(np.int16) if obj.size and obj.max() < 2**15 else obj
+    same = small[1:] == small[:-1]
+    if np.all((small[1:] > small[:-1]) | (same & (t[1:] >= t[:-1]))):
+        return np.arange(obj.size)  # already in (object, time) order
+    if np.all((t[1:] > t[:-1]) | ((t[1:] == t[:-1]) & (small[1:] >= small[:-1]))):
+        return np.argsort(small, kind="stable")  # in time order: sort by object only
+    by_time = np.argsort(t, kind="stable")
     return by_time[np.argsort(small[by_time], kind="stable")]
+
+
+def _coordinate(series: pd.Series) -> np.ndarray:
+    """Return a coordinate column as float64 (NaN where not a number), without a copy if it is."""
+    if series.dtype == np.float64:
+        return series.to_numpy()
+    return pd.to_numeric(series, errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan)
 
 
 def _take(values: np.ndarray, index: np.ndarray, whole: bool) -> np.ndarray:
@@ -359,10 +375,11 @@ def _spike_mask(
     return interior | first | last
 
 
-def _quantiles(values: np.ndarray) -> dict[str, float | None]:
+def _quantiles(values: np.ndarray, per: float = 1.0) -> dict[str, float | None]:
+    """Return the median, 10th and 90th percentiles and IQR of ``values`` / ``per``."""
     if values.size == 0:
         return {"median": None, "p10": None, "p90": None, "iqr": None}
-    p10, p25, p50, p75, p90 = np.percentile(values, [10, 25, 50, 75, 90])
+    p10, p25, p50, p75, p90 = np.percentile(values, [10, 25, 50, 75, 90]) / per
     return {
         "median": float(p50),
         "p10": float(p10),
@@ -443,8 +460,7 @@ def clean_fixes(raw: RawTracks, params: CleanParams | None = None) -> tuple[Fixe
 
     lonlat = raw.coords == "lonlat"
     a_col, b_col = ("lon", "lat") if lonlat else ("x", "y")
-    a = pd.to_numeric(frame[a_col], errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan)
-    b = pd.to_numeric(frame[b_col], errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan)
+    a, b = _coordinate(frame[a_col]), _coordinate(frame[b_col])
     finite = np.isfinite(a) & np.isfinite(b)
     mark(~finite, "missing_coordinates")
 
@@ -573,7 +589,7 @@ def clean_fixes(raw: RawTracks, params: CleanParams | None = None) -> tuple[Fixe
     kt = _take(times.ns, kept, everything)
     fixes = Fixes(
         obj=obj_final.astype(np.int32),
-        time=kt.astype(np.int64),
+        time=np.asarray(kt, dtype=np.int64),
         x=np.asarray(kx, dtype=np.float64),
         y=np.asarray(ky, dtype=np.float64),
         role=role_final.astype(np.int32),
@@ -583,7 +599,7 @@ def clean_fixes(raw: RawTracks, params: CleanParams | None = None) -> tuple[Fixe
         input_crs=input_crs,
     )
 
-    gaps = np.diff(kt)[fixes.obj[1:] == fixes.obj[:-1]] / 1e9
+    gaps = np.diff(kt)[fixes.obj[1:] == fixes.obj[:-1]]  # ns; quantiles scaled below
     zone_less = int(_take(times.zone_less, kept, everything).sum())
     t0, t1 = int(kt.min()), int(kt.max())
     quality = {
@@ -598,7 +614,7 @@ def clean_fixes(raw: RawTracks, params: CleanParams | None = None) -> tuple[Fixe
         "time_start": _iso(t0),
         "time_end": _iso(t1),
         "time_span_s": (t1 - t0) / 1e9,
-        "sampling_interval_s": _quantiles(gaps),
+        "sampling_interval_s": _quantiles(gaps, 1e9),
         "zone_less_times": zone_less,
         "time_note": (
             f"{zone_less} kept {'row' if zone_less == 1 else 'rows'} had times without a "
