@@ -140,6 +140,27 @@ class Snapshots:
             snapshot = np.arange(self.n_snapshots, dtype=np.int64)
         return (np.asarray(snapshot, dtype=np.int64) + self.first_index) * self.step_ns
 
+    def main_roles(self) -> np.ndarray:
+        """Return each object's most frequent role code (ties: lowest code)."""
+        n_obj = len(self.objects)
+        n_roles = max(len(self.roles), int(self.role.max()) + 1 if self.n_entries else 1)
+        if n_obj * n_roles <= 50_000_000:
+            counts = np.bincount(
+                self.obj.astype(np.int64) * n_roles + self.role, minlength=n_obj * n_roles
+            ).reshape(n_obj, n_roles)
+            return counts.argmax(axis=1)
+        # many objects and roles: count only the (object, role) keys that occur
+        keys = np.sort(self.obj.astype(np.int64) * n_roles + self.role)
+        first = np.flatnonzero(np.r_[True, keys[1:] != keys[:-1]])
+        count = np.diff(np.append(first, keys.size))
+        key = keys[first]
+        order = np.lexsort((key % n_roles, -count, key // n_roles))
+        obj = key[order] // n_roles
+        best = order[np.r_[True, obj[1:] != obj[:-1]]]
+        roles = np.zeros(n_obj, dtype=np.int64)
+        roles[key[best] // n_roles] = key[best] % n_roles
+        return roles
+
     def offsets(self) -> np.ndarray:
         """Return CSR offsets: entries of snapshot ``s`` are ``offsets[s]:offsets[s+1]``."""
         return np.searchsorted(self.snap, np.arange(self.n_snapshots + 1), side="left")

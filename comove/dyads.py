@@ -21,7 +21,7 @@ from scipy.spatial.distance import cdist
 from comove.alignment import Snapshots
 from comove.errors import InputError
 from comove.neighbours import NeighbourPairs
-from comove.persistence import _runs
+from comove.persistence import longest_runs
 
 #: Bytes allowed for the dense per-object grids of one chunk of snapshots (positions,
 #: presence and the temporaries of one distance pass).
@@ -69,27 +69,6 @@ def _check_together(snaps: Snapshots, together: NeighbourPairs) -> None:
         raise ValueError("together joins entries of different snapshots")
     if np.any(snaps.obj[i] == snaps.obj[j]):
         raise ValueError("together joins an object with itself")
-
-
-def _main_roles(snaps: Snapshots, n_obj: int) -> np.ndarray:
-    """Return each object's most frequent role code (ties: lowest code)."""
-    n_roles = max(len(snaps.roles), int(snaps.role.max()) + 1 if snaps.n_entries else 1)
-    if n_obj * n_roles <= 50_000_000:
-        counts = np.bincount(
-            snaps.obj.astype(np.int64) * n_roles + snaps.role, minlength=n_obj * n_roles
-        ).reshape(n_obj, n_roles)
-        return counts.argmax(axis=1)
-    # many objects and roles: count only the (object, role) keys that occur
-    keys = np.sort(snaps.obj.astype(np.int64) * n_roles + snaps.role)
-    first = np.flatnonzero(np.r_[True, keys[1:] != keys[:-1]])
-    count = np.diff(np.append(first, keys.size))
-    key = keys[first]
-    order = np.lexsort((key % n_roles, -count, key // n_roles))
-    obj = key[order] // n_roles
-    best = order[np.r_[True, obj[1:] != obj[:-1]]]
-    roles = np.zeros(n_obj, dtype=np.int64)
-    roles[key[best] // n_roles] = key[best] % n_roles
-    return roles
 
 
 def _shared_and_distance_sums(snaps: Snapshots, n_obj: int) -> tuple[np.ndarray, np.ndarray]:
@@ -322,7 +301,7 @@ def dyad_table(
     if row.size > 1 and np.any((row[1:] == row[:-1]) & (snap[1:] == snap[:-1])):
         raise ValueError("together lists the same pair of objects twice in one snapshot")
     x = np.bincount(row, minlength=n_rows)
-    longest, _ = _runs(row, snap, n_rows)
+    longest, _ = longest_runs(row, snap, n_rows)
     first_snap = np.zeros(n_rows, dtype=np.int64)
     last_snap = np.zeros(n_rows, dtype=np.int64)
     if row.size:
@@ -341,7 +320,7 @@ def dyad_table(
         cs = (expected - mean_dist) / (expected + mean_dist)
     apart = shared - x
     step = snaps.step_s
-    roles = _main_roles(snaps, n_obj)
+    roles = snaps.main_roles()
     objects = np.asarray(snaps.objects).astype(str)
     role_names = np.asarray(snaps.roles).astype(str)
     table = pd.DataFrame(

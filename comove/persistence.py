@@ -54,6 +54,14 @@ class PersistenceParams:
         if not (np.isfinite(self.min_duration) and self.min_duration >= 0):
             raise InputError("--min-duration must be zero or a positive number of seconds")
 
+    def keeps(self, prevalent: np.ndarray, present: np.ndarray, step_s: float) -> np.ndarray:
+        """Return which role sets meet both thresholds, from their snapshot counts."""
+        with np.errstate(invalid="ignore", divide="ignore"):
+            prevalence = np.where(present > 0, prevalent / np.maximum(present, 1), 0.0)
+        return (prevalence >= self.min_prevalence - RATIO_EPS) & (
+            prevalent >= self.min_prevalent_snapshots(step_s)
+        )
+
     def min_prevalent_snapshots(self, step_s: float) -> int:
         """Return the fewest prevalent snapshots a kept set can have (at least 1).
 
@@ -83,7 +91,9 @@ class PatternTables:
     series: pd.DataFrame
 
 
-def _runs(set_id: np.ndarray, snap: np.ndarray, n_sets: int) -> tuple[np.ndarray, np.ndarray]:
+def longest_runs(
+    set_id: np.ndarray, snap: np.ndarray, n_sets: int
+) -> tuple[np.ndarray, np.ndarray]:
     """Return the longest run length and its first snapshot per set.
 
     ``set_id``/``snap`` list prevalent snapshots sorted by set then snapshot.
@@ -151,7 +161,6 @@ def durable_patterns(
     """
     presence = presence or RolePresence(snaps)
     step_s = snaps.step_s
-    min_count = params.min_prevalent_snapshots(step_s)
     names = snaps.roles
     pattern_rows: list[dict] = []
     part_rows: list[dict] = []
@@ -161,11 +170,11 @@ def durable_patterns(
         present = level.present
         with np.errstate(invalid="ignore", divide="ignore"):
             prevalence = np.where(present > 0, level.prevalent / np.maximum(present, 1), 0.0)
-        kept = (prevalence >= params.min_prevalence - RATIO_EPS) & (level.prevalent >= min_count)
+        kept = params.keeps(level.prevalent, present, step_s)
         if not kept.any():
             continue
         is_prev = level.pi >= min_participation - RATIO_EPS
-        longest, run_start = _runs(level.set_id[is_prev], level.snap[is_prev], n_sets)
+        longest, run_start = longest_runs(level.set_id[is_prev], level.snap[is_prev], n_sets)
         pi_sum = np.bincount(level.set_id, weights=level.pi, minlength=n_sets)
         k = level.size
         pr_sum = np.column_stack(

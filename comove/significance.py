@@ -153,9 +153,7 @@ class NullModel:
         )
         self.last = np.where(present, snap_sorted[np.maximum(self.bounds[1:] - 1, 0)], 0)
         # each object's most frequent role, for the role shuffle
-        n_roles = len(snaps.roles)
-        counts = np.bincount(snaps.obj * n_roles + snaps.role, minlength=n_obj * n_roles)
-        self.main_role = counts.reshape(n_obj, n_roles).argmax(axis=1)
+        self.main_role = snaps.main_roles()
         if params.shuffle_strata:
             sep = params.shuffle_strata
             stratum_names = np.array([str(r).split(sep, 1)[0] for r in snaps.roles])
@@ -572,20 +570,13 @@ def group_statistics(snaps: Snapshots, stat: GroupStatistic, speed: np.ndarray,
     motion = Motion(vx=np.empty(0), vy=np.empty(0), speed=speed, heading=heading)
     links = linked_pairs(pairs, motion, stat.grouping)
     found = find_episodes(snaps, snapshot_groups(snaps, links, stat.grouping), stat.episodes)
-    main = object_roles(snaps)
+    main = snaps.main_roles()
     tally: dict[str, int] = {}
     for members in found.members:
         label = ";".join(sorted({str(snaps.roles[main[m]]) for m in members}))
         tally[label] = tally.get(label, 0) + 1
     episodes = np.array([tally.get(label, 0) for label in stat.labels], dtype=np.float64)
     return np.concatenate([together, episodes])
-
-
-def object_roles(snaps: Snapshots) -> np.ndarray:
-    """Return each object's most frequent role code (its role for episode role sets)."""
-    n_obj, n_roles = len(snaps.objects), len(snaps.roles)
-    counts = np.bincount(snaps.obj * n_roles + snaps.role, minlength=n_obj * n_roles)
-    return counts.reshape(n_obj, n_roles).argmax(axis=1)
 
 
 def group_tests(
@@ -625,7 +616,7 @@ def group_tests(
     # the family of role sets: those with an observed episode
     links = linked_pairs(neighbour_pairs(snaps, grouping.radius), motion, grouping)
     observed_episodes = find_episodes(snaps, snapshot_groups(snaps, links, grouping), episodes)
-    main = object_roles(snaps)
+    main = snaps.main_roles()
     labels = tuple(sorted({
         ";".join(sorted({str(snaps.roles[main[m]]) for m in members}))
         for members in observed_episodes.members

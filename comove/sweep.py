@@ -24,7 +24,7 @@ from comove.cleaning import CleanParams
 from comove.colocation import RATIO_EPS, ColocationParams, RolePresence, mine_levels
 from comove.errors import InputError
 from comove.neighbours import NeighbourPairs, neighbour_pairs
-from comove.persistence import PersistenceParams, _runs, role_label
+from comove.persistence import PersistenceParams, longest_runs, role_label
 from comove.reading import ColumnSpec
 from comove.results import csv_writer, json_writer, write_folder
 
@@ -84,14 +84,13 @@ def _grid_point(radius: float, min_participation: float, max_size: int) -> pd.Da
     subset = NeighbourPairs(pairs.i[within], pairs.j[within], float(radius))
     params = ColocationParams(radius=radius, min_participation=min_participation,
                               max_size=max_size)  # fmt: skip
-    bound = persistence.min_prevalent_snapshots(snaps.step_s)
     levels = mine_levels(snaps, subset, params, min_prevalent_snapshots=1,
                          presence=RolePresence(snaps))  # fmt: skip
     rows = []
     for level in levels:
         with np.errstate(invalid="ignore", divide="ignore"):
             prevalence = level.prevalent / np.maximum(level.present, 1)
-        kept = (prevalence >= persistence.min_prevalence - RATIO_EPS) & (level.prevalent >= bound)
+        kept = persistence.keeps(level.prevalent, level.present, snaps.step_s)
         longest = _longest_runs(level, min_participation)
         for s in np.flatnonzero(level.prevalent >= 1):  # per role set seen prevalent
             rows.append((radius, min_participation, role_label(level.roles[s], snaps.roles),
@@ -104,7 +103,7 @@ def _grid_point(radius: float, min_participation: float, max_size: int) -> pd.Da
 def _longest_runs(level, min_participation: float) -> np.ndarray:
 
     is_prev = level.pi >= min_participation - RATIO_EPS
-    longest, _ = _runs(level.set_id[is_prev], level.snap[is_prev], level.roles.shape[0])
+    longest, _ = longest_runs(level.set_id[is_prev], level.snap[is_prev], level.roles.shape[0])
     return longest
 
 

@@ -9,7 +9,7 @@ from scenes import grid_scene
 from comove.colocation import ColocationParams, mine_levels
 from comove.errors import InputError
 from comove.neighbours import neighbour_pairs
-from comove.persistence import PersistenceParams, _runs, durable_patterns
+from comove.persistence import PersistenceParams, durable_patterns, longest_runs
 
 
 def two_role_scene(together: np.ndarray, present_b: np.ndarray | None = None):
@@ -61,7 +61,7 @@ def test_thresholds_keep_and_drop():
 def test_runs_pick_the_longest_and_earliest():
     set_id = np.array([0, 0, 0, 0, 0, 1, 1, 1, 1])
     snap = np.array([1, 2, 5, 6, 9, 0, 2, 3, 4])
-    longest, start = _runs(set_id, snap, 3)
+    longest, start = longest_runs(set_id, snap, 3)
     assert longest.tolist() == [2, 3, 0]
     assert start.tolist() == [1, 2, -1]
 
