@@ -253,7 +253,8 @@ def _run_groups(args: argparse.Namespace) -> None:
     print(f"\n{n} episode{'s' if n != 1 else ''} of objects moving together.")
     if n:
         top = result.episodes.sort_values("duration_s", ascending=False).head(10)
-        print(top[["episode", "start", "duration_s", "members"]].to_string(index=False))
+        shown = ["episode", "start", "duration_s", "together_s", "members"]
+        print(top[shown].to_string(index=False))
     print(f"{len(result.dyads)} pairs of objects with shared presence in dyads.csv.")
     print(f"\nResults written to {out}/")
     print(f"Caution: {CAUTION}")

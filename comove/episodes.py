@@ -3,12 +3,13 @@
 An *episode* is a set S of at least ``min_size`` objects and a time span such
 that at every snapshot of the span all of S lie in one group (see
 :mod:`comove.grouping`), except for separations no longer than ``tolerance``
-seconds, and that lasts at least ``min_duration`` seconds. A member with no
-data at a snapshot (a missed fix beyond the interpolation gap) is not taken to
-have left: while its absence lasts no longer than ``tolerance``, the others
-being grouped is enough. The episode's end is the last snapshot at which every
-member has data. Only maximal
-episodes are reported: none whose members and time span are both contained in
+seconds, and whose members are together for at least ``min_duration``
+seconds in all: a tolerated separation does not break an episode, but it does
+not count as time together either. A member with no data at a snapshot (a
+missed fix beyond the interpolation gap) is not taken to have left: while its
+absence lasts no longer than ``tolerance``, the others being grouped is
+enough. The episode's end is the last snapshot at which every member has
+data. Only maximal episodes are reported: none whose members and time span are both contained in
 another episode's. With DBSCAN groups this is a convoy (Jeung et al. 2008);
 with ``tolerance > 0`` short separations do not break it, in the spirit of
 the evolving and gathering variants of convoy discovery.
@@ -19,8 +20,9 @@ that stays together inherits its parent's start, and a candidate closes once
 it has been separated for longer than the tolerance. Because group structure
 changes much less often than snapshots tick (at 25 Hz, most consecutive
 snapshots have identical groups), snapshots with the same groups are first
-merged into *spans* with one vectorised hashing pass, and the scheme runs per
-span rather than per snapshot.
+merged into *spans* with one vectorised hashing pass (a span also ends where
+an object appears, disappears or has been missing longer than the tolerance),
+and the scheme runs per span rather than per snapshot.
 """
 
 from __future__ import annotations
@@ -43,6 +45,11 @@ MEMBER_SEP = ";"
 #: Live candidates above which dominated ones are pruned during the search.
 PRUNE_ABOVE = 64
 
+# flags of a live candidate (see find_episodes)
+GAPPED = 1
+EXCUSED = 2
+UNSURE = 4
+
 
 @dataclass(frozen=True)
 class EpisodeParams:
@@ -53,15 +60,19 @@ class EpisodeParams:
     min_size : int, default 2
         Least number of objects in an episode.
     min_duration : float, default 0.0
-        Least duration of an episode in seconds (first to last snapshot, plus
-        one step).
+        Least time in seconds for which an episode's members are together;
+        tolerated separations do not count towards it.
     tolerance : float, default 0.0
         Longest separation in seconds that does not break an episode.
     """
 
     min_size: int = field(default=2, metadata={"help": "least number of objects in an episode"})
     min_duration: float = field(
-        default=0.0, metadata={"help": "least duration of an episode in seconds"}
+        default=0.0,
+        metadata={
+            "help": "least time together of an episode in seconds (separations "
+            "bridged by --tolerance do not count)"
+        },
     )
     tolerance: float = field(
         default=0.0, metadata={"help": "longest separation in seconds that does not break one"}
@@ -86,6 +97,9 @@ class Episodes:
         Object codes of each episode, ascending.
     start, end : ndarray of int64
         First and last snapshot of each episode.
+    together : ndarray of int64
+        Snapshots of [start, end] at which the members are together (all but
+        the tolerated separations).
     came_from, went_into : list of list of int
         Indices of the episodes each one was formed from (smaller episodes
         running when it began, whose members it contains) and split into
@@ -95,6 +109,7 @@ class Episodes:
     members: list[np.ndarray]
     start: np.ndarray
     end: np.ndarray
+    together: np.ndarray
     came_from: list[list[int]]
     went_into: list[list[int]]
 
@@ -104,14 +119,205 @@ class Episodes:
         return int(self.start.size)
 
 
-def _spans(snaps: Snapshots, groups: SnapshotGroups) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+class _Timeline:
+    """Spans of constant groups and presence, and which member sets are together when.
+
+    A *span* is a maximal run of consecutive snapshots with identical groups and
+    no presence change (an object appearing, disappearing, or being missing for
+    longer than the tolerance), so that whether a set of objects is together is
+    the same at every snapshot of a span. Member sets are Python ints used as
+    bitmasks (bit o = object o): intersections, sizes and subset tests are then
+    single integer operations, whatever the number of objects.
+    """
+
+    def __init__(self, snaps: Snapshots, groups: SnapshotGroups, min_size: int, tol_snaps: int):
+        self.min_size = min_size
+        self.tol = tol_snaps
+        n_obj = len(snaps.objects)
+        self.n_obj = n_obj
+        # each object's present snapshots, for telling absence (no data) from separation
+        codes = snaps.obj.astype(np.int16) if n_obj < 2**15 else snaps.obj
+        by_obj = np.argsort(codes, kind="stable")  # small codes: numpy's radix sort
+        bounds = np.searchsorted(snaps.obj[by_obj], np.arange(n_obj + 1))
+        self.present_at = [snaps.snap[by_obj[bounds[o] : bounds[o + 1]]] for o in range(n_obj)]
+        events = _presence_changes(self.present_at, snaps.n_snapshots, tol_snaps)
+        self.first, self.last, first_group = _spans(snaps, groups, events)
+        self.groups, self.group_span, self.group_words = _span_groups(
+            groups, snaps.obj[groups.entries], self.first, first_group, n_obj, min_size
+        )
+        self.presence = _presence_masks(snaps, self.first)
+        self.presence_words = np.asarray(self.presence, dtype=np.uint64) if n_obj <= 63 else None
+        self._snaps = snaps
+        self._offsets = snaps.offsets() if n_obj > 63 else None
+        # together(members, k) per span, kept while a later span may look back at it
+        self._memo: dict[int, dict[int, bool]] = {}
+
+    @property
+    def n_spans(self) -> int:
+        """Return the number of spans."""
+        return int(self.first.size)
+
+    def present(self, k: int) -> int:
+        """Return the objects with data in span k as a bitmask."""
+        mask = self.presence[k]
+        if mask is None:  # more than 63 objects: built when first asked for
+            lo, hi = self._offsets[self.first[k]], self._offsets[self.first[k] + 1]
+            mask = 0
+            for o in self._snaps.obj[lo:hi].tolist():
+                mask |= 1 << o
+            self.presence[k] = mask
+        return mask
+
+    def last_fix_span(self, obj: int, k: int) -> int:
+        """Return the span of the last fix of ``obj``, or -1 unless it is missing in span k.
+
+        Missing: no data in the span, for no longer than the tolerance.
+        """
+        a, b = int(self.first[k]), int(self.last[k])
+        ps = self.present_at[obj]
+        i = int(np.searchsorted(ps, a))
+        if i < ps.size and ps[i] <= b:
+            return -1  # it has data in the span, so it is present
+        if i == 0 or b - int(ps[i - 1]) > self.tol:
+            return -1
+        return int(np.searchsorted(self.first, ps[i - 1], side="right")) - 1
+
+    def together(self, members: int, k: int) -> bool:
+        """Tell whether ``members`` are together in span k.
+
+        At least ``min_size`` of them lie in one group, and every other member is
+        missing (no data, for no longer than the tolerance) and was together with
+        the set at its last fix.
+        """
+        at_k = self._memo.setdefault(k, {})
+        known = at_k.get(members)
+        if known is not None:
+            return known
+        result = False
+        for grp in self.groups[k]:
+            common = members & grp
+            if common.bit_count() < self.min_size:
+                continue
+            if all(
+                (j := self.last_fix_span(m, k)) >= 0 and self.together(members, j)
+                for m in _bits(members & ~common)
+            ):
+                result = True
+                break
+        at_k[members] = result
+        return result
+
+    def forget_before(self, k: int) -> None:
+        """Drop remembered answers for spans that no span from k on can look back at."""
+        if len(self._memo) > 4 * PRUNE_ABOVE:
+            horizon = int(self.first[k]) - self.tol - 1
+            for old in [j for j in self._memo if self.last[j] < horizon]:
+                del self._memo[old]
+
+    def with_missing(self, part: int, others: int, k: int) -> int:
+        """Return ``part`` (together in span k) with its missing companions.
+
+        Those are the members of ``others`` that are missing in span k and were
+        together with the grown part at their last fix.
+        """
+        missing = {m: j for m in _bits(others) if (j := self.last_fix_span(m, k)) >= 0}
+        while missing:  # drop those not together with the rest at their last fix
+            grown = part
+            for m in missing:
+                grown |= 1 << m
+            stay = {m: j for m, j in missing.items() if self.together(grown, j)}
+            if len(stay) == len(missing):
+                return grown
+            missing = stay
+        return part
+
+    def last_present(self, members: int, seen: int) -> int:
+        """Return the last snapshot up to ``seen`` at which every member has data (or -1)."""
+        bits = _bits(members)
+        t = seen
+        while t >= 0:  # step back to each member's latest data until all agree
+            latest = []
+            for m in bits:
+                i = int(np.searchsorted(self.present_at[m], t, side="right")) - 1
+                latest.append(int(self.present_at[m][i]) if i >= 0 else -1)
+            earliest = min(latest)
+            if earliest == t:
+                return t
+            t = earliest
+        return -1
+
+    def time_together(self, members: int, start: int, end: int) -> int:
+        """Return the number of snapshots in [start, end] at which ``members`` are together."""
+        k0 = int(np.searchsorted(self.first, start, side="right")) - 1
+        k1 = int(np.searchsorted(self.first, end, side="right"))
+        if self.group_words is None:  # more than 63 objects: span by span
+            spans = np.asarray([k for k in range(k0, k1) if self.together(members, k)], int)
+        else:
+            # spans where a group holds every member, as whole-array tests; only spans
+            # where a member has no data need the excusing rule
+            g0, g1 = np.searchsorted(self.group_span, [k0, k1])
+            word = np.uint64(members)
+            hit = np.zeros(k1 - k0, dtype=bool)
+            holds = (self.group_words[g0:g1] & word) == word
+            hit[self.group_span[g0:g1][holds] - k0] = True
+            lacking = (self.presence_words[k0:k1] & word) != word
+            for j in np.flatnonzero(lacking & ~hit).tolist():  # spans with a member missing
+                hit[j] = self.together(members, k0 + j)
+            spans = np.flatnonzero(hit) + k0
+        overlap = np.minimum(self.last[spans], end) - np.maximum(self.first[spans], start) + 1
+        return int(overlap.sum())
+
+    def run_start(self, members: int, k: int, lower: int) -> int:
+        """Return where the run of togetherness of ``members`` that reaches span k began.
+
+        ``members`` are together in span k; the run goes back through separations
+        of at most the tolerance, but not before ``lower``.
+        """
+        start = int(self.first[k])
+        for j in range(k - 1, -1, -1):  # per earlier span, back to a long separation
+            if self.last[j] < lower:
+                break
+            if self.together(members, j):
+                if start - int(self.last[j]) - 1 > self.tol:
+                    break
+                start = max(int(self.first[j]), lower)
+            elif start - max(int(self.first[j]), lower) > self.tol:
+                break
+        return start
+
+
+def _presence_changes(present_at: list[np.ndarray], n_snap: int, tol_snaps: int) -> np.ndarray:
+    """Return the snapshots at which some object's presence or excuse changes.
+
+    These are where an object appears, where it disappears (the first snapshot
+    without data after a stretch with data), and where an absence grows longer
+    than the tolerance (so the absent member is no longer excused).
+    """
+    events = []
+    for ps in present_at:  # per object: a few array operations on its own snapshots
+        if ps.size == 0:
+            continue
+        brk = np.flatnonzero(np.diff(ps) != 1)
+        run_first = np.r_[ps[0], ps[brk + 1]]
+        run_last = np.r_[ps[brk], ps[-1]]
+        events += [run_first, run_last + 1, run_last + tol_snaps + 1]
+    if not events:
+        return np.empty(0, dtype=np.int64)
+    out = np.concatenate(events)
+    return out[out < n_snap]
+
+
+def _spans(
+    snaps: Snapshots, groups: SnapshotGroups, events: np.ndarray
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Return (first snapshot, last snapshot, first group index) of each span.
 
-    A span is a maximal run of consecutive snapshots with identical groups.
-    Group identity is tested with Zobrist hashing: each object draws a fixed
-    random 64-bit key; a group's hash is the XOR of its members' keys and a
-    snapshot's the wrapping sum of mixed group hashes, so equal group sets give
-    equal hashes (a collision is ~2^-64 per comparison).
+    Spans end where the groups change or at ``events`` (see
+    :func:`_presence_changes`). Group identity is tested with Zobrist hashing:
+    each object draws a fixed random 64-bit key; a group's hash is the XOR of
+    its members' keys and a snapshot's the wrapping sum of mixed group hashes,
+    so equal group sets give equal hashes (a collision is ~2^-64 per
+    comparison).
     """
     rng = np.random.default_rng(0x5EED)
     keys = rng.integers(1, 2**63 - 1, size=len(snaps.objects), dtype=np.int64).astype(np.uint64)
@@ -127,10 +333,64 @@ def _spans(snaps: Snapshots, groups: SnapshotGroups) -> tuple[np.ndarray, np.nda
             np.add.at(snap_hash, groups.snap, mixed)
     change = np.ones(n_snap, dtype=bool)
     change[1:] = snap_hash[1:] != snap_hash[:-1]
+    change[events] = True
     first = np.flatnonzero(change)
     last = np.append(first[1:] - 1, n_snap - 1)
     first_group = np.searchsorted(groups.snap, first, side="left")
     return first, last, first_group
+
+
+def _presence_masks(snaps: Snapshots, first: np.ndarray) -> list:
+    """Return, per span start, the objects with data as an int bitmask (None: build lazily).
+
+    With at most 63 objects every mask is one machine word and all are built at
+    once; with more, each is left to be built when first asked for.
+    """
+    if len(snaps.objects) > 63:
+        return [None] * first.size
+    offsets = snaps.offsets()
+    bit = np.left_shift(np.uint64(1), snaps.obj.astype(np.uint64))
+    filled = np.diff(offsets) > 0
+    per_snap = np.zeros(snaps.n_snapshots, dtype=np.uint64)
+    if bit.size:
+        # each segment runs to the next filled snapshot's first entry: empty ones add nothing
+        per_snap[filled] = np.bitwise_or.reduceat(bit, offsets[:-1][filled])
+    return per_snap[first].tolist()
+
+
+def _span_groups(
+    groups: SnapshotGroups,
+    member_obj: np.ndarray,
+    first: np.ndarray,
+    first_group: np.ndarray,
+    n_obj: int,
+    min_size: int,
+) -> tuple[list[list[int]], np.ndarray, np.ndarray | None]:
+    """Return the groups of at least ``min_size`` members at each span start.
+
+    Returns
+    -------
+    per_span : list of list of int
+        Per span, the member bitmasks of its groups.
+    span_of : ndarray of int64
+        The span of each of those groups, in order (ascending).
+    words : ndarray of uint64 or None
+        The same bitmasks as one array, when objects fit in 63 bits.
+    """
+    n_spans = first.size
+    count = np.searchsorted(groups.snap, first, side="right") - first_group
+    total = int(count.sum())
+    # the group indices of every span, in order: first_group[k] + 0, 1, ..., count[k] - 1
+    start_at = np.repeat(np.cumsum(count) - count, count)
+    idx = np.arange(total) - start_at + np.repeat(first_group, count)
+    span_of = np.repeat(np.arange(n_spans), count)
+    big = groups.sizes()[idx] >= min_size
+    idx, span_of = idx[big], span_of[big]
+    masks = _group_masks(member_obj, groups.offsets, n_obj, idx)
+    bounds = np.searchsorted(span_of, np.arange(n_spans + 1)).tolist()
+    per_span = [masks[bounds[k] : bounds[k + 1]] for k in range(n_spans)]
+    words = np.asarray(masks, dtype=np.uint64) if n_obj <= 63 else None
+    return per_span, span_of, words
 
 
 def find_episodes(snaps: Snapshots, groups: SnapshotGroups, params: EpisodeParams) -> Episodes:
@@ -151,9 +411,25 @@ def find_episodes(snaps: Snapshots, groups: SnapshotGroups, params: EpisodeParam
 
     Notes
     -----
-    Work is proportional to the number of spans times the live candidates
-    times the groups per span; candidates are Python frozensets, which is
-    cheap because spans are few compared with snapshots and groups are small.
+    A set is *together* at a snapshot when at least ``min_size`` of its
+    members lie in one group and every other member is *missing*: it has no
+    data there, has had none for no longer than the tolerance, and was
+    together with the set at its last fix. Runs of together snapshots joined
+    across separations of at most the tolerance are episodes; only the
+    snapshots at which the set is together count towards ``min_duration``.
+    The result equals a brute-force search that tries every set of objects at
+    every snapshot (``tests/scenes.py``).
+
+    The search is the candidate-intersection scheme of convoy discovery, run
+    per span of constant groups and presence rather than per snapshot: live
+    candidates are intersected with each span's groups, a part that stays
+    together inherits its set's start (and its missing members, when they were
+    with it at their last fix), and a candidate closes once it has been apart
+    for longer than the tolerance. Time is proportional to the spans times the
+    live candidates times the groups per span, with candidates as integer
+    bitmasks; a candidate whose time together is not known from its own history
+    (a part of a set that was once apart) is recounted when it closes, span by
+    span, as whole-array tests when objects fit in 63 bits.
 
     References
     ----------
@@ -168,93 +444,111 @@ def find_episodes(snaps: Snapshots, groups: SnapshotGroups, params: EpisodeParam
     tol_snaps = int(np.floor(params.tolerance / step + 1e-9))
     min_snaps = max(1, int(np.ceil(params.min_duration / step - 1e-9)))
     min_size = int(params.min_size)
-    first, last, first_group = _spans(snaps, groups)
-    sizes = groups.sizes()
-    member_obj = snaps.obj[groups.entries]
+    line = _Timeline(snaps, groups, min_size, tol_snaps)
 
-    # each object's present snapshots, for telling absence (no data) from separation
-    codes = snaps.obj.astype(np.int16) if len(snaps.objects) < 2**15 else snaps.obj
-    by_obj = np.argsort(codes, kind="stable")  # small codes: numpy's radix sort
-    bounds = np.searchsorted(snaps.obj[by_obj], np.arange(len(snaps.objects) + 1))
-    present_at = [snaps.snap[by_obj[bounds[o] : bounds[o + 1]]] for o in range(len(snaps.objects))]
-
-    def excused(obj: int, a: int, b: int) -> bool:
-        """Tell whether ``obj`` has no data over [a, b] and has been missing <= tolerance."""
-        ps = present_at[obj]
-        i = int(np.searchsorted(ps, a))
-        if i < ps.size and ps[i] <= b:
-            return False  # it has data in the span, so it is present and elsewhere
-        return i > 0 and b - int(ps[i - 1]) <= tol_snaps
-
-    def last_present(members: int, seen: int) -> int:
-        """Return the last snapshot up to ``seen`` at which every member has data."""
-        return min(
-            int(present_at[m][np.searchsorted(present_at[m], seen, side="right") - 1])
-            for m in _bits(members)
-        )
-
-    # Member sets are Python ints used as bitmasks (bit o = object o): intersections,
-    # sizes and subset tests are then single integer operations, whatever the count.
-    group_masks = _group_masks(member_obj, groups.offsets, len(snaps.objects))
-    # live: members -> [start, last snapshot seen together]
+    # live: members -> [start, last snapshot seen together, flags, snapshots together in
+    # [start, seen]]. Flags: GAPPED, the set was not together at every snapshot since its
+    # start (a tolerated separation, or missing members excused); EXCUSED, missing
+    # members were excused, so a part of the set was not necessarily together whenever
+    # the set was and a part's own run must be looked up; UNSURE, the count is only a
+    # lower bound (a part of a gapped set may have been together while the set was
+    # apart) and is recounted when the candidate closes.
     live: dict[int, list[int]] = {}
-    closed: list[tuple[frozenset, int, int]] = []
+    closed: list[tuple[frozenset, int, int, int]] = []
 
-    def close(members: int, start: int, seen: int) -> None:
-        end = last_present(members, seen)
-        if end - start + 1 >= min_snaps:
-            closed.append((frozenset(_bits(members)), start, end))
+    def close(members: int, start: int, seen: int, flags: int, count: int) -> None:
+        end = line.last_present(members, seen)
+        if end - start + 1 < min_snaps:
+            return
+        if flags & UNSURE:
+            count = line.time_together(members, start, end)
+        elif end < seen:  # the last snapshots lacked a member's data: not in the span
+            count -= line.time_together(members, end + 1, seen)
+        if count >= min_snaps:
+            closed.append((frozenset(_bits(members)), start, end, count))
 
-    n_groups = groups.n_groups
-    for k in range(first.size):  # per span of identical groups, not per snapshot
-        a, b = int(first[k]), int(last[k])
-        g = int(first_group[k])
-        span_groups = []
-        while g < n_groups and groups.snap[g] == a:
-            if sizes[g] >= min_size:
-                span_groups.append(group_masks[g])
-            g += 1
+    for k in range(line.n_spans):  # per span of constant groups, not per snapshot
+        a, b = int(line.first[k]), int(line.last[k])
+        n_k = b - a + 1
+        groups_k = line.groups[k]
         nxt: dict[int, list[int]] = {}
-
-        def offer(members: int, start: int, seen: int, into=nxt) -> None:
-            held = into.get(members)
-            if held is None:
-                into[members] = [start, seen]
-            else:  # the same set reached two ways: it has been together since the earlier
-                held[0], held[1] = min(held[0], start), max(held[1], seen)
-
-        for members, (start, seen) in live.items():
+        for members, (start, seen, flags, count) in live.items():
             whole = False
-            for grp in span_groups:
+            parts = []
+            for grp in groups_k:
                 common = members & grp
-                if common.bit_count() < min_size:
-                    continue
-                rest = members & ~common
-                if not rest:
+                if common == members:
                     whole = True
-                elif all(excused(m, a, b) for m in _bits(rest)):
-                    # the missing members have no data here: absence is not separation
-                    whole = True
-                    offer(members, start, b)
-                    continue  # its present part goes on inside it, not on its own
-                offer(common, start, b)
+                    break
+                if common.bit_count() >= min_size:
+                    parts.append(common)
+            if whole:
+                _offer(nxt, members, start, b, flags, count + n_k)
+                continue
+            missing = members & ~line.present(k) if parts else 0
+            if missing and line.together(members, k):  # by excusing missing members
+                whole = True
+                _offer(nxt, members, start, b, flags | GAPPED | EXCUSED, count + n_k)
+            # The parts still together (when the set is together by excusing missing
+            # members, its present part, which may outlast the whole set's end). A part was
+            # together whenever the set was; more often if the set was ever apart.
+            part_flags = flags | UNSURE if flags & GAPPED else flags
+            for common in parts:
+                if flags & EXCUSED:  # not even whenever the set was: look its run up
+                    run = line.run_start(common, k, start)
+                    _offer(nxt, common, run, b, part_flags | UNSURE, 0)
+                else:
+                    _offer(nxt, common, start, b, part_flags, count + n_k)
+                if not whole and missing:  # and the part with its missing members
+                    grown = line.with_missing(common, missing, k)
+                    if grown != common:
+                        run = line.run_start(grown, k, start)
+                        _offer(nxt, grown, run, b, part_flags | GAPPED | EXCUSED | UNSURE, 0)
             if whole:
                 continue
-            # separated for this whole span (its groups do not change within it)
+            # apart for this whole span (nothing changes within it)
             if b - seen <= tol_snaps:
-                offer(members, start, seen)
+                _offer(nxt, members, start, seen, flags | GAPPED, count)
             else:
-                close(members, start, seen)
-        for grp in span_groups:
-            offer(grp, a, b)
-        # Candidates contained in another that started no later and is seen as late can
-        # go; the final maximality filter removes them anyway, so only prune when many
-        # are live (measured: ~1 % of candidates pruned in a 25 Hz match, for 60 % of
-        # the time of the whole search).
+                close(members, start, seen, flags, count)
+        for grp in groups_k:
+            _offer(nxt, grp, a, b, 0, n_k)
+        # Candidates contained in another that started no later, is seen as late and
+        # was together throughout can go: the final maximality filter would remove them
+        # anyway. Only pruned when many are live (measured: ~1 % of candidates pruned
+        # in a 25 Hz match, for 60 % of the time of the whole search).
         live = _prune_dominated(nxt) if len(nxt) > PRUNE_ABOVE else nxt
-    for members, (start, seen) in live.items():
-        close(members, start, seen)
+        line.forget_before(k)
+    for members, (start, seen, flags, count) in live.items():
+        close(members, start, seen, flags, count)
     return _maximal(closed, tol_snaps)
+
+
+def _offer(
+    into: dict[int, list[int]], members: int, start: int, seen: int, flags: int, count: int
+) -> None:
+    """Add a candidate to ``into``, merging it with the same set reached another way."""
+    held = into.get(members)
+    if held is None:
+        into[members] = [start, seen, flags, count]
+        return
+    if (start, seen) == (held[0], held[1]):  # two ways over the same stretch
+        if held[2] & UNSURE and not flags & UNSURE:
+            held[3] = count  # an exact count beats a lower bound
+        elif (held[2] ^ flags) & UNSURE == 0:
+            held[3] = max(held[3], count)
+        held[2] &= flags  # either way's guarantee holds
+        return
+    # the set has been together since the earlier start; the way with the earlier start
+    # (then the later sighting) carries the facts
+    if start < held[0] or (start == held[0] and seen > held[1]):
+        other_seen = held[1]
+        held[:] = [start, seen, flags, count]
+    else:
+        other_seen = seen
+    if other_seen > held[1]:  # together later than the carrying way knew
+        held[1] = other_seen
+        held[2] |= GAPPED | UNSURE
 
 
 def _bits(mask: int) -> list[int]:
@@ -267,15 +561,17 @@ def _bits(mask: int) -> list[int]:
     return out
 
 
-def _group_masks(member_obj: np.ndarray, offsets: np.ndarray, n_obj: int) -> list[int]:
-    """Return each group's members as an int bitmask, vectorised when objects fit 63 bits."""
-    if member_obj.size == 0:
+def _group_masks(
+    member_obj: np.ndarray, offsets: np.ndarray, n_obj: int, which: np.ndarray
+) -> list[int]:
+    """Return the members of groups ``which`` as int bitmasks (bit o = object o)."""
+    if which.size == 0:
         return []
-    if n_obj <= 63:
+    if n_obj <= 63:  # one machine word per group: vectorised
         bit = np.left_shift(np.uint64(1), member_obj.astype(np.uint64))
-        return [int(m) for m in np.bitwise_or.reduceat(bit, offsets[:-1]).tolist()]
+        return np.bitwise_or.reduceat(bit, offsets[:-1])[which].tolist()
     masks = []
-    for g in range(offsets.size - 1):  # per group; only for more than 63 objects
+    for g in which.tolist():  # per group; only for more than 63 objects
         mask = 0
         for m in member_obj[offsets[g] : offsets[g + 1]].tolist():
             mask |= 1 << m
@@ -283,20 +579,26 @@ def _group_masks(member_obj: np.ndarray, offsets: np.ndarray, n_obj: int) -> lis
     return masks
 
 
-def _prune_dominated(cands: dict[int, list[int]]) -> dict[int, list[int]]:
-    """Return candidates not contained in another with an earlier start and later sighting."""
+def _prune_dominated(cands: dict[int, list]) -> dict[int, list]:
+    """Return candidates not contained in another that is together throughout them.
+
+    A candidate goes when another has all of its members, started no later, was
+    seen as late and has not been apart since its start: the other then holds it
+    over its whole time, with at least its time together.
+    """
     if len(cands) < 2:
         return cands
     items = sorted(cands.items(), key=lambda kv: -kv[0].bit_count())
-    kept: dict[int, list[int]] = {}
-    for members, (start, seen) in items:
+    kept: dict[int, list] = {}
+    for members, record in items:
+        start, seen = record[0], record[1]
         if any(
-            members != other and members & other == members and o_start <= start
-            and o_seen >= seen
-            for other, (o_start, o_seen) in kept.items()
+            members != other and members & other == members and o[0] <= start
+            and o[1] >= seen and not o[2]
+            for other, o in kept.items()
         ):  # fmt: skip
             continue
-        kept[members] = [start, seen]
+        kept[members] = record
     return kept
 
 
@@ -310,16 +612,19 @@ def _containment(members: list[frozenset], n_obj: int, block: int = 2048):
         yield rows, matrix[rows] @ matrix.T
 
 
-def _maximal(closed: list[tuple[frozenset, int, int]], tol_snaps: int) -> Episodes:
+def _maximal(closed: list[tuple[frozenset, int, int, int]], tol_snaps: int) -> Episodes:
     """Return the closed candidates that no other contains, with splits and merges."""
+    # (members, start, end) fixes the time together too, so duplicates are exact
     closed = sorted(set(closed), key=lambda e: (e[1], -len(e[0]), e[2], sorted(e[0])))
     if not closed:
-        return Episodes([], np.empty(0, np.int64), np.empty(0, np.int64), [], [])
-    sets = [m for m, _, _ in closed]
+        empty = np.empty(0, np.int64)
+        return Episodes([], empty, empty.copy(), empty.copy(), [], [])
+    sets = [m for m, _, _, _ in closed]
     n_obj = max(max(m) for m in sets) + 1
     size = np.array([len(m) for m in sets])
-    start = np.array([st for _, st, _ in closed])
-    end = np.array([en for _, _, en in closed])
+    start = np.array([c[1] for c in closed])
+    end = np.array([c[2] for c in closed])
+    together = np.array([c[3] for c in closed])
     contained = np.zeros(len(closed), dtype=bool)
     for rows, common in _containment(sets, n_obj):
         # another candidate holds all of its members over at least its whole span
@@ -329,7 +634,7 @@ def _maximal(closed: list[tuple[frozenset, int, int]], tol_snaps: int) -> Episod
         contained[rows] = inside.any(axis=1)
     keep = np.flatnonzero(~contained)
     sets = [sets[k] for k in keep]
-    size, start, end = size[keep], start[keep], end[keep]
+    size, start, end, together = size[keep], start[keep], end[keep], together[keep]
     came_from: list[list[int]] = []
     went_into: list[list[int]] = []
     for rows, common in _containment(sets, n_obj):
@@ -344,6 +649,7 @@ def _maximal(closed: list[tuple[frozenset, int, int]], tol_snaps: int) -> Episod
         members=[np.asarray(sorted(m), dtype=np.int64) for m in sets],
         start=start.astype(np.int64),
         end=end.astype(np.int64),
+        together=together.astype(np.int64),
         came_from=came_from,
         went_into=went_into,
     )
@@ -396,7 +702,8 @@ def episode_table(
     table : DataFrame
         Columns ``episode``, ``start``, ``end`` (UTC, first and last
         snapshot), ``duration_s``, ``size``, ``members`` and ``roles`` (sorted,
-        joined by ';'), ``mean_spacing_m`` and ``max_spacing_m`` (pairwise
+        joined by ';'), ``together_s`` (time together: the duration less the
+        tolerated separations), ``mean_spacing_m`` and ``max_spacing_m`` (pairwise
         distances of present members), ``moving_share`` (share of snapshots at
         which most present members move faster than ``min_speed``), ``came_from``
         and ``went_into`` (episode ids joined by ';').
@@ -434,6 +741,7 @@ def episode_table(
                 "start": int(snaps.times(s[:1])[0]),
                 "end": int(snaps.times(s[-1:])[0]),
                 "duration_s": s.size * snaps.step_s,
+                "together_s": int(episodes.together[k]) * snaps.step_s,
                 "size": int(members.size),
                 "members": MEMBER_SEP.join(str(snaps.objects[m]) for m in members),
                 "roles": MEMBER_SEP.join(roles),
@@ -452,8 +760,8 @@ def episode_table(
 
 
 EPISODE_COLUMNS = [
-    "episode", "start", "end", "duration_s", "size", "members", "roles", "mean_spacing_m",
-    "max_spacing_m", "moving_share", "came_from", "went_into",
+    "episode", "start", "end", "duration_s", "size", "members", "roles", "together_s",
+    "mean_spacing_m", "max_spacing_m", "moving_share", "came_from", "went_into",
 ]  # fmt: skip
 
 

@@ -511,11 +511,14 @@ def _timeline_section(res: _Results) -> tuple[str, list[_Picture]]:
     for _, row in _top_episodes(episodes, 15).iterrows():
         rows.append([
             _e(row["episode"]), _e(_when(row["start"])), _e(_duration(row["duration_s"])),
+            # results written before time together was recorded have no such column
+            _e(_duration(row["together_s"])) if "together_s" in row else "",
             _num(row["size"]), _e(_roles_text(row.get("roles", ""))),
             _e(", ".join(str(row["members"]).split(";"))),
         ])  # fmt: skip
     parts.append("<h3>The longest episodes</h3>")
-    parts.append(_table(["episode", "start", "duration", "size", "roles", "members"], rows, {3}))
+    parts.append(_table(["episode", "start", "duration", "together", "size", "roles", "members"],
+                        rows, {4}))  # fmt: skip
     return "\n".join(parts), [pic]
 
 

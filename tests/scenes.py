@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import functools
 import itertools
 
 import networkx as nx
@@ -75,3 +76,67 @@ def brute_force_pi(snaps: Snapshots, radius: float, max_size: int) -> dict:
                 pr[r] = sum(1 for m in objs if snaps.role[m] == r) / n_r
             out[(key, int(s))] = (min(pr.values()), pr)
     return out
+
+
+def brute_force_episodes(
+    snaps: Snapshots, groups, min_size: int, min_snaps: int, tol: int
+) -> set[tuple[frozenset, int, int, int]]:
+    """Return the maximal episodes {(members, start, end, together)} by the definition.
+
+    Every set of objects is tried on its own, snapshot by snapshot (exponential in
+    the number of objects: for tiny scenes only). A set S is together at snapshot t
+    when some group there holds at least ``min_size`` of its members and every other
+    member has no data at t, has been missing for at most ``tol`` snapshots and was
+    together with S at its last fix. Runs of together snapshots whose gaps are at most
+    ``tol`` snapshots are episodes from their first together snapshot to the last
+    snapshot, up to their last together one, at which every member has data, kept
+    when both that span and the number of together snapshots in it reach
+    ``min_snaps``; then those contained in another (members and span) are dropped.
+    """
+    n_obj, n_snap = len(snaps.objects), snaps.n_snapshots
+    present = np.zeros((n_snap, n_obj), dtype=bool)
+    present[snaps.snap, snaps.obj] = True
+    at = [[] for _ in range(n_snap)]
+    for g in range(groups.n_groups):
+        members = snaps.obj[groups.entries[groups.offsets[g] : groups.offsets[g + 1]]]
+        at[int(groups.snap[g])].append(frozenset(members.tolist()))
+
+    @functools.cache
+    def together(s: frozenset, t: int) -> bool:
+        for group in at[t]:
+            if len(s & group) < min_size:
+                continue
+            excused = True
+            for m in s - group:
+                before = np.flatnonzero(present[:t, m])
+                if (present[t, m] or before.size == 0 or t - before[-1] > tol
+                        or not together(s, int(before[-1]))):  # fmt: skip
+                    excused = False
+                    break
+            if excused:
+                return True
+        return False
+
+    records = []
+    for size in range(min_size, n_obj + 1):
+        for combo in itertools.combinations(range(n_obj), size):
+            s = frozenset(combo)
+            runs: list[list[int]] = []
+            for t in range(n_snap):
+                if together(s, t):
+                    if runs and t - runs[-1][1] - 1 <= tol:
+                        runs[-1][1] = t
+                    else:
+                        runs.append([t, t])
+            for start, seen in runs:
+                full = [t for t in range(start, seen + 1) if present[t, list(s)].all()]
+                if not full:
+                    continue
+                end = full[-1]
+                count = sum(together(s, t) for t in range(start, end + 1))
+                if end - start + 1 >= min_snaps and count >= min_snaps:
+                    records.append((s, start, end, count))
+    return {
+        r for r in records
+        if not any(o != r and r[0] <= o[0] and o[1] <= r[1] and r[2] <= o[2] for o in records)
+    }  # fmt: skip

@@ -7,7 +7,7 @@ import pandas as pd
 import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
-from scenes import grid_scene
+from scenes import brute_force_episodes, grid_scene
 
 from comove.episodes import EpisodeParams, episode_table, find_episodes, role_rollup
 from comove.errors import InputError
@@ -245,6 +245,122 @@ def test_episodes_are_maximal_and_invariant(scene, tol, shift):
         for m, s, e in zip(found2.members, found2.start, found2.end, strict=True)
     }
     assert relabelled == original
+
+
+def found_set(found):
+    return {
+        (frozenset(m.tolist()), int(s), int(e), int(c))
+        for m, s, e, c in zip(found.members, found.start, found.end, found.together, strict=True)
+    }
+
+
+@settings(max_examples=150, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(
+    scene=scenes,
+    tol=st.integers(0, 3),
+    min_snaps=st.integers(1, 4),
+    min_size=st.integers(2, 3),
+    mode=st.sampled_from(["component", "clique", "dbscan"]),
+    p_present=st.sampled_from([1.0, 0.8, 0.6]),
+)
+def test_episodes_equal_a_brute_force_search_of_the_definition(
+    scene, tol, min_snaps, min_size, mode, p_present
+):
+    # every set of objects tried on its own, snapshot by snapshot (tests/scenes.py), with
+    # missing data, in every group mode: the same episodes, spans and times together
+    rng, n_obj, n_snap = scene
+    x, y, present = random_walkers(rng, n_obj, n_snap)
+    present = rng.random((n_snap, n_obj)) < p_present
+    present[0] = True  # every object exists
+    snaps = walk_scene(x, y, n_obj, present)
+    gp = GroupParams(radius=1.5, max_heading=None, max_speed_ratio=None, mode=mode,
+                     min_members=3 if mode == "dbscan" else 2)  # fmt: skip
+    groups_ = snapshot_groups(snaps, linked_pairs(neighbour_pairs(snaps, 1.5),
+                                                  entry_motion(snaps), gp), gp)  # fmt: skip
+    params = EpisodeParams(min_size=min_size, min_duration=float(min_snaps), tolerance=float(tol))
+    found = find_episodes(snaps, groups_, params)
+    assert found_set(found) == brute_force_episodes(snaps, groups_, min_size, min_snaps, tol)
+
+
+def test_time_apart_does_not_count_towards_the_minimum_duration():
+    # together 3 s, apart 2 s (tolerated), together 3 s: an 8 s episode, 6 s together
+    t = np.arange(8.0)
+    apart = (t >= 3) & (t < 5)
+    x = np.column_stack([t, t])
+    y = np.column_stack([np.zeros(8), np.where(apart, 20.0, 0.5)])
+    snaps = walk_scene(x, y, 2)
+    _, table = episodes_of(snaps, tolerance=2.0, min_duration=6.0)
+    assert table[["duration_s", "together_s"]].values.tolist() == [[8.0, 6.0]]
+    assert episodes_of(snaps, tolerance=2.0, min_duration=7.0)[1].empty  # the span is 8 s
+
+
+def test_a_missing_member_is_excused_while_briefly_missing():
+    # 0, 1 and 2 walk together; 2 has no data at t = 4, 5 (a missed fix), then is back
+    t = np.arange(10.0)
+    x = np.column_stack([t, t, t])
+    y = np.column_stack([np.zeros(10), np.full(10, 0.5), np.ones(10)])
+    present = np.ones((10, 3), dtype=bool)
+    present[4:6, 2] = False
+    snaps = walk_scene(x, y, 3, present)
+    # its absence is not separation: one trio episode, all 10 s together
+    assert found_set(episodes_of(snaps, tolerance=2.0)[0]) == {(frozenset({0, 1, 2}), 0, 9, 10)}
+    # with no tolerance it is: two trio episodes, and the pair that walked on throughout
+    assert found_set(episodes_of(snaps, tolerance=0.0)[0]) == {
+        (frozenset({0, 1, 2}), 0, 3, 4),
+        (frozenset({0, 1, 2}), 6, 9, 4),
+        (frozenset({0, 1}), 0, 9, 10),
+    }
+    # 2 walks away when it is back: the trio ends at its last fix, the pair goes on
+    y[6:, 2] = 40.0
+    assert found_set(episodes_of(walk_scene(x, y, 3, present), tolerance=2.0)[0]) == {
+        (frozenset({0, 1, 2}), 0, 3, 4),
+        (frozenset({0, 1}), 0, 9, 10),
+    }
+
+
+def test_a_part_keeps_its_missing_members():
+    # {0, 1, 3} is together at t = 0 (inside {0, 1, 2, 3}), at 1 (0 missing, excused),
+    # apart at 2 (0 is with 2 instead), together at 3 (3 missing since 1, excused) and
+    # at 5: one episode over 0..5 with 4 s together, though no group ever held all three
+    # between 0 and 5 and the set {0, 1, 3} is never a group's intersection with another
+    far = 100.0
+    x = np.array([
+        [0, 1, 2, 3],
+        [far, 0, 2 * far, 1],
+        [0, far, 1, 3 * far],
+        [0, 1, 2 * far, 3 * far],
+        [far, 0, 1, 2],
+        [0, 1, 2 * far, 2],
+    ], dtype=float)  # fmt: skip
+    y = np.zeros_like(x)
+    present = np.ones((6, 4), dtype=bool)
+    present[1, 0] = present[2, 3] = present[3, 3] = False
+    snaps = walk_scene(x, y, 4, present)
+    gp = GroupParams(radius=1.5, max_heading=None, max_speed_ratio=None)
+    groups_ = snapshot_groups(snaps, linked_pairs(neighbour_pairs(snaps, 1.5),
+                                                  entry_motion(snaps), gp), gp)  # fmt: skip
+    found = found_set(find_episodes(snaps, groups_, EpisodeParams(min_duration=4.0,
+                                                                  tolerance=2.0)))  # fmt: skip
+    assert (frozenset({0, 1, 3}), 0, 5, 4) in found
+    assert found == brute_force_episodes(snaps, groups_, 2, 4, 2)
+
+
+def test_many_objects_give_the_same_episodes():
+    # past 63 objects member sets no longer fit one machine word: the same episodes
+    # when 70 far-away bystanders are added in front of the walkers
+    rng = np.random.default_rng(3)
+    x, y, present = random_walkers(rng, 5, 30)
+    present = rng.random((30, 5)) < 0.8
+    present[0] = True
+    snaps = walk_scene(x, y, 5, present)
+    found, _ = episodes_of(snaps, radius=1.5, tolerance=2.0, min_duration=2.0)
+    n_far = 70
+    far_x = np.tile(1000.0 * np.arange(1, n_far + 1), (30, 1))
+    wide = walk_scene(np.hstack([far_x, x]), np.hstack([far_x, y]), n_far + 5,
+                      np.hstack([np.ones((30, n_far), bool), present]))  # fmt: skip
+    found_wide, _ = episodes_of(wide, radius=1.5, tolerance=2.0, min_duration=2.0)
+    shifted = {(frozenset(m + n_far for m in ms), s, e, c) for ms, s, e, c in found_set(found)}
+    assert found.n_episodes > 0 and found_set(found_wide) == shifted
 
 
 def test_bad_episode_settings():
