@@ -9,6 +9,8 @@ which is far faster than one tree per snapshot when snapshots hold few objects.
 
 from __future__ import annotations
 
+import os
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 
 import numpy as np
@@ -16,8 +18,13 @@ from scipy.spatial import cKDTree
 
 from comove.alignment import Snapshots
 
-#: Entries per k-d tree; bounds the memory of the search (a few hundred MB).
-DEFAULT_CHUNK_ENTRIES = 4_000_000
+#: Entries per k-d tree. Bounds the memory of the search; smaller trees are also
+#: built faster per entry (measured at 25 Hz with 23 objects: 0.25 s to build one
+#: tree of 3.1 M entries against 0.15 s for two of 1.55 M, and flat below 1 M).
+DEFAULT_CHUNK_ENTRIES = 500_000
+
+#: Most entries searched in one call: pair keys i * n + j must fit in int64.
+MAX_ENTRIES = 3_000_000_000
 
 
 @dataclass
@@ -48,7 +55,10 @@ class NeighbourPairs:
 
 
 def neighbour_pairs(
-    snaps: Snapshots, radius: float, chunk_entries: int = DEFAULT_CHUNK_ENTRIES
+    snaps: Snapshots,
+    radius: float,
+    chunk_entries: int = DEFAULT_CHUNK_ENTRIES,
+    workers: int = 1,
 ) -> NeighbourPairs:
     """Return all pairs of entries in the same snapshot within ``radius`` metres.
 
@@ -58,8 +68,13 @@ def neighbour_pairs(
         Aligned snapshots.
     radius : float
         Distance in metres; inclusive.
-    chunk_entries : int, default 4_000_000
-        Approximate number of entries searched with one tree.
+    chunk_entries : int, default 500_000
+        Largest number of entries searched with one tree.
+    workers : int, default 1
+        Threads searching chunks at the same time (the k-d tree releases the
+        interpreter lock); -1 means one per processor. With more than one, the
+        entries are cut into at least that many chunks. The result does not
+        depend on it.
 
     Returns
     -------
@@ -72,7 +87,7 @@ def neighbour_pairs(
     coordinates and then re-tested on the original coordinates, so the
     inclusive ``<= radius`` test is exact and unaffected by the shift's
     rounding. Time is O(E log E) for E entries in a chunk plus the output;
-    memory is O(E + pairs).
+    memory is O(E + pairs) per chunk searched at once.
 
     References
     ----------
@@ -85,33 +100,40 @@ def neighbour_pairs(
     empty = np.empty(0, dtype=np.int64)
     if n < 2:
         return NeighbourPairs(empty, empty, float(radius))
+    if n > MAX_ENTRIES:
+        raise ValueError(f"more than {MAX_ENTRIES} entries: search them in time chunks")
+    workers = (os.cpu_count() or 1) if workers == -1 else max(1, int(workers))
 
     x0 = snaps.x - snaps.x.min()
     pitch = float(x0.max()) + 2.0 * radius + 1.0  # shift between consecutive snapshots
     offsets = snaps.offsets()
     # cut at snapshot boundaries so that every snapshot is searched whole
-    bounds = np.unique(
-        np.append(offsets[np.searchsorted(offsets, np.arange(0, n, chunk_entries))], n)
-    )
-    found_i, found_j = [], []
+    size = max(1, min(chunk_entries, -(-n // workers)))
+    bounds = np.unique(np.append(offsets[np.searchsorted(offsets, np.arange(0, n, size))], n))
     widened = radius * (1.0 + 1e-9) + 1e-9
-    for lo, hi in zip(bounds[:-1], bounds[1:], strict=True):
+
+    def search(lo: int, hi: int) -> np.ndarray:
+        """Return the sorted pair keys i * n + j (i < j) of entries lo..hi-1."""
         s = snaps.snap[lo:hi]
         xs = x0[lo:hi] + (s - s[0]) * pitch
         tree = cKDTree(
             np.column_stack([xs, snaps.y[lo:hi]]), balanced_tree=False, compact_nodes=False
         )
-        pairs = tree.query_pairs(widened, output_type="ndarray").astype(np.int64)
-        if pairs.size == 0:
-            continue
+        pairs = tree.query_pairs(widened, output_type="ndarray")
+        del tree
         a, b = pairs[:, 0] + lo, pairs[:, 1] + lo
         keep = (snaps.x[a] - snaps.x[b]) ** 2 + (snaps.y[a] - snaps.y[b]) ** 2 <= radius * radius
         a, b = a[keep], b[keep]
-        found_i.append(np.minimum(a, b))
-        found_j.append(np.maximum(a, b))
-    if not found_i:
-        return NeighbourPairs(empty, empty, float(radius))
-    i = np.concatenate(found_i)
-    j = np.concatenate(found_j)
-    order = np.lexsort((j, i))
-    return NeighbourPairs(i[order], j[order], float(radius))
+        keys = np.minimum(a, b).astype(np.int64) * n + np.maximum(a, b)
+        keys.sort()
+        return keys
+
+    chunks = list(zip(bounds[:-1].tolist(), bounds[1:].tolist(), strict=True))
+    if workers > 1 and len(chunks) > 1:
+        with ThreadPoolExecutor(max_workers=min(workers, len(chunks))) as pool:
+            found = list(pool.map(lambda c: search(*c), chunks))
+    else:
+        found = [search(lo, hi) for lo, hi in chunks]
+    # chunks hold consecutive entries, so their sorted keys concatenate in order
+    keys = np.concatenate(found) if found else empty
+    return NeighbourPairs(keys // n, keys % n, float(radius))

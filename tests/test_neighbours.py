@@ -11,8 +11,8 @@ from comove.neighbours import neighbour_pairs
 
 
 @pytest.mark.parametrize("seed", range(4))
-@pytest.mark.parametrize("chunk", [7, 4_000_000])
-def test_pairs_equal_scikit_learn_radius_neighbors_graph(seed, chunk):
+@pytest.mark.parametrize(("chunk", "workers"), [(7, 1), (7, 3), (4_000_000, 1), (50, -1)])
+def test_pairs_equal_scikit_learn_radius_neighbors_graph(seed, chunk, workers):
     # reference: sklearn.neighbors.radius_neighbors_graph per snapshot (distances <= radius)
     rng = np.random.default_rng(seed)
     n_snap, n_obj, radius = 25, 12, 3.0
@@ -20,7 +20,7 @@ def test_pairs_equal_scikit_learn_radius_neighbors_graph(seed, chunk):
     y = rng.uniform(-20, 20, (n_snap, n_obj))
     present = rng.random((n_snap, n_obj)) < 0.85
     snaps = grid_scene(x, y, np.zeros_like(present, dtype=int), present, 1)
-    pairs = neighbour_pairs(snaps, radius, chunk_entries=chunk)
+    pairs = neighbour_pairs(snaps, radius, chunk_entries=chunk, workers=workers)
     expected = set()
     offsets = snaps.offsets()
     for s in range(snaps.n_snapshots):
@@ -33,6 +33,8 @@ def test_pairs_equal_scikit_learn_radius_neighbors_graph(seed, chunk):
     assert set(zip(pairs.i.tolist(), pairs.j.tolist(), strict=True)) == expected
     assert len(expected) > 0
     assert np.all(snaps.snap[pairs.i] == snaps.snap[pairs.j])
+    # sorted by i, then j, however the entries were cut and searched
+    assert np.all(np.diff(pairs.i * snaps.n_entries + pairs.j) > 0)
 
 
 def test_radius_is_inclusive_even_far_from_the_origin():
