@@ -156,13 +156,14 @@ def linked_pairs(pairs: NeighbourPairs, motion: Motion, params: GroupParams) -> 
         The linked pairs (a subset of ``pairs``, same order).
     """
     i, j = pairs.i, pairs.j
-    si, sj = motion.speed[i], motion.speed[j]
+    xi, yi, xj, yj = motion.vx[i], motion.vy[i], motion.vx[j], motion.vy[j]
+    si, sj = np.hypot(xi, yi), np.hypot(xj, yj)
     with np.errstate(invalid="ignore"):
         moving = (si > params.min_speed) & (sj > params.min_speed)
     keep = np.ones(i.size, dtype=bool)
     if params.max_heading is not None:
-        # smallest angle between the headings, in [0, pi]
-        diff = np.abs((motion.heading[i] - motion.heading[j] + np.pi) % (2 * np.pi) - np.pi)
+        # the angle between the velocities, in [0, pi], from their cross and dot products
+        diff = np.arctan2(np.abs(xi * yj - yi * xj), xi * xj + yi * yj)
         keep &= ~moving | (np.degrees(diff) <= params.max_heading + 1e-9)
     if params.max_speed_ratio is not None:
         with np.errstate(invalid="ignore", divide="ignore"):

@@ -10,6 +10,7 @@ its velocity is unknown (NaN).
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 
@@ -24,17 +25,23 @@ class Motion:
     ----------
     vx, vy : ndarray of float64
         Velocity components in metres per second (NaN where unknown).
-    speed : ndarray of float64
-        Speed in metres per second (NaN where unknown).
-    heading : ndarray of float64
-        Direction of travel in radians, counter-clockwise from +x (NaN where
-        unknown).
     """
 
     vx: np.ndarray
     vy: np.ndarray
-    speed: np.ndarray
-    heading: np.ndarray
+
+    @cached_property
+    def speed(self) -> np.ndarray:
+        """Return the speed of every entry in m/s (NaN where unknown), computed once."""
+        return np.hypot(self.vx, self.vy)
+
+    @cached_property
+    def heading(self) -> np.ndarray:
+        """Return each entry's direction of travel in radians, computed once.
+
+        Counter-clockwise from +x; NaN where the velocity is unknown.
+        """
+        return np.arctan2(self.vy, self.vx)
 
 
 def entry_motion(snaps: Snapshots, window_s: float = 1.0) -> Motion:
@@ -56,33 +63,47 @@ def entry_motion(snaps: Snapshots, window_s: float = 1.0) -> Motion:
 
     Notes
     -----
-    Vectorised: entries are put in (object, snapshot) order once, stretches of
-    consecutive presence are labelled with a cumulative sum, and each entry's
-    window ends are clipped to its stretch. O(n log n) for n entries.
+    Vectorised: entries are put in (object, snapshot) order once (a radix sort
+    of object codes), stretches of consecutive presence are found from the
+    breaks in that order, and each entry's window ends are clipped to its
+    stretch. O(n) time for n entries with fewer than 2**15 objects (else
+    O(n log n)); a dozen arrays of n numbers at most.
     """
     n = snaps.n_entries
     half = max(1, int(round(window_s / snaps.step_s / 2)))
-    index = np.int32 if n < 2**31 else np.int64  # half the memory traffic of int64
     # stable, so snapshot order is kept within objects; small codes take numpy's radix sort
     codes = snaps.obj.astype(np.int16) if len(snaps.objects) < 2**15 else snaps.obj
-    order = np.argsort(codes, kind="stable").astype(index)
-    obj, snap = snaps.obj[order], snaps.snap[order]
-    new_run = np.ones(n, dtype=bool)
-    np.not_equal(obj[1:], obj[:-1], out=new_run[1:])
-    new_run[1:] |= snap[1:] != snap[:-1] + 1
-    starts = np.flatnonzero(new_run).astype(index)
-    lengths = np.diff(np.append(starts, n)).astype(index)
-    run_start = np.repeat(starts, lengths)
-    run_end = run_start + np.repeat(lengths - 1, lengths)
-    pos = np.arange(n, dtype=index)
-    lo = np.maximum(pos - half, run_start, out=run_start)
-    hi = np.minimum(pos + half, run_end, out=run_end)
-    span = (snap[hi] - snap[lo]) * snaps.step_s
-    at_hi, at_lo = order[hi], order[lo]  # entry indices of each window's ends
-    with np.errstate(invalid="ignore", divide="ignore"):
-        per_second = np.where(span > 0, 1.0 / span, np.nan)
-    vx = np.empty(n)
-    vy = np.empty(n)
-    vx[order] = (snaps.x[at_hi] - snaps.x[at_lo]) * per_second
-    vy[order] = (snaps.y[at_hi] - snaps.y[at_lo]) * per_second
-    return Motion(vx=vx, vy=vy, speed=np.hypot(vx, vy), heading=np.arctan2(vy, vx))
+    order = np.argsort(codes, kind="stable")
+    snap = snaps.snap[order]
+    # stretches of consecutive presence of one object, in (object, snapshot) order
+    new_run = np.empty(n, dtype=bool)
+    new_run[:1] = True
+    np.not_equal(codes[order[1:]], codes[order[:-1]], out=new_run[1:])
+    new_run[1:] |= (snap[1:] - snap[:-1]) != 1
+    starts = np.flatnonzero(new_run)
+    del new_run
+    lengths = np.diff(starts, append=n)
+    # each window's ends, clipped to its stretch (in place: fewer large temporaries)
+    lo = np.repeat(starts, lengths)
+    hi = lo + np.repeat(lengths - 1, lengths)
+    pos = np.arange(n)
+    np.maximum(pos - half, lo, out=lo)
+    pos += half
+    np.minimum(pos, hi, out=hi)
+    del pos
+    per_second = (snap[hi] - snap[lo]).astype(np.float64)
+    per_second *= snaps.step_s
+    with np.errstate(divide="ignore"):
+        np.divide(1.0, per_second, out=per_second)
+    per_second[np.isinf(per_second)] = np.nan  # a stretch of one snapshot
+    velocity = []
+    for coord in (snaps.x, snaps.y):
+        along = coord[order]
+        diff = along[hi]
+        diff -= along[lo]
+        diff *= per_second
+        v = np.empty(n)
+        v[order] = diff
+        velocity.append(v)
+    vx, vy = velocity
+    return Motion(vx=vx, vy=vy)

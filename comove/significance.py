@@ -73,7 +73,8 @@ class SignificanceParams:
     alpha : float, default 0.05
         False discovery rate for the ``significant`` column.
     jobs : int or None, default None
-        Worker processes; ``None`` uses every core.
+        Worker processes for the null replicates, and threads for the
+        neighbour search of the observed data; ``None`` uses every core.
     """
 
     permutations: int = field(
@@ -93,7 +94,11 @@ class SignificanceParams:
     )  # fmt: skip
     seed: int | None = field(default=None, metadata={"help": "seed of the null replicates"})
     alpha: float = field(default=0.05, metadata={"help": "false discovery rate for `significant`"})
-    jobs: int | None = field(default=None, metadata={"help": "worker processes (default: all)"})
+    jobs: int | None = field(
+        default=None,
+        metadata={"help": "worker processes (null replicates) and threads (neighbour "
+                  "search) (default: all cores)"},
+    )  # fmt: skip
 
     def __post_init__(self) -> None:
         if int(self.permutations) != self.permutations or self.permutations < 0:
@@ -535,7 +540,7 @@ class GroupStatistic:
         ``object_a * n_objects + object_b`` of each tested pair.
     labels : tuple of str
         Tested role sets of episodes (role names sorted, joined by ';').
-    speed, heading : ndarray
+    vx, vy : ndarray
         Observed velocity of every entry, carried along with the entries.
     """
 
@@ -543,19 +548,19 @@ class GroupStatistic:
     episodes: Any
     pair_keys: np.ndarray
     labels: tuple[str, ...]
-    speed: np.ndarray
-    heading: np.ndarray
+    vx: np.ndarray
+    vy: np.ndarray
 
     def __call__(self, model: NullModel, rng: np.random.Generator) -> np.ndarray:
         """Return [time together of each pair, episodes of each role set] in one replicate."""
         snaps, order = model.draw(rng)
-        speed = self.speed if order is None else self.speed[order]
-        heading = self.heading if order is None else self.heading[order]
-        return group_statistics(snaps, self, speed, heading)
+        vx = self.vx if order is None else self.vx[order]
+        vy = self.vy if order is None else self.vy[order]
+        return group_statistics(snaps, self, vx, vy)
 
 
-def group_statistics(snaps: Snapshots, stat: GroupStatistic, speed: np.ndarray,
-                     heading: np.ndarray) -> np.ndarray:  # fmt: skip
+def group_statistics(snaps: Snapshots, stat: GroupStatistic, vx: np.ndarray,
+                     vy: np.ndarray) -> np.ndarray:  # fmt: skip
     """Return [snapshots together per tested pair, episodes per tested role set]."""
     from comove.episodes import find_episodes
     from comove.grouping import linked_pairs, snapshot_groups
@@ -567,7 +572,7 @@ def group_statistics(snaps: Snapshots, stat: GroupStatistic, speed: np.ndarray,
     a, b = snaps.obj[pairs.i].astype(np.int64), snaps.obj[pairs.j].astype(np.int64)
     counts = np.bincount(np.minimum(a, b) * n_obj + np.maximum(a, b), minlength=n_obj * n_obj)
     together = counts[stat.pair_keys].astype(np.float64)
-    motion = Motion(vx=np.empty(0), vy=np.empty(0), speed=speed, heading=heading)
+    motion = Motion(vx=vx, vy=vy)
     links = linked_pairs(pairs, motion, stat.grouping)
     found = find_episodes(snaps, snapshot_groups(snaps, links, stat.grouping), stat.episodes)
     main = snaps.main_roles()
@@ -621,8 +626,8 @@ def group_tests(
         ";".join(sorted({str(snaps.roles[main[m]]) for m in members}))
         for members in observed_episodes.members
     }))  # fmt: skip
-    stat = GroupStatistic(grouping, episodes, pair_keys, labels, motion.speed, motion.heading)
-    observed = group_statistics(snaps, stat, motion.speed, motion.heading)
+    stat = GroupStatistic(grouping, episodes, pair_keys, labels, motion.vx, motion.vy)
+    observed = group_statistics(snaps, stat, motion.vx, motion.vy)
     null = null_distribution(NullModel(snaps, params), stat, params, progress,
                              label=f"{params.null} replicates")  # fmt: skip
     k = pair_keys.size
