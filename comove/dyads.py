@@ -115,19 +115,20 @@ def _shared_and_distance_sums(snaps: Snapshots, n_obj: int) -> tuple[np.ndarray,
     return np.rint(shared).astype(np.int64), dist_sum
 
 
-def _subsample_sizes(n_a: int, n_b: int, cap: int) -> tuple[int, int]:
+def _subsample_sizes(n_a: np.ndarray, n_b: np.ndarray, cap: int) -> tuple[np.ndarray, np.ndarray]:
     """Return track sample sizes (m_a, m_b) with m_a * m_b <= cap, as balanced as possible.
 
     Both tracks are thinned by the same factor sqrt(cap / (n_a n_b)); a track
     that would drop below one fix keeps one, and the other takes up the slack.
+    Element-wise over arrays of pairs.
     """
-    if n_a * n_b <= cap:
-        return n_a, n_b
-    f = np.sqrt(cap / (n_a * n_b))
-    m_a = int(min(n_a, max(1, np.floor(n_a * f))))
-    m_b = int(min(n_b, max(1, cap // m_a)))
-    m_a = int(min(n_a, max(1, cap // m_b)))
-    return m_a, m_b
+    n_a, n_b = np.asarray(n_a, dtype=np.int64), np.asarray(n_b, dtype=np.int64)
+    f = np.sqrt(cap / (n_a * n_b).astype(np.float64))
+    m_a = np.minimum(n_a, np.maximum(1, np.floor(n_a * f).astype(np.int64)))
+    m_b = np.minimum(n_b, np.maximum(1, cap // m_a))
+    m_a = np.minimum(n_a, np.maximum(1, cap // m_b))
+    small = n_a * n_b <= cap
+    return np.where(small, n_a, m_a), np.where(small, n_b, m_b)
 
 
 def _even_sample(n: int, m: int) -> np.ndarray:
@@ -144,25 +145,36 @@ def _expected_distances(
     by_obj = np.argsort(snaps.obj.astype(small), kind="stable")
     counts = np.bincount(snaps.obj, minlength=n_obj)
     start = np.concatenate([[0], np.cumsum(counts)])
-    xy = np.column_stack([snaps.x, snaps.y])
     cache: dict[tuple[int, int], np.ndarray] = {}
 
     def track(o: int, m: int) -> np.ndarray:
         if (o, m) not in cache:
             entries = by_obj[start[o] : start[o + 1]]
-            cache[(o, m)] = xy[entries[_even_sample(entries.size, m)]]
+            picked = entries[_even_sample(entries.size, m)]
+            cache[(o, m)] = np.column_stack([snaps.x[picked], snaps.y[picked]])
         return cache[(o, m)]
 
-    out = np.empty(a.size, dtype=np.float64)
-    for k in range(a.size):  # per pair of objects
-        m_a, m_b = _subsample_sizes(int(counts[a[k]]), int(counts[b[k]]), cap)
-        pa, pb = track(int(a[k]), m_a), track(int(b[k]), m_b)
-        rows = max(1, EXPECTED_BLOCK // m_b)
-        total = 0.0
-        for r0 in range(0, m_a, rows):  # per block of rows, to bound memory
-            total += float(cdist(pa[r0 : r0 + rows], pb).sum())
-        out[k] = total / (m_a * m_b)
-    return out
+    m_a, m_b = _subsample_sizes(counts[a], counts[b], cap)
+    total = np.zeros(a.size, dtype=np.float64)
+    # pairs sharing a first track and its sample size: one cdist against the concatenated
+    # samples of their second tracks, in batches that bound the memory
+    order = np.lexsort((b, m_a, a))
+    key = a[order] * (int(m_a.max()) + 1) + m_a[order]
+    cuts = np.flatnonzero(np.diff(key)) + 1
+    for group in np.split(order, cuts):  # per (first track, sample size)
+        rows_of_a = track(int(a[group[0]]), int(m_a[group[0]]))
+        cols = m_b[group]
+        budget = max(EXPECTED_BLOCK // rows_of_a.shape[0], int(cols.max()))
+        batch = np.cumsum(cols) // budget  # consecutive partners, about budget columns each
+        for part in np.split(group, np.flatnonzero(np.diff(batch)) + 1):
+            partners = np.concatenate([track(int(b[k]), int(m_b[k])) for k in part])
+            step = max(1, EXPECTED_BLOCK // partners.shape[0])
+            colsum = np.zeros(partners.shape[0])
+            for r0 in range(0, rows_of_a.shape[0], step):  # per block of rows
+                colsum += cdist(rows_of_a[r0 : r0 + step], partners).sum(axis=0)
+            starts = np.concatenate([[0], np.cumsum(m_b[part])[:-1]])
+            total[part] = np.add.reduceat(colsum, starts)
+    return total / (m_a * m_b)
 
 
 def _empty_table() -> pd.DataFrame:
@@ -292,7 +304,12 @@ def dyad_table(
     row = np.searchsorted(a.astype(np.int64) * n_obj + b, pair_key)
     snap = snaps.snap[together.i]
     n_snap = max(snaps.n_snapshots, 1)
-    if n_rows * n_snap < 2**62:
+    if n_rows < 2**15 and np.all(snap[1:] >= snap[:-1]):
+        # pairs in entry order are in snapshot order: a stable sort by row suffices,
+        # which numpy does as a radix sort for 16-bit codes
+        order = np.argsort(row.astype(np.int16), kind="stable")
+        row, snap = row[order], snap[order]
+    elif n_rows * n_snap < 2**62:
         key = np.sort(row * n_snap + snap)
         row, snap = key // n_snap, key % n_snap
     else:

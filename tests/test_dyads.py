@@ -11,6 +11,7 @@ import pytest
 from scenes import grid_scene
 from scipy.spatial.distance import cdist
 
+from comove import dyads
 from comove.dyads import (
     DYAD_COLUMNS,
     _even_sample,
@@ -256,7 +257,11 @@ def exact_de(snaps, a: int, b: int) -> float:
 
 
 @pytest.mark.parametrize("seed", range(3))
-def test_expected_distance_exact_under_the_cap(seed: int):
+@pytest.mark.parametrize("blocks", [None, 7])
+def test_expected_distance_exact_under_the_cap(seed: int, blocks, monkeypatch):
+    if blocks:  # tiny batches of distances: the same numbers
+        monkeypatch.setattr(dyads, "EXPECTED_BLOCK", blocks)
+        monkeypatch.setattr(dyads, "DISTANCE_BLOCK", blocks)
     snaps = random_scene(seed)
     table = dyad_table(snaps, neighbour_pairs(snaps, 3.0))
     codes = {str(name): k for k, name in enumerate(snaps.objects)}
