@@ -27,7 +27,6 @@ and the scheme runs per span rather than per snapshot.
 
 from __future__ import annotations
 
-import warnings
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -711,6 +710,8 @@ def episode_table(
         Per episode: snapshot time (ns), centroid x and y in the working plane.
     """
     lookup = _EntryLookup(snaps)
+    n_roles = len(snaps.roles)
+    pairs_of: dict[int, tuple[np.ndarray, np.ndarray]] = {}  # size -> member index pairs
     rows = []
     paths = []
     ids = [f"E{k + 1:04d}" for k in range(episodes.n_episodes)]
@@ -719,22 +720,27 @@ def episode_table(
         s = np.arange(episodes.start[k], episodes.end[k] + 1)
         entry = lookup.entries(s, members)
         present = entry >= 0
-        ex = np.where(present, snaps.x[np.maximum(entry, 0)], np.nan)
-        ey = np.where(present, snaps.y[np.maximum(entry, 0)], np.nan)
+        safe = np.maximum(entry, 0)  # absent cells read entry 0, masked out below
+        ex, ey = snaps.x[safe], snaps.y[safe]
         n_present = present.sum(axis=1)
-        with np.errstate(invalid="ignore", divide="ignore"):  # a tolerated gap: no data
-            cx = np.where(present, ex, 0.0).sum(axis=1) / n_present
-            cy = np.where(present, ey, 0.0).sum(axis=1) / n_present
-        iu, ju = np.triu_indices(members.size, 1)
+        observed = n_present > 0  # in a tolerated gap no member may have data
+        with np.errstate(invalid="ignore", divide="ignore"):
+            cx = (ex * present).sum(axis=1) / n_present
+            cy = (ey * present).sum(axis=1) / n_present
+        if members.size not in pairs_of:
+            pairs_of[members.size] = np.triu_indices(members.size, 1)
+        iu, ju = pairs_of[members.size]
+        both = present[:, iu] & present[:, ju]
         d = np.hypot(ex[:, iu] - ex[:, ju], ey[:, iu] - ey[:, ju])
-        fast = present & (motion.speed[np.maximum(entry, 0)] > min_speed)
-        with warnings.catch_warnings():  # snapshots with one member present have no spacing
-            warnings.simplefilter("ignore", RuntimeWarning)
-            per_snap_spacing = np.nanmean(d, axis=1) if d.size else np.full(s.size, np.nan)
+        d[~both] = 0.0
+        n_both = both.sum(axis=1)
+        spaced = n_both > 0  # snapshots with one member present have no spacing
+        spacing = d.sum(axis=1)[spaced] / n_both[spaced]
         # most present members faster than min_speed (NaN speeds count as not moving)
+        fast = present & (motion.speed[safe] > min_speed)
         moving = 2 * fast.sum(axis=1) > n_present
-        observed = np.isfinite(cx)
-        roles = sorted(str(r) for r in snaps.roles[np.unique(snaps.role[entry[present]])])
+        role_codes = np.flatnonzero(np.bincount(snaps.role[entry[present]], minlength=n_roles))
+        roles = sorted(str(r) for r in snaps.roles[role_codes])
         rows.append(
             {
                 "episode": ids[k],
@@ -745,8 +751,8 @@ def episode_table(
                 "size": int(members.size),
                 "members": MEMBER_SEP.join(str(snaps.objects[m]) for m in members),
                 "roles": MEMBER_SEP.join(roles),
-                "mean_spacing_m": float(np.nanmean(per_snap_spacing)),
-                "max_spacing_m": float(np.nanmax(d)) if np.isfinite(d).any() else np.nan,
+                "mean_spacing_m": float(spacing.mean()) if spacing.size else np.nan,
+                "max_spacing_m": float(d.max()) if spacing.size else np.nan,
                 "moving_share": float(moving[observed].mean()) if observed.any() else np.nan,
                 "came_from": MEMBER_SEP.join(ids[f] for f in episodes.came_from[k]),
                 "went_into": MEMBER_SEP.join(ids[f] for f in episodes.went_into[k]),
