@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import os
 from collections.abc import Iterator
+from concurrent.futures import ThreadPoolExecutor
 from contextlib import contextmanager
 from dataclasses import dataclass, field, fields
 from pathlib import Path
@@ -202,7 +203,7 @@ class MiningResult:
         tested) when significance tests ran, and ``cross_k.csv`` when asked for.
         """
         files = {
-            "track_sample.parquet": parquet_writer(_sample(self.snapshots)),
+            "track_sample.parquet": parquet_writer(lambda: _sample(self.snapshots)),
             "patterns.csv": csv_writer(self.patterns),
             "participation.csv": csv_writer(self.participation),
             "pi_series.parquet": parquet_writer(self.series),
@@ -256,7 +257,7 @@ def mine(source: Any, *, progress: bool = False, **options: Any) -> MiningResult
     try:
         snaps, quality = _aligned(source, columns, cleaning, alignment, bar)
         with bar.stage("neighbour search"):
-            pairs = neighbour_pairs(snaps, colocation.radius)
+            pairs = neighbour_pairs(snaps, colocation.radius, workers=significance.jobs or -1)
         with bar.stage("co-location"):
             presence = RolePresence(snaps)
             levels = mine_levels(
@@ -381,7 +382,7 @@ class GroupsResult:
         return write_folder(
             out_dir,
             {
-                "track_sample.parquet": parquet_writer(_sample(self.snapshots)),
+                "track_sample.parquet": parquet_writer(lambda: _sample(self.snapshots)),
                 "episodes.csv": csv_writer(self.episodes),
                 "episode_roles.csv": csv_writer(self.roles),
                 "dyads.csv": csv_writer(self.dyads),
@@ -454,19 +455,24 @@ def groups(
         GROUP_STAGES, merged
     )
     significance = significance.resolved()
-    bar = _Progress(progress, total=9)
+    bar = _Progress(progress, total=8 if significance.permutations > 0 else 7)
     try:
         snaps, quality = _aligned(source, columns, cleaning, alignment, bar)
         with bar.stage("neighbour search"):
-            pairs = neighbour_pairs(snaps, grouping.radius)
-        with bar.stage("motion and links"):
-            motion = entry_motion(snaps, grouping.velocity_window)
-            links = linked_pairs(pairs, motion, grouping)
-        with bar.stage("episodes"):
-            found = find_episodes(snaps, snapshot_groups(snaps, links, grouping), episode_params)
-            table, centroids = episode_table(snaps, found, motion, grouping.min_speed)
-        with bar.stage("dyads"):
-            dyads = dyad_table(snaps, pairs)
+            pairs = neighbour_pairs(snaps, grouping.radius, workers=significance.jobs or -1)
+        # The dyads (whole-array numpy, which releases the interpreter lock) are counted
+        # in a helper thread while the velocities and episodes are worked out: all only
+        # read the snapshots and pairs, so the results are those of one after the other.
+        with ThreadPoolExecutor(max_workers=1) as side:
+            counting = side.submit(dyad_table, snaps, pairs)
+            with bar.stage("velocities"):
+                motion = entry_motion(snaps, grouping.velocity_window)
+            with bar.stage("episodes and dyads"):
+                links = linked_pairs(pairs, motion, grouping)
+                groups_at = snapshot_groups(snaps, links, grouping)
+                found = find_episodes(snaps, groups_at, episode_params)
+                table, centroids = episode_table(snaps, found, motion, grouping.min_speed)
+                dyads = counting.result()
         with bar.stage("paths"):
             paths, display = episode_paths(snaps, table, centroids)
         roles = role_rollup(table)

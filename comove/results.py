@@ -13,6 +13,7 @@ import shutil
 import tempfile
 import warnings
 from collections.abc import Callable, Mapping
+from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 from typing import Any
 
@@ -91,11 +92,11 @@ def csv_writer(frame: pd.DataFrame) -> Writer:
     return write
 
 
-def parquet_writer(frame: pd.DataFrame) -> Writer:
-    """Return a writer of ``frame`` as Parquet."""
+def parquet_writer(frame: pd.DataFrame | Callable[[], pd.DataFrame]) -> Writer:
+    """Return a writer of ``frame`` as Parquet (a callable is asked for the frame then)."""
 
     def write(path: Path) -> None:
-        frame.to_parquet(path, index=False)
+        (frame() if callable(frame) else frame).to_parquet(path, index=False)
 
     return write
 
@@ -121,7 +122,31 @@ def geojson_writer(frame: Any) -> Writer:
             warnings.filterwarnings("ignore", message=".*'crs' was not provided")
             out.to_file(path, driver="GeoJSON", engine="pyogrio")
 
+    # changing warning filters is not thread-safe: written on its own (see _run_writers)
+    write.alone = True  # type: ignore[attr-defined]
     return write
+
+
+def _run_writers(jobs: list[tuple[Writer, Path]]) -> None:
+    """Call every writer with its path, a few at a time in threads (each its own file).
+
+    Parquet and CSV writing release the interpreter lock much of the time, so
+    the files of a folder are written side by side; writers marked ``alone``
+    (they change process-wide state such as warning filters) run first, on
+    their own. The first error is raised once every writer has stopped.
+    """
+    for write, target in jobs:
+        if getattr(write, "alone", False):
+            write(target)
+    shared = [(w, t) for w, t in jobs if not getattr(w, "alone", False)]
+    workers = min(len(shared), os.cpu_count() or 1, 4)
+    if workers <= 1:
+        for write, target in shared:
+            write(target)
+        return
+    with ThreadPoolExecutor(max_workers=workers) as pool:
+        for done in [pool.submit(write, target) for write, target in shared]:
+            done.result()
 
 
 def write_folder(
@@ -183,12 +208,14 @@ def write_folder(
                 if old_file.is_file() and (old_file.name not in files or
                                            old_file.name in SHARED_JSON):  # fmt: skip
                     shutil.copy2(old_file, tmp / old_file.name)
+        jobs = []
         for name, write in files.items():
             target = tmp / name
             if merging and name in SHARED_JSON and target.exists() and hasattr(write, "content"):
                 existing = json.loads(target.read_text())
                 write = json_writer(_combined(existing, write.content, merge, prior))
-            write(target)
+            jobs.append((write, target))
+        _run_writers(jobs)
         if out.exists():
             old = Path(tempfile.mkdtemp(prefix=f".{out.name}.old-", dir=out.parent))
             old.rmdir()

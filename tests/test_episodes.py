@@ -9,12 +9,14 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from scenes import brute_force_episodes, grid_scene
 
+from comove.dyads import dyad_table
 from comove.episodes import EpisodeParams, episode_table, find_episodes, role_rollup
 from comove.errors import InputError
 from comove.grouping import GroupParams, linked_pairs, snapshot_groups
 from comove.motion import entry_motion
 from comove.neighbours import neighbour_pairs
-from comove.pipeline import groups
+from comove.pipeline import GROUP_STAGES, groups, split_options
+from comove.presets import preset_values
 from comove.scenarios import SCENARIOS_DIR, load_truth
 
 #: Per scenario: the preset of its kind, and how far (seconds) a found episode's start and
@@ -125,6 +127,23 @@ def test_outputs_have_the_documented_columns(scenario):
     assert len(result.paths) == len(result.episodes)
     assert result.paths.geometry.geom_type.eq("LineString").all()
     assert set(result.roles.columns) >= {"roles", "episodes", "total_seconds", "longest_seconds"}
+
+
+def test_groups_equals_its_stages_run_one_after_another():
+    # the pipeline overlaps the dyads with the episode search in a helper thread and
+    # searches neighbours in several threads: the same tables as plain sequential calls
+    truth, result = run_scenario("small_sided_game", permutations=0, jobs=2)
+    snaps = result.snapshots
+    options = dict(preset_values("team-sport"), radius=truth["parameters"]["radius"])
+    _, _, _, grouping, episode_params, _ = split_options(GROUP_STAGES, options)
+    pairs = neighbour_pairs(snaps, grouping.radius)
+    motion = entry_motion(snaps, grouping.velocity_window)
+    links = linked_pairs(pairs, motion, grouping)
+    found = find_episodes(snaps, snapshot_groups(snaps, links, grouping), episode_params)
+    table, _ = episode_table(snaps, found, motion, grouping.min_speed)
+    assert len(table) > 0
+    pd.testing.assert_frame_equal(result.episodes, table)
+    pd.testing.assert_frame_equal(result.dyads, dyad_table(snaps, pairs))
 
 
 def test_lonlat_input_gives_lonlat_paths():
