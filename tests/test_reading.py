@@ -54,9 +54,8 @@ def _lonlat_gdf(crs: str | int = 4326) -> gpd.GeoDataFrame:
 def _check_standard(raw: RawTracks, coords: str) -> None:
     pair = ["lon", "lat"] if coords == "lonlat" else ["x", "y"]
     assert raw.coords == coords
-    assert list(raw.frame.columns) == ["object", "time", *pair, "role", "source", "row"]
+    assert list(raw.frame.columns) == ["object", "time", *pair, "role", "source"]
     assert raw.frame[pair[0]].dtype == np.float64
-    assert raw.frame["row"].dtype == np.int64
 
 
 # --------------------------------------------------------------------------- formats
@@ -72,7 +71,7 @@ def test_csv_reads_standard_columns(tmp_path: Path) -> None:
     assert raw.frame["time"].iloc[0] == "2026-03-01T12:00:00Z"
     assert raw.frame["x"].tolist() == [0.0, 1.0, 2.0, 10.0, 11.0, 12.0]
     assert raw.frame["source"].astype(str).unique().tolist() == [str(path)]
-    assert raw.frame["row"].tolist() == [1, 2, 3, 4, 5, 6]
+    assert raw.source_rows(np.arange(6)).tolist() == [1, 2, 3, 4, 5, 6]
     assert raw.sources == [str(path.resolve())]
     assert raw.columns == {"id": "player", "time": "t", "x": "x", "y": "y", "role": "role"}
     assert raw.crs is None
@@ -159,7 +158,7 @@ def test_dataframe() -> None:
     _check_standard(raw, "planar")
     assert raw.sources == ["<DataFrame>"]
     assert raw.frame["source"].astype(str).unique().tolist() == ["<DataFrame>"]
-    assert raw.frame["row"].tolist() == [1, 2, 3, 4, 5, 6]
+    assert raw.source_rows(np.arange(6)).tolist() == [1, 2, 3, 4, 5, 6]
 
 
 def test_dataframe_with_odd_index_and_time_index() -> None:
@@ -251,7 +250,7 @@ def test_several_files_and_glob(tmp_path: Path) -> None:
     df.iloc[3:].to_csv(folder / "q2.csv", index=False)
     listed = read_tracks([folder / "p7.csv", folder / "q2.csv"])
     assert listed.frame["object"].tolist() == ["p7"] * 3 + ["q2"] * 3
-    assert listed.frame["row"].tolist() == [1, 2, 3, 1, 2, 3]
+    assert listed.source_rows(np.arange(6)).tolist() == [1, 2, 3, 1, 2, 3]
     assert listed.frame["source"].astype(str).tolist()[-1] == str(folder / "q2.csv")
     assert len(listed.sources) == 2
 
