@@ -17,8 +17,11 @@ its own:
    per snapshot, counting participation from the cliques), timed on a sample
    of snapshots and scaled to the whole match.
 
-Wall time and peak resident memory (ru_maxrss) are printed as a Markdown
-table; paste it into docs/performance.md with the date and machine.
+After one untimed run of each (compiled bytecode, warm file cache), 1-3 run
+in turn for ``--repeat`` rounds, so that every round of each meets the same
+load on a shared machine; the ratios to the reference are medians of the
+per-round ratios. Wall time and peak resident memory (ru_maxrss) are printed as
+a Markdown table; paste it into docs/performance.md with the date and machine.
 """
 
 from __future__ import annotations
@@ -126,6 +129,32 @@ def run_measured(cmd: list[str], repeat: int = 1) -> tuple[float, float, str]:
     return walls[len(walls) // 2], max(r[1] for r in runs), runs[-1][2]
 
 
+def run_rounds(
+    commands: dict[str, list[str]], rounds: int
+) -> dict[str, tuple[list[float], float, str]]:
+    """Run every command once untimed, then ``rounds`` times in turn.
+
+    Returns, per command, its wall times (one per round), peak RSS MiB and the
+    last stdout. Interleaving puts each round of every command under the same
+    load, so that ratios between commands are steadier than their times on a
+    shared machine; the untimed run leaves compiled bytecode and the file cache
+    as a user's second run finds them.
+    """
+    for cmd in commands.values():
+        _run_once(cmd)
+    out: dict[str, tuple[list[float], float, str]] = {k: ([], 0.0, "") for k in commands}
+    for _ in range(rounds):
+        for name, cmd in commands.items():
+            wall, peak, stdout = _run_once(cmd)
+            walls, top, _ = out[name]
+            out[name] = ([*walls, wall], max(top, peak), stdout)
+    return out
+
+
+def _median(values: list[float]) -> float:
+    return float(np.median(values))
+
+
 def _run_once(cmd: list[str]) -> tuple[float, float, str]:
     wrapper = textwrap.dedent("""
         import resource, subprocess, sys, time, json
@@ -137,9 +166,12 @@ def _run_once(cmd: list[str]) -> tuple[float, float, str]:
             sys.stderr.write(p.stderr); sys.exit(p.returncode)
         print(json.dumps({"wall": wall, "peak": peak, "out": p.stdout}))
     """)
+    # bytecode may be written, as on a user's machine (some shells forbid it)
+    env = {k: v for k, v in os.environ.items() if k != "PYTHONDONTWRITEBYTECODE"}
     done = subprocess.run(
-        [sys.executable, "-c", wrapper, *cmd], capture_output=True, text=True, check=True
-    )
+        [sys.executable, "-c", wrapper, *cmd], capture_output=True, text=True, check=True,
+        env=env,
+    )  # fmt: skip
     res = json.loads(done.stdout)
     return res["wall"], res["peak"], res["out"]
 
@@ -150,7 +182,7 @@ def main() -> None:
     parser.add_argument("--minutes", type=float, default=90.0)
     parser.add_argument("--hz", type=float, default=25.0)
     parser.add_argument("--naive-sample", type=int, default=3000)
-    parser.add_argument("--repeat", type=int, default=3, help="runs of each; the median counts")
+    parser.add_argument("--repeat", type=int, default=5, help="timed rounds of each; medians count")
     parser.add_argument(
         "--permutations", type=int, default=0,
         help="also time `comove mine --permutations N` (one run; 199 takes minutes)",
@@ -164,52 +196,25 @@ def main() -> None:
     n_snap = frame["t"].nunique()
     print(f"{len(frame):,} fixes, {n_snap:,} snapshots, {frame['player'].nunique()} objects")
 
-    ref_wall, ref_peak, ref_out = run_measured(
-        [sys.executable, "-c", REFERENCE, str(data), str(RADIUS), str(args.hz)], args.repeat
-    )
     results = args.out / "results"
-    mine_wall, mine_peak, _ = run_measured(
-        [
-            sys.executable,
-            "-m",
-            "comove.cli",
-            "mine",
-            str(data),
-            "--radius",
-            str(RADIUS),
-            "--max-size",
-            "3",
-            "--step",
-            str(1 / args.hz),
-            "--out",
-            str(results),
-            "--force",
-            "--quiet",
-            "--permutations",
-            "0",
-        ],
+    cli = [sys.executable, "-m", "comove.cli"]
+    common = ["--step", str(1 / args.hz), "--force", "--quiet", "--permutations", "0"]
+    measured = run_rounds(
+        {
+            "reference": [sys.executable, "-c", REFERENCE, str(data), str(RADIUS), str(args.hz)],
+            "mine": [*cli, "mine", str(data), "--radius", str(RADIUS), "--max-size", "3",
+                     *common, "--out", str(results)],
+            "groups": [*cli, "groups", str(data), "--preset", "team-sport", *common,
+                       "--out", str(args.out / "groups")],
+        },
         args.repeat,
-    )
-    groups_wall, groups_peak, _ = run_measured(
-        [
-            sys.executable,
-            "-m",
-            "comove.cli",
-            "groups",
-            str(data),
-            "--preset",
-            "team-sport",
-            "--step",
-            str(1 / args.hz),
-            "--out",
-            str(args.out / "groups"),
-            "--force",
-            "--quiet",
-            "--permutations",
-            "0",
-        ],
-        args.repeat,
-    )
+    )  # fmt: skip
+    ref_walls, ref_peak, ref_out = measured["reference"]
+    mine_walls, mine_peak, _ = measured["mine"]
+    groups_walls, groups_peak, _ = measured["groups"]
+    ref_wall, mine_wall, groups_wall = map(_median, (ref_walls, mine_walls, groups_walls))
+    mine_ratio = _median([m / r for m, r in zip(mine_walls, ref_walls, strict=True)])
+    groups_ratio = _median([g / r for g, r in zip(groups_walls, ref_walls, strict=True)])
     mine_args = [sys.executable, "-m", "comove.cli", "mine", str(data), "--radius", str(RADIUS),
                  "--max-size", "3", "--step", str(1 / args.hz), "--force", "--quiet"]  # fmt: skip
     perm_wall = None
@@ -243,11 +248,12 @@ def main() -> None:
     if perm_wall is not None:
         print(f"| `comove mine --permutations {args.permutations}` | {perm_wall:.1f} | — |")
     print()
-    print(f"groups / reference: {groups_wall / ref_wall:.2f}x")
+    each = ", ".join(f"{g / r:.2f}" for g, r in zip(groups_walls, ref_walls, strict=True))
+    print(f"groups / reference: {groups_ratio:.2f}x (median of {args.repeat} rounds: {each})")
     if perm_wall is not None:
         print(f"permuted / unpermuted mine: {perm_wall / mine_wall:.1f}x")
     print(
-        f"comove / reference: {mine_wall / ref_wall:.2f}x; "
+        f"mine / reference: {mine_ratio:.2f}x; "
         f"per-snapshot loop / comove: {naive_total / mine_wall:.1f}x; "
         f"{ref_out.split()[0]} neighbour pairs; {len(patterns)} patterns kept"
     )
