@@ -10,6 +10,7 @@ from __future__ import annotations
 import csv
 import glob
 import os
+import sys
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -400,11 +401,9 @@ def _expand(item: str | os.PathLike[str]) -> list[str]:
 
 
 def _is_geodataframe(obj: Any) -> bool:
-    try:
-        import geopandas
-    except ImportError:  # pragma: no cover - geopandas is a dependency
-        return False
-    return isinstance(obj, geopandas.GeoDataFrame)
+    # without geopandas imported nothing can be a GeoDataFrame: no need to import it
+    geopandas = sys.modules.get("geopandas")
+    return geopandas is not None and isinstance(obj, geopandas.GeoDataFrame)
 
 
 def _has_geometry(data: pd.DataFrame) -> bool:
