@@ -11,7 +11,6 @@ import json
 import os
 import shutil
 import tempfile
-import warnings
 from collections.abc import Callable, Mapping
 from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
@@ -111,19 +110,38 @@ def geoparquet_writer(frame: Any) -> Writer:
 
 
 def geojson_writer(frame: Any) -> Writer:
-    """Return a writer of a GeoDataFrame as GeoJSON, times as ISO 8601 text."""
+    """Return a writer of a GeoDataFrame as GeoJSON, times as ISO 8601 text.
+
+    Geometries are encoded by shapely (GEOS, exact round trip), attributes by the
+    standard JSON encoder; no GDAL driver has to be loaded. Lon/lat data follow
+    RFC 7946; data in another CRS name it in a ``crs`` member (the 2008 GeoJSON
+    form that GIS programs read); planar data without a CRS have none.
+    """
+    import shapely
 
     def write(path: Path) -> None:
-        out = frame.copy()
-        for col in out.columns:
-            if isinstance(out[col].dtype, pd.DatetimeTZDtype):
-                out[col] = out[col].dt.strftime("%Y-%m-%dT%H:%M:%S.%fZ")
-        with warnings.catch_warnings():  # planar data have no CRS, by design
-            warnings.filterwarnings("ignore", message=".*'crs' was not provided")
-            out.to_file(path, driver="GeoJSON", engine="pyogrio")
+        attrs = frame.drop(columns=frame.geometry.name)
+        for col in attrs.columns:
+            if isinstance(attrs[col].dtype, pd.DatetimeTZDtype):
+                attrs[col] = attrs[col].dt.strftime("%Y-%m-%dT%H:%M:%S.%fZ")
+        records = attrs.astype(object).where(attrs.notna(), None).to_dict("records")
+        shapes = shapely.to_geojson(np.asarray(frame.geometry.array), indent=None)
+        head = '{"type": "FeatureCollection", '
+        crs = frame.crs
+        if crs is not None and not crs.equals("EPSG:4326"):
+            authority = crs.to_authority()
+            name = f"urn:ogc:def:crs:{authority[0]}::{authority[1]}" if authority else crs.to_wkt()
+            head += '"crs": ' + json.dumps({"type": "name", "properties": {"name": name}}) + ", "
+        features = ",\n".join(
+            '{"type": "Feature", "properties": '
+            + json.dumps(_plain(props), allow_nan=False)
+            + ', "geometry": '
+            + (shape if shape is not None else "null")
+            + "}"
+            for props, shape in zip(records, shapes, strict=True)
+        )
+        path.write_text(head + '"features": [\n' + features + "\n]}\n")
 
-    # changing warning filters is not thread-safe: written on its own (see _run_writers)
-    write.alone = True  # type: ignore[attr-defined]
     return write
 
 
@@ -131,21 +149,16 @@ def _run_writers(jobs: list[tuple[Writer, Path]]) -> None:
     """Call every writer with its path, a few at a time in threads (each its own file).
 
     Parquet and CSV writing release the interpreter lock much of the time, so
-    the files of a folder are written side by side; writers marked ``alone``
-    (they change process-wide state such as warning filters) run first, on
-    their own. The first error is raised once every writer has stopped.
+    the files of a folder are written side by side. The first error is raised
+    once every writer has stopped.
     """
-    for write, target in jobs:
-        if getattr(write, "alone", False):
-            write(target)
-    shared = [(w, t) for w, t in jobs if not getattr(w, "alone", False)]
-    workers = min(len(shared), os.cpu_count() or 1, 4)
+    workers = min(len(jobs), os.cpu_count() or 1, 4)
     if workers <= 1:
-        for write, target in shared:
+        for write, target in jobs:
             write(target)
         return
     with ThreadPoolExecutor(max_workers=workers) as pool:
-        for done in [pool.submit(write, target) for write, target in shared]:
+        for done in [pool.submit(write, target) for write, target in jobs]:
             done.result()
 
 

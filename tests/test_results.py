@@ -8,7 +8,7 @@ import pandas as pd
 import pytest
 
 from comove.errors import InputError
-from comove.results import csv_writer, json_writer, write_folder
+from comove.results import csv_writer, geojson_writer, json_writer, write_folder
 
 
 def test_writes_every_file(tmp_path):
@@ -56,3 +56,27 @@ def test_a_file_in_the_way_is_an_input_error(tmp_path):
     (tmp_path / "res").write_text("x")
     with pytest.raises(InputError, match="is not a folder"):
         write_folder(tmp_path / "res", {"a.json": json_writer({})}, force=True)
+
+
+@pytest.mark.parametrize(
+    ("crs", "member"), [("EPSG:4326", None), ("EPSG:32633", "urn:ogc:def:crs:EPSG::32633")]
+)
+def test_geojson_keeps_geometry_times_and_crs(tmp_path, crs, member):
+    # read back with geopandas (GDAL's GeoJSON driver): the same lines, times as ISO text
+    import geopandas as gpd
+    import shapely
+
+    lines = [shapely.LineString([(1.5, 2.25), (3.0, 4.0)]), shapely.LineString([(0, 0), (1, 1)])]
+    frame = gpd.GeoDataFrame(
+        {"episode": ["E0001", "E0002"], "start": pd.to_datetime([0, 10**9], utc=True)},
+        geometry=lines,
+        crs=crs,
+    )
+    out = write_folder(tmp_path / "res", {"p.geojson": geojson_writer(frame)})
+    raw = json.loads((out / "p.geojson").read_text())
+    assert raw.get("crs", {}).get("properties", {}).get("name") == member
+    back = gpd.read_file(out / "p.geojson")
+    assert back.crs.equals(crs)
+    assert back.geometry.geom_equals_exact(frame.geometry, 0).all()
+    assert back["start"].astype(str).tolist()[1].startswith("1970-01-01")
+    assert raw["features"][1]["properties"]["start"] == "1970-01-01T00:00:01.000000Z"
