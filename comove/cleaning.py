@@ -312,8 +312,8 @@ def _label_codes(series: pd.Series) -> tuple[np.ndarray, np.ndarray]:
     return rank[codes], names[order]
 
 
-def _sort_by_object_time(obj: np.ndarray, t: np.ndarray) -> np.ndarray:
-    """Return the stable order of rows by (object, time).
+def _sort_by_object_time(obj: np.ndarray, t: np.ndarray) -> np.ndarray | None:
+    """Return the stable order of rows by (object, time); None when they are in it already.
 
     Two stable sorts instead of a lexsort: tracking files are usually already in
     time order or object order, which the time sort's run detection makes cheap,
@@ -322,7 +322,7 @@ def _sort_by_object_time(obj: np.ndarray, t: np.ndarray) -> np.ndarray:
     small = obj.astype(np.int16) if obj.size and obj.max() < 2**15 else obj
     same = small[1:] == small[:-1]
     if np.all((small[1:] > small[:-1]) | (same & (t[1:] >= t[:-1]))):
-        return np.arange(obj.size)  # already in (object, time) order
+        return None
     if np.all((t[1:] > t[:-1]) | ((t[1:] == t[:-1]) & (small[1:] >= small[:-1]))):
         return np.argsort(small, kind="stable")  # in time order: sort by object only
     by_time = np.argsort(t, kind="stable")
@@ -501,7 +501,10 @@ def clean_fixes(raw: RawTracks, params: CleanParams | None = None) -> tuple[Fixe
     t = _take(times.ns, valid, every)
     va, vb = _take(a, valid, every), _take(b, valid, every)
     order = _sort_by_object_time(obj_codes, t)
-    so, st = obj_codes[order], t[order]
+    if order is None:  # already sorted, the usual case: no gathers of millions of rows
+        order, so, st = np.arange(obj_codes.size), obj_codes, t
+    else:
+        so, st = obj_codes[order], t[order]
     tie = (so[1:] == so[:-1]) & (st[1:] == st[:-1])
     if tie.any():
         # only rows sharing an (object, time) need their positions and roles compared

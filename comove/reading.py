@@ -245,6 +245,8 @@ class RawTracks:
     def source_rows(self, where: np.ndarray) -> np.ndarray:
         """Return the 1-based data row within its source (header not counted) of frame rows."""
         where = np.asarray(where, dtype=np.int64)
+        if where.size == 0:
+            return where
         codes = self.frame["source"].cat.codes.to_numpy()
         n_sources = len(self.frame["source"].cat.categories)
         first = np.searchsorted(codes, np.arange(n_sources))  # sources follow one another
