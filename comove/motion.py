@@ -9,6 +9,8 @@ its velocity is unknown (NaN).
 
 from __future__ import annotations
 
+import os
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from functools import cached_property
 
@@ -44,7 +46,7 @@ class Motion:
         return np.arctan2(self.vy, self.vx)
 
 
-def entry_motion(snaps: Snapshots, window_s: float = 1.0) -> Motion:
+def entry_motion(snaps: Snapshots, window_s: float = 1.0, workers: int = 1) -> Motion:
     """Return the velocity of every entry, by differences across a time window.
 
     Parameters
@@ -56,6 +58,10 @@ def entry_motion(snaps: Snapshots, window_s: float = 1.0) -> Motion:
         is used whatever the value. Wider windows smooth positional noise (at
         25 Hz, raw step-to-step differences of a 10 cm position error give
         speed noise of several m/s).
+    workers : int, default 1
+        Threads working on separate objects at the same time (numpy releases
+        the interpreter lock); -1 means one per processor. The result does not
+        depend on it.
 
     Returns
     -------
@@ -71,17 +77,45 @@ def entry_motion(snaps: Snapshots, window_s: float = 1.0) -> Motion:
     """
     n = snaps.n_entries
     half = max(1, int(round(window_s / snaps.step_s / 2)))
+    workers = (os.cpu_count() or 1) if workers == -1 else max(1, int(workers))
     # stable, so snapshot order is kept within objects; small codes take numpy's radix sort
     codes = snaps.obj.astype(np.int16) if len(snaps.objects) < 2**15 else snaps.obj
     order = np.argsort(codes, kind="stable")
+    # cut the objects into about equal shares of entries, one per worker
+    per_object = np.cumsum(np.bincount(snaps.obj, minlength=len(snaps.objects)))
+    cuts = np.unique(np.searchsorted(per_object, np.arange(1, workers) * n / workers))
+    bounds = [0, *[int(per_object[c]) for c in cuts if 0 < per_object[c] < n], n]
+    vx, vy = np.empty(n), np.empty(n)
+    chunks = list(zip(bounds[:-1], bounds[1:], strict=True))
+
+    def work(chunk: tuple[int, int]) -> None:
+        _velocities(snaps, order[chunk[0] : chunk[1]], half, vx, vy)
+
+    if workers > 1 and len(chunks) > 1:
+        with ThreadPoolExecutor(max_workers=len(chunks)) as pool:
+            list(pool.map(work, chunks))
+    else:
+        for chunk in chunks:
+            work(chunk)
+    return Motion(vx=vx, vy=vy)
+
+
+def _velocities(
+    snaps: Snapshots, order: np.ndarray, half: int, vx: np.ndarray, vy: np.ndarray
+) -> None:
+    """Fill ``vx``, ``vy`` at the entries ``order``: whole objects, in (object, snapshot) order."""
+    n = order.size
+    if n == 0:
+        return
     snap = snaps.snap[order]
-    # stretches of consecutive presence of one object, in (object, snapshot) order
+    obj = snaps.obj[order]
+    # stretches of consecutive presence of one object
     new_run = np.empty(n, dtype=bool)
     new_run[:1] = True
-    np.not_equal(codes[order[1:]], codes[order[:-1]], out=new_run[1:])
+    np.not_equal(obj[1:], obj[:-1], out=new_run[1:])
     new_run[1:] |= (snap[1:] - snap[:-1]) != 1
     starts = np.flatnonzero(new_run)
-    del new_run
+    del new_run, obj
     lengths = np.diff(starts, append=n)
     # each window's ends, clipped to its stretch (in place: fewer large temporaries)
     lo = np.repeat(starts, lengths)
@@ -96,14 +130,9 @@ def entry_motion(snaps: Snapshots, window_s: float = 1.0) -> Motion:
     with np.errstate(divide="ignore"):
         np.divide(1.0, per_second, out=per_second)
     per_second[np.isinf(per_second)] = np.nan  # a stretch of one snapshot
-    velocity = []
-    for coord in (snaps.x, snaps.y):
+    for coord, out in ((snaps.x, vx), (snaps.y, vy)):
         along = coord[order]
         diff = along[hi]
         diff -= along[lo]
         diff *= per_second
-        v = np.empty(n)
-        v[order] = diff
-        velocity.append(v)
-    vx, vy = velocity
-    return Motion(vx=vx, vy=vy)
+        out[order] = diff

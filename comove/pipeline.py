@@ -458,21 +458,21 @@ def groups(
     bar = _Progress(progress, total=8 if significance.permutations > 0 else 7)
     try:
         snaps, quality = _aligned(source, columns, cleaning, alignment, bar)
+        workers = significance.jobs or -1
         with bar.stage("neighbour search"):
-            pairs = neighbour_pairs(snaps, grouping.radius, workers=significance.jobs or -1)
+            pairs = neighbour_pairs(snaps, grouping.radius, workers=workers)
+        with bar.stage("velocities"):
+            motion = entry_motion(snaps, grouping.velocity_window, workers=workers)
         # The dyads (whole-array numpy, which releases the interpreter lock) are counted
-        # in a helper thread while the velocities and episodes are worked out: all only
+        # in a helper thread while the episodes (mostly Python) are searched: both only
         # read the snapshots and pairs, so the results are those of one after the other.
-        with ThreadPoolExecutor(max_workers=1) as side:
+        with bar.stage("episodes and dyads"), ThreadPoolExecutor(max_workers=1) as side:
             counting = side.submit(dyad_table, snaps, pairs)
-            with bar.stage("velocities"):
-                motion = entry_motion(snaps, grouping.velocity_window)
-            with bar.stage("episodes and dyads"):
-                links = linked_pairs(pairs, motion, grouping)
-                groups_at = snapshot_groups(snaps, links, grouping)
-                found = find_episodes(snaps, groups_at, episode_params)
-                table, centroids = episode_table(snaps, found, motion, grouping.min_speed)
-                dyads = counting.result()
+            links = linked_pairs(pairs, motion, grouping)
+            groups_at = snapshot_groups(snaps, links, grouping)
+            found = find_episodes(snaps, groups_at, episode_params)
+            table, centroids = episode_table(snaps, found, motion, grouping.min_speed)
+            dyads = counting.result()
         with bar.stage("paths"):
             paths, display = episode_paths(snaps, table, centroids)
         roles = role_rollup(table)

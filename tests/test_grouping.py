@@ -157,15 +157,17 @@ def test_bad_group_settings():
         GroupParams(radius=1, min_members=1)
 
 
-def test_velocity_equals_windowed_differences_clipped_to_presence_runs():
-    # reference: a direct loop per object and snapshot over the same definition
+@pytest.mark.parametrize("workers", [1, 3])
+def test_velocity_equals_windowed_differences_clipped_to_presence_runs(workers):
+    # reference: a direct loop per object and snapshot over the same definition; the
+    # objects shared out among threads or not
     rng = np.random.default_rng(8)
     n_snap, n_obj = 40, 4
     x = np.cumsum(rng.normal(0, 1, (n_snap, n_obj)), axis=0)
     y = np.cumsum(rng.normal(0, 1, (n_snap, n_obj)), axis=0)
     present = rng.random((n_snap, n_obj)) < 0.85
     snaps = grid_scene(x, y, np.zeros((n_snap, n_obj), int), present, 1)
-    motion = entry_motion(snaps, window_s=4.0)  # half-window of 2 snapshots at 1 s
+    motion = entry_motion(snaps, window_s=4.0, workers=workers)  # half-window: 2 snapshots
     for e in range(snaps.n_entries):
         o, t = snaps.obj[e], snaps.snap[e]
         lo = t
