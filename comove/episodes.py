@@ -141,7 +141,7 @@ class _Timeline:
         self.present_at = [snaps.snap[by_obj[bounds[o] : bounds[o + 1]]] for o in range(n_obj)]
         events = _presence_changes(self.present_at, snaps.n_snapshots, tol_snaps)
         self.first, self.last, first_group = _spans(snaps, groups, events)
-        self.groups, self.group_span, self.group_words = _span_groups(
+        self._masks, self._bounds, self.group_span, self.group_words = _span_groups(
             groups, snaps.obj[groups.entries], self.first, first_group, n_obj, min_size
         )
         self.presence = _presence_masks(snaps, self.first)
@@ -150,6 +150,10 @@ class _Timeline:
         self._offsets = snaps.offsets() if n_obj > 63 else None
         # together(members, k) per span, kept while a later span may look back at it
         self._memo: dict[int, dict[int, bool]] = {}
+
+    def groups(self, k: int) -> list[int]:
+        """Return the member bitmasks of the groups of at least ``min_size`` in span k."""
+        return self._masks[self._bounds[k] : self._bounds[k + 1]]
 
     @property
     def n_spans(self) -> int:
@@ -193,7 +197,7 @@ class _Timeline:
         if known is not None:
             return known
         result = False
-        for grp in self.groups[k]:
+        for grp in self.groups(k):
             common = members & grp
             if common.bit_count() < self.min_size:
                 continue
@@ -364,13 +368,15 @@ def _span_groups(
     first_group: np.ndarray,
     n_obj: int,
     min_size: int,
-) -> tuple[list[list[int]], np.ndarray, np.ndarray | None]:
+) -> tuple[list[int], list[int], np.ndarray, np.ndarray | None]:
     """Return the groups of at least ``min_size`` members at each span start.
 
     Returns
     -------
-    per_span : list of list of int
-        Per span, the member bitmasks of its groups.
+    masks : list of int
+        The member bitmasks of those groups, span after span.
+    bounds : list of int
+        Span k's groups are ``masks[bounds[k]:bounds[k + 1]]``.
     span_of : ndarray of int64
         The span of each of those groups, in order (ascending).
     words : ndarray of uint64 or None
@@ -387,9 +393,8 @@ def _span_groups(
     idx, span_of = idx[big], span_of[big]
     masks = _group_masks(member_obj, groups.offsets, n_obj, idx)
     bounds = np.searchsorted(span_of, np.arange(n_spans + 1)).tolist()
-    per_span = [masks[bounds[k] : bounds[k + 1]] for k in range(n_spans)]
     words = np.asarray(masks, dtype=np.uint64) if n_obj <= 63 else None
-    return per_span, span_of, words
+    return masks, bounds, span_of, words
 
 
 def find_episodes(snaps: Snapshots, groups: SnapshotGroups, params: EpisodeParams) -> Episodes:
@@ -469,7 +474,7 @@ def find_episodes(snaps: Snapshots, groups: SnapshotGroups, params: EpisodeParam
     for k in range(line.n_spans):  # per span of constant groups, not per snapshot
         a, b = int(line.first[k]), int(line.last[k])
         n_k = b - a + 1
-        groups_k = line.groups[k]
+        groups_k = line.groups(k)
         nxt: dict[int, list[int]] = {}
         for members, (start, seen, flags, count) in live.items():
             whole = False
@@ -671,9 +676,16 @@ class _EntryLookup:
             self.keys = snaps.snap * self.n_obj + snaps.obj
 
     def entries(self, snapshots: np.ndarray, objects: np.ndarray) -> np.ndarray:
-        """Return an (n_snapshots, n_objects) array of entry indices or -1."""
+        """Return an (n_snapshots, n_objects) array of entry indices or -1.
+
+        ``snapshots`` are consecutive (an episode's span).
+        """
         if self.dense is not None:
-            return self.dense[np.ix_(snapshots, objects)].astype(np.int64)
+            # a block of rows, then the members' columns: no 2-d fancy index
+            rows = self.dense[int(snapshots[0]) : int(snapshots[-1]) + 1] if snapshots.size else (
+                self.dense[:0]
+            )  # fmt: skip
+            return rows[:, objects].astype(np.int64)
         want = (snapshots[:, None] * self.n_obj + objects[None, :]).ravel()
         pos = np.searchsorted(self.keys, want)
         found = (pos < self.keys.size) & (self.keys[np.minimum(pos, self.keys.size - 1)] == want)
