@@ -261,7 +261,7 @@ def exact_de(snaps, a: int, b: int) -> float:
 def test_expected_distance_exact_under_the_cap(seed: int, blocks, monkeypatch):
     if blocks:  # tiny batches of distances: the same numbers
         monkeypatch.setattr(dyads, "EXPECTED_BLOCK", blocks)
-        monkeypatch.setattr(dyads, "DISTANCE_BLOCK", blocks)
+        monkeypatch.setattr(dyads, "GRID_BYTES", blocks * 1000)
     snaps = random_scene(seed)
     table = dyad_table(snaps, neighbour_pairs(snaps, 3.0))
     codes = {str(name): k for k, name in enumerate(snaps.objects)}
