@@ -165,6 +165,16 @@ class Snapshots:
         """Return CSR offsets: entries of snapshot ``s`` are ``offsets[s]:offsets[s+1]``."""
         return np.searchsorted(self.snap, np.arange(self.n_snapshots + 1), side="left")
 
+    def object_order(self) -> np.ndarray:
+        """Return the entries in (object, snapshot) order: each object's track is one run.
+
+        A stable sort of the object codes, so snapshot order is kept within each
+        object; with fewer than 2**15 objects the codes are sorted as 16-bit
+        integers, which numpy does as a radix sort (O(n)).
+        """
+        codes = self.obj.astype(np.int16) if len(self.objects) < 2**15 else self.obj
+        return np.argsort(codes, kind="stable")
+
 
 def default_step(fixes: Fixes) -> float:
     """Return a round snapshot step (seconds) near the median sampling interval.

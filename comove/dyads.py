@@ -138,9 +138,8 @@ def _expected_distances(
     snaps: Snapshots, n_obj: int, a: np.ndarray, b: np.ndarray, cap: int
 ) -> np.ndarray:
     """Return the mean distance over all pairings of a fix of a with a fix of b, per pair."""
-    small = np.int16 if n_obj <= np.iinfo(np.int16).max else np.int32
-    # stable: each object's entries stay in time order, so strata are stretches of time
-    by_obj = np.argsort(snaps.obj.astype(small), kind="stable")
+    # each object's entries stay in time order, so strata are stretches of time
+    by_obj = snaps.object_order()
     counts = np.bincount(snaps.obj, minlength=n_obj)
     start = np.concatenate([[0], np.cumsum(counts)])
     cache: dict[tuple[int, int], np.ndarray] = {}

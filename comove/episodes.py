@@ -7,10 +7,11 @@ seconds, and whose members are together for at least ``min_duration``
 seconds in all: a tolerated separation does not break an episode, but it does
 not count as time together either. A member with no data at a snapshot (a
 missed fix beyond the interpolation gap) is not taken to have left: while its
-absence lasts no longer than ``tolerance``, the others being grouped is
-enough. The episode's end is the last snapshot at which every member has
-data. Only maximal episodes are reported: none whose members and time span are both contained in
-another episode's. With DBSCAN groups this is a convoy (Jeung et al. 2008);
+absence lasts no longer than ``tolerance``, and if it was with the others at
+its last fix, the others being grouped is enough. The episode's end is the
+last snapshot at which every member has data. Only maximal episodes are
+reported: none whose members and time span are both contained in another
+episode's. With DBSCAN groups this is a convoy (Jeung et al. 2008);
 with ``tolerance > 0`` short separations do not break it, in the spirit of
 the evolving and gathering variants of convoy discovery.
 
@@ -43,6 +44,9 @@ MEMBER_SEP = ";"
 
 #: Live candidates above which dominated ones are pruned during the search.
 PRUNE_ABOVE = 64
+
+#: Spans with remembered "together" answers above which the stale ones are dropped.
+FORGET_ABOVE = 256
 
 # flags of a live candidate (see find_episodes)
 GAPPED = 1
@@ -135,8 +139,7 @@ class _Timeline:
         n_obj = len(snaps.objects)
         self.n_obj = n_obj
         # each object's present snapshots, for telling absence (no data) from separation
-        codes = snaps.obj.astype(np.int16) if n_obj < 2**15 else snaps.obj
-        by_obj = np.argsort(codes, kind="stable")  # small codes: numpy's radix sort
+        by_obj = snaps.object_order()
         bounds = np.searchsorted(snaps.obj[by_obj], np.arange(n_obj + 1))
         self.present_at = [snaps.snap[by_obj[bounds[o] : bounds[o + 1]]] for o in range(n_obj)]
         events = _presence_changes(self.present_at, snaps.n_snapshots, tol_snaps)
@@ -212,7 +215,7 @@ class _Timeline:
 
     def forget_before(self, k: int) -> None:
         """Drop remembered answers for spans that no span from k on can look back at."""
-        if len(self._memo) > 4 * PRUNE_ABOVE:
+        if len(self._memo) > FORGET_ABOVE:
             horizon = int(self.first[k]) - self.tol - 1
             for old in [j for j in self._memo if self.last[j] < horizon]:
                 del self._memo[old]

@@ -78,9 +78,7 @@ def entry_motion(snaps: Snapshots, window_s: float = 1.0, workers: int = 1) -> M
     n = snaps.n_entries
     half = max(1, int(round(window_s / snaps.step_s / 2)))
     workers = (os.cpu_count() or 1) if workers == -1 else max(1, int(workers))
-    # stable, so snapshot order is kept within objects; small codes take numpy's radix sort
-    codes = snaps.obj.astype(np.int16) if len(snaps.objects) < 2**15 else snaps.obj
-    order = np.argsort(codes, kind="stable")
+    order = snaps.object_order()
     # cut the objects into about equal shares of entries, one per worker
     per_object = np.cumsum(np.bincount(snaps.obj, minlength=len(snaps.objects)))
     cuts = np.unique(np.searchsorted(per_object, np.arange(1, workers) * n / workers))

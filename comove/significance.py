@@ -145,9 +145,7 @@ class NullModel:
         self.snaps = snaps
         self.params = params
         n_obj = len(snaps.objects)
-        codes = snaps.obj.astype(np.int16) if n_obj < 2**15 else snaps.obj
-        # entries in (object, snapshot) order: each object's track is one run
-        self.by_obj = np.argsort(codes, kind="stable")
+        self.by_obj = snaps.object_order()
         obj_sorted = snaps.obj[self.by_obj]
         self.bounds = np.searchsorted(obj_sorted, np.arange(n_obj + 1))
         snap_sorted = snaps.snap[self.by_obj]
