@@ -388,8 +388,8 @@ def _quantiles(values: np.ndarray, per: float = 1.0) -> dict[str, float | None]:
     if values.size == 0:
         return {"median": None, "p10": None, "p90": None, "iqr": None}
     # values is a temporary of the caller's: partitioned in place, no copy of millions
-    p10, p25, p50, p75, p90 = np.percentile(values, [10, 25, 50, 75, 90], overwrite_input=True)
-    p10, p25, p50, p75, p90 = (v / per for v in (p10, p25, p50, p75, p90))
+    q = np.percentile(values, [10, 25, 50, 75, 90], overwrite_input=True) / per
+    p10, p25, p50, p75, p90 = q
     return {
         "median": float(p50),
         "p10": float(p10),

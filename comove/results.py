@@ -78,15 +78,20 @@ def _prior_command(folder: Path) -> str:
     return str(run.get("command", "earlier"))
 
 
+def _iso_times(frame: pd.DataFrame) -> pd.DataFrame:
+    """Return a copy of ``frame`` with its zone-aware time columns as ISO 8601 UTC text."""
+    out = frame.copy()
+    for col in out.columns:
+        if isinstance(out[col].dtype, pd.DatetimeTZDtype):
+            out[col] = out[col].dt.strftime("%Y-%m-%dT%H:%M:%S.%fZ")
+    return out
+
+
 def csv_writer(frame: pd.DataFrame) -> Writer:
     """Return a writer of ``frame`` as CSV, times as ISO 8601 UTC with ``Z``."""
 
     def write(path: Path) -> None:
-        out = frame.copy()
-        for col in out.columns:
-            if isinstance(out[col].dtype, pd.DatetimeTZDtype):
-                out[col] = out[col].dt.strftime("%Y-%m-%dT%H:%M:%S.%fZ")
-        out.to_csv(path, index=False, float_format="%.10g")
+        _iso_times(frame).to_csv(path, index=False, float_format="%.10g")
 
     return write
 
@@ -120,10 +125,7 @@ def geojson_writer(frame: Any) -> Writer:
     import shapely
 
     def write(path: Path) -> None:
-        attrs = frame.drop(columns=frame.geometry.name)
-        for col in attrs.columns:
-            if isinstance(attrs[col].dtype, pd.DatetimeTZDtype):
-                attrs[col] = attrs[col].dt.strftime("%Y-%m-%dT%H:%M:%S.%fZ")
+        attrs = _iso_times(pd.DataFrame(frame.drop(columns=frame.geometry.name)))
         records = attrs.astype(object).where(attrs.notna(), None).to_dict("records")
         shapes = shapely.to_geojson(np.asarray(frame.geometry.array), indent=None)
         head = '{"type": "FeatureCollection", '
