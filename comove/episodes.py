@@ -679,20 +679,106 @@ class _EntryLookup:
             self.keys = snaps.snap * self.n_obj + snaps.obj
 
     def entries(self, snapshots: np.ndarray, objects: np.ndarray) -> np.ndarray:
-        """Return an (n_snapshots, n_objects) array of entry indices or -1.
+        """Return the entry index of each (object, snapshot) cell, or -1.
 
-        ``snapshots`` are consecutive (an episode's span).
+        ``snapshots`` has shape (n,) and ``objects`` shape (k, n): column r
+        asks for objects ``objects[:, r]`` at snapshot ``snapshots[r]``. The
+        result has shape (k, n), so that sums over the objects are sums of
+        contiguous rows.
         """
         if self.dense is not None:
-            # a block of rows, then the members' columns: no 2-d fancy index
-            rows = self.dense[int(snapshots[0]) : int(snapshots[-1]) + 1] if snapshots.size else (
-                self.dense[:0]
-            )  # fmt: skip
-            return rows[:, objects].astype(np.int64)
-        want = (snapshots[:, None] * self.n_obj + objects[None, :]).ravel()
-        pos = np.searchsorted(self.keys, want)
-        found = (pos < self.keys.size) & (self.keys[np.minimum(pos, self.keys.size - 1)] == want)
-        return np.where(found, pos, -1).reshape(snapshots.size, objects.size)
+            return self.dense[snapshots[None, :], objects].astype(np.int64)
+        if self.keys.size == 0:
+            return np.full(objects.shape, -1, dtype=np.int64)
+        want = snapshots[None, :] * self.n_obj + objects
+        pos = np.minimum(np.searchsorted(self.keys, want), self.keys.size - 1)
+        return np.where(self.keys[pos] == want, pos, -1)
+
+
+#: Cells (rows x member pairs) handled at once by the episode table; bounds its memory.
+TABLE_BLOCK = 1_000_000
+
+#: Episodes x roles above which the episode table finds role sets by sorting, not flags.
+MAX_ROLE_FLAGS = 50_000_000
+
+
+class _RowStats:
+    """Per-row statistics of episodes: one row per (episode, snapshot of its span)."""
+
+    def __init__(self, n_rows: int) -> None:
+        self.n_present = np.zeros(n_rows, dtype=np.int64)
+        self.cx = np.full(n_rows, np.nan)
+        self.cy = np.full(n_rows, np.nan)
+        self.d_sum = np.zeros(n_rows)
+        self.n_both = np.zeros(n_rows, dtype=np.int64)
+        self.d_max = np.zeros(n_rows)
+        self.moving = np.zeros(n_rows, dtype=bool)
+
+    def fill(
+        self,
+        rows: np.ndarray,
+        entry: np.ndarray,
+        pairs: tuple[np.ndarray, np.ndarray],
+        snaps: Snapshots,
+        motion: Motion,
+        min_speed: float,
+    ) -> None:
+        """Fill ``rows`` from their members' entries (shape (size, rows), -1 if absent)."""
+        present = entry >= 0
+        safe = np.maximum(entry, 0)  # absent cells read entry 0, masked out below
+        ex, ey = snaps.x[safe], snaps.y[safe]
+        n_present = present.sum(axis=0)
+        self.n_present[rows] = n_present
+        iu, ju = pairs
+        both = present[iu] & present[ju]
+        d = ex[iu] - ex[ju]
+        dy = ey[iu] - ey[ju]
+        np.hypot(d, dy, out=d)
+        d *= both
+        self.d_sum[rows] = d.sum(axis=0)
+        self.n_both[rows] = both.sum(axis=0)
+        self.d_max[rows] = d.max(axis=0)
+        ex *= present
+        ey *= present
+        with np.errstate(invalid="ignore", divide="ignore"):
+            self.cx[rows] = ex.sum(axis=0) / n_present
+            self.cy[rows] = ey.sum(axis=0) / n_present
+        # most present members faster than min_speed (NaN speeds count as not moving)
+        fast = present & (motion.speed[safe] > min_speed)
+        self.moving[rows] = 2 * fast.sum(axis=0) > n_present
+
+
+def _per_episode_mean(owner: np.ndarray, values: np.ndarray, use: np.ndarray, n: int) -> np.ndarray:
+    """Return per episode the mean of ``values`` over its rows where ``use``; NaN if none."""
+    total = np.bincount(owner, weights=np.where(use, values, 0.0), minlength=n)
+    count = np.bincount(owner, weights=use, minlength=n)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(count > 0, total / count, np.nan)
+
+
+def _role_sets(snaps: Snapshots, owner: list[np.ndarray], codes: list[np.ndarray], n_ep: int):
+    """Return per episode its roles (sorted names joined by ``MEMBER_SEP``).
+
+    ``owner`` and ``codes`` hold, block by block, the episode and role code of
+    every present member cell.
+    """
+    n_roles = len(snaps.roles)
+    names = np.array([str(r) for r in snaps.roles], dtype=object)
+    order = np.argsort(names, kind="stable")
+    rank = np.empty(n_roles, dtype=np.int64)
+    rank[order] = np.arange(n_roles)
+    keys = [o * n_roles + rank[c] for o, c in zip(owner, codes, strict=True)]
+    if n_ep * n_roles <= MAX_ROLE_FLAGS:
+        seen = np.zeros(n_ep * n_roles, dtype=bool)
+        for k in keys:
+            seen[k] = True
+        flat = np.flatnonzero(seen)
+    else:
+        flat = np.unique(np.concatenate(keys)) if keys else np.zeros(0, dtype=np.int64)
+    ep, role = np.divmod(flat, n_roles)
+    cut = np.searchsorted(ep, np.arange(n_ep + 1))
+    by_name = names[order]
+    return [MEMBER_SEP.join(by_name[role[cut[k] : cut[k + 1]]]) for k in range(n_ep)]
 
 
 def episode_table(
@@ -723,61 +809,72 @@ def episode_table(
         and ``went_into`` (episode ids joined by ';').
     paths : list of ndarray, shape (n_snapshots, 3)
         Per episode: snapshot time (ns), centroid x and y in the working plane.
+
+    Notes
+    -----
+    Whole-array over all episodes at once: one row per (episode, snapshot of
+    its span), episodes of one size together, in blocks of at most
+    ``TABLE_BLOCK`` (row, member pair) cells. The mean spacing is the mean over
+    snapshots (with two or more members present) of the mean pairwise distance.
     """
+    n_ep = episodes.n_episodes
+    ids = [f"E{k + 1:04d}" for k in range(n_ep)]
+    start = np.asarray(episodes.start, dtype=np.int64)
+    length = np.asarray(episodes.end, dtype=np.int64) - start + 1
+    first_row = np.concatenate([[0], np.cumsum(length)])
+    n_rows = int(first_row[-1])
+    row_ep = np.repeat(np.arange(n_ep), length)
+    row_snap = np.arange(n_rows, dtype=np.int64) - first_row[row_ep] + start[row_ep]
+    stats = _RowStats(n_rows)
+    sizes = np.array([m.size for m in episodes.members], dtype=np.int64)
     lookup = _EntryLookup(snaps)
-    n_roles = len(snaps.roles)
-    pairs_of: dict[int, tuple[np.ndarray, np.ndarray]] = {}  # size -> member index pairs
-    rows = []
-    paths = []
-    ids = [f"E{k + 1:04d}" for k in range(episodes.n_episodes)]
-    for k in range(episodes.n_episodes):  # per episode, vectorised over its snapshots
-        members = episodes.members[k]
-        s = np.arange(episodes.start[k], episodes.end[k] + 1)
-        entry = lookup.entries(s, members)
-        present = entry >= 0
-        safe = np.maximum(entry, 0)  # absent cells read entry 0, masked out below
-        ex, ey = snaps.x[safe], snaps.y[safe]
-        n_present = present.sum(axis=1)
-        observed = n_present > 0  # in a tolerated gap no member may have data
-        with np.errstate(invalid="ignore", divide="ignore"):
-            cx = (ex * present).sum(axis=1) / n_present
-            cy = (ey * present).sum(axis=1) / n_present
-        if members.size not in pairs_of:
-            pairs_of[members.size] = np.triu_indices(members.size, 1)
-        iu, ju = pairs_of[members.size]
-        both = present[:, iu] & present[:, ju]
-        d = np.hypot(ex[:, iu] - ex[:, ju], ey[:, iu] - ey[:, ju])
-        d[~both] = 0.0
-        n_both = both.sum(axis=1)
-        spaced = n_both > 0  # snapshots with one member present have no spacing
-        spacing = d.sum(axis=1)[spaced] / n_both[spaced]
-        # most present members faster than min_speed (NaN speeds count as not moving)
-        fast = present & (motion.speed[safe] > min_speed)
-        moving = 2 * fast.sum(axis=1) > n_present
-        role_codes = np.flatnonzero(np.bincount(snaps.role[entry[present]], minlength=n_roles))
-        roles = sorted(str(r) for r in snaps.roles[role_codes])
-        rows.append(
-            {
-                "episode": ids[k],
-                "start": int(snaps.times(s[:1])[0]),
-                "end": int(snaps.times(s[-1:])[0]),
-                "duration_s": s.size * snaps.step_s,
-                "together_s": int(episodes.together[k]) * snaps.step_s,
-                "size": int(members.size),
-                "members": MEMBER_SEP.join(str(snaps.objects[m]) for m in members),
-                "roles": MEMBER_SEP.join(roles),
-                "mean_spacing_m": float(spacing.mean()) if spacing.size else np.nan,
-                "max_spacing_m": float(d.max()) if spacing.size else np.nan,
-                "moving_share": float(moving[observed].mean()) if observed.any() else np.nan,
-                "came_from": MEMBER_SEP.join(ids[f] for f in episodes.came_from[k]),
-                "went_into": MEMBER_SEP.join(ids[f] for f in episodes.went_into[k]),
-            }
-        )
-        paths.append(np.column_stack([snaps.times(s[observed]), cx[observed], cy[observed]]))
-    table = pd.DataFrame(rows, columns=EPISODE_COLUMNS)
-    for col in ("start", "end"):
-        table[col] = pd.to_datetime(table[col].astype("int64"), utc=True)
-    return table, paths
+    role_owner: list[np.ndarray] = []
+    role_code: list[np.ndarray] = []
+    for size in np.unique(sizes).tolist():  # per episode size: rows of equal width
+        eps = np.flatnonzero(sizes == size)
+        member_rows = np.stack([episodes.members[k] for k in eps], axis=1)  # (size, eps)
+        pairs = np.triu_indices(size, 1)
+        rows = np.flatnonzero(sizes[row_ep] == size)
+        step = max(1, TABLE_BLOCK // max(size, pairs[0].size))
+        for r0 in range(0, rows.size, step):  # per block of rows
+            r = rows[r0 : r0 + step]
+            owner = row_ep[r]
+            entry = lookup.entries(row_snap[r], member_rows[:, np.searchsorted(eps, owner)])
+            stats.fill(r, entry, pairs, snaps, motion, min_speed)
+            present = entry >= 0
+            role_owner.append(np.broadcast_to(owner, entry.shape)[present])
+            role_code.append(snaps.role[entry[present]].astype(np.int64))
+    spaced = stats.n_both > 0  # snapshots with one member present have no spacing
+    with np.errstate(invalid="ignore", divide="ignore"):
+        row_spacing = stats.d_sum / stats.n_both
+    observed = stats.n_present > 0  # in a tolerated gap no member may have data
+    max_spacing = np.full(n_ep, np.nan)
+    if n_ep:
+        max_spacing = np.maximum.reduceat(stats.d_max, first_row[:-1])
+        max_spacing[np.bincount(row_ep, weights=spaced, minlength=n_ep) == 0] = np.nan
+    names = np.array([str(o) for o in snaps.objects], dtype=object)
+    table = pd.DataFrame(
+        {
+            "episode": ids,
+            "start": pd.to_datetime(snaps.times(start), utc=True),
+            "end": pd.to_datetime(snaps.times(episodes.end), utc=True),
+            "duration_s": length * snaps.step_s,
+            "size": sizes,
+            "members": [MEMBER_SEP.join(names[m]) for m in episodes.members],
+            "roles": _role_sets(snaps, role_owner, role_code, n_ep),
+            "together_s": np.asarray(episodes.together, dtype=np.int64) * snaps.step_s,
+            "mean_spacing_m": _per_episode_mean(row_ep, row_spacing, spaced, n_ep),
+            "max_spacing_m": max_spacing,
+            "moving_share": _per_episode_mean(row_ep, stats.moving, observed, n_ep),
+            "came_from": [MEMBER_SEP.join(ids[f] for f in c) for c in episodes.came_from],
+            "went_into": [MEMBER_SEP.join(ids[f] for f in w) for w in episodes.went_into],
+        },
+        columns=EPISODE_COLUMNS,
+    )
+    kept = np.flatnonzero(observed)
+    path = np.column_stack([snaps.times(row_snap[kept]), stats.cx[kept], stats.cy[kept]])
+    cuts = np.cumsum(np.bincount(row_ep[kept], minlength=n_ep))[:-1]
+    return table, np.split(path, cuts) if n_ep else []
 
 
 EPISODE_COLUMNS = [

@@ -387,3 +387,60 @@ def test_bad_episode_settings():
         EpisodeParams(min_size=1)
     with pytest.raises(InputError, match="--tolerance"):
         EpisodeParams(tolerance=-1)
+
+
+def table_one_by_one(snaps, found, motion, min_speed):
+    """The episode statistics from their definitions, one episode and snapshot at a time."""
+    at = {(int(s), int(o)): e for e, (s, o) in enumerate(zip(snaps.snap, snaps.obj, strict=True))}
+    rows = []
+    for members, start, end in zip(found.members, found.start, found.end, strict=True):
+        spacings, largest, moving, observed, roles = [], np.nan, 0, 0, set()
+        for s in range(int(start), int(end) + 1):
+            here = [at[(s, int(m))] for m in members if (s, int(m)) in at]
+            roles |= {str(snaps.roles[snaps.role[e]]) for e in here}
+            if not here:
+                continue
+            observed += 1
+            moving += 2 * sum(motion.speed[e] > min_speed for e in here) > len(here)
+            d = [np.hypot(snaps.x[a] - snaps.x[b], snaps.y[a] - snaps.y[b])
+                 for i, a in enumerate(here) for b in here[i + 1 :]]  # fmt: skip
+            if d:
+                spacings.append(np.mean(d))
+                largest = max(np.nan_to_num(largest), max(d))
+        rows.append((";".join(sorted(roles)), np.mean(spacings) if spacings else np.nan, largest,
+                     moving / observed if observed else np.nan))  # fmt: skip
+    return pd.DataFrame(rows, columns=["roles", "mean_spacing_m", "max_spacing_m", "moving_share"])
+
+
+@settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(
+    scene=scenes, tol=st.integers(0, 3), dense=st.booleans(), block=st.sampled_from([1, 7, 10**6])
+)
+def test_episode_table_equals_a_per_snapshot_computation(scene, tol, dense, block):
+    # whole-array over all episodes, by size and in blocks of rows, with the dense or the
+    # sorted entry lookup: the same statistics as a plain loop over the definitions,
+    # with missing members, roles that change, and tolerated gaps without any data
+    import comove.episodes as ep
+
+    rng, n_obj, n_snap = scene
+    x, y, present = random_walkers(rng, n_obj, n_snap)
+    present[0] = True
+    role = rng.integers(0, 3, size=(n_snap, n_obj))
+    snaps = grid_scene(x, y, role, present, 3)
+    gp = GroupParams(radius=1.5, max_heading=None, max_speed_ratio=None)
+    motion = entry_motion(snaps)
+    groups_ = snapshot_groups(snaps, linked_pairs(neighbour_pairs(snaps, 1.5), motion, gp), gp)
+    found = find_episodes(snaps, groups_, EpisodeParams(tolerance=float(tol)))
+    old = (ep._EntryLookup.MAX_DENSE, ep.TABLE_BLOCK)
+    ep._EntryLookup.MAX_DENSE, ep.TABLE_BLOCK = (10**9 if dense else 0), block
+    try:
+        table, paths = episode_table(snaps, found, motion, gp.min_speed)
+    finally:
+        ep._EntryLookup.MAX_DENSE, ep.TABLE_BLOCK = old
+    expected = table_one_by_one(snaps, found, motion, gp.min_speed)
+    pd.testing.assert_frame_equal(table[expected.columns], expected, check_dtype=False)
+    assert len(paths) == len(table)
+    for path, start, end in zip(paths, found.start, found.end, strict=True):
+        assert np.all(np.diff(path[:, 0]) > 0)
+        assert snaps.times(np.array([start]))[0] <= path[0, 0] <= path[-1, 0]
+        assert path[-1, 0] <= snaps.times(np.array([end]))[0]
