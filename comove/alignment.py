@@ -241,10 +241,13 @@ def align(fixes: Fixes, params: AlignParams | None = None) -> Snapshots:
         bridged[:-1] = (fixes.obj[1:] == fixes.obj[:-1]) & (np.diff(t) <= max_gap_ns)
     t_next = np.where(bridged, np.roll(t, -1), t)
 
-    first = -(-t // step_ns)  # ceil division: first grid index at or after the fix
-    # bridged: grid points g with t <= g*step < t_next; otherwise only g*step == t
-    on_grid = t % step_ns == 0
-    last = np.where(bridged, -(-t_next // step_ns) - 1, np.where(on_grid, first, first - 1))
+    # one integer division (slow in numpy): first grid index at or after each fix
+    below = t // step_ns
+    on_grid = t == below * step_ns
+    first = below + ~on_grid
+    # bridged: grid points g with t <= g*step < t_next, where t_next is the next fix and
+    # its first grid index the next entry of ``first``; otherwise only g*step == t
+    last = np.where(bridged, np.roll(first, -1) - 1, first - ~on_grid)
     count = np.maximum(last - first + 1, 0)
     total = int(count.sum())
     if total == 0:
