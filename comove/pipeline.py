@@ -16,14 +16,13 @@ from __future__ import annotations
 
 import os
 from collections.abc import Iterator
-from concurrent.futures import ThreadPoolExecutor
+from concurrent.futures import Future, ThreadPoolExecutor
 from contextlib import contextmanager
 from dataclasses import dataclass, field, fields
 from pathlib import Path
 from typing import Any
 
 import pandas as pd
-from tqdm.auto import tqdm
 
 from comove.alignment import AlignParams, Snapshots, align, alignment_summary, track_sample
 from comove.cleaning import CleanParams, clean_fixes
@@ -44,7 +43,7 @@ from comove.neighbours import neighbour_pairs
 from comove.persistence import PersistenceParams, durable_patterns
 from comove.presets import preset_values
 from comove.projection import working_to_input
-from comove.provenance import run_record, settings_record
+from comove.provenance import input_digest, run_record, settings_record
 from comove.reading import ColumnSpec, read_tracks
 from comove.results import (
     csv_writer,
@@ -143,17 +142,24 @@ class _Progress:
     """A stage progress bar that can be switched off."""
 
     def __init__(self, enabled: bool, total: int) -> None:
-        # disable=None: shown on a terminal only, so logs and pipes get no bar debris
-        self.bar = tqdm(total=total, disable=None if enabled else True, unit="stage", leave=False)
+        self.bar = None
+        if enabled:
+            from tqdm.auto import tqdm  # imported when used: it costs start-up time
+
+            # disable=None: shown on a terminal only, so logs and pipes get no bar debris
+            self.bar = tqdm(total=total, disable=None, unit="stage", leave=False)
 
     @contextmanager
     def stage(self, name: str) -> Iterator[None]:
-        self.bar.set_description(name)
+        if self.bar is not None:
+            self.bar.set_description(name)
         yield
-        self.bar.update(1)
+        if self.bar is not None:
+            self.bar.update(1)
 
     def close(self) -> None:
-        self.bar.close()
+        if self.bar is not None:
+            self.bar.close()
 
 
 @dataclass
@@ -254,6 +260,7 @@ def mine(source: Any, *, progress: bool = False, **options: Any) -> MiningResult
     significance = significance.resolved()
     k_params = k_request.params()
     bar = _Progress(progress, total=8)
+    digest = _digest_beside(source)
     try:
         snaps, quality = _aligned(source, columns, cleaning, alignment, bar)
         with bar.stage("neighbour search"):
@@ -298,10 +305,23 @@ def mine(source: Any, *, progress: bool = False, **options: Any) -> MiningResult
             k_request,
         ),  # fmt: skip
         extra={"caution": CAUTION},
+        digest=digest.result(),
     )
     return MiningResult(
         patterns, tables.participation, tables.series, quality, run, snaps, tests, cross
     )
+
+
+def _digest_beside(source: Any) -> Future[str]:
+    """Return the future digest of ``source``, taken in a helper thread while the stages run.
+
+    Reading and hashing the input files mostly waits on the disk or runs in
+    hashlib, which releases the interpreter lock over large blocks.
+    """
+    helper = ThreadPoolExecutor(max_workers=1)
+    digest = helper.submit(input_digest, source)
+    helper.shutdown(wait=False)  # its thread ends once the digest is taken
+    return digest
 
 
 def _sample(snaps: Snapshots) -> pd.DataFrame:
@@ -456,6 +476,7 @@ def groups(
     )
     significance = significance.resolved()
     bar = _Progress(progress, total=8 if significance.permutations > 0 else 7)
+    digest = _digest_beside(source)
     try:
         snaps, quality = _aligned(source, columns, cleaning, alignment, bar)
         workers = significance.jobs or -1
@@ -494,5 +515,6 @@ def groups(
             columns, cleaning, _effective(snaps), grouping, episode_params, significance
         ),
         extra={"preset": preset, "caution": CAUTION},
+        digest=digest.result(),
     )
     return GroupsResult(table, roles, dyads, paths, display, quality, run, snaps, centroids)

@@ -73,9 +73,17 @@ def settings_record(*stage_params: Any) -> dict[str, dict[str, Any]]:
 
 
 def run_record(
-    command: str, source: Any, settings: dict[str, dict[str, Any]], extra: dict | None = None
+    command: str,
+    source: Any,
+    settings: dict[str, dict[str, Any]],
+    extra: dict | None = None,
+    digest: str | None = None,
 ) -> dict[str, Any]:
-    """Return the content of ``run.json``: what was run, on what, with which versions."""
+    """Return the content of ``run.json``: what was run, on what, with which versions.
+
+    ``digest`` is ``input_digest(source)`` when already taken (it is computed
+    otherwise).
+    """
     versions = {"comove": comove.__version__, "python": platform.python_version()}
     for name in _VERSIONED:
         try:
@@ -90,7 +98,7 @@ def run_record(
         "input": [str(p.resolve()) for p in paths]
         if paths is not None
         else f"<{type(source).__name__}>",
-        "input_digest": input_digest(source),
+        "input_digest": digest if digest is not None else input_digest(source),
         "settings": settings,
         "versions": versions,
         **(extra or {}),

@@ -37,7 +37,6 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from tqdm.auto import tqdm
 
 from comove.alignment import Snapshots
 from comove.errors import InputError
@@ -294,6 +293,8 @@ def null_distribution(
     jobs = max(1, min(jobs, n))
     if params.jobs is None and model.snaps.n_entries * n < IN_PROCESS_WORK:
         jobs = 1
+    from tqdm.auto import tqdm  # imported when used: it costs start-up time
+
     bar = tqdm(total=n, desc=label, unit="replicate", disable=None if progress else True,
                leave=False)  # fmt: skip
     rows: list[np.ndarray | None] = [None] * n

@@ -17,7 +17,6 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from tqdm.auto import tqdm
 
 from comove.alignment import AlignParams, Snapshots
 from comove.cleaning import CleanParams
@@ -214,6 +213,8 @@ def sweep(
     jobs = max(1, min(params.jobs or os.cpu_count() or 1, len(grid)))
     if params.jobs is None and snaps.n_entries * len(grid) < 2_000_000:
         jobs = 1  # starting workers would cost more than it saves
+    from tqdm.auto import tqdm  # imported when used: it costs start-up time
+
     tick = tqdm(total=len(grid), desc="sweep", unit="grid point",
                 disable=None if progress else True, leave=False)  # fmt: skip
     parts: list[pd.DataFrame] = []
