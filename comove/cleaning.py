@@ -364,7 +364,8 @@ def _spike_mask(
     """One pass of the speed-spike rule over fixes sorted by (object, time)."""
     same = obj[1:] == obj[:-1]
     dt_s = (t[1:] - t[:-1]) / 1e9
-    fast = same & (np.hypot(x[1:] - x[:-1], y[1:] - y[:-1]) > max_speed * dt_s)
+    dx, dy = x[1:] - x[:-1], y[1:] - y[:-1]
+    fast = same & (np.sqrt(dx * dx + dy * dy) > max_speed * dt_s)  # not np.hypot: 5x slower
     no = np.zeros(1, dtype=bool)
     has_prev = np.concatenate([no, same])
     has_next = np.concatenate([same, no])

@@ -732,8 +732,11 @@ class _RowStats:
         iu, ju = pairs
         both = present[iu] & present[ju]
         d = ex[iu] - ex[ju]
+        d *= d
         dy = ey[iu] - ey[ju]
-        np.hypot(d, dy, out=d)
+        dy *= dy
+        d += dy
+        np.sqrt(d, out=d)
         d *= both
         self.d_sum[rows] = d.sum(axis=0)
         self.n_both[rows] = both.sum(axis=0)

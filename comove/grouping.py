@@ -157,7 +157,7 @@ def linked_pairs(pairs: NeighbourPairs, motion: Motion, params: GroupParams) -> 
     """
     i, j = pairs.i, pairs.j
     xi, yi, xj, yj = motion.vx[i], motion.vy[i], motion.vx[j], motion.vy[j]
-    si, sj = np.hypot(xi, yi), np.hypot(xj, yj)
+    si, sj = motion.speed[i], motion.speed[j]
     with np.errstate(invalid="ignore"):
         moving = (si > params.min_speed) & (sj > params.min_speed)
     keep = np.ones(i.size, dtype=bool)
@@ -179,6 +179,9 @@ def _components(n: int, i: np.ndarray, j: np.ndarray) -> np.ndarray:
 
 def _table(snaps: Snapshots, member: np.ndarray, label: np.ndarray) -> SnapshotGroups:
     """Return groups from (entry, label) rows, dropping groups of a single entry."""
+    if label.size:  # single entries first: most entries are alone, and sorting costs
+        shared = np.bincount(label)[label] >= 2
+        member, label = member[shared], label[shared]
     # every member of a group is in one snapshot, so the entry's snapshot orders groups
     order = np.lexsort((member, label, snaps.snap[member]))
     member, label = member[order], label[order]

@@ -35,7 +35,9 @@ class Motion:
     @cached_property
     def speed(self) -> np.ndarray:
         """Return the speed of every entry in m/s (NaN where unknown), computed once."""
-        return np.hypot(self.vx, self.vy)
+        speed = self.vx * self.vx
+        speed += self.vy * self.vy
+        return np.sqrt(speed, out=speed)  # not np.hypot: several times slower
 
     @cached_property
     def heading(self) -> np.ndarray:

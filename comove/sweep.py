@@ -205,8 +205,8 @@ def sweep(
         snaps, quality = _aligned(source, columns, cleaning, alignment, bar)
         with bar.stage("neighbour search"):
             pairs = neighbour_pairs(snaps, max(params.radii))
-            distance = np.hypot(snaps.x[pairs.i] - snaps.x[pairs.j],
-                                snaps.y[pairs.i] - snaps.y[pairs.j])  # fmt: skip
+            dx, dy = snaps.x[pairs.i] - snaps.x[pairs.j], snaps.y[pairs.i] - snaps.y[pairs.j]
+            distance = np.sqrt(dx * dx + dy * dy)
     finally:
         bar.close()
     grid = [(r, m) for m in params.min_participation for r in params.radii]
