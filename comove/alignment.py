@@ -11,7 +11,7 @@ snapshot is the role of its latest fix at or before that snapshot.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pyproj
@@ -162,18 +162,44 @@ class Snapshots:
         return roles
 
     def offsets(self) -> np.ndarray:
-        """Return CSR offsets: entries of snapshot ``s`` are ``offsets[s]:offsets[s+1]``."""
-        return np.searchsorted(self.snap, np.arange(self.n_snapshots + 1), side="left")
+        """Return CSR offsets: entries of snapshot ``s`` are ``offsets[s]:offsets[s+1]``.
+
+        Computed once per ``snap`` array and returned read-only.
+        """
+        return self._derived(
+            "offsets",
+            (self.snap, self.n_snapshots),
+            lambda: np.searchsorted(self.snap, np.arange(self.n_snapshots + 1), side="left"),
+        )
 
     def object_order(self) -> np.ndarray:
         """Return the entries in (object, snapshot) order: each object's track is one run.
 
         A stable sort of the object codes, so snapshot order is kept within each
         object; with fewer than 2**15 objects the codes are sorted as 16-bit
-        integers, which numpy does as a radix sort (O(n)).
+        integers, which numpy does as a radix sort (O(n)). Computed once per
+        ``obj`` array and returned read-only.
         """
-        codes = self.obj.astype(np.int16) if len(self.objects) < 2**15 else self.obj
-        return np.argsort(codes, kind="stable")
+
+        def order() -> np.ndarray:
+            codes = self.obj.astype(np.int16) if len(self.objects) < 2**15 else self.obj
+            return np.argsort(codes, kind="stable")
+
+        return self._derived("object_order", (self.obj,), order)
+
+    def _derived(self, name: str, inputs: tuple, compute: Any) -> np.ndarray:
+        """Return ``compute()``, kept while the attributes it derives from are the same objects.
+
+        Several stages ask for the same orders; the inputs are compared by
+        identity, so an attribute given a new array is never answered from the old.
+        """
+        held = self.__dict__.get("_cache_" + name)
+        if held is not None and all(a is b for a, b in zip(held[0], inputs, strict=True)):
+            return held[1]
+        value = compute()
+        value.flags.writeable = False
+        self.__dict__["_cache_" + name] = (inputs, value)
+        return value
 
 
 def default_step(fixes: Fixes) -> float:

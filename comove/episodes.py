@@ -490,7 +490,10 @@ def find_episodes(snaps: Snapshots, groups: SnapshotGroups, params: EpisodeParam
                 if common.bit_count() >= min_size:
                     parts.append(common)
             if whole:
-                _offer(nxt, members, start, b, flags, count + n_k)
+                if members in nxt:
+                    _offer(nxt, members, start, b, flags, count + n_k)
+                else:  # the usual case, inline: no other way reached this set yet
+                    nxt[members] = [start, b, flags, count + n_k]
                 continue
             missing = members & ~line.present(k) if parts else 0
             if missing and line.together(members, k):  # by excusing missing members
@@ -519,7 +522,10 @@ def find_episodes(snaps: Snapshots, groups: SnapshotGroups, params: EpisodeParam
             else:
                 close(members, start, seen, flags, count)
         for grp in groups_k:
-            _offer(nxt, grp, a, b, 0, n_k)
+            if grp in nxt:
+                _offer(nxt, grp, a, b, 0, n_k)
+            else:
+                nxt[grp] = [a, b, 0, n_k]
         # Candidates contained in another that started no later, is seen as late and
         # was together throughout can go: the final maximality filter would remove them
         # anyway. Only pruned when many are live (measured: ~1 % of candidates pruned
@@ -927,7 +933,7 @@ def episode_paths(
     allc = np.concatenate(parts)
     x, y = working_to_input(snaps, allc[:, 1], allc[:, 2])
     xy = np.column_stack([x, y])
-    slot = (allc[:, 0] // (DISPLAY_INTERVAL_S * 1e9)).astype(np.int64)
+    slot = np.floor(allc[:, 0] * (1e-9 / DISPLAY_INTERVAL_S))  # not //: slow on floats
     first = np.r_[True, (owner[1:] != owner[:-1]) | (slot[1:] != slot[:-1])]
     last = np.r_[owner[1:] != owner[:-1], True]
     keep = first | last

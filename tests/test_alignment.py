@@ -100,3 +100,16 @@ def test_bad_step_is_an_input_error():
         AlignParams(step=-1)
     with pytest.raises(InputError, match="--max-gap"):
         AlignParams(max_gap=float("nan"))
+
+
+def test_orders_are_computed_once_and_follow_new_arrays():
+    snaps = align(irregular_tracks(3), AlignParams(step=0.5))
+    order, offsets = snaps.object_order(), snaps.offsets()
+    assert snaps.object_order() is order and snaps.offsets() is offsets
+    assert not order.flags.writeable and not offsets.flags.writeable
+    # the definitions: a stable sort by object; CSR bounds of each snapshot
+    assert np.array_equal(order, np.lexsort((np.arange(snaps.n_entries), snaps.obj)))
+    assert np.array_equal(np.diff(offsets), np.bincount(snaps.snap, minlength=snaps.n_snapshots))
+    # an attribute given a new array is not answered from the old one
+    snaps.obj = snaps.obj[::-1].copy()
+    assert np.array_equal(snaps.object_order(), np.argsort(snaps.obj, kind="stable"))
