@@ -3,13 +3,31 @@
 from __future__ import annotations
 
 from importlib.metadata import PackageNotFoundError, version
+from typing import TYPE_CHECKING, Any
+
+from comove.errors import InputError
 
 try:
     __version__ = version("comove")
 except PackageNotFoundError:  # running from a source tree that is not installed
     __version__ = "0.0.0+unknown"
 
-from comove.errors import InputError  # noqa: E402
-from comove.pipeline import GroupsResult, MiningResult, groups, mine  # noqa: E402
+if TYPE_CHECKING:
+    from comove.pipeline import GroupsResult, MiningResult, groups, mine
 
 __all__ = ["GroupsResult", "InputError", "MiningResult", "__version__", "groups", "mine"]
+
+_FROM_PIPELINE = {"GroupsResult", "MiningResult", "groups", "mine"}
+
+
+def __getattr__(name: str) -> Any:
+    """Import the pipeline on first use of its names (PEP 562).
+
+    ``import comove.cli`` then runs the command line's own start-up settings
+    before numpy and the other numeric libraries are loaded.
+    """
+    if name in _FROM_PIPELINE:
+        from comove import pipeline
+
+        return getattr(pipeline, name)
+    raise AttributeError(f"module 'comove' has no attribute {name!r}")

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import os
 import subprocess
 import sys
 
@@ -353,3 +354,24 @@ def test_run_json_repeats_the_run_exactly(tracks_csv, tmp_path, capsys, command)
     a = json.loads((first / "run.json").read_text())
     b = json.loads((again / "run.json").read_text())
     assert a["settings"] == b["settings"] and a["input_digest"] == b["input_digest"]
+
+
+@pytest.mark.parametrize(("given", "expected"), [(None, 1), ("2", 2)])
+def test_command_line_runs_openblas_on_one_thread_unless_told(given, expected):
+    # set before numpy loads (import comove alone must not load it); read back with
+    # threadpoolctl, which asks the loaded BLAS libraries themselves
+    code = (
+        "import sys, comove; assert 'numpy' not in sys.modules; import comove.cli\n"
+        "from threadpoolctl import threadpool_info\n"
+        "print(sorted({i['num_threads'] for i in threadpool_info()"
+        " if i['internal_api'] == 'openblas'}))"
+    )
+    env = {k: v for k, v in os.environ.items() if k != "OPENBLAS_NUM_THREADS"}
+    if given is not None:
+        env["OPENBLAS_NUM_THREADS"] = given
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, env=env)
+    assert done.returncode == 0, done.stderr
+    threads = json.loads(done.stdout)
+    if not threads:
+        pytest.skip("this numpy is not built with OpenBLAS")
+    assert threads == [min(expected, os.cpu_count() or 1)]  # OpenBLAS caps at the cores
