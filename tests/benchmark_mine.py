@@ -10,7 +10,8 @@ its own:
 
 1. the bare reference: read the file with pyarrow, put the fixes on the grid
    (they already are), and one scipy cKDTree radius query over all snapshots
-   laid side by side;
+   laid side by side; once as it is, once with OpenBLAS on one thread (as the
+   ``comove`` command line runs itself);
 2. ``comove mine`` on the same file with ``--max-size 3``;
 3. ``comove groups --preset team-sport`` (episodes and dyads) on the same file;
 4. a straightforward per-snapshot loop (networkx graph + clique enumeration
@@ -40,6 +41,9 @@ import numpy as np
 import pandas as pd
 
 RADIUS = 5.0
+
+#: Prefix that runs the reference with OpenBLAS on one thread, as ``comove`` runs itself.
+ONE_BLAS_THREAD = "import os; os.environ['OPENBLAS_NUM_THREADS'] = '1'\n"
 ROLES = (
     ["keeper"]
     + ["centre_back"] * 2
@@ -203,6 +207,9 @@ def main() -> None:
     measured = run_rounds(
         {
             "reference": [sys.executable, "-c", REFERENCE, str(data), str(RADIUS), str(args.hz)],
+            # the same with OpenBLAS on one thread, as the command line runs it
+            "reference_1blas": [sys.executable, "-c", ONE_BLAS_THREAD + REFERENCE, str(data),
+                                str(RADIUS), str(args.hz)],
             "mine": [*cli, "mine", str(data), "--radius", str(RADIUS), "--max-size", "3",
                      *common, "--out", str(results)],
             "groups": [*cli, "groups", str(data), "--preset", "team-sport", *common,
@@ -211,6 +218,7 @@ def main() -> None:
         args.repeat,
     )  # fmt: skip
     ref_walls, ref_peak, ref_out = measured["reference"]
+    blas_walls = measured["reference_1blas"][0]
     mine_walls, mine_peak, _ = measured["mine"]
     groups_walls, groups_peak, _ = measured["groups"]
     ref_wall, mine_wall, groups_wall = map(_median, (ref_walls, mine_walls, groups_walls))
@@ -237,6 +245,7 @@ def main() -> None:
         f"| bare reference (pyarrow read + one cKDTree radius pass) | {ref_wall:.1f} | "
         f"{ref_peak:.0f} |"
     )
+    print(f"| bare reference, OpenBLAS on one thread | {_median(blas_walls):.1f} | — |")
     print(f"| `comove mine --max-size 3` | {mine_wall:.1f} | {mine_peak:.0f} |")
     print(
         f"| `comove groups --preset team-sport` (episodes and dyads) | {groups_wall:.1f} | "
@@ -252,6 +261,9 @@ def main() -> None:
     each = ", ".join(f"{g / r:.2f}" for g, r in zip(groups_walls, ref_walls, strict=True))
     print(f"groups / reference: {groups_ratio:.2f}x (median of {args.repeat} rounds: {each}); "
           f"fastest / fastest: {min(groups_walls) / min(ref_walls):.2f}x")  # fmt: skip
+    blas_ratio = _median([g / r for g, r in zip(groups_walls, blas_walls, strict=True)])
+    print(f"groups / reference with OpenBLAS on one thread: {blas_ratio:.2f}x "
+          f"(fastest / fastest: {min(groups_walls) / min(blas_walls):.2f}x)")  # fmt: skip
     if perm_wall is not None:
         print(f"permuted / unpermuted mine: {perm_wall / mine_wall:.1f}x")
     print(
