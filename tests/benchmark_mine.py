@@ -193,6 +193,7 @@ def main() -> None:
         help="also time `comove mine --permutations N` (one run; 199 takes minutes)",
     )  # fmt: skip
     parser.add_argument("--out", type=Path, default=Path("bench-out"))
+    parser.add_argument("--walls", type=Path, help="also write every round's wall times (JSON)")
     args = parser.parse_args()
     args.out.mkdir(parents=True, exist_ok=True)
     data = args.out / "match.parquet"
@@ -273,6 +274,9 @@ def main() -> None:
         f"{ref_out.split()[0]} neighbour pairs; {len(patterns)} patterns kept"
     )
     print(f"cores: {os.cpu_count()}, python {sys.version.split()[0]}, {time.strftime('%Y-%m-%d')}")
+    if args.walls is not None:  # every round's wall times, for pooling several runs
+        walls = {name: runs[0] for name, runs in measured.items()}
+        args.walls.write_text(json.dumps(walls, indent=1) + "\n")
 
 
 if __name__ == "__main__":
