@@ -816,10 +816,16 @@ def _labels(series: pd.Series) -> pd.Series:
     names = _label_text(uniques).to_numpy(dtype=object)
     valid = pd.notna(names)
     categories, inverse = np.unique(names[valid].astype(str), return_inverse=True)
-    remap = np.full(names.size + 1, -1, dtype=np.int64)
-    remap[:-1][valid] = inverse
-    new_codes = remap[np.where(codes >= 0, codes, names.size)]
-    categorical = pd.Categorical.from_codes(new_codes, categories=pd.Index(categories, dtype="str"))
+    if valid.all() and np.array_equal(inverse, np.arange(names.size)):
+        new_codes = codes  # already sorted distinct text: no pass over the rows
+    else:
+        remap = np.full(names.size + 1, -1, dtype=np.int64)
+        remap[:-1][valid] = inverse
+        new_codes = remap[np.where(codes >= 0, codes, names.size)]
+    # the codes lie in -1..len(categories)-1 by construction
+    categorical = pd.Categorical.from_codes(
+        new_codes, categories=pd.Index(categories, dtype="str"), validate=False
+    )
     return pd.Series(categorical, index=series.index)
 
 

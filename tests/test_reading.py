@@ -345,6 +345,29 @@ def test_integer_valued_float_ids_print_as_integers() -> None:
     assert read_tracks(df).frame["object"].tolist()[0] == "7.5"
 
 
+@pytest.mark.parametrize(
+    "values",
+    [
+        ["a", "a", "b", "b", "c", "c"],  # sorted categories: codes kept as they are
+        ["c", "c", "a", "a", "b", "b"],  # unsorted: renumbered
+        [" b", "b", "", None, "a", "a"],  # blanks, padding and missing values
+    ],
+)
+def test_text_ids_read_the_same_from_plain_and_categorical_columns(tmp_path, values) -> None:
+    # Parquet text columns arrive dictionary-encoded (categorical); plain strings too
+    df = _table()
+    df["player"] = values
+    expected = read_tracks(df).frame["object"].astype(object).tolist()
+    cleaned = [None if v is None or not v.strip() else v.strip() for v in values]
+    assert [None if pd.isna(v) else v for v in expected] == cleaned
+    for frame in (df.assign(player=pd.Categorical(values)), df):
+        frame.to_parquet(tmp_path / "t.parquet", index=False)
+        for source in (frame, tmp_path / "t.parquet"):
+            got = read_tracks(source).frame["object"]
+            assert list(got.cat.categories) == sorted(set(filter(None, cleaned)))
+            assert [None if pd.isna(v) else v for v in got.astype(object)] == cleaned
+
+
 # --------------------------------------------------------------------------- bad input
 
 
