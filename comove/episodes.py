@@ -765,7 +765,9 @@ def _per_episode_mean(owner: np.ndarray, values: np.ndarray, use: np.ndarray, n:
         return np.where(count > 0, total / count, np.nan)
 
 
-def _role_sets(snaps: Snapshots, owner: list[np.ndarray], codes: list[np.ndarray], n_ep: int):
+def _role_sets(
+    snaps: Snapshots, owner: list[np.ndarray], codes: list[np.ndarray], n_ep: int
+) -> list[str]:
     """Return per episode its roles (sorted names joined by ``MEMBER_SEP``).
 
     ``owner`` and ``codes`` hold, block by block, the episode and role code of
@@ -862,21 +864,28 @@ def episode_table(
         max_spacing = np.maximum.reduceat(stats.d_max, first_row[:-1])
         max_spacing[np.bincount(row_ep, weights=spaced, minlength=n_ep) == 0] = np.nan
     names = np.array([str(o) for o in snaps.objects], dtype=object)
+
+    def text(values: list[str]) -> pd.Series:
+        return pd.Series(values, dtype="str")  # also when there are no episodes
+
+    def utc(snapshot: np.ndarray) -> pd.DatetimeIndex:
+        return pd.to_datetime(snaps.times(snapshot).astype("datetime64[ns]"), utc=True)
+
     table = pd.DataFrame(
         {
-            "episode": ids,
-            "start": pd.to_datetime(snaps.times(start), utc=True),
-            "end": pd.to_datetime(snaps.times(episodes.end), utc=True),
+            "episode": text(ids),
+            "start": utc(start),
+            "end": utc(episodes.end),
             "duration_s": length * snaps.step_s,
             "size": sizes,
-            "members": [MEMBER_SEP.join(names[m]) for m in episodes.members],
-            "roles": _role_sets(snaps, role_owner, role_code, n_ep),
+            "members": text([MEMBER_SEP.join(names[m]) for m in episodes.members]),
+            "roles": text(_role_sets(snaps, role_owner, role_code, n_ep)),
             "together_s": np.asarray(episodes.together, dtype=np.int64) * snaps.step_s,
             "mean_spacing_m": _per_episode_mean(row_ep, row_spacing, spaced, n_ep),
             "max_spacing_m": max_spacing,
             "moving_share": _per_episode_mean(row_ep, stats.moving, observed, n_ep),
-            "came_from": [MEMBER_SEP.join(ids[f] for f in c) for c in episodes.came_from],
-            "went_into": [MEMBER_SEP.join(ids[f] for f in w) for w in episodes.went_into],
+            "came_from": text([MEMBER_SEP.join(ids[f] for f in c) for c in episodes.came_from]),
+            "went_into": text([MEMBER_SEP.join(ids[f] for f in w) for w in episodes.went_into]),
         },
         columns=EPISODE_COLUMNS,
     )

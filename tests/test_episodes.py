@@ -444,3 +444,14 @@ def test_episode_table_equals_a_per_snapshot_computation(scene, tol, dense, bloc
         assert np.all(np.diff(path[:, 0]) > 0)
         assert snaps.times(np.array([start]))[0] <= path[0, 0] <= path[-1, 0]
         assert path[-1, 0] <= snaps.times(np.array([end]))[0]
+
+
+def test_a_scene_without_episodes_gives_an_empty_table_of_the_same_types():
+    t = np.arange(6.0)
+    together = walk_scene(np.column_stack([t, t]), np.column_stack([t * 0, t * 0 + 0.5]), 2)
+    apart = walk_scene(np.column_stack([t, t]), np.column_stack([t * 0, t * 0 + 50.0]), 2)
+    _, full = episodes_of(together)
+    found, empty = episodes_of(apart)
+    assert len(full) == 1 and found.n_episodes == 0 and empty.empty
+    assert list(empty.columns) == list(full.columns)
+    assert empty.dtypes.to_dict() == full.dtypes.to_dict()
