@@ -10,8 +10,9 @@ snapshot is the role of its latest fix at or before that snapshot.
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass, field
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING
 
 import numpy as np
 import pyproj
@@ -187,7 +188,7 @@ class Snapshots:
 
         return self._derived("object_order", (self.obj,), order)
 
-    def _derived(self, name: str, inputs: tuple, compute: Any) -> np.ndarray:
+    def _derived(self, name: str, inputs: tuple, compute: Callable[[], np.ndarray]) -> np.ndarray:
         """Return ``compute()``, kept while the attributes it derives from are the same objects.
 
         Several stages ask for the same orders; the inputs are compared by
