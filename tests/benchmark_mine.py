@@ -194,10 +194,17 @@ def main() -> None:
     )  # fmt: skip
     parser.add_argument("--out", type=Path, default=Path("bench-out"))
     parser.add_argument("--walls", type=Path, help="also write every round's wall times (JSON)")
+    parser.add_argument(
+        "--time-major", action="store_true",
+        help="write the file frame by frame (all players at one time, then the next) "
+        "instead of player by player",
+    )  # fmt: skip
     args = parser.parse_args()
     args.out.mkdir(parents=True, exist_ok=True)
     data = args.out / "match.parquet"
     frame = invented_match(args.minutes, args.hz)
+    if args.time_major:  # frame by frame, as many tracking feeds deliver them
+        frame = frame.sort_values(["t", "player"], kind="stable", ignore_index=True)
     frame.to_parquet(data, index=False)
     n_snap = frame["t"].nunique()
     print(f"{len(frame):,} fixes, {n_snap:,} snapshots, {frame['player'].nunique()} objects")
