@@ -23,6 +23,7 @@ os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 # No garbage collection while the libraries load: their hundreds of thousands of
 # objects live to the end, and collections that walk them again and again (during
 # the imports, the run and the interpreter's shutdown) cost ~0.15 s per run.
+_COLLECTING = gc.isenabled()  # a program that imports this module keeps its own setting
 gc.disable()
 
 import comove  # noqa: E402
@@ -34,7 +35,8 @@ from comove.runfile import load_run_file, parse_grid  # noqa: E402
 from comove.sweep import SWEEP_STAGES, SweepParams, sweep  # noqa: E402
 
 gc.freeze()  # what is loaded now stays: later collections skip it
-gc.enable()
+if _COLLECTING:
+    gc.enable()
 
 EXIT_INPUT = 2
 

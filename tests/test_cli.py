@@ -375,3 +375,16 @@ def test_command_line_runs_openblas_on_one_thread_unless_told(given, expected):
     if not threads:
         pytest.skip("this numpy is not built with OpenBLAS")
     assert threads == [min(expected, os.cpu_count() or 1)]  # OpenBLAS caps at the cores
+
+
+@pytest.mark.parametrize("collecting", [True, False])
+def test_importing_the_command_line_keeps_the_programs_garbage_collection_setting(collecting):
+    # the command line loads its libraries without collections and freezes them; a
+    # program that imports it finds collection on or off as it had set it
+    code = (
+        f"import gc\nif not {collecting}: gc.disable()\nimport comove.cli\n"
+        "print(gc.isenabled(), gc.get_freeze_count() > 0)"
+    )
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)
+    assert done.returncode == 0, done.stderr
+    assert done.stdout.split() == [str(collecting), "True"]
