@@ -188,6 +188,20 @@ class Snapshots:
 
         return self._derived("object_order", (self.obj,), order)
 
+    def object_bounds(self) -> np.ndarray:
+        """Return where each object's run starts in :meth:`object_order` (n_objects + 1 values).
+
+        Object o's entries are ``object_order()[bounds[o]:bounds[o + 1]]``.
+        Computed once per ``obj`` array and returned read-only.
+        """
+        return self._derived(
+            "object_bounds",
+            (self.obj,),
+            lambda: np.concatenate(
+                [[0], np.cumsum(np.bincount(self.obj, minlength=len(self.objects)))]
+            ),
+        )
+
     def _derived(self, name: str, inputs: tuple, compute: Callable[[], np.ndarray]) -> np.ndarray:
         """Return ``compute()``, kept while the attributes it derives from are the same objects.
 

@@ -139,9 +139,8 @@ def _expected_distances(
 ) -> np.ndarray:
     """Return the mean distance over all pairings of a fix of a with a fix of b, per pair."""
     # each object's entries stay in time order, so strata are stretches of time
-    by_obj = snaps.object_order()
-    counts = np.bincount(snaps.obj, minlength=n_obj)
-    start = np.concatenate([[0], np.cumsum(counts)])
+    by_obj, start = snaps.object_order(), snaps.object_bounds()
+    counts = np.diff(start)
     cache: dict[tuple[int, int], np.ndarray] = {}
 
     def track(o: int, m: int) -> np.ndarray:

@@ -139,8 +139,7 @@ class _Timeline:
         n_obj = len(snaps.objects)
         self.n_obj = n_obj
         # each object's present snapshots, for telling absence (no data) from separation
-        by_obj = snaps.object_order()
-        bounds = np.searchsorted(snaps.obj[by_obj], np.arange(n_obj + 1))
+        by_obj, bounds = snaps.object_order(), snaps.object_bounds()
         self.present_at = [snaps.snap[by_obj[bounds[o] : bounds[o + 1]]] for o in range(n_obj)]
         events = _presence_changes(self.present_at, snaps.n_snapshots, tol_snaps)
         self.first, self.last, first_group = _spans(snaps, groups, events)
@@ -168,9 +167,7 @@ class _Timeline:
         mask = self.presence[k]
         if mask is None:  # more than 63 objects: built when first asked for
             lo, hi = self._offsets[self.first[k]], self._offsets[self.first[k] + 1]
-            mask = 0
-            for o in self._snaps.obj[lo:hi].tolist():
-                mask |= 1 << o
+            mask = _mask(self._snaps.obj[lo:hi])
             self.presence[k] = mask
         return mask
 
@@ -355,12 +352,11 @@ def _presence_masks(snaps: Snapshots, first: np.ndarray) -> list:
     if len(snaps.objects) > 63:
         return [None] * first.size
     offsets = snaps.offsets()
-    bit = np.left_shift(np.uint64(1), snaps.obj.astype(np.uint64))
     filled = np.diff(offsets) > 0
     per_snap = np.zeros(snaps.n_snapshots, dtype=np.uint64)
-    if bit.size:
+    if snaps.n_entries:
         # each segment runs to the next filled snapshot's first entry: empty ones add nothing
-        per_snap[filled] = np.bitwise_or.reduceat(bit, offsets[:-1][filled])
+        per_snap[filled] = _word_masks(snaps.obj, offsets[:-1][filled])
     return per_snap[first].tolist()
 
 
@@ -581,15 +577,25 @@ def _group_masks(
     if which.size == 0:
         return []
     if n_obj <= 63:  # one machine word per group: vectorised
-        bit = np.left_shift(np.uint64(1), member_obj.astype(np.uint64))
-        return np.bitwise_or.reduceat(bit, offsets[:-1])[which].tolist()
-    masks = []
-    for g in which.tolist():  # per group; only for more than 63 objects
-        mask = 0
-        for m in member_obj[offsets[g] : offsets[g + 1]].tolist():
-            mask |= 1 << m
-        masks.append(mask)
-    return masks
+        return _word_masks(member_obj, offsets[:-1])[which].tolist()
+    # per group; only for more than 63 objects
+    return [_mask(member_obj[offsets[g] : offsets[g + 1]]) for g in which.tolist()]
+
+
+def _mask(objects: np.ndarray) -> int:
+    """Return ``objects`` as an int bitmask (bit o = object o), whatever their number."""
+    mask = 0
+    for o in objects.tolist():
+        mask |= 1 << o
+    return mask
+
+
+def _word_masks(objects: np.ndarray, starts: np.ndarray) -> np.ndarray:
+    """Return the objects of each segment of ``objects`` (from ``starts``) as uint64 masks.
+
+    For codes below 64 only; segments must be non-empty.
+    """
+    return np.bitwise_or.reduceat(np.left_shift(np.uint64(1), objects.astype(np.uint64)), starts)
 
 
 def _prune_dominated(cands: dict[int, list]) -> dict[int, list]:

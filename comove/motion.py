@@ -82,7 +82,7 @@ def entry_motion(snaps: Snapshots, window_s: float = 1.0, workers: int = 1) -> M
     workers = (os.cpu_count() or 1) if workers == -1 else max(1, int(workers))
     order = snaps.object_order()
     # cut the objects into about equal shares of entries, one per worker
-    per_object = np.cumsum(np.bincount(snaps.obj, minlength=len(snaps.objects)))
+    per_object = snaps.object_bounds()[1:]
     cuts = np.unique(np.searchsorted(per_object, np.arange(1, workers) * n / workers))
     bounds = [0, *[int(per_object[c]) for c in cuts if 0 < per_object[c] < n], n]
     vx, vy = np.empty(n), np.empty(n)

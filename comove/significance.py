@@ -145,8 +145,7 @@ class NullModel:
         self.params = params
         n_obj = len(snaps.objects)
         self.by_obj = snaps.object_order()
-        obj_sorted = snaps.obj[self.by_obj]
-        self.bounds = np.searchsorted(obj_sorted, np.arange(n_obj + 1))
+        self.bounds = snaps.object_bounds()
         snap_sorted = snaps.snap[self.by_obj]
         present = np.diff(self.bounds) > 0
         self.present = present

@@ -110,6 +110,9 @@ def test_orders_are_computed_once_and_follow_new_arrays():
     # the definitions: a stable sort by object; CSR bounds of each snapshot
     assert np.array_equal(order, np.lexsort((np.arange(snaps.n_entries), snaps.obj)))
     assert np.array_equal(np.diff(offsets), np.bincount(snaps.snap, minlength=snaps.n_snapshots))
+    bounds = snaps.object_bounds()
+    for o in range(len(snaps.objects)):  # each object's entries are one run of the order
+        assert np.array_equal(order[bounds[o] : bounds[o + 1]], np.flatnonzero(snaps.obj == o))
     # an attribute given a new array is not answered from the old one
     snaps.obj = snaps.obj[::-1].copy()
     assert np.array_equal(snaps.object_order(), np.argsort(snaps.obj, kind="stable"))
