@@ -2,7 +2,7 @@
 
 Run from the repository root::
 
-    python tests/benchmark_mine.py [--minutes 90] [--hz 25] [--out bench-out]
+    python benchmarks/benchmark_mine.py [--minutes 90] [--hz 25] [--out bench-out]
 
 It writes an invented match (23 objects at 25 Hz for 90 minutes: 3.1 M fixes)
 to Parquet, then measures, each in a fresh subprocess so that peak memory is
