@@ -29,16 +29,16 @@ the number of workers or their scheduling.
 
 from __future__ import annotations
 
-import os
 from collections.abc import Callable
-from concurrent.futures import ProcessPoolExecutor, as_completed
 from dataclasses import dataclass, field, replace
 from typing import Any
 
 import numpy as np
 import pandas as pd
+from scipy.stats import false_discovery_control
 
 from comove.alignment import Snapshots
+from comove.engine import Engine, LocalEngine
 from comove.errors import InputError
 
 NULL_MODELS = ("time-shift", "role-shuffle")
@@ -233,27 +233,16 @@ def _spread_offsets(rng: np.random.Generator, n_obj: int, period: int) -> np.nda
     return ((dealt + jitter) * slot).astype(np.int64) % max(period, 1)
 
 
-# --------------------------------------------------------------------------- engine
-
-_WORKER: dict[str, Any] = {}
+# --------------------------------------------------------------------------- replicates
 
 
 Statistic = Callable[["NullModel", np.random.Generator], np.ndarray]
 
-#: Below this many entry-replicates the work stays in this process: starting
-#: workers and sending them the snapshots would cost more than it saves.
-IN_PROCESS_WORK = 5_000_000
 
-
-def _init_worker(model: NullModel, statistic: Statistic) -> None:
-    _WORKER["model"] = model
-    _WORKER["statistic"] = statistic
-
-
-def _run_replicates(seeds: list[np.random.SeedSequence], first: int) -> tuple[int, np.ndarray]:
-    model, statistic = _WORKER["model"], _WORKER["statistic"]
-    out = [statistic(model, np.random.default_rng(seq)) for seq in seeds]
-    return first, np.vstack(out)
+def _replicate(shared: tuple[NullModel, Statistic], seed: np.random.SeedSequence) -> np.ndarray:
+    """Return the statistic on the null replicate drawn from ``seed``."""
+    model, statistic = shared
+    return statistic(model, np.random.default_rng(seed))
 
 
 def null_distribution(
@@ -262,6 +251,7 @@ def null_distribution(
     params: SignificanceParams,
     progress: bool = False,
     label: str = "null replicates",
+    engine: Engine | None = None,
 ) -> np.ndarray:
     """Return the statistic on ``params.permutations`` null replicates.
 
@@ -278,43 +268,25 @@ def null_distribution(
         Show a progress bar with the time left.
     label : str
         Progress bar text.
+    engine : Engine, optional
+        Runs the replicates; a :class:`~comove.engine.LocalEngine` with
+        ``params.jobs`` workers when omitted.
 
     Returns
     -------
     ndarray, shape (permutations, n_items)
-        Row k is replicate k, whatever the number of workers.
+        Row k is replicate k, whatever the engine and its number of workers:
+        replicate k draws from ``SeedSequence(seed).spawn(N)[k]``.
     """
     n = int(params.permutations)
     if params.seed is None:
         raise ValueError("resolve the seed first (SignificanceParams.resolved)")
     seeds = np.random.SeedSequence(params.seed).spawn(n)
-    jobs = params.jobs or os.cpu_count() or 1
-    jobs = max(1, min(jobs, n))
-    if params.jobs is None and model.snaps.n_entries * n < IN_PROCESS_WORK:
-        jobs = 1
-    from tqdm.auto import tqdm  # imported when used: it costs start-up time
-
-    bar = tqdm(total=n, desc=label, unit="replicate", disable=None if progress else True,
-               leave=False)  # fmt: skip
-    rows: list[np.ndarray | None] = [None] * n
-    if jobs == 1:
-        for k, seq in enumerate(seeds):
-            rows[k] = statistic(model, np.random.default_rng(seq))
-            bar.update(1)
-    else:
-        # a few chunks per worker: little pickling, and the bar still moves
-        size = max(1, n // (jobs * 4))
-        with ProcessPoolExecutor(
-            max_workers=jobs, initializer=_init_worker, initargs=(model, statistic)
-        ) as pool:
-            futures = [pool.submit(_run_replicates, seeds[i:i + size], i)
-                       for i in range(0, n, size)]  # fmt: skip
-            for fut in as_completed(futures):
-                first, block = fut.result()
-                for j, row in enumerate(block):
-                    rows[first + j] = row
-                bar.update(len(block))
-    bar.close()
+    engine = engine or LocalEngine(params.jobs)
+    rows = engine.map(
+        _replicate, seeds, shared=(model, statistic), work_size=model.snaps.n_entries * n,
+        progress=progress, label=label,
+    )  # fmt: skip
     return np.vstack(rows) if rows else np.empty((0, 0))
 
 
@@ -343,32 +315,20 @@ def monte_carlo_p(observed: np.ndarray, null: np.ndarray) -> np.ndarray:
     return (1.0 + exceed) / (1.0 + n)
 
 
-def bh_qvalues(p: np.ndarray) -> np.ndarray:
-    """Return Benjamini–Hochberg adjusted p-values (q-values).
+def summary_table(observed: np.ndarray, null: np.ndarray, alpha: float) -> pd.DataFrame:
+    """Return p_value, q_value, null_mean, null_sd, effect and significant per item.
 
-    q_(i) = min over j >= i of min(1, m p_(j) / j) for p sorted ascending.
+    ``q_value`` is the Benjamini–Hochberg adjusted p-value over all items, from
+    :func:`scipy.stats.false_discovery_control`.
 
     References
     ----------
     .. [1] Y. Benjamini, Y. Hochberg, "Controlling the false discovery rate: a
-       practical and powerful approach to multiple testing", JRSS B 57(1), 1995.
+       practical and powerful approach to multiple testing", Journal of the Royal
+       Statistical Society B 57(1), 289-300, 1995. doi:10.1111/j.2517-6161.1995.tb02031.x
     """
-    p = np.asarray(p, dtype=np.float64)
-    m = p.size
-    if m == 0:
-        return p.copy()
-    order = np.argsort(p, kind="stable")
-    scaled = p[order] * m / np.arange(1, m + 1)
-    q_sorted = np.minimum.accumulate(scaled[::-1])[::-1]
-    q = np.empty(m)
-    q[order] = np.minimum(q_sorted, 1.0)
-    return q
-
-
-def summary_table(observed: np.ndarray, null: np.ndarray, alpha: float) -> pd.DataFrame:
-    """Return p_value, q_value, null_mean, null_sd, effect and significant per item."""
     p = monte_carlo_p(observed, null)
-    q = bh_qvalues(p)
+    q = false_discovery_control(p, method="bh") if p.size else p.copy()
     mean = null.mean(axis=0) if null.size else np.full(observed.size, np.nan)
     sd = null.std(axis=0, ddof=1) if null.shape[0] > 1 else np.full(observed.size, np.nan)
     with np.errstate(divide="ignore", invalid="ignore"):
