@@ -18,9 +18,9 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from comove.alignment import Snapshots
-from comove.colocation import RATIO_EPS, LevelResult, RolePresence
+from comove.colocation import RATIO_EPS, LevelResult
 from comove.errors import InputError
+from comove.role_chain import RoleTally
 
 ROLE_SEP = ";"
 
@@ -121,26 +121,21 @@ def role_label(roles: np.ndarray, names: np.ndarray) -> str:
 
 
 def durable_patterns(
-    levels: list[LevelResult],
-    snaps: Snapshots,
+    tally: RoleTally,
     params: PersistenceParams,
     min_participation: float,
-    presence: RolePresence | None = None,
 ) -> PatternTables:
     """Return the role sets that persist, with their per-snapshot series.
 
     Parameters
     ----------
-    levels : list of LevelResult
-        Output of :func:`comove.colocation.mine_levels`.
-    snaps : Snapshots
-        The aligned snapshots the levels were mined from.
+    tally : RoleTally
+        Output of :func:`comove.role_chain.role_chain` (a whole run, or chunks
+        combined).
     params : PersistenceParams
         Thresholds.
     min_participation : float
         The participation-index threshold used by the miner.
-    presence : RolePresence, optional
-        Role presence of ``snaps``, when the caller already has it.
 
     Returns
     -------
@@ -159,13 +154,12 @@ def durable_patterns(
     .. [2] M. Celik, S. Shekhar, J. P. Rogers, J. A. Shine, "Mixed-drove
        spatiotemporal co-occurrence pattern mining", IEEE TKDE 20(10), 2008.
     """
-    presence = presence or RolePresence(snaps)
-    step_s = snaps.step_s
-    names = snaps.roles
+    step_s = tally.step_s
+    names = tally.roles
     pattern_rows: list[dict] = []
     part_rows: list[dict] = []
     series_parts: list[pd.DataFrame] = []
-    for level in levels:
+    for level in tally.levels:
         n_sets = level.roles.shape[0]
         present = level.present
         with np.errstate(invalid="ignore", divide="ignore"):
@@ -202,7 +196,7 @@ def durable_patterns(
                     "prevalent_seconds": float(level.prevalent[s] * step_s),
                     "longest_run_seconds": float(longest[s] * step_s),
                     "longest_run_start": pd.Timestamp(
-                        int(snaps.times(run_start[s : s + 1])[0]), tz="UTC"
+                        int(tally.times(run_start[s : s + 1])[0]), tz="UTC"
                     ),
                     "mean_participation_index": float(pi_sum[s] / present[s]),
                     "participation_ratios": ROLE_SEP.join(
@@ -219,7 +213,7 @@ def durable_patterns(
                         "mean_participation_ratio_when_prevalent": float(mean_pr_prev[c]),
                     }
                 )
-            series_parts.append(_series(level, s, label, snaps, presence, min_participation))
+            series_parts.append(_series(level, s, label, tally, min_participation))
     patterns = pd.DataFrame(pattern_rows, columns=PATTERN_COLUMNS)
     if len(patterns):
         patterns = patterns.sort_values(
@@ -254,22 +248,17 @@ SERIES_DTYPES = {
 
 
 def _series(
-    level: LevelResult,
-    s: int,
-    label: str,
-    snaps: Snapshots,
-    presence: RolePresence,
-    min_participation: float,
+    level: LevelResult, s: int, label: str, tally: RoleTally, min_participation: float
 ) -> pd.DataFrame:
     """Return PI of set ``s`` at every snapshot of present(C), zeros included."""
-    snap = presence.snapshots(level.roles[s])
+    snap = tally.presence.snapshots(level.roles[s])
     lo, hi = np.searchsorted(level.set_id, [s, s + 1])
     pi = np.zeros(snap.size, dtype=np.float64)
     pi[np.searchsorted(snap, level.snap[lo:hi])] = level.pi[lo:hi]
     return pd.DataFrame(
         {
             "roles": np.full(snap.size, label, dtype=object),
-            "time": pd.to_datetime(snaps.times(snap), utc=True),
+            "time": pd.to_datetime(tally.times(snap), utc=True),
             "participation_index": pi.astype(np.float32),
             "prevalent": pi >= min_participation - RATIO_EPS,
         }

@@ -26,7 +26,7 @@ import pandas as pd
 
 from comove.alignment import AlignParams, Snapshots, align, alignment_summary, track_sample
 from comove.cleaning import CleanParams, clean_fixes
-from comove.colocation import ColocationParams, RolePresence, mine_levels
+from comove.colocation import ColocationParams
 from comove.crossk import CrossKParams
 from comove.dyads import dyad_table
 from comove.episodes import (
@@ -53,6 +53,7 @@ from comove.results import (
     parquet_writer,
     write_folder,
 )
+from comove.role_chain import role_chain
 from comove.runfile import parse_grid
 from comove.significance import (
     TEST_COLUMNS,
@@ -259,30 +260,24 @@ def mine(source: Any, *, progress: bool = False, **options: Any) -> MiningResult
     )
     significance = significance.resolved()
     k_params = k_request.params()
-    bar = _Progress(progress, total=8)
+    bar = _Progress(progress, total=7)
     digest = _digest_beside(source)
     try:
         snaps, quality = _aligned(source, columns, cleaning, alignment, bar)
-        with bar.stage("neighbour search"):
-            pairs = neighbour_pairs(snaps, colocation.radius, workers=significance.jobs or -1)
         with bar.stage("co-location"):
-            presence = RolePresence(snaps)
-            levels = mine_levels(
+            tally = role_chain(
                 snaps,
-                pairs,
                 colocation,
                 min_prevalent_snapshots=persistence.min_prevalent_snapshots(snaps.step_s),
-                presence=presence,
+                workers=significance.jobs or -1,
             )
         with bar.stage("persistence"):
-            tables = durable_patterns(
-                levels, snaps, persistence, colocation.min_participation, presence
-            )
+            tables = durable_patterns(tally, persistence, colocation.min_participation)
         tests = None
         patterns = tables.patterns
         if significance.permutations > 0:
             with bar.stage("significance"):
-                tests = pattern_tests(snaps, levels, colocation, significance, progress)
+                tests = pattern_tests(snaps, tally, colocation, significance, progress)
                 patterns = patterns.merge(
                     tests[["roles", *TEST_COLUMNS]], on="roles", how="left", validate="1:1"
                 )

@@ -38,6 +38,7 @@ import pandas as pd
 from scipy.stats import false_discovery_control
 
 from comove.alignment import Snapshots
+from comove.colocation import encode_role_sets
 from comove.engine import Engine, LocalEngine
 from comove.errors import InputError
 
@@ -335,18 +336,13 @@ def summary_table(observed: np.ndarray, null: np.ndarray, alpha: float) -> pd.Da
         effect = np.where(mean > 0, observed / mean, np.where(observed > 0, np.inf, np.nan))
     return pd.DataFrame({
         "p_value": p, "q_value": q, "null_mean": mean, "null_sd": sd, "effect": effect,
-        "significant": q <= alpha,
+        # q-values of Monte Carlo p-values are exact fractions: one that equals alpha
+        # is significant, whatever the last bit of its floating-point rounding
+        "significant": q <= alpha * (1 + 1e-9),
     })  # fmt: skip
 
 
 # --------------------------------------------------------------------------- statistics
-
-
-def _codes(role_sets: np.ndarray, n_roles: int) -> np.ndarray:
-    code = np.zeros(role_sets.shape[0], dtype=np.int64)
-    for col in range(role_sets.shape[1]):
-        code = code * n_roles + role_sets[:, col]
-    return code
 
 
 @dataclass(frozen=True)
@@ -366,30 +362,24 @@ class RoleSetPrevalence:
 
     def __call__(self, model: NullModel, rng: np.random.Generator) -> np.ndarray:
         """Return the tested sets' time prevalence in one null replicate."""
+        from comove.role_chain import role_chain
+
         snaps, _ = model.draw(rng)
-        return role_set_prevalence(snaps, self.colocation, self.tested)
+        tally = role_chain(snaps, self.colocation, min_prevalent_snapshots=1)
+        return role_set_prevalence(tally.levels, self.tested, len(snaps.roles))
 
 
-def role_set_prevalence(
-    snaps: Snapshots, colocation: Any, tested: tuple[np.ndarray, ...]
-) -> np.ndarray:
-    """Return the time prevalence of each tested role set (0 where never prevalent)."""
-    from comove.colocation import RolePresence, mine_levels
-    from comove.neighbours import neighbour_pairs
-
-    n_roles = len(snaps.roles)
-    pairs = neighbour_pairs(snaps, colocation.radius)
-    levels = mine_levels(snaps, pairs, colocation, min_prevalent_snapshots=1,
-                         presence=RolePresence(snaps))  # fmt: skip
+def role_set_prevalence(levels: list, tested: tuple[np.ndarray, ...], n_roles: int) -> np.ndarray:
+    """Return the time prevalence of each tested role set in ``levels`` (0 where absent)."""
     by_size = {lv.size: lv for lv in levels}
     out = []
     for sets in tested:
         values = np.zeros(sets.shape[0])
         level = by_size.get(sets.shape[1]) if sets.size else None
         if level is not None and level.roles.shape[0]:
-            have = _codes(level.roles, n_roles)
+            have = encode_role_sets(level.roles, n_roles)
             order = np.argsort(have)
-            want = _codes(sets, n_roles)
+            want = encode_role_sets(sets, n_roles)
             pos = np.searchsorted(have[order], want)
             pos = np.minimum(pos, have.size - 1)
             hit = have[order][pos] == want
@@ -401,48 +391,16 @@ def role_set_prevalence(
     return np.concatenate(out) if out else np.empty(0)
 
 
-@dataclass(frozen=True)
-class PairTogether:
-    """Statistic: snapshots together (within the radius) of fixed object pairs.
-
-    Parameters
-    ----------
-    radius : float
-        Distance in metres.
-    keys : ndarray of int64
-        ``object_a * n_objects + object_b`` of each tested pair (a < b).
-    """
-
-    radius: float
-    keys: np.ndarray
-
-    def __call__(self, model: NullModel, rng: np.random.Generator) -> np.ndarray:
-        """Return the tested pairs' snapshots together in one null replicate."""
-        snaps, _ = model.draw(rng)
-        return pair_together(snaps, self.radius, self.keys)
-
-
-def pair_together(snaps: Snapshots, radius: float, keys: np.ndarray) -> np.ndarray:
-    """Return, per pair key, the number of snapshots the two objects are within ``radius``."""
-    from comove.neighbours import neighbour_pairs
-
-    n_obj = len(snaps.objects)
-    pairs = neighbour_pairs(snaps, radius)
-    a, b = snaps.obj[pairs.i].astype(np.int64), snaps.obj[pairs.j].astype(np.int64)
-    found = np.minimum(a, b) * n_obj + np.maximum(a, b)
-    counts = np.bincount(found, minlength=n_obj * n_obj)
-    return counts[keys].astype(np.float64)
-
-
 # --------------------------------------------------------------------------- families of tests
 
 
 def pattern_tests(
     snaps: Snapshots,
-    levels: list,
+    observed: Any,
     colocation: Any,
     params: SignificanceParams,
     progress: bool = False,
+    engine: Engine | None = None,
 ) -> pd.DataFrame:
     """Return Monte Carlo tests of the time prevalence of every role set mined.
 
@@ -453,14 +411,17 @@ def pattern_tests(
     ----------
     snaps : Snapshots
         The observed aligned snapshots.
-    levels : list of LevelResult
-        The observed levels from :func:`comove.colocation.mine_levels`.
+    observed : RoleTally
+        The observed tally from :func:`comove.role_chain.role_chain`; its
+        counts are the observed statistic (nothing is mined twice).
     colocation : ColocationParams
         The miner's settings, reused for every replicate.
     params : SignificanceParams
         Null model, replicates and seed (resolved).
     progress : bool, default False
         Show a progress bar.
+    engine : Engine, optional
+        Runs the replicates (default: local, ``params.jobs`` workers).
 
     Returns
     -------
@@ -470,17 +431,17 @@ def pattern_tests(
     """
     from comove.persistence import role_label
 
-    tested = tuple(lv.roles[lv.prevalent >= 1] for lv in levels)
-    observed = role_set_prevalence(snaps, colocation, tested)
+    tested = tuple(lv.roles[lv.prevalent >= 1] for lv in observed.levels)
+    values = role_set_prevalence(observed.levels, tested, len(snaps.roles))
     labels = [role_label(row, snaps.roles) for sets in tested for row in sets]
     sizes = [sets.shape[1] for sets in tested for _ in sets]
     model = NullModel(snaps, params)
     null = null_distribution(model, RoleSetPrevalence(colocation, tested), params, progress,
-                             label=f"{params.null} replicates")  # fmt: skip
-    table = summary_table(observed, null, params.alpha)
+                             label=f"{params.null} replicates", engine=engine)  # fmt: skip
+    table = summary_table(values, null, params.alpha)
     table.insert(0, "roles", pd.Series(labels, dtype=object))
     table.insert(1, "size", np.asarray(sizes, dtype=np.int64))
-    table.insert(2, "time_prevalence", observed)
+    table.insert(2, "time_prevalence", values)
     return table.sort_values(["p_value", "roles"], kind="stable").reset_index(drop=True)
 
 

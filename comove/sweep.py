@@ -19,13 +19,14 @@ import pandas as pd
 
 from comove.alignment import AlignParams, Snapshots
 from comove.cleaning import CleanParams
-from comove.colocation import RATIO_EPS, ColocationParams, RolePresence, mine_levels
+from comove.colocation import RATIO_EPS, ColocationParams
 from comove.engine import LocalEngine
 from comove.errors import InputError
 from comove.neighbours import NeighbourPairs, neighbour_pairs
 from comove.persistence import PersistenceParams, longest_runs, role_label
 from comove.reading import ColumnSpec
 from comove.results import csv_writer, json_writer, write_folder
+from comove.role_chain import role_chain
 
 SWEEP_COLUMNS = [
     "radius", "min_participation", "roles", "size", "time_prevalence", "prevalent_seconds",
@@ -89,10 +90,9 @@ def _grid_point(shared: _SweepInputs, point: tuple[float, float]) -> pd.DataFram
     subset = NeighbourPairs(pairs.i[within], pairs.j[within], float(radius))
     params = ColocationParams(radius=radius, min_participation=min_participation,
                               max_size=max_size)  # fmt: skip
-    levels = mine_levels(snaps, subset, params, min_prevalent_snapshots=1,
-                         presence=RolePresence(snaps))  # fmt: skip
+    tally = role_chain(snaps, params, min_prevalent_snapshots=1, pairs=subset)
     rows = []
-    for level in levels:
+    for level in tally.levels:
         with np.errstate(invalid="ignore", divide="ignore"):
             prevalence = level.prevalent / np.maximum(level.present, 1)
         kept = persistence.keeps(level.prevalent, level.present, snaps.step_s)

@@ -218,3 +218,12 @@ def test_nothing_to_test_gives_empty_tables_not_errors(tmp_path):
     assert (found.dyads["p_value"] == 1.0).all()  # never together, nor in any replicate
     mined.write(tmp_path / "r")
     found.write(tmp_path / "r", merge=True)
+
+
+def test_a_q_value_equal_to_alpha_is_significant():
+    # two items with p = 1/40 and 2/40 out of 39 replicates: BH q = 0.05 for both
+    null = np.zeros((39, 2))
+    null[:1, 1] = 1.0
+    table = summary_table(np.array([1.0, 1.0]), null, alpha=0.05)
+    np.testing.assert_allclose(table["q_value"], [0.05, 0.05])
+    assert table["significant"].all()
