@@ -710,9 +710,6 @@ class _EntryLookup:
 #: Cells (rows x member pairs) handled at once by the episode table; bounds its memory.
 TABLE_BLOCK = 1_000_000
 
-#: Episodes x roles above which the episode table finds role sets by sorting, not flags.
-MAX_ROLE_FLAGS = 50_000_000
-
 
 class _RowStats:
     """Per-row statistics of episodes: one row per (episode, snapshot of its span)."""
@@ -771,31 +768,46 @@ def _per_episode_mean(owner: np.ndarray, values: np.ndarray, use: np.ndarray, n:
         return np.where(count > 0, total / count, np.nan)
 
 
-def _role_sets(
-    snaps: Snapshots, owner: list[np.ndarray], codes: list[np.ndarray], n_ep: int
-) -> list[str]:
-    """Return per episode its roles (sorted names joined by ``MEMBER_SEP``).
+def episode_role_sets(snaps: Snapshots, episodes: Episodes) -> list[str]:
+    """Return per episode the roles its members had at their fixes within the episode.
 
-    ``owner`` and ``codes`` hold, block by block, the episode and role code of
-    every present member cell.
+    This is the one definition of an episode's role set, used by the episode
+    table and by the tests of episode counts: the names of every role held
+    by a member at a snapshot of the episode where it has data, sorted and
+    joined by ``MEMBER_SEP``. A member whose role never changes contributes
+    that role (it has data at the episode's end, so it has a fix inside);
+    only members whose role changes somewhere are looked up within the
+    episode's span.
+
+    Parameters
+    ----------
+    snaps : Snapshots
+        Aligned snapshots the episodes were found in.
+    episodes : Episodes
+        Output of :func:`find_episodes`.
+
+    Returns
+    -------
+    list of str
+        One label per episode.
     """
-    n_roles = len(snaps.roles)
     names = np.array([str(r) for r in snaps.roles], dtype=object)
-    order = np.argsort(names, kind="stable")
-    rank = np.empty(n_roles, dtype=np.int64)
-    rank[order] = np.arange(n_roles)
-    keys = [o * n_roles + rank[c] for o, c in zip(owner, codes, strict=True)]
-    if n_ep * n_roles <= MAX_ROLE_FLAGS:
-        seen = np.zeros(n_ep * n_roles, dtype=bool)
-        for k in keys:
-            seen[k] = True
-        flat = np.flatnonzero(seen)
-    else:
-        flat = np.unique(np.concatenate(keys)) if keys else np.zeros(0, dtype=np.int64)
-    ep, role = np.divmod(flat, n_roles)
-    cut = np.searchsorted(ep, np.arange(n_ep + 1))
-    by_name = names[order]
-    return [MEMBER_SEP.join(by_name[role[cut[k] : cut[k + 1]]]) for k in range(n_ep)]
+    order, bounds = snaps.object_order(), snaps.object_bounds()
+    main = snaps.main_roles()
+    role_sorted = snaps.role[order]
+    obj_sorted = snaps.obj[order]
+    changes = np.bincount(obj_sorted[role_sorted != main[obj_sorted]], minlength=len(snaps.objects))
+    labels = []
+    for members, start, end in zip(episodes.members, episodes.start.tolist(),
+                                   episodes.end.tolist(), strict=True):  # fmt: skip
+        roles = {int(main[m]) for m in members if not changes[m]}
+        for m in members[changes[members] > 0].tolist():  # members whose role changes
+            lo, hi = int(bounds[m]), int(bounds[m + 1])
+            at = snaps.snap[order[lo:hi]]
+            first, last = np.searchsorted(at, [start, end + 1])
+            roles.update(role_sorted[lo + first : lo + last].tolist())
+        labels.append(MEMBER_SEP.join(sorted(names[r] for r in roles)))
+    return labels
 
 
 def episode_table(
@@ -845,8 +857,6 @@ def episode_table(
     stats = _RowStats(n_rows)
     sizes = np.array([m.size for m in episodes.members], dtype=np.int64)
     lookup = _EntryLookup(snaps)
-    role_owner: list[np.ndarray] = []
-    role_code: list[np.ndarray] = []
     for size in np.unique(sizes).tolist():  # per episode size: rows of equal width
         eps = np.flatnonzero(sizes == size)
         member_rows = np.stack([episodes.members[k] for k in eps], axis=1)  # (size, eps)
@@ -858,9 +868,6 @@ def episode_table(
             owner = row_ep[r]
             entry = lookup.entries(row_snap[r], member_rows[:, np.searchsorted(eps, owner)])
             stats.fill(r, entry, pairs, snaps, motion, min_speed)
-            present = entry >= 0
-            role_owner.append(np.broadcast_to(owner, entry.shape)[present])
-            role_code.append(snaps.role[entry[present]].astype(np.int64))
     spaced = stats.n_both > 0  # snapshots with one member present have no spacing
     with np.errstate(invalid="ignore", divide="ignore"):
         row_spacing = stats.d_sum / stats.n_both
@@ -885,7 +892,7 @@ def episode_table(
             "duration_s": length * snaps.step_s,
             "size": sizes,
             "members": text([MEMBER_SEP.join(names[m]) for m in episodes.members]),
-            "roles": text(_role_sets(snaps, role_owner, role_code, n_ep)),
+            "roles": text(episode_role_sets(snaps, episodes)),
             "together_s": np.asarray(episodes.together, dtype=np.int64) * snaps.step_s,
             "mean_spacing_m": _per_episode_mean(row_ep, row_spacing, spaced, n_ep),
             "max_spacing_m": max_spacing,

@@ -458,7 +458,7 @@ class GroupStatistic:
     pair_keys : ndarray of int64
         ``object_a * n_objects + object_b`` of each tested pair.
     labels : tuple of str
-        Tested role sets of episodes (role names sorted, joined by ';').
+        Tested role sets of episodes (see :func:`comove.episodes.episode_role_sets`).
     vx, vy : ndarray
         Observed velocity of every entry, carried along with the entries.
     """
@@ -472,56 +472,70 @@ class GroupStatistic:
 
     def __call__(self, model: NullModel, rng: np.random.Generator) -> np.ndarray:
         """Return [time together of each pair, episodes of each role set] in one replicate."""
+        from comove.group_chain import group_chain
+        from comove.motion import Motion
+
         snaps, order = model.draw(rng)
         vx = self.vx if order is None else self.vx[order]
         vy = self.vy if order is None else self.vy[order]
-        return group_statistics(snaps, self, vx, vy)
+        tally = group_chain(snaps, self.grouping, self.episodes, motion=Motion(vx=vx, vy=vy))
+        return group_statistics(snaps, tally, self.pair_keys, self.labels)
 
 
-def group_statistics(snaps: Snapshots, stat: GroupStatistic, vx: np.ndarray,
-                     vy: np.ndarray) -> np.ndarray:  # fmt: skip
+def group_statistics(
+    snaps: Snapshots, tally: Any, pair_keys: np.ndarray, labels: tuple[str, ...]
+) -> np.ndarray:
     """Return [snapshots together per tested pair, episodes per tested role set]."""
-    from comove.episodes import find_episodes
-    from comove.grouping import linked_pairs, snapshot_groups
-    from comove.motion import Motion
-    from comove.neighbours import neighbour_pairs
+    from comove.episodes import episode_role_sets
 
-    n_obj = len(snaps.objects)
-    pairs = neighbour_pairs(snaps, stat.grouping.radius)
-    a, b = snaps.obj[pairs.i].astype(np.int64), snaps.obj[pairs.j].astype(np.int64)
-    counts = np.bincount(np.minimum(a, b) * n_obj + np.maximum(a, b), minlength=n_obj * n_obj)
-    together = counts[stat.pair_keys].astype(np.float64)
-    motion = Motion(vx=vx, vy=vy)
-    links = linked_pairs(pairs, motion, stat.grouping)
-    found = find_episodes(snaps, snapshot_groups(snaps, links, stat.grouping), stat.episodes)
-    main = snaps.main_roles()
-    tally: dict[str, int] = {}
-    for members in found.members:
-        label = ";".join(sorted({str(snaps.roles[main[m]]) for m in members}))
-        tally[label] = tally.get(label, 0) + 1
-    episodes = np.array([tally.get(label, 0) for label in stat.labels], dtype=np.float64)
+    together = tally.together(snaps, pair_keys)
+    found = episode_role_sets(snaps, tally.episodes)
+    tally_by_label = pd.Series(found, dtype=object).value_counts()
+    episodes = tally_by_label.reindex(list(labels), fill_value=0).to_numpy(np.float64)
     return np.concatenate([together, episodes])
 
 
 def group_tests(
     snaps: Snapshots,
+    observed: Any,
     dyads: pd.DataFrame,
+    episode_roles: pd.Series,
     grouping: Any,
     episodes: Any,
-    motion: Any,
     params: SignificanceParams,
     progress: bool = False,
+    engine: Engine | None = None,
 ) -> tuple[pd.DataFrame | None, pd.DataFrame]:
     """Return Monte Carlo tests of pairs' time together and role sets' episode counts.
 
     Pairs are tested only under the time shift: a role shuffle leaves every
     pair's time together unchanged, so it says nothing about pairs.
 
+    Parameters
+    ----------
+    snaps : Snapshots
+        The observed aligned snapshots.
+    observed : GroupTally
+        The observed result of :func:`comove.group_chain.group_chain`.
+    dyads : DataFrame
+        The observed dyad table (its ``object_a``, ``object_b`` pairs are tested).
+    episode_roles : Series
+        The observed episodes' role sets (the episode table's ``roles``); the
+        family tested is every role set with an observed episode.
+    grouping, episodes : GroupParams, EpisodeParams
+        The chain's settings, reused for every replicate.
+    params : SignificanceParams
+        Null model, replicates and seed (resolved).
+    progress : bool, default False
+        Show a progress bar.
+    engine : Engine, optional
+        Runs the replicates (default: local, ``params.jobs`` workers).
+
     Returns
     -------
     pair_tests : DataFrame or None
-        ``object_a``, ``object_b``, ``together_snapshots`` and the columns of
-        :func:`summary_table`; None under the role shuffle.
+        ``object_a``, ``object_b`` and the columns of :func:`summary_table`;
+        None under the role shuffle.
     role_tests : DataFrame
         ``roles``, ``episodes`` (observed count) and the columns of
         :func:`summary_table`.
@@ -533,29 +547,19 @@ def group_tests(
                                                       strict=True)],
         dtype=np.int64,
     )  # fmt: skip
-    from comove.episodes import find_episodes
-    from comove.grouping import linked_pairs, snapshot_groups
-    from comove.neighbours import neighbour_pairs
-
-    # the family of role sets: those with an observed episode
-    links = linked_pairs(neighbour_pairs(snaps, grouping.radius), motion, grouping)
-    observed_episodes = find_episodes(snaps, snapshot_groups(snaps, links, grouping), episodes)
-    main = snaps.main_roles()
-    labels = tuple(sorted({
-        ";".join(sorted({str(snaps.roles[main[m]]) for m in members}))
-        for members in observed_episodes.members
-    }))  # fmt: skip
-    stat = GroupStatistic(grouping, episodes, pair_keys, labels, motion.vx, motion.vy)
-    observed = group_statistics(snaps, stat, motion.vx, motion.vy)
+    labels = tuple(sorted(set(episode_roles.astype(str))))
+    stat = GroupStatistic(grouping, episodes, pair_keys, labels, observed.motion.vx,
+                          observed.motion.vy)  # fmt: skip
+    values = group_statistics(snaps, observed, pair_keys, labels)
     null = null_distribution(NullModel(snaps, params), stat, params, progress,
-                             label=f"{params.null} replicates")  # fmt: skip
+                             label=f"{params.null} replicates", engine=engine)  # fmt: skip
     k = pair_keys.size
-    role_tests = summary_table(observed[k:], null[:, k:], params.alpha)
+    role_tests = summary_table(values[k:], null[:, k:], params.alpha)
     role_tests.insert(0, "roles", pd.Series(list(labels), dtype=object))
-    role_tests.insert(1, "episodes", observed[k:].astype(np.int64))
+    role_tests.insert(1, "episodes", values[k:].astype(np.int64))
     if params.null != "time-shift":
         return None, role_tests
-    pair_tests = summary_table(observed[:k], null[:, :k], params.alpha)
+    pair_tests = summary_table(values[:k], null[:, :k], params.alpha)
     pair_tests.insert(0, "object_a", dyads["object_a"].to_numpy(dtype=object))
     pair_tests.insert(1, "object_b", dyads["object_b"].to_numpy(dtype=object))
     return pair_tests, role_tests
