@@ -36,7 +36,7 @@ import pandas as pd
 
 from comove.alignment import Snapshots
 from comove.errors import InputError
-from comove.grouping import SnapshotGroups
+from comove.grouping import GroupTimeline
 from comove.motion import Motion
 from comove.projection import working_to_input
 
@@ -133,23 +133,24 @@ class _Timeline:
     single integer operations, whatever the number of objects.
     """
 
-    def __init__(self, snaps: Snapshots, groups: SnapshotGroups, min_size: int, tol_snaps: int):
+    def __init__(self, line: GroupTimeline, min_size: int, tol_snaps: int):
         self.min_size = min_size
         self.tol = tol_snaps
-        n_obj = len(snaps.objects)
+        n_obj = line.n_objects
         self.n_obj = n_obj
-        # each object's present snapshots, for telling absence (no data) from separation
-        by_obj, bounds = snaps.object_order(), snaps.object_bounds()
-        self.present_at = [snaps.snap[by_obj[bounds[o] : bounds[o + 1]]] for o in range(n_obj)]
-        events = _presence_changes(self.present_at, snaps.n_snapshots, tol_snaps)
-        self.first, self.last, first_group = _spans(snaps, groups, events)
+        # each object's presence runs, for telling absence (no data) from separation
+        self.runs = [line.runs(o) for o in range(n_obj)]
+        events = _presence_changes(line, tol_snaps)
+        self.first, self.last, first_group = _spans(line, events)
         self._masks, self._bounds, self.group_span, self.group_words = _span_groups(
-            groups, snaps.obj[groups.entries], self.first, first_group, n_obj, min_size
+            line, self.first, first_group, min_size
         )
-        self.presence = _presence_masks(snaps, self.first)
-        self.presence_words = np.asarray(self.presence, dtype=np.uint64) if n_obj <= 63 else None
-        self._snaps = snaps
-        self._offsets = snaps.offsets() if n_obj > 63 else None
+        if n_obj <= 63:
+            self.presence = _presence_masks(line, self.first)
+            self.presence_words = np.asarray(self.presence, dtype=np.uint64)
+        else:
+            self._cursor = _PresenceCursor(line)
+            self.presence_words = None
         # together(members, k) per span, kept while a later span may look back at it
         self._memo: dict[int, dict[int, bool]] = {}
 
@@ -164,12 +165,9 @@ class _Timeline:
 
     def present(self, k: int) -> int:
         """Return the objects with data in span k as a bitmask."""
-        mask = self.presence[k]
-        if mask is None:  # more than 63 objects: built when first asked for
-            lo, hi = self._offsets[self.first[k]], self._offsets[self.first[k] + 1]
-            mask = _mask(self._snaps.obj[lo:hi])
-            self.presence[k] = mask
-        return mask
+        if self.presence_words is not None:
+            return self.presence[k]
+        return self._cursor.at(int(self.first[k]))  # more than 63 objects
 
     def last_fix_span(self, obj: int, k: int) -> int:
         """Return the span of the last fix of ``obj``, or -1 unless it is missing in span k.
@@ -177,13 +175,13 @@ class _Timeline:
         Missing: no data in the span, for no longer than the tolerance.
         """
         a, b = int(self.first[k]), int(self.last[k])
-        ps = self.present_at[obj]
-        i = int(np.searchsorted(ps, a))
-        if i < ps.size and ps[i] <= b:
+        run_first, run_last = self.runs[obj]
+        i = int(np.searchsorted(run_last, a))  # the first run that ends at a or later
+        if i < run_first.size and run_first[i] <= b:
             return -1  # it has data in the span, so it is present
-        if i == 0 or b - int(ps[i - 1]) > self.tol:
+        if i == 0 or b - int(run_last[i - 1]) > self.tol:
             return -1
-        return int(np.searchsorted(self.first, ps[i - 1], side="right")) - 1
+        return int(np.searchsorted(self.first, run_last[i - 1], side="right")) - 1
 
     def together(self, members: int, k: int) -> bool:
         """Tell whether ``members`` are together in span k.
@@ -241,8 +239,9 @@ class _Timeline:
         while t >= 0:  # step back to each member's latest data until all agree
             latest = []
             for m in bits:
-                i = int(np.searchsorted(self.present_at[m], t, side="right")) - 1
-                latest.append(int(self.present_at[m][i]) if i >= 0 else -1)
+                run_first, run_last = self.runs[m]
+                i = int(np.searchsorted(run_first, t, side="right")) - 1
+                latest.append(min(t, int(run_last[i])) if i >= 0 else -1)
             earliest = min(latest)
             if earliest == t:
                 return t
@@ -289,30 +288,18 @@ class _Timeline:
         return start
 
 
-def _presence_changes(present_at: list[np.ndarray], n_snap: int, tol_snaps: int) -> np.ndarray:
+def _presence_changes(line: GroupTimeline, tol_snaps: int) -> np.ndarray:
     """Return the snapshots at which some object's presence or excuse changes.
 
     These are where an object appears, where it disappears (the first snapshot
     without data after a stretch with data), and where an absence grows longer
     than the tolerance (so the absent member is no longer excused).
     """
-    events = []
-    for ps in present_at:  # per object: a few array operations on its own snapshots
-        if ps.size == 0:
-            continue
-        brk = np.flatnonzero(np.diff(ps) != 1)
-        run_first = np.r_[ps[0], ps[brk + 1]]
-        run_last = np.r_[ps[brk], ps[-1]]
-        events += [run_first, run_last + 1, run_last + tol_snaps + 1]
-    if not events:
-        return np.empty(0, dtype=np.int64)
-    out = np.concatenate(events)
-    return out[out < n_snap]
+    out = np.concatenate([line.run_first, line.run_last + 1, line.run_last + tol_snaps + 1])
+    return out[out < line.n_snapshots]
 
 
-def _spans(
-    snaps: Snapshots, groups: SnapshotGroups, events: np.ndarray
-) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def _spans(line: GroupTimeline, events: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Return (first snapshot, last snapshot, first group index) of each span.
 
     Spans end where the groups change or at ``events`` (see
@@ -323,50 +310,70 @@ def _spans(
     comparison).
     """
     rng = np.random.default_rng(0x5EED)
-    keys = rng.integers(1, 2**63 - 1, size=len(snaps.objects), dtype=np.int64).astype(np.uint64)
-    n_snap = snaps.n_snapshots
+    keys = rng.integers(1, 2**63 - 1, size=line.n_objects, dtype=np.int64).astype(np.uint64)
+    n_snap = line.n_snapshots
     snap_hash = np.zeros(n_snap, dtype=np.uint64)
-    if groups.n_groups:
-        obj_keys = keys[snaps.obj[groups.entries]]
-        group_hash = np.bitwise_xor.reduceat(obj_keys, groups.offsets[:-1])
+    if line.group_snap.size:
+        obj_keys = keys[line.group_objects]
+        group_hash = np.bitwise_xor.reduceat(obj_keys, line.group_offsets[:-1])
         # a multiply-xorshift mix, so that sums of group hashes do not cancel
         mixed = group_hash * np.uint64(0x9E3779B97F4A7C15)
         mixed ^= mixed >> np.uint64(29)
         with np.errstate(over="ignore"):
-            np.add.at(snap_hash, groups.snap, mixed)
+            np.add.at(snap_hash, line.group_snap, mixed)
     change = np.ones(n_snap, dtype=bool)
     change[1:] = snap_hash[1:] != snap_hash[:-1]
     change[events] = True
     first = np.flatnonzero(change)
     last = np.append(first[1:] - 1, n_snap - 1)
-    first_group = np.searchsorted(groups.snap, first, side="left")
+    first_group = np.searchsorted(line.group_snap, first, side="left")
     return first, last, first_group
 
 
-def _presence_masks(snaps: Snapshots, first: np.ndarray) -> list:
-    """Return, per span start, the objects with data as an int bitmask (None: build lazily).
+def _presence_masks(line: GroupTimeline, first: np.ndarray) -> list[int]:
+    """Return, per span start, the objects with data as an int bitmask (63 objects at most)."""
+    masks = np.zeros(first.size, dtype=np.uint64)
+    for o in range(line.n_objects):  # per object: one search of its runs for every span
+        run_first, run_last = line.runs(o)
+        if run_first.size == 0:
+            continue
+        i = np.searchsorted(run_last, first)  # the first run that ends at the span or later
+        inside = (i < run_first.size) & (run_first[np.minimum(i, run_first.size - 1)] <= first)
+        masks[inside] |= np.uint64(1 << o)
+    return masks.tolist()
 
-    With at most 63 objects every mask is one machine word and all are built at
-    once; with more, each is left to be built when first asked for.
+
+class _PresenceCursor:
+    """The objects with data at a snapshot, as an int bitmask, for any number of objects.
+
+    Presence changes only where a run starts or ends, so the mask is kept at
+    the last snapshot asked for and updated by the changes since; the search
+    asks for span starts in increasing order.
     """
-    if len(snaps.objects) > 63:
-        return [None] * first.size
-    offsets = snaps.offsets()
-    filled = np.diff(offsets) > 0
-    per_snap = np.zeros(snaps.n_snapshots, dtype=np.uint64)
-    if snaps.n_entries:
-        # each segment runs to the next filled snapshot's first entry: empty ones add nothing
-        per_snap[filled] = _word_masks(snaps.obj, offsets[:-1][filled])
-    return per_snap[first].tolist()
+
+    def __init__(self, line: GroupTimeline) -> None:
+        owner = np.repeat(np.arange(line.n_objects), np.diff(line.run_bounds))
+        when = np.concatenate([line.run_first, line.run_last + 1])
+        order = np.argsort(when, kind="stable")
+        self.when = when[order]
+        self.who = np.concatenate([owner, owner])[order].tolist()
+        self.t = -1
+        self.done = 0
+        self.mask = 0
+
+    def at(self, t: int) -> int:
+        """Return the bitmask of the objects with data at snapshot ``t``."""
+        if t < self.t:
+            self.t, self.done, self.mask = -1, 0, 0
+        upto = int(np.searchsorted(self.when, t, side="right"))
+        for o in self.who[self.done : upto]:  # each run's start and end, once
+            self.mask ^= 1 << o
+        self.t, self.done = t, upto
+        return self.mask
 
 
 def _span_groups(
-    groups: SnapshotGroups,
-    member_obj: np.ndarray,
-    first: np.ndarray,
-    first_group: np.ndarray,
-    n_obj: int,
-    min_size: int,
+    line: GroupTimeline, first: np.ndarray, first_group: np.ndarray, min_size: int
 ) -> tuple[list[int], list[int], np.ndarray, np.ndarray | None]:
     """Return the groups of at least ``min_size`` members at each span start.
 
@@ -382,29 +389,28 @@ def _span_groups(
         The same bitmasks as one array, when objects fit in 63 bits.
     """
     n_spans = first.size
-    count = np.searchsorted(groups.snap, first, side="right") - first_group
+    count = np.searchsorted(line.group_snap, first, side="right") - first_group
     total = int(count.sum())
     # the group indices of every span, in order: first_group[k] + 0, 1, ..., count[k] - 1
     start_at = np.repeat(np.cumsum(count) - count, count)
     idx = np.arange(total) - start_at + np.repeat(first_group, count)
     span_of = np.repeat(np.arange(n_spans), count)
-    big = groups.sizes()[idx] >= min_size
+    big = np.diff(line.group_offsets)[idx] >= min_size
     idx, span_of = idx[big], span_of[big]
-    masks = _group_masks(member_obj, groups.offsets, n_obj, idx)
+    masks = _group_masks(line.group_objects, line.group_offsets, line.n_objects, idx)
     bounds = np.searchsorted(span_of, np.arange(n_spans + 1)).tolist()
-    words = np.asarray(masks, dtype=np.uint64) if n_obj <= 63 else None
+    words = np.asarray(masks, dtype=np.uint64) if line.n_objects <= 63 else None
     return masks, bounds, span_of, words
 
 
-def find_episodes(snaps: Snapshots, groups: SnapshotGroups, params: EpisodeParams) -> Episodes:
+def find_episodes(timeline: GroupTimeline, params: EpisodeParams) -> Episodes:
     """Return the maximal episodes of objects that stay grouped.
 
     Parameters
     ----------
-    snaps : Snapshots
-        Aligned snapshots.
-    groups : SnapshotGroups
-        Groups at every snapshot.
+    timeline : GroupTimeline
+        Groups at every snapshot and each object's presence, of a whole run or
+        of consecutive chunks joined (:meth:`GroupTimeline.joined`).
     params : EpisodeParams
         Size, duration and tolerance.
 
@@ -443,11 +449,11 @@ def find_episodes(snaps: Snapshots, groups: SnapshotGroups, params: EpisodeParam
     .. [3] A. L. Zobrist, "A new hashing method with application for game
        playing", Technical Report 88, University of Wisconsin, 1970.
     """
-    step = snaps.step_s
+    step = timeline.step_s
     tol_snaps = int(np.floor(params.tolerance / step + 1e-9))
     min_snaps = max(1, int(np.ceil(params.min_duration / step - 1e-9)))
     min_size = int(params.min_size)
-    line = _Timeline(snaps, groups, min_size, tol_snaps)
+    line = _Timeline(timeline, min_size, tol_snaps)
 
     # live: members -> [start, last snapshot seen together, flags, snapshots together in
     # [start, seen]]. Flags: GAPPED, the set was not together at every snapshot since its

@@ -4,6 +4,16 @@
 ``groups`` and the null replicates of its tests call it. What it returns,
 :class:`GroupTally`, carries every intermediate result a caller may reuse
 (the neighbour pairs for the dyads, the velocities for the episode table).
+
+Over time chunks. Everything up to the per-snapshot groups is local to a
+snapshot, except velocities, which reach :func:`~comove.motion.half_window_snapshots`
+snapshots to each side: :func:`chunk_timeline` works on a chunk with that
+many snapshots of context on each side and keeps only its own snapshots, so
+its groups are exactly the whole run's. The chunks' timelines join
+(:meth:`~comove.grouping.GroupTimeline.joined`: groups concatenated, each
+object's presence runs stitched where they meet at a chunk edge), and the
+episode search runs over the joined timeline, so episodes that cross chunk
+edges, or tolerated gaps that do, are found as in one piece.
 """
 
 from __future__ import annotations
@@ -15,8 +25,14 @@ import numpy as np
 
 from comove.alignment import Snapshots
 from comove.episodes import EpisodeParams, Episodes, find_episodes
-from comove.grouping import GroupParams, SnapshotGroups, linked_pairs, snapshot_groups
-from comove.motion import Motion, entry_motion
+from comove.grouping import (
+    GroupParams,
+    GroupTimeline,
+    SnapshotGroups,
+    linked_pairs,
+    snapshot_groups,
+)
+from comove.motion import Motion, entry_motion, half_window_snapshots
 from comove.neighbours import NeighbourPairs, neighbour_pairs
 
 
@@ -111,7 +127,45 @@ def group_chain(
         motion = entry_motion(snaps, grouping.velocity_window, workers=workers)
     if before_search is not None:
         before_search(pairs, motion)
-    links = linked_pairs(pairs, motion, grouping)
-    groups = snapshot_groups(snaps, links, grouping)
-    found = find_episodes(snaps, groups, episodes)
+    groups = _groups(snaps, pairs, motion, grouping)
+    found = find_episodes(GroupTimeline.of(snaps, groups), episodes)
     return GroupTally(pairs=pairs, motion=motion, groups=groups, episodes=found)
+
+
+def _groups(
+    snaps: Snapshots, pairs: NeighbourPairs, motion: Motion, grouping: GroupParams
+) -> SnapshotGroups:
+    """Return the per-snapshot groups of the pairs that also move alike."""
+    return snapshot_groups(snaps, linked_pairs(pairs, motion, grouping), grouping)
+
+
+def chunk_timeline(
+    snaps: Snapshots, start: int, stop: int, grouping: GroupParams, workers: int = 1
+) -> GroupTimeline:
+    """Return the group timeline of snapshots ``start`` to ``stop - 1`` of ``snaps``.
+
+    Velocities are computed with the snapshots around the chunk that they
+    depend on, so the chunk's groups equal those of the whole run there; the
+    timelines of consecutive chunks join into the whole run's
+    (:meth:`~comove.grouping.GroupTimeline.joined`), for :func:`find_episodes`.
+
+    Parameters
+    ----------
+    snaps : Snapshots
+        The aligned snapshots (only the chunk and its context are read).
+    start, stop : int
+        The chunk's snapshots.
+    grouping : GroupParams
+        Radius, motion predicates and group mode.
+    workers : int, default 1
+        Threads of the neighbour search and velocities (-1: every core).
+    """
+    reach = half_window_snapshots(grouping.velocity_window, snaps.step_s)
+    chunk = snaps.window(start, stop)
+    outer = snaps.window(start - reach, stop + reach)
+    before = chunk.first_index - outer.first_index
+    lo, hi = outer.offsets()[[before, before + chunk.n_snapshots]]
+    around = entry_motion(outer, grouping.velocity_window, workers=workers)
+    motion = Motion(vx=around.vx[lo:hi], vy=around.vy[lo:hi])
+    pairs = neighbour_pairs(chunk, grouping.radius, workers=workers)
+    return GroupTimeline.of(chunk, _groups(chunk, pairs, motion, grouping))
