@@ -385,19 +385,27 @@ def mine_levels(
             break
         if on_level:
             on_level(k, candidates.shape[0])
-        instances, instance_set = _join_instances(snaps, level, keep, candidates, edge_keys)
-        # candidates without any row instance can never be prevalent: drop them
-        has, _ = _unique(instance_set)
-        remap = np.full(candidates.shape[0], -1, dtype=np.int64)
-        remap[has] = np.arange(has.size)
-        level = _level_from_instances(
-            snaps,
-            candidates[has],
-            instances,
-            remap[instance_set],
-            role_counts,
-            presence,
-            params.min_participation,
-        )
+        level = _next_level(snaps, level, keep, candidates, edge_keys, role_counts, presence,
+                            params.min_participation)  # fmt: skip
         levels.append(level)
     return levels
+
+
+def _next_level(
+    snaps: Snapshots,
+    level: LevelResult,
+    keep: np.ndarray,
+    candidates: np.ndarray,
+    edge_keys: np.ndarray,
+    role_counts: RoleCounts,
+    presence: RolePresence,
+    min_participation: float,
+) -> LevelResult:
+    """Return the level of ``candidates`` joined from the kept sets of ``level``."""
+    instances, instance_set = _join_instances(snaps, level, keep, candidates, edge_keys)
+    # candidates without any row instance can never be prevalent: drop them
+    has, _ = _unique(instance_set)
+    remap = np.full(candidates.shape[0], -1, dtype=np.int64)
+    remap[has] = np.arange(has.size)
+    return _level_from_instances(snaps, candidates[has], instances, remap[instance_set],
+                                 role_counts, presence, min_participation)  # fmt: skip

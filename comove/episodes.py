@@ -455,74 +455,72 @@ def find_episodes(timeline: GroupTimeline, params: EpisodeParams) -> Episodes:
     min_size = int(params.min_size)
     line = _Timeline(timeline, min_size, tol_snaps)
 
-    # live: members -> [start, last snapshot seen together, flags, snapshots together in
-    # [start, seen]]. Flags: GAPPED, the set was not together at every snapshot since its
-    # start (a tolerated separation, or missing members excused); EXCUSED, missing
-    # members were excused, so a part of the set was not necessarily together whenever
-    # the set was and a part's own run must be looked up; UNSURE, the count is only a
-    # lower bound (a part of a gapped set may have been together while the set was
-    # apart) and is recounted when the candidate closes.
+    search = _Search(line, min_size, min_snaps, tol_snaps)
     live: dict[int, list[int]] = {}
-    closed: list[tuple[frozenset, int, int, int]] = []
+    for k in range(line.n_spans):  # per span of constant groups, not per snapshot
+        live = search.span(live, k)
+        line.forget_before(k)
+    for members, (start, seen, flags, count) in live.items():
+        search.close(members, start, seen, flags, count)
+    return _maximal(search.closed, tol_snaps)
 
-    def close(members: int, start: int, seen: int, flags: int, count: int) -> None:
+
+class _Search:
+    """The candidate-intersection search over spans (see :func:`find_episodes`).
+
+    Live candidates map members -> [start, last snapshot seen together, flags,
+    snapshots together in [start, seen]]. Flags: GAPPED, the set was not
+    together at every snapshot since its start (a tolerated separation, or
+    missing members excused); EXCUSED, missing members were excused, so a part
+    of the set was not necessarily together whenever the set was and a part's
+    own run must be looked up; UNSURE, the count is only a lower bound (a part
+    of a gapped set may have been together while the set was apart) and is
+    recounted when the candidate closes.
+    """
+
+    def __init__(self, line: _Timeline, min_size: int, min_snaps: int, tol_snaps: int) -> None:
+        self.line = line
+        self.min_size = min_size
+        self.min_snaps = min_snaps
+        self.tol = tol_snaps
+        self.closed: list[tuple[frozenset, int, int, int]] = []
+
+    def close(self, members: int, start: int, seen: int, flags: int, count: int) -> None:
+        """Record a candidate that has ended, if it lasts long enough."""
+        line = self.line
         end = line.last_present(members, seen)
-        if end - start + 1 < min_snaps:
+        if end - start + 1 < self.min_snaps:
             return
         if flags & UNSURE:
             count = line.time_together(members, start, end)
         elif end < seen:  # the last snapshots lacked a member's data: not in the span
             count -= line.time_together(members, end + 1, seen)
-        if count >= min_snaps:
-            closed.append((frozenset(_bits(members)), start, end, count))
+        if count >= self.min_snaps:
+            self.closed.append((frozenset(_bits(members)), start, end, count))
 
-    for k in range(line.n_spans):  # per span of constant groups, not per snapshot
+    def span(self, live: dict[int, list[int]], k: int) -> dict[int, list[int]]:
+        """Return the live candidates after span k."""
+        line, min_size = self.line, self.min_size
         a, b = int(line.first[k]), int(line.last[k])
         n_k = b - a + 1
         groups_k = line.groups(k)
         nxt: dict[int, list[int]] = {}
-        for members, (start, seen, flags, count) in live.items():
-            whole = False
+        for members, record in live.items():
             parts = []
             for grp in groups_k:
                 common = members & grp
                 if common == members:
-                    whole = True
                     break
                 if common.bit_count() >= min_size:
                     parts.append(common)
-            if whole:
-                if members in nxt:
-                    _offer(nxt, members, start, b, flags, count + n_k)
-                else:  # the usual case, inline: no other way reached this set yet
-                    nxt[members] = [start, b, flags, count + n_k]
+            else:  # no group holds the whole set
+                self._not_whole(nxt, members, record, parts, k)
                 continue
-            missing = members & ~line.present(k) if parts else 0
-            if missing and line.together(members, k):  # by excusing missing members
-                whole = True
-                _offer(nxt, members, start, b, flags | GAPPED | EXCUSED, count + n_k)
-            # The parts still together (when the set is together by excusing missing
-            # members, its present part, which may outlast the whole set's end). A part was
-            # together whenever the set was; more often if the set was ever apart.
-            part_flags = flags | UNSURE if flags & GAPPED else flags
-            for common in parts:
-                if flags & EXCUSED:  # not even whenever the set was: look its run up
-                    run = line.run_start(common, k, start)
-                    _offer(nxt, common, run, b, part_flags | UNSURE, 0)
-                else:
-                    _offer(nxt, common, start, b, part_flags, count + n_k)
-                if not whole and missing:  # and the part with its missing members
-                    grown = line.with_missing(common, missing, k)
-                    if grown != common:
-                        run = line.run_start(grown, k, start)
-                        _offer(nxt, grown, run, b, part_flags | GAPPED | EXCUSED | UNSURE, 0)
-            if whole:
-                continue
-            # apart for this whole span (nothing changes within it)
-            if b - seen <= tol_snaps:
-                _offer(nxt, members, start, seen, flags | GAPPED, count)
-            else:
-                close(members, start, seen, flags, count)
+            start, _, flags, count = record
+            if members in nxt:
+                _offer(nxt, members, start, b, flags, count + n_k)
+            else:  # the usual case, inline: no other way reached this set yet
+                nxt[members] = [start, b, flags, count + n_k]
         for grp in groups_k:
             if grp in nxt:
                 _offer(nxt, grp, a, b, 0, n_k)
@@ -532,11 +530,43 @@ def find_episodes(timeline: GroupTimeline, params: EpisodeParams) -> Episodes:
         # was together throughout can go: the final maximality filter would remove them
         # anyway. Only pruned when many are live (measured: ~1 % of candidates pruned
         # in a 25 Hz match, for 60 % of the time of the whole search).
-        live = _prune_dominated(nxt) if len(nxt) > PRUNE_ABOVE else nxt
-        line.forget_before(k)
-    for members, (start, seen, flags, count) in live.items():
-        close(members, start, seen, flags, count)
-    return _maximal(closed, tol_snaps)
+        return _prune_dominated(nxt) if len(nxt) > PRUNE_ABOVE else nxt
+
+    def _not_whole(
+        self, nxt: dict[int, list[int]], members: int, record: list[int], parts: list[int], k: int
+    ) -> None:
+        """Carry on a candidate no group of span k holds whole: excused, split, or apart."""
+        line = self.line
+        start, seen, flags, count = record
+        b = int(line.last[k])
+        n_k = b - int(line.first[k]) + 1
+        whole = False
+        missing = members & ~line.present(k) if parts else 0
+        if missing and line.together(members, k):  # by excusing missing members
+            whole = True
+            _offer(nxt, members, start, b, flags | GAPPED | EXCUSED, count + n_k)
+        # The parts still together (when the set is together by excusing missing
+        # members, its present part, which may outlast the whole set's end). A part was
+        # together whenever the set was; more often if the set was ever apart.
+        part_flags = flags | UNSURE if flags & GAPPED else flags
+        for common in parts:
+            if flags & EXCUSED:  # not even whenever the set was: look its run up
+                run = line.run_start(common, k, start)
+                _offer(nxt, common, run, b, part_flags | UNSURE, 0)
+            else:
+                _offer(nxt, common, start, b, part_flags, count + n_k)
+            if not whole and missing:  # and the part with its missing members
+                grown = line.with_missing(common, missing, k)
+                if grown != common:
+                    run = line.run_start(grown, k, start)
+                    _offer(nxt, grown, run, b, part_flags | GAPPED | EXCUSED | UNSURE, 0)
+        if whole:
+            return
+        # apart for this whole span (nothing changes within it)
+        if b - seen <= self.tol:
+            _offer(nxt, members, start, seen, flags | GAPPED, count)
+        else:
+            self.close(members, start, seen, flags, count)
 
 
 def _offer(
@@ -816,6 +846,37 @@ def episode_role_sets(snaps: Snapshots, episodes: Episodes) -> list[str]:
     return labels
 
 
+def _text_column(values: list[str]) -> pd.Series:
+    """Return a text column, typed as text also when it is empty."""
+    return pd.Series(values, dtype="str")
+
+
+def _row_stats(
+    snaps: Snapshots,
+    episodes: Episodes,
+    sizes: np.ndarray,
+    row_ep: np.ndarray,
+    row_snap: np.ndarray,
+    motion: Motion,
+    min_speed: float,
+) -> _RowStats:
+    """Return the statistics of every (episode, snapshot) row, by episode size, in blocks."""
+    stats = _RowStats(row_ep.size)
+    lookup = _EntryLookup(snaps)
+    for size in np.unique(sizes).tolist():  # per episode size: rows of equal width
+        eps = np.flatnonzero(sizes == size)
+        member_rows = np.stack([episodes.members[k] for k in eps], axis=1)  # (size, eps)
+        pairs = np.triu_indices(size, 1)
+        rows = np.flatnonzero(sizes[row_ep] == size)
+        step = max(1, TABLE_BLOCK // max(size, pairs[0].size))
+        for r0 in range(0, rows.size, step):  # per block of rows
+            r = rows[r0 : r0 + step]
+            owner = row_ep[r]
+            entry = lookup.entries(row_snap[r], member_rows[:, np.searchsorted(eps, owner)])
+            stats.fill(r, entry, pairs, snaps, motion, min_speed)
+    return stats
+
+
 def episode_table(
     snaps: Snapshots, episodes: Episodes, motion: Motion, min_speed: float
 ) -> tuple[pd.DataFrame, list[np.ndarray]]:
@@ -857,23 +918,10 @@ def episode_table(
     start = np.asarray(episodes.start, dtype=np.int64)
     length = np.asarray(episodes.end, dtype=np.int64) - start + 1
     first_row = np.concatenate([[0], np.cumsum(length)])
-    n_rows = int(first_row[-1])
-    row_ep = np.repeat(np.arange(n_ep), length)
-    row_snap = np.arange(n_rows, dtype=np.int64) - first_row[row_ep] + start[row_ep]
-    stats = _RowStats(n_rows)
+    row_ep = np.repeat(np.arange(n_ep), length)  # one row per (episode, snapshot of its span)
+    row_snap = np.arange(first_row[-1], dtype=np.int64) - first_row[row_ep] + start[row_ep]
     sizes = np.array([m.size for m in episodes.members], dtype=np.int64)
-    lookup = _EntryLookup(snaps)
-    for size in np.unique(sizes).tolist():  # per episode size: rows of equal width
-        eps = np.flatnonzero(sizes == size)
-        member_rows = np.stack([episodes.members[k] for k in eps], axis=1)  # (size, eps)
-        pairs = np.triu_indices(size, 1)
-        rows = np.flatnonzero(sizes[row_ep] == size)
-        step = max(1, TABLE_BLOCK // max(size, pairs[0].size))
-        for r0 in range(0, rows.size, step):  # per block of rows
-            r = rows[r0 : r0 + step]
-            owner = row_ep[r]
-            entry = lookup.entries(row_snap[r], member_rows[:, np.searchsorted(eps, owner)])
-            stats.fill(r, entry, pairs, snaps, motion, min_speed)
+    stats = _row_stats(snaps, episodes, sizes, row_ep, row_snap, motion, min_speed)
     spaced = stats.n_both > 0  # snapshots with one member present have no spacing
     with np.errstate(invalid="ignore", divide="ignore"):
         row_spacing = stats.d_sum / stats.n_both
@@ -883,9 +931,7 @@ def episode_table(
         max_spacing = np.maximum.reduceat(stats.d_max, first_row[:-1])
         max_spacing[np.bincount(row_ep, weights=spaced, minlength=n_ep) == 0] = np.nan
     names = np.array([str(o) for o in snaps.objects], dtype=object)
-
-    def text(values: list[str]) -> pd.Series:
-        return pd.Series(values, dtype="str")  # also when there are no episodes
+    text = _text_column
 
     def utc(snapshot: np.ndarray) -> pd.DatetimeIndex:
         return pd.to_datetime(snaps.times(snapshot).astype("datetime64[ns]"), utc=True)
@@ -908,10 +954,17 @@ def episode_table(
         },
         columns=EPISODE_COLUMNS,
     )
-    kept = np.flatnonzero(observed)
+    return table, _centroid_paths(snaps, stats, row_ep, row_snap, n_ep)
+
+
+def _centroid_paths(
+    snaps: Snapshots, stats: _RowStats, row_ep: np.ndarray, row_snap: np.ndarray, n_ep: int
+) -> list[np.ndarray]:
+    """Return per episode its (time ns, centroid x, centroid y) rows where a member has data."""
+    kept = np.flatnonzero(stats.n_present > 0)
     path = np.column_stack([snaps.times(row_snap[kept]), stats.cx[kept], stats.cy[kept]])
     cuts = np.cumsum(np.bincount(row_ep[kept], minlength=n_ep))[:-1]
-    return table, np.split(path, cuts) if n_ep else []
+    return np.split(path, cuts) if n_ep else []
 
 
 EPISODE_COLUMNS = [
