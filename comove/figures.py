@@ -26,7 +26,7 @@ from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.colors import ListedColormap
 from matplotlib.figure import Figure
 
-from comove.cleaning import human_seconds
+from comove.times import human_seconds
 
 #: Okabe–Ito colours without black, for lines and bars (Okabe & Ito 2008).
 PALETTE: tuple[str, ...] = (
