@@ -2,6 +2,20 @@
 
 The result is a compact column store of fixes sorted by object and time, plus a quality
 report that accounts for every row read.
+
+Each row is dropped for the first reason that applies, tested in this order:
+``missing_id``; ``missing_role`` (only when roles are required; otherwise a missing role
+becomes ``""``); ``missing_coordinates`` (NaN or infinite); ``coordinates_out_of_range``
+(lon/lat input outside [-180, 180] x [-90, 90], or "crs" input the transformation cannot
+take to lon/lat); ``unparseable_time``; ``exact_duplicate`` (same object, time, position
+and role as a kept row: merged into it); ``conflicting_duplicate`` (same object and time,
+different position or role: all such rows go, since the true position is unknown);
+``speed_spike`` (only with ``max_speed``: a fix reached and left faster than
+``max_speed``, or a track's first or last fix whose one adjacent speed is too fast;
+repeated for at most ten passes). A first or last fix whose neighbour is itself an
+interior spike waits for the next pass, when that spike is gone, so that one bad fix does
+not take a good end fix with it. A two-fix track that is too fast loses both fixes, since
+nothing tells which one is wrong.
 """
 
 from __future__ import annotations
@@ -16,7 +30,7 @@ import pyproj
 from comove.errors import InputError
 from comove.projection import crs_to_lonlat, local_metric_crs, to_metric
 from comove.reading import RawTracks
-from comove.times import human_seconds, parse_times, utc_iso
+from comove.times import ParsedTimes, human_seconds, parse_times, utc_iso
 
 __all__ = ["DROP_REASONS", "CleanParams", "Fixes", "clean_fixes", "format_quality_summary"]
 
@@ -274,54 +288,108 @@ def clean_fixes(raw: RawTracks, params: CleanParams | None = None) -> tuple[Fixe
 
     Notes
     -----
-    Each row is dropped for the first reason that applies, tested in this order:
-    ``missing_id``; ``missing_role`` (only when roles are required; otherwise a missing role
-    becomes ``""``); ``missing_coordinates`` (NaN or infinite); ``coordinates_out_of_range``
-    (lon/lat input outside [-180, 180] x [-90, 90], or "crs" input the transformation cannot
-    take to lon/lat); ``unparseable_time``; ``exact_duplicate`` (same object, time, position
-    and role as a kept row: merged into it); ``conflicting_duplicate`` (same object and time,
-    different position or role: all such rows go, since the true position is unknown);
-    ``speed_spike`` (only with ``max_speed``: a fix reached and left faster than
-    ``max_speed``, or a track's first or last fix whose one adjacent speed is too fast;
-    repeated for at most ten passes). A first or last fix whose neighbour is itself an
-    interior spike waits for the next pass, when that spike is gone, so that one bad fix does
-    not take a good end fix with it. A two-fix track that is too fast loses both fixes, since
-    nothing tells which one is wrong.
+    Each row is dropped for the first reason in :data:`DROP_REASONS` that applies; the
+    module docstring defines each. Lon/lat input is projected to
+    :func:`comove.projection.local_metric_crs`; "crs" input is first taken to lon/lat, so
+    distances are true metres even for distorting CRSs such as Web Mercator; planar input is
+    used as it is.
 
-    Lon/lat input is projected to :func:`comove.projection.local_metric_crs`; "crs" input is
-    first taken to lon/lat, so distances are true metres even for distorting CRSs such as
-    Web Mercator; planar input is used as it is.
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> from comove.reading import read_tracks
+    >>> frame = pd.DataFrame({"id": ["a", "a", "a", "b"], "time": [1, 0, 1, 0],
+    ...                       "x": [1.0, 0.0, 1.0, None], "y": 0.0, "role": "r"})
+    >>> fixes, quality = clean_fixes(read_tracks(frame))
+    >>> fixes.objects.tolist(), fixes.time.tolist(), fixes.x.tolist()
+    (['a'], [0, 1000000000], [0.0, 1.0])
+    >>> {reason: n for reason, n in quality["dropped"].items() if n}
+    {'missing_coordinates': 1, 'exact_duplicate': 1}
     """
     params = params if params is not None else CleanParams()
     frame = raw.frame.reset_index(drop=True)
-    n = len(frame)
-    reason = np.full(n, -1, dtype=np.int8)
+    rows = _mark_invalid(raw, frame)
+    kept = _resolve_duplicates(rows)
+    metric_crs, input_crs = _project(raw, rows, kept)
+    passes = _drop_speed_spikes(rows, kept, params.max_speed)
+    dropped, examples = _drop_counts(raw, frame, rows.reason)
+    if kept.rows.size == 0:
+        raise _nothing_kept(raw, dropped, examples)
+    fixes = _kept_fixes(rows, kept, metric_crs, input_crs)
+    return fixes, _quality_report(raw, params, rows, kept, fixes, dropped, examples, passes)
 
-    def mark(mask: np.ndarray, name: str) -> None:
-        reason[mask & (reason < 0)] = _CODE[name]
 
-    obj_all, obj_names = _label_codes(frame["object"])
-    role_all, role_names = _label_codes(frame["role"])
-    mark(obj_all < 0, "missing_id")
+@dataclass
+class _Rows:
+    """Every row read, as arrays of one value per row of the raw frame."""
+
+    reason: np.ndarray  # int8 index into DROP_REASONS of why the row is dropped; -1: not (yet)
+    obj: np.ndarray  # object codes, -1 where missing
+    objects: np.ndarray  # sorted names behind the object codes
+    role: np.ndarray  # role codes, -1 where missing (and required)
+    roles: np.ndarray  # sorted names behind the role codes
+    a: np.ndarray  # first and second coordinate as read (lon/lat or x/y), float64
+    b: np.ndarray
+    lon: np.ndarray | None  # lon/lat of lon/lat and "crs" input; None for planar input
+    lat: np.ndarray | None
+    times: ParsedTimes
+
+
+@dataclass
+class _Kept:
+    """The rows kept so far, sorted by (object, time); each step narrows them."""
+
+    rows: np.ndarray  # original row numbers
+    whole: bool  # rows is 0..n-1: per-row arrays serve as they are, without a gather
+    obj: np.ndarray
+    role: np.ndarray
+    x: np.ndarray | None = None  # working-plane metres, once projected
+    y: np.ndarray | None = None
+
+    def take(self, values: np.ndarray) -> np.ndarray:
+        """Return the kept rows' values of a per-row array."""
+        return _take(values, self.rows, self.whole)
+
+
+def _mark(reason: np.ndarray, mask: np.ndarray, name: str) -> None:
+    """Drop the rows in ``mask`` not dropped yet, for the reason ``name``."""
+    reason[mask & (reason < 0)] = _CODE[name]
+
+
+def _mark_invalid(raw: RawTracks, frame: pd.DataFrame) -> _Rows:
+    """Read ids, roles, coordinates and times, marking the rows that lack a usable one."""
+    reason = np.full(len(frame), -1, dtype=np.int8)
+    obj, objects = _label_codes(frame["object"])
+    role, roles = _label_codes(frame["role"])
+    _mark(reason, obj < 0, "missing_id")
     if raw.role_required:
-        mark(role_all < 0, "missing_role")
-    elif (role_all < 0).any():
+        _mark(reason, role < 0, "missing_role")
+    elif (role < 0).any():
         # roles are optional here: a missing one is the role "", which sorts first
-        role_names = np.append([""], role_names)
-        role_all = role_all + 1
+        roles = np.append([""], roles)
+        role = role + 1
+    a, b, lon, lat = _mark_coordinates(raw, frame, reason)
+    times = parse_times(frame["time"], raw.time_unit)
+    _mark(reason, ~times.ok, "unparseable_time")
+    return _Rows(reason, obj, objects, role, roles, a, b, lon, lat, times)
 
+
+def _mark_coordinates(
+    raw: RawTracks, frame: pd.DataFrame, reason: np.ndarray
+) -> tuple[np.ndarray, np.ndarray, np.ndarray | None, np.ndarray | None]:
+    """Return the coordinates as read and as lon/lat, marking missing and impossible ones."""
     lonlat = raw.coords == "lonlat"
     a_col, b_col = ("lon", "lat") if lonlat else ("x", "y")
     a, b = _coordinate(frame[a_col]), _coordinate(frame[b_col])
     finite = np.isfinite(a) & np.isfinite(b)
-    mark(~finite, "missing_coordinates")
+    _mark(reason, ~finite, "missing_coordinates")
 
     lon = lat = None
     if lonlat:
         lon, lat = a, b
     elif raw.coords == "crs":
-        lon = np.full(n, np.nan)
-        lat = np.full(n, np.nan)
+        lon = np.full(a.size, np.nan)
+        lat = np.full(a.size, np.nan)
         lon[finite], lat[finite] = crs_to_lonlat(a[finite], b[finite], raw.crs)
     elif raw.coords != "planar":
         raise ValueError(f"unknown coordinate kind {raw.coords!r}")
@@ -330,87 +398,117 @@ def clean_fixes(raw: RawTracks, params: CleanParams | None = None) -> tuple[Fixe
             inside = (
                 np.isfinite(lon) & np.isfinite(lat) & (np.abs(lon) <= 180) & (np.abs(lat) <= 90)
             )
-        mark(finite & ~inside, "coordinates_out_of_range")
+        _mark(reason, finite & ~inside, "coordinates_out_of_range")
+    return a, b, lon, lat
 
-    times = parse_times(frame["time"], raw.time_unit)
-    mark(~times.ok, "unparseable_time")
 
-    # ---- duplicates, on the rows still valid
+def _resolve_duplicates(rows: _Rows) -> _Kept:
+    """Sort the rows still valid by (object, time) and drop duplicate (object, time) rows."""
+    reason = rows.reason
     valid = np.flatnonzero(reason < 0)
     # clean, sorted input is the common case: gathers of millions of rows are then skipped
-    every = valid.size == n
-    obj_codes, role_codes = _take(obj_all, valid, every), _take(role_all, valid, every)
-    t = _take(times.ns, valid, every)
-    va, vb = _take(a, valid, every), _take(b, valid, every)
-    order = _sort_by_object_time(obj_codes, t)
+    every = valid.size == reason.size
+    obj, role = _take(rows.obj, valid, every), _take(rows.role, valid, every)
+    t = _take(rows.times.ns, valid, every)
+    order = _sort_by_object_time(obj, t)
     if order is None:  # already sorted, the usual case: no gathers of millions of rows
-        order, so, st = np.arange(obj_codes.size), obj_codes, t
+        order, so, st = np.arange(obj.size), obj, t
     else:
-        so, st = obj_codes[order], t[order]
+        so, st = obj[order], t[order]
     tie = (so[1:] == so[:-1]) & (st[1:] == st[:-1])
     if tie.any():
         # only rows sharing an (object, time) need their positions and roles compared
         in_tie = np.zeros(order.size, dtype=bool)
         in_tie[1:] |= tie
         in_tie[:-1] |= tie
-        sub = order[in_tie]
-        sub = sub[np.lexsort((role_codes[sub], vb[sub], va[sub], t[sub], obj_codes[sub]))]
-        same_key = (obj_codes[sub][1:] == obj_codes[sub][:-1]) & (t[sub][1:] == t[sub][:-1])
-        identical = (
-            same_key
-            & (va[sub][1:] == va[sub][:-1])
-            & (vb[sub][1:] == vb[sub][:-1])
-            & (role_codes[sub][1:] == role_codes[sub][:-1])
-        )
-        # lexsort is stable, so the first copy in file order is the one kept.
-        exact = np.zeros(sub.size, dtype=bool)
-        exact[1:] = identical
-        reason[valid[sub[exact]]] = _CODE["exact_duplicate"]
-        rest = sub[~exact]
-        clash = (obj_codes[rest][1:] == obj_codes[rest][:-1]) & (t[rest][1:] == t[rest][:-1])
-        conflict = np.zeros(rest.size, dtype=bool)
-        conflict[1:] |= clash
-        conflict[:-1] |= clash
-        reason[valid[rest[conflict]]] = _CODE["conflicting_duplicate"]
+        a, b = _take(rows.a, valid, every), _take(rows.b, valid, every)
+        _mark_duplicates(reason, valid, order[in_tie], (obj, t, a, b, role))
         order = order[reason[valid[order]] < 0]
     in_order = bool(np.all(order[1:] > order[:-1]) and order.size == valid.size)
-    kept = _take(valid, order, in_order)  # original row numbers, sorted by (object, time)
-    everything = every and in_order  # kept is then 0..n-1: arrays are used as they are
-    k_obj, k_role = _take(obj_codes, order, in_order), _take(role_codes, order, in_order)
+    return _Kept(
+        rows=_take(valid, order, in_order),
+        whole=every and in_order,
+        obj=_take(obj, order, in_order),
+        role=_take(role, order, in_order),
+    )
 
-    # ---- projection
+
+def _mark_duplicates(
+    reason: np.ndarray,
+    valid: np.ndarray,
+    sub: np.ndarray,
+    columns: tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray],
+) -> None:
+    """Mark exact and conflicting duplicates among rows that share an (object, time).
+
+    ``sub`` indexes the valid rows ``valid`` and ``columns`` (object, time, the two
+    coordinates and role of each valid row); the first copy in file order of an exact
+    duplicate is kept, every row of a conflict is dropped.
+    """
+    obj, t, a, b, role = columns
+    sub = sub[np.lexsort((role[sub], b[sub], a[sub], t[sub], obj[sub]))]
+    same_key = (obj[sub][1:] == obj[sub][:-1]) & (t[sub][1:] == t[sub][:-1])
+    identical = (
+        same_key
+        & (a[sub][1:] == a[sub][:-1])
+        & (b[sub][1:] == b[sub][:-1])
+        & (role[sub][1:] == role[sub][:-1])
+    )
+    # lexsort is stable, so the first copy in file order is the one kept.
+    exact = np.zeros(sub.size, dtype=bool)
+    exact[1:] = identical
+    reason[valid[sub[exact]]] = _CODE["exact_duplicate"]
+    rest = sub[~exact]
+    clash = (obj[rest][1:] == obj[rest][:-1]) & (t[rest][1:] == t[rest][:-1])
+    conflict = np.zeros(rest.size, dtype=bool)
+    conflict[1:] |= clash
+    conflict[:-1] |= clash
+    reason[valid[rest[conflict]]] = _CODE["conflicting_duplicate"]
+
+
+def _project(raw: RawTracks, rows: _Rows, kept: _Kept) -> tuple[pyproj.CRS | None, str | None]:
+    """Set the kept rows' working-plane coordinates; return the working and the input CRS."""
     metric_crs: pyproj.CRS | None
-    if lon is not None:
-        if kept.size:
-            k_lon, k_lat = _take(lon, kept, everything), _take(lat, kept, everything)
-            metric_crs = local_metric_crs(k_lon, k_lat)
-            kx, ky = to_metric(k_lon, k_lat, metric_crs)
+    if rows.lon is not None:
+        if kept.rows.size:
+            lon, lat = kept.take(rows.lon), kept.take(rows.lat)
+            metric_crs = local_metric_crs(lon, lat)
+            kept.x, kept.y = to_metric(lon, lat, metric_crs)
         else:
-            metric_crs, kx, ky = None, np.empty(0), np.empty(0)
-        input_crs = "EPSG:4326" if lonlat else raw.crs
+            metric_crs, kept.x, kept.y = None, np.empty(0), np.empty(0)
+        input_crs = "EPSG:4326" if raw.coords == "lonlat" else raw.crs
     else:
         metric_crs = pyproj.CRS.from_user_input(raw.crs) if raw.crs else None
-        kx, ky = _take(a, kept, everything), _take(b, kept, everything)
+        kept.x, kept.y = kept.take(rows.a), kept.take(rows.b)
         input_crs = raw.crs
+    return metric_crs, input_crs
 
-    # ---- speed spikes, each pass vectorised over all fixes still kept
+
+def _drop_speed_spikes(rows: _Rows, kept: _Kept, max_speed: float | None) -> int:
+    """Drop speed spikes from the kept rows, each pass over all of them; return the passes."""
     passes = 0
-    if params.max_speed is not None and kept.size:
-        alive = np.arange(kept.size)
-        kt = _take(times.ns, kept, everything)
-        while passes < MAX_SPIKE_PASSES:
-            passes += 1
-            spike = _spike_mask(k_obj[alive], kt[alive], kx[alive], ky[alive], params.max_speed)
-            if not spike.any():
-                break
-            reason[kept[alive[spike]]] = _CODE["speed_spike"]
-            alive = alive[~spike]
-        if alive.size < kept.size:
-            kept, k_obj, k_role = kept[alive], k_obj[alive], k_role[alive]
-            kx, ky = kx[alive], ky[alive]
-            everything = False
+    if max_speed is None or not kept.rows.size:
+        return passes
+    alive = np.arange(kept.rows.size)
+    t = kept.take(rows.times.ns)
+    while passes < MAX_SPIKE_PASSES:
+        passes += 1
+        spike = _spike_mask(kept.obj[alive], t[alive], kept.x[alive], kept.y[alive], max_speed)
+        if not spike.any():
+            break
+        rows.reason[kept.rows[alive[spike]]] = _CODE["speed_spike"]
+        alive = alive[~spike]
+    if alive.size < kept.rows.size:
+        kept.rows, kept.obj, kept.role = kept.rows[alive], kept.obj[alive], kept.role[alive]
+        kept.x, kept.y = kept.x[alive], kept.y[alive]
+        kept.whole = False
+    return passes
 
-    # ---- report
+
+def _drop_counts(
+    raw: RawTracks, frame: pd.DataFrame, reason: np.ndarray
+) -> tuple[dict[str, int], dict[str, list[dict]]]:
+    """Return the rows dropped per reason, and up to ``MAX_EXAMPLES`` of them per reason."""
     counts = np.bincount(reason[reason >= 0].astype(np.intp), minlength=len(DROP_REASONS))
     dropped = {name: int(counts[i]) for i, name in enumerate(DROP_REASONS)}
     examples = {}
@@ -423,49 +521,68 @@ def clean_fixes(raw: RawTracks, params: CleanParams | None = None) -> tuple[Fixe
         )
         rows = raw.source_rows(where).tolist() if "source" in frame else (where + 1).tolist()
         examples[name] = [{"source": str(f), "row": int(r)} for f, r in zip(src, rows, strict=True)]
+    return dropped, examples
 
-    if kept.size == 0:
-        main = max(DROP_REASONS, key=lambda r: dropped[r]) if n else None
-        where = _describe_sources(raw.sources)
-        if main is None:
-            raise InputError(f"{where}: no rows to clean; give a file with data rows")
-        example = examples[main][0]
-        raise InputError(
-            f"{where}: no usable rows — all {n} were dropped, most ({dropped[main]}) for "
-            f"{main.replace('_', ' ')} (e.g. {example['source']} row {example['row']}); "
-            f"{_ADVICE[main]}"
-        )
 
-    # Codes are re-made over the kept fixes so that they run 0..n-1 without gaps.
-    obj_used, obj_final = _compact_codes(k_obj, len(obj_names))
-    role_used, role_final = _compact_codes(k_role, len(role_names))
-    objects = np.asarray(obj_names, dtype=object)[obj_used].astype(str)
-    roles = np.asarray(role_names, dtype=object)[role_used].astype(str)
-    kt = _take(times.ns, kept, everything)
-    fixes = Fixes(
+def _nothing_kept(raw: RawTracks, dropped: dict[str, int], examples: dict) -> InputError:
+    """Return the error for input of which no row survives, naming the main reason."""
+    n = sum(dropped.values())  # every row read was dropped
+    main = max(DROP_REASONS, key=lambda r: dropped[r]) if n else None
+    where = _describe_sources(raw.sources)
+    if main is None:
+        return InputError(f"{where}: no rows to clean; give a file with data rows")
+    example = examples[main][0]
+    return InputError(
+        f"{where}: no usable rows — all {n} were dropped, most ({dropped[main]}) for "
+        f"{main.replace('_', ' ')} (e.g. {example['source']} row {example['row']}); "
+        f"{_ADVICE[main]}"
+    )
+
+
+def _kept_fixes(
+    rows: _Rows, kept: _Kept, metric_crs: pyproj.CRS | None, input_crs: str | None
+) -> Fixes:
+    """Return the kept rows as fixes, with codes re-made to run 0..n-1 without gaps."""
+    obj_used, obj_final = _compact_codes(kept.obj, len(rows.objects))
+    role_used, role_final = _compact_codes(kept.role, len(rows.roles))
+    return Fixes(
         obj=obj_final.astype(np.int32),
-        time=np.asarray(kt, dtype=np.int64),
-        x=np.asarray(kx, dtype=np.float64),
-        y=np.asarray(ky, dtype=np.float64),
+        time=np.asarray(kept.take(rows.times.ns), dtype=np.int64),
+        x=np.asarray(kept.x, dtype=np.float64),
+        y=np.asarray(kept.y, dtype=np.float64),
         role=role_final.astype(np.int32),
-        objects=objects,
-        roles=roles,
+        objects=np.asarray(rows.objects, dtype=object)[obj_used].astype(str),
+        roles=np.asarray(rows.roles, dtype=object)[role_used].astype(str),
         metric_crs=metric_crs,
         input_crs=input_crs,
     )
 
+
+def _quality_report(
+    raw: RawTracks,
+    params: CleanParams,
+    rows: _Rows,
+    kept: _Kept,
+    fixes: Fixes,
+    dropped: dict[str, int],
+    examples: dict[str, list[dict]],
+    passes: int,
+) -> dict:
+    """Return the quality report of :func:`clean_fixes`."""
+    kt = fixes.time
     gaps = np.diff(kt)[fixes.obj[1:] == fixes.obj[:-1]]  # ns; quantiles scaled below
-    zone_less = int(_take(times.zone_less, kept, everything).sum())
+    zone_less = int(kept.take(rows.times.zone_less).sum())
     t0, t1 = int(kt.min()), int(kt.max())
-    quality = {
-        "rows_read": int(n),
-        "rows_kept": int(kept.size),
+    metric_crs = fixes.metric_crs
+    return {
+        "rows_read": int(rows.reason.size),
+        "rows_kept": int(kept.rows.size),
         "dropped": dropped,
         "merged": {"exact_duplicate": dropped["exact_duplicate"]},
         "examples": examples,
-        "objects": int(objects.size),
-        "roles": int(roles.size),
-        "role_names": [str(r) for r in roles],
+        "objects": int(fixes.objects.size),
+        "roles": int(fixes.roles.size),
+        "role_names": [str(r) for r in fixes.roles],
         "time_start": utc_iso(t0),
         "time_end": utc_iso(t1),
         "time_span_s": (t1 - t0) / 1e9,
@@ -477,17 +594,16 @@ def clean_fixes(raw: RawTracks, params: CleanParams | None = None) -> tuple[Fixe
             if zone_less
             else None
         ),
-        "time_input": times.kind,
+        "time_input": rows.times.kind,
         "coordinates": {
             "input": raw.coords,
-            "input_crs": input_crs,
+            "input_crs": fixes.input_crs,
             "working_crs": metric_crs.to_string() if metric_crs is not None else "planar metres",
         },
         "max_speed_m_s": params.max_speed,
         "speed_spike_passes": passes,
         "sources": [str(s) for s in raw.sources],
     }
-    return fixes, quality
 
 
 def format_quality_summary(quality: dict) -> str:
