@@ -9,7 +9,6 @@ its velocity is unknown (NaN).
 
 from __future__ import annotations
 
-import os
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from functools import cached_property
@@ -17,6 +16,7 @@ from functools import cached_property
 import numpy as np
 
 from comove.alignment import Snapshots
+from comove.neighbours import worker_count
 
 
 @dataclass
@@ -79,7 +79,7 @@ def entry_motion(snaps: Snapshots, window_s: float = 1.0, workers: int = 1) -> M
     """
     n = snaps.n_entries
     half = max(1, int(round(window_s / snaps.step_s / 2)))
-    workers = (os.cpu_count() or 1) if workers == -1 else max(1, int(workers))
+    workers = worker_count(workers)
     order = snaps.object_order()
     # cut the objects into about equal shares of entries, one per worker
     per_object = snaps.object_bounds()[1:]
