@@ -39,14 +39,6 @@ class Motion:
         speed += self.vy * self.vy
         return np.sqrt(speed, out=speed)  # not np.hypot: several times slower
 
-    @cached_property
-    def heading(self) -> np.ndarray:
-        """Return each entry's direction of travel in radians, computed once.
-
-        Counter-clockwise from +x; NaN where the velocity is unknown.
-        """
-        return np.arctan2(self.vy, self.vx)
-
 
 def entry_motion(snaps: Snapshots, window_s: float = 1.0, workers: int = 1) -> Motion:
     """Return the velocity of every entry, by differences across a time window.
