@@ -327,11 +327,8 @@ def read_tracks(source: Any, columns: ColumnSpec | None = None) -> RawTracks:
     spec = columns if columns is not None else ColumnSpec()
     tables = _tables(source)
     parts = _standardise_all(tables, spec)
-    frame = (
-        parts[0].frame
-        if len(parts) == 1
-        else pd.concat([p.frame for p in parts], ignore_index=True)
-    )
+    # one part is not copied either: concatenation shares the columns' memory
+    frame = pd.concat([p.frame for p in parts], ignore_index=True)
     lengths = [len(p.frame) for p in parts]
     frame["source"] = pd.Categorical.from_codes(
         np.repeat(np.arange(len(tables)), lengths), categories=[t.name for t in tables]
