@@ -13,7 +13,7 @@ the code before the change and once after, then compare the two folders::
 the role shuffle, and a ``sweep``, each into its own results folder.
 ``compare`` then checks every file: CSV and JSON text exactly (leaving out
 what names the moment or the machine of a run: ``created``, versions, input
-paths), Parquet tables value for value, PNG figures pixel for pixel, and the
+paths, the checkout's folder), Parquet tables value for value, PNG figures pixel for pixel, and the
 report's HTML after its embedded pictures are compared as pictures. It prints
 one line per difference and exits 1 when there is any.
 """
@@ -95,11 +95,17 @@ def run(out: Path) -> None:
 VOLATILE = {"created", "versions", "input", "input_sha256", "out"}
 
 
+#: The checkout a run read its data from: runs of two checkouts name different folders.
+_CHECKOUT = re.compile(r"[^\s<>\"']*/(?=synthetic_tracks/)")
+
+
 def _strip(value: object) -> object:
     if isinstance(value, dict):
         return {k: _strip(v) for k, v in value.items() if k not in VOLATILE}
     if isinstance(value, list):
         return [_strip(v) for v in value]
+    if isinstance(value, str):
+        return _CHECKOUT.sub("", value)
     return value
 
 
@@ -134,7 +140,7 @@ def _compare_file(a: Path, b: Path) -> str | None:
     if suffix == ".png":
         return None if _same_png(a.read_bytes(), b.read_bytes()) else "figure differs"
     if suffix == ".html":
-        ta, tb = (_VOLATILE_ROWS.sub("", p.read_text()) for p in (a, b))
+        ta, tb = (_CHECKOUT.sub("", _VOLATILE_ROWS.sub("", p.read_text())) for p in (a, b))
         ia, ib = _IMG.findall(ta), _IMG.findall(tb)
         if _IMG.sub("IMG", ta) != _IMG.sub("IMG", tb) or len(ia) != len(ib):
             return "HTML text differs"

@@ -287,6 +287,19 @@ def align(fixes: Fixes, params: AlignParams | None = None) -> Snapshots:
     points are generated with one ``numpy.repeat`` over all fixes, so time and
     memory are O(n_fixes + n_entries). The interpolation equals ``numpy.interp``
     on each track with gaps masked.
+
+    Examples
+    --------
+    Fixes 2 s apart on a 1 s grid: the snapshot between them is interpolated.
+
+    >>> import pandas as pd
+    >>> from comove.cleaning import clean_fixes
+    >>> from comove.reading import read_tracks
+    >>> frame = pd.DataFrame({"id": "a", "time": [10, 12], "x": [0.0, 4.0], "y": 0.0,
+    ...                       "role": "r"})
+    >>> snaps = align(clean_fixes(read_tracks(frame))[0], AlignParams(step=1.0))
+    >>> snaps.first_index, snaps.snap.tolist(), snaps.x.tolist()
+    (10, [0, 1, 2], [0.0, 2.0, 4.0])
     """
     params = params or AlignParams()
     step_s = params.step if params.step is not None else default_step(fixes)
@@ -296,6 +309,30 @@ def align(fixes: Fixes, params: AlignParams | None = None) -> Snapshots:
     max_gap_s = params.max_gap if params.max_gap is not None else DEFAULT_GAP_STEPS * step_s
     max_gap_ns = int(round(max_gap_s * NS_PER_S))
 
+    first, count, on_grid, t_next = _owned_grid_points(fixes, step_ns, max_gap_ns)
+    total = int(count.sum())
+    if total == 0:
+        raise InputError(
+            f"no fix falls on or spans a grid point of step {step_s:g} s; "
+            "give a smaller --step or a larger --max-gap"
+        )
+    if total == fixes.time.size and on_grid.all() and (count == 1).all():
+        # every fix sits on its own grid point (regular sampling at the step, the usual
+        # case for 10-25 Hz tracking): nothing to interpolate
+        entries = (first, fixes.x, fixes.y, fixes.obj, fixes.role)
+    else:
+        entries = _interpolate(fixes, first, count, t_next, step_ns)
+    return _in_snapshot_order(fixes, entries, step_ns, max_gap_ns)
+
+
+def _owned_grid_points(
+    fixes: Fixes, step_ns: int, max_gap_ns: int
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Return the grid points each fix owns, as a first grid index and a count.
+
+    Also returns whether each fix lies on a grid point, and the time it is interpolated
+    towards: the next fix's when the gap to it is bridged, else its own.
+    """
     t = fixes.time
     n = t.size
     bridged = np.zeros(n, dtype=bool)
@@ -311,31 +348,33 @@ def align(fixes: Fixes, params: AlignParams | None = None) -> Snapshots:
     # its first grid index the next entry of ``first``; otherwise only g*step == t
     last = np.where(bridged, np.roll(first, -1) - 1, first - ~on_grid)
     count = np.maximum(last - first + 1, 0)
-    total = int(count.sum())
-    if total == 0:
-        raise InputError(
-            f"no fix falls on or spans a grid point of step {step_s:g} s; "
-            "give a smaller --step or a larger --max-gap"
-        )
+    return first, count, on_grid, t_next
 
-    if total == n and on_grid.all() and (count == 1).all():
-        # every fix sits on its own grid point (regular sampling at the step, the usual
-        # case for 10-25 Hz tracking): nothing to interpolate
-        owner = None
-        grid, x, y, obj, role = first, fixes.x, fixes.y, fixes.obj, fixes.role
-    else:
-        owner = np.repeat(np.arange(n), count)
-        start = np.cumsum(count) - count
-        grid = first[owner] + (np.arange(total) - start[owner])
-        x0, y0 = fixes.x[owner], fixes.y[owner]
-        nxt = np.minimum(owner + 1, n - 1)
-        span = (t_next - t)[owner]
-        with np.errstate(invalid="ignore", divide="ignore"):
-            w = np.where(span > 0, (grid * step_ns - t[owner]) / np.where(span > 0, span, 1), 0.0)
-        x = x0 + w * (fixes.x[nxt] - x0)
-        y = y0 + w * (fixes.y[nxt] - y0)
-        obj, role = fixes.obj[owner], fixes.role[owner]
 
+def _interpolate(
+    fixes: Fixes, first: np.ndarray, count: np.ndarray, t_next: np.ndarray, step_ns: int
+) -> tuple[np.ndarray, ...]:
+    """Return grid index, x, y, object and role of every grid point the fixes own."""
+    t = fixes.time
+    n = t.size
+    owner = np.repeat(np.arange(n), count)
+    start = np.cumsum(count) - count
+    grid = first[owner] + (np.arange(owner.size) - start[owner])
+    x0, y0 = fixes.x[owner], fixes.y[owner]
+    nxt = np.minimum(owner + 1, n - 1)
+    span = (t_next - t)[owner]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        w = np.where(span > 0, (grid * step_ns - t[owner]) / np.where(span > 0, span, 1), 0.0)
+    x = x0 + w * (fixes.x[nxt] - x0)
+    y = y0 + w * (fixes.y[nxt] - y0)
+    return grid, x, y, fixes.obj[owner], fixes.role[owner]
+
+
+def _in_snapshot_order(
+    fixes: Fixes, entries: tuple[np.ndarray, ...], step_ns: int, max_gap_ns: int
+) -> Snapshots:
+    """Return the entries (grid index, x, y, object, role), grouped by object, as snapshots."""
+    grid, x, y, obj, role = entries
     first_index = int(grid.min())
     snap = grid - first_index
     # entries come grouped by object with increasing snapshots: a stable sort by

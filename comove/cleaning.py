@@ -2,6 +2,20 @@
 
 The result is a compact column store of fixes sorted by object and time, plus a quality
 report that accounts for every row read.
+
+Each row is dropped for the first reason that applies, tested in this order:
+``missing_id``; ``missing_role`` (only when roles are required; otherwise a missing role
+becomes ``""``); ``missing_coordinates`` (NaN or infinite); ``coordinates_out_of_range``
+(lon/lat input outside [-180, 180] x [-90, 90], or "crs" input the transformation cannot
+take to lon/lat); ``unparseable_time``; ``exact_duplicate`` (same object, time, position
+and role as a kept row: merged into it); ``conflicting_duplicate`` (same object and time,
+different position or role: all such rows go, since the true position is unknown);
+``speed_spike`` (only with ``max_speed``: a fix reached and left faster than
+``max_speed``, or a track's first or last fix whose one adjacent speed is too fast;
+repeated for at most ten passes). A first or last fix whose neighbour is itself an
+interior spike waits for the next pass, when that spike is gone, so that one bad fix does
+not take a good end fix with it. A two-fix track that is too fast loses both fixes, since
+nothing tells which one is wrong.
 """
 
 from __future__ import annotations
@@ -11,13 +25,12 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
-import pyarrow as pa
-import pyarrow.compute as pc
 import pyproj
 
 from comove.errors import InputError
 from comove.projection import crs_to_lonlat, local_metric_crs, to_metric
 from comove.reading import RawTracks
+from comove.times import ParsedTimes, human_seconds, parse_times, utc_iso
 
 __all__ = ["DROP_REASONS", "CleanParams", "Fixes", "clean_fixes", "format_quality_summary"]
 
@@ -36,14 +49,6 @@ _CODE = {name: i for i, name in enumerate(DROP_REASONS)}
 
 MAX_SPIKE_PASSES = 10
 MAX_EXAMPLES = 5
-MS_THRESHOLD = 1e11  # epoch seconds this large would lie after the year 5000
-
-_NS_PER = {"s": 1_000_000_000, "ms": 1_000_000, "us": 1_000, "ns": 1}
-_INT64_MAX = np.iinfo(np.int64).max
-_NULL_TOKENS = ("", "na", "nan", "nat", "null", "none")
-# A zone designator after a time part: Z, +hh, +hhmm or +hh:mm (and minus).
-_NUMBER_PATTERN = r"^[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?$"
-_ZONE_PATTERN = r"(?:T\d{2}|\d:\d{2})[\d:.,]*\s*(?:[zZ]|[+-]\d{2}(?::?\d{2})?)$"
 
 _ADVICE = {
     "missing_id": "fill in the object ids or name another column with --id",
@@ -143,157 +148,7 @@ class Fixes:
         return int(self.obj.size)
 
 
-# --------------------------------------------------------------------------- times
-
-
-@dataclass
-class _Times:
-    ns: np.ndarray  # int64, 0 where not ok
-    ok: np.ndarray  # bool
-    zone_less: np.ndarray  # bool: parsed, but written without a time zone
-    kind: str  # how the times were written, for the report
-
-
-def _datetimes_to_ns(series: pd.Series) -> tuple[np.ndarray, np.ndarray]:
-    """Naive (UTC) datetime64 values of any unit to int64 ns, flagging NaT and overflow."""
-    values = series.to_numpy()
-    unit = np.datetime_data(values.dtype)[0]
-    ints = values.view(np.int64)
-    ok = ~np.isnat(values)
-    factor = _NS_PER.get(unit)
-    if factor is None:  # coarser units (days, ...) are rare; numpy converts them exactly
-        factor = int(np.timedelta64(1, unit) / np.timedelta64(1, "ns"))
-    ok &= np.abs(ints) <= _INT64_MAX // factor
-    return np.where(ok, ints * factor, 0).astype(np.int64), ok
-
-
-def _parse_datetimes(series: pd.Series) -> _Times:
-    zone_less = np.zeros(len(series), dtype=bool)
-    if isinstance(series.dtype, pd.DatetimeTZDtype):
-        series = series.dt.tz_convert("UTC").dt.tz_localize(None)
-        ns, ok = _datetimes_to_ns(series)
-    else:
-        ns, ok = _datetimes_to_ns(series)
-        zone_less = ok.copy()
-    return _Times(ns, ok, zone_less, "datetimes")
-
-
-def _parse_numbers(values: pd.Series | np.ndarray, unit: str | None) -> _Times:
-    if isinstance(values, pd.Series) and pd.api.types.is_integer_dtype(values.dtype):
-        present = values.notna().to_numpy()
-        ints = values.to_numpy(dtype=np.int64, na_value=0)
-        floats = np.where(present, ints.astype(np.float64), np.nan)
-    else:
-        floats = np.asarray(values, dtype=np.float64)
-        ints = None
-    finite = np.isfinite(floats)
-    if unit is None:
-        # no temporary arrays: millions of rows are scanned twice in place
-        biggest = max(np.max(floats, where=finite, initial=0.0),
-                      -np.min(floats, where=finite, initial=0.0))  # fmt: skip
-        unit = "ms" if biggest > MS_THRESHOLD else "s"
-    factor = _NS_PER[unit]
-    with np.errstate(invalid="ignore"):  # NaN compares false: not ok
-        ok = np.abs(floats) < (_INT64_MAX // factor) - 1
-    if ints is not None:
-        ns = np.where(ok, ints * factor, 0)
-    else:
-        # Counted in whole microseconds: a float64 epoch in seconds carries only ~0.2 us
-        # near the present, so finer digits are representation noise that would put
-        # regularly sampled fixes a few ns off their grid. Microsecond counts of epochs
-        # before the year 2255 stay below 2**53, so integer epochs convert exactly.
-        # In place: millions of rows.
-        micro = floats * (factor / 1000)
-        micro[~ok] = 0.0
-        np.round(micro, out=micro)
-        ns = micro.astype(np.int64)
-        del micro
-        ns *= 1000
-    kind = "epoch seconds" if unit == "s" else "epoch milliseconds"
-    return _Times(ns.astype(np.int64), ok, np.zeros(floats.size, dtype=bool), kind)
-
-
-def _parse_text(values: pd.Series, unit: str | None) -> _Times:
-    # pyarrow's compute kernels do the string work; pandas' .str methods would fall back to
-    # a Python loop per value for these patterns.
-    text = pc.utf8_trim_whitespace(pa.array(values.astype("str"), type=pa.large_string()))
-    blank = pc.fill_null(
-        pc.is_in(pc.utf8_lower(text), value_set=pa.array(_NULL_TOKENS, pa.large_string())),
-        True,
-    )
-    text = pc.if_else(blank, pa.scalar(None, pa.large_string()), text)
-    n = len(text)
-    numeric_like = pc.fill_null(pc.match_substring_regex(text, _NUMBER_PATTERN), False)
-    n_numeric = pc.sum(numeric_like).as_py() or 0
-    n_present = n - (pc.sum(blank).as_py() or 0)
-    numbers = np.full(n, np.nan)
-    if n_numeric:
-        mask = numeric_like.to_numpy(zero_copy_only=False)
-        numbers[mask] = pc.cast(pc.filter(text, numeric_like), pa.float64()).to_numpy()
-        if n_numeric == n_present:
-            return _parse_numbers(numbers, unit)
-    # "... UTC"/"... GMT" suffixes are common in exports; ISO 8601 spells them "Z".
-    text = pc.replace_substring_regex(text, r"\s*(?:UTC|GMT)$", "Z")
-    parsed = pd.to_datetime(
-        pd.Series(text.to_pandas(), dtype="str"), utc=True, format="ISO8601", errors="coerce"
-    )
-    ns, ok = _datetimes_to_ns(parsed.dt.tz_localize(None))
-    # A column is either epoch numbers or ISO 8601 text; the reading that parses more rows
-    # wins, so a stray bad cell only costs its own row.
-    if n_numeric > ok.sum():
-        return _parse_numbers(numbers, unit)
-    has_zone = pc.fill_null(pc.match_substring_regex(text, _ZONE_PATTERN), False)
-    zone_less = ok & ~has_zone.to_numpy(zero_copy_only=False)
-    return _Times(ns, ok, zone_less, "ISO 8601 text")
-
-
-def _parse_times(values: pd.Series, unit: str | None) -> _Times:
-    """Turn the time column as read into int64 ns since the epoch, UTC.
-
-    Strings must be ISO 8601 (zone-less ones are UTC), numbers are epoch seconds or
-    milliseconds (milliseconds when the largest magnitude exceeds 1e11, unless ``unit``
-    says), and datetimes are taken as they are (naive ones are UTC).
-    """
-    values = values.reset_index(drop=True)
-    dtype = values.dtype
-    if isinstance(dtype, pd.CategoricalDtype):
-        # parse each distinct value once: fixes of one snapshot share their time text
-        codes = values.cat.codes.to_numpy()
-        distinct = _parse_times(pd.Series(np.asarray(values.cat.categories)), unit)
-        at = np.where(codes >= 0, codes, 0)
-        ok = distinct.ok[at] & (codes >= 0)
-        return _Times(
-            np.where(ok, distinct.ns[at], 0), ok, distinct.zone_less[at] & ok, distinct.kind
-        )
-    if pd.api.types.is_datetime64_any_dtype(dtype):
-        return _parse_datetimes(values)
-    if pd.api.types.is_bool_dtype(dtype):
-        none = np.zeros(len(values), dtype=bool)
-        return _Times(np.zeros(len(values), dtype=np.int64), none, none, "booleans")
-    if pd.api.types.is_numeric_dtype(dtype):
-        return _parse_numbers(values, unit)
-    inferred = pd.api.types.infer_dtype(values, skipna=True)
-    if inferred in ("integer", "floating", "mixed-integer-float", "decimal"):
-        return _parse_numbers(pd.to_numeric(values, errors="coerce").to_numpy(float), unit)
-    if inferred in ("datetime", "datetime64", "date"):
-        # Python datetime objects: naive ones are UTC. Telling them from aware ones would take
-        # a loop per value, so they are not counted as zone-less.
-        parsed = pd.to_datetime(values, errors="coerce", utc=True)
-        ns, ok = _datetimes_to_ns(parsed.dt.tz_localize(None))
-        return _Times(ns, ok, np.zeros(len(values), dtype=bool), "datetimes")
-    return _parse_text(values, unit)
-
-
 # --------------------------------------------------------------------------- helpers
-
-
-def _iso(ns: int) -> str:
-    stamp = pd.Timestamp(int(ns), unit="ns", tz="UTC")
-    text = stamp.strftime("%Y-%m-%dT%H:%M:%S")
-    fraction = int(ns) % 1_000_000_000
-    if fraction:
-        text += f".{fraction:09d}".rstrip("0")
-    return text + "Z"
 
 
 def _label_codes(series: pd.Series) -> tuple[np.ndarray, np.ndarray]:
@@ -433,54 +288,108 @@ def clean_fixes(raw: RawTracks, params: CleanParams | None = None) -> tuple[Fixe
 
     Notes
     -----
-    Each row is dropped for the first reason that applies, tested in this order:
-    ``missing_id``; ``missing_role`` (only when roles are required; otherwise a missing role
-    becomes ``""``); ``missing_coordinates`` (NaN or infinite); ``coordinates_out_of_range``
-    (lon/lat input outside [-180, 180] x [-90, 90], or "crs" input the transformation cannot
-    take to lon/lat); ``unparseable_time``; ``exact_duplicate`` (same object, time, position
-    and role as a kept row: merged into it); ``conflicting_duplicate`` (same object and time,
-    different position or role: all such rows go, since the true position is unknown);
-    ``speed_spike`` (only with ``max_speed``: a fix reached and left faster than
-    ``max_speed``, or a track's first or last fix whose one adjacent speed is too fast;
-    repeated for at most ten passes). A first or last fix whose neighbour is itself an
-    interior spike waits for the next pass, when that spike is gone, so that one bad fix does
-    not take a good end fix with it. A two-fix track that is too fast loses both fixes, since
-    nothing tells which one is wrong.
+    Each row is dropped for the first reason in :data:`DROP_REASONS` that applies; the
+    module docstring defines each. Lon/lat input is projected to
+    :func:`comove.projection.local_metric_crs`; "crs" input is first taken to lon/lat, so
+    distances are true metres even for distorting CRSs such as Web Mercator; planar input is
+    used as it is.
 
-    Lon/lat input is projected to :func:`comove.projection.local_metric_crs`; "crs" input is
-    first taken to lon/lat, so distances are true metres even for distorting CRSs such as
-    Web Mercator; planar input is used as it is.
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> from comove.reading import read_tracks
+    >>> frame = pd.DataFrame({"id": ["a", "a", "a", "b"], "time": [1, 0, 1, 0],
+    ...                       "x": [1.0, 0.0, 1.0, None], "y": 0.0, "role": "r"})
+    >>> fixes, quality = clean_fixes(read_tracks(frame))
+    >>> fixes.objects.tolist(), fixes.time.tolist(), fixes.x.tolist()
+    (['a'], [0, 1000000000], [0.0, 1.0])
+    >>> {reason: n for reason, n in quality["dropped"].items() if n}
+    {'missing_coordinates': 1, 'exact_duplicate': 1}
     """
     params = params if params is not None else CleanParams()
     frame = raw.frame.reset_index(drop=True)
-    n = len(frame)
-    reason = np.full(n, -1, dtype=np.int8)
+    rows = _mark_invalid(raw, frame)
+    kept = _resolve_duplicates(rows)
+    metric_crs, input_crs = _project(raw, rows, kept)
+    passes = _drop_speed_spikes(rows, kept, params.max_speed)
+    dropped, examples = _drop_counts(raw, frame, rows.reason)
+    if kept.rows.size == 0:
+        raise _nothing_kept(raw, dropped, examples)
+    fixes = _kept_fixes(rows, kept, metric_crs, input_crs)
+    return fixes, _quality_report(raw, params, rows, kept, fixes, dropped, examples, passes)
 
-    def mark(mask: np.ndarray, name: str) -> None:
-        reason[mask & (reason < 0)] = _CODE[name]
 
-    obj_all, obj_names = _label_codes(frame["object"])
-    role_all, role_names = _label_codes(frame["role"])
-    mark(obj_all < 0, "missing_id")
+@dataclass
+class _Rows:
+    """Every row read, as arrays of one value per row of the raw frame."""
+
+    reason: np.ndarray  # int8 index into DROP_REASONS of why the row is dropped; -1: not (yet)
+    obj: np.ndarray  # object codes, -1 where missing
+    objects: np.ndarray  # sorted names behind the object codes
+    role: np.ndarray  # role codes, -1 where missing (and required)
+    roles: np.ndarray  # sorted names behind the role codes
+    a: np.ndarray  # first and second coordinate as read (lon/lat or x/y), float64
+    b: np.ndarray
+    lon: np.ndarray | None  # lon/lat of lon/lat and "crs" input; None for planar input
+    lat: np.ndarray | None
+    times: ParsedTimes
+
+
+@dataclass
+class _Kept:
+    """The rows kept so far, sorted by (object, time); each step narrows them."""
+
+    rows: np.ndarray  # original row numbers
+    whole: bool  # rows is 0..n-1: per-row arrays serve as they are, without a gather
+    obj: np.ndarray
+    role: np.ndarray
+    x: np.ndarray | None = None  # working-plane metres, once projected
+    y: np.ndarray | None = None
+
+    def take(self, values: np.ndarray) -> np.ndarray:
+        """Return the kept rows' values of a per-row array."""
+        return _take(values, self.rows, self.whole)
+
+
+def _mark(reason: np.ndarray, mask: np.ndarray, name: str) -> None:
+    """Drop the rows in ``mask`` not dropped yet, for the reason ``name``."""
+    reason[mask & (reason < 0)] = _CODE[name]
+
+
+def _mark_invalid(raw: RawTracks, frame: pd.DataFrame) -> _Rows:
+    """Read ids, roles, coordinates and times, marking the rows that lack a usable one."""
+    reason = np.full(len(frame), -1, dtype=np.int8)
+    obj, objects = _label_codes(frame["object"])
+    role, roles = _label_codes(frame["role"])
+    _mark(reason, obj < 0, "missing_id")
     if raw.role_required:
-        mark(role_all < 0, "missing_role")
-    elif (role_all < 0).any():
+        _mark(reason, role < 0, "missing_role")
+    elif (role < 0).any():
         # roles are optional here: a missing one is the role "", which sorts first
-        role_names = np.append([""], role_names)
-        role_all = role_all + 1
+        roles = np.append([""], roles)
+        role = role + 1
+    a, b, lon, lat = _mark_coordinates(raw, frame, reason)
+    times = parse_times(frame["time"], raw.time_unit)
+    _mark(reason, ~times.ok, "unparseable_time")
+    return _Rows(reason, obj, objects, role, roles, a, b, lon, lat, times)
 
+
+def _mark_coordinates(
+    raw: RawTracks, frame: pd.DataFrame, reason: np.ndarray
+) -> tuple[np.ndarray, np.ndarray, np.ndarray | None, np.ndarray | None]:
+    """Return the coordinates as read and as lon/lat, marking missing and impossible ones."""
     lonlat = raw.coords == "lonlat"
     a_col, b_col = ("lon", "lat") if lonlat else ("x", "y")
     a, b = _coordinate(frame[a_col]), _coordinate(frame[b_col])
     finite = np.isfinite(a) & np.isfinite(b)
-    mark(~finite, "missing_coordinates")
+    _mark(reason, ~finite, "missing_coordinates")
 
     lon = lat = None
     if lonlat:
         lon, lat = a, b
     elif raw.coords == "crs":
-        lon = np.full(n, np.nan)
-        lat = np.full(n, np.nan)
+        lon = np.full(a.size, np.nan)
+        lat = np.full(a.size, np.nan)
         lon[finite], lat[finite] = crs_to_lonlat(a[finite], b[finite], raw.crs)
     elif raw.coords != "planar":
         raise ValueError(f"unknown coordinate kind {raw.coords!r}")
@@ -489,87 +398,117 @@ def clean_fixes(raw: RawTracks, params: CleanParams | None = None) -> tuple[Fixe
             inside = (
                 np.isfinite(lon) & np.isfinite(lat) & (np.abs(lon) <= 180) & (np.abs(lat) <= 90)
             )
-        mark(finite & ~inside, "coordinates_out_of_range")
+        _mark(reason, finite & ~inside, "coordinates_out_of_range")
+    return a, b, lon, lat
 
-    times = _parse_times(frame["time"], raw.time_unit)
-    mark(~times.ok, "unparseable_time")
 
-    # ---- duplicates, on the rows still valid
+def _resolve_duplicates(rows: _Rows) -> _Kept:
+    """Sort the rows still valid by (object, time) and drop duplicate (object, time) rows."""
+    reason = rows.reason
     valid = np.flatnonzero(reason < 0)
     # clean, sorted input is the common case: gathers of millions of rows are then skipped
-    every = valid.size == n
-    obj_codes, role_codes = _take(obj_all, valid, every), _take(role_all, valid, every)
-    t = _take(times.ns, valid, every)
-    va, vb = _take(a, valid, every), _take(b, valid, every)
-    order = _sort_by_object_time(obj_codes, t)
+    every = valid.size == reason.size
+    obj, role = _take(rows.obj, valid, every), _take(rows.role, valid, every)
+    t = _take(rows.times.ns, valid, every)
+    order = _sort_by_object_time(obj, t)
     if order is None:  # already sorted, the usual case: no gathers of millions of rows
-        order, so, st = np.arange(obj_codes.size), obj_codes, t
+        order, so, st = np.arange(obj.size), obj, t
     else:
-        so, st = obj_codes[order], t[order]
+        so, st = obj[order], t[order]
     tie = (so[1:] == so[:-1]) & (st[1:] == st[:-1])
     if tie.any():
         # only rows sharing an (object, time) need their positions and roles compared
         in_tie = np.zeros(order.size, dtype=bool)
         in_tie[1:] |= tie
         in_tie[:-1] |= tie
-        sub = order[in_tie]
-        sub = sub[np.lexsort((role_codes[sub], vb[sub], va[sub], t[sub], obj_codes[sub]))]
-        same_key = (obj_codes[sub][1:] == obj_codes[sub][:-1]) & (t[sub][1:] == t[sub][:-1])
-        identical = (
-            same_key
-            & (va[sub][1:] == va[sub][:-1])
-            & (vb[sub][1:] == vb[sub][:-1])
-            & (role_codes[sub][1:] == role_codes[sub][:-1])
-        )
-        # lexsort is stable, so the first copy in file order is the one kept.
-        exact = np.zeros(sub.size, dtype=bool)
-        exact[1:] = identical
-        reason[valid[sub[exact]]] = _CODE["exact_duplicate"]
-        rest = sub[~exact]
-        clash = (obj_codes[rest][1:] == obj_codes[rest][:-1]) & (t[rest][1:] == t[rest][:-1])
-        conflict = np.zeros(rest.size, dtype=bool)
-        conflict[1:] |= clash
-        conflict[:-1] |= clash
-        reason[valid[rest[conflict]]] = _CODE["conflicting_duplicate"]
+        a, b = _take(rows.a, valid, every), _take(rows.b, valid, every)
+        _mark_duplicates(reason, valid, order[in_tie], (obj, t, a, b, role))
         order = order[reason[valid[order]] < 0]
     in_order = bool(np.all(order[1:] > order[:-1]) and order.size == valid.size)
-    kept = _take(valid, order, in_order)  # original row numbers, sorted by (object, time)
-    everything = every and in_order  # kept is then 0..n-1: arrays are used as they are
-    k_obj, k_role = _take(obj_codes, order, in_order), _take(role_codes, order, in_order)
+    return _Kept(
+        rows=_take(valid, order, in_order),
+        whole=every and in_order,
+        obj=_take(obj, order, in_order),
+        role=_take(role, order, in_order),
+    )
 
-    # ---- projection
+
+def _mark_duplicates(
+    reason: np.ndarray,
+    valid: np.ndarray,
+    sub: np.ndarray,
+    columns: tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray],
+) -> None:
+    """Mark exact and conflicting duplicates among rows that share an (object, time).
+
+    ``sub`` indexes the valid rows ``valid`` and ``columns`` (object, time, the two
+    coordinates and role of each valid row); the first copy in file order of an exact
+    duplicate is kept, every row of a conflict is dropped.
+    """
+    obj, t, a, b, role = columns
+    sub = sub[np.lexsort((role[sub], b[sub], a[sub], t[sub], obj[sub]))]
+    same_key = (obj[sub][1:] == obj[sub][:-1]) & (t[sub][1:] == t[sub][:-1])
+    identical = (
+        same_key
+        & (a[sub][1:] == a[sub][:-1])
+        & (b[sub][1:] == b[sub][:-1])
+        & (role[sub][1:] == role[sub][:-1])
+    )
+    # lexsort is stable, so the first copy in file order is the one kept.
+    exact = np.zeros(sub.size, dtype=bool)
+    exact[1:] = identical
+    reason[valid[sub[exact]]] = _CODE["exact_duplicate"]
+    rest = sub[~exact]
+    clash = (obj[rest][1:] == obj[rest][:-1]) & (t[rest][1:] == t[rest][:-1])
+    conflict = np.zeros(rest.size, dtype=bool)
+    conflict[1:] |= clash
+    conflict[:-1] |= clash
+    reason[valid[rest[conflict]]] = _CODE["conflicting_duplicate"]
+
+
+def _project(raw: RawTracks, rows: _Rows, kept: _Kept) -> tuple[pyproj.CRS | None, str | None]:
+    """Set the kept rows' working-plane coordinates; return the working and the input CRS."""
     metric_crs: pyproj.CRS | None
-    if lon is not None:
-        if kept.size:
-            k_lon, k_lat = _take(lon, kept, everything), _take(lat, kept, everything)
-            metric_crs = local_metric_crs(k_lon, k_lat)
-            kx, ky = to_metric(k_lon, k_lat, metric_crs)
+    if rows.lon is not None:
+        if kept.rows.size:
+            lon, lat = kept.take(rows.lon), kept.take(rows.lat)
+            metric_crs = local_metric_crs(lon, lat)
+            kept.x, kept.y = to_metric(lon, lat, metric_crs)
         else:
-            metric_crs, kx, ky = None, np.empty(0), np.empty(0)
-        input_crs = "EPSG:4326" if lonlat else raw.crs
+            metric_crs, kept.x, kept.y = None, np.empty(0), np.empty(0)
+        input_crs = "EPSG:4326" if raw.coords == "lonlat" else raw.crs
     else:
         metric_crs = pyproj.CRS.from_user_input(raw.crs) if raw.crs else None
-        kx, ky = _take(a, kept, everything), _take(b, kept, everything)
+        kept.x, kept.y = kept.take(rows.a), kept.take(rows.b)
         input_crs = raw.crs
+    return metric_crs, input_crs
 
-    # ---- speed spikes, each pass vectorised over all fixes still kept
+
+def _drop_speed_spikes(rows: _Rows, kept: _Kept, max_speed: float | None) -> int:
+    """Drop speed spikes from the kept rows, each pass over all of them; return the passes."""
     passes = 0
-    if params.max_speed is not None and kept.size:
-        alive = np.arange(kept.size)
-        kt = _take(times.ns, kept, everything)
-        while passes < MAX_SPIKE_PASSES:
-            passes += 1
-            spike = _spike_mask(k_obj[alive], kt[alive], kx[alive], ky[alive], params.max_speed)
-            if not spike.any():
-                break
-            reason[kept[alive[spike]]] = _CODE["speed_spike"]
-            alive = alive[~spike]
-        if alive.size < kept.size:
-            kept, k_obj, k_role = kept[alive], k_obj[alive], k_role[alive]
-            kx, ky = kx[alive], ky[alive]
-            everything = False
+    if max_speed is None or not kept.rows.size:
+        return passes
+    alive = np.arange(kept.rows.size)
+    t = kept.take(rows.times.ns)
+    while passes < MAX_SPIKE_PASSES:
+        passes += 1
+        spike = _spike_mask(kept.obj[alive], t[alive], kept.x[alive], kept.y[alive], max_speed)
+        if not spike.any():
+            break
+        rows.reason[kept.rows[alive[spike]]] = _CODE["speed_spike"]
+        alive = alive[~spike]
+    if alive.size < kept.rows.size:
+        kept.rows, kept.obj, kept.role = kept.rows[alive], kept.obj[alive], kept.role[alive]
+        kept.x, kept.y = kept.x[alive], kept.y[alive]
+        kept.whole = False
+    return passes
 
-    # ---- report
+
+def _drop_counts(
+    raw: RawTracks, frame: pd.DataFrame, reason: np.ndarray
+) -> tuple[dict[str, int], dict[str, list[dict]]]:
+    """Return the rows dropped per reason, and up to ``MAX_EXAMPLES`` of them per reason."""
     counts = np.bincount(reason[reason >= 0].astype(np.intp), minlength=len(DROP_REASONS))
     dropped = {name: int(counts[i]) for i, name in enumerate(DROP_REASONS)}
     examples = {}
@@ -582,51 +521,70 @@ def clean_fixes(raw: RawTracks, params: CleanParams | None = None) -> tuple[Fixe
         )
         rows = raw.source_rows(where).tolist() if "source" in frame else (where + 1).tolist()
         examples[name] = [{"source": str(f), "row": int(r)} for f, r in zip(src, rows, strict=True)]
+    return dropped, examples
 
-    if kept.size == 0:
-        main = max(DROP_REASONS, key=lambda r: dropped[r]) if n else None
-        where = _describe_sources(raw.sources)
-        if main is None:
-            raise InputError(f"{where}: no rows to clean; give a file with data rows")
-        example = examples[main][0]
-        raise InputError(
-            f"{where}: no usable rows — all {n} were dropped, most ({dropped[main]}) for "
-            f"{main.replace('_', ' ')} (e.g. {example['source']} row {example['row']}); "
-            f"{_ADVICE[main]}"
-        )
 
-    # Codes are re-made over the kept fixes so that they run 0..n-1 without gaps.
-    obj_used, obj_final = _compact_codes(k_obj, len(obj_names))
-    role_used, role_final = _compact_codes(k_role, len(role_names))
-    objects = np.asarray(obj_names, dtype=object)[obj_used].astype(str)
-    roles = np.asarray(role_names, dtype=object)[role_used].astype(str)
-    kt = _take(times.ns, kept, everything)
-    fixes = Fixes(
+def _nothing_kept(raw: RawTracks, dropped: dict[str, int], examples: dict) -> InputError:
+    """Return the error for input of which no row survives, naming the main reason."""
+    n = sum(dropped.values())  # every row read was dropped
+    main = max(DROP_REASONS, key=lambda r: dropped[r]) if n else None
+    where = _describe_sources(raw.sources)
+    if main is None:
+        return InputError(f"{where}: no rows to clean; give a file with data rows")
+    example = examples[main][0]
+    return InputError(
+        f"{where}: no usable rows — all {n} were dropped, most ({dropped[main]}) for "
+        f"{main.replace('_', ' ')} (e.g. {example['source']} row {example['row']}); "
+        f"{_ADVICE[main]}"
+    )
+
+
+def _kept_fixes(
+    rows: _Rows, kept: _Kept, metric_crs: pyproj.CRS | None, input_crs: str | None
+) -> Fixes:
+    """Return the kept rows as fixes, with codes re-made to run 0..n-1 without gaps."""
+    obj_used, obj_final = _compact_codes(kept.obj, len(rows.objects))
+    role_used, role_final = _compact_codes(kept.role, len(rows.roles))
+    return Fixes(
         obj=obj_final.astype(np.int32),
-        time=np.asarray(kt, dtype=np.int64),
-        x=np.asarray(kx, dtype=np.float64),
-        y=np.asarray(ky, dtype=np.float64),
+        time=np.asarray(kept.take(rows.times.ns), dtype=np.int64),
+        x=np.asarray(kept.x, dtype=np.float64),
+        y=np.asarray(kept.y, dtype=np.float64),
         role=role_final.astype(np.int32),
-        objects=objects,
-        roles=roles,
+        objects=np.asarray(rows.objects, dtype=object)[obj_used].astype(str),
+        roles=np.asarray(rows.roles, dtype=object)[role_used].astype(str),
         metric_crs=metric_crs,
         input_crs=input_crs,
     )
 
+
+def _quality_report(
+    raw: RawTracks,
+    params: CleanParams,
+    rows: _Rows,
+    kept: _Kept,
+    fixes: Fixes,
+    dropped: dict[str, int],
+    examples: dict[str, list[dict]],
+    passes: int,
+) -> dict:
+    """Return the quality report of :func:`clean_fixes`."""
+    kt = fixes.time
     gaps = np.diff(kt)[fixes.obj[1:] == fixes.obj[:-1]]  # ns; quantiles scaled below
-    zone_less = int(_take(times.zone_less, kept, everything).sum())
+    zone_less = int(kept.take(rows.times.zone_less).sum())
     t0, t1 = int(kt.min()), int(kt.max())
-    quality = {
-        "rows_read": int(n),
-        "rows_kept": int(kept.size),
+    metric_crs = fixes.metric_crs
+    return {
+        "rows_read": int(rows.reason.size),
+        "rows_kept": int(kept.rows.size),
         "dropped": dropped,
         "merged": {"exact_duplicate": dropped["exact_duplicate"]},
         "examples": examples,
-        "objects": int(objects.size),
-        "roles": int(roles.size),
-        "role_names": [str(r) for r in roles],
-        "time_start": _iso(t0),
-        "time_end": _iso(t1),
+        "objects": int(fixes.objects.size),
+        "roles": int(fixes.roles.size),
+        "role_names": [str(r) for r in fixes.roles],
+        "time_start": utc_iso(t0),
+        "time_end": utc_iso(t1),
         "time_span_s": (t1 - t0) / 1e9,
         "sampling_interval_s": _quantiles(gaps, 1e9),
         "zone_less_times": zone_less,
@@ -636,28 +594,16 @@ def clean_fixes(raw: RawTracks, params: CleanParams | None = None) -> tuple[Fixe
             if zone_less
             else None
         ),
-        "time_input": times.kind,
+        "time_input": rows.times.kind,
         "coordinates": {
             "input": raw.coords,
-            "input_crs": input_crs,
+            "input_crs": fixes.input_crs,
             "working_crs": metric_crs.to_string() if metric_crs is not None else "planar metres",
         },
         "max_speed_m_s": params.max_speed,
         "speed_spike_passes": passes,
         "sources": [str(s) for s in raw.sources],
     }
-    return fixes, quality
-
-
-def human_seconds(seconds: float) -> str:
-    """Return a short duration text for people, such as ``"2.5 s"`` or ``"3 h"``."""
-    if seconds < 120:
-        return f"{seconds:.3g} s"
-    if seconds < 7200:
-        return f"{seconds / 60:.3g} min"
-    if seconds < 2 * 86400:
-        return f"{seconds / 3600:.3g} h"
-    return f"{seconds / 86400:.3g} days"
 
 
 def format_quality_summary(quality: dict) -> str:

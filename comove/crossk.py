@@ -9,6 +9,28 @@ away. Every snapshot is one realisation of the pattern; counts are pooled over
 all snapshots in which both roles are present. Pointwise envelopes from null
 replicates (for example tracks shifted in time) put a curve into perspective.
 See ``docs/crossk.md``.
+
+For roles a, b and snapshots t, with n_a(t), n_b(t) the numbers of entries
+of each role inside the window W of area |W|, :func:`cross_k` estimates
+
+    K_ab(r) = |W| * sum_t sum_{i in a_t} sum_{j in b_t} w_ij 1(d_ij <= r)
+              / sum_t n_a(t) n_b(t).
+
+Snapshots at which either role is absent add nothing to either sum.
+
+*Translation correction* (Ohser and Stoyan, 1981): w_ij = |W| / |W ∩ (W + x_i - x_j)|,
+which for a rectangle of sides Wx, Wy is Wx Wy / ((Wx - |dx|)(Wy - |dy|)). It is
+symmetric in i and j, so K_ab = K_ba.
+
+*Border correction* (reduced sample; Ripley, 1977): only entries i of role a
+whose distance to the edge of W is at least r count as centres, w_ij = 1, and
+n_a(t) in the denominator is the number of those centres, so the denominator
+depends on r. Role a is the centre role; K_ab and K_ba differ.
+
+Given the numbers of points, each per-snapshot ratio is unbiased for pi r^2
+when the two roles are independent and uniformly scattered (complete spatial
+randomness); pooling weights the snapshots by n_a(t) n_b(t). The references
+are listed under :func:`cross_k`.
 """
 
 from __future__ import annotations
@@ -161,21 +183,18 @@ def cross_k(
     role_pairs : list of (int, int), optional
         Role codes ``(a, b)`` to evaluate, in this order (``a`` is the centre
         role of the border correction). Default: every pair of distinct roles
-        with an entry inside the window, ordered so that ``role_a`` comes
-        before ``role_b`` by name.
+        inside the window, ``role_a`` before ``role_b`` by name.
 
     Returns
     -------
     pandas.DataFrame
         One row per (role pair, radius), pairs in the order above and radii
-        ascending, with columns ``role_a``, ``role_b`` (names), ``radius_m``,
-        ``k``, ``l`` = sqrt(k / pi), ``l_minus_r``, ``pairs_counted`` (a-b pairs
-        within the radius that entered the sum, unweighted) and
-        ``snapshots_used`` (snapshots with at least one counted centre of a and
-        one object of b). ``k`` is NaN when no snapshot is used. ``attrs`` holds
-        ``window`` (xmin, ymin, xmax, ymax), ``window_area_m2``, ``correction``
-        and ``entries_outside_window`` (entries dropped for lying outside the
-        window).
+        ascending: ``role_a``, ``role_b`` (names), ``radius_m``, ``k`` (NaN
+        when no snapshot is used), ``l`` = sqrt(k / pi), ``l_minus_r``,
+        ``pairs_counted`` (a-b pairs within the radius that entered the sum,
+        unweighted), ``snapshots_used`` (snapshots with a counted centre of a
+        and an object of b). ``attrs``: ``window`` (xmin, ymin, xmax, ymax),
+        ``window_area_m2``, ``correction``, ``entries_outside_window``.
 
     Raises
     ------
@@ -185,60 +204,70 @@ def cross_k(
 
     Notes
     -----
-    For roles a, b and snapshots t, with n_a(t), n_b(t) the numbers of entries
-    of each role inside the window W of area |W|,
-
-        K_ab(r) = |W| * sum_t sum_{i in a_t} sum_{j in b_t} w_ij 1(d_ij <= r)
-                  / sum_t n_a(t) n_b(t).
-
-    Snapshots at which either role is absent add nothing to either sum.
-
-    *Translation correction* [2]_ [3]_: w_ij = |W| / |W ∩ (W + x_i - x_j)|,
-    which for a rectangle of sides Wx, Wy is Wx Wy / ((Wx - |dx|)(Wy - |dy|)).
-    It is symmetric in i and j, so K_ab = K_ba.
-
-    *Border correction* (reduced sample) [1]_: only entries i of role a whose
-    distance to the edge of W is at least r count as centres, w_ij = 1, and
-    n_a(t) in the denominator is the number of those centres, so the
-    denominator depends on r. Role a is the centre role; K_ab and K_ba differ.
-
-    Given the numbers of points, each per-snapshot ratio is unbiased for
-    pi r^2 when the two roles are independent and uniformly scattered
-    (complete spatial randomness) [1]_ [4]_; pooling weights the snapshots by
-    n_a(t) n_b(t).
-
-    One neighbour search at the largest radius finds every pair; each pair
-    within reach of a requested role pair is assigned to the first radius
-    not below its distance (``numpy.searchsorted`` on squared distances, so
-    the inclusive test matches :func:`comove.neighbours.neighbour_pairs`), and
-    one weighted ``bincount`` followed by a cumulative sum over radii gives
-    every numerator at once. The border correction adds a second, negative
-    count at the first radius beyond the centre's edge distance. Time is
-    O(E log E + P) for E entries and P pairs within the largest radius.
+    The module docstring gives the pooled estimator with its translation
+    [2]_ [3]_ and border [1]_ corrections, unbiased under independence and
+    complete spatial randomness [1]_ [4]_. One neighbour search at the largest
+    radius finds every pair: O(E log E + P) time for E entries and P pairs.
 
     References
     ----------
     .. [1] B. D. Ripley, "Modelling spatial patterns", Journal of the Royal
-       Statistical Society B 39(2), 172-212, 1977.
+       Statistical Society B 39(2), 172-192, 1977.
+       doi:10.1111/j.2517-6161.1977.tb01615.x
     .. [2] J. Ohser and D. Stoyan, "On the second-order and orientation
        analysis of planar stationary point processes", Biometrical Journal
-       23, 523-533, 1981.
+       23(6), 523-533, 1981. doi:10.1002/bimj.4710230602
     .. [3] A. Baddeley, E. Rubak and R. Turner, "Spatial Point Patterns:
-       Methodology and Applications with R", CRC Press, 2015.
+       Methodology and Applications with R", CRC Press, 2015. doi:10.1201/b19708
     .. [4] P. J. Diggle, "Statistical Analysis of Spatial Point Patterns",
        2nd ed., Arnold, 2003.
+
+    Examples
+    --------
+    At one snapshot, an object of role a at (5, 5) and one of role b at (6, 5), in a
+    10 m square: K(r) = |W| (pairs within r) / (n_a n_b) = 100 m² x pairs within r.
+
+    >>> import numpy as np
+    >>> snaps = Snapshots(step_ns=1, first_index=0, n_snapshots=1, snap=np.zeros(2, int),
+    ...                   obj=np.arange(2), role=np.arange(2), x=np.array([5.0, 6.0]),
+    ...                   y=np.full(2, 5.0), objects=np.array(["p", "q"]),
+    ...                   roles=np.array(["a", "b"]), max_gap_ns=0)
+    >>> params = CrossKParams(radii=(0.5, 2.0), window=(0, 0, 10, 10), correction="border")
+    >>> cross_k(snaps, params)[["radius_m", "k", "pairs_counted"]].to_dict("list")
+    {'radius_m': [0.5, 2.0], 'k': [0.0, 100.0], 'pairs_counted': [0, 1]}
     """
     window = _resolve_window(snaps, params.window)
+    radii = np.asarray(params.radii, dtype=np.float64)
+    _check_radii(window, radii, params.correction)
+    sub, n_outside = _inside_window(snaps, window)
+    names = np.asarray(snaps.roles)
+    pairs = _role_pairs(sub.role, names, role_pairs)
+    out = _pooled_k(sub, pairs, names, window, radii, params.correction)
+    xmin, ymin, xmax, ymax = window
+    area = (xmax - xmin) * (ymax - ymin)
+    out.attrs.update(window=window, window_area_m2=area, correction=params.correction)
+    out.attrs["entries_outside_window"] = n_outside
+    return out
+
+
+def _check_radii(
+    window: tuple[float, float, float, float], radii: np.ndarray, correction: str
+) -> None:
+    """Refuse radii the translation correction cannot weight: not below the window's sides."""
     xmin, ymin, xmax, ymax = window
     wx, wy = xmax - xmin, ymax - ymin
-    area = wx * wy
-    radii = np.asarray(params.radii, dtype=np.float64)
-    if params.correction == "translation" and radii[-1] >= min(wx, wy):
+    if correction == "translation" and radii[-1] >= min(wx, wy):
         raise InputError(
             f"--k-radii: the largest radius {radii[-1]:g} m is not below the shorter window "
             f"side {min(wx, wy):g} m; give smaller --k-radii or a larger --k-window"
         )
 
+
+def _inside_window(
+    snaps: Snapshots, window: tuple[float, float, float, float]
+) -> tuple[Snapshots, int]:
+    """Return the snapshots' entries inside the window, and how many lie outside."""
+    xmin, ymin, xmax, ymax = window
     inside = (snaps.x >= xmin) & (snaps.x <= xmax) & (snaps.y >= ymin) & (snaps.y <= ymax)
     n_outside = int(inside.size - np.count_nonzero(inside))
     sub = dataclasses.replace(
@@ -249,22 +278,28 @@ def cross_k(
         x=snaps.x[inside],
         y=snaps.y[inside],
     )
-    attrs = {
-        "window": window,
-        "window_area_m2": area,
-        "correction": params.correction,
-        "entries_outside_window": n_outside,
-    }
+    return sub, n_outside
 
-    names = np.asarray(snaps.roles)
-    pairs = _role_pairs(sub.role, names, role_pairs)
-    if not pairs:
-        out = _empty_table()
-        out.attrs.update(attrs)
-        return out
-    n_pair, n_rad = len(pairs), radii.size
-    n_roles = max(len(names), int(sub.role.max()) + 1 if sub.n_entries else 0)
 
+@dataclass
+class _PairsByRadius:
+    """Entry pairs within the largest radius, once per requested orientation they match."""
+
+    centre: np.ndarray  # entry of the centre role
+    pair: np.ndarray  # index of the requested role pair
+    dx: np.ndarray  # centre minus other
+    dy: np.ndarray
+    first: np.ndarray  # index of the first radius not below the pair's distance
+
+
+def _pairs_by_radius(
+    sub: Snapshots, pairs: list[tuple[int, int]], n_roles: int, radii: np.ndarray
+) -> _PairsByRadius:
+    """Find every pair within the largest radius and the first radius each counts at.
+
+    The radius index comes from ``numpy.searchsorted`` on squared distances, so the
+    inclusive test matches :func:`comove.neighbours.neighbour_pairs`.
+    """
     # ordered (centre role, other role) -> requested pair index, -1 if not requested
     lookup = np.full((n_roles, n_roles), -1, dtype=np.int64)
     for p, (a, b) in enumerate(pairs):
@@ -280,57 +315,48 @@ def cross_k(
     pair_idx = np.concatenate([fwd[fwd >= 0], bwd[bwd >= 0]])
     dx = sub.x[centre] - sub.x[other]
     dy = sub.y[centre] - sub.y[other]
-    first = np.minimum(np.searchsorted(radii * radii, dx * dx + dy * dy, side="left"), n_rad - 1)
+    first = np.minimum(
+        np.searchsorted(radii * radii, dx * dx + dy * dy, side="left"), radii.size - 1
+    )
+    return _PairsByRadius(centre, pair_idx, dx, dy, first)
 
+
+def _pooled_k(
+    sub: Snapshots,
+    pairs: list[tuple[int, int]],
+    names: np.ndarray,
+    window: tuple[float, float, float, float],
+    radii: np.ndarray,
+    correction: str,
+) -> pd.DataFrame:
+    """Return the cross-K table of the requested role pairs (see :func:`cross_k`)."""
+    if not pairs:
+        return _empty_table()
+    n_roles = max(len(names), int(sub.role.max()) + 1 if sub.n_entries else 0)
+    found = _pairs_by_radius(sub, pairs, n_roles, radii)
     snap_role = np.bincount(
         sub.snap * n_roles + sub.role, minlength=sub.n_snapshots * n_roles
     ).reshape(sub.n_snapshots, n_roles)
     a_codes = np.array([a for a, _ in pairs])
     b_codes = np.array([b for _, b in pairs])
     n_b = snap_role[:, b_codes].astype(np.float64)  # (n_snap, n_pair)
-
-    if params.correction == "translation":
-        weight = area / ((wx - np.abs(dx)) * (wy - np.abs(dy)))
-        flat = pair_idx * n_rad + first
-        numer = np.bincount(flat, weights=weight, minlength=n_pair * n_rad)
-        counted = np.bincount(flat, minlength=n_pair * n_rad)
-        numer = numer.reshape(n_pair, n_rad).cumsum(axis=1)
-        counted = counted.reshape(n_pair, n_rad).cumsum(axis=1)
+    if correction == "translation":
         n_a = snap_role[:, a_codes].astype(np.float64)
-        denom = np.repeat((n_a * n_b).sum(axis=0)[:, None], n_rad, axis=1)
-        used = np.repeat(((n_a > 0) & (n_b > 0)).sum(axis=0)[:, None], n_rad, axis=1)
+        sums = _translation_sums(found, len(pairs), radii, window, n_a, n_b)
     else:
-        edge = np.minimum.reduce([sub.x - xmin, xmax - sub.x, sub.y - ymin, ymax - sub.y])
-        # a centre counts at radius index m when radii[m] <= its edge distance
-        last = np.searchsorted(radii, edge[centre], side="right")
-        live = last > first
-        width = n_rad + 1
-        flat = np.concatenate(
-            [pair_idx[live] * width + first[live], pair_idx[live] * width + last[live]]
-        )
-        step = np.concatenate([np.ones(live.sum()), -np.ones(live.sum())])
-        counted = np.bincount(flat, weights=step, minlength=n_pair * width)
-        counted = np.rint(counted.reshape(n_pair, width).cumsum(axis=1)[:, :n_rad])
-        counted = counted.astype(np.int64)
-        numer = counted.astype(np.float64)
-        denom = np.empty((n_pair, n_rad))
-        used = np.empty((n_pair, n_rad), dtype=np.int64)
-        for m, r in enumerate(radii):
-            ok = edge >= r
-            centres = np.bincount(
-                sub.snap[ok] * n_roles + sub.role[ok], minlength=sub.n_snapshots * n_roles
-            ).reshape(sub.n_snapshots, n_roles)[:, a_codes]
-            denom[:, m] = (centres * n_b).sum(axis=0)
-            used[:, m] = ((centres > 0) & (n_b > 0)).sum(axis=0)
-
+        sums = _border_sums(found, sub, len(pairs), radii, window, n_roles, a_codes, n_b)
+    numer, counted, denom, used = sums
+    xmin, ymin, xmax, ymax = window
+    area = (xmax - xmin) * (ymax - ymin)
     with np.errstate(invalid="ignore", divide="ignore"):
         k = np.where(denom > 0, area * numer / np.where(denom > 0, denom, 1.0), np.nan)
     l_val = np.sqrt(k / np.pi)
-    out = pd.DataFrame(
+    n_rad = radii.size
+    return pd.DataFrame(
         {
             "role_a": np.repeat([str(names[a]) for a in a_codes], n_rad),
             "role_b": np.repeat([str(names[b]) for b in b_codes], n_rad),
-            "radius_m": np.tile(radii, n_pair),
+            "radius_m": np.tile(radii, len(pairs)),
             "k": k.ravel(),
             "l": l_val.ravel(),
             "l_minus_r": (l_val - radii[None, :]).ravel(),
@@ -338,8 +364,75 @@ def cross_k(
             "snapshots_used": used.ravel().astype(np.int64),
         }
     )
-    out.attrs.update(attrs)
-    return out
+
+
+def _translation_sums(
+    found: _PairsByRadius,
+    n_pair: int,
+    radii: np.ndarray,
+    window: tuple[float, float, float, float],
+    n_a: np.ndarray,
+    n_b: np.ndarray,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Return numerators, pairs counted, denominators and snapshots used, (pair, radius) each.
+
+    Each pair is weighted by the translation correction and added at its first radius; one
+    weighted ``bincount`` and a cumulative sum over radii give every numerator at once.
+    """
+    xmin, ymin, xmax, ymax = window
+    wx, wy = xmax - xmin, ymax - ymin
+    n_rad = radii.size
+    weight = (wx * wy) / ((wx - np.abs(found.dx)) * (wy - np.abs(found.dy)))
+    flat = found.pair * n_rad + found.first
+    numer = np.bincount(flat, weights=weight, minlength=n_pair * n_rad)
+    counted = np.bincount(flat, minlength=n_pair * n_rad)
+    numer = numer.reshape(n_pair, n_rad).cumsum(axis=1)
+    counted = counted.reshape(n_pair, n_rad).cumsum(axis=1)
+    denom = np.repeat((n_a * n_b).sum(axis=0)[:, None], n_rad, axis=1)
+    used = np.repeat(((n_a > 0) & (n_b > 0)).sum(axis=0)[:, None], n_rad, axis=1)
+    return numer, counted, denom, used
+
+
+def _border_sums(
+    found: _PairsByRadius,
+    sub: Snapshots,
+    n_pair: int,
+    radii: np.ndarray,
+    window: tuple[float, float, float, float],
+    n_roles: int,
+    a_codes: np.ndarray,
+    n_b: np.ndarray,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Return numerators, pairs counted, denominators and snapshots used, (pair, radius) each.
+
+    A pair counts from its first radius until the first radius beyond its centre's
+    distance to the window's edge: a positive count at the one and a negative count at
+    the other, then a cumulative sum over radii.
+    """
+    xmin, ymin, xmax, ymax = window
+    n_rad = radii.size
+    edge = np.minimum.reduce([sub.x - xmin, xmax - sub.x, sub.y - ymin, ymax - sub.y])
+    # a centre counts at radius index m when radii[m] <= its edge distance
+    last = np.searchsorted(radii, edge[found.centre], side="right")
+    live = last > found.first
+    width = n_rad + 1
+    pair = found.pair[live]
+    flat = np.concatenate([pair * width + found.first[live], pair * width + last[live]])
+    step = np.concatenate([np.ones(live.sum()), -np.ones(live.sum())])
+    counted = np.bincount(flat, weights=step, minlength=n_pair * width)
+    counted = np.rint(counted.reshape(n_pair, width).cumsum(axis=1)[:, :n_rad])
+    counted = counted.astype(np.int64)
+    numer = counted.astype(np.float64)
+    denom = np.empty((n_pair, n_rad))
+    used = np.empty((n_pair, n_rad), dtype=np.int64)
+    for m, r in enumerate(radii):
+        ok = edge >= r
+        centres = np.bincount(
+            sub.snap[ok] * n_roles + sub.role[ok], minlength=sub.n_snapshots * n_roles
+        ).reshape(sub.n_snapshots, n_roles)[:, a_codes]
+        denom[:, m] = (centres * n_b).sum(axis=0)
+        used[:, m] = ((centres > 0) & (n_b > 0)).sum(axis=0)
+    return numer, counted, denom, used
 
 
 def envelopes(
@@ -394,31 +487,14 @@ def envelopes(
     ----------
     .. [1] J. Besag and P. J. Diggle, "Simple Monte Carlo tests for spatial
        pattern", Journal of the Royal Statistical Society C (Applied
-       Statistics) 26(3), 327-333, 1977.
+       Statistics) 26(3), 327-333, 1977. doi:10.2307/2346974
     .. [2] A. Baddeley, E. Rubak and R. Turner, "Spatial Point Patterns:
        Methodology and Applications with R", CRC Press, 2015, chapter 10.
+       doi:10.1201/b19708
     """
-    if not replicates:
-        raise InputError("no null replicates given; envelopes need at least one (39 for 95%)")
-    if not (np.isfinite(level) and 0 < level < 1):
-        raise InputError(f"envelope level {level!r} must be strictly between 0 and 1, e.g. 0.95")
-    keys = observed[_KEY_COLUMNS].reset_index(drop=True)
-    for n, rep in enumerate(replicates):
-        if len(rep) != len(observed) or not rep[_KEY_COLUMNS].reset_index(drop=True).equals(keys):
-            raise ValueError(f"replicate {n} does not have the observed role pairs and radii")
+    _check_replicates(observed, replicates, level)
     values = np.column_stack([rep["l"].to_numpy(dtype=np.float64) for rep in replicates])
-    finite = np.isfinite(values)
-    m = finite.sum(axis=1)
-    ordered = np.sort(np.where(finite, values, np.inf), axis=1)
-    rank = np.maximum(1, np.floor((m + 1) * (1 - level) / 2).astype(np.int64))
-    rows = np.arange(values.shape[0])
-    has = m > 0
-    low = np.full(values.shape[0], np.nan)
-    high = np.full(values.shape[0], np.nan)
-    low[has] = ordered[rows[has], rank[has] - 1]
-    high[has] = ordered[rows[has], m[has] - rank[has]]
-    with np.errstate(invalid="ignore"):
-        mean = np.where(has, np.where(finite, values, 0.0).sum(axis=1) / np.maximum(m, 1), np.nan)
+    low, high, mean, rank = _pointwise_limits(values, level)
 
     out = observed.copy()
     obs = out["l"].to_numpy(dtype=np.float64)
@@ -435,3 +511,38 @@ def envelopes(
         }
     )
     return out
+
+
+def _check_replicates(observed: pd.DataFrame, replicates: list[pd.DataFrame], level: float) -> None:
+    """Refuse an empty list of replicates, a level outside (0, 1) and mismatched rows."""
+    if not replicates:
+        raise InputError("no null replicates given; envelopes need at least one (39 for 95%)")
+    if not (np.isfinite(level) and 0 < level < 1):
+        raise InputError(f"envelope level {level!r} must be strictly between 0 and 1, e.g. 0.95")
+    keys = observed[_KEY_COLUMNS].reset_index(drop=True)
+    for n, rep in enumerate(replicates):
+        if len(rep) != len(observed) or not rep[_KEY_COLUMNS].reset_index(drop=True).equals(keys):
+            raise ValueError(f"replicate {n} does not have the observed role pairs and radii")
+
+
+def _pointwise_limits(
+    values: np.ndarray, level: float
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Return each row's k-th smallest and k-th largest finite value, mean and k.
+
+    ``values`` holds one row per curve point and one column per replicate; rows without
+    a finite value get NaN limits.
+    """
+    finite = np.isfinite(values)
+    m = finite.sum(axis=1)
+    ordered = np.sort(np.where(finite, values, np.inf), axis=1)
+    rank = np.maximum(1, np.floor((m + 1) * (1 - level) / 2).astype(np.int64))
+    rows = np.arange(values.shape[0])
+    has = m > 0
+    low = np.full(values.shape[0], np.nan)
+    high = np.full(values.shape[0], np.nan)
+    low[has] = ordered[rows[has], rank[has] - 1]
+    high[has] = ordered[rows[has], m[has] - rank[has]]
+    with np.errstate(invalid="ignore"):
+        mean = np.where(has, np.where(finite, values, 0.0).sum(axis=1) / np.maximum(m, 1), np.nan)
+    return low, high, mean, rank

@@ -26,7 +26,7 @@ from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.colors import ListedColormap
 from matplotlib.figure import Figure
 
-from comove.cleaning import human_seconds
+from comove.times import human_seconds
 
 #: Okabe–Ito colours without black, for lines and bars (Okabe & Ito 2008).
 PALETTE: tuple[str, ...] = (
@@ -300,26 +300,7 @@ def pi_timelines(
             )
             width = int(binned["width"])
             downsampled |= bool(binned["downsampled"])
-            x = _days(binned["centre"])
-            first, stop = _runs(binned["any"])
-            left = _days(binned["left"])
-            w_days = width / 86_400e9
-            spans = [
-                (left[a], (stop_i - a) * w_days) for a, stop_i in zip(first, stop, strict=True)
-            ]
-            ax.broken_barh(spans, (0, 1.05), facecolors=PALETTE[1], alpha=0.22, linewidth=0,
-                           label="prevalent")  # fmt: skip
-            if binned["downsampled"]:
-                ax.fill_between(x, binned["low"], binned["high"], color=PALETTE[3], alpha=0.25,
-                                linewidth=0, label="bin min–max")  # fmt: skip
-            line_label = "participation index" + (" (bin mean)" if binned["downsampled"] else "")
-            ax.plot(x, binned["mean"], color=PALETTE[3], linewidth=1.0, label=line_label)
-            if threshold is not None:
-                ax.axhline(threshold, color=INK, linewidth=0.8, linestyle="--",
-                           label=f"threshold {threshold:g}")  # fmt: skip
-            ax.set_ylim(0, 1.05)
-            ax.set_xlim(_days(np.array([start_ns]))[0], _days(np.array([end_ns + step_ns]))[0])
-            ax.set_ylabel("participation\nindex")
+            _pi_panel(ax, binned, threshold, (start_ns, end_ns, step_ns))
             title = " + ".join(roles.split(";"))
             if labels is not None:
                 title = f"{title}  ({labels[i]})"
@@ -339,6 +320,35 @@ def pi_timelines(
             note = "Every snapshot drawn; shading marks prevalent snapshots; gaps = pattern absent."
         _note(fig, note)
     return fig, note
+
+
+def _pi_panel(
+    ax: Axes, binned: dict, threshold: float | None, period: tuple[int, int, int]
+) -> None:
+    """Draw one pattern's binned participation index, prevalent bins shaded, on ``ax``.
+
+    ``binned`` comes from :func:`bin_series`; ``period`` is the run's start, end and step
+    in nanoseconds.
+    """
+    start_ns, end_ns, step_ns = period
+    x = _days(binned["centre"])
+    first, stop = _runs(binned["any"])
+    left = _days(binned["left"])
+    w_days = int(binned["width"]) / 86_400e9
+    spans = [(left[a], (stop_i - a) * w_days) for a, stop_i in zip(first, stop, strict=True)]
+    ax.broken_barh(spans, (0, 1.05), facecolors=PALETTE[1], alpha=0.22, linewidth=0,
+                   label="prevalent")  # fmt: skip
+    if binned["downsampled"]:
+        ax.fill_between(x, binned["low"], binned["high"], color=PALETTE[3], alpha=0.25,
+                        linewidth=0, label="bin min–max")  # fmt: skip
+    line_label = "participation index" + (" (bin mean)" if binned["downsampled"] else "")
+    ax.plot(x, binned["mean"], color=PALETTE[3], linewidth=1.0, label=line_label)
+    if threshold is not None:
+        ax.axhline(threshold, color=INK, linewidth=0.8, linestyle="--",
+                   label=f"threshold {threshold:g}")  # fmt: skip
+    ax.set_ylim(0, 1.05)
+    ax.set_xlim(_days(np.array([start_ns]))[0], _days(np.array([end_ns + step_ns]))[0])
+    ax.set_ylabel("participation\nindex")
 
 
 def _note(fig: Figure, note: str) -> None:
@@ -426,26 +436,67 @@ def track_map(
     middle of the map; the scale bar's metres per degree of longitude come
     from the WGS 84 ellipsoid at the mean latitude.
     """
+    x, y, note = _positions_drawn(sample, max_points, stored_every)
+    lines = [_thin_line(np.asarray(c, dtype="float64").reshape(-1, 2)) for c in path_coords]
+    view = _map_view(x, y, lines, lonlat)
+    legend = paths is not None and len(paths) > 0
+    box, anchor, height, view.ylim = _map_box(view, legend)
+    with style():
+        fig = _figure(height, layout=None)
+        ax = fig.add_axes(box)
+        _draw_tracks(ax, x, y, paths, lines)
+        _map_axes(ax, view, lonlat)
+        if legend:
+            fig.legend(loc="upper left", bbox_to_anchor=anchor, title="Longest episodes",
+                       alignment="left", markerscale=4)  # fmt: skip
+            ax.set_title("Tracks, with the longest co-moving episodes (dot = start)")
+        else:
+            ax.set_title("Tracks")
+        fig.text(0.5, 0.1 / height, textwrap.fill(note, 130), ha="center", va="bottom",
+                 fontsize=7.5, color=MUTED)  # fmt: skip
+    return fig, note
+
+
+def _positions_drawn(
+    sample: pd.DataFrame | None, max_points: int, stored_every: int
+) -> tuple[np.ndarray, np.ndarray, str]:
+    """Return the sample's positions to draw (thinned evenly to ``max_points``) and a note."""
     note = "No track sample in the results folder; episode paths only."
     x = y = np.zeros(0)
-    if sample is not None and len(sample):
-        n = len(sample)
-        x = sample["x"].to_numpy(dtype="float64")
-        y = sample["y"].to_numpy(dtype="float64")
-        if n > max_points:
-            keep = np.unique(np.linspace(0, n - 1, max(int(max_points), 1)).round().astype(int))
-            x, y = x[keep], y[keep]
-        stored = (
-            f"the folder keeps 1 snapshot in {stored_every}"
-            if stored_every > 1
-            else "the folder keeps every snapshot"
-        )
-        if n > max_points:
-            note = (f"Positions thinned for drawing: {len(x):,} of {n:,} sampled positions "
-                    f"drawn, evenly spaced ({stored}).")  # fmt: skip
-        else:
-            note = f"All {n:,} sampled positions drawn ({stored})."
-    lines = [_thin_line(np.asarray(c, dtype="float64").reshape(-1, 2)) for c in path_coords]
+    if sample is None or not len(sample):
+        return x, y, note
+    n = len(sample)
+    x = sample["x"].to_numpy(dtype="float64")
+    y = sample["y"].to_numpy(dtype="float64")
+    if n > max_points:
+        keep = np.unique(np.linspace(0, n - 1, max(int(max_points), 1)).round().astype(int))
+        x, y = x[keep], y[keep]
+    stored = (
+        f"the folder keeps 1 snapshot in {stored_every}"
+        if stored_every > 1
+        else "the folder keeps every snapshot"
+    )
+    if n > max_points:
+        note = (f"Positions thinned for drawing: {len(x):,} of {n:,} sampled positions "
+                f"drawn, evenly spaced ({stored}).")  # fmt: skip
+    else:
+        note = f"All {n:,} sampled positions drawn ({stored})."
+    return x, y, note
+
+
+@dataclass
+class _MapView:
+    """What a map shows: its limits, its aspect and the middle of the data."""
+
+    xlim: tuple[float, float]
+    ylim: tuple[float, float]
+    aspect: float  # y units per x unit drawn at equal length
+    mean_x: float
+    mean_y: float
+
+
+def _map_view(x: np.ndarray, y: np.ndarray, lines: list[np.ndarray], lonlat: bool) -> _MapView:
+    """Return the limits around the finite positions and path vertices, with a margin."""
     allx = np.concatenate([x, *(c[:, 0] for c in lines)])
     ally = np.concatenate([y, *(c[:, 1] for c in lines)])
     finite = np.isfinite(allx) & np.isfinite(ally)
@@ -456,8 +507,19 @@ def track_map(
     ylim = (ally.min() - 0.09 * yr, ally.max() + 0.04 * yr)
     mean_lat = float(np.mean(ally))
     aspect = 1.0 / max(np.cos(np.radians(mean_lat)), 1e-6) if lonlat else 1.0
-    legend = paths is not None and len(paths) > 0
-    # placed by hand: constrained layout cuts labels of fixed-aspect axes
+    return _MapView(xlim, ylim, aspect, float(np.mean(allx)), mean_lat)
+
+
+def _map_box(
+    view: _MapView, legend: bool
+) -> tuple[tuple[float, float, float, float], tuple[float, float], float, tuple[float, float]]:
+    """Return where the map goes: axes box, legend anchor, figure height and y limits.
+
+    The box and anchor are figure fractions, the height is in inches. Placed by hand:
+    constrained layout cuts labels of fixed-aspect axes. The plot is at most 6.5 inches
+    high; a flatter scene is drawn 2.5 inches high with the y limits widened to fill it.
+    """
+    xlim, ylim, aspect = view.xlim, view.ylim, view.aspect
     left, bottom, top = 0.85, 0.8, 0.35
     right = 2.7 if legend else 0.3
     shape = (ylim[1] - ylim[0]) * aspect / (xlim[1] - xlim[0])
@@ -472,46 +534,51 @@ def track_map(
         mid = 0.5 * (ylim[0] + ylim[1])
         ylim = (mid - half, mid + half)
     height = round((plot_h + bottom + top) * DPI) / DPI  # whole pixels
-    with style():
-        fig = _figure(height, layout=None)
-        ax = fig.add_axes((left / WIDTH_IN, bottom / height, plot_w / WIDTH_IN, plot_h / height))
-        if len(x):
-            ax.scatter(x, y, s=1.2, color=MUTED, alpha=0.45, linewidths=0, rasterized=True,
-                       label="positions (sample)")  # fmt: skip
-        if paths is not None:
-            for i, ((_, row), c) in enumerate(zip(paths.iterrows(), lines, strict=True)):
-                if len(c) == 0:
-                    continue
-                colour = PALETTE[i % len(PALETTE)]
-                label = plain_text(f"{row['episode']}: {_members_text(row['members'], 3)}", 38)
-                ax.plot(c[:, 0], c[:, 1], color=colour, linewidth=2.0, label=label)
-                ax.plot(c[:1, 0], c[:1, 1], marker="o", color=colour, markersize=4)
-        ax.set_xlim(*xlim)
-        ax.set_ylim(*ylim)
-        ax.set_aspect(aspect)
-        if lonlat:
-            from pyproj import Geod
+    box = (left / WIDTH_IN, bottom / height, plot_w / WIDTH_IN, plot_h / height)
+    anchor = ((left + plot_w + 0.15) / WIDTH_IN, (bottom + plot_h) / height)
+    return box, anchor, height, ylim
 
-            lon0 = float(np.mean(allx))
-            metres_per_degree = Geod(ellps="WGS84").inv(lon0, mean_lat, lon0 + 1.0, mean_lat)[2]
-            ax.set_xlabel("longitude (°)")
-            ax.set_ylabel("latitude (°)")
-            _scale_bar(ax, metres_per_degree)
-        else:
-            ax.set_xlabel("x (m)")
-            ax.set_ylabel("y (m)")
-            _scale_bar(ax, 1.0)
-        ax.ticklabel_format(useOffset=False, style="plain")
-        if legend:
-            anchor = ((left + plot_w + 0.15) / WIDTH_IN, (bottom + plot_h) / height)
-            fig.legend(loc="upper left", bbox_to_anchor=anchor, title="Longest episodes",
-                       alignment="left", markerscale=4)  # fmt: skip
-            ax.set_title("Tracks, with the longest co-moving episodes (dot = start)")
-        else:
-            ax.set_title("Tracks")
-        fig.text(0.5, 0.1 / height, textwrap.fill(note, 130), ha="center", va="bottom",
-                 fontsize=7.5, color=MUTED)  # fmt: skip
-    return fig, note
+
+def _draw_tracks(
+    ax: Axes,
+    x: np.ndarray,
+    y: np.ndarray,
+    paths: pd.DataFrame | None,
+    lines: list[np.ndarray],
+) -> None:
+    """Draw the sampled positions as dots and each episode's path in its own colour."""
+    if len(x):
+        ax.scatter(x, y, s=1.2, color=MUTED, alpha=0.45, linewidths=0, rasterized=True,
+                   label="positions (sample)")  # fmt: skip
+    if paths is None:
+        return
+    for i, ((_, row), c) in enumerate(zip(paths.iterrows(), lines, strict=True)):
+        if len(c) == 0:
+            continue
+        colour = PALETTE[i % len(PALETTE)]
+        label = plain_text(f"{row['episode']}: {_members_text(row['members'], 3)}", 38)
+        ax.plot(c[:, 0], c[:, 1], color=colour, linewidth=2.0, label=label)
+        ax.plot(c[:1, 0], c[:1, 1], marker="o", color=colour, markersize=4)
+
+
+def _map_axes(ax: Axes, view: _MapView, lonlat: bool) -> None:
+    """Set the map's limits, aspect, axis labels and scale bar."""
+    ax.set_xlim(*view.xlim)
+    ax.set_ylim(*view.ylim)
+    ax.set_aspect(view.aspect)
+    if lonlat:
+        from pyproj import Geod
+
+        lon0, lat0 = view.mean_x, view.mean_y
+        metres_per_degree = Geod(ellps="WGS84").inv(lon0, lat0, lon0 + 1.0, lat0)[2]
+        ax.set_xlabel("longitude (°)")
+        ax.set_ylabel("latitude (°)")
+        _scale_bar(ax, metres_per_degree)
+    else:
+        ax.set_xlabel("x (m)")
+        ax.set_ylabel("y (m)")
+        _scale_bar(ax, 1.0)
+    ax.ticklabel_format(useOffset=False, style="plain")
 
 
 def episode_timeline(episodes: pd.DataFrame, top: int = 40) -> tuple[Figure, str]:

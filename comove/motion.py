@@ -9,7 +9,6 @@ its velocity is unknown (NaN).
 
 from __future__ import annotations
 
-import os
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from functools import cached_property
@@ -17,6 +16,7 @@ from functools import cached_property
 import numpy as np
 
 from comove.alignment import Snapshots
+from comove.neighbours import worker_count
 
 
 @dataclass
@@ -38,14 +38,6 @@ class Motion:
         speed = self.vx * self.vx
         speed += self.vy * self.vy
         return np.sqrt(speed, out=speed)  # not np.hypot: several times slower
-
-    @cached_property
-    def heading(self) -> np.ndarray:
-        """Return each entry's direction of travel in radians, computed once.
-
-        Counter-clockwise from +x; NaN where the velocity is unknown.
-        """
-        return np.arctan2(self.vy, self.vx)
 
 
 def half_window_snapshots(window_s: float, step_s: float) -> int:
@@ -89,7 +81,7 @@ def entry_motion(snaps: Snapshots, window_s: float = 1.0, workers: int = 1) -> M
     """
     n = snaps.n_entries
     half = half_window_snapshots(window_s, snaps.step_s)
-    workers = (os.cpu_count() or 1) if workers == -1 else max(1, int(workers))
+    workers = worker_count(workers)
     order = snaps.object_order()
     # cut the objects into about equal shares of entries, one per worker
     per_object = snaps.object_bounds()[1:]

@@ -12,6 +12,7 @@ from __future__ import annotations
 import os
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
+from functools import partial
 
 import numpy as np
 from scipy.spatial import cKDTree
@@ -54,6 +55,22 @@ class NeighbourPairs:
         return self.i * np.int64(n_entries) + self.j
 
 
+def worker_count(workers: int) -> int:
+    """Return the number of threads asked for by a ``workers`` setting.
+
+    Parameters
+    ----------
+    workers : int
+        Threads wanted; -1 means one per processor, any other number below 1 means one.
+
+    Returns
+    -------
+    int
+        At least 1.
+    """
+    return (os.cpu_count() or 1) if workers == -1 else max(1, int(workers))
+
+
 def neighbour_pairs(
     snaps: Snapshots,
     radius: float,
@@ -92,7 +109,25 @@ def neighbour_pairs(
     References
     ----------
     .. [1] J. L. Bentley, "Multidimensional binary search trees used for
-       associative searching", Communications of the ACM 18(9), 1975.
+       associative searching", Communications of the ACM 18(9), 509-517, 1975.
+       doi:10.1145/361002.361007
+
+    Examples
+    --------
+    Three objects at one time; only a and b, 1 m apart, are within 1.5 m:
+
+    >>> import pandas as pd
+    >>> from comove.alignment import AlignParams, align
+    >>> from comove.cleaning import clean_fixes
+    >>> from comove.reading import read_tracks
+    >>> frame = pd.DataFrame({"id": ["a", "b", "c"], "time": 0, "x": [0.0, 1.0, 5.0],
+    ...                       "y": 0.0, "role": "r"})
+    >>> snaps = align(clean_fixes(read_tracks(frame))[0], AlignParams(step=1.0))
+    >>> pairs = neighbour_pairs(snaps, radius=1.5)
+    >>> pairs.i.tolist(), pairs.j.tolist()
+    ([0], [1])
+    >>> snaps.objects[snaps.obj[[0, 1]]].tolist()
+    ['a', 'b']
     """
     if not (np.isfinite(radius) and radius > 0):
         raise ValueError("radius must be a positive number of metres")
@@ -102,38 +137,53 @@ def neighbour_pairs(
         return NeighbourPairs(empty, empty, float(radius))
     if n > MAX_ENTRIES:
         raise ValueError(f"more than {MAX_ENTRIES} entries: search them in time chunks")
-    workers = (os.cpu_count() or 1) if workers == -1 else max(1, int(workers))
+    workers = worker_count(workers)
 
     x0 = snaps.x - snaps.x.min()
     pitch = float(x0.max()) + 2.0 * radius + 1.0  # shift between consecutive snapshots
-    offsets = snaps.offsets()
-    # cut at snapshot boundaries so that every snapshot is searched whole
-    size = max(1, min(chunk_entries, -(-n // workers)))
-    bounds = np.unique(np.append(offsets[np.searchsorted(offsets, np.arange(0, n, size))], n))
-    widened = radius * (1.0 + 1e-9) + 1e-9
-
-    def search(lo: int, hi: int) -> np.ndarray:
-        """Return the sorted pair keys i * n + j (i < j) of entries lo..hi-1."""
-        s = snaps.snap[lo:hi]
-        xs = x0[lo:hi] + (s - s[0]) * pitch
-        tree = cKDTree(
-            np.column_stack([xs, snaps.y[lo:hi]]), balanced_tree=False, compact_nodes=False
-        )
-        pairs = tree.query_pairs(widened, output_type="ndarray")
-        del tree
-        a, b = pairs[:, 0] + lo, pairs[:, 1] + lo
-        keep = (snaps.x[a] - snaps.x[b]) ** 2 + (snaps.y[a] - snaps.y[b]) ** 2 <= radius * radius
-        a, b = a[keep], b[keep]
-        keys = np.minimum(a, b).astype(np.int64) * n + np.maximum(a, b)
-        keys.sort()
-        return keys
-
-    chunks = list(zip(bounds[:-1].tolist(), bounds[1:].tolist(), strict=True))
+    search = partial(_pair_keys, snaps, x0, pitch, radius)
+    chunks = _chunks(snaps.offsets(), n, chunk_entries, workers)
     if workers > 1 and len(chunks) > 1:
         with ThreadPoolExecutor(max_workers=min(workers, len(chunks))) as pool:
-            found = list(pool.map(lambda c: search(*c), chunks))
+            found = list(pool.map(search, chunks))
     else:
-        found = [search(lo, hi) for lo, hi in chunks]
+        found = [search(chunk) for chunk in chunks]
     # chunks hold consecutive entries, so their sorted keys concatenate in order
     keys = np.concatenate(found) if found else empty
     return NeighbourPairs(keys // n, keys % n, float(radius))
+
+
+def _chunks(offsets: np.ndarray, n: int, chunk_entries: int, workers: int) -> list[tuple[int, int]]:
+    """Return (first, stop) entries of the chunks searched with one tree each.
+
+    Chunks hold at most ``chunk_entries`` entries (more when one snapshot holds more), at
+    least ``workers`` chunks when there are enough snapshots, and are cut at snapshot
+    boundaries so that every snapshot is searched whole.
+    """
+    size = max(1, min(chunk_entries, -(-n // workers)))
+    bounds = np.unique(np.append(offsets[np.searchsorted(offsets, np.arange(0, n, size))], n))
+    return list(zip(bounds[:-1].tolist(), bounds[1:].tolist(), strict=True))
+
+
+def _pair_keys(
+    snaps: Snapshots, x0: np.ndarray, pitch: float, radius: float, chunk: tuple[int, int]
+) -> np.ndarray:
+    """Return the sorted pair keys i * n + j (i < j) within ``radius`` of a chunk's entries.
+
+    ``x0`` is x shifted to start at 0 and ``pitch`` the shift between consecutive
+    snapshots laid side by side.
+    """
+    lo, hi = chunk
+    n = snaps.n_entries
+    widened = radius * (1.0 + 1e-9) + 1e-9
+    s = snaps.snap[lo:hi]
+    xs = x0[lo:hi] + (s - s[0]) * pitch
+    tree = cKDTree(np.column_stack([xs, snaps.y[lo:hi]]), balanced_tree=False, compact_nodes=False)
+    pairs = tree.query_pairs(widened, output_type="ndarray")
+    del tree
+    a, b = pairs[:, 0] + lo, pairs[:, 1] + lo
+    keep = (snaps.x[a] - snaps.x[b]) ** 2 + (snaps.y[a] - snaps.y[b]) ** 2 <= radius * radius
+    a, b = a[keep], b[keep]
+    keys = np.minimum(a, b).astype(np.int64) * n + np.maximum(a, b)
+    keys.sort()
+    return keys

@@ -306,9 +306,46 @@ def read_tracks(source: Any, columns: ColumnSpec | None = None) -> RawTracks:
     and ``ROLE_NAMES``. Geo inputs take coordinates from their point geometries unless
     coordinate columns are named. A GeoDataFrame without a CRS is taken as planar metres.
     Times in text files are kept as text so that cleaning can tell zone-less times apart.
+
+    Examples
+    --------
+    The columns are found by their names; ids become text, times stay as they are:
+
+    >>> import pandas as pd
+    >>> frame = pd.DataFrame({"player": [7, 7, 9], "t": [0.0, 0.04, 0.0],
+    ...                       "x": [1.0, 1.5, 20.0], "y": [2.0, 2.0, 5.0],
+    ...                       "position": ["back", "back", "wing"]})
+    >>> raw = read_tracks(frame)
+    >>> raw.columns
+    {'id': 'player', 'time': 't', 'x': 'x', 'y': 'y', 'role': 'position'}
+    >>> raw.frame
+      object  time     x    y  role       source
+    0      7  0.00   1.0  2.0  back  <DataFrame>
+    1      7  0.04   1.5  2.0  back  <DataFrame>
+    2      9  0.00  20.0  5.0  wing  <DataFrame>
     """
     spec = columns if columns is not None else ColumnSpec()
     tables = _tables(source)
+    parts = _standardise_all(tables, spec)
+    # one part is not copied either: concatenation shares the columns' memory
+    frame = pd.concat([p.frame for p in parts], ignore_index=True)
+    lengths = [len(p.frame) for p in parts]
+    frame["source"] = pd.Categorical.from_codes(
+        np.repeat(np.arange(len(tables)), lengths), categories=[t.name for t in tables]
+    )
+    return RawTracks(
+        frame=frame,
+        coords=parts[0].coords,
+        crs=parts[0].crs,
+        sources=[t.resolved for t in tables],
+        columns=parts[0].columns,
+        role_required=spec.require_role,
+        time_unit=spec.time_unit,
+    )
+
+
+def _standardise_all(tables: list[_Table], spec: ColumnSpec) -> list[_Part]:
+    """Standardise each table; later files must have the first one's columns and coordinates."""
     parts: list[_Part] = []
     reference: tuple[_Table, dict[str, str]] | None = None
     for table in tables:
@@ -324,25 +361,7 @@ def read_tracks(source: Any, columns: ColumnSpec | None = None) -> RawTracks:
                     "convert the files to one coordinate system"
                 )
         parts.append(part)
-
-    frame = (
-        parts[0].frame
-        if len(parts) == 1
-        else pd.concat([p.frame for p in parts], ignore_index=True)
-    )
-    lengths = [len(p.frame) for p in parts]
-    frame["source"] = pd.Categorical.from_codes(
-        np.repeat(np.arange(len(tables)), lengths), categories=[t.name for t in tables]
-    )
-    return RawTracks(
-        frame=frame,
-        coords=parts[0].coords,
-        crs=parts[0].crs,
-        sources=[t.resolved for t in tables],
-        columns=parts[0].columns,
-        role_required=spec.require_role,
-        time_unit=spec.time_unit,
-    )
+    return parts
 
 
 # --------------------------------------------------------------------------- sources
@@ -691,22 +710,12 @@ def _read_table(table: _Table) -> _Table:
 def _standardise(
     table: _Table, spec: ColumnSpec, reference: tuple[_Table, dict[str, str]] | None
 ) -> tuple[_Part, dict[str, str]]:
-    if table.is_file:
-        suffix = _kind_suffix(table.name)
-        if suffix not in _ALL_SUFFIXES:
-            raise InputError(
-                f"{table.name}: unknown file type {suffix or '(no extension)'!r}; use "
-                f"{', '.join(_ALL_SUFFIXES)} (text files may be compressed: .gz, .bz2, .xz)"
-            )
-        if suffix in TEXT_SUFFIXES:
-            data, mapping = _read_text(table, spec, reference)
-            table = _Table(table.name, table.resolved, data)
-        else:
-            table = _read_table(table)
-            mapping = {}
-    else:
-        mapping = {}
+    """Read one table if it is a file, bind its columns and return them in standard form.
 
+    ``reference`` is the first table and its column binding, which later files must share.
+    Returns the standard part and the binding of this table's columns.
+    """
+    table, mapping = _load(table, spec, reference)
     data = table.data
     if len(data) == 0:
         raise InputError(f"{table.name}: has no data rows; give a table with at least one fix")
@@ -718,19 +727,57 @@ def _standardise(
         table = _Table(table.name, table.resolved, pd.DataFrame(data), fixed=table.fixed)
     geometry_col = data.geometry.name if table.geometry else None
     visible = [c for c in cols if c != geometry_col and c not in (_OBJ_COL, _TIME_COL)]
-    time_index = isinstance(data.index, pd.DatetimeIndex)
-
     if not mapping:
-        if reference is not None:
-            mapping = _check_same_columns(table, visible, reference)
-        elif table.fixed:
-            sub = ColumnSpec(**{**_spec_dict(spec), "id": None, "time": None})
-            mapping = _resolve_fixed(table, visible, sub)
-        else:
-            mapping = _resolve(
-                table.name, visible, spec, geometry=table.geometry, time_index=time_index
-            )
+        time_index = isinstance(data.index, pd.DatetimeIndex)
+        mapping = _bind_columns(table, visible, spec, reference, time_index=time_index)
+    frame, coords, crs = _standard_frame(table, data, mapping, spec)
+    report = _columns_report(table, data, mapping, coords, geometry_col)
+    return _Part(frame, coords, crs, report), mapping
 
+
+def _load(
+    table: _Table, spec: ColumnSpec, reference: tuple[_Table, dict[str, str]] | None
+) -> tuple[_Table, dict[str, str]]:
+    """Read a file's data into the table; return it with the binding of a text file's columns.
+
+    Tables in memory come back as they are; the binding is empty unless a text file was read
+    (text files are read with only the columns they need).
+    """
+    if not table.is_file:
+        return table, {}
+    suffix = _kind_suffix(table.name)
+    if suffix not in _ALL_SUFFIXES:
+        raise InputError(
+            f"{table.name}: unknown file type {suffix or '(no extension)'!r}; use "
+            f"{', '.join(_ALL_SUFFIXES)} (text files may be compressed: .gz, .bz2, .xz)"
+        )
+    if suffix in TEXT_SUFFIXES:
+        data, mapping = _read_text(table, spec, reference)
+        return _Table(table.name, table.resolved, data), mapping
+    return _read_table(table), {}
+
+
+def _bind_columns(
+    table: _Table,
+    visible: list[str],
+    spec: ColumnSpec,
+    reference: tuple[_Table, dict[str, str]] | None,
+    *,
+    time_index: bool,
+) -> dict[str, str]:
+    """Bind each standard field to one of the table's ``visible`` columns."""
+    if reference is not None:
+        return _check_same_columns(table, visible, reference)
+    if table.fixed:
+        sub = ColumnSpec(**{**_spec_dict(spec), "id": None, "time": None})
+        return _resolve_fixed(table, visible, sub)
+    return _resolve(table.name, visible, spec, geometry=table.geometry, time_index=time_index)
+
+
+def _standard_frame(
+    table: _Table, data: pd.DataFrame, mapping: dict[str, str], spec: ColumnSpec
+) -> tuple[pd.DataFrame, str, str | None]:
+    """Return the standard columns of ``data``, the kind of its coordinates and their CRS."""
     # .array keeps time zones and assigns by position whatever the input's index is.
     time_values = data.index if mapping["time"] == _INDEX else data[mapping["time"]]
     crs: str | None
@@ -759,7 +806,17 @@ def _standardise(
         index=pd.RangeIndex(len(data)),
         copy=False,
     )
+    return frame, coords, crs
 
+
+def _columns_report(
+    table: _Table,
+    data: pd.DataFrame,
+    mapping: dict[str, str],
+    coords: str,
+    geometry_col: str | None,
+) -> dict[str, str]:
+    """Return which input column (or index, trajectory id, geometry) fed each standard field."""
     report = dict(mapping)
     if table.fixed:
         report["id"] = table.fixed["_id_label"]
@@ -769,7 +826,7 @@ def _standardise(
     if "x" not in report and "lon" not in report:
         keys = ("lon", "lat") if coords == "lonlat" else ("x", "y")
         report.update(dict.fromkeys(keys, str(geometry_col)))
-    return _Part(frame, coords, crs, report), mapping
+    return report
 
 
 def _spec_dict(spec: ColumnSpec) -> dict[str, Any]:

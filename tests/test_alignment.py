@@ -2,11 +2,13 @@
 
 from __future__ import annotations
 
+from collections import Counter
+
 import numpy as np
 import pytest
 from scenes import NS, make_fixes
 
-from comove.alignment import AlignParams, align, default_step
+from comove.alignment import AlignParams, Snapshots, align, default_step
 from comove.errors import InputError
 
 
@@ -116,3 +118,50 @@ def test_orders_are_computed_once_and_follow_new_arrays():
     # an attribute given a new array is not answered from the old one
     snaps.obj = snaps.obj[::-1].copy()
     assert np.array_equal(snaps.object_order(), np.argsort(snaps.obj, kind="stable"))
+
+
+def _entries(n_objects: int, n_roles: int, n_entries: int, seed: int) -> Snapshots:
+    rng = np.random.default_rng(seed)
+    obj = rng.integers(0, n_objects, n_entries).astype(np.int32)
+    # few roles per object, so that counts tie now and then
+    role = ((obj.astype(np.int64) * 7 + rng.integers(0, 3, n_entries)) % n_roles).astype(np.int32)
+    return Snapshots(
+        step_ns=NS,
+        first_index=0,
+        n_snapshots=n_entries,
+        snap=np.arange(n_entries, dtype=np.int64),
+        obj=obj,
+        role=role,
+        x=np.zeros(n_entries),
+        y=np.zeros(n_entries),
+        objects=np.array([f"o{i}" for i in range(n_objects)]),
+        roles=np.array([f"r{i}" for i in range(n_roles)]),
+        max_gap_ns=NS,
+    )
+
+
+def test_object_order_with_more_objects_than_16_bit_codes_hold():
+    # below 2**15 objects the codes are sorted as 16-bit integers; beyond, as they are
+    snaps = _entries(2**15 + 3, 2, 200_000, seed=4)
+    order = snaps.object_order()
+    # the definition: a stable sort by object
+    assert np.array_equal(order, np.lexsort((np.arange(snaps.n_entries), snaps.obj)))
+
+
+@pytest.mark.parametrize(
+    ("n_objects", "n_roles"),
+    # the second has more object x role cells than the 50 M of the dense count table
+    [(60, 11), (10_001, 5_001)],
+)
+def test_main_role_is_the_most_frequent_lowest_on_ties(n_objects, n_roles):
+    snaps = _entries(n_objects, n_roles, 5_000, seed=n_objects)
+    counts: dict[int, Counter] = {}
+    for o, r in zip(snaps.obj.tolist(), snaps.role.tolist(), strict=True):
+        counts.setdefault(o, Counter())[r] += 1
+    expected = np.zeros(n_objects, dtype=np.int64)  # objects without an entry: role 0
+    for o, c in counts.items():
+        best = max(c.values())
+        expected[o] = min(r for r, k in c.items() if k == best)
+    ties = sum(list(c.values()).count(max(c.values())) > 1 for c in counts.values())
+    assert ties > 0  # the tie rule is exercised
+    assert np.array_equal(snaps.main_roles(), expected)

@@ -19,7 +19,7 @@ from comove.cleaning import (
     format_quality_summary,
 )
 from comove.errors import InputError
-from comove.reading import ColumnSpec, read_tracks
+from comove.reading import ColumnSpec, RawTracks, read_tracks
 
 T0 = 1_772_366_400  # 2026-03-01T12:00:00Z in epoch seconds (checked against calendar below)
 NS = 1_000_000_000
@@ -407,3 +407,97 @@ def test_float_epoch_seconds_keep_microseconds_and_land_on_a_regular_grid() -> N
         {"id": ["a"], "time": [1772366400.123456], "x": [0.0], "y": [0.0], "role": ["r"]}
     )
     assert clean_fixes(read_tracks(one))[0].time[0] == 1_772_366_400_123_456_000
+
+
+# --------------------------------------------------------------------------- fast paths
+# Inputs that take a shortcut (see docs/performance.md) and inputs that do not give alike results.
+
+
+def test_categorical_and_parquet_text_times_parse_as_plain_text(tmp_path: Path) -> None:
+    # Parquet text columns arrive as categoricals, whose distinct values are parsed once.
+    times = [
+        "2026-03-01T12:00:00Z",
+        "2026-03-01T12:00:01",  # zone-less: UTC
+        "not a time",
+        None,
+        "2026-03-01T12:00:00Z",
+        "2026-03-01 13:00:02+01:00",
+    ]
+    frame = pd.DataFrame(
+        {"id": list("aaaabb"), "t": times, "x": np.arange(6.0), "y": 0.0, "role": "r"}
+    )
+    frame.to_parquet(tmp_path / "t.parquet", index=False)
+    from_parquet = read_tracks(tmp_path / "t.parquet")
+    assert isinstance(from_parquet.frame["time"].dtype, pd.CategoricalDtype)
+    for raw in (read_tracks(frame), read_tracks(frame.astype({"t": "category"})), from_parquet):
+        fixes, quality = clean_fixes(raw)
+        assert fixes.time.tolist() == [T0 * NS, (T0 + 1) * NS, T0 * NS, (T0 + 2) * NS]
+        assert fixes.x.tolist() == [0.0, 1.0, 4.0, 5.0]
+        assert quality["dropped"]["unparseable_time"] == 2
+        assert quality["zone_less_times"] == 1
+        assert quality["time_input"] == "ISO 8601 text"
+
+
+def test_unsorted_categorical_ids_and_roles_get_sorted_codes() -> None:
+    # The reader hands over sorted categories, whose codes are kept; other orders are ranked.
+    frame = pd.DataFrame(
+        {
+            "object": pd.Categorical(["b", "a", "b", None], categories=["b", "a"]),
+            "time": [T0, T0, T0 + 1, T0],
+            "x": [0.0, 1.0, 2.0, 3.0],
+            "y": 0.0,
+            "role": pd.Categorical(["s", "r", "s", "r"], categories=["s", "r"]),
+        }
+    )
+    raw = RawTracks(frame, coords="planar", crs=None, sources=["<hand-made>"], columns={})
+    fixes, quality = clean_fixes(raw)
+    _check_invariants(fixes, quality)
+    assert fixes.objects.tolist() == ["a", "b"] and fixes.roles.tolist() == ["r", "s"]
+    assert fixes.obj.tolist() == [0, 1, 1] and fixes.role.tolist() == [0, 1, 1]
+    assert fixes.x.tolist() == [1.0, 0.0, 2.0]
+    assert quality["dropped"]["missing_id"] == 1
+
+
+def test_coordinates_that_are_not_floats_are_converted() -> None:
+    # The reader hands over float64 coordinates, used as they are; others are converted.
+    frame = pd.DataFrame(
+        {
+            "object": ["a", "a", "a"],
+            "time": [T0, T0 + 1, T0 + 2],
+            "x": ["1.5", "abc", "2"],
+            "y": [3, 4, 5],
+            "role": ["r", "r", "r"],
+        }
+    )
+    raw = RawTracks(frame, coords="planar", crs=None, sources=["<hand-made>"], columns={})
+    fixes, quality = clean_fixes(raw)
+    assert fixes.x.tolist() == [1.5, 2.0] and fixes.y.tolist() == [3.0, 5.0]
+    assert quality["dropped"]["missing_coordinates"] == 1
+
+
+@pytest.mark.parametrize("n_objects", [50, 2**15 + 3])
+@pytest.mark.parametrize("layout", ["object-major", "time-major", "shuffled"])
+def test_rows_in_any_order_are_sorted_by_object_and_time(n_objects: int, layout: str) -> None:
+    # Rows already in (object, time) or in time order skip a sort; below 2**15 objects
+    # the object codes are sorted as 16-bit integers.
+    obj = np.repeat(np.arange(n_objects), 3)
+    step = np.tile(np.arange(3), n_objects)
+    if layout == "time-major":
+        order = np.lexsort((obj, step))
+    elif layout == "shuffled":
+        order = np.random.default_rng(n_objects).permutation(obj.size)
+    else:
+        order = np.arange(obj.size)
+    frame = pd.DataFrame(
+        {
+            "id": np.char.add("o", np.char.zfill(obj[order].astype(str), 5)),
+            "t": T0 + step[order],
+            "x": (obj * 3 + step)[order].astype(float),
+            "y": 0.0,
+            "role": "r",
+        }
+    )
+    fixes, quality = clean_fixes(read_tracks(frame))
+    _check_invariants(fixes, quality)
+    assert len(fixes.objects) == n_objects
+    assert np.array_equal(fixes.x, np.arange(3.0 * n_objects))

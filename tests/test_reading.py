@@ -108,6 +108,17 @@ def test_csv_ids_keep_leading_zeros_and_bad_coordinates_become_nan(tmp_path: Pat
     assert raw.frame["time"].iloc[0] == "1772366400"
 
 
+def test_a_text_cell_in_a_coordinate_column_becomes_nan(tmp_path: Path) -> None:
+    # Coordinates are read as floats; a column that cannot be is read as text and converted.
+    path = tmp_path / "odd.csv"
+    path.write_text("id,time,x,y,role\na,0,1.5,2,r\na,1,oops,3,r\na,2,-4e1,4,r\n")
+    raw = read_tracks(path)
+    assert raw.frame["x"].dtype == np.float64 and raw.frame["y"].dtype == np.float64
+    assert raw.frame["x"].tolist()[::2] == [1.5, -40.0] and np.isnan(raw.frame["x"].iloc[1])
+    assert raw.frame["y"].tolist() == [2.0, 3.0, 4.0]
+    assert raw.frame["time"].tolist() == ["0", "1", "2"]  # times stay text
+
+
 def test_parquet(tmp_path: Path) -> None:
     path = tmp_path / "walk.parquet"
     df = _table()
