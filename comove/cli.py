@@ -102,7 +102,16 @@ def build_parser() -> argparse.ArgumentParser:
     parser = _Parser(prog="comove", description="Which roles and which objects move together.")
     parser.add_argument("--version", action="version", version=f"comove {comove.__version__}")
     sub = parser.add_subparsers(dest="command", required=True, parser_class=_Parser)
+    _add_mine(sub)
+    _add_groups(sub)
+    _add_sweep(sub)
+    _add_report(sub)
+    _add_demo(sub)
+    return parser
 
+
+def _add_mine(sub: Any) -> None:
+    """Add the ``comove mine`` command to the subcommands ``sub``."""
     p = sub.add_parser(
         "mine",
         help="durable role co-location patterns of tracks",
@@ -118,6 +127,9 @@ def build_parser() -> argparse.ArgumentParser:
     _add_stage_options(p, MINE_STAGES, required=set())
     _add_common(p)
 
+
+def _add_groups(sub: Any) -> None:
+    """Add the ``comove groups`` command to the subcommands ``sub``."""
     g = sub.add_parser(
         "groups",
         help="co-moving groups of objects: episodes and dyads",
@@ -138,6 +150,9 @@ def build_parser() -> argparse.ArgumentParser:
     _add_stage_options(g, GROUP_STAGES, required=set())
     _add_common(g)
 
+
+def _add_sweep(sub: Any) -> None:
+    """Add the ``comove sweep`` command to the subcommands ``sub``."""
     w = sub.add_parser(
         "sweep",
         help="the miner over a grid of radii and participation thresholds",
@@ -164,6 +179,9 @@ def build_parser() -> argparse.ArgumentParser:
     _add_stage_options(w, SWEEP_STAGES, required=set())
     _add_common(w, merge=False)
 
+
+def _add_report(sub: Any) -> None:
+    """Add the ``comove report`` command to the subcommands ``sub``."""
     r = sub.add_parser(
         "report",
         help="an HTML report with figures of a results folder",
@@ -180,6 +198,9 @@ def build_parser() -> argparse.ArgumentParser:
     )
     r.add_argument("--quiet", action="store_true", help="print nothing but errors")
 
+
+def _add_demo(sub: Any) -> None:
+    """Add the ``comove demo`` command to the subcommands ``sub``."""
     d = sub.add_parser(
         "demo",
         help="run the miner on a bundled invented scenario",
@@ -192,7 +213,6 @@ def build_parser() -> argparse.ArgumentParser:
         help="results folder to create (default: comove-demo)",
     )
     _add_common(d, merge=False)
-    return parser
 
 
 def _add_config(p: argparse.ArgumentParser) -> None:
