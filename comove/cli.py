@@ -29,8 +29,9 @@ gc.disable()
 import comove  # noqa: E402
 from comove.cleaning import format_quality_summary  # noqa: E402
 from comove.errors import InputError  # noqa: E402
-from comove.pipeline import CAUTION, GROUP_STAGES, MINE_STAGES, groups, mine  # noqa: E402
+from comove.pipeline import GROUP_STAGES, MINE_STAGES, groups, mine  # noqa: E402
 from comove.presets import PRESETS  # noqa: E402
+from comove.results import CAUTION  # noqa: E402
 from comove.runfile import load_run_file, parse_grid  # noqa: E402
 from comove.sweep import SWEEP_STAGES, SweepParams, sweep  # noqa: E402
 
