@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import os
+import shutil
 import signal
 import stat
 import subprocess
@@ -11,6 +12,7 @@ import sys
 import textwrap
 import time
 
+import psutil
 import pytest
 
 from comove import results
@@ -26,6 +28,7 @@ from comove.results import (
     text_writer,
     write_folder,
 )
+from comove.scenarios import mine_options
 
 QUICK = ["--radius", "2", "--permutations", "0", "--quiet"]
 
@@ -58,6 +61,31 @@ def python(code, *args, **kwargs):
 
 
 # ---------------------------------------------------------------- --force
+
+
+def test_force_never_replaces_a_folder_holding_the_input(tmp_path, tracks_csv, capsys):
+    inp = tmp_path / "inp"
+    inp.mkdir()
+    source = shutil.move(tracks_csv, inp / "small.csv")
+    before = tree(inp)
+    code, _, err = run(["mine", source, *QUICK, "--out", inp, "--force"], capsys)
+    assert code == 2 and err.count("\n") == 1
+    assert "small.csv, an input of this run" in err and "choose another --out" in err
+    assert tree(inp) == before
+
+
+@pytest.mark.parametrize("merge", [False, True])
+def test_input_inside_a_comove_folder_is_never_replaced(tmp_path, tracks_csv, capsys, merge):
+    # the input has the name of a file comove wrote there: neither --force nor
+    # --merge --force may replace it
+    out = tmp_path / "res"
+    assert run(["mine", tracks_csv, *QUICK, "--out", out], capsys)[0] == 0
+    shutil.copy(tracks_csv, out / "patterns.csv")
+    before = tree(out)
+    flags = ["--force", "--merge"] if merge else ["--force"]
+    code, _, err = run(["mine", out / "patterns.csv", *QUICK, "--out", out, *flags], capsys)
+    assert code == 2 and "patterns.csv, an input of this run" in err
+    assert tree(out) == before
 
 
 @pytest.mark.parametrize("extra", ["file", "folder"])
@@ -143,9 +171,10 @@ def test_merge_keeps_everything_it_did_not_write_and_removes_the_outdated_report
     (out / "figures" / "mine.svg").write_text("<svg/>")
     (out / "notes").mkdir()
     (out / "notes" / "todo.txt").write_text("check the cat")
-    code, _, err = run(["groups", tracks_csv, "--radius", 2, "--permutations", 0,
+    code, out_text, err = run(["groups", tracks_csv, "--radius", 2, "--permutations", 0,
                                "--out", out, "--merge"], capsys)  # fmt: skip
     assert code == 0, err
+    assert "report of the folder's earlier results was removed" in out_text
     # the user's files stay; the report of the mine results alone is gone
     assert (out / "figures" / "mine.svg").read_text() == "<svg/>"
     assert (out / "notes" / "todo.txt").read_text() == "check the cat"
@@ -242,6 +271,29 @@ HOLDER = """
 """
 
 
+@pytest.mark.parametrize("exists", [False, True])
+def test_a_second_writer_fails_at_once_naming_the_first(tmp_path, tracks_csv, capsys, exists):
+    out = tmp_path / "res"
+    if exists:
+        assert run(["mine", tracks_csv, *QUICK, "--out", out], capsys)[0] == 0
+    holder = python(HOLDER, out)
+    try:
+        assert holder.stdout.readline().strip() == "held"
+        # the input does not exist: the folder is claimed before anything is read
+        absent = tmp_path / "absent.csv"
+        code, _, err = run(["mine", absent, *QUICK, "--out", out, "--force"], capsys)
+        assert code == 2 and err.count("\n") == 1
+        assert f"another comove run (PID {holder.pid}) is writing it" in err
+        with pytest.raises(InputError, match=f"PID {holder.pid}"):
+            write_folder(out, {"a.json": json_writer({})}, force=True)
+    finally:
+        holder.communicate("\n")
+    assert holder.returncode == 0, holder.stderr
+    code, _, err = run(["mine", tracks_csv, *QUICK, "--out", out, "--force"], capsys)
+    assert code == 0, err
+    assert hidden(tmp_path) == [] and hidden(out) == [MANIFEST]
+
+
 def test_a_claim_in_this_process_is_also_exclusive(tmp_path):
     with claim(tmp_path / "res", command="mine") as held:
         with pytest.raises(InputError, match=f"PID {os.getpid()}"), claim(tmp_path / "res"):
@@ -320,3 +372,71 @@ def test_signals_are_held_while_files_change_places():
     finally:
         signal.signal(signal.SIGTERM, old)
     assert caught == [("step", "done"), ("handler", signal.SIGTERM)]
+
+
+def game_args():
+    source, options = mine_options("small_sided_game")
+    flags = [x for k, v in options.items() for x in (f"--{k.replace('_', '-')}", str(v))]
+    return ["mine", source, *flags, "--permutations", "199", "--jobs", "2", "--quiet"]
+
+
+@pytest.mark.parametrize(
+    ("signum", "status", "words"),
+    [(signal.SIGTERM, 143, "stopped by SIGTERM"), (signal.SIGHUP, 129, "stopped by SIGHUP"),
+     (signal.SIGINT, 130, "interrupted")],
+)  # fmt: skip
+def test_a_signal_stops_a_real_run_leaving_nothing(tmp_path, signum, status, words):
+    out = tmp_path / "res"
+    run_ = subprocess.Popen(
+        [sys.executable, "-m", "comove.cli", *game_args(), "--out", str(out)],
+        stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+    )  # fmt: skip
+    proc = psutil.Process(run_.pid)
+    while len(proc.children()) < 2 and run_.poll() is None:  # the null replicates' workers
+        time.sleep(0.05)
+    children = proc.children(recursive=True)
+    assert len(children) >= 2, "the run ended before its workers started"
+    run_.send_signal(signum)
+    _, err = run_.communicate(timeout=120)
+    assert run_.returncode == status
+    assert err == f"comove mine: {words}; nothing was written\n"
+    _, alive = psutil.wait_procs(children, timeout=10)
+    assert alive == []
+    assert not out.exists() and hidden(tmp_path) == []
+
+
+SLOW_CSV = """
+    import sys, time
+    import comove.pipeline as pipeline
+    from comove.cli import main
+
+    real = pipeline.csv_writer
+
+    def slow_csv(frame):
+        write = real(frame)
+
+        def slow(path):
+            write(path)
+            print("writing", flush=True)
+            for _ in range(40):
+                time.sleep(0.05)
+
+        return slow
+
+    pipeline.csv_writer = slow_csv
+    sys.exit(main(sys.argv[1:]))
+"""
+
+
+def test_sigterm_while_writing_leaves_the_folder_as_it_was(tmp_path, tracks_csv, capsys):
+    out = tmp_path / "res"
+    assert run(["mine", tracks_csv, *QUICK, "--out", out], capsys)[0] == 0
+    before = tree(out)
+    writer = python(SLOW_CSV, "mine", tracks_csv, *QUICK, "--out", out, "--force")
+    assert writer.stdout.readline().strip() == "writing"
+    writer.send_signal(signal.SIGTERM)
+    _, err = writer.communicate(timeout=60)
+    assert writer.returncode == 143
+    assert err == "comove mine: stopped by SIGTERM; nothing was written\n"
+    assert tree(out) == before
+    assert hidden(tmp_path) == [] and hidden(out) == [MANIFEST]
