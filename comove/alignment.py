@@ -11,7 +11,7 @@ snapshot is the role of its latest fix at or before that snapshot.
 from __future__ import annotations
 
 from collections.abc import Callable
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import TYPE_CHECKING
 
 import numpy as np
@@ -200,6 +200,27 @@ class Snapshots:
             lambda: np.concatenate(
                 [[0], np.cumsum(np.bincount(self.obj, minlength=len(self.objects)))]
             ),
+        )
+
+    def window(self, start: int, stop: int) -> Snapshots:
+        """Return the snapshots ``start`` to ``stop - 1`` as a chunk of their own.
+
+        The chunk keeps the object and role codes and names, so results of
+        chunks of one run can be combined; its snapshot 0 is this run's
+        snapshot ``start`` (``first_index`` moves with it). The entry arrays
+        are views, not copies.
+        """
+        start, stop = max(int(start), 0), min(int(stop), self.n_snapshots)
+        lo, hi = self.offsets()[[start, max(stop, start)]]
+        return replace(
+            self,
+            first_index=self.first_index + start,
+            n_snapshots=max(stop - start, 0),
+            snap=self.snap[lo:hi] - start,
+            obj=self.obj[lo:hi],
+            role=self.role[lo:hi],
+            x=self.x[lo:hi],
+            y=self.y[lo:hi],
         )
 
     def _derived(self, name: str, inputs: tuple, compute: Callable[[], np.ndarray]) -> np.ndarray:

@@ -121,7 +121,7 @@ def _unique(keys: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return ordered[starts], np.diff(np.append(starts, ordered.size))
 
 
-def _encode(roles: np.ndarray, n_roles: int) -> np.ndarray:
+def encode_role_sets(roles: np.ndarray, n_roles: int) -> np.ndarray:
     """Return one int64 code per row of role codes (base ``n_roles`` digits)."""
     code = np.zeros(roles.shape[0], dtype=np.int64)
     for col in range(roles.shape[1]):
@@ -155,6 +155,15 @@ class RolePresence:
         present[snaps.role, snaps.snap] = True
         self.bits = np.packbits(present, axis=1)
         self.n_snapshots = snaps.n_snapshots
+
+    @classmethod
+    def joined(cls, parts: list[RolePresence]) -> RolePresence:
+        """Return the presence of consecutive spans of snapshots, joined along time."""
+        whole = cls.__new__(cls)
+        present = np.hstack([np.unpackbits(p.bits, axis=1, count=p.n_snapshots) for p in parts])
+        whole.bits = np.packbits(present, axis=1)
+        whole.n_snapshots = sum(p.n_snapshots for p in parts)
+        return whole
 
     def mask(self, roles: np.ndarray) -> np.ndarray:
         """Return packed bits of the snapshots where all ``roles`` are present."""
@@ -241,7 +250,7 @@ def _pair_level(
     hi = np.where(swap, i, j)
     roles = np.column_stack([np.minimum(ri, rj), np.maximum(ri, rj)]).astype(np.int64)
     n_roles = len(snaps.roles)
-    codes, instance_set = np.unique(_encode(roles, n_roles), return_inverse=True)
+    codes, instance_set = np.unique(encode_role_sets(roles, n_roles), return_inverse=True)
     role_sets = np.column_stack([codes // n_roles, codes % n_roles]).astype(np.int64)
     return role_sets, np.column_stack([lo, hi]).astype(np.int64), instance_set.astype(np.int64)
 
@@ -297,8 +306,8 @@ def _join_instances(
     u, v = u[linked], v[linked]
     rows = np.column_stack([inst[u], inst[v, -1]])
     roles = snaps.role[rows].astype(np.int64)
-    cand_codes = _encode(candidates, n_roles)
-    codes = _encode(roles, n_roles)
+    cand_codes = encode_role_sets(candidates, n_roles)
+    codes = encode_role_sets(roles, n_roles)
     pos = np.searchsorted(cand_codes, codes)
     found = (pos < cand_codes.size) & (cand_codes[np.minimum(pos, cand_codes.size - 1)] == codes)
     return rows[found], pos[found].astype(np.int64)
@@ -325,7 +334,8 @@ def mine_levels(
     min_prevalent_snapshots : int, default 1
         A set with fewer prevalent snapshots is not extended. Because prevalent
         snapshots are anti-monotone, any bound implied by the persistence
-        thresholds keeps the result exact.
+        thresholds keeps the result exact. 0 extends every set with a row
+        instance (what a time chunk needs, see :mod:`comove.role_chain`).
     presence : RolePresence, optional
         Role presence of ``snaps``, when the caller already has it.
     on_level : callable, optional
@@ -369,25 +379,33 @@ def mine_levels(
     levels = [level]
     edge_keys = pairs.keys(snaps.n_entries)
     for k in range(3, params.max_size + 1):
-        keep = level.prevalent >= max(int(min_prevalent_snapshots), 1)
+        keep = level.prevalent >= int(min_prevalent_snapshots)
         candidates = _candidates(level.roles, keep)
         if candidates.shape[0] == 0:
             break
         if on_level:
             on_level(k, candidates.shape[0])
-        instances, instance_set = _join_instances(snaps, level, keep, candidates, edge_keys)
-        # candidates without any row instance can never be prevalent: drop them
-        has, _ = _unique(instance_set)
-        remap = np.full(candidates.shape[0], -1, dtype=np.int64)
-        remap[has] = np.arange(has.size)
-        level = _level_from_instances(
-            snaps,
-            candidates[has],
-            instances,
-            remap[instance_set],
-            role_counts,
-            presence,
-            params.min_participation,
-        )
+        level = _next_level(snaps, level, keep, candidates, edge_keys, role_counts, presence,
+                            params.min_participation)  # fmt: skip
         levels.append(level)
     return levels
+
+
+def _next_level(
+    snaps: Snapshots,
+    level: LevelResult,
+    keep: np.ndarray,
+    candidates: np.ndarray,
+    edge_keys: np.ndarray,
+    role_counts: RoleCounts,
+    presence: RolePresence,
+    min_participation: float,
+) -> LevelResult:
+    """Return the level of ``candidates`` joined from the kept sets of ``level``."""
+    instances, instance_set = _join_instances(snaps, level, keep, candidates, edge_keys)
+    # candidates without any row instance can never be prevalent: drop them
+    has, _ = _unique(instance_set)
+    remap = np.full(candidates.shape[0], -1, dtype=np.int64)
+    remap[has] = np.arange(has.size)
+    return _level_from_instances(snaps, candidates[has], instances, remap[instance_set],
+                                 role_counts, presence, min_participation)  # fmt: skip

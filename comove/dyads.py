@@ -10,6 +10,42 @@ more, the counts of the pair over the common time grid are
 
 and the association indices are computed from them and from the distances
 between the two tracks. See ``docs/association.md`` for the definitions.
+
+With y_ab = shared - x (both present, not together):
+
+- SRI = x / (x + y_ab + y_a + y_b) and HWI = x / (x + y_ab + (y_a + y_b) / 2)
+  (Cairns & Schwager 1987). All objects are located on one common grid, so a
+  snapshot at which only one of the two is present counts as one at which
+  they were seen apart (y_a or y_b); snapshots with neither present do not
+  count.
+- Prox = x / shared: the share of simultaneous fixes at which the two are
+  together (Bertrand et al. 1996; reviewed by Joo et al. 2018).
+- Cs = (De - Do) / (De + Do) (Kenward et al. 1993), where Do is the mean
+  distance between the two at their shared snapshots and De the mean
+  distance between every aligned position of a and every aligned position
+  of b, at any times. Cs is NaN when De + Do is 0.
+
+When n_a * n_b (present snapshots of a times those of b) exceeds
+``max_expected_pairs``, De uses evenly spaced subsamples of both tracks: a
+track of n positions thinned to m keeps, in time order, the middle position
+of each of m equal strata, with m_a * m_b <= ``max_expected_pairs`` and
+both tracks thinned by the same factor where possible. The result is
+deterministic; it approximates the exact De closely for tracks that do not
+oscillate in step with the stride.
+
+References
+----------
+.. [1] R. J. Cairns, S. J. Schwager, "A comparison of association indices",
+   Animal Behaviour 35(5), 1454-1469, 1987.
+.. [2] R. E. Kenward, V. Marcström, M. Karlbom, "Post-nestling behaviour in
+   goshawks, Accipiter gentilis: II. Sex differences in sociality and
+   nest-switching", Animal Behaviour 46(2), 371-378, 1993 (details from memory).
+.. [3] M. R. Bertrand, A. J. DeNicola, S. R. Beissinger, R. K. Swihart,
+   "Effects of parturition on home ranges and social affiliations of female
+   white-tailed deer", Journal of Wildlife Management 60(4), 899-909, 1996 (from
+   memory).
+.. [4] R. Joo, M.-P. Etienne, N. Bez, S. Mahévas, "Metrics for describing
+   dyadic movement: a review", Movement Ecology 6, 26, 2018.
 """
 
 from __future__ import annotations
@@ -187,117 +223,15 @@ def _empty_table() -> pd.DataFrame:
     return pd.DataFrame(data)
 
 
-def dyad_table(
-    snaps: Snapshots, together: NeighbourPairs, max_expected_pairs: int = 62_500
-) -> pd.DataFrame:
-    """Return association counts and indices for every pair of objects seen at the same time.
+def _together_runs(
+    snaps: Snapshots, together: NeighbourPairs, a: np.ndarray, b: np.ndarray
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Return per dyad row (pairs ``a`` < ``b``): snapshots together, longest run, first, last.
 
-    Parameters
-    ----------
-    snaps : Snapshots
-        Aligned snapshots.
-    together : NeighbourPairs
-        The pairs of entries counted as together, normally
-        ``neighbour_pairs(snaps, radius)``; any subset of such pairs (for
-        example those that also move alike) may be given. Pairs are used as
-        given, never recomputed.
-    max_expected_pairs : int, default 62_500
-        Most pairings of a fix of a with a fix of b used for the expected
-        distance of one pair (250 x 250 positions); above it, both tracks are
-        thinned (see Notes). On a 90-minute match at 25 Hz this kept every
-        pair's De within 0.5 % of the value from 4 000 000 pairings (median
-        0.1 %); raise it for more precision at proportional cost.
-
-    Returns
-    -------
-    DataFrame
-        One row per unordered pair of objects (``object_a`` has the lower
-        object code) that are both present at one snapshot or more, with columns
-
-        - ``object_a``, ``object_b``: object ids; ``role_a``, ``role_b``: the
-          role each object has at most of its present snapshots (ties: the
-          first role in ``snaps.roles``);
-        - ``shared_snapshots`` (both present), ``together_snapshots`` (x),
-          ``only_a_snapshots`` (y_a), ``only_b_snapshots`` (y_b);
-        - ``together_seconds`` (x times the step), ``longest_together_seconds``
-          (longest run of consecutive grid snapshots together, times the step),
-          ``first_together``, ``last_together`` (UTC; NaT when never together);
-        - ``mean_distance_m`` (Do), ``expected_distance_m`` (De);
-        - ``simple_ratio_index``, ``half_weight_index``, ``proximity_index``,
-          ``coefficient_of_sociality``.
-
-        Sorted by half-weight index, descending, then ``object_a``,
-        ``object_b``. ``attrs`` holds ``radius_m``, ``step_s`` and
-        ``max_expected_pairs``.
-
-    Notes
-    -----
-    With y_ab = shared - x (both present, not together):
-
-    - SRI = x / (x + y_ab + y_a + y_b) and HWI = x / (x + y_ab + (y_a + y_b) / 2)
-      (Cairns & Schwager 1987). All objects are located on one common grid, so a
-      snapshot at which only one of the two is present counts as one at which
-      they were seen apart (y_a or y_b); snapshots with neither present do not
-      count.
-    - Prox = x / shared: the share of simultaneous fixes at which the two are
-      together (Bertrand et al. 1996; reviewed by Joo et al. 2018).
-    - Cs = (De - Do) / (De + Do) (Kenward et al. 1993), where Do is the mean
-      distance between the two at their shared snapshots and De the mean
-      distance between every aligned position of a and every aligned position
-      of b, at any times. Cs is NaN when De + Do is 0.
-
-    When n_a * n_b (present snapshots of a times those of b) exceeds
-    ``max_expected_pairs``, De uses evenly spaced subsamples of both tracks: a
-    track of n positions thinned to m keeps, in time order, the middle position
-    of each of m equal strata, with m_a * m_b <= ``max_expected_pairs`` and
-    both tracks thinned by the same factor where possible. The result is
-    deterministic; it approximates the exact De closely for tracks that do not
-    oscillate in step with the stride.
-
-    Counts are whole-array numpy: shared counts are a matrix product of
-    per-object presence grids, together counts a bincount over pair rows, and
-    runs come from one sort of (pair, snapshot) keys. Do uses dense
-    (objects x snapshots) position grids, in chunks of snapshots of about
-    ``GRID_BYTES`` bytes (temporaries included), with one pass per object per
-    chunk. Time is
-    O(n_objects^2 x n_snapshots + P log P) for P together pairs, plus
-    O(n_pairs x max_expected_pairs) for De; memory O(GRID_BYTES + n_objects^2 + P).
-
-    References
-    ----------
-    .. [1] R. J. Cairns, S. J. Schwager, "A comparison of association indices",
-       Animal Behaviour 35(5), 1454-1469, 1987.
-    .. [2] R. E. Kenward, V. Marcström, M. Karlbom, "Post-nestling behaviour in
-       goshawks, Accipiter gentilis: II. Sex differences in sociality and
-       nest-switching", Animal Behaviour 46(2), 371-378, 1993 (details from memory).
-    .. [3] M. R. Bertrand, A. J. DeNicola, S. R. Beissinger, R. K. Swihart,
-       "Effects of parturition on home ranges and social affiliations of female
-       white-tailed deer", Journal of Wildlife Management 60(4), 899-909, 1996 (from
-       memory).
-    .. [4] R. Joo, M.-P. Etienne, N. Bez, S. Mahévas, "Metrics for describing
-       dyadic movement: a review", Movement Ecology 6, 26, 2018.
+    Runs come from one sort of (row, snapshot) keys of the together pairs.
     """
-    if max_expected_pairs < 1:
-        raise ValueError("max_expected_pairs must be at least 1")
-    _check_together(snaps, together)
     n_obj = len(snaps.objects)
-    shared_m, dist_sum = _shared_and_distance_sums(snaps, n_obj)
-    a, b = np.nonzero(np.triu(shared_m, 1))  # row-major: sorted by a, then b
-    table = _empty_table()
-    table.attrs.update(
-        radius_m=float(together.radius),
-        step_s=snaps.step_s,
-        max_expected_pairs=int(max_expected_pairs),
-    )
-    if a.size == 0:
-        return table
     n_rows = a.size
-    present = np.bincount(snaps.obj, minlength=n_obj)
-    shared = shared_m[a, b]
-    only_a = present[a] - shared
-    only_b = present[b] - shared
-    mean_dist = dist_sum[a, b] / shared
-
     # together pairs -> dyad rows; both ends are present, so the pair has a row
     oa, ob = snaps.obj[together.i].astype(np.int64), snaps.obj[together.j].astype(np.int64)
     pair_key = np.minimum(oa, ob) * n_obj + np.maximum(oa, ob)
@@ -325,6 +259,25 @@ def dyad_table(
         brk = np.flatnonzero(row[1:] != row[:-1])
         first_snap[row[np.r_[0, brk + 1]]] = snap[np.r_[0, brk + 1]]
         last_snap[row[np.r_[brk, row.size - 1]]] = snap[np.r_[brk, row.size - 1]]
+    return x, longest, first_snap, last_snap
+
+
+def _dyad_frame(
+    snaps: Snapshots,
+    a: np.ndarray,
+    b: np.ndarray,
+    shared: np.ndarray,
+    x: np.ndarray,
+    longest: np.ndarray,
+    first_snap: np.ndarray,
+    last_snap: np.ndarray,
+    mean_dist: np.ndarray,
+    expected: np.ndarray,
+) -> pd.DataFrame:
+    """Return the dyad rows of pairs ``a`` < ``b`` from their counts and distances."""
+    present = np.bincount(snaps.obj, minlength=len(snaps.objects))
+    only_a = present[a] - shared
+    only_b = present[b] - shared
     never = x == 0
 
     def utc(s: np.ndarray) -> pd.DatetimeIndex:
@@ -332,7 +285,6 @@ def dyad_table(
         t[never] = np.datetime64("NaT")
         return pd.DatetimeIndex(t).tz_localize("UTC")
 
-    expected = _expected_distances(snaps, n_obj, a, b, int(max_expected_pairs))
     with np.errstate(invalid="ignore", divide="ignore"):
         cs = (expected - mean_dist) / (expected + mean_dist)
     apart = shared - x
@@ -340,7 +292,7 @@ def dyad_table(
     roles = snaps.main_roles()
     objects = np.asarray(snaps.objects).astype(str)
     role_names = np.asarray(snaps.roles).astype(str)
-    table = pd.DataFrame(
+    return pd.DataFrame(
         {
             "object_a": pd.array(objects[a], dtype=str),
             "object_b": pd.array(objects[b], dtype=str),
@@ -363,16 +315,87 @@ def dyad_table(
         },
         columns=DYAD_COLUMNS,
     )
+
+
+def dyad_table(
+    snaps: Snapshots, together: NeighbourPairs, max_expected_pairs: int = 62_500
+) -> pd.DataFrame:
+    """Return association counts and indices for every pair of objects seen at the same time.
+
+    Parameters
+    ----------
+    snaps : Snapshots
+        Aligned snapshots.
+    together : NeighbourPairs
+        The pairs of entries counted as together, normally
+        ``neighbour_pairs(snaps, radius)``; any subset of such pairs (for
+        example those that also move alike) may be given. Pairs are used as
+        given, never recomputed.
+    max_expected_pairs : int, default 62_500
+        Most pairings of a fix of a with a fix of b used for the expected
+        distance of one pair (250 x 250 positions); above it, both tracks are
+        thinned (see Notes). On a 90-minute match at 25 Hz this kept every
+        pair's De within 0.5 % of the value from 4 000 000 pairings (median
+        0.1 %); raise it for more precision at proportional cost.
+
+    Returns
+    -------
+    DataFrame
+        One row per unordered pair of objects (``object_a`` has the lower
+        object code) that are both present at one snapshot or more, with columns
+
+        - ``object_a``, ``object_b``: object ids; ``role_a``, ``role_b``: each
+          one's most frequent role (ties: the first in ``snaps.roles``);
+        - ``shared_snapshots`` (both present), ``together_snapshots`` (x),
+          ``only_a_snapshots`` (y_a), ``only_b_snapshots`` (y_b);
+        - ``together_seconds`` (x times the step), ``longest_together_seconds``
+          (longest run of consecutive grid snapshots together, times the step),
+          ``first_together``, ``last_together`` (UTC; NaT when never together);
+        - ``mean_distance_m`` (Do), ``expected_distance_m`` (De);
+        - ``simple_ratio_index``, ``half_weight_index``, ``proximity_index``,
+          ``coefficient_of_sociality``.
+
+        Sorted by half-weight index, descending, then ``object_a``,
+        ``object_b``. ``attrs`` holds ``radius_m``, ``step_s`` and
+        ``max_expected_pairs``.
+
+    Notes
+    -----
+    The indices, the subsampling for De and their sources are given in the
+    module docstring (and ``docs/association.md``). Counts are whole-array
+    numpy: shared counts are a matrix product of per-object presence grids,
+    together counts a bincount over pair rows, runs one sort of (pair,
+    snapshot) keys. Do uses dense (objects x snapshots) position grids in
+    chunks of about ``GRID_BYTES`` bytes, one pass per object per chunk. Time
+    O(n_objects^2 x n_snapshots + P log P) for P together pairs, plus
+    O(n_pairs x max_expected_pairs) for De; memory O(GRID_BYTES + n_objects^2 + P).
+
+    """
+    if max_expected_pairs < 1:
+        raise ValueError("max_expected_pairs must be at least 1")
+    _check_together(snaps, together)
+    n_obj = len(snaps.objects)
+    shared_m, dist_sum = _shared_and_distance_sums(snaps, n_obj)
+    a, b = np.nonzero(np.triu(shared_m, 1))  # row-major: sorted by a, then b
+    attrs = {"radius_m": float(together.radius), "step_s": snaps.step_s,
+             "max_expected_pairs": int(max_expected_pairs)}  # fmt: skip
+    if a.size == 0:
+        table = _empty_table()
+        table.attrs.update(attrs)
+        return table
+    shared = shared_m[a, b]
+    mean_dist = dist_sum[a, b] / shared
+
+    x, longest, first_snap, last_snap = _together_runs(snaps, together, a, b)
+    expected = _expected_distances(snaps, n_obj, a, b, int(max_expected_pairs))
+    table = _dyad_frame(snaps, a, b, shared, x, longest, first_snap, last_snap, mean_dist,
+                        expected)  # fmt: skip
     table = table.sort_values(
         ["half_weight_index", "object_a", "object_b"],
         ascending=[False, True, True],
         kind="stable",
     ).reset_index(drop=True)
-    table.attrs.update(
-        radius_m=float(together.radius),
-        step_s=step,
-        max_expected_pairs=int(max_expected_pairs),
-    )
+    table.attrs.update(attrs)
     return table
 
 

@@ -36,7 +36,7 @@ import pandas as pd
 
 from comove.alignment import Snapshots
 from comove.errors import InputError
-from comove.grouping import SnapshotGroups
+from comove.grouping import GroupTimeline
 from comove.motion import Motion
 from comove.projection import working_to_input
 
@@ -133,23 +133,24 @@ class _Timeline:
     single integer operations, whatever the number of objects.
     """
 
-    def __init__(self, snaps: Snapshots, groups: SnapshotGroups, min_size: int, tol_snaps: int):
+    def __init__(self, line: GroupTimeline, min_size: int, tol_snaps: int):
         self.min_size = min_size
         self.tol = tol_snaps
-        n_obj = len(snaps.objects)
+        n_obj = line.n_objects
         self.n_obj = n_obj
-        # each object's present snapshots, for telling absence (no data) from separation
-        by_obj, bounds = snaps.object_order(), snaps.object_bounds()
-        self.present_at = [snaps.snap[by_obj[bounds[o] : bounds[o + 1]]] for o in range(n_obj)]
-        events = _presence_changes(self.present_at, snaps.n_snapshots, tol_snaps)
-        self.first, self.last, first_group = _spans(snaps, groups, events)
+        # each object's presence runs, for telling absence (no data) from separation
+        self.runs = [line.runs(o) for o in range(n_obj)]
+        events = _presence_changes(line, tol_snaps)
+        self.first, self.last, first_group = _spans(line, events)
         self._masks, self._bounds, self.group_span, self.group_words = _span_groups(
-            groups, snaps.obj[groups.entries], self.first, first_group, n_obj, min_size
+            line, self.first, first_group, min_size
         )
-        self.presence = _presence_masks(snaps, self.first)
-        self.presence_words = np.asarray(self.presence, dtype=np.uint64) if n_obj <= 63 else None
-        self._snaps = snaps
-        self._offsets = snaps.offsets() if n_obj > 63 else None
+        if n_obj <= 63:
+            self.presence = _presence_masks(line, self.first)
+            self.presence_words = np.asarray(self.presence, dtype=np.uint64)
+        else:
+            self._cursor = _PresenceCursor(line)
+            self.presence_words = None
         # together(members, k) per span, kept while a later span may look back at it
         self._memo: dict[int, dict[int, bool]] = {}
 
@@ -164,12 +165,9 @@ class _Timeline:
 
     def present(self, k: int) -> int:
         """Return the objects with data in span k as a bitmask."""
-        mask = self.presence[k]
-        if mask is None:  # more than 63 objects: built when first asked for
-            lo, hi = self._offsets[self.first[k]], self._offsets[self.first[k] + 1]
-            mask = _mask(self._snaps.obj[lo:hi])
-            self.presence[k] = mask
-        return mask
+        if self.presence_words is not None:
+            return self.presence[k]
+        return self._cursor.at(int(self.first[k]))  # more than 63 objects
 
     def last_fix_span(self, obj: int, k: int) -> int:
         """Return the span of the last fix of ``obj``, or -1 unless it is missing in span k.
@@ -177,13 +175,13 @@ class _Timeline:
         Missing: no data in the span, for no longer than the tolerance.
         """
         a, b = int(self.first[k]), int(self.last[k])
-        ps = self.present_at[obj]
-        i = int(np.searchsorted(ps, a))
-        if i < ps.size and ps[i] <= b:
+        run_first, run_last = self.runs[obj]
+        i = int(np.searchsorted(run_last, a))  # the first run that ends at a or later
+        if i < run_first.size and run_first[i] <= b:
             return -1  # it has data in the span, so it is present
-        if i == 0 or b - int(ps[i - 1]) > self.tol:
+        if i == 0 or b - int(run_last[i - 1]) > self.tol:
             return -1
-        return int(np.searchsorted(self.first, ps[i - 1], side="right")) - 1
+        return int(np.searchsorted(self.first, run_last[i - 1], side="right")) - 1
 
     def together(self, members: int, k: int) -> bool:
         """Tell whether ``members`` are together in span k.
@@ -241,8 +239,9 @@ class _Timeline:
         while t >= 0:  # step back to each member's latest data until all agree
             latest = []
             for m in bits:
-                i = int(np.searchsorted(self.present_at[m], t, side="right")) - 1
-                latest.append(int(self.present_at[m][i]) if i >= 0 else -1)
+                run_first, run_last = self.runs[m]
+                i = int(np.searchsorted(run_first, t, side="right")) - 1
+                latest.append(min(t, int(run_last[i])) if i >= 0 else -1)
             earliest = min(latest)
             if earliest == t:
                 return t
@@ -289,30 +288,18 @@ class _Timeline:
         return start
 
 
-def _presence_changes(present_at: list[np.ndarray], n_snap: int, tol_snaps: int) -> np.ndarray:
+def _presence_changes(line: GroupTimeline, tol_snaps: int) -> np.ndarray:
     """Return the snapshots at which some object's presence or excuse changes.
 
     These are where an object appears, where it disappears (the first snapshot
     without data after a stretch with data), and where an absence grows longer
     than the tolerance (so the absent member is no longer excused).
     """
-    events = []
-    for ps in present_at:  # per object: a few array operations on its own snapshots
-        if ps.size == 0:
-            continue
-        brk = np.flatnonzero(np.diff(ps) != 1)
-        run_first = np.r_[ps[0], ps[brk + 1]]
-        run_last = np.r_[ps[brk], ps[-1]]
-        events += [run_first, run_last + 1, run_last + tol_snaps + 1]
-    if not events:
-        return np.empty(0, dtype=np.int64)
-    out = np.concatenate(events)
-    return out[out < n_snap]
+    out = np.concatenate([line.run_first, line.run_last + 1, line.run_last + tol_snaps + 1])
+    return out[out < line.n_snapshots]
 
 
-def _spans(
-    snaps: Snapshots, groups: SnapshotGroups, events: np.ndarray
-) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def _spans(line: GroupTimeline, events: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Return (first snapshot, last snapshot, first group index) of each span.
 
     Spans end where the groups change or at ``events`` (see
@@ -323,50 +310,70 @@ def _spans(
     comparison).
     """
     rng = np.random.default_rng(0x5EED)
-    keys = rng.integers(1, 2**63 - 1, size=len(snaps.objects), dtype=np.int64).astype(np.uint64)
-    n_snap = snaps.n_snapshots
+    keys = rng.integers(1, 2**63 - 1, size=line.n_objects, dtype=np.int64).astype(np.uint64)
+    n_snap = line.n_snapshots
     snap_hash = np.zeros(n_snap, dtype=np.uint64)
-    if groups.n_groups:
-        obj_keys = keys[snaps.obj[groups.entries]]
-        group_hash = np.bitwise_xor.reduceat(obj_keys, groups.offsets[:-1])
+    if line.group_snap.size:
+        obj_keys = keys[line.group_objects]
+        group_hash = np.bitwise_xor.reduceat(obj_keys, line.group_offsets[:-1])
         # a multiply-xorshift mix, so that sums of group hashes do not cancel
         mixed = group_hash * np.uint64(0x9E3779B97F4A7C15)
         mixed ^= mixed >> np.uint64(29)
         with np.errstate(over="ignore"):
-            np.add.at(snap_hash, groups.snap, mixed)
+            np.add.at(snap_hash, line.group_snap, mixed)
     change = np.ones(n_snap, dtype=bool)
     change[1:] = snap_hash[1:] != snap_hash[:-1]
     change[events] = True
     first = np.flatnonzero(change)
     last = np.append(first[1:] - 1, n_snap - 1)
-    first_group = np.searchsorted(groups.snap, first, side="left")
+    first_group = np.searchsorted(line.group_snap, first, side="left")
     return first, last, first_group
 
 
-def _presence_masks(snaps: Snapshots, first: np.ndarray) -> list:
-    """Return, per span start, the objects with data as an int bitmask (None: build lazily).
+def _presence_masks(line: GroupTimeline, first: np.ndarray) -> list[int]:
+    """Return, per span start, the objects with data as an int bitmask (63 objects at most)."""
+    masks = np.zeros(first.size, dtype=np.uint64)
+    for o in range(line.n_objects):  # per object: one search of its runs for every span
+        run_first, run_last = line.runs(o)
+        if run_first.size == 0:
+            continue
+        i = np.searchsorted(run_last, first)  # the first run that ends at the span or later
+        inside = (i < run_first.size) & (run_first[np.minimum(i, run_first.size - 1)] <= first)
+        masks[inside] |= np.uint64(1 << o)
+    return masks.tolist()
 
-    With at most 63 objects every mask is one machine word and all are built at
-    once; with more, each is left to be built when first asked for.
+
+class _PresenceCursor:
+    """The objects with data at a snapshot, as an int bitmask, for any number of objects.
+
+    Presence changes only where a run starts or ends, so the mask is kept at
+    the last snapshot asked for and updated by the changes since; the search
+    asks for span starts in increasing order.
     """
-    if len(snaps.objects) > 63:
-        return [None] * first.size
-    offsets = snaps.offsets()
-    filled = np.diff(offsets) > 0
-    per_snap = np.zeros(snaps.n_snapshots, dtype=np.uint64)
-    if snaps.n_entries:
-        # each segment runs to the next filled snapshot's first entry: empty ones add nothing
-        per_snap[filled] = _word_masks(snaps.obj, offsets[:-1][filled])
-    return per_snap[first].tolist()
+
+    def __init__(self, line: GroupTimeline) -> None:
+        owner = np.repeat(np.arange(line.n_objects), np.diff(line.run_bounds))
+        when = np.concatenate([line.run_first, line.run_last + 1])
+        order = np.argsort(when, kind="stable")
+        self.when = when[order]
+        self.who = np.concatenate([owner, owner])[order].tolist()
+        self.t = -1
+        self.done = 0
+        self.mask = 0
+
+    def at(self, t: int) -> int:
+        """Return the bitmask of the objects with data at snapshot ``t``."""
+        if t < self.t:
+            self.t, self.done, self.mask = -1, 0, 0
+        upto = int(np.searchsorted(self.when, t, side="right"))
+        for o in self.who[self.done : upto]:  # each run's start and end, once
+            self.mask ^= 1 << o
+        self.t, self.done = t, upto
+        return self.mask
 
 
 def _span_groups(
-    groups: SnapshotGroups,
-    member_obj: np.ndarray,
-    first: np.ndarray,
-    first_group: np.ndarray,
-    n_obj: int,
-    min_size: int,
+    line: GroupTimeline, first: np.ndarray, first_group: np.ndarray, min_size: int
 ) -> tuple[list[int], list[int], np.ndarray, np.ndarray | None]:
     """Return the groups of at least ``min_size`` members at each span start.
 
@@ -382,29 +389,28 @@ def _span_groups(
         The same bitmasks as one array, when objects fit in 63 bits.
     """
     n_spans = first.size
-    count = np.searchsorted(groups.snap, first, side="right") - first_group
+    count = np.searchsorted(line.group_snap, first, side="right") - first_group
     total = int(count.sum())
     # the group indices of every span, in order: first_group[k] + 0, 1, ..., count[k] - 1
     start_at = np.repeat(np.cumsum(count) - count, count)
     idx = np.arange(total) - start_at + np.repeat(first_group, count)
     span_of = np.repeat(np.arange(n_spans), count)
-    big = groups.sizes()[idx] >= min_size
+    big = np.diff(line.group_offsets)[idx] >= min_size
     idx, span_of = idx[big], span_of[big]
-    masks = _group_masks(member_obj, groups.offsets, n_obj, idx)
+    masks = _group_masks(line.group_objects, line.group_offsets, line.n_objects, idx)
     bounds = np.searchsorted(span_of, np.arange(n_spans + 1)).tolist()
-    words = np.asarray(masks, dtype=np.uint64) if n_obj <= 63 else None
+    words = np.asarray(masks, dtype=np.uint64) if line.n_objects <= 63 else None
     return masks, bounds, span_of, words
 
 
-def find_episodes(snaps: Snapshots, groups: SnapshotGroups, params: EpisodeParams) -> Episodes:
+def find_episodes(timeline: GroupTimeline, params: EpisodeParams) -> Episodes:
     """Return the maximal episodes of objects that stay grouped.
 
     Parameters
     ----------
-    snaps : Snapshots
-        Aligned snapshots.
-    groups : SnapshotGroups
-        Groups at every snapshot.
+    timeline : GroupTimeline
+        Groups at every snapshot and each object's presence, of a whole run or
+        of consecutive chunks joined (:meth:`GroupTimeline.joined`).
     params : EpisodeParams
         Size, duration and tolerance.
 
@@ -443,80 +449,78 @@ def find_episodes(snaps: Snapshots, groups: SnapshotGroups, params: EpisodeParam
     .. [3] A. L. Zobrist, "A new hashing method with application for game
        playing", Technical Report 88, University of Wisconsin, 1970.
     """
-    step = snaps.step_s
+    step = timeline.step_s
     tol_snaps = int(np.floor(params.tolerance / step + 1e-9))
     min_snaps = max(1, int(np.ceil(params.min_duration / step - 1e-9)))
     min_size = int(params.min_size)
-    line = _Timeline(snaps, groups, min_size, tol_snaps)
+    line = _Timeline(timeline, min_size, tol_snaps)
 
-    # live: members -> [start, last snapshot seen together, flags, snapshots together in
-    # [start, seen]]. Flags: GAPPED, the set was not together at every snapshot since its
-    # start (a tolerated separation, or missing members excused); EXCUSED, missing
-    # members were excused, so a part of the set was not necessarily together whenever
-    # the set was and a part's own run must be looked up; UNSURE, the count is only a
-    # lower bound (a part of a gapped set may have been together while the set was
-    # apart) and is recounted when the candidate closes.
+    search = _Search(line, min_size, min_snaps, tol_snaps)
     live: dict[int, list[int]] = {}
-    closed: list[tuple[frozenset, int, int, int]] = []
+    for k in range(line.n_spans):  # per span of constant groups, not per snapshot
+        live = search.span(live, k)
+        line.forget_before(k)
+    for members, (start, seen, flags, count) in live.items():
+        search.close(members, start, seen, flags, count)
+    return _maximal(search.closed, tol_snaps)
 
-    def close(members: int, start: int, seen: int, flags: int, count: int) -> None:
+
+class _Search:
+    """The candidate-intersection search over spans (see :func:`find_episodes`).
+
+    Live candidates map members -> [start, last snapshot seen together, flags,
+    snapshots together in [start, seen]]. Flags: GAPPED, the set was not
+    together at every snapshot since its start (a tolerated separation, or
+    missing members excused); EXCUSED, missing members were excused, so a part
+    of the set was not necessarily together whenever the set was and a part's
+    own run must be looked up; UNSURE, the count is only a lower bound (a part
+    of a gapped set may have been together while the set was apart) and is
+    recounted when the candidate closes.
+    """
+
+    def __init__(self, line: _Timeline, min_size: int, min_snaps: int, tol_snaps: int) -> None:
+        self.line = line
+        self.min_size = min_size
+        self.min_snaps = min_snaps
+        self.tol = tol_snaps
+        self.closed: list[tuple[frozenset, int, int, int]] = []
+
+    def close(self, members: int, start: int, seen: int, flags: int, count: int) -> None:
+        """Record a candidate that has ended, if it lasts long enough."""
+        line = self.line
         end = line.last_present(members, seen)
-        if end - start + 1 < min_snaps:
+        if end - start + 1 < self.min_snaps:
             return
         if flags & UNSURE:
             count = line.time_together(members, start, end)
         elif end < seen:  # the last snapshots lacked a member's data: not in the span
             count -= line.time_together(members, end + 1, seen)
-        if count >= min_snaps:
-            closed.append((frozenset(_bits(members)), start, end, count))
+        if count >= self.min_snaps:
+            self.closed.append((frozenset(_bits(members)), start, end, count))
 
-    for k in range(line.n_spans):  # per span of constant groups, not per snapshot
+    def span(self, live: dict[int, list[int]], k: int) -> dict[int, list[int]]:
+        """Return the live candidates after span k."""
+        line, min_size = self.line, self.min_size
         a, b = int(line.first[k]), int(line.last[k])
         n_k = b - a + 1
         groups_k = line.groups(k)
         nxt: dict[int, list[int]] = {}
-        for members, (start, seen, flags, count) in live.items():
-            whole = False
+        for members, record in live.items():
             parts = []
             for grp in groups_k:
                 common = members & grp
                 if common == members:
-                    whole = True
                     break
                 if common.bit_count() >= min_size:
                     parts.append(common)
-            if whole:
-                if members in nxt:
-                    _offer(nxt, members, start, b, flags, count + n_k)
-                else:  # the usual case, inline: no other way reached this set yet
-                    nxt[members] = [start, b, flags, count + n_k]
+            else:  # no group holds the whole set
+                self._not_whole(nxt, members, record, parts, k)
                 continue
-            missing = members & ~line.present(k) if parts else 0
-            if missing and line.together(members, k):  # by excusing missing members
-                whole = True
-                _offer(nxt, members, start, b, flags | GAPPED | EXCUSED, count + n_k)
-            # The parts still together (when the set is together by excusing missing
-            # members, its present part, which may outlast the whole set's end). A part was
-            # together whenever the set was; more often if the set was ever apart.
-            part_flags = flags | UNSURE if flags & GAPPED else flags
-            for common in parts:
-                if flags & EXCUSED:  # not even whenever the set was: look its run up
-                    run = line.run_start(common, k, start)
-                    _offer(nxt, common, run, b, part_flags | UNSURE, 0)
-                else:
-                    _offer(nxt, common, start, b, part_flags, count + n_k)
-                if not whole and missing:  # and the part with its missing members
-                    grown = line.with_missing(common, missing, k)
-                    if grown != common:
-                        run = line.run_start(grown, k, start)
-                        _offer(nxt, grown, run, b, part_flags | GAPPED | EXCUSED | UNSURE, 0)
-            if whole:
-                continue
-            # apart for this whole span (nothing changes within it)
-            if b - seen <= tol_snaps:
-                _offer(nxt, members, start, seen, flags | GAPPED, count)
-            else:
-                close(members, start, seen, flags, count)
+            start, _, flags, count = record
+            if members in nxt:
+                _offer(nxt, members, start, b, flags, count + n_k)
+            else:  # the usual case, inline: no other way reached this set yet
+                nxt[members] = [start, b, flags, count + n_k]
         for grp in groups_k:
             if grp in nxt:
                 _offer(nxt, grp, a, b, 0, n_k)
@@ -526,11 +530,43 @@ def find_episodes(snaps: Snapshots, groups: SnapshotGroups, params: EpisodeParam
         # was together throughout can go: the final maximality filter would remove them
         # anyway. Only pruned when many are live (measured: ~1 % of candidates pruned
         # in a 25 Hz match, for 60 % of the time of the whole search).
-        live = _prune_dominated(nxt) if len(nxt) > PRUNE_ABOVE else nxt
-        line.forget_before(k)
-    for members, (start, seen, flags, count) in live.items():
-        close(members, start, seen, flags, count)
-    return _maximal(closed, tol_snaps)
+        return _prune_dominated(nxt) if len(nxt) > PRUNE_ABOVE else nxt
+
+    def _not_whole(
+        self, nxt: dict[int, list[int]], members: int, record: list[int], parts: list[int], k: int
+    ) -> None:
+        """Carry on a candidate no group of span k holds whole: excused, split, or apart."""
+        line = self.line
+        start, seen, flags, count = record
+        b = int(line.last[k])
+        n_k = b - int(line.first[k]) + 1
+        whole = False
+        missing = members & ~line.present(k) if parts else 0
+        if missing and line.together(members, k):  # by excusing missing members
+            whole = True
+            _offer(nxt, members, start, b, flags | GAPPED | EXCUSED, count + n_k)
+        # The parts still together (when the set is together by excusing missing
+        # members, its present part, which may outlast the whole set's end). A part was
+        # together whenever the set was; more often if the set was ever apart.
+        part_flags = flags | UNSURE if flags & GAPPED else flags
+        for common in parts:
+            if flags & EXCUSED:  # not even whenever the set was: look its run up
+                run = line.run_start(common, k, start)
+                _offer(nxt, common, run, b, part_flags | UNSURE, 0)
+            else:
+                _offer(nxt, common, start, b, part_flags, count + n_k)
+            if not whole and missing:  # and the part with its missing members
+                grown = line.with_missing(common, missing, k)
+                if grown != common:
+                    run = line.run_start(grown, k, start)
+                    _offer(nxt, grown, run, b, part_flags | GAPPED | EXCUSED | UNSURE, 0)
+        if whole:
+            return
+        # apart for this whole span (nothing changes within it)
+        if b - seen <= self.tol:
+            _offer(nxt, members, start, seen, flags | GAPPED, count)
+        else:
+            self.close(members, start, seen, flags, count)
 
 
 def _offer(
@@ -710,9 +746,6 @@ class _EntryLookup:
 #: Cells (rows x member pairs) handled at once by the episode table; bounds its memory.
 TABLE_BLOCK = 1_000_000
 
-#: Episodes x roles above which the episode table finds role sets by sorting, not flags.
-MAX_ROLE_FLAGS = 50_000_000
-
 
 class _RowStats:
     """Per-row statistics of episodes: one row per (episode, snapshot of its span)."""
@@ -771,31 +804,77 @@ def _per_episode_mean(owner: np.ndarray, values: np.ndarray, use: np.ndarray, n:
         return np.where(count > 0, total / count, np.nan)
 
 
-def _role_sets(
-    snaps: Snapshots, owner: list[np.ndarray], codes: list[np.ndarray], n_ep: int
-) -> list[str]:
-    """Return per episode its roles (sorted names joined by ``MEMBER_SEP``).
+def episode_role_sets(snaps: Snapshots, episodes: Episodes) -> list[str]:
+    """Return per episode the roles its members had at their fixes within the episode.
 
-    ``owner`` and ``codes`` hold, block by block, the episode and role code of
-    every present member cell.
+    This is the one definition of an episode's role set, used by the episode
+    table and by the tests of episode counts: the names of every role held
+    by a member at a snapshot of the episode where it has data, sorted and
+    joined by ``MEMBER_SEP``. A member whose role never changes contributes
+    that role (it has data at the episode's end, so it has a fix inside);
+    only members whose role changes somewhere are looked up within the
+    episode's span.
+
+    Parameters
+    ----------
+    snaps : Snapshots
+        Aligned snapshots the episodes were found in.
+    episodes : Episodes
+        Output of :func:`find_episodes`.
+
+    Returns
+    -------
+    list of str
+        One label per episode.
     """
-    n_roles = len(snaps.roles)
     names = np.array([str(r) for r in snaps.roles], dtype=object)
-    order = np.argsort(names, kind="stable")
-    rank = np.empty(n_roles, dtype=np.int64)
-    rank[order] = np.arange(n_roles)
-    keys = [o * n_roles + rank[c] for o, c in zip(owner, codes, strict=True)]
-    if n_ep * n_roles <= MAX_ROLE_FLAGS:
-        seen = np.zeros(n_ep * n_roles, dtype=bool)
-        for k in keys:
-            seen[k] = True
-        flat = np.flatnonzero(seen)
-    else:
-        flat = np.unique(np.concatenate(keys)) if keys else np.zeros(0, dtype=np.int64)
-    ep, role = np.divmod(flat, n_roles)
-    cut = np.searchsorted(ep, np.arange(n_ep + 1))
-    by_name = names[order]
-    return [MEMBER_SEP.join(by_name[role[cut[k] : cut[k + 1]]]) for k in range(n_ep)]
+    order, bounds = snaps.object_order(), snaps.object_bounds()
+    main = snaps.main_roles()
+    role_sorted = snaps.role[order]
+    obj_sorted = snaps.obj[order]
+    changes = np.bincount(obj_sorted[role_sorted != main[obj_sorted]], minlength=len(snaps.objects))
+    labels = []
+    for members, start, end in zip(episodes.members, episodes.start.tolist(),
+                                   episodes.end.tolist(), strict=True):  # fmt: skip
+        roles = {int(main[m]) for m in members if not changes[m]}
+        for m in members[changes[members] > 0].tolist():  # members whose role changes
+            lo, hi = int(bounds[m]), int(bounds[m + 1])
+            at = snaps.snap[order[lo:hi]]
+            first, last = np.searchsorted(at, [start, end + 1])
+            roles.update(role_sorted[lo + first : lo + last].tolist())
+        labels.append(MEMBER_SEP.join(sorted(names[r] for r in roles)))
+    return labels
+
+
+def _text_column(values: list[str]) -> pd.Series:
+    """Return a text column, typed as text also when it is empty."""
+    return pd.Series(values, dtype="str")
+
+
+def _row_stats(
+    snaps: Snapshots,
+    episodes: Episodes,
+    sizes: np.ndarray,
+    row_ep: np.ndarray,
+    row_snap: np.ndarray,
+    motion: Motion,
+    min_speed: float,
+) -> _RowStats:
+    """Return the statistics of every (episode, snapshot) row, by episode size, in blocks."""
+    stats = _RowStats(row_ep.size)
+    lookup = _EntryLookup(snaps)
+    for size in np.unique(sizes).tolist():  # per episode size: rows of equal width
+        eps = np.flatnonzero(sizes == size)
+        member_rows = np.stack([episodes.members[k] for k in eps], axis=1)  # (size, eps)
+        pairs = np.triu_indices(size, 1)
+        rows = np.flatnonzero(sizes[row_ep] == size)
+        step = max(1, TABLE_BLOCK // max(size, pairs[0].size))
+        for r0 in range(0, rows.size, step):  # per block of rows
+            r = rows[r0 : r0 + step]
+            owner = row_ep[r]
+            entry = lookup.entries(row_snap[r], member_rows[:, np.searchsorted(eps, owner)])
+            stats.fill(r, entry, pairs, snaps, motion, min_speed)
+    return stats
 
 
 def episode_table(
@@ -839,28 +918,10 @@ def episode_table(
     start = np.asarray(episodes.start, dtype=np.int64)
     length = np.asarray(episodes.end, dtype=np.int64) - start + 1
     first_row = np.concatenate([[0], np.cumsum(length)])
-    n_rows = int(first_row[-1])
-    row_ep = np.repeat(np.arange(n_ep), length)
-    row_snap = np.arange(n_rows, dtype=np.int64) - first_row[row_ep] + start[row_ep]
-    stats = _RowStats(n_rows)
+    row_ep = np.repeat(np.arange(n_ep), length)  # one row per (episode, snapshot of its span)
+    row_snap = np.arange(first_row[-1], dtype=np.int64) - first_row[row_ep] + start[row_ep]
     sizes = np.array([m.size for m in episodes.members], dtype=np.int64)
-    lookup = _EntryLookup(snaps)
-    role_owner: list[np.ndarray] = []
-    role_code: list[np.ndarray] = []
-    for size in np.unique(sizes).tolist():  # per episode size: rows of equal width
-        eps = np.flatnonzero(sizes == size)
-        member_rows = np.stack([episodes.members[k] for k in eps], axis=1)  # (size, eps)
-        pairs = np.triu_indices(size, 1)
-        rows = np.flatnonzero(sizes[row_ep] == size)
-        step = max(1, TABLE_BLOCK // max(size, pairs[0].size))
-        for r0 in range(0, rows.size, step):  # per block of rows
-            r = rows[r0 : r0 + step]
-            owner = row_ep[r]
-            entry = lookup.entries(row_snap[r], member_rows[:, np.searchsorted(eps, owner)])
-            stats.fill(r, entry, pairs, snaps, motion, min_speed)
-            present = entry >= 0
-            role_owner.append(np.broadcast_to(owner, entry.shape)[present])
-            role_code.append(snaps.role[entry[present]].astype(np.int64))
+    stats = _row_stats(snaps, episodes, sizes, row_ep, row_snap, motion, min_speed)
     spaced = stats.n_both > 0  # snapshots with one member present have no spacing
     with np.errstate(invalid="ignore", divide="ignore"):
         row_spacing = stats.d_sum / stats.n_both
@@ -870,9 +931,7 @@ def episode_table(
         max_spacing = np.maximum.reduceat(stats.d_max, first_row[:-1])
         max_spacing[np.bincount(row_ep, weights=spaced, minlength=n_ep) == 0] = np.nan
     names = np.array([str(o) for o in snaps.objects], dtype=object)
-
-    def text(values: list[str]) -> pd.Series:
-        return pd.Series(values, dtype="str")  # also when there are no episodes
+    text = _text_column
 
     def utc(snapshot: np.ndarray) -> pd.DatetimeIndex:
         return pd.to_datetime(snaps.times(snapshot).astype("datetime64[ns]"), utc=True)
@@ -885,7 +944,7 @@ def episode_table(
             "duration_s": length * snaps.step_s,
             "size": sizes,
             "members": text([MEMBER_SEP.join(names[m]) for m in episodes.members]),
-            "roles": text(_role_sets(snaps, role_owner, role_code, n_ep)),
+            "roles": text(episode_role_sets(snaps, episodes)),
             "together_s": np.asarray(episodes.together, dtype=np.int64) * snaps.step_s,
             "mean_spacing_m": _per_episode_mean(row_ep, row_spacing, spaced, n_ep),
             "max_spacing_m": max_spacing,
@@ -895,10 +954,17 @@ def episode_table(
         },
         columns=EPISODE_COLUMNS,
     )
-    kept = np.flatnonzero(observed)
+    return table, _centroid_paths(snaps, stats, row_ep, row_snap, n_ep)
+
+
+def _centroid_paths(
+    snaps: Snapshots, stats: _RowStats, row_ep: np.ndarray, row_snap: np.ndarray, n_ep: int
+) -> list[np.ndarray]:
+    """Return per episode its (time ns, centroid x, centroid y) rows where a member has data."""
+    kept = np.flatnonzero(stats.n_present > 0)
     path = np.column_stack([snaps.times(row_snap[kept]), stats.cx[kept], stats.cy[kept]])
     cuts = np.cumsum(np.bincount(row_ep[kept], minlength=n_ep))[:-1]
-    return table, np.split(path, cuts) if n_ep else []
+    return np.split(path, cuts) if n_ep else []
 
 
 EPISODE_COLUMNS = [

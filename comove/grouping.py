@@ -133,9 +133,124 @@ class SnapshotGroups:
         """Return the number of members of each group."""
         return np.diff(self.offsets)
 
-    def group_of_entry(self) -> np.ndarray:
-        """Return the group index of each membership row (aligned with ``entries``)."""
-        return np.repeat(np.arange(self.n_groups), self.sizes())
+
+@dataclass
+class GroupTimeline:
+    """Which objects are grouped at every snapshot, and when each object has data.
+
+    This is all the episode search reads: groups by object code rather than
+    by entry, and each object's presence as runs of consecutive snapshots,
+    so a timeline holds no positions, and the timelines of consecutive time
+    chunks join into the whole run's (:meth:`joined`).
+
+    Attributes
+    ----------
+    n_objects, n_snapshots : int
+        Object codes are ``0 .. n_objects - 1``; snapshots ``0 .. n_snapshots - 1``.
+    step_ns, first_index : int
+        Snapshot spacing (ns) and grid index of snapshot 0, as in Snapshots.
+    group_snap : ndarray of int64
+        Snapshot of each group, non-decreasing.
+    group_offsets : ndarray of int64
+        Members of group ``g`` are ``group_objects[group_offsets[g]:group_offsets[g+1]]``.
+    group_objects : ndarray of int64
+        Member object codes, ascending within each group.
+    run_first, run_last : ndarray of int64
+        Maximal runs of consecutive snapshots at which an object has data,
+        sorted by object, then time.
+    run_bounds : ndarray of int64
+        Object o's runs are ``run_bounds[o]:run_bounds[o + 1]``.
+    """
+
+    n_objects: int
+    n_snapshots: int
+    step_ns: int
+    first_index: int
+    group_snap: np.ndarray
+    group_offsets: np.ndarray
+    group_objects: np.ndarray
+    run_first: np.ndarray
+    run_last: np.ndarray
+    run_bounds: np.ndarray
+
+    @property
+    def step_s(self) -> float:
+        """Return the snapshot spacing in seconds."""
+        return self.step_ns / 1e9
+
+    @classmethod
+    def of(cls, snaps: Snapshots, groups: SnapshotGroups) -> GroupTimeline:
+        """Return the timeline of ``groups`` found in ``snaps``."""
+        order = snaps.object_order()
+        snap, obj = snaps.snap[order], snaps.obj[order]
+        new_run = np.ones(snap.size, dtype=bool)
+        new_run[1:] = (obj[1:] != obj[:-1]) | (snap[1:] - snap[:-1] != 1)
+        starts = np.flatnonzero(new_run)
+        ends = np.append(starts[1:], snap.size) - 1
+        n_obj = len(snaps.objects)
+        counts = np.bincount(obj[starts], minlength=n_obj)
+        return cls(
+            n_objects=n_obj,
+            n_snapshots=snaps.n_snapshots,
+            step_ns=snaps.step_ns,
+            first_index=snaps.first_index,
+            group_snap=groups.snap,
+            group_offsets=groups.offsets,
+            group_objects=snaps.obj[groups.entries].astype(np.int64),
+            run_first=snap[starts].astype(np.int64),
+            run_last=snap[ends].astype(np.int64),
+            run_bounds=np.concatenate([[0], np.cumsum(counts)]).astype(np.int64),
+        )
+
+    def runs(self, obj: int) -> tuple[np.ndarray, np.ndarray]:
+        """Return the first and last snapshots of the presence runs of object ``obj``."""
+        lo, hi = self.run_bounds[obj], self.run_bounds[obj + 1]
+        return self.run_first[lo:hi], self.run_last[lo:hi]
+
+    @classmethod
+    def joined(cls, parts: list[GroupTimeline]) -> GroupTimeline:
+        """Return the timeline of consecutive time chunks, as if found in one piece.
+
+        Groups are concatenated; presence runs that meet at a chunk edge are
+        joined into one.
+
+        Raises
+        ------
+        ValueError
+            When the chunks are not consecutive or differ in their objects.
+        """
+        first = parts[0]
+        for before, after in zip(parts[:-1], parts[1:], strict=True):
+            if after.first_index != before.first_index + before.n_snapshots:
+                raise ValueError("timelines must cover consecutive spans of snapshots, in order")
+            if after.n_objects != first.n_objects or after.step_ns != first.step_ns:
+                raise ValueError("timelines must share their objects and step")
+        shift = [p.first_index - first.first_index for p in parts]
+        sizes = [np.diff(p.group_offsets) for p in parts]
+        run_obj = np.concatenate([np.repeat(np.arange(p.n_objects), np.diff(p.run_bounds))
+                                  for p in parts])  # fmt: skip
+        run_first = np.concatenate([p.run_first + s for p, s in zip(parts, shift, strict=True)])
+        run_last = np.concatenate([p.run_last + s for p, s in zip(parts, shift, strict=True)])
+        order = np.lexsort((run_first, run_obj))
+        run_obj, run_first, run_last = run_obj[order], run_first[order], run_last[order]
+        # a run that ends on a chunk's last snapshot goes on if the next chunk starts with one
+        goes_on = (run_obj[1:] == run_obj[:-1]) & (run_first[1:] == run_last[:-1] + 1)
+        keep_first = np.r_[True, ~goes_on]
+        keep_last = np.r_[~goes_on, True]
+        counts = np.bincount(run_obj[keep_first], minlength=first.n_objects)
+        return cls(
+            n_objects=first.n_objects,
+            n_snapshots=sum(p.n_snapshots for p in parts),
+            step_ns=first.step_ns,
+            first_index=first.first_index,
+            group_snap=np.concatenate([p.group_snap + s for p, s in zip(parts, shift,
+                                                                          strict=True)]),
+            group_offsets=np.concatenate([[0], np.cumsum(np.concatenate(sizes))]).astype(np.int64),
+            group_objects=np.concatenate([p.group_objects for p in parts]),
+            run_first=run_first[keep_first],
+            run_last=run_last[keep_last],
+            run_bounds=np.concatenate([[0], np.cumsum(counts)]).astype(np.int64),
+        )  # fmt: skip
 
 
 def linked_pairs(pairs: NeighbourPairs, motion: Motion, params: GroupParams) -> NeighbourPairs:

@@ -48,6 +48,16 @@ class Motion:
         return np.arctan2(self.vy, self.vx)
 
 
+def half_window_snapshots(window_s: float, step_s: float) -> int:
+    """Return how many snapshots the velocity window reaches on each side (at least 1).
+
+    An entry's velocity depends on its object's positions this many snapshots
+    before and after it, and on no others: a time chunk with this many
+    snapshots more on each side gives its own entries their exact velocities.
+    """
+    return max(1, int(round(window_s / step_s / 2)))
+
+
 def entry_motion(snaps: Snapshots, window_s: float = 1.0, workers: int = 1) -> Motion:
     """Return the velocity of every entry, by differences across a time window.
 
@@ -78,7 +88,7 @@ def entry_motion(snaps: Snapshots, window_s: float = 1.0, workers: int = 1) -> M
     O(n log n)); a dozen arrays of n numbers at most.
     """
     n = snaps.n_entries
-    half = max(1, int(round(window_s / snaps.step_s / 2)))
+    half = half_window_snapshots(window_s, snaps.step_s)
     workers = (os.cpu_count() or 1) if workers == -1 else max(1, int(workers))
     order = snaps.object_order()
     # cut the objects into about equal shares of entries, one per worker

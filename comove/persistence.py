@@ -18,9 +18,9 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from comove.alignment import Snapshots
-from comove.colocation import RATIO_EPS, LevelResult, RolePresence
+from comove.colocation import RATIO_EPS, LevelResult
 from comove.errors import InputError
+from comove.role_chain import RoleTally
 
 ROLE_SEP = ";"
 
@@ -121,26 +121,21 @@ def role_label(roles: np.ndarray, names: np.ndarray) -> str:
 
 
 def durable_patterns(
-    levels: list[LevelResult],
-    snaps: Snapshots,
+    tally: RoleTally,
     params: PersistenceParams,
     min_participation: float,
-    presence: RolePresence | None = None,
 ) -> PatternTables:
     """Return the role sets that persist, with their per-snapshot series.
 
     Parameters
     ----------
-    levels : list of LevelResult
-        Output of :func:`comove.colocation.mine_levels`.
-    snaps : Snapshots
-        The aligned snapshots the levels were mined from.
+    tally : RoleTally
+        Output of :func:`comove.role_chain.role_chain` (a whole run, or chunks
+        combined).
     params : PersistenceParams
         Thresholds.
     min_participation : float
         The participation-index threshold used by the miner.
-    presence : RolePresence, optional
-        Role presence of ``snaps``, when the caller already has it.
 
     Returns
     -------
@@ -159,67 +154,14 @@ def durable_patterns(
     .. [2] M. Celik, S. Shekhar, J. P. Rogers, J. A. Shine, "Mixed-drove
        spatiotemporal co-occurrence pattern mining", IEEE TKDE 20(10), 2008.
     """
-    presence = presence or RolePresence(snaps)
-    step_s = snaps.step_s
-    names = snaps.roles
     pattern_rows: list[dict] = []
     part_rows: list[dict] = []
     series_parts: list[pd.DataFrame] = []
-    for level in levels:
-        n_sets = level.roles.shape[0]
-        present = level.present
-        with np.errstate(invalid="ignore", divide="ignore"):
-            prevalence = np.where(present > 0, level.prevalent / np.maximum(present, 1), 0.0)
-        kept = params.keeps(level.prevalent, present, step_s)
-        if not kept.any():
-            continue
-        is_prev = level.pi >= min_participation - RATIO_EPS
-        longest, run_start = longest_runs(level.set_id[is_prev], level.snap[is_prev], n_sets)
-        pi_sum = np.bincount(level.set_id, weights=level.pi, minlength=n_sets)
-        k = level.size
-        pr_sum = np.column_stack(
-            [np.bincount(level.set_id, weights=level.pr[:, c], minlength=n_sets) for c in range(k)]
-        )
-        pr_prev_sum = np.column_stack(
-            [
-                np.bincount(level.set_id[is_prev], weights=level.pr[is_prev, c], minlength=n_sets)
-                for c in range(k)
-            ]
-        )
-        for s in np.flatnonzero(kept):  # per kept role set
-            roles = level.roles[s]
-            label = role_label(roles, names)
-            mean_pr = pr_sum[s] / present[s]
-            mean_pr_prev = pr_prev_sum[s] / level.prevalent[s]
-            order = np.argsort([str(names[r]) for r in roles])
-            pattern_rows.append(
-                {
-                    "roles": label,
-                    "size": k,
-                    "present_snapshots": int(present[s]),
-                    "prevalent_snapshots": int(level.prevalent[s]),
-                    "time_prevalence": float(prevalence[s]),
-                    "prevalent_seconds": float(level.prevalent[s] * step_s),
-                    "longest_run_seconds": float(longest[s] * step_s),
-                    "longest_run_start": pd.Timestamp(
-                        int(snaps.times(run_start[s : s + 1])[0]), tz="UTC"
-                    ),
-                    "mean_participation_index": float(pi_sum[s] / present[s]),
-                    "participation_ratios": ROLE_SEP.join(
-                        f"{names[roles[c]]}={mean_pr[c]:.4f}" for c in order
-                    ),
-                }
-            )
-            for c in order:
-                part_rows.append(
-                    {
-                        "roles": label,
-                        "role": str(names[roles[c]]),
-                        "mean_participation_ratio": float(mean_pr[c]),
-                        "mean_participation_ratio_when_prevalent": float(mean_pr_prev[c]),
-                    }
-                )
-            series_parts.append(_series(level, s, label, snaps, presence, min_participation))
+    for level in tally.levels:
+        kept = params.keeps(level.prevalent, level.present, tally.step_s)
+        if kept.any():
+            _kept_rows(level, kept, tally, min_participation, pattern_rows, part_rows,
+                       series_parts)  # fmt: skip
     patterns = pd.DataFrame(pattern_rows, columns=PATTERN_COLUMNS)
     if len(patterns):
         patterns = patterns.sort_values(
@@ -234,6 +176,63 @@ def durable_patterns(
     )
     series["roles"] = series["roles"].astype("category")
     return PatternTables(patterns, participation, series)
+
+
+def _kept_rows(
+    level: LevelResult,
+    kept: np.ndarray,
+    tally: RoleTally,
+    min_participation: float,
+    pattern_rows: list[dict],
+    part_rows: list[dict],
+    series_parts: list[pd.DataFrame],
+) -> None:
+    """Append the pattern, participation and series rows of the kept sets of one level."""
+    step_s, names = tally.step_s, tally.roles
+    n_sets, k = level.roles.shape
+    present = level.present
+    with np.errstate(invalid="ignore", divide="ignore"):
+        prevalence = np.where(present > 0, level.prevalent / np.maximum(present, 1), 0.0)
+    is_prev = level.pi >= min_participation - RATIO_EPS
+    longest, run_start = longest_runs(level.set_id[is_prev], level.snap[is_prev], n_sets)
+    pi_sum = np.bincount(level.set_id, weights=level.pi, minlength=n_sets)
+    pr_sum = np.column_stack(
+        [np.bincount(level.set_id, weights=level.pr[:, c], minlength=n_sets) for c in range(k)]
+    )
+    pr_prev_sum = np.column_stack([
+        np.bincount(level.set_id[is_prev], weights=level.pr[is_prev, c], minlength=n_sets)
+        for c in range(k)
+    ])  # fmt: skip
+    for s in np.flatnonzero(kept):  # per kept role set
+        roles = level.roles[s]
+        label = role_label(roles, names)
+        mean_pr = pr_sum[s] / present[s]
+        mean_pr_prev = pr_prev_sum[s] / level.prevalent[s]
+        order = np.argsort([str(names[r]) for r in roles])
+        pattern_rows.append({
+            "roles": label,
+            "size": k,
+            "present_snapshots": int(present[s]),
+            "prevalent_snapshots": int(level.prevalent[s]),
+            "time_prevalence": float(prevalence[s]),
+            "prevalent_seconds": float(level.prevalent[s] * step_s),
+            "longest_run_seconds": float(longest[s] * step_s),
+            "longest_run_start": pd.Timestamp(int(tally.times(run_start[s : s + 1])[0]), tz="UTC"),
+            "mean_participation_index": float(pi_sum[s] / present[s]),
+            "participation_ratios": ROLE_SEP.join(
+                f"{names[roles[c]]}={mean_pr[c]:.4f}" for c in order
+            ),
+        })  # fmt: skip
+        part_rows += [
+            {
+                "roles": label,
+                "role": str(names[roles[c]]),
+                "mean_participation_ratio": float(mean_pr[c]),
+                "mean_participation_ratio_when_prevalent": float(mean_pr_prev[c]),
+            }
+            for c in order
+        ]
+        series_parts.append(_series(level, s, label, tally, min_participation))
 
 
 PATTERN_COLUMNS = [
@@ -254,22 +253,17 @@ SERIES_DTYPES = {
 
 
 def _series(
-    level: LevelResult,
-    s: int,
-    label: str,
-    snaps: Snapshots,
-    presence: RolePresence,
-    min_participation: float,
+    level: LevelResult, s: int, label: str, tally: RoleTally, min_participation: float
 ) -> pd.DataFrame:
     """Return PI of set ``s`` at every snapshot of present(C), zeros included."""
-    snap = presence.snapshots(level.roles[s])
+    snap = tally.presence.snapshots(level.roles[s])
     lo, hi = np.searchsorted(level.set_id, [s, s + 1])
     pi = np.zeros(snap.size, dtype=np.float64)
     pi[np.searchsorted(snap, level.snap[lo:hi])] = level.pi[lo:hi]
     return pd.DataFrame(
         {
             "roles": np.full(snap.size, label, dtype=object),
-            "time": pd.to_datetime(snaps.times(snap), utc=True),
+            "time": pd.to_datetime(tally.times(snap), utc=True),
             "participation_index": pi.astype(np.float32),
             "prevalent": pi >= min_participation - RATIO_EPS,
         }

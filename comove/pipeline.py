@@ -26,20 +26,14 @@ import pandas as pd
 
 from comove.alignment import AlignParams, Snapshots, align, alignment_summary, track_sample
 from comove.cleaning import CleanParams, clean_fixes
-from comove.colocation import ColocationParams, RolePresence, mine_levels
+from comove.colocation import ColocationParams
 from comove.crossk import CrossKParams
 from comove.dyads import dyad_table
-from comove.episodes import (
-    EpisodeParams,
-    episode_paths,
-    episode_table,
-    find_episodes,
-    role_rollup,
-)
+from comove.episodes import EpisodeParams, episode_paths, episode_table, role_rollup
 from comove.errors import InputError
-from comove.grouping import GroupParams, linked_pairs, snapshot_groups
-from comove.motion import entry_motion
-from comove.neighbours import neighbour_pairs
+from comove.group_chain import group_chain
+from comove.grouping import GroupParams
+from comove.neighbours import NeighbourPairs
 from comove.persistence import PersistenceParams, durable_patterns
 from comove.presets import preset_values
 from comove.projection import working_to_input
@@ -54,6 +48,7 @@ from comove.results import (
     parquet_writer,
     write_folder,
 )
+from comove.role_chain import role_chain
 from comove.runfile import parse_grid
 from comove.significance import (
     TEST_COLUMNS,
@@ -255,30 +250,24 @@ def mine(source: Any, *, progress: bool = False, **options: Any) -> MiningResult
     )
     significance = significance.resolved()
     k_params = k_request.params()
-    bar = _Progress(progress, total=8)
+    bar = _Progress(progress, total=7)
     digest = _digest_beside(source)
     try:
         snaps, quality = _aligned(source, columns, cleaning, alignment, bar)
-        with bar.stage("neighbour search"):
-            pairs = neighbour_pairs(snaps, colocation.radius, workers=significance.jobs or -1)
         with bar.stage("co-location"):
-            presence = RolePresence(snaps)
-            levels = mine_levels(
+            tally = role_chain(
                 snaps,
-                pairs,
                 colocation,
                 min_prevalent_snapshots=persistence.min_prevalent_snapshots(snaps.step_s),
-                presence=presence,
+                workers=significance.jobs or -1,
             )
         with bar.stage("persistence"):
-            tables = durable_patterns(
-                levels, snaps, persistence, colocation.min_participation, presence
-            )
+            tables = durable_patterns(tally, persistence, colocation.min_participation)
         tests = None
         patterns = tables.patterns
         if significance.permutations > 0:
             with bar.stage("significance"):
-                tests = pattern_tests(snaps, levels, colocation, significance, progress)
+                tests = pattern_tests(snaps, tally, colocation, significance, progress)
                 patterns = patterns.merge(
                     tests[["roles", *TEST_COLUMNS]], on="roles", how="left", validate="1:1"
                 )
@@ -471,37 +460,38 @@ def groups(
         GROUP_STAGES, merged
     )
     significance = significance.resolved()
-    bar = _Progress(progress, total=8 if significance.permutations > 0 else 7)
+    bar = _Progress(progress, total=6 if significance.permutations > 0 else 5)
     digest = _digest_beside(source)
     try:
         snaps, quality = _aligned(source, columns, cleaning, alignment, bar)
-        workers = significance.jobs or -1
-        with bar.stage("neighbour search"):
-            pairs = neighbour_pairs(snaps, grouping.radius, workers=workers)
-        with bar.stage("velocities"):
-            motion = entry_motion(snaps, grouping.velocity_window, workers=workers)
         # The dyads (whole-array numpy, which releases the interpreter lock) are counted
         # in a helper thread while the episodes (mostly Python) are searched: both only
         # read the snapshots and pairs, so the results are those of one after the other.
-        with bar.stage("episodes and dyads"), ThreadPoolExecutor(max_workers=1) as side:
-            counting = side.submit(dyad_table, snaps, pairs)
-            links = linked_pairs(pairs, motion, grouping)
-            groups_at = snapshot_groups(snaps, links, grouping)
-            found = find_episodes(snaps, groups_at, episode_params)
-            table, centroids = episode_table(snaps, found, motion, grouping.min_speed)
-            dyads = counting.result()
+        with bar.stage("groups, episodes and dyads"), ThreadPoolExecutor(max_workers=1) as side:
+            counting: list[Future] = []
+
+            def count_dyads(pairs: NeighbourPairs, _motion: object) -> None:
+                counting.append(side.submit(dyad_table, snaps, pairs))
+
+            tally = group_chain(snaps, grouping, episode_params, workers=significance.jobs or -1,
+                                before_search=count_dyads)  # fmt: skip
+            table, centroids = episode_table(snaps, tally.episodes, tally.motion,
+                                             grouping.min_speed)  # fmt: skip
+            dyads = counting[0].result()
         with bar.stage("paths"):
             paths, display = episode_paths(snaps, table, centroids)
         roles = role_rollup(table)
         if significance.permutations > 0:
             with bar.stage("significance"):
                 pair_tests, role_tests = group_tests(
-                    snaps, dyads, grouping, episode_params, motion, significance, progress
-                )
+                    snaps, tally, dyads, table["roles"], grouping, episode_params, significance,
+                    progress,
+                )  # fmt: skip
             if pair_tests is not None:
                 dyads = dyads.merge(pair_tests, on=["object_a", "object_b"], how="left",
                                     validate="1:1")  # fmt: skip
-            roles = roles.merge(role_tests.drop(columns="episodes"), on="roles", how="left")
+            roles = roles.merge(role_tests.drop(columns="episodes"), on="roles", how="left",
+                                validate="1:1")  # fmt: skip
     finally:
         bar.close()
     run = run_record(

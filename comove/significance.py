@@ -29,16 +29,17 @@ the number of workers or their scheduling.
 
 from __future__ import annotations
 
-import os
 from collections.abc import Callable
-from concurrent.futures import ProcessPoolExecutor, as_completed
 from dataclasses import dataclass, field, replace
 from typing import Any
 
 import numpy as np
 import pandas as pd
+from scipy.stats import false_discovery_control
 
 from comove.alignment import Snapshots
+from comove.colocation import encode_role_sets
+from comove.engine import Engine, LocalEngine
 from comove.errors import InputError
 
 NULL_MODELS = ("time-shift", "role-shuffle")
@@ -233,27 +234,16 @@ def _spread_offsets(rng: np.random.Generator, n_obj: int, period: int) -> np.nda
     return ((dealt + jitter) * slot).astype(np.int64) % max(period, 1)
 
 
-# --------------------------------------------------------------------------- engine
-
-_WORKER: dict[str, Any] = {}
+# --------------------------------------------------------------------------- replicates
 
 
 Statistic = Callable[["NullModel", np.random.Generator], np.ndarray]
 
-#: Below this many entry-replicates the work stays in this process: starting
-#: workers and sending them the snapshots would cost more than it saves.
-IN_PROCESS_WORK = 5_000_000
 
-
-def _init_worker(model: NullModel, statistic: Statistic) -> None:
-    _WORKER["model"] = model
-    _WORKER["statistic"] = statistic
-
-
-def _run_replicates(seeds: list[np.random.SeedSequence], first: int) -> tuple[int, np.ndarray]:
-    model, statistic = _WORKER["model"], _WORKER["statistic"]
-    out = [statistic(model, np.random.default_rng(seq)) for seq in seeds]
-    return first, np.vstack(out)
+def _replicate(shared: tuple[NullModel, Statistic], seed: np.random.SeedSequence) -> np.ndarray:
+    """Return the statistic on the null replicate drawn from ``seed``."""
+    model, statistic = shared
+    return statistic(model, np.random.default_rng(seed))
 
 
 def null_distribution(
@@ -262,6 +252,7 @@ def null_distribution(
     params: SignificanceParams,
     progress: bool = False,
     label: str = "null replicates",
+    engine: Engine | None = None,
 ) -> np.ndarray:
     """Return the statistic on ``params.permutations`` null replicates.
 
@@ -278,43 +269,25 @@ def null_distribution(
         Show a progress bar with the time left.
     label : str
         Progress bar text.
+    engine : Engine, optional
+        Runs the replicates; a :class:`~comove.engine.LocalEngine` with
+        ``params.jobs`` workers when omitted.
 
     Returns
     -------
     ndarray, shape (permutations, n_items)
-        Row k is replicate k, whatever the number of workers.
+        Row k is replicate k, whatever the engine and its number of workers:
+        replicate k draws from ``SeedSequence(seed).spawn(N)[k]``.
     """
     n = int(params.permutations)
     if params.seed is None:
         raise ValueError("resolve the seed first (SignificanceParams.resolved)")
     seeds = np.random.SeedSequence(params.seed).spawn(n)
-    jobs = params.jobs or os.cpu_count() or 1
-    jobs = max(1, min(jobs, n))
-    if params.jobs is None and model.snaps.n_entries * n < IN_PROCESS_WORK:
-        jobs = 1
-    from tqdm.auto import tqdm  # imported when used: it costs start-up time
-
-    bar = tqdm(total=n, desc=label, unit="replicate", disable=None if progress else True,
-               leave=False)  # fmt: skip
-    rows: list[np.ndarray | None] = [None] * n
-    if jobs == 1:
-        for k, seq in enumerate(seeds):
-            rows[k] = statistic(model, np.random.default_rng(seq))
-            bar.update(1)
-    else:
-        # a few chunks per worker: little pickling, and the bar still moves
-        size = max(1, n // (jobs * 4))
-        with ProcessPoolExecutor(
-            max_workers=jobs, initializer=_init_worker, initargs=(model, statistic)
-        ) as pool:
-            futures = [pool.submit(_run_replicates, seeds[i:i + size], i)
-                       for i in range(0, n, size)]  # fmt: skip
-            for fut in as_completed(futures):
-                first, block = fut.result()
-                for j, row in enumerate(block):
-                    rows[first + j] = row
-                bar.update(len(block))
-    bar.close()
+    engine = engine or LocalEngine(params.jobs)
+    rows = engine.map(
+        _replicate, seeds, shared=(model, statistic), work_size=model.snaps.n_entries * n,
+        progress=progress, label=label,
+    )  # fmt: skip
     return np.vstack(rows) if rows else np.empty((0, 0))
 
 
@@ -343,50 +316,33 @@ def monte_carlo_p(observed: np.ndarray, null: np.ndarray) -> np.ndarray:
     return (1.0 + exceed) / (1.0 + n)
 
 
-def bh_qvalues(p: np.ndarray) -> np.ndarray:
-    """Return Benjamini–Hochberg adjusted p-values (q-values).
+def summary_table(observed: np.ndarray, null: np.ndarray, alpha: float) -> pd.DataFrame:
+    """Return p_value, q_value, null_mean, null_sd, effect and significant per item.
 
-    q_(i) = min over j >= i of min(1, m p_(j) / j) for p sorted ascending.
+    ``q_value`` is the Benjamini–Hochberg adjusted p-value over all items, from
+    :func:`scipy.stats.false_discovery_control`.
 
     References
     ----------
     .. [1] Y. Benjamini, Y. Hochberg, "Controlling the false discovery rate: a
-       practical and powerful approach to multiple testing", JRSS B 57(1), 1995.
+       practical and powerful approach to multiple testing", Journal of the Royal
+       Statistical Society B 57(1), 289-300, 1995. doi:10.1111/j.2517-6161.1995.tb02031.x
     """
-    p = np.asarray(p, dtype=np.float64)
-    m = p.size
-    if m == 0:
-        return p.copy()
-    order = np.argsort(p, kind="stable")
-    scaled = p[order] * m / np.arange(1, m + 1)
-    q_sorted = np.minimum.accumulate(scaled[::-1])[::-1]
-    q = np.empty(m)
-    q[order] = np.minimum(q_sorted, 1.0)
-    return q
-
-
-def summary_table(observed: np.ndarray, null: np.ndarray, alpha: float) -> pd.DataFrame:
-    """Return p_value, q_value, null_mean, null_sd, effect and significant per item."""
     p = monte_carlo_p(observed, null)
-    q = bh_qvalues(p)
+    q = false_discovery_control(p, method="bh") if p.size else p.copy()
     mean = null.mean(axis=0) if null.size else np.full(observed.size, np.nan)
     sd = null.std(axis=0, ddof=1) if null.shape[0] > 1 else np.full(observed.size, np.nan)
     with np.errstate(divide="ignore", invalid="ignore"):
         effect = np.where(mean > 0, observed / mean, np.where(observed > 0, np.inf, np.nan))
     return pd.DataFrame({
         "p_value": p, "q_value": q, "null_mean": mean, "null_sd": sd, "effect": effect,
-        "significant": q <= alpha,
+        # q-values of Monte Carlo p-values are exact fractions: one that equals alpha
+        # is significant, whatever the last bit of its floating-point rounding
+        "significant": q <= alpha * (1 + 1e-9),
     })  # fmt: skip
 
 
 # --------------------------------------------------------------------------- statistics
-
-
-def _codes(role_sets: np.ndarray, n_roles: int) -> np.ndarray:
-    code = np.zeros(role_sets.shape[0], dtype=np.int64)
-    for col in range(role_sets.shape[1]):
-        code = code * n_roles + role_sets[:, col]
-    return code
 
 
 @dataclass(frozen=True)
@@ -406,30 +362,24 @@ class RoleSetPrevalence:
 
     def __call__(self, model: NullModel, rng: np.random.Generator) -> np.ndarray:
         """Return the tested sets' time prevalence in one null replicate."""
+        from comove.role_chain import role_chain
+
         snaps, _ = model.draw(rng)
-        return role_set_prevalence(snaps, self.colocation, self.tested)
+        tally = role_chain(snaps, self.colocation, min_prevalent_snapshots=1)
+        return role_set_prevalence(tally.levels, self.tested, len(snaps.roles))
 
 
-def role_set_prevalence(
-    snaps: Snapshots, colocation: Any, tested: tuple[np.ndarray, ...]
-) -> np.ndarray:
-    """Return the time prevalence of each tested role set (0 where never prevalent)."""
-    from comove.colocation import RolePresence, mine_levels
-    from comove.neighbours import neighbour_pairs
-
-    n_roles = len(snaps.roles)
-    pairs = neighbour_pairs(snaps, colocation.radius)
-    levels = mine_levels(snaps, pairs, colocation, min_prevalent_snapshots=1,
-                         presence=RolePresence(snaps))  # fmt: skip
+def role_set_prevalence(levels: list, tested: tuple[np.ndarray, ...], n_roles: int) -> np.ndarray:
+    """Return the time prevalence of each tested role set in ``levels`` (0 where absent)."""
     by_size = {lv.size: lv for lv in levels}
     out = []
     for sets in tested:
         values = np.zeros(sets.shape[0])
         level = by_size.get(sets.shape[1]) if sets.size else None
         if level is not None and level.roles.shape[0]:
-            have = _codes(level.roles, n_roles)
+            have = encode_role_sets(level.roles, n_roles)
             order = np.argsort(have)
-            want = _codes(sets, n_roles)
+            want = encode_role_sets(sets, n_roles)
             pos = np.searchsorted(have[order], want)
             pos = np.minimum(pos, have.size - 1)
             hit = have[order][pos] == want
@@ -441,48 +391,16 @@ def role_set_prevalence(
     return np.concatenate(out) if out else np.empty(0)
 
 
-@dataclass(frozen=True)
-class PairTogether:
-    """Statistic: snapshots together (within the radius) of fixed object pairs.
-
-    Parameters
-    ----------
-    radius : float
-        Distance in metres.
-    keys : ndarray of int64
-        ``object_a * n_objects + object_b`` of each tested pair (a < b).
-    """
-
-    radius: float
-    keys: np.ndarray
-
-    def __call__(self, model: NullModel, rng: np.random.Generator) -> np.ndarray:
-        """Return the tested pairs' snapshots together in one null replicate."""
-        snaps, _ = model.draw(rng)
-        return pair_together(snaps, self.radius, self.keys)
-
-
-def pair_together(snaps: Snapshots, radius: float, keys: np.ndarray) -> np.ndarray:
-    """Return, per pair key, the number of snapshots the two objects are within ``radius``."""
-    from comove.neighbours import neighbour_pairs
-
-    n_obj = len(snaps.objects)
-    pairs = neighbour_pairs(snaps, radius)
-    a, b = snaps.obj[pairs.i].astype(np.int64), snaps.obj[pairs.j].astype(np.int64)
-    found = np.minimum(a, b) * n_obj + np.maximum(a, b)
-    counts = np.bincount(found, minlength=n_obj * n_obj)
-    return counts[keys].astype(np.float64)
-
-
 # --------------------------------------------------------------------------- families of tests
 
 
 def pattern_tests(
     snaps: Snapshots,
-    levels: list,
+    observed: Any,
     colocation: Any,
     params: SignificanceParams,
     progress: bool = False,
+    engine: Engine | None = None,
 ) -> pd.DataFrame:
     """Return Monte Carlo tests of the time prevalence of every role set mined.
 
@@ -493,14 +411,17 @@ def pattern_tests(
     ----------
     snaps : Snapshots
         The observed aligned snapshots.
-    levels : list of LevelResult
-        The observed levels from :func:`comove.colocation.mine_levels`.
+    observed : RoleTally
+        The observed tally from :func:`comove.role_chain.role_chain`; its
+        counts are the observed statistic (nothing is mined twice).
     colocation : ColocationParams
         The miner's settings, reused for every replicate.
     params : SignificanceParams
         Null model, replicates and seed (resolved).
     progress : bool, default False
         Show a progress bar.
+    engine : Engine, optional
+        Runs the replicates (default: local, ``params.jobs`` workers).
 
     Returns
     -------
@@ -510,17 +431,17 @@ def pattern_tests(
     """
     from comove.persistence import role_label
 
-    tested = tuple(lv.roles[lv.prevalent >= 1] for lv in levels)
-    observed = role_set_prevalence(snaps, colocation, tested)
+    tested = tuple(lv.roles[lv.prevalent >= 1] for lv in observed.levels)
+    values = role_set_prevalence(observed.levels, tested, len(snaps.roles))
     labels = [role_label(row, snaps.roles) for sets in tested for row in sets]
     sizes = [sets.shape[1] for sets in tested for _ in sets]
     model = NullModel(snaps, params)
     null = null_distribution(model, RoleSetPrevalence(colocation, tested), params, progress,
-                             label=f"{params.null} replicates")  # fmt: skip
-    table = summary_table(observed, null, params.alpha)
+                             label=f"{params.null} replicates", engine=engine)  # fmt: skip
+    table = summary_table(values, null, params.alpha)
     table.insert(0, "roles", pd.Series(labels, dtype=object))
     table.insert(1, "size", np.asarray(sizes, dtype=np.int64))
-    table.insert(2, "time_prevalence", observed)
+    table.insert(2, "time_prevalence", values)
     return table.sort_values(["p_value", "roles"], kind="stable").reset_index(drop=True)
 
 
@@ -537,7 +458,7 @@ class GroupStatistic:
     pair_keys : ndarray of int64
         ``object_a * n_objects + object_b`` of each tested pair.
     labels : tuple of str
-        Tested role sets of episodes (role names sorted, joined by ';').
+        Tested role sets of episodes (see :func:`comove.episodes.episode_role_sets`).
     vx, vy : ndarray
         Observed velocity of every entry, carried along with the entries.
     """
@@ -551,56 +472,70 @@ class GroupStatistic:
 
     def __call__(self, model: NullModel, rng: np.random.Generator) -> np.ndarray:
         """Return [time together of each pair, episodes of each role set] in one replicate."""
+        from comove.group_chain import group_chain
+        from comove.motion import Motion
+
         snaps, order = model.draw(rng)
         vx = self.vx if order is None else self.vx[order]
         vy = self.vy if order is None else self.vy[order]
-        return group_statistics(snaps, self, vx, vy)
+        tally = group_chain(snaps, self.grouping, self.episodes, motion=Motion(vx=vx, vy=vy))
+        return group_statistics(snaps, tally, self.pair_keys, self.labels)
 
 
-def group_statistics(snaps: Snapshots, stat: GroupStatistic, vx: np.ndarray,
-                     vy: np.ndarray) -> np.ndarray:  # fmt: skip
+def group_statistics(
+    snaps: Snapshots, tally: Any, pair_keys: np.ndarray, labels: tuple[str, ...]
+) -> np.ndarray:
     """Return [snapshots together per tested pair, episodes per tested role set]."""
-    from comove.episodes import find_episodes
-    from comove.grouping import linked_pairs, snapshot_groups
-    from comove.motion import Motion
-    from comove.neighbours import neighbour_pairs
+    from comove.episodes import episode_role_sets
 
-    n_obj = len(snaps.objects)
-    pairs = neighbour_pairs(snaps, stat.grouping.radius)
-    a, b = snaps.obj[pairs.i].astype(np.int64), snaps.obj[pairs.j].astype(np.int64)
-    counts = np.bincount(np.minimum(a, b) * n_obj + np.maximum(a, b), minlength=n_obj * n_obj)
-    together = counts[stat.pair_keys].astype(np.float64)
-    motion = Motion(vx=vx, vy=vy)
-    links = linked_pairs(pairs, motion, stat.grouping)
-    found = find_episodes(snaps, snapshot_groups(snaps, links, stat.grouping), stat.episodes)
-    main = snaps.main_roles()
-    tally: dict[str, int] = {}
-    for members in found.members:
-        label = ";".join(sorted({str(snaps.roles[main[m]]) for m in members}))
-        tally[label] = tally.get(label, 0) + 1
-    episodes = np.array([tally.get(label, 0) for label in stat.labels], dtype=np.float64)
+    together = tally.together(snaps, pair_keys)
+    found = episode_role_sets(snaps, tally.episodes)
+    tally_by_label = pd.Series(found, dtype=object).value_counts()
+    episodes = tally_by_label.reindex(list(labels), fill_value=0).to_numpy(np.float64)
     return np.concatenate([together, episodes])
 
 
 def group_tests(
     snaps: Snapshots,
+    observed: Any,
     dyads: pd.DataFrame,
+    episode_roles: pd.Series,
     grouping: Any,
     episodes: Any,
-    motion: Any,
     params: SignificanceParams,
     progress: bool = False,
+    engine: Engine | None = None,
 ) -> tuple[pd.DataFrame | None, pd.DataFrame]:
     """Return Monte Carlo tests of pairs' time together and role sets' episode counts.
 
     Pairs are tested only under the time shift: a role shuffle leaves every
     pair's time together unchanged, so it says nothing about pairs.
 
+    Parameters
+    ----------
+    snaps : Snapshots
+        The observed aligned snapshots.
+    observed : GroupTally
+        The observed result of :func:`comove.group_chain.group_chain`.
+    dyads : DataFrame
+        The observed dyad table (its ``object_a``, ``object_b`` pairs are tested).
+    episode_roles : Series
+        The observed episodes' role sets (the episode table's ``roles``); the
+        family tested is every role set with an observed episode.
+    grouping, episodes : GroupParams, EpisodeParams
+        The chain's settings, reused for every replicate.
+    params : SignificanceParams
+        Null model, replicates and seed (resolved).
+    progress : bool, default False
+        Show a progress bar.
+    engine : Engine, optional
+        Runs the replicates (default: local, ``params.jobs`` workers).
+
     Returns
     -------
     pair_tests : DataFrame or None
-        ``object_a``, ``object_b``, ``together_snapshots`` and the columns of
-        :func:`summary_table`; None under the role shuffle.
+        ``object_a``, ``object_b`` and the columns of :func:`summary_table`;
+        None under the role shuffle.
     role_tests : DataFrame
         ``roles``, ``episodes`` (observed count) and the columns of
         :func:`summary_table`.
@@ -612,29 +547,19 @@ def group_tests(
                                                       strict=True)],
         dtype=np.int64,
     )  # fmt: skip
-    from comove.episodes import find_episodes
-    from comove.grouping import linked_pairs, snapshot_groups
-    from comove.neighbours import neighbour_pairs
-
-    # the family of role sets: those with an observed episode
-    links = linked_pairs(neighbour_pairs(snaps, grouping.radius), motion, grouping)
-    observed_episodes = find_episodes(snaps, snapshot_groups(snaps, links, grouping), episodes)
-    main = snaps.main_roles()
-    labels = tuple(sorted({
-        ";".join(sorted({str(snaps.roles[main[m]]) for m in members}))
-        for members in observed_episodes.members
-    }))  # fmt: skip
-    stat = GroupStatistic(grouping, episodes, pair_keys, labels, motion.vx, motion.vy)
-    observed = group_statistics(snaps, stat, motion.vx, motion.vy)
+    labels = tuple(sorted(set(episode_roles.astype(str))))
+    stat = GroupStatistic(grouping, episodes, pair_keys, labels, observed.motion.vx,
+                          observed.motion.vy)  # fmt: skip
+    values = group_statistics(snaps, observed, pair_keys, labels)
     null = null_distribution(NullModel(snaps, params), stat, params, progress,
-                             label=f"{params.null} replicates")  # fmt: skip
+                             label=f"{params.null} replicates", engine=engine)  # fmt: skip
     k = pair_keys.size
-    role_tests = summary_table(observed[k:], null[:, k:], params.alpha)
+    role_tests = summary_table(values[k:], null[:, k:], params.alpha)
     role_tests.insert(0, "roles", pd.Series(list(labels), dtype=object))
-    role_tests.insert(1, "episodes", observed[k:].astype(np.int64))
+    role_tests.insert(1, "episodes", values[k:].astype(np.int64))
     if params.null != "time-shift":
         return None, role_tests
-    pair_tests = summary_table(observed[:k], null[:, :k], params.alpha)
+    pair_tests = summary_table(values[:k], null[:, :k], params.alpha)
     pair_tests.insert(0, "object_a", dyads["object_a"].to_numpy(dtype=object))
     pair_tests.insert(1, "object_b", dyads["object_b"].to_numpy(dtype=object))
     return pair_tests, role_tests

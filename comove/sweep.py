@@ -10,7 +10,6 @@ receive the aligned snapshots and pairs once.
 from __future__ import annotations
 
 import os
-from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
@@ -20,12 +19,14 @@ import pandas as pd
 
 from comove.alignment import AlignParams, Snapshots
 from comove.cleaning import CleanParams
-from comove.colocation import RATIO_EPS, ColocationParams, RolePresence, mine_levels
+from comove.colocation import RATIO_EPS, ColocationParams
+from comove.engine import LocalEngine
 from comove.errors import InputError
 from comove.neighbours import NeighbourPairs, neighbour_pairs
 from comove.persistence import PersistenceParams, longest_runs, role_label
 from comove.reading import ColumnSpec
 from comove.results import csv_writer, json_writer, write_folder
+from comove.role_chain import role_chain
 
 SWEEP_COLUMNS = [
     "radius", "min_participation", "roles", "size", "time_prevalence", "prevalent_seconds",
@@ -69,24 +70,29 @@ class SweepParams:
             raise InputError("--jobs must be a whole number of at least 1")
 
 
-_SHARED: dict[str, Any] = {}
+@dataclass(frozen=True)
+class _SweepInputs:
+    """What every grid point reads: the snapshots and the pairs at the largest radius."""
+
+    snaps: Snapshots
+    pairs: NeighbourPairs
+    distance: np.ndarray
+    persistence: PersistenceParams
+    max_size: int
 
 
-def _init(snaps: Snapshots, pairs: NeighbourPairs, distance: np.ndarray, persistence) -> None:
-    _SHARED.update(snaps=snaps, pairs=pairs, distance=distance, persistence=persistence)
-
-
-def _grid_point(radius: float, min_participation: float, max_size: int) -> pd.DataFrame:
-    snaps, pairs, distance = _SHARED["snaps"], _SHARED["pairs"], _SHARED["distance"]
-    persistence: PersistenceParams = _SHARED["persistence"]
+def _grid_point(shared: _SweepInputs, point: tuple[float, float]) -> pd.DataFrame:
+    """Return the sweep rows of one (radius, min_participation) grid point."""
+    radius, min_participation = point
+    snaps, pairs, distance = shared.snaps, shared.pairs, shared.distance
+    persistence, max_size = shared.persistence, shared.max_size
     within = distance <= radius
     subset = NeighbourPairs(pairs.i[within], pairs.j[within], float(radius))
     params = ColocationParams(radius=radius, min_participation=min_participation,
                               max_size=max_size)  # fmt: skip
-    levels = mine_levels(snaps, subset, params, min_prevalent_snapshots=1,
-                         presence=RolePresence(snaps))  # fmt: skip
+    tally = role_chain(snaps, params, min_prevalent_snapshots=1, pairs=subset)
     rows = []
-    for level in levels:
+    for level in tally.levels:
         with np.errstate(invalid="ignore", divide="ignore"):
             prevalence = level.prevalent / np.maximum(level.present, 1)
         kept = persistence.keeps(level.prevalent, level.present, snaps.step_s)
@@ -210,29 +216,11 @@ def sweep(
     finally:
         bar.close()
     grid = [(r, m) for m in params.min_participation for r in params.radii]
-    jobs = max(1, min(params.jobs or os.cpu_count() or 1, len(grid)))
-    if params.jobs is None and snaps.n_entries * len(grid) < 2_000_000:
-        jobs = 1  # starting workers would cost more than it saves
-    from tqdm.auto import tqdm  # imported when used: it costs start-up time
-
-    tick = tqdm(total=len(grid), desc="sweep", unit="grid point",
-                disable=None if progress else True, leave=False)  # fmt: skip
-    parts: list[pd.DataFrame] = []
-    if jobs == 1:
-        _init(snaps, pairs, distance, persistence)
-        for r, m in grid:
-            parts.append(_grid_point(r, m, params.max_size))
-            tick.update(1)
-        _SHARED.clear()
-    else:
-        with ProcessPoolExecutor(
-            jobs, initializer=_init, initargs=(snaps, pairs, distance, persistence)
-        ) as pool:
-            futures = [pool.submit(_grid_point, r, m, params.max_size) for r, m in grid]
-            for fut in futures:  # in grid order: the table does not depend on scheduling
-                parts.append(fut.result())
-                tick.update(1)
-    tick.close()
+    shared = _SweepInputs(snaps, pairs, distance, persistence, params.max_size)
+    parts = LocalEngine(params.jobs).map(
+        _grid_point, grid, shared=shared, work_size=snaps.n_entries * len(grid),
+        progress=progress, label="sweep",
+    )  # fmt: skip
     table = pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(columns=SWEEP_COLUMNS)
     run = run_record(
         "sweep", source,

@@ -8,9 +8,9 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from scenes import brute_force_pi, grid_scene
 
-from comove.colocation import ColocationParams, mine_levels
-from comove.neighbours import neighbour_pairs
+from comove.colocation import ColocationParams
 from comove.persistence import PersistenceParams, durable_patterns
+from comove.role_chain import role_chain
 
 
 def random_scene(
@@ -29,15 +29,13 @@ def random_scene(
 
 def mined(snaps, radius, min_participation, max_size, min_prevalent=1):
     params = ColocationParams(radius=radius, min_participation=min_participation, max_size=max_size)
-    levels = mine_levels(
-        snaps, neighbour_pairs(snaps, radius), params, min_prevalent_snapshots=min_prevalent
-    )
+    tally = role_chain(snaps, params, min_prevalent_snapshots=min_prevalent)
     out = {}
-    for level in levels:
+    for level in tally.levels:
         for row in range(level.set_id.size):
             roles = tuple(int(r) for r in level.roles[level.set_id[row]])
             out[(roles, int(level.snap[row]))] = (level.pi[row], level.pr[row])
-    return levels, out
+    return tally, out
 
 
 @pytest.mark.parametrize("seed", range(6))
@@ -64,8 +62,8 @@ def test_pruning_loses_no_prevalent_snapshot(seed):
     snaps = grid_scene(x, y, role, present, n_roles)
     threshold = 0.5
     reference = brute_force_pi(snaps, 4.0, max_size=4)
-    levels, ours = mined(snaps, 4.0, threshold, max_size=4)
-    listed = {tuple(int(r) for r in row) for lv in levels for row in lv.roles}
+    tally, ours = mined(snaps, 4.0, threshold, max_size=4)
+    listed = {tuple(int(r) for r in row) for lv in tally.levels for row in lv.roles}
     for (roles, _snap), (pi, _) in reference.items():
         if roles not in listed:
             assert pi < threshold
@@ -81,8 +79,8 @@ def test_duration_pruning_gives_the_same_patterns_as_filtering_afterwards(min_du
     bound = persistence.min_prevalent_snapshots(snaps.step_s)
     pruned, _ = mined(snaps, 4.0, 0.4, 4, min_prevalent=bound)
     unpruned, _ = mined(snaps, 4.0, 0.4, 4, min_prevalent=1)
-    a = durable_patterns(pruned, snaps, persistence, 0.4).patterns
-    b = durable_patterns(unpruned, snaps, persistence, 0.4).patterns
+    a = durable_patterns(pruned, persistence, 0.4).patterns
+    b = durable_patterns(unpruned, persistence, 0.4).patterns
     assert len(a) > 0
     assert a.equals(b)
 
@@ -127,7 +125,6 @@ def test_invariant_to_translation_rotation_and_relabelling(
     x, y, role, present, n_roles = scene
     base = durable_patterns(
         mined(grid_scene(x, y, role, present, n_roles), 3.0, 0.5, 3)[0],
-        grid_scene(x, y, role, present, n_roles),
         PersistenceParams(0.1),
         0.5,
     ).patterns
@@ -140,9 +137,7 @@ def test_invariant_to_translation_rotation_and_relabelling(
     x2, y2 = x2 + shift[0], y2 + shift[1]
     perm = np.random.default_rng(seed).permutation(x.shape[1])  # relabel the objects
     snaps2 = grid_scene(x2[:, perm], y2[:, perm], role[:, perm], present[:, perm], n_roles)
-    moved = durable_patterns(
-        mined(snaps2, 3.0, 0.5, 3)[0], snaps2, PersistenceParams(0.1), 0.5
-    ).patterns
+    moved = durable_patterns(mined(snaps2, 3.0, 0.5, 3)[0], PersistenceParams(0.1), 0.5).patterns
     assert base.drop(columns="longest_run_start").equals(moved.drop(columns="longest_run_start"))
 
 
@@ -154,8 +149,8 @@ def test_general_rotation_away_from_the_radius_boundary():
     angle = 0.7
     c, s = np.cos(angle), np.sin(angle)
     snaps2 = grid_scene(c * x - s * y + 1e4, s * x + c * y - 3e3, role, present, n_roles)
-    a = durable_patterns(mined(snaps, 4.0, 0.5, 3)[0], snaps, PersistenceParams(0.1), 0.5)
-    b = durable_patterns(mined(snaps2, 4.0, 0.5, 3)[0], snaps2, PersistenceParams(0.1), 0.5)
+    a = durable_patterns(mined(snaps, 4.0, 0.5, 3)[0], PersistenceParams(0.1), 0.5)
+    b = durable_patterns(mined(snaps2, 4.0, 0.5, 3)[0], PersistenceParams(0.1), 0.5)
     assert len(a.patterns) > 0
     assert a.patterns.equals(b.patterns)
 
@@ -176,7 +171,7 @@ def test_hand_computed_scene():
     assert ((0, 1), 1) not in ours
     assert ours[((0, 2), 1)][0] == 0.5
     patterns = durable_patterns(
-        mined(snaps, 1.0, 0.5, 3)[0], snaps, PersistenceParams(0.5), 0.5
+        mined(snaps, 1.0, 0.5, 3)[0], PersistenceParams(0.5), 0.5
     ).patterns.set_index("roles")
     assert patterns.loc["role0;role2", "time_prevalence"] == 1.0
     assert patterns.loc["role0;role1", "time_prevalence"] == 0.5

@@ -12,7 +12,7 @@ from scenes import brute_force_episodes, grid_scene
 from comove.dyads import dyad_table
 from comove.episodes import EpisodeParams, episode_table, find_episodes, role_rollup
 from comove.errors import InputError
-from comove.grouping import GroupParams, linked_pairs, snapshot_groups
+from comove.grouping import GroupParams, GroupTimeline, linked_pairs, snapshot_groups
 from comove.motion import entry_motion
 from comove.neighbours import neighbour_pairs
 from comove.pipeline import GROUP_STAGES, groups, split_options
@@ -139,7 +139,8 @@ def test_groups_equals_its_stages_run_one_after_another():
     pairs = neighbour_pairs(snaps, grouping.radius)
     motion = entry_motion(snaps, grouping.velocity_window)
     links = linked_pairs(pairs, motion, grouping)
-    found = find_episodes(snaps, snapshot_groups(snaps, links, grouping), episode_params)
+    found = find_episodes(GroupTimeline.of(snaps, snapshot_groups(snaps, links, grouping)),
+                          episode_params)  # fmt: skip
     table, _ = episode_table(snaps, found, motion, grouping.min_speed)
     assert len(table) > 0
     pd.testing.assert_frame_equal(result.episodes, table)
@@ -165,7 +166,7 @@ def episodes_of(snaps, radius=1.5, **kw):
     gp = GroupParams(radius=radius, max_heading=None, max_speed_ratio=None)
     motion = entry_motion(snaps)
     groups_ = snapshot_groups(snaps, linked_pairs(neighbour_pairs(snaps, radius), motion, gp), gp)
-    found = find_episodes(snaps, groups_, EpisodeParams(**kw))
+    found = find_episodes(GroupTimeline.of(snaps, groups_), EpisodeParams(**kw))
     table, _ = episode_table(snaps, found, motion, gp.min_speed)
     return found, table
 
@@ -297,7 +298,7 @@ def test_episodes_equal_a_brute_force_search_of_the_definition(
     groups_ = snapshot_groups(snaps, linked_pairs(neighbour_pairs(snaps, 1.5),
                                                   entry_motion(snaps), gp), gp)  # fmt: skip
     params = EpisodeParams(min_size=min_size, min_duration=float(min_snaps), tolerance=float(tol))
-    found = find_episodes(snaps, groups_, params)
+    found = find_episodes(GroupTimeline.of(snaps, groups_), params)
     assert found_set(found) == brute_force_episodes(snaps, groups_, min_size, min_snaps, tol)
 
 
@@ -358,8 +359,8 @@ def test_a_part_keeps_its_missing_members():
     gp = GroupParams(radius=1.5, max_heading=None, max_speed_ratio=None)
     groups_ = snapshot_groups(snaps, linked_pairs(neighbour_pairs(snaps, 1.5),
                                                   entry_motion(snaps), gp), gp)  # fmt: skip
-    found = found_set(find_episodes(snaps, groups_, EpisodeParams(min_duration=4.0,
-                                                                  tolerance=2.0)))  # fmt: skip
+    params = EpisodeParams(min_duration=4.0, tolerance=2.0)
+    found = found_set(find_episodes(GroupTimeline.of(snaps, groups_), params))
     assert (frozenset({0, 1, 3}), 0, 5, 4) in found
     assert found == brute_force_episodes(snaps, groups_, 2, 4, 2)
 
@@ -430,7 +431,7 @@ def test_episode_table_equals_a_per_snapshot_computation(scene, tol, dense, bloc
     gp = GroupParams(radius=1.5, max_heading=None, max_speed_ratio=None)
     motion = entry_motion(snaps)
     groups_ = snapshot_groups(snaps, linked_pairs(neighbour_pairs(snaps, 1.5), motion, gp), gp)
-    found = find_episodes(snaps, groups_, EpisodeParams(tolerance=float(tol)))
+    found = find_episodes(GroupTimeline.of(snaps, groups_), EpisodeParams(tolerance=float(tol)))
     old = (ep._EntryLookup.MAX_DENSE, ep.TABLE_BLOCK)
     ep._EntryLookup.MAX_DENSE, ep.TABLE_BLOCK = (10**9 if dense else 0), block
     try:

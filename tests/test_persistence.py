@@ -6,10 +6,10 @@ import numpy as np
 import pytest
 from scenes import grid_scene
 
-from comove.colocation import ColocationParams, mine_levels
+from comove.colocation import ColocationParams
 from comove.errors import InputError
-from comove.neighbours import neighbour_pairs
 from comove.persistence import PersistenceParams, durable_patterns, longest_runs
+from comove.role_chain import role_chain
 
 
 def two_role_scene(together: np.ndarray, present_b: np.ndarray | None = None):
@@ -25,8 +25,7 @@ def two_role_scene(together: np.ndarray, present_b: np.ndarray | None = None):
 
 def patterns_of(snaps, persistence):
     params = ColocationParams(radius=2.0)
-    levels = mine_levels(snaps, neighbour_pairs(snaps, 2.0), params)
-    return durable_patterns(levels, snaps, persistence, params.min_participation)
+    return durable_patterns(role_chain(snaps, params), persistence, params.min_participation)
 
 
 def test_hand_computed_prevalence_and_runs():

@@ -6,23 +6,33 @@ import numpy as np
 import pandas as pd
 import pytest
 from scenes import grid_scene
-from scipy.stats import false_discovery_control
 
 from comove.errors import InputError
 from comove.pipeline import groups, mine
 from comove.significance import (
     NullModel,
     SignificanceParams,
-    bh_qvalues,
     monte_carlo_p,
+    summary_table,
 )
 
 
-def test_bh_qvalues_equal_scipy_false_discovery_control():
-    # reference: scipy.stats.false_discovery_control(method="bh")
-    rng = np.random.default_rng(3)
-    for p in [rng.random(50), rng.random(7) ** 3, np.array([0.01, 0.01, 0.5, 1.0, 0.03])]:
-        np.testing.assert_allclose(bh_qvalues(p), false_discovery_control(p, method="bh"))
+def test_q_values_reject_as_in_the_published_worked_example():
+    # Benjamini & Hochberg (1995), section 4: fifteen p-values of which the step-up
+    # procedure at FDR 0.05 rejects the four smallest (values written from memory of
+    # the paper's example, not checked against it here)
+    p = np.array([0.0001, 0.0004, 0.0019, 0.0095, 0.0201, 0.0278, 0.0298, 0.0344, 0.0459,
+                  0.3240, 0.4262, 0.5719, 0.6528, 0.7590, 1.000])  # fmt: skip
+    n = 9999  # replicates so that (1 + exceed) / (1 + n) hits each p exactly; observed 1
+    exceed = np.round(p * (n + 1) - 1).astype(int)
+    null = (np.arange(n)[:, None] < exceed[None, :]).astype(float)
+    table = summary_table(np.ones(p.size), null, alpha=0.05)
+    np.testing.assert_allclose(table["p_value"], (1 + exceed) / (n + 1))
+    assert table["significant"].tolist() == [True] * 4 + [False] * 11
+    # BH q-values by their definition: q_(i) = min_{j >= i} m p_(j) / j
+    m = p.size
+    q = np.minimum.accumulate((table["p_value"].to_numpy() * m / np.arange(1, m + 1))[::-1])[::-1]
+    np.testing.assert_allclose(table["q_value"], np.minimum(q, 1))
 
 
 def test_monte_carlo_p_follows_its_definition():
@@ -208,3 +218,12 @@ def test_nothing_to_test_gives_empty_tables_not_errors(tmp_path):
     assert (found.dyads["p_value"] == 1.0).all()  # never together, nor in any replicate
     mined.write(tmp_path / "r")
     found.write(tmp_path / "r", merge=True)
+
+
+def test_a_q_value_equal_to_alpha_is_significant():
+    # two items with p = 1/40 and 2/40 out of 39 replicates: BH q = 0.05 for both
+    null = np.zeros((39, 2))
+    null[:1, 1] = 1.0
+    table = summary_table(np.array([1.0, 1.0]), null, alpha=0.05)
+    np.testing.assert_allclose(table["q_value"], [0.05, 0.05])
+    assert table["significant"].all()
