@@ -37,8 +37,8 @@ from comove.errors import InputError  # noqa: E402
 from comove.pipeline import GROUP_STAGES, MINE_STAGES, groups, mine  # noqa: E402
 from comove.presets import PRESETS  # noqa: E402
 from comove.results import CAUTION, Claim, claim  # noqa: E402
-from comove.runfile import load_run_file, parse_grid  # noqa: E402
-from comove.sweep import SWEEP_STAGES, SweepParams, sweep  # noqa: E402
+from comove.runfile import load_run_file  # noqa: E402
+from comove.sweep import SWEEP_STAGES, sweep  # noqa: E402
 
 gc.freeze()  # what is loaded now stays: later collections skip it
 if _COLLECTING:
@@ -69,7 +69,13 @@ class _Parser(argparse.ArgumentParser):
 
 
 def _scalar_type(annotation: Any) -> type:
-    """Return the non-None type of a field annotation such as ``float | None``."""
+    """Return the type a flag's text is read as, from a field annotation.
+
+    ``float | None`` is read as float; a grid (``tuple[float, ...]``) stays text,
+    which its settings class reads (``start:stop:step`` or ``a,b,c``).
+    """
+    if typing.get_origin(annotation) is tuple:
+        return str
     args = [a for a in typing.get_args(annotation) if a is not type(None)]
     return args[0] if args else annotation
 
@@ -85,6 +91,8 @@ def _add_stage_options(
                 continue
             default = None if f.default is MISSING else f.default
             help_text = f.metadata.get("help") or _COLUMN_HELP.get(f.name, "")
+            if isinstance(default, tuple):
+                default = ",".join(f"{v:g}" for v in default) or None
             if default is not None:
                 help_text += f" (default: {default})"
             group.add_argument(
@@ -166,22 +174,9 @@ def _add_sweep(sub: Any) -> None:
         "threshold) of a grid, reusing one alignment and one neighbour search, to see where "
         "results are stable.",
     )
-    w.add_argument("input", nargs="+", help="track file(s) or glob(s), as for `comove mine`")
-    w.add_argument("--out", required=True, type=Path, help="results folder to create")
-    w.add_argument(
-        "--radius",
-        required=True,
-        metavar="GRID",
-        help="radii in metres: start:stop:step (stop included) or r1,r2,...",
-    )
-    w.add_argument(
-        "--min-participation",
-        default="0.5",
-        metavar="GRID",
-        help="participation thresholds: start:stop:step or p1,p2,... (default: 0.5)",
-    )
-    w.add_argument("--max-size", type=int, default=3, help="largest role set mined (default: 3)")
-    w.add_argument("--jobs", type=int, default=None, help="worker processes (default: all)")
+    w.add_argument("input", nargs="*", help="track file(s) or glob(s), as for `comove mine`")
+    w.add_argument("--out", type=Path, help="results folder to create")
+    _add_config(w)
     _add_stage_options(w, SWEEP_STAGES, required=set())
     _add_common(w, merge=False)
 
@@ -336,22 +331,17 @@ def _run_groups(args: argparse.Namespace) -> None:
 
 
 def _run_sweep(args: argparse.Namespace) -> None:
-    params = SweepParams(
-        radii=parse_grid(args.radius, "--radius"),
-        min_participation=parse_grid(args.min_participation, "--min-participation"),
-        max_size=args.max_size,
-        jobs=args.jobs,
-    )
-    source = args.input[0] if len(args.input) == 1 else list(args.input)
-    with _claimed(args, args.out, "sweep", source):
-        result = sweep(source, params, progress=not args.quiet,
-                       **_stage_options(args, SWEEP_STAGES))  # fmt: skip
-        out = result.write(args.out, force=args.force)
+    source, out_dir, options = _resolve(args, SWEEP_STAGES)
+    options.pop("preset", None)
+    with _claimed(args, out_dir, "sweep", source):
+        result = sweep(source, progress=not args.quiet, **options)
+        out = result.write(out_dir, force=args.force)
     if args.quiet:
         return
     print(format_quality_summary(result.quality))
     kept = result.table[result.table["kept"]]
-    print(f"\n{len(params.radii)} radii x {len(params.min_participation)} thresholds; "
+    grid = result.run["settings"]["SweepParams"]
+    print(f"\n{len(grid['radius'])} radii x {len(grid['min_participation'])} thresholds; "
           f"{kept['roles'].nunique()} role sets kept somewhere on the grid.")  # fmt: skip
     print(f"Results written to {out}/ (sweep.csv, sweep.png)")
 
@@ -454,7 +444,7 @@ def main(argv: list[str] | None = None) -> int:
         with _stopping_on_signals():
             commands[args.command](args)
     except InputError as err:
-        print(f"comove {args.command}: error: {err}", file=sys.stderr)
+        print(f"comove {args.command}: error: {err.worded_for('--')}", file=sys.stderr)
         return EXIT_INPUT
     except KeyboardInterrupt:
         print(f"comove {args.command}: interrupted; {_left(args)}", file=sys.stderr)

@@ -27,7 +27,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from comove.alignment import Snapshots
-from comove.errors import InputError
+from comove.errors import bad_setting
 from comove.neighbours import NeighbourPairs
 
 #: Slack for comparing a ratio of counts with a decimal threshold (0.3 vs 3/10).
@@ -61,11 +61,11 @@ class ColocationParams:
 
     def __post_init__(self) -> None:
         if not (np.isfinite(self.radius) and self.radius > 0):
-            raise InputError("--radius must be a positive distance in metres")
+            raise bad_setting("radius", "must be a positive distance in metres")
         if not (0 < self.min_participation <= 1):
-            raise InputError("--min-participation must be in (0, 1]")
+            raise bad_setting("min_participation", "must be in (0, 1]")
         if int(self.max_size) != self.max_size or self.max_size < 2:
-            raise InputError("--max-size must be a whole number of at least 2")
+            raise bad_setting("max_size", "must be a whole number of at least 2")
 
 
 @dataclass

@@ -27,8 +27,12 @@ import signal
 import sys
 from collections.abc import Callable, Sequence
 from concurrent.futures import ProcessPoolExecutor, as_completed
-from dataclasses import dataclass
+from dataclasses import dataclass, field, replace
 from typing import Any, Protocol, TypeVar
+
+import numpy as np
+
+from comove.errors import bad_setting
 
 Task = TypeVar("Task")
 Result = TypeVar("Result")
@@ -225,3 +229,48 @@ class LocalEngine:
                 if not finished:  # an error or a signal: no worker may outlive the map
                     _stop_pool(pool)
         return results
+
+
+@dataclass(frozen=True)
+class RunParams:
+    """How a run is carried out: how many workers, and the seed of what is random.
+
+    Parameters
+    ----------
+    jobs : int or None, default None
+        Worker processes for independent tasks (null replicates, sweep grid
+        points) and threads for the stages that use threads (neighbour
+        search, velocities); ``None`` uses every core.
+    seed : int or None, default None
+        Seed of everything random in the run (the null replicates); ``None``
+        draws one, which is recorded in ``run.json`` so that the run can be
+        repeated. Results never depend on ``jobs``.
+    """
+
+    jobs: int | None = field(
+        default=None,
+        metadata={"help": "worker processes (null replicates, sweep grid points) and threads "
+                  "(neighbour search, velocities) (default: all cores)"},
+    )  # fmt: skip
+    seed: int | None = field(default=None, metadata={"help": "seed of the null replicates"})
+
+    def __post_init__(self) -> None:
+        if self.jobs is not None and (int(self.jobs) != self.jobs or self.jobs < 1):
+            raise bad_setting("jobs", "must be a whole number of at least 1")
+        if self.seed is not None and (int(self.seed) != self.seed or self.seed < 0):
+            raise bad_setting("seed", "must be a whole number, 0 or more")
+
+    def resolved(self) -> RunParams:
+        """Return these settings with a drawn seed in place of ``None``."""
+        if self.seed is not None:
+            return self
+        return replace(self, seed=int(np.random.SeedSequence().generate_state(1)[0] >> 1))
+
+    def engine(self) -> LocalEngine:
+        """Return the engine that runs this run's independent tasks."""
+        return LocalEngine(self.jobs)
+
+    @property
+    def threads(self) -> int:
+        """Return the threads for threaded stages (-1: one per core)."""
+        return self.jobs or -1

@@ -35,7 +35,7 @@ import numpy as np
 import pandas as pd
 
 from comove.alignment import Snapshots
-from comove.errors import InputError
+from comove.errors import bad_setting
 from comove.grouping import GroupTimeline
 from comove.motion import Motion
 from comove.projection import working_to_input
@@ -83,11 +83,11 @@ class EpisodeParams:
 
     def __post_init__(self) -> None:
         if int(self.min_size) != self.min_size or self.min_size < 2:
-            raise InputError("--min-size must be a whole number of at least 2")
+            raise bad_setting("min_size", "must be a whole number of at least 2")
         if not (np.isfinite(self.min_duration) and self.min_duration >= 0):
-            raise InputError("--min-duration must be zero or a positive number of seconds")
+            raise bad_setting("min_duration", "must be zero or a positive number of seconds")
         if not (np.isfinite(self.tolerance) and self.tolerance >= 0):
-            raise InputError("--tolerance must be zero or a positive number of seconds")
+            raise bad_setting("tolerance", "must be zero or a positive number of seconds")
 
 
 @dataclass

@@ -26,7 +26,7 @@ from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
 
 from comove.alignment import Snapshots
-from comove.errors import InputError
+from comove.errors import bad_setting
 from comove.motion import Motion
 from comove.neighbours import NeighbourPairs
 
@@ -91,19 +91,19 @@ class GroupParams:
             if value is not None and value < 0:
                 object.__setattr__(self, name, None)
         if not (np.isfinite(self.radius) and self.radius > 0):
-            raise InputError("--radius must be a positive distance in metres")
+            raise bad_setting("radius", "must be a positive distance in metres")
         if self.mode not in GROUP_MODES:
-            raise InputError(f"--mode must be one of {', '.join(GROUP_MODES)}, not {self.mode!r}")
+            raise bad_setting("mode", f"must be one of {', '.join(GROUP_MODES)}, not {self.mode!r}")
         if int(self.min_members) != self.min_members or self.min_members < 2:
-            raise InputError("--min-members must be a whole number of at least 2")
+            raise bad_setting("min_members", "must be a whole number of at least 2")
         if not (np.isfinite(self.min_speed) and self.min_speed >= 0):
-            raise InputError("--min-speed must be zero or a positive speed in m/s")
+            raise bad_setting("min_speed", "must be zero or a positive speed in m/s")
         if self.max_heading is not None and not (0 <= self.max_heading <= 180):
-            raise InputError("--max-heading must be between 0 and 180 degrees")
+            raise bad_setting("max_heading", "must be between 0 and 180 degrees")
         if self.max_speed_ratio is not None and not (self.max_speed_ratio >= 1):
-            raise InputError("--max-speed-ratio must be at least 1")
+            raise bad_setting("max_speed_ratio", "must be at least 1")
         if not (np.isfinite(self.velocity_window) and self.velocity_window > 0):
-            raise InputError("--velocity-window must be a positive number of seconds")
+            raise bad_setting("velocity_window", "must be a positive number of seconds")
 
 
 @dataclass

@@ -19,7 +19,7 @@ import numpy as np
 import pandas as pd
 
 from comove.colocation import RATIO_EPS, LevelResult
-from comove.errors import InputError
+from comove.errors import bad_setting
 from comove.role_chain import RoleTally
 
 ROLE_SEP = ";"
@@ -50,9 +50,9 @@ class PersistenceParams:
 
     def __post_init__(self) -> None:
         if not (0 < self.min_prevalence <= 1):
-            raise InputError("--min-prevalence must be in (0, 1]")
+            raise bad_setting("min_prevalence", "must be in (0, 1]")
         if not (np.isfinite(self.min_duration) and self.min_duration >= 0):
-            raise InputError("--min-duration must be zero or a positive number of seconds")
+            raise bad_setting("min_duration", "must be zero or a positive number of seconds")
 
     def keeps(self, prevalent: np.ndarray, present: np.ndarray, step_s: float) -> np.ndarray:
         """Return which role sets meet both thresholds, from their snapshot counts."""

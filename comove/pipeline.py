@@ -29,6 +29,7 @@ from comove.cleaning import CleanParams, clean_fixes
 from comove.colocation import ColocationParams
 from comove.crossk import CrossKParams
 from comove.dyads import dyad_table
+from comove.engine import RunParams
 from comove.episodes import EpisodeParams, episode_paths, episode_table, role_rollup
 from comove.errors import InputError
 from comove.group_chain import group_chain
@@ -93,8 +94,8 @@ class CrossKRequest:
         if self.k_radii is None:
             return None
         return CrossKParams(
-            radii=parse_grid(self.k_radii, "--k-radii"),
-            window=parse_grid(self.k_window, "--k-window") if self.k_window else None,
+            radii=parse_grid(self.k_radii, "k_radii"),
+            window=parse_grid(self.k_window, "k_window") if self.k_window else None,
             correction=self.k_correction,
         )
 
@@ -102,12 +103,13 @@ class CrossKRequest:
 #: The stage settings of ``mine``, in pipeline order.
 MINE_STAGES: tuple[type, ...] = (
     ColumnSpec, CleanParams, AlignParams, ColocationParams, PersistenceParams, SignificanceParams,
-    CrossKRequest,
+    CrossKRequest, RunParams,
 )  # fmt: skip
 
 #: The stage settings of ``groups``, in pipeline order.
 GROUP_STAGES: tuple[type, ...] = (
     ColumnSpec, CleanParams, AlignParams, GroupParams, EpisodeParams, SignificanceParams,
+    RunParams,
 )  # fmt: skip
 
 
@@ -245,10 +247,9 @@ def mine(source: Any, *, progress: bool = False, **options: Any) -> MiningResult
     >>> result.patterns[["roles", "time_prevalence"]].to_dict("records")
     [{'roles': 'dog;owner', 'time_prevalence': 1.0}]
     """
-    columns, cleaning, alignment, colocation, persistence, significance, k_request = split_options(
-        MINE_STAGES, options
-    )
-    significance = significance.resolved()
+    (columns, cleaning, alignment, colocation, persistence, significance, k_request,
+     run_params) = split_options(MINE_STAGES, options)  # fmt: skip
+    run_params = run_params.resolved()
     k_params = k_request.params()
     bar = _Progress(progress, total=7)
     digest = _digest_beside(source)
@@ -259,7 +260,7 @@ def mine(source: Any, *, progress: bool = False, **options: Any) -> MiningResult
                 snaps,
                 colocation,
                 min_prevalent_snapshots=persistence.min_prevalent_snapshots(snaps.step_s),
-                workers=significance.jobs or -1,
+                workers=run_params.threads,
             )
         with bar.stage("persistence"):
             tables = durable_patterns(tally, persistence, colocation.min_participation)
@@ -267,14 +268,14 @@ def mine(source: Any, *, progress: bool = False, **options: Any) -> MiningResult
         patterns = tables.patterns
         if significance.permutations > 0:
             with bar.stage("significance"):
-                tests = pattern_tests(snaps, tally, colocation, significance, progress)
+                tests = pattern_tests(snaps, tally, colocation, significance, run_params, progress)
                 patterns = patterns.merge(
                     tests[["roles", *TEST_COLUMNS]], on="roles", how="left", validate="1:1"
                 )
         cross = None
         if k_params is not None:
             with bar.stage("cross-K"):
-                cross = cross_k_tests(snaps, k_params, significance, progress)
+                cross = cross_k_tests(snaps, k_params, significance, run_params, progress)
     finally:
         bar.close()
     run = run_record(
@@ -288,6 +289,7 @@ def mine(source: Any, *, progress: bool = False, **options: Any) -> MiningResult
             persistence,
             significance,
             k_request,
+            run_params,
         ),  # fmt: skip
         extra={"caution": CAUTION},
         digest=digest.result(),
@@ -456,10 +458,10 @@ def groups(
     merged.setdefault("require_role", False)
     if merged.get("radius") is None:
         raise InputError("give --radius (metres) or a --preset that sets one")
-    columns, cleaning, alignment, grouping, episode_params, significance = split_options(
-        GROUP_STAGES, merged
+    columns, cleaning, alignment, grouping, episode_params, significance, run_params = (
+        split_options(GROUP_STAGES, merged)
     )
-    significance = significance.resolved()
+    run_params = run_params.resolved()
     bar = _Progress(progress, total=6 if significance.permutations > 0 else 5)
     digest = _digest_beside(source)
     try:
@@ -473,7 +475,7 @@ def groups(
             def count_dyads(pairs: NeighbourPairs, _motion: object) -> None:
                 counting.append(side.submit(dyad_table, snaps, pairs))
 
-            tally = group_chain(snaps, grouping, episode_params, workers=significance.jobs or -1,
+            tally = group_chain(snaps, grouping, episode_params, workers=run_params.threads,
                                 before_search=count_dyads)  # fmt: skip
             table, centroids = episode_table(snaps, tally.episodes, tally.motion,
                                              grouping.min_speed)  # fmt: skip
@@ -485,7 +487,7 @@ def groups(
             with bar.stage("significance"):
                 pair_tests, role_tests = group_tests(
                     snaps, tally, dyads, table["roles"], grouping, episode_params, significance,
-                    progress,
+                    run_params, progress,
                 )  # fmt: skip
             if pair_tests is not None:
                 dyads = dyads.merge(pair_tests, on=["object_a", "object_b"], how="left",
@@ -498,8 +500,14 @@ def groups(
         "groups",
         source,
         settings_record(
-            columns, cleaning, _effective(snaps), grouping, episode_params, significance
-        ),
+            columns,
+            cleaning,
+            _effective(snaps),
+            grouping,
+            episode_params,
+            significance,
+            run_params,
+        ),  # fmt: skip
         extra={"preset": preset, "caution": CAUTION},
         digest=digest.result(),
     )

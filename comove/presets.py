@@ -11,7 +11,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Any
 
-from comove.errors import InputError
+from comove.errors import bad_setting
 
 
 @dataclass(frozen=True)
@@ -168,5 +168,5 @@ def preset_values(name: str | None) -> dict[str, Any]:
     if name is None:
         return {}
     if name not in PRESETS:
-        raise InputError(f"--preset must be one of {', '.join(PRESETS)}, not {name!r}")
+        raise bad_setting("preset", f"must be one of {', '.join(PRESETS)}, not {name!r}")
     return dict(PRESETS[name].values)

@@ -25,7 +25,7 @@ from typing import Any
 
 import numpy as np
 
-from comove.errors import InputError
+from comove.errors import InputError, bad_setting
 from comove.results import run_records
 
 #: Keys of a run file that are not stage settings.
@@ -126,8 +126,14 @@ def _from_run_json(p: Path, command: str, known: set[str]) -> dict[str, Any]:
     return options
 
 
-def parse_grid(text: str, flag: str) -> tuple[float, ...]:
-    """Return the values of ``start:stop:step`` (stop included) or ``a,b,c`` text."""
+def parse_grid(text: str, setting: str) -> tuple[float, ...]:
+    """Return the values of ``start:stop:step`` (stop included) or ``a,b,c`` text.
+
+    Examples
+    --------
+    >>> parse_grid("1:2:0.5", "radius"), parse_grid("3, 5", "radius")
+    ((1.0, 1.5, 2.0), (3.0, 5.0))
+    """
     try:
         if ":" in text:
             start, stop, step = (float(v) for v in text.split(":"))
@@ -137,10 +143,22 @@ def parse_grid(text: str, flag: str) -> tuple[float, ...]:
         else:
             values = np.array([float(v) for v in text.split(",") if v.strip()])
     except ValueError:
-        raise InputError(
-            f"{flag} must be start:stop:step (stop >= start, step > 0) or a comma-separated "
-            "list of numbers"
+        raise bad_setting(
+            setting,
+            "must be start:stop:step (stop >= start, step > 0) or a comma-separated list of "
+            "numbers",
         ) from None
     if values.size == 0:
-        raise InputError(f"{flag} is empty; give at least one value")
+        raise bad_setting(setting, "is empty; give at least one value")
     return tuple(float(v) for v in values)
+
+
+def as_grid(value: Any, setting: str) -> tuple[float, ...]:
+    """Return a grid of values given as grid text, one number, or a list of numbers."""
+    if isinstance(value, str):
+        return parse_grid(value, setting)
+    items = value if isinstance(value, (list, tuple)) else [value]
+    try:
+        return tuple(float(v) for v in items)
+    except (TypeError, ValueError):
+        raise bad_setting(setting, "must be numbers, or grid text such as 1:5:1") from None

@@ -39,8 +39,8 @@ from scipy.stats import false_discovery_control
 
 from comove.alignment import Snapshots
 from comove.colocation import encode_role_sets
-from comove.engine import Engine, LocalEngine
-from comove.errors import InputError
+from comove.engine import RunParams
+from comove.errors import bad_setting
 
 NULL_MODELS = ("time-shift", "role-shuffle")
 
@@ -67,14 +67,8 @@ class SignificanceParams:
         Role shuffle: permute roles only among objects whose role names share
         the text before this separator (``"_"`` keeps ``home_*`` and ``away_*``
         apart).
-    seed : int or None, default None
-        Seed of the replicates; ``None`` draws one, which is recorded in
-        ``run.json`` so that the run can be repeated.
     alpha : float, default 0.05
         False discovery rate for the ``significant`` column.
-    jobs : int or None, default None
-        Worker processes for the null replicates, and threads for the
-        neighbour search of the observed data; ``None`` uses every core.
     """
 
     permutations: int = field(
@@ -92,35 +86,19 @@ class SignificanceParams:
         metadata={"help": "role-shuffle only among roles sharing the text before this "
                   "separator"},
     )  # fmt: skip
-    seed: int | None = field(default=None, metadata={"help": "seed of the null replicates"})
     alpha: float = field(default=0.05, metadata={"help": "false discovery rate for `significant`"})
-    jobs: int | None = field(
-        default=None,
-        metadata={"help": "worker processes (null replicates) and threads (neighbour "
-                  "search) (default: all cores)"},
-    )  # fmt: skip
 
     def __post_init__(self) -> None:
         if int(self.permutations) != self.permutations or self.permutations < 0:
-            raise InputError("--permutations must be a whole number, 0 or more")
+            raise bad_setting("permutations", "must be a whole number, 0 or more")
         if self.null not in NULL_MODELS:
-            raise InputError(f"--null must be one of {', '.join(NULL_MODELS)}, not {self.null!r}")
+            raise bad_setting("null", f"must be one of {', '.join(NULL_MODELS)}, not {self.null!r}")
         if self.shift_within not in SHIFT_SPANS:
-            raise InputError(f"--shift-within must be one of {', '.join(SHIFT_SPANS)}")
+            raise bad_setting("shift_within", f"must be one of {', '.join(SHIFT_SPANS)}")
         if self.shuffle_strata == "":
-            raise InputError("--shuffle-strata must be a non-empty separator such as _")
+            raise bad_setting("shuffle_strata", "must be a non-empty separator such as _")
         if not (0 < self.alpha < 1):
-            raise InputError("--alpha must be between 0 and 1")
-        if self.jobs is not None and (int(self.jobs) != self.jobs or self.jobs < 1):
-            raise InputError("--jobs must be a whole number of at least 1")
-        if self.seed is not None and (int(self.seed) != self.seed or self.seed < 0):
-            raise InputError("--seed must be a whole number, 0 or more")
-
-    def resolved(self) -> SignificanceParams:
-        """Return these settings with a drawn seed in place of ``None``."""
-        if self.seed is not None:
-            return self
-        return replace(self, seed=int(np.random.SeedSequence().generate_state(1)[0] >> 1))
+            raise bad_setting("alpha", "must be between 0 and 1")
 
 
 # --------------------------------------------------------------------------- null models
@@ -250,9 +228,9 @@ def null_distribution(
     model: NullModel,
     statistic: Statistic,
     params: SignificanceParams,
+    run: RunParams,
     progress: bool = False,
     label: str = "null replicates",
-    engine: Engine | None = None,
 ) -> np.ndarray:
     """Return the statistic on ``params.permutations`` null replicates.
 
@@ -264,14 +242,13 @@ def null_distribution(
         ``statistic(model, rng)`` returns a 1-d array (one value per tested
         item); it must be a picklable top-level function or partial.
     params : SignificanceParams
-        ``permutations``, ``seed`` (must be resolved) and ``jobs``.
+        ``permutations``.
+    run : RunParams
+        The seed (must be resolved) and the engine that runs the replicates.
     progress : bool, default False
         Show a progress bar with the time left.
     label : str
         Progress bar text.
-    engine : Engine, optional
-        Runs the replicates; a :class:`~comove.engine.LocalEngine` with
-        ``params.jobs`` workers when omitted.
 
     Returns
     -------
@@ -280,11 +257,10 @@ def null_distribution(
         replicate k draws from ``SeedSequence(seed).spawn(N)[k]``.
     """
     n = int(params.permutations)
-    if params.seed is None:
-        raise ValueError("resolve the seed first (SignificanceParams.resolved)")
-    seeds = np.random.SeedSequence(params.seed).spawn(n)
-    engine = engine or LocalEngine(params.jobs)
-    rows = engine.map(
+    if run.seed is None:
+        raise ValueError("resolve the seed first (RunParams.resolved)")
+    seeds = np.random.SeedSequence(run.seed).spawn(n)
+    rows = run.engine().map(
         _replicate, seeds, shared=(model, statistic), work_size=model.snaps.n_entries * n,
         progress=progress, label=label,
     )  # fmt: skip
@@ -399,8 +375,8 @@ def pattern_tests(
     observed: Any,
     colocation: Any,
     params: SignificanceParams,
+    run: RunParams,
     progress: bool = False,
-    engine: Engine | None = None,
 ) -> pd.DataFrame:
     """Return Monte Carlo tests of the time prevalence of every role set mined.
 
@@ -417,11 +393,11 @@ def pattern_tests(
     colocation : ColocationParams
         The miner's settings, reused for every replicate.
     params : SignificanceParams
-        Null model, replicates and seed (resolved).
+        Null model and replicates.
+    run : RunParams
+        Seed (resolved) and engine.
     progress : bool, default False
         Show a progress bar.
-    engine : Engine, optional
-        Runs the replicates (default: local, ``params.jobs`` workers).
 
     Returns
     -------
@@ -436,8 +412,8 @@ def pattern_tests(
     labels = [role_label(row, snaps.roles) for sets in tested for row in sets]
     sizes = [sets.shape[1] for sets in tested for _ in sets]
     model = NullModel(snaps, params)
-    null = null_distribution(model, RoleSetPrevalence(colocation, tested), params, progress,
-                             label=f"{params.null} replicates", engine=engine)  # fmt: skip
+    null = null_distribution(model, RoleSetPrevalence(colocation, tested), params, run, progress,
+                             label=f"{params.null} replicates")  # fmt: skip
     table = summary_table(values, null, params.alpha)
     table.insert(0, "roles", pd.Series(labels, dtype=object))
     table.insert(1, "size", np.asarray(sizes, dtype=np.int64))
@@ -503,8 +479,8 @@ def group_tests(
     grouping: Any,
     episodes: Any,
     params: SignificanceParams,
+    run: RunParams,
     progress: bool = False,
-    engine: Engine | None = None,
 ) -> tuple[pd.DataFrame | None, pd.DataFrame]:
     """Return Monte Carlo tests of pairs' time together and role sets' episode counts.
 
@@ -525,11 +501,11 @@ def group_tests(
     grouping, episodes : GroupParams, EpisodeParams
         The chain's settings, reused for every replicate.
     params : SignificanceParams
-        Null model, replicates and seed (resolved).
+        Null model and replicates.
+    run : RunParams
+        Seed (resolved) and engine.
     progress : bool, default False
         Show a progress bar.
-    engine : Engine, optional
-        Runs the replicates (default: local, ``params.jobs`` workers).
 
     Returns
     -------
@@ -551,8 +527,8 @@ def group_tests(
     stat = GroupStatistic(grouping, episodes, pair_keys, labels, observed.motion.vx,
                           observed.motion.vy)  # fmt: skip
     values = group_statistics(snaps, observed, pair_keys, labels)
-    null = null_distribution(NullModel(snaps, params), stat, params, progress,
-                             label=f"{params.null} replicates", engine=engine)  # fmt: skip
+    null = null_distribution(NullModel(snaps, params), stat, params, run, progress,
+                             label=f"{params.null} replicates")  # fmt: skip
     k = pair_keys.size
     role_tests = summary_table(values[k:], null[:, k:], params.alpha)
     role_tests.insert(0, "roles", pd.Series(list(labels), dtype=object))
@@ -581,7 +557,11 @@ class CrossLStatistic:
 
 
 def cross_k_tests(
-    snaps: Snapshots, kparams: Any, params: SignificanceParams, progress: bool = False
+    snaps: Snapshots,
+    kparams: Any,
+    params: SignificanceParams,
+    run: RunParams,
+    progress: bool = False,
 ) -> pd.DataFrame:
     """Return the cross-K table with pointwise envelopes from time-shift replicates.
 
@@ -600,7 +580,7 @@ def cross_k_tests(
         (codes[a], codes[b]) for a, b in zip(observed["role_a"], observed["role_b"], strict=True)
     ))  # fmt: skip
     shift = replace(params, null="time-shift")
-    null = null_distribution(NullModel(snaps, shift), CrossLStatistic(kparams, pairs), shift,
+    null = null_distribution(NullModel(snaps, shift), CrossLStatistic(kparams, pairs), shift, run,
                              progress, label="time-shift replicates (cross-K)")  # fmt: skip
     replicates = [observed.assign(l=row) for row in null]
     return envelopes(observed, replicates, level=1 - params.alpha)

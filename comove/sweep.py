@@ -10,7 +10,7 @@ receive the aligned snapshots and pairs once.
 from __future__ import annotations
 
 import os
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
@@ -20,21 +20,20 @@ import pandas as pd
 from comove.alignment import AlignParams, Snapshots
 from comove.cleaning import CleanParams
 from comove.colocation import RATIO_EPS, ColocationParams
-from comove.engine import LocalEngine
-from comove.errors import InputError
+from comove.engine import RunParams
+from comove.errors import bad_setting
 from comove.neighbours import NeighbourPairs, neighbour_pairs
 from comove.persistence import PersistenceParams, longest_runs, role_label
 from comove.reading import ColumnSpec
 from comove.results import csv_writer, json_writer, write_folder
 from comove.role_chain import role_chain
+from comove.runfile import as_grid
 
 SWEEP_COLUMNS = [
     "radius", "min_participation", "roles", "size", "time_prevalence", "prevalent_seconds",
     "longest_run_seconds", "kept",
 ]  # fmt: skip
 
-#: The stage settings a sweep takes as they are (radius and threshold become grids).
-SWEEP_STAGES: tuple[type, ...] = (ColumnSpec, CleanParams, AlignParams, PersistenceParams)
 
 #: Patterns drawn in the sweep plot.
 PLOTTED = 8
@@ -46,28 +45,40 @@ class SweepParams:
 
     Parameters
     ----------
-    radii : tuple of float
-        Neighbour distances in metres.
+    radius : tuple of float
+        Neighbour distances in metres. Text is read as ``start:stop:step``
+        (stop included) or ``r1,r2,...``; one number is a grid of one.
     min_participation : tuple of float, default (0.5,)
-        Participation-index thresholds.
+        Participation-index thresholds, given like ``radius``.
     max_size : int, default 3
         Largest role set mined.
-    jobs : int or None, default None
-        Worker processes; ``None`` uses every core.
     """
 
-    radii: tuple[float, ...]
-    min_participation: tuple[float, ...] = (0.5,)
-    max_size: int = 3
-    jobs: int | None = field(default=None)
+    radius: tuple[float, ...] = field(
+        default=(),
+        metadata={"help": "radii in metres: start:stop:step (stop included) or r1,r2,..."},
+    )
+    min_participation: tuple[float, ...] = field(
+        default=(0.5,),
+        metadata={"help": "participation thresholds: start:stop:step or p1,p2,..."},
+    )
+    max_size: int = field(default=3, metadata={"help": "largest role set mined"})
 
     def __post_init__(self) -> None:
-        for r in self.radii:
+        for name in ("radius", "min_participation"):
+            object.__setattr__(self, name, as_grid(getattr(self, name), name))
+        if not self.radius:
+            raise bad_setting("radius", "is required: give the radii of the sweep")
+        for r in self.radius:
             ColocationParams(radius=r, max_size=self.max_size)  # validates each value
         for m in self.min_participation:
             ColocationParams(radius=1.0, min_participation=m)
-        if self.jobs is not None and self.jobs < 1:
-            raise InputError("--jobs must be a whole number of at least 1")
+
+
+#: The settings of a sweep: the stages it runs, its grid, and how the run is carried out.
+SWEEP_STAGES: tuple[type, ...] = (
+    ColumnSpec, CleanParams, AlignParams, PersistenceParams, SweepParams, RunParams,
+)  # fmt: skip
 
 
 @dataclass(frozen=True)
@@ -181,21 +192,19 @@ class SweepResult:
         )
 
 
-def sweep(
-    source: Any, params: SweepParams, *, progress: bool = False, **options: Any
-) -> SweepResult:
+def sweep(source: Any, *, progress: bool = False, **options: Any) -> SweepResult:
     """Return the role sets mined at every point of a grid of radii and thresholds.
 
     Parameters
     ----------
     source : path, glob, list, DataFrame, GeoDataFrame or TrajectoryCollection
         The tracks, as for :func:`comove.pipeline.mine`.
-    params : SweepParams
-        The grid.
     progress : bool, default False
         Show a progress bar.
     **options
-        Fields of ColumnSpec, CleanParams, AlignParams and PersistenceParams.
+        Fields of :class:`SweepParams` (the grid: ``radius`` is required),
+        ColumnSpec, CleanParams, AlignParams, PersistenceParams and
+        :class:`~comove.engine.RunParams`.
 
     Returns
     -------
@@ -205,19 +214,21 @@ def sweep(
     from comove.pipeline import CAUTION, _aligned, _effective, _Progress, split_options
     from comove.provenance import run_record, settings_record
 
-    columns, cleaning, alignment, persistence = split_options(SWEEP_STAGES, options)
+    columns, cleaning, alignment, persistence, params, run_params = split_options(
+        SWEEP_STAGES, options
+    )
     bar = _Progress(progress, total=4)
     try:
         snaps, quality = _aligned(source, columns, cleaning, alignment, bar)
         with bar.stage("neighbour search"):
-            pairs = neighbour_pairs(snaps, max(params.radii))
+            pairs = neighbour_pairs(snaps, max(params.radius), workers=run_params.threads)
             dx, dy = snaps.x[pairs.i] - snaps.x[pairs.j], snaps.y[pairs.i] - snaps.y[pairs.j]
             distance = np.sqrt(dx * dx + dy * dy)
     finally:
         bar.close()
-    grid = [(r, m) for m in params.min_participation for r in params.radii]
+    grid = [(r, m) for m in params.min_participation for r in params.radius]
     shared = _SweepInputs(snaps, pairs, distance, persistence, params.max_size)
-    parts = LocalEngine(params.jobs).map(
+    parts = run_params.engine().map(
         _grid_point, grid, shared=shared, work_size=snaps.n_entries * len(grid),
         progress=progress, label="sweep",
     )  # fmt: skip
@@ -225,7 +236,7 @@ def sweep(
     run = run_record(
         "sweep", source,
         settings_record(columns, cleaning, _effective(snaps), persistence,
-                        replace(params, radii=tuple(params.radii))),
+                        params, run_params),
         extra={"caution": CAUTION},
     )  # fmt: skip
     return SweepResult(table, quality, run)

@@ -219,10 +219,10 @@ def test_mine_significance_and_cross_k_options(tracks_csv, tmp_path, capsys):
     settings = json.loads((out_dir / "run.json").read_text())["settings"]
     assert settings["SignificanceParams"] == {
         **settings["SignificanceParams"],
-        "seed": 3,
         "null": "role-shuffle",
         "permutations": 49,
     }
+    assert settings["RunParams"]["seed"] == 3
 
 
 def test_permutations_zero_switches_the_tests_off(tracks_csv, tmp_path, capsys):

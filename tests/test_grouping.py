@@ -149,11 +149,11 @@ def test_speed_ratio_predicate():
 
 
 def test_bad_group_settings():
-    with pytest.raises(InputError, match="--mode"):
+    with pytest.raises(InputError, match="^mode"):
         GroupParams(radius=1, mode="blob")
-    with pytest.raises(InputError, match="--max-heading"):
+    with pytest.raises(InputError, match="^max_heading"):
         GroupParams(radius=1, max_heading=200)
-    with pytest.raises(InputError, match="--min-members"):
+    with pytest.raises(InputError, match="^min_members"):
         GroupParams(radius=1, min_members=1)
 
 

@@ -66,11 +66,11 @@ def test_runs_pick_the_longest_and_earliest():
 
 
 def test_bad_thresholds_are_input_errors():
-    with pytest.raises(InputError, match="--min-prevalence"):
+    with pytest.raises(InputError, match="^min_prevalence"):
         PersistenceParams(min_prevalence=0)
-    with pytest.raises(InputError, match="--min-duration"):
+    with pytest.raises(InputError, match="^min_duration"):
         PersistenceParams(min_duration=-1)
-    with pytest.raises(InputError, match="--min-participation"):
+    with pytest.raises(InputError, match="^min_participation"):
         ColocationParams(radius=1.0, min_participation=1.5)
-    with pytest.raises(InputError, match="--radius"):
+    with pytest.raises(InputError, match="^radius"):
         ColocationParams(radius=0.0)

@@ -7,6 +7,7 @@ import pandas as pd
 import pytest
 from scenes import grid_scene
 
+from comove.engine import RunParams
 from comove.errors import InputError
 from comove.pipeline import groups, mine
 from comove.significance import (
@@ -121,13 +122,13 @@ def test_same_seed_same_results_and_jobs_do_not_matter():
     c = mine(frame, **MINE, permutations=40, seed=10, jobs=1)
     pd.testing.assert_frame_equal(a.tests, b.tests)
     assert not a.tests["null_mean"].equals(c.tests["null_mean"])
-    assert a.run["settings"]["SignificanceParams"]["seed"] == 9
+    assert a.run["settings"]["RunParams"]["seed"] == 9
 
 
 def test_a_drawn_seed_is_recorded_and_repeats_the_run():
     frame = frame_of(*walkers(2, n_snap=120))
     first = mine(frame, **MINE, permutations=20)
-    seed = first.run["settings"]["SignificanceParams"]["seed"]
+    seed = first.run["settings"]["RunParams"]["seed"]
     again = mine(frame, **MINE, permutations=20, seed=seed)
     pd.testing.assert_frame_equal(first.tests, again.tests)
 
@@ -147,7 +148,7 @@ def small_snaps(n_snap=50, n_obj=6, gaps=True):
 @pytest.mark.parametrize("within", ["period", "object"])
 def test_time_shift_keeps_each_track_and_its_gaps(within):
     snaps = small_snaps()
-    model = NullModel(snaps, SignificanceParams(shift_within=within, seed=1))
+    model = NullModel(snaps, SignificanceParams(shift_within=within))
     shifted, order = model.draw(np.random.default_rng(0))
     assert np.all(np.diff(shifted.snap * 10 + shifted.obj) > 0)  # (snapshot, object) order
     for o in range(len(snaps.objects)):
@@ -176,7 +177,7 @@ def test_time_shift_keeps_each_track_and_its_gaps(within):
 def test_role_shuffle_keeps_tracks_and_respects_strata():
     snaps = small_snaps(gaps=False)
     snaps.roles = np.array(["home_back", "home_wing", "away_back", "away_wing"])
-    model = NullModel(snaps, SignificanceParams(null="role-shuffle", shuffle_strata="_", seed=1))
+    model = NullModel(snaps, SignificanceParams(null="role-shuffle", shuffle_strata="_"))
     seen = set()
     for k in range(20):
         shuffled, order = model.draw(np.random.default_rng(k))
@@ -193,14 +194,14 @@ def test_role_shuffle_keeps_tracks_and_respects_strata():
 
 
 def test_bad_significance_settings():
-    with pytest.raises(InputError, match="--null"):
+    with pytest.raises(InputError, match="^null"):
         SignificanceParams(null="bootstrap")
-    with pytest.raises(InputError, match="--permutations"):
+    with pytest.raises(InputError, match="^permutations"):
         SignificanceParams(permutations=-1)
-    with pytest.raises(InputError, match="--alpha"):
+    with pytest.raises(InputError, match="^alpha"):
         SignificanceParams(alpha=1.5)
-    with pytest.raises(InputError, match="--jobs"):
-        SignificanceParams(jobs=0)
+    with pytest.raises(InputError, match="^jobs"):
+        RunParams(jobs=0)
 
 
 def test_nothing_to_test_gives_empty_tables_not_errors(tmp_path):

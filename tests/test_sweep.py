@@ -14,7 +14,7 @@ from comove.runfile import parse_grid
 from comove.scenarios import mine_options
 from comove.sweep import SweepParams, sweep
 
-GRID = SweepParams(radii=(1.5, 3.0, 5.0), min_participation=(0.3, 0.5))
+GRID = SweepParams(radius=(1.5, 3.0, 5.0), min_participation=(0.3, 0.5))
 
 
 @pytest.fixture(scope="module")
@@ -26,8 +26,8 @@ def game():
 
 def test_each_grid_point_equals_a_separate_mine_run(game):
     source, options, base = game
-    table = sweep(source, GRID, **base).table
-    for radius in GRID.radii:
+    table = sweep(source, radius=GRID.radius, min_participation="0.3,0.5", **base).table
+    for radius in GRID.radius:
         for threshold in GRID.min_participation:
             alone = mine(
                 source,
@@ -51,17 +51,33 @@ def test_each_grid_point_equals_a_separate_mine_run(game):
 
 def test_workers_do_not_change_the_table(game):
     source, _, base = game
-    one = sweep(source, SweepParams(radii=GRID.radii, jobs=1), **base).table
-    two = sweep(source, SweepParams(radii=GRID.radii, jobs=2), **base).table
+    one = sweep(source, radius=GRID.radius, jobs=1, **base).table
+    two = sweep(source, radius=GRID.radius, jobs=2, **base).table
     pd.testing.assert_frame_equal(one, two)
 
 
 def test_grid_text():
-    assert parse_grid("1:3:0.5", "--radius") == (1.0, 1.5, 2.0, 2.5, 3.0)
-    assert parse_grid("2,5, 10", "--radius") == (2.0, 5.0, 10.0)
+    assert parse_grid("1:3:0.5", "radius") == (1.0, 1.5, 2.0, 2.5, 3.0)
+    assert parse_grid("2,5, 10", "radius") == (2.0, 5.0, 10.0)
     for bad in ("1:3", "3:1:1", "1:3:0", "a,b", ""):
-        with pytest.raises(InputError, match="--radius"):
-            parse_grid(bad, "--radius")
+        with pytest.raises(InputError, match="^radius") as caught:
+            parse_grid(bad, "radius")
+        assert caught.value.worded_for().startswith("--radius ")
+    # a grid given as text, one number or a list of numbers (as in a TOML run file)
+    assert SweepParams(radius="1,2").radius == SweepParams(radius=[1, 2]).radius == (1.0, 2.0)
+    assert SweepParams(radius=3).radius == (3.0,)
+
+
+def test_sweep_takes_a_run_file(game, tmp_path, capsys):
+    source, _, base = game
+    config = tmp_path / "sweep.toml"
+    lines = [f'input = "{source}"', 'out = "from-file"', 'radius = "2:3:1"', "jobs = 1"]
+    lines += [f"{k} = {v!r}".replace("'", '"') for k, v in base.items()]
+    config.write_text("\n".join(lines) + "\n")
+    code = main(["sweep", "--config", str(config), "--quiet"])
+    assert code == 0, capsys.readouterr().err
+    table = pd.read_csv(tmp_path / "from-file" / "sweep.csv")
+    assert sorted(table["radius"].unique()) == [2.0, 3.0]
 
 
 def test_sweep_command_writes_table_and_plot(tmp_path, capsys):
