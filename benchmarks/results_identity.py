@@ -15,7 +15,10 @@ the role shuffle, and a ``sweep``, each into its own results folder.
 what names the moment or the machine of a run: ``created``, versions, input
 paths, the checkout's folder), Parquet tables value for value, PNG figures pixel for pixel, and the
 report's HTML after its embedded pictures are compared as pictures. It prints
-one line per difference and exits 1 when there is any.
+one line per difference and exits 1 when there is any. Each folder's record of
+the files comove wrote into it (``comove.results.MANIFEST``) is left out of the
+comparison: it lists the files compared here, and folders written before it
+existed have none.
 """
 
 from __future__ import annotations
@@ -151,11 +154,22 @@ def _compare_file(a: Path, b: Path) -> str | None:
     return None if a.read_bytes() == b.read_bytes() else "content differs"
 
 
+def _files(root: Path) -> set[Path]:
+    """Return the files below ``root`` that hold results (every one but the folders' records)."""
+    from comove.results import MANIFEST
+
+    return {p.relative_to(root) for p in root.rglob("*") if p.is_file() and p.name != MANIFEST}
+
+
 def compare(before: Path, after: Path) -> int:
-    """Print every difference between two trees of results folders; return their number."""
+    """Print every difference between two trees of results folders; return their number.
+
+    The folders' records of what comove wrote (``comove.results.MANIFEST``)
+    are not compared.
+    """
     found = 0
-    names_a = {p.relative_to(before) for p in before.rglob("*") if p.is_file()}
-    names_b = {p.relative_to(after) for p in after.rglob("*") if p.is_file()}
+    names_a = _files(before)
+    names_b = _files(after)
     for rel in sorted(names_a ^ names_b):
         print(f"{rel}: only in {'before' if rel in names_a else 'after'}")
         found += 1

@@ -8,9 +8,14 @@ from __future__ import annotations
 
 import argparse
 import gc
+import glob
 import os
+import signal
 import sys
+import threading
 import typing
+from collections.abc import Iterator
+from contextlib import contextmanager
 from dataclasses import MISSING, fields
 from pathlib import Path
 from typing import Any, NoReturn
@@ -29,8 +34,9 @@ gc.disable()
 import comove  # noqa: E402
 from comove.cleaning import format_quality_summary  # noqa: E402
 from comove.errors import InputError  # noqa: E402
-from comove.pipeline import CAUTION, GROUP_STAGES, MINE_STAGES, groups, mine  # noqa: E402
+from comove.pipeline import GROUP_STAGES, MINE_STAGES, groups, mine  # noqa: E402
 from comove.presets import PRESETS  # noqa: E402
+from comove.results import CAUTION, Claim, claim  # noqa: E402
 from comove.runfile import load_run_file  # noqa: E402
 from comove.sweep import SWEEP_STAGES, sweep  # noqa: E402
 
@@ -110,7 +116,16 @@ def build_parser() -> argparse.ArgumentParser:
     parser = _Parser(prog="comove", description="Which roles and which objects move together.")
     parser.add_argument("--version", action="version", version=f"comove {comove.__version__}")
     sub = parser.add_subparsers(dest="command", required=True, parser_class=_Parser)
+    _add_mine(sub)
+    _add_groups(sub)
+    _add_sweep(sub)
+    _add_report(sub)
+    _add_demo(sub)
+    return parser
 
+
+def _add_mine(sub: Any) -> None:
+    """Add the ``comove mine`` command to the subcommands ``sub``."""
     p = sub.add_parser(
         "mine",
         help="durable role co-location patterns of tracks",
@@ -126,6 +141,9 @@ def build_parser() -> argparse.ArgumentParser:
     _add_stage_options(p, MINE_STAGES, required=set())
     _add_common(p)
 
+
+def _add_groups(sub: Any) -> None:
+    """Add the ``comove groups`` command to the subcommands ``sub``."""
     g = sub.add_parser(
         "groups",
         help="co-moving groups of objects: episodes and dyads",
@@ -146,6 +164,9 @@ def build_parser() -> argparse.ArgumentParser:
     _add_stage_options(g, GROUP_STAGES, required=set())
     _add_common(g)
 
+
+def _add_sweep(sub: Any) -> None:
+    """Add the ``comove sweep`` command to the subcommands ``sub``."""
     w = sub.add_parser(
         "sweep",
         help="the miner over a grid of radii and participation thresholds",
@@ -159,6 +180,9 @@ def build_parser() -> argparse.ArgumentParser:
     _add_stage_options(w, SWEEP_STAGES, required=set())
     _add_common(w, merge=False)
 
+
+def _add_report(sub: Any) -> None:
+    """Add the ``comove report`` command to the subcommands ``sub``."""
     r = sub.add_parser(
         "report",
         help="an HTML report with figures of a results folder",
@@ -175,6 +199,9 @@ def build_parser() -> argparse.ArgumentParser:
     )
     r.add_argument("--quiet", action="store_true", help="print nothing but errors")
 
+
+def _add_demo(sub: Any) -> None:
+    """Add the ``comove demo`` command to the subcommands ``sub``."""
     d = sub.add_parser(
         "demo",
         help="run the miner on a bundled invented scenario",
@@ -187,7 +214,6 @@ def build_parser() -> argparse.ArgumentParser:
         help="results folder to create (default: comove-demo)",
     )
     _add_common(d, merge=False)
-    return parser
 
 
 def _add_config(p: argparse.ArgumentParser) -> None:
@@ -229,7 +255,37 @@ def _add_common(p: argparse.ArgumentParser, merge: bool = True) -> None:
     p.add_argument("--quiet", action="store_true", help="print nothing but errors")
 
 
-def _report(result: comove.pipeline.MiningResult, out: Path, quiet: bool) -> None:
+def _input_files(source: Any) -> list[str]:
+    """Return the files named by a run's input (patterns expanded), to keep them safe."""
+    found: list[str] = []
+    for item in source if isinstance(source, list) else [source]:
+        text = os.path.expanduser(os.fspath(item))
+        if any(ch in text for ch in "*?[") and not os.path.isfile(text):
+            found += glob.glob(text, recursive=True)
+        else:
+            found.append(text)
+    return found
+
+
+@contextmanager
+def _claimed(args: argparse.Namespace, out: Path, command: str, source: Any) -> Iterator[Claim]:
+    """Hold the results folder for the run, before anything is computed."""
+    merge = getattr(args, "merge", False)
+    inputs = _input_files(source)
+    with claim(out, command=command, force=args.force, merge=merge, inputs=inputs) as held:
+        args.claims.append(held)
+        yield held
+
+
+def _written(out: Path, held: Claim, hint: str = "") -> None:
+    """Print where the results went, and whether an outdated report was removed."""
+    if held.report_removed:
+        print(f"\nThe report of the folder's earlier results was removed; comove report {out} "
+              "makes a new one.")  # fmt: skip
+    print(f"\nResults written to {out}/{hint}")
+
+
+def _report(result: comove.pipeline.MiningResult, out: Path, quiet: bool, held: Claim) -> None:
     if quiet:
         return
     print(format_quality_summary(result.quality))
@@ -239,7 +295,7 @@ def _report(result: comove.pipeline.MiningResult, out: Path, quiet: bool) -> Non
         shown = ["roles", "time_prevalence", "longest_run_seconds", "p_value", "q_value"]
         top = result.patterns.head(10)[[c for c in shown if c in result.patterns]]
         print(top.to_string(index=False, float_format=lambda v: f"{v:.3f}"))
-    print(f"\nResults written to {out}/ — for figures: comove report {out}")
+    _written(out, held, f" — for figures: comove report {out}")
     print(f"Caution: {CAUTION}")
 
 
@@ -248,16 +304,18 @@ def _run_mine(args: argparse.Namespace) -> None:
     options.pop("preset", None)
     if options.get("radius") is None:
         raise InputError("give --radius (metres), or radius in the --config file")
-    result = mine(source, progress=not args.quiet, **options)
-    out = result.write(out_dir, force=args.force, merge=args.merge)
-    _report(result, out, args.quiet)
+    with _claimed(args, out_dir, "mine", source) as held:
+        result = mine(source, progress=not args.quiet, **options)
+        out = result.write(out_dir, force=args.force, merge=args.merge)
+    _report(result, out, args.quiet, held)
 
 
 def _run_groups(args: argparse.Namespace) -> None:
     source, out_dir, options = _resolve(args, GROUP_STAGES)
     preset = options.pop("preset", None)
-    result = groups(source, preset=preset, progress=not args.quiet, **options)
-    out = result.write(out_dir, force=args.force, merge=args.merge)
+    with _claimed(args, out_dir, "groups", source) as held:
+        result = groups(source, preset=preset, progress=not args.quiet, **options)
+        out = result.write(out_dir, force=args.force, merge=args.merge)
     if args.quiet:
         return
     print(format_quality_summary(result.quality))
@@ -268,15 +326,16 @@ def _run_groups(args: argparse.Namespace) -> None:
         shown = ["episode", "start", "duration_s", "together_s", "members"]
         print(top[shown].to_string(index=False))
     print(f"{len(result.dyads)} pairs of objects with shared presence in dyads.csv.")
-    print(f"\nResults written to {out}/")
+    _written(out, held)
     print(f"Caution: {CAUTION}")
 
 
 def _run_sweep(args: argparse.Namespace) -> None:
     source, out_dir, options = _resolve(args, SWEEP_STAGES)
     options.pop("preset", None)
-    result = sweep(source, progress=not args.quiet, **options)
-    out = result.write(out_dir, force=args.force)
+    with _claimed(args, out_dir, "sweep", source):
+        result = sweep(source, progress=not args.quiet, **options)
+        out = result.write(out_dir, force=args.force)
     if args.quiet:
         return
     print(format_quality_summary(result.quality))
@@ -301,27 +360,99 @@ def _run_demo(args: argparse.Namespace) -> None:
     source, options = demo_options()
     if not args.quiet:
         print(f"Demo scenario: {source}")
-    result = mine(source, progress=not args.quiet, **options)
-    out = result.write(args.out, force=args.force)
-    _report(result, out, args.quiet)
+    with _claimed(args, args.out, "mine", source) as held:
+        result = mine(source, progress=not args.quiet, **options)
+        out = result.write(args.out, force=args.force)
+    _report(result, out, args.quiet, held)
+
+
+class _Stopped(BaseException):
+    """A signal to stop (SIGTERM, SIGHUP): unwinds the run like KeyboardInterrupt."""
+
+    def __init__(self, signum: int) -> None:
+        super().__init__(signum)
+        self.signum = signum
+
+
+_STOP_SIGNALS = (signal.SIGINT, signal.SIGTERM, signal.SIGHUP)
+
+
+def _stop_workers() -> None:
+    """Kill the run's worker processes: none outlives the run, and their pools fail at once."""
+    import multiprocessing
+
+    for child in multiprocessing.active_children():
+        child.kill()
+
+
+@contextmanager
+def _stopping_on_signals() -> Iterator[None]:
+    """Turn SIGINT, SIGTERM and SIGHUP into exceptions that unwind the run and its cleanup.
+
+    The first signal kills the run's worker processes and raises
+    KeyboardInterrupt (SIGINT) or :class:`_Stopped`; later ones are ignored
+    while the run cleans up. A worker process forked with these handlers exits
+    at once, quietly. The previous handlers are restored afterwards.
+    """
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    home = os.getpid()
+    seen: list[int] = []
+
+    def stop(signum: int, _frame: Any) -> None:
+        if os.getpid() != home:
+            os._exit(128 + signum)
+        if seen:
+            return
+        seen.append(signum)
+        _stop_workers()
+        if signum == signal.SIGINT:
+            raise KeyboardInterrupt
+        raise _Stopped(signum)
+
+    old = {s: signal.signal(s, stop) for s in _STOP_SIGNALS}
+    try:
+        yield
+    finally:
+        for s, handler in old.items():
+            signal.signal(s, signal.SIG_DFL if handler is None else handler)
+
+
+def _left(args: argparse.Namespace) -> str:
+    """Return what a stopped run left: nothing, or a folder it had finished writing."""
+    done = [str(c.target) for c in args.claims if c.committed]
+    return f"{done[0]} had been written in full" if done else "nothing was written"
 
 
 def main(argv: list[str] | None = None) -> int:
-    """Run the ``comove`` command and return its exit status."""
+    """Run the ``comove`` command and return its exit status.
+
+    Errors in the input are one line and exit status 2. SIGINT, SIGTERM and
+    SIGHUP stop the run with one line and exit status 128 + the signal's
+    number (130, 143, 129), after its worker processes, temporary folders and
+    lock are removed.
+    """
     try:
         args = build_parser().parse_args(argv)
     except SystemExit as done:  # --help, --version, or a usage error already printed
         return int(done.code or 0)
+    args.claims = []
+    commands = {"mine": _run_mine, "groups": _run_groups, "sweep": _run_sweep,
+                "report": _run_report, "demo": _run_demo}  # fmt: skip
     try:
-        commands = {"mine": _run_mine, "groups": _run_groups, "sweep": _run_sweep,
-                    "report": _run_report, "demo": _run_demo}  # fmt: skip
-        commands[args.command](args)
+        with _stopping_on_signals():
+            commands[args.command](args)
     except InputError as err:
         print(f"comove {args.command}: error: {err.worded_for('--')}", file=sys.stderr)
         return EXIT_INPUT
     except KeyboardInterrupt:
-        print(f"comove {args.command}: interrupted; nothing was written", file=sys.stderr)
+        print(f"comove {args.command}: interrupted; {_left(args)}", file=sys.stderr)
         return 130
+    except _Stopped as stop:
+        name = signal.Signals(stop.signum).name
+        print(f"comove {args.command}: stopped by {name}; {_left(args)}", file=sys.stderr)
+        return 128 + stop.signum
     except OSError as err:
         where = f"{err.filename}: " if err.filename else ""
         print(f"comove {args.command}: error: {where}{err.strerror or err}", file=sys.stderr)

@@ -20,7 +20,11 @@ this machine. A distributed engine is a second implementation of the same
 
 from __future__ import annotations
 
+import ctypes
+import multiprocessing
 import os
+import signal
+import sys
 from collections.abc import Callable, Sequence
 from concurrent.futures import ProcessPoolExecutor, as_completed
 from dataclasses import dataclass, field, replace
@@ -66,9 +70,41 @@ class Engine(Protocol):
 
 _SHARED: dict[str, Any] = {}
 
+#: Linux prctl option: a signal for this process when its parent ends.
+_PR_SET_PDEATHSIG = 1
 
-def _take_shared(shared: Any) -> None:
-    """Keep the shared inputs in a worker process (its pool initializer)."""
+
+def _die_with_parent(parent: int | None) -> None:
+    """Have Linux kill this worker when the process that started it ends.
+
+    A pool's workers then never outlive the main process, even when it is
+    killed without a chance to stop them (SIGKILL, or SIGTERM with no
+    handler). ``parent`` is the expected parent process: if it has already
+    ended (before the request took effect), the worker ends at once.
+    """
+    if not sys.platform.startswith("linux"):
+        return
+    try:
+        libc = ctypes.CDLL(None, use_errno=True)
+        libc.prctl(_PR_SET_PDEATHSIG, int(signal.SIGKILL), 0, 0, 0)
+    except (OSError, AttributeError):  # no C library to ask: the pool's finally still stops it
+        return
+    if parent is not None and os.getppid() != parent:
+        os._exit(1)
+
+
+def _start_worker(shared: Any, parent: int | None) -> None:
+    """Prepare a worker process (its pool initializer) and keep the shared inputs.
+
+    The main process decides what an interruption means: a worker ignores
+    SIGINT (a Ctrl-C reaches the whole process group), ends quietly on
+    SIGTERM and SIGHUP (whatever handlers it inherited), and ends with its
+    parent.
+    """
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    signal.signal(signal.SIGTERM, signal.SIG_DFL)
+    signal.signal(signal.SIGHUP, signal.SIG_DFL)
+    _die_with_parent(parent)
     _SHARED["value"] = shared
 
 
@@ -76,6 +112,19 @@ def _run_batch(work: Work, tasks: Sequence[Any], first: int) -> tuple[int, list[
     """Run one batch of tasks in a worker and return where it starts and its results."""
     shared = _SHARED["value"]
     return first, [work(shared, task) for task in tasks]
+
+
+def _stop_pool(pool: ProcessPoolExecutor) -> None:
+    """End a pool's workers at once and wait for the pool to wind down.
+
+    The workers are terminated first; the pool's own manager thread then fails
+    the waiting tasks and cancels the rest (``cancel_futures``). Cancelling
+    them from this thread instead would race with that thread, which then
+    raises ``InvalidStateError`` on a cancelled task (Python 3.11).
+    """
+    for proc in list((getattr(pool, "_processes", None) or {}).values()):
+        proc.terminate()
+    pool.shutdown(wait=True, cancel_futures=True)
 
 
 def resolve_jobs(jobs: int | None) -> int:
@@ -161,22 +210,24 @@ class LocalEngine:
         n = len(tasks)
         size = max(1, n // (workers * BATCHES_PER_WORKER))
         results: list[Any] = [None] * n
+        # forked and spawned workers are children of this process; a fork server's are not
+        ours = multiprocessing.get_start_method() in ("fork", "spawn")
         with ProcessPoolExecutor(
-            max_workers=workers, initializer=_take_shared, initargs=(shared,)
-        ) as pool:
+            max_workers=workers, initializer=_start_worker,
+            initargs=(shared, os.getpid() if ours else None),
+        ) as pool:  # fmt: skip
             futures = [pool.submit(_run_batch, work, tasks[i : i + size], i)
                        for i in range(0, n, size)]  # fmt: skip
+            finished = False
             try:
                 for done in as_completed(futures):
                     first, block = done.result()
                     results[first : first + len(block)] = block
                     bar.update(len(block))
-            except BaseException:
-                for fut in futures:
-                    fut.cancel()
-                for proc in list(getattr(pool, "_processes", {}).values()):
-                    proc.terminate()
-                raise
+                finished = True
+            finally:
+                if not finished:  # an error or a signal: no worker may outlive the map
+                    _stop_pool(pool)
         return results
 
 

@@ -41,6 +41,7 @@ from comove.projection import working_to_input
 from comove.provenance import input_digest, run_record, settings_record
 from comove.reading import ColumnSpec, read_tracks
 from comove.results import (
+    CAUTION,
     csv_writer,
     geojson_writer,
     geoparquet_writer,
@@ -110,11 +111,6 @@ GROUP_STAGES: tuple[type, ...] = (
     ColumnSpec, CleanParams, AlignParams, GroupParams, EpisodeParams, SignificanceParams,
     RunParams,
 )  # fmt: skip
-
-CAUTION = (
-    "Positions of tracked people are personal data; co-location is association, "
-    "not interaction or cause; results are for analysis, not for real-time safety decisions."
-)
 
 
 def split_options(stages: tuple[type, ...], options: dict[str, Any]) -> list[Any]:

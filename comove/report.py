@@ -12,10 +12,7 @@ from __future__ import annotations
 
 import base64
 import html
-import json
 import os
-import shutil
-import tempfile
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -25,9 +22,20 @@ import pandas as pd
 
 from comove import figures
 from comove.errors import InputError
+from comove.results import (
+    CAUTION,
+    REPORT,
+    ResultsFolder,
+    bytes_writer,
+    claim,
+    open_results,
+    text_writer,
+)
 
-#: Files whose presence makes a folder a results folder.
-RESULT_FILES = ("patterns.csv", "episodes.csv")
+#: The report's page, beside the results.
+PAGE = "report.html"
+#: The report's figures, each written as ``figures/<name>.png``.
+FIGURE_NAMES = ("patterns_pi", "track_map", "episode_timeline", "dyad_matrix", "cross_l")
 #: Most role patterns drawn as timelines.
 TOP_PATTERNS = 8
 #: Most role patterns listed in the table.
@@ -38,12 +46,6 @@ MAP_EPISODES = 6
 TIMELINE_EPISODES = 40
 #: Most role pairs drawn as cross-L curves.
 CROSS_PAIRS = 6
-
-#: Shown when a run record carries no caution of its own.
-DEFAULT_CAUTION = (
-    "Positions of tracked people are personal data; co-location is association, "
-    "not interaction or cause; results are for analysis, not for real-time safety decisions."
-)
 
 _CSS = """
 body{font-family:"DejaVu Sans",Verdana,sans-serif;color:#222;background:#fff;margin:0 auto;
@@ -80,7 +82,7 @@ class _Picture:
 class _Results:
     """What a results folder holds (absent files are None or empty)."""
 
-    folder: Path
+    source: ResultsFolder
     runs: dict[str, dict] = field(default_factory=dict)
     quality: dict[str, dict] = field(default_factory=dict)
     patterns: pd.DataFrame | None = None
@@ -89,57 +91,15 @@ class _Results:
     dyads: pd.DataFrame | None = None
 
 
-def _by_command(content: dict) -> dict[str, dict]:
-    """Return run or quality content keyed by command."""
-    if "by_command" in content and isinstance(content["by_command"], dict):
-        return {str(k): v for k, v in content["by_command"].items() if isinstance(v, dict)}
-    if not content:
-        return {}
-    return {str(content.get("command", "run")): content}
-
-
-def _json(path: Path) -> dict:
-    """Return a JSON file's content, or an empty dict when absent."""
-    if not path.is_file():
-        return {}
-    try:
-        content = json.loads(path.read_text())
-    except (OSError, ValueError) as exc:
-        raise InputError(f"{path}: cannot be read as JSON ({exc}); rerun the command") from None
-    return content if isinstance(content, dict) else {}
-
-
-def _csv(path: Path) -> pd.DataFrame | None:
-    """Return a CSV file's table, or None when absent."""
-    if not path.is_file():
-        return None
-    try:
-        return pd.read_csv(path, keep_default_na=True)
-    except (OSError, ValueError) as exc:
-        reason = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
-        raise InputError(f"{path}: cannot be read as CSV ({reason}); rerun the command") from None
-
-
-def _parquet(path: Path, **kwargs: Any) -> pd.DataFrame:
-    """Return a Parquet file's table (an InputError when unreadable)."""
-    try:
-        return pd.read_parquet(path, **kwargs)
-    except (OSError, ValueError) as exc:
-        reason = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
-        raise InputError(
-            f"{path}: cannot be read as Parquet ({reason}); rerun the command"
-        ) from None
-
-
-def _load(folder: Path) -> _Results:
+def _load(source: ResultsFolder) -> _Results:
     """Return the tables and records of a results folder."""
-    res = _Results(folder)
-    res.runs = _by_command(_json(folder / "run.json"))
-    res.quality = _by_command(_json(folder / "quality.json"))
-    res.patterns = _csv(folder / "patterns.csv")
-    res.cross_k = _csv(folder / "cross_k.csv")
-    res.episodes = _csv(folder / "episodes.csv")
-    res.dyads = _csv(folder / "dyads.csv")
+    res = _Results(source)
+    res.runs = source.runs()
+    res.quality = source.quality()
+    res.patterns = source.table("patterns.csv")
+    res.cross_k = source.table("cross_k.csv")
+    res.episodes = source.table("episodes.csv")
+    res.dyads = source.table("dyads.csv")
     return res
 
 
@@ -235,7 +195,7 @@ def _run_section(res: _Results) -> str:
     """Return the section on the run: input, settings, versions, data quality, caution."""
     parts = ["<h2>The run</h2>"]
     cautions = {str(r.get("caution")) for r in res.runs.values() if r.get("caution")}
-    for text in sorted(cautions) or [DEFAULT_CAUTION]:
+    for text in sorted(cautions) or [CAUTION]:
         parts.append(f'<p class="caution">Caution: {_e(text)}</p>')
     if not res.runs:
         parts.append('<p class="muted">No run.json in the folder.</p>')
@@ -404,17 +364,17 @@ def _patterns_section(res: _Results) -> tuple[str, list[_Picture]]:
         parts.append(f'<p class="muted">The top {TABLE_PATTERNS} of {len(patterns):,} '
                      "patterns; all are in patterns.csv.</p>")  # fmt: skip
     parts.append(_table(header, rows, numeric))
-    series_path = res.folder / "pi_series.parquet"
-    if not series_path.is_file():
+    name = "pi_series.parquet"
+    if not res.source.has(name):
         return "\n".join(parts), []
     top = [str(r) for r in patterns["roles"].head(TOP_PATTERNS)]
     columns = ["roles", "time", "participation_index", "prevalent"]
     try:
-        series = _parquet(series_path, columns=columns, filters=[("roles", "in", top)])
+        series = res.source.parquet(name, columns=columns, filters=[("roles", "in", top)])
     except (InputError, NotImplementedError, TypeError):  # a reader without filter support
-        series = _parquet(series_path, columns=columns)
+        series = res.source.parquet(name, columns=columns)
         series = series[series["roles"].astype(str).isin(top)]
-    if series.empty:
+    if series is None or series.empty:
         return "\n".join(parts), []
     threshold = (_mine_settings(res).get("ColocationParams") or {}).get("min_participation")
     start, end, step = _period(res, series["time"])
@@ -451,22 +411,16 @@ def _top_episodes(episodes: pd.DataFrame, n: int) -> pd.DataFrame:
 
 def _map_section(res: _Results, max_points: int) -> tuple[str, list[_Picture]]:
     """Return the map of the track sample with the longest episodes' paths."""
-    sample_path = res.folder / "track_sample.parquet"
-    paths_path = res.folder / "episode_paths.parquet"
-    sample = _parquet(sample_path, columns=["x", "y"]) if sample_path.is_file() else None
+    sample = res.source.parquet("track_sample.parquet", columns=["x", "y"])
     stored_every = 1
     if sample is not None:
         stored_every = int(sample.attrs.get("every", 1) or 1)
-    paths = coords = None
-    if paths_path.is_file() and res.episodes is not None and len(res.episodes):
-        import geopandas as gpd
+    paths = coords = geo = None
+    if res.episodes is not None and len(res.episodes):
+        geo = res.source.geoparquet("episode_paths.parquet")
+    if geo is not None:
         import shapely
 
-        try:
-            geo = gpd.read_parquet(paths_path)
-        except (OSError, ValueError) as exc:
-            raise InputError(f"{paths_path}: cannot be read as GeoParquet ({exc}); rerun "
-                             "comove groups") from None  # fmt: skip
         chosen = _top_episodes(res.episodes, MAP_EPISODES)["episode"].astype(str)
         geo = geo.assign(episode=geo["episode"].astype(str)).set_index("episode")
         chosen = [e for e in chosen if e in geo.index]
@@ -580,44 +534,6 @@ def _page(title: str, body: str) -> str:
     )
 
 
-def _write_atomically(folder: Path, page: str, pictures: list[_Picture]) -> Path:
-    """Write the figures folder and then the report, each replaced in one step.
-
-    On failure the previous figures folder and report are left as they were.
-    """
-    report = folder / "report.html"
-    fig_dir = folder / "figures"
-    tmp_dir = Path(tempfile.mkdtemp(prefix=".figures.partial-", dir=folder))
-    tmp_fd, tmp_name = tempfile.mkstemp(prefix=".report.partial-", suffix=".html", dir=folder)
-    tmp_report = Path(tmp_name)
-    old_dir: Path | None = None
-    swapped = False
-    try:
-        for pic in pictures:
-            (tmp_dir / f"{pic.name}.png").write_bytes(pic.png.data)
-        with os.fdopen(tmp_fd, "w", encoding="utf-8") as fh:
-            fh.write(page)
-        os.chmod(tmp_report, 0o644)
-        if fig_dir.exists():
-            old_dir = Path(tempfile.mkdtemp(prefix=".figures.old-", dir=folder))
-            old_dir.rmdir()
-            fig_dir.rename(old_dir)
-        tmp_dir.rename(fig_dir)
-        swapped = True
-        os.replace(tmp_report, report)
-    except BaseException:
-        if swapped:
-            shutil.rmtree(fig_dir, ignore_errors=True)
-        if old_dir is not None and old_dir.exists():
-            old_dir.rename(fig_dir)
-        shutil.rmtree(tmp_dir, ignore_errors=True)
-        tmp_report.unlink(missing_ok=True)
-        raise
-    if old_dir is not None:
-        shutil.rmtree(old_dir, ignore_errors=True)
-    return report
-
-
 def build_report(folder: str | os.PathLike, *, max_points: int = 50_000) -> Path:
     """Write ``report.html`` and ``figures/*.png`` for a results folder and return the report.
 
@@ -649,23 +565,30 @@ def build_report(folder: str | os.PathLike, *, max_points: int = 50_000) -> Path
     episodes' paths; a timeline of episodes; the dyad association matrix;
     cross-L curves with envelopes. The page is one self-contained file (PNG
     data URIs, inline CSS, no scripts); every text from the data is
-    HTML-escaped. Both the figures folder and the report are written to
-    temporary names and renamed into place, so a failure leaves the previous
-    report (or none), never half of one.
+    HTML-escaped. The folder is locked while the report is built, and the
+    page and figures are written through :func:`comove.results.claim`: staged
+    under temporary names and renamed into place, figures first, so a failure
+    leaves the previous report (or none), never half of one. Only the report's
+    own files are replaced: anything else in ``figures/`` is kept.
     """
-    path = Path(folder)
-    if not path.is_dir() or not any((path / name).is_file() for name in RESULT_FILES):
-        raise InputError(
-            f"{path}: no comove results found (patterns.csv or episodes.csv); "
-            "run comove mine or comove groups first"
-        )
-    res = _load(path)
+    source = open_results(folder)
+    owned = (PAGE, *(f"figures/{name}.png" for name in FIGURE_NAMES))  # older comove's report
+    with claim(source.path, command=REPORT, owned=owned) as held:
+        page, pictures = _assemble(_load(source), max_points)
+        files = {f"figures/{pic.name}.png": bytes_writer(pic.png.data) for pic in pictures}
+        files[PAGE] = text_writer(page)
+        held.commit(files)
+    return source.path / PAGE
+
+
+def _assemble(res: _Results, max_points: int) -> tuple[str, list[_Picture]]:
+    """Return the report's page and its figures."""
     body = [_run_section(res)]
     pictures: list[_Picture] = []
     builders: list[Any] = []
     if res.patterns is not None:
         builders.append(lambda: _patterns_section(res))
-    if (path / "track_sample.parquet").is_file() or (path / "episode_paths.parquet").is_file():
+    if res.source.has("track_sample.parquet") or res.source.has("episode_paths.parquet"):
         builders.append(lambda: _map_section(res, max_points))
     if res.episodes is not None:
         builders.append(lambda: _timeline_section(res))
@@ -676,5 +599,5 @@ def build_report(folder: str | os.PathLike, *, max_points: int = 50_000) -> Path
             body.append(html_part)
             pictures += pics
     commands = " and ".join(f"comove {c}" for c in res.runs) or "comove"
-    page = _page(f"Results of {commands}: {path.resolve().name}", "\n".join(body))
-    return _write_atomically(path, page, pictures)
+    title = f"Results of {commands}: {res.source.path.resolve().name}"
+    return _page(title, "\n".join(body)), pictures

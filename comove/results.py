@@ -1,19 +1,40 @@
-"""Write a results folder atomically: all of it or nothing, never half.
+"""The results folder: written whole or not at all, read back, never a user's file lost.
 
-Files are written into a hidden sibling folder that is renamed into place only
-when every file is complete. An existing folder is replaced only when the
-caller asks (``force``), and then only after the new one is complete.
+This module alone knows the folder's format (see ``docs/results-folder.md``):
+
+- **Writing.** :func:`claim` takes a folder for one run before anything is
+  computed: it refuses a folder comove may not write, and holds a lock file
+  (created exclusively, naming the run's process) so that two runs never write
+  one folder at once. :func:`write_folder` writes the files within a claim (or
+  claims the folder itself): a new folder is built in a hidden sibling and
+  renamed into place; files added to an existing folder are staged in a hidden
+  folder inside it and renamed into place, and the folder's record of what
+  comove wrote there (:data:`MANIFEST`) is updated last.
+- **Reading.** :class:`ResultsFolder` returns the run records and quality
+  reports per command and the tables; :func:`run_records` reads a ``run.json``.
+- **Merging by command.** ``run.json`` and ``quality.json`` of several commands
+  in one folder are combined as ``{"by_command": {command: content}}``.
+
+A folder is comove's when it holds :data:`MANIFEST`; comove replaces or removes
+only the files listed there, and never a folder holding anything else
+(``--force``) or an input file of the run.
 """
 
 from __future__ import annotations
 
 import json
 import os
+import secrets
 import shutil
-import tempfile
-from collections.abc import Callable, Mapping
+import signal
+import socket
+import threading
+import time
+from collections.abc import Callable, Iterable, Iterator, Mapping
 from concurrent.futures import ThreadPoolExecutor
-from pathlib import Path
+from contextlib import contextmanager, suppress
+from dataclasses import dataclass, field
+from pathlib import Path, PurePosixPath
 from typing import Any
 
 import numpy as np
@@ -22,6 +43,34 @@ import pandas as pd
 from comove.errors import InputError
 
 Writer = Callable[[Path], None]
+
+#: Printed by the commands and recorded in every run.json.
+CAUTION = (
+    "Positions of tracked people are personal data; co-location is association, "
+    "not interaction or cause; results are for analysis, not for real-time safety decisions."
+)
+#: The folder's record of the files comove wrote into it, per command.
+MANIFEST = ".comove-folder.json"
+#: Version of the record's layout.
+MANIFEST_FORMAT = 1
+#: The command name under which the report's files are recorded.
+REPORT = "report"
+#: Files whose presence makes a folder a results folder of ``mine`` or ``groups``.
+RESULT_FILES = ("patterns.csv", "episodes.csv")
+#: Files that two commands' results in one folder share, combined per command.
+SHARED_JSON = ("run.json", "quality.json")
+#: Files both commands write with the same content for one input: the newer is kept.
+SHARED_SAME = ("track_sample.parquet",)
+
+_LOCK = ".comove-lock"  # inside an existing folder; beside a new one: .<name>.comove-lock
+_TAKEOVER = ".takeover"  # suffix of the lock's guard while a stale lock is removed
+_NEW = ".comove-new-"  # a new folder being built beside: .<name>.comove-new-<pid>-<hex>
+_STAGING = ".comove-staging-"  # files being staged inside: .comove-staging-<pid>-<hex>
+_HOST = socket.gethostname()
+_HELD_SIGNALS = (signal.SIGINT, signal.SIGTERM, signal.SIGHUP)
+
+
+# ---------------------------------------------------------------- writers
 
 
 def _plain(value: Any) -> Any:
@@ -56,26 +105,22 @@ class json_writer:  # noqa: N801 - used like the other writer factories
         path.write_text(json.dumps(_plain(self.content), indent=2, allow_nan=False) + "\n")
 
 
-#: Files that two commands' results in one folder share, combined per command.
-SHARED_JSON = ("run.json", "quality.json")
-#: Files both commands write with the same content for one input: the newer is kept.
-SHARED_SAME = ("track_sample.parquet",)
+def text_writer(text: str) -> Writer:
+    """Return a writer of ``text`` as UTF-8."""
+
+    def write(path: Path) -> None:
+        path.write_text(text, encoding="utf-8")
+
+    return write
 
 
-def _combined(existing: dict, new: dict, command: str, prior: str) -> dict:
-    """Return ``existing`` (made by ``prior``) and ``new`` JSON content keyed by command."""
-    merged = dict(existing["by_command"]) if "by_command" in existing else {prior: existing}
-    merged[command] = new
-    return {"by_command": merged}
+def bytes_writer(data: bytes) -> Writer:
+    """Return a writer of ``data`` as they are."""
 
+    def write(path: Path) -> None:
+        path.write_bytes(data)
 
-def _prior_command(folder: Path) -> str:
-    """Return the command that made a results folder, from its run.json."""
-    try:
-        run = json.loads((folder / "run.json").read_text())
-    except (OSError, ValueError):
-        return "earlier"
-    return str(run.get("command", "earlier"))
+    return write
 
 
 def _iso_times(frame: pd.DataFrame) -> pd.DataFrame:
@@ -164,6 +209,772 @@ def _run_writers(jobs: list[tuple[Writer, Path]]) -> None:
             done.result()
 
 
+# ---------------------------------------------------------------- merging by command
+
+
+def by_command(content: Mapping[str, Any]) -> dict[str, dict]:
+    """Return run or quality content keyed by command.
+
+    A folder written by one command holds that command's record itself; a
+    folder written by several holds ``{"by_command": {command: record}}``.
+    """
+    if "by_command" in content and isinstance(content["by_command"], dict):
+        return {str(k): v for k, v in content["by_command"].items() if isinstance(v, dict)}
+    if not content:
+        return {}
+    return {str(content.get("command", "run")): dict(content)}
+
+
+def _combined(existing: dict, new: dict, command: str, prior: str) -> dict:
+    """Return ``existing`` (made by ``prior``) and ``new`` JSON content keyed by command."""
+    merged = dict(existing["by_command"]) if "by_command" in existing else {prior: existing}
+    merged[command] = new
+    return {"by_command": merged}
+
+
+def _prior_command(folder: Path) -> str:
+    """Return the command that made a results folder, from its run.json."""
+    try:
+        run = json.loads((folder / "run.json").read_text())
+    except (OSError, ValueError):
+        return "earlier"
+    return str(run.get("command", "earlier"))
+
+
+# ---------------------------------------------------------------- reading
+
+
+def _read_json(path: Path, advice: str) -> dict:
+    """Return a JSON file's object, or an empty dict when the file is absent."""
+    if not path.is_file():
+        return {}
+    try:
+        content = json.loads(path.read_text())
+    except (OSError, ValueError) as exc:
+        reason = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+        raise InputError(f"{path}: cannot be read as JSON ({reason}); {advice}") from None
+    return content if isinstance(content, dict) else {}
+
+
+def run_records(path: str | os.PathLike[str]) -> dict[str, dict]:
+    """Return the run records of a ``run.json`` (or of a results folder), keyed by command.
+
+    Raises
+    ------
+    InputError
+        When the file cannot be read as JSON.
+    """
+    p = Path(path)
+    if p.is_dir():
+        p = p / "run.json"
+    return by_command(_read_json(p, "give a run.json written by comove"))
+
+
+class ResultsFolder:
+    """Read access to a results folder; every absent file reads as None (or empty).
+
+    Parameters
+    ----------
+    folder : path
+        The folder. See :func:`open_results` for one that must hold results.
+    """
+
+    def __init__(self, folder: str | os.PathLike[str]) -> None:
+        self.path = Path(folder)
+
+    def has(self, name: str) -> bool:
+        """Return whether the folder holds the file ``name``."""
+        return (self.path / name).is_file()
+
+    def runs(self) -> dict[str, dict]:
+        """Return the run records (``run.json``) keyed by command."""
+        return by_command(_read_json(self.path / "run.json", "rerun the command"))
+
+    def quality(self) -> dict[str, dict]:
+        """Return the data-quality reports (``quality.json``) keyed by command."""
+        return by_command(_read_json(self.path / "quality.json", "rerun the command"))
+
+    def table(self, name: str) -> pd.DataFrame | None:
+        """Return the CSV table ``name``, or None when absent."""
+        path = self.path / name
+        if not path.is_file():
+            return None
+        try:
+            return pd.read_csv(path, keep_default_na=True)
+        except (OSError, ValueError) as exc:
+            raise InputError(f"{path}: cannot be read as CSV ({_first_line(exc)}); "
+                             "rerun the command") from None  # fmt: skip
+
+    def parquet(self, name: str, **kwargs: Any) -> pd.DataFrame | None:
+        """Return the Parquet table ``name`` (``kwargs`` to pandas), or None when absent."""
+        path = self.path / name
+        if not path.is_file():
+            return None
+        try:
+            return pd.read_parquet(path, **kwargs)
+        except (OSError, ValueError) as exc:
+            raise InputError(f"{path}: cannot be read as Parquet ({_first_line(exc)}); "
+                             "rerun the command") from None  # fmt: skip
+
+    def geoparquet(self, name: str) -> Any:
+        """Return the GeoParquet table ``name`` as a GeoDataFrame, or None when absent."""
+        path = self.path / name
+        if not path.is_file():
+            return None
+        import geopandas as gpd
+
+        try:
+            return gpd.read_parquet(path)
+        except (OSError, ValueError) as exc:
+            raise InputError(f"{path}: cannot be read as GeoParquet ({_first_line(exc)}); "
+                             "rerun the command") from None  # fmt: skip
+
+
+def _first_line(exc: BaseException) -> str:
+    return str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+
+
+def open_results(folder: str | os.PathLike[str]) -> ResultsFolder:
+    """Return a results folder of ``comove mine`` and/or ``comove groups`` for reading.
+
+    Raises
+    ------
+    InputError
+        When ``folder`` does not exist or holds neither ``patterns.csv`` nor
+        ``episodes.csv``, or when an earlier run was cut off while writing it.
+    """
+    path = Path(folder)
+    if not path.is_dir() or not any((path / name).is_file() for name in RESULT_FILES):
+        raise InputError(
+            f"{path}: no comove results found (patterns.csv or episodes.csv); "
+            "run comove mine or comove groups first"
+        )
+    record = read_manifest(path)
+    if record is not None and not record.complete:
+        raise InputError(f"{path}: an earlier comove run was cut off while writing it; "
+                         "rerun that command with --force")  # fmt: skip
+    return ResultsFolder(path)
+
+
+# ---------------------------------------------------------------- the folder's record
+
+
+@dataclass
+class Manifest:
+    """What comove wrote into a results folder: relative file paths per command."""
+
+    files: dict[str, list[str]] = field(default_factory=dict)
+    complete: bool = True
+
+    def listed(self) -> set[str]:
+        """Return every file comove wrote, whichever command."""
+        return {name for names in self.files.values() for name in names}
+
+    def text(self) -> str:
+        """Return the record as JSON text."""
+        files = {c: sorted(set(names)) for c, names in sorted(self.files.items()) if names}
+        content = {"comove_results_folder": MANIFEST_FORMAT, "complete": self.complete,
+                   "files": files}  # fmt: skip
+        return json.dumps(content, indent=2) + "\n"
+
+
+def _safe_name(name: object) -> bool:
+    """Return whether ``name`` is a plain relative path inside a folder."""
+    if not isinstance(name, str) or not name or "\\" in name:
+        return False
+    parts = PurePosixPath(name).parts
+    return (
+        not name.startswith("/")
+        and all(p not in ("", ".", "..") for p in parts)
+        and (parts[0] != MANIFEST and not parts[0].startswith((_STAGING, _LOCK)))
+    )
+
+
+def read_manifest(folder: str | os.PathLike[str]) -> Manifest | None:
+    """Return the record of what comove wrote into ``folder``, or None when it has none.
+
+    Raises
+    ------
+    InputError
+        When the record cannot be read or names a path outside the folder.
+    """
+    path = Path(folder) / MANIFEST
+    if not path.is_file():
+        return None
+    try:
+        raw = json.loads(path.read_text())
+        files = {str(c): list(names) for c, names in raw["files"].items()}
+    except (OSError, ValueError, KeyError, TypeError, AttributeError):
+        files = None
+    if files is None or not all(_safe_name(n) for names in files.values() for n in names):
+        raise InputError(f"{path}: comove's record of this folder is damaged; remove the "
+                         "folder yourself or choose another --out")  # fmt: skip
+    return Manifest(files, bool(raw.get("complete", True)))
+
+
+# ---------------------------------------------------------------- processes and the lock
+
+
+def _alive(pid: int) -> bool:
+    """Return whether process ``pid`` of this host is running (a zombie is not)."""
+    if pid <= 0:
+        return False
+    try:
+        os.kill(pid, 0)
+    except (ProcessLookupError, OverflowError):
+        return False
+    except PermissionError:  # another user's process
+        return True
+    try:
+        state = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()[0]
+    except (OSError, IndexError):
+        return True
+    return state not in ("Z", "X")
+
+
+def _owner(path: Path) -> dict | None:
+    """Return the run named in a lock file: {} when the file is gone, None when unreadable."""
+    try:
+        raw = json.loads(path.read_text())
+    except FileNotFoundError:
+        return {}
+    except (OSError, ValueError):
+        return None
+    return raw if isinstance(raw, dict) and isinstance(raw.get("pid"), int) else None
+
+
+def _stale(owner: dict) -> bool:
+    """Return whether the run named in a lock file has ended (known only on this host)."""
+    return owner.get("host") == _HOST and not _alive(owner["pid"])
+
+
+def _settled_owner(path: Path) -> dict | None:
+    """Return the run named in a lock file, waiting a moment for one being written."""
+    for _ in range(10):
+        owner = _owner(path)
+        if owner is not None:
+            return owner
+        time.sleep(0.05)
+    return None
+
+
+def _create(path: Path, content: str) -> bool:
+    """Create ``path`` holding ``content`` if it does not exist yet; return whether it did."""
+    try:
+        fd = os.open(path, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o644)
+    except FileExistsError:
+        return False
+    with os.fdopen(fd, "w") as fh:
+        fh.write(content)
+    return True
+
+
+def _owner_text(token: str) -> str:
+    return json.dumps({"pid": os.getpid(), "host": _HOST, "token": token,
+                       "since": time.strftime("%Y-%m-%dT%H:%M:%S%z")}) + "\n"  # fmt: skip
+
+
+def _take_lock(lock: Path, shown: Path) -> str:
+    """Create the lock file ``lock`` for this process and return its token.
+
+    A lock naming a process of this host that has ended is removed first; a
+    lock of a running process (or of another host) is an InputError naming it.
+    """
+    token = secrets.token_hex(8)
+    for _ in range(20):
+        if _create(lock, _owner_text(token)):
+            return token
+        owner = _settled_owner(lock)
+        if owner == {}:  # released meanwhile
+            continue
+        if owner is None:
+            raise InputError(f"{shown}: another comove run may be writing it ({lock} names no "
+                             f"run); if none is running, delete {lock}")  # fmt: skip
+        if not _stale(owner):
+            where = "" if owner.get("host") == _HOST else f" on {owner.get('host')}"
+            raise InputError(f"{shown}: another comove run (PID {owner['pid']}{where}) is "
+                             "writing it; wait for it to end or choose another --out "
+                             f"(its lock: {lock})")  # fmt: skip
+        _remove_stale_lock(lock, owner)
+    raise InputError(f"{shown}: other comove runs keep taking it; try again")
+
+
+def _remove_stale_lock(lock: Path, owner: dict) -> None:
+    """Remove a lock whose run has ended, unless another run replaced it meanwhile.
+
+    Runs that find the same stale lock take turns through a guard file, and each
+    removes the lock only if it still names the ended run.
+    """
+    guard = lock.with_name(lock.name + _TAKEOVER)
+    if not _create(guard, _owner_text("takeover")):
+        taker = _owner(guard)
+        if taker == {}:
+            return
+        aged = taker is None and time.time() - _mtime(guard) > 10
+        if aged or (taker and _stale(taker)):
+            guard.unlink(missing_ok=True)
+        else:
+            time.sleep(0.05)
+        return
+    try:
+        if _owner(lock) == owner:
+            lock.unlink(missing_ok=True)
+    finally:
+        guard.unlink(missing_ok=True)
+
+
+def _mtime(path: Path) -> float:
+    try:
+        return path.stat().st_mtime
+    except OSError:
+        return time.time()
+
+
+@contextmanager
+def _signals_held() -> Iterator[None]:
+    """Hold SIGINT, SIGTERM and SIGHUP during a short step; deliver them after it.
+
+    The signals are blocked in this thread (``pthread_sigmask``), and one that
+    reaches another thread is recorded instead of interrupting the step. Off
+    the main thread, Python's handlers never interrupt the step anyway.
+    """
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    caught: list[int] = []
+    old_mask = signal.pthread_sigmask(signal.SIG_BLOCK, _HELD_SIGNALS)
+    old = {s: signal.signal(s, lambda n, _frame: caught.append(n)) for s in _HELD_SIGNALS}
+    try:
+        yield
+    finally:
+        pending = signal.sigpending()
+        for s, handler in old.items():
+            signal.signal(s, signal.SIG_DFL if handler is None else handler)
+        signal.pthread_sigmask(signal.SIG_SETMASK, old_mask)
+        for n in dict.fromkeys(caught):
+            if n not in pending:
+                signal.raise_signal(n)
+
+
+# ---------------------------------------------------------------- claiming and writing
+
+
+def _some(names: list[str]) -> str:
+    """Return the first names of a list, and how many more there are."""
+    shown = ", ".join(names[:3])
+    return shown + (f" and {len(names) - 3} more" if len(names) > 3 else "")
+
+
+def _ours(name: str) -> bool:
+    """Return whether a top-level entry of a folder is comove's bookkeeping."""
+    return name == MANIFEST or name.startswith((_STAGING, _LOCK))
+
+
+def _foreign(folder: Path, listed: set[str]) -> list[str]:
+    """Return what ``folder`` holds that is not listed (folders end with ``/``)."""
+    needed = {str(p) for name in listed for p in PurePosixPath(name).parents if str(p) != "."}
+    found: list[str] = []
+    todo = [""]
+    while todo:
+        prefix = todo.pop()
+        with os.scandir(folder / prefix if prefix else folder) as entries:
+            for entry in entries:
+                rel = prefix + entry.name
+                if not prefix and _ours(entry.name):
+                    continue
+                if entry.is_dir(follow_symlinks=False):
+                    if rel in needed:
+                        todo.append(rel + "/")
+                    else:
+                        found.append(rel + "/")
+                elif rel not in listed:
+                    found.append(rel)
+    return sorted(found)
+
+
+def _pid_of(name: str, prefix: str) -> int | None:
+    """Return the process id in a staging folder's name, or None."""
+    head = name[len(prefix) :].split("-", 1)[0]
+    return int(head) if name.startswith(prefix) and head.isdigit() else None
+
+
+def _preserve(path: Path, copy: Path) -> None:
+    """Keep the current file ``path`` as ``copy`` (a hard link, else a copy)."""
+    copy.parent.mkdir(parents=True, exist_ok=True)
+    try:
+        os.link(path, copy, follow_symlinks=False)
+    except OSError:
+        shutil.copy2(path, copy, follow_symlinks=False)
+
+
+class Claim:
+    """The right to write one results folder, held by one run (see :func:`claim`)."""
+
+    def __init__(
+        self,
+        out: str | os.PathLike[str],
+        command: str,
+        force: bool,
+        merge: bool,
+        inputs: Iterable[str | os.PathLike[str]],
+        owned: Iterable[str],
+    ) -> None:
+        self.target = Path(out)
+        self.path = Path(os.path.abspath(out))
+        if not self.path.name:
+            raise InputError(f"{out}: cannot be a results folder; choose another --out")
+        self.command, self.force, self.merge = command, force, merge
+        self.inputs = tuple(Path(os.path.realpath(p)) for p in inputs)
+        self.owned = frozenset(owned)
+        #: Whether this claim's files are in place.
+        self.committed = False
+        #: Whether writing removed a report that described the folder's earlier results.
+        self.report_removed = False
+        self._lock: Path | None = None
+        self._token = ""
+        self._made: list[Path] = []
+        self._staging: list[Path] = []
+
+    # -- checks
+
+    def check(self) -> Manifest | None:
+        """Refuse a folder this run may not write; return its record (None: new or unmarked).
+
+        Raises
+        ------
+        InputError
+            When the target is a file; exists without ``force`` or ``merge``;
+            holds an input of the run that could be replaced; has no record
+            but holds something; holds files comove did not write (``force``
+            without ``merge``); already holds this command's results (``merge``
+            without ``force``); or was left incomplete (without ``force``).
+        """
+        out = self.target
+        if not os.path.lexists(self.path):
+            return None
+        if not self.path.is_dir():
+            raise InputError(f"{out}: exists and is not a folder; choose another --out")
+        record = read_manifest(self.path)
+        if self.command == REPORT:
+            return record
+        if not (self.force or self.merge):
+            raise InputError(f"{out}: already exists; choose another --out, add --force to "
+                             "replace it or --merge to add to it")  # fmt: skip
+        self._refuse_inputs(record)
+        foreign = _foreign(self.path, record.listed() if record else set())
+        if record is None:
+            if foreign:
+                raise InputError(
+                    f"{out}: holds files but no record of what comove wrote there (an older "
+                    "comove's folder, or not comove's), so it is left untouched; remove it "
+                    "yourself or choose another --out"
+                )
+            return None
+        if not record.complete and not self.force:
+            raise InputError(f"{out}: an earlier comove run was cut off while writing it; add "
+                             "--force to replace its files")  # fmt: skip
+        if self.force and not self.merge and foreign:
+            raise InputError(f"{out}: holds {_some(foreign)}, which comove did not write, so "
+                             "--force will not replace it; move them out or choose another "
+                             "--out")  # fmt: skip
+        mine = sorted(record.files.get(self.command, []))
+        if self.merge and not self.force and mine:
+            raise InputError(f"{out}: already holds {self.command} results ({_some(mine)}); "
+                             "add --force to replace them")  # fmt: skip
+        return record
+
+    def _refuse_inputs(self, record: Manifest | None) -> None:
+        """Refuse a folder holding an input of the run that this write could replace."""
+        root = Path(os.path.realpath(self.path))
+        listed = record.listed() if record else set()
+        for source in self.inputs:
+            try:
+                rel = source.relative_to(root).as_posix()
+            except ValueError:
+                continue
+            if (self.force and not self.merge) or rel in listed:
+                raise InputError(f"{self.target}: holds {rel}, an input of this run, which "
+                                 "comove never replaces; choose another --out")  # fmt: skip
+
+    # -- the lock and leftovers
+
+    def lock(self) -> None:
+        """Take the folder's lock (inside it when it exists, else beside it)."""
+        if self.path.is_dir():
+            lock = self.path / _LOCK
+        else:
+            missing = [p for p in (self.path.parent, *self.path.parent.parents) if not p.exists()]
+            for folder in reversed(missing):
+                folder.mkdir(exist_ok=True)
+                self._made.append(folder)
+            lock = self.path.parent / f".{self.path.name}{_LOCK}"
+        self._token = _take_lock(lock, self.target)
+        self._lock = lock
+
+    def clear_leftovers(self) -> None:
+        """Remove the staging folders of comove runs that ended without cleaning up."""
+        places = [(self.path.parent, f".{self.path.name}{_NEW}")]
+        if self.path.is_dir():
+            places.append((self.path, _STAGING))
+        for where, prefix in places:
+            stale: list[str] = []
+            with suppress(OSError), os.scandir(where) as entries:
+                for entry in entries:
+                    pid = _pid_of(entry.name, prefix)
+                    if pid is not None and entry.is_dir(follow_symlinks=False) and not _alive(pid):
+                        stale.append(entry.path)
+            for path in stale:
+                shutil.rmtree(path, ignore_errors=True)
+
+    def release(self) -> None:
+        """Remove this run's staging folders and lock, and parents made for nothing."""
+        with _signals_held():
+            for staging in self._staging:
+                shutil.rmtree(staging, ignore_errors=True)
+            if self._lock is not None and (_owner(self._lock) or {}).get("token") == self._token:
+                self._lock.unlink(missing_ok=True)
+            if not self.committed:
+                for folder in reversed(self._made):
+                    with suppress(OSError):
+                        folder.rmdir()
+
+    def _new_staging(self, where: Path, prefix: str) -> Path:
+        """Create and return a hidden staging folder named after this process."""
+        while True:
+            path = where / f"{prefix}{os.getpid()}-{secrets.token_hex(4)}"
+            try:
+                os.mkdir(path, 0o777)
+            except FileExistsError:
+                continue
+            self._staging.append(path)
+            return path
+
+    # -- writing
+
+    def commit(self, files: Mapping[str, Writer]) -> Path:
+        """Write ``files`` (relative name -> writer) into the folder in one step.
+
+        Returns
+        -------
+        Path
+            The folder, as given.
+        """
+        record = self.check()
+        if not os.path.lexists(self.path):
+            self._write_new(files)
+        else:
+            self._write_into(files, record)
+        return self.target
+
+    def _write_new(self, files: Mapping[str, Writer]) -> None:
+        """Build the folder in a hidden sibling and rename it into place."""
+        staging = self._new_staging(self.path.parent, f".{self.path.name}{_NEW}")
+        jobs = []
+        for name, write in files.items():
+            (staging / name).parent.mkdir(parents=True, exist_ok=True)
+            jobs.append((write, staging / name))
+        _run_writers(jobs)
+        (staging / MANIFEST).write_text(Manifest({self.command: list(files)}).text())
+        with _signals_held():
+            if os.path.lexists(self.path):
+                raise InputError(f"{self.target}: appeared while this run was computing; "
+                                 "choose another --out")  # fmt: skip
+            os.rename(staging, self.path)
+            self._staging.remove(staging)
+            self.committed = True
+
+    def _write_into(self, files: Mapping[str, Writer], record: Manifest | None) -> None:
+        """Stage the files inside the folder, then move them into place."""
+        unmarked = record is None
+        old = record or Manifest()
+        listed = old.listed() | (self.owned if unmarked else set())
+        names = list(files)
+        in_the_way = [n for n in names if os.path.lexists(self.path / n) and n not in listed]
+        if in_the_way:
+            raise InputError(f"{self.target}: holds {_some(in_the_way)}, which comove did not "
+                             "write; move it away or choose another --out")  # fmt: skip
+        new = self._next_record(old, names)
+        obsolete = sorted(n for n in listed - new.listed() if os.path.lexists(self.path / n))
+        self.report_removed = self.command != REPORT and bool(old.files.get(REPORT))
+        staging = self._new_staging(self.path, _STAGING)
+        jobs = []
+        for name, write in files.items():
+            (staging / name).parent.mkdir(parents=True, exist_ok=True)
+            jobs.append((self._merged(name, write, old), staging / name))
+        _run_writers(jobs)
+        interim = None  # the report in an older comove's folder leaves it without a record
+        if not (unmarked and self.command == REPORT):
+            both = {*old.files, *new.files}
+            interim = Manifest({c: [*old.files.get(c, []), *new.files.get(c, [])] for c in both},
+                               complete=False)  # fmt: skip
+        if interim is not None:
+            (staging / MANIFEST).write_text(new.text())
+        self._swap_in(staging, names, obsolete, interim)
+
+    def _next_record(self, old: Manifest, names: list[str]) -> Manifest:
+        """Return the folder's record once ``names`` are written by this command."""
+        if self.command == REPORT:
+            return Manifest({**old.files, REPORT: names})
+        if self.merge:
+            kept = {c: n for c, n in old.files.items() if c not in (REPORT, self.command)}
+            return Manifest({**kept, self.command: names})
+        return Manifest({self.command: names})
+
+    def _merged(self, name: str, write: Writer, old: Manifest) -> Writer:
+        """Return the writer of ``name``, combined by command with the folder's copy."""
+        current = self.path / name
+        content = getattr(write, "content", None)
+        if (self.merge and name in SHARED_JSON and name in old.listed() and current.is_file()
+                and content is not None):  # fmt: skip
+            existing = _read_json(current, "rerun the command that wrote it with --force")
+            prior = _prior_command(self.path)
+            return json_writer(_combined(existing, content, self.command, prior))
+        return write
+
+    def _swap_in(
+        self, staging: Path, names: list[str], obsolete: list[str], interim: Manifest | None
+    ) -> None:
+        """Move staged files into place, remove obsolete ones and record the folder last.
+
+        The folder's current files are kept (hard links) until the step is
+        done: a failure restores them. An interim record (marked incomplete)
+        lists the old and new files while they change places, so a run killed
+        in between leaves a folder that ``--force`` can still replace.
+        """
+        out, previous = self.path, staging / ".previous"
+        touched = [*names, *obsolete] + ([MANIFEST] if interim is not None else [])
+        existed = {rel for rel in touched if os.path.lexists(out / rel)}
+        for rel in sorted(existed):
+            _preserve(out / rel, previous / rel)
+        undo: list[Callable[[], None]] = []
+
+        def put_back(rel: str) -> Callable[[], None]:
+            def restore() -> None:
+                if rel in existed:
+                    (out / rel).parent.mkdir(parents=True, exist_ok=True)
+                    os.replace(previous / rel, out / rel)
+                else:
+                    (out / rel).unlink(missing_ok=True)
+
+            return restore
+
+        with _signals_held():
+            try:
+                if interim is not None:
+                    (staging / ".interim").write_text(interim.text())
+                    os.replace(staging / ".interim", out / MANIFEST)
+                    undo.append(put_back(MANIFEST))
+                for rel in names:
+                    for made in _missing_parents(out, rel):
+                        made.mkdir()
+                        undo.append(made.rmdir)
+                    undo.append(put_back(rel))
+                    os.replace(staging / rel, out / rel)
+                for rel in obsolete:
+                    undo.append(put_back(rel))
+                    os.unlink(out / rel)
+                _prune(out, obsolete)
+                if interim is not None:
+                    os.replace(staging / MANIFEST, out / MANIFEST)
+                self.committed = True
+            except BaseException:
+                for step in reversed(undo):
+                    with suppress(OSError):
+                        step()
+                raise
+
+
+def _missing_parents(folder: Path, rel: str) -> list[Path]:
+    """Return the missing subfolders of ``folder`` on the way to ``rel``, outermost first."""
+    parents = [folder / p for p in reversed(PurePosixPath(rel).parents) if str(p) != "."]
+    return [p for p in parents if not p.is_dir()]
+
+
+def _prune(folder: Path, removed: list[str]) -> None:
+    """Remove the subfolders of ``folder`` that removing files left empty."""
+    parents = {p for rel in removed for p in PurePosixPath(rel).parents if str(p) != "."}
+    for rel in sorted(parents, key=lambda p: -len(p.parts)):
+        with suppress(OSError):
+            (folder / rel).rmdir()
+
+
+_ACTIVE: dict[str, Claim] = {}
+_ACTIVE_GUARD = threading.Lock()
+
+
+@contextmanager
+def claim(
+    out: str | os.PathLike[str],
+    *,
+    command: str = "results",
+    force: bool = False,
+    merge: bool = False,
+    inputs: Iterable[str | os.PathLike[str]] = (),
+    owned: Iterable[str] = (),
+) -> Iterator[Claim]:
+    """Hold the results folder ``out`` for one run: checked, locked, and cleaned up after.
+
+    Take it before computing anything, so that a folder the run may not write,
+    or one another run is writing, is refused at once. Within the claim,
+    :func:`write_folder` (or :meth:`Claim.commit`) writes the files; when the
+    claim ends, its staging folders and lock are removed whatever happened.
+
+    Parameters
+    ----------
+    out : path
+        The results folder. Missing parent folders are created.
+    command : str, default "results"
+        The command whose files are written (``"mine"``, ``"groups"``,
+        ``"sweep"``, or :data:`REPORT`); the folder's record lists them under it.
+    force : bool, default False
+        Replace an existing folder comove wrote (only the files it lists), or
+        with ``merge`` this command's files in it.
+    merge : bool, default False
+        Add this command's files to an existing folder comove wrote, keeping
+        everything else.
+    inputs : paths
+        The run's input files: a folder holding one is never replaced.
+    owned : names
+        Files the command may replace in a folder with no record (the report's
+        files in a folder of an older comove).
+
+    Yields
+    ------
+    Claim
+
+    Raises
+    ------
+    InputError
+        When the folder may not be written (see :meth:`Claim.check`) or
+        another run holds its lock (the message names that run's PID).
+    """
+    held = Claim(out, command, force, merge, inputs, owned)
+    held.check()  # before the lock: a folder that is refused is not touched at all
+    try:
+        held.lock()
+    except BaseException:
+        held.release()  # parent folders made for the lock
+        raise
+    with _ACTIVE_GUARD:
+        _ACTIVE[str(held.path)] = held
+    try:
+        held.clear_leftovers()
+        held.check()
+        yield held
+    finally:
+        with _ACTIVE_GUARD:
+            _ACTIVE.pop(str(held.path), None)
+        held.release()
+
+
+def _command_of(files: Mapping[str, Writer]) -> str | None:
+    """Return the command named in the run record among ``files``, or None."""
+    content = getattr(files.get("run.json"), "content", None)
+    if isinstance(content, dict) and isinstance(content.get("command"), str):
+        return content["command"]
+    return None
+
+
 def write_folder(
     out_dir: str | os.PathLike[str],
     files: Mapping[str, Writer],
@@ -179,14 +990,16 @@ def write_folder(
     files : mapping of file name to writer
         Each writer is called with the full path to write.
     force : bool, default False
-        Replace an existing ``out_dir`` (with ``merge``: replace files of the
-        same name). Without it an existing folder is an error and nothing is
-        written.
+        Replace an existing folder that comove wrote: only the files its record
+        lists, and never a folder holding anything else (with ``merge``: replace
+        this command's files). Without it an existing folder is an error and
+        nothing is written.
     merge : str, optional
         Add these files to an existing results folder of another command
-        (named here, e.g. ``"groups"``): its files are kept, and ``run.json``
-        and ``quality.json`` are combined as ``{"by_command": {...}}``. The
-        folder is still replaced in one step.
+        (named here, e.g. ``"groups"``): everything in it is kept, and
+        ``run.json`` and ``quality.json`` are combined as
+        ``{"by_command": {...}}``. A report of the folder's earlier results is
+        removed (run ``comove report`` again).
 
     Returns
     -------
@@ -196,54 +1009,20 @@ def write_folder(
     Raises
     ------
     InputError
-        When ``out_dir`` exists and ``force`` is false, or is not a folder.
+        When the folder may not be written (see :func:`claim`).
+
+    Notes
+    -----
+    Within a :func:`claim` of the same folder the claim's lock and inputs
+    apply; otherwise the folder is claimed for the write alone.
     """
-    out = Path(out_dir)
-    if out.exists() and not out.is_dir():
-        raise InputError(f"{out}: exists and is not a folder; choose another --out")
-    merging = merge is not None and out.exists()
-    if out.exists() and not force and not merging:
-        raise InputError(
-            f"{out}: already exists; choose another --out, add --force to replace it or "
-            "--merge to add to it"
-        )
-    if merging and not force:
-        shared = SHARED_JSON + SHARED_SAME
-        clash = sorted(n for n in files if n not in shared and (out / n).exists())
-        if clash:
-            raise InputError(
-                f"{out}: already holds {', '.join(clash)}; add --force to replace them"
-            )
-    out.parent.mkdir(parents=True, exist_ok=True)
-    tmp = Path(tempfile.mkdtemp(prefix=f".{out.name}.partial-", dir=out.parent))
-    try:
-        if merging:
-            prior = _prior_command(out)
-            for old_file in out.iterdir():
-                if old_file.is_file() and (old_file.name not in files or
-                                           old_file.name in SHARED_JSON):  # fmt: skip
-                    shutil.copy2(old_file, tmp / old_file.name)
-        jobs = []
-        for name, write in files.items():
-            target = tmp / name
-            if merging and name in SHARED_JSON and target.exists() and hasattr(write, "content"):
-                existing = json.loads(target.read_text())
-                write = json_writer(_combined(existing, write.content, merge, prior))
-            jobs.append((write, target))
-        _run_writers(jobs)
-        if out.exists():
-            old = Path(tempfile.mkdtemp(prefix=f".{out.name}.old-", dir=out.parent))
-            old.rmdir()
-            out.rename(old)
-            try:
-                tmp.rename(out)
-            except BaseException:
-                old.rename(out)
-                raise
-            shutil.rmtree(old, ignore_errors=True)
-        else:
-            tmp.rename(out)
-    except BaseException:
-        shutil.rmtree(tmp, ignore_errors=True)
-        raise
-    return out
+    command = merge or _command_of(files)
+    with _ACTIVE_GUARD:
+        held = _ACTIVE.get(os.path.abspath(out_dir))
+    if held is not None:
+        held.command = command or held.command
+        held.force, held.merge = force, merge is not None
+        return held.commit(files)
+    merging = merge is not None
+    with claim(out_dir, command=command or "results", force=force, merge=merging) as mine:
+        return mine.commit(files)

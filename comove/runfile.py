@@ -18,7 +18,6 @@ line override the file. An unknown key is an error that names it.
 
 from __future__ import annotations
 
-import json
 import tomllib
 from dataclasses import fields
 from pathlib import Path
@@ -27,6 +26,7 @@ from typing import Any
 import numpy as np
 
 from comove.errors import InputError, bad_setting
+from comove.results import run_records
 
 #: Keys of a run file that are not stage settings.
 RUN_KEYS = ("input", "out", "preset")
@@ -101,18 +101,15 @@ def _inputs(value: Any, source: Path) -> list[str]:
 
 
 def _from_run_json(p: Path, command: str, known: set[str]) -> dict[str, Any]:
-    try:
-        run = json.loads(p.read_text())
-    except (ValueError, UnicodeDecodeError) as exc:
-        raise InputError(f"{p}: not valid JSON ({exc}); give a comove run.json") from None
-    if "by_command" in run:
-        if command not in run["by_command"]:
-            raise InputError(f"{p}: holds no {command} run; its runs: "
-                             f"{', '.join(run['by_command'])}")  # fmt: skip
-        run = run["by_command"][command]
-    if run.get("command") != command:
-        raise InputError(f"{p}: records a {run.get('command')!r} run, not {command}; "
-                         f"use comove {run.get('command')} --config")  # fmt: skip
+    runs = run_records(p)
+    if command not in runs and len(runs) == 1:
+        other = next(iter(runs))
+        raise InputError(f"{p}: records a {other!r} run, not {command}; "
+                         f"use comove {other} --config")  # fmt: skip
+    if command not in runs:
+        raise InputError(f"{p}: holds no {command} run; its runs: "
+                         f"{', '.join(runs) or 'none'}")  # fmt: skip
+    run = runs[command]
     options: dict[str, Any] = {}
     for stage, values in run.get("settings", {}).items():
         for key, value in values.items():

@@ -7,27 +7,11 @@ import os
 import subprocess
 import sys
 
-import numpy as np
 import pandas as pd
 import pytest
 
 from comove.cli import main
-
-
-@pytest.fixture
-def tracks_csv(tmp_path):
-    rng = np.random.default_rng(0)
-    rows = []
-    for k, role in enumerate(["dog", "dog", "owner", "owner", "cat"]):
-        base = rng.uniform(0, 50, 2)
-        for t in range(60):
-            # each dog walks beside one owner; the cat wanders alone
-            anchor = np.array([t * 1.5, 10.0 * (k % 2)]) if role != "cat" else base
-            pos = anchor + rng.normal(0, 0.1, 2) + (0.8 if role == "owner" else 0.0)
-            rows.append((f"a{k}", 1_790_000_000 + t, pos[0], pos[1], role))
-    path = tmp_path / "walks.csv"
-    pd.DataFrame(rows, columns=["id", "time", "x", "y", "role"]).to_csv(path, index=False)
-    return path
+from comove.results import MANIFEST
 
 
 def run(argv, capsys):
@@ -41,8 +25,8 @@ def test_mine_writes_the_results_folder(tracks_csv, tmp_path, capsys):
     code, out, err = run(["mine", tracks_csv, "--radius", 2, "--out", out_dir], capsys)
     assert code == 0, err
     assert sorted(p.name for p in out_dir.iterdir()) == [
-        "participation.csv", "patterns.csv", "pi_series.parquet", "quality.json", "run.json",
-        "significance.csv", "track_sample.parquet",
+        MANIFEST, "participation.csv", "patterns.csv", "pi_series.parquet", "quality.json",
+        "run.json", "significance.csv", "track_sample.parquet",
     ]  # fmt: skip
     patterns = pd.read_csv(out_dir / "patterns.csv")
     assert patterns["roles"].tolist() == ["dog;owner"]
@@ -74,9 +58,12 @@ def test_existing_results_are_not_overwritten_without_force(tracks_csv, tmp_path
     assert code == 2
     assert "already exists; choose another --out, add --force to replace it" in err
     assert (out_dir / "keep.txt").read_text() == "mine"
-    code, _, _ = run(["mine", tracks_csv, "--radius", 2, "--out", out_dir, "--force"], capsys)
-    assert code == 0
-    assert not (out_dir / "keep.txt").exists()
+    # --force replaces only a folder comove wrote: this one holds a user's file
+    code, _, err = run(["mine", tracks_csv, "--radius", 2, "--out", out_dir, "--force"], capsys)
+    assert code == 2 and err.count("\n") == 1
+    assert "remove it yourself or choose another --out" in err
+    assert [p.name for p in out_dir.iterdir()] == ["keep.txt"]
+    assert (out_dir / "keep.txt").read_text() == "mine"
 
 
 def _bad(tmp_path, name, text):
@@ -147,8 +134,8 @@ def test_groups_writes_episodes_dyads_and_paths(tracks_csv, tmp_path, capsys):
     )
     assert code == 0, err
     assert sorted(p.name for p in out_dir.iterdir()) == [
-        "dyads.csv", "episode_paths.geojson", "episode_paths.parquet", "episode_roles.csv",
-        "episodes.csv", "quality.json", "run.json", "track_sample.parquet",
+        MANIFEST, "dyads.csv", "episode_paths.geojson", "episode_paths.parquet",
+        "episode_roles.csv", "episodes.csv", "quality.json", "run.json", "track_sample.parquet",
     ]  # fmt: skip
     episodes = pd.read_csv(out_dir / "episodes.csv")
     # each dog walks beside its owner for the whole minute; the cat sits apart

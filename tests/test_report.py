@@ -16,6 +16,7 @@ from comove import figures
 from comove.errors import InputError
 from comove.pipeline import groups, mine
 from comove.report import build_report
+from comove.results import MANIFEST
 from comove.scenarios import mine_options
 
 GROUP_KEYS = ("id", "time", "x", "y", "lon", "lat", "role", "step", "max_gap", "max_speed",
@@ -126,7 +127,8 @@ def check_report(folder, report, figure_names: set[str]) -> Page:
     text = page.all_text()
     assert "personal data" in text and "not interaction or cause" in text
     assert "real-time safety" in text
-    assert not [p for p in folder.iterdir() if p.name.startswith(".")]  # no leftovers
+    hidden = [p.name for p in folder.iterdir() if p.name.startswith(".")]
+    assert hidden == [MANIFEST]  # the folder's record, and no leftovers
     return page
 
 
@@ -331,7 +333,7 @@ def test_failed_write_keeps_the_previous_report(tmp_path, monkeypatch):
     monkeypatch.undo()
     assert report.read_bytes() == before
     assert sorted((p.name, p.read_bytes()) for p in (folder / "figures").iterdir()) == figs_before
-    assert not [p for p in folder.iterdir() if p.name.startswith(".")]
+    assert [p.name for p in folder.iterdir() if p.name.startswith(".")] == [MANIFEST]
 
 
 def test_scale_bar_lengths_are_round_numbers():

@@ -8,7 +8,14 @@ import pandas as pd
 import pytest
 
 from comove.errors import InputError
-from comove.results import csv_writer, geojson_writer, json_writer, write_folder
+from comove.results import (
+    MANIFEST,
+    csv_writer,
+    geojson_writer,
+    json_writer,
+    read_manifest,
+    write_folder,
+)
 
 
 def test_writes_every_file(tmp_path):
@@ -21,7 +28,8 @@ def test_writes_every_file(tmp_path):
             "b.json": json_writer({"k": 1}),
         },
     )
-    assert sorted(p.name for p in out.iterdir()) == ["a.csv", "b.json"]
+    assert sorted(p.name for p in out.iterdir()) == [MANIFEST, "a.csv", "b.json"]
+    assert read_manifest(out).files == {"results": ["a.csv", "b.json"]}
     assert json.loads((out / "b.json").read_text()) == {"k": 1}
     assert "1970-01-01T00:00:01.000000Z" in (out / "a.csv").read_text()
 
