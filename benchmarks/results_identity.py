@@ -16,7 +16,7 @@ what names the moment or the machine of a run: ``created``, versions, input
 paths, the checkout's folder), Parquet tables value for value, PNG figures pixel for pixel, and the
 report's HTML after its embedded pictures are compared as pictures. It prints
 one line per difference and exits 1 when there is any. Each folder's record of
-the files comove wrote into it (``comove.results.MANIFEST``) is left out of the
+the files comove wrote into it (``comove.io.results.MANIFEST``) is left out of the
 comparison: it lists the files compared here, and folders written before it
 existed have none.
 """
@@ -156,7 +156,7 @@ def _compare_file(a: Path, b: Path) -> str | None:
 
 def _files(root: Path) -> set[Path]:
     """Return the files below ``root`` that hold results (every one but the folders' records)."""
-    from comove.results import MANIFEST
+    from comove.io.results import MANIFEST
 
     return {p.relative_to(root) for p in root.rglob("*") if p.is_file() and p.name != MANIFEST}
 
@@ -164,7 +164,7 @@ def _files(root: Path) -> set[Path]:
 def compare(before: Path, after: Path) -> int:
     """Print every difference between two trees of results folders; return their number.
 
-    The folders' records of what comove wrote (``comove.results.MANIFEST``)
+    The folders' records of what comove wrote (``comove.io.results.MANIFEST``)
     are not compared.
     """
     found = 0

@@ -13,7 +13,7 @@ except PackageNotFoundError:  # running from a source tree that is not installed
     __version__ = "0.0.0+unknown"
 
 if TYPE_CHECKING:
-    from comove.pipeline import GroupsResult, MiningResult, groups, mine
+    from comove.pipeline.core import GroupsResult, MiningResult, groups, mine
 
 __all__ = ["GroupsResult", "InputError", "MiningResult", "__version__", "groups", "mine"]
 

@@ -1,4 +1,4 @@
-"""Command line: a thin layer over :mod:`comove.pipeline`.
+"""Command line: a thin layer over :mod:`comove.pipeline.core`.
 
 Every option of a stage comes from the fields of that stage's settings
 dataclass, so flags, defaults and the library share one definition.
@@ -32,13 +32,13 @@ _COLLECTING = gc.isenabled()  # a program that imports this module keeps its own
 gc.disable()
 
 import comove  # noqa: E402
-from comove.cleaning import format_quality_summary  # noqa: E402
 from comove.errors import InputError  # noqa: E402
-from comove.pipeline import GROUP_STAGES, MINE_STAGES, groups, mine  # noqa: E402
-from comove.presets import PRESETS  # noqa: E402
-from comove.results import CAUTION, Claim, claim  # noqa: E402
-from comove.runfile import load_run_file  # noqa: E402
-from comove.sweep import SWEEP_STAGES, sweep  # noqa: E402
+from comove.groups.presets import PRESETS  # noqa: E402
+from comove.io.results import CAUTION, Claim, claim  # noqa: E402
+from comove.io.runfile import load_run_file  # noqa: E402
+from comove.pipeline.core import GROUP_STAGES, MINE_STAGES, groups, mine  # noqa: E402
+from comove.pipeline.sweep import SWEEP_STAGES, sweep  # noqa: E402
+from comove.tracks.cleaning import format_quality_summary  # noqa: E402
 
 gc.freeze()  # what is loaded now stays: later collections skip it
 if _COLLECTING:
@@ -285,7 +285,7 @@ def _written(out: Path, held: Claim, hint: str = "") -> None:
     print(f"\nResults written to {out}/{hint}")
 
 
-def _report(result: comove.pipeline.MiningResult, out: Path, quiet: bool, held: Claim) -> None:
+def _report(result: comove.pipeline.core.MiningResult, out: Path, quiet: bool, held: Claim) -> None:
     if quiet:
         return
     print(format_quality_summary(result.quality))
@@ -347,7 +347,7 @@ def _run_sweep(args: argparse.Namespace) -> None:
 
 
 def _run_report(args: argparse.Namespace) -> None:
-    from comove.report import build_report
+    from comove.present.report import build_report
 
     path = build_report(args.folder, max_points=args.max_points)
     if not args.quiet:
@@ -355,7 +355,7 @@ def _run_report(args: argparse.Namespace) -> None:
 
 
 def _run_demo(args: argparse.Namespace) -> None:
-    from comove.scenarios import demo_options
+    from comove.io.scenarios import demo_options
 
     source, options = demo_options()
     if not args.quiet:

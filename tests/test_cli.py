@@ -11,7 +11,7 @@ import pandas as pd
 import pytest
 
 from comove.cli import main
-from comove.results import MANIFEST
+from comove.io.results import MANIFEST
 
 
 def run(argv, capsys):

@@ -1,0 +1,171 @@
+"""The group chain: snapshots -> neighbour pairs -> links -> per-snapshot groups -> episodes.
+
+:func:`group_chain` is the one place where these stages are wired together;
+``groups`` and the null replicates of its tests call it. What it returns,
+:class:`GroupTally`, carries every intermediate result a caller may reuse
+(the neighbour pairs for the dyads, the velocities for the episode table).
+
+Over time chunks. Everything up to the per-snapshot groups is local to a
+snapshot, except velocities, which reach :func:`~comove.tracks.motion.half_window_snapshots`
+snapshots to each side: :func:`chunk_timeline` works on a chunk with that
+many snapshots of context on each side and keeps only its own snapshots, so
+its groups are exactly the whole run's. The chunks' timelines join
+(:meth:`~comove.groups.grouping.GroupTimeline.joined`: groups concatenated, each
+object's presence runs stitched where they meet at a chunk edge), and the
+episode search runs over the joined timeline, so episodes that cross chunk
+edges, or tolerated gaps that do, are found as in one piece.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass
+
+import numpy as np
+
+from comove.groups.episodes import EpisodeParams, Episodes, find_episodes
+from comove.groups.grouping import (
+    GroupParams,
+    GroupTimeline,
+    SnapshotGroups,
+    linked_pairs,
+    snapshot_groups,
+)
+from comove.tracks.alignment import Snapshots
+from comove.tracks.motion import Motion, entry_motion, half_window_snapshots
+from comove.tracks.neighbours import NeighbourPairs, neighbour_pairs
+
+
+@dataclass
+class GroupTally:
+    """Everything the group chain found in a run of snapshots.
+
+    Attributes
+    ----------
+    pairs : NeighbourPairs
+        Entry pairs within the radius.
+    motion : Motion
+        Velocity of every entry.
+    groups : SnapshotGroups
+        Groups of linked entries at every snapshot.
+    episodes : Episodes
+        Maximal episodes of objects that stay grouped.
+    """
+
+    pairs: NeighbourPairs
+    motion: Motion
+    groups: SnapshotGroups
+    episodes: Episodes
+
+    def together(self, snaps: Snapshots, keys: np.ndarray) -> np.ndarray:
+        """Return the snapshots within the radius of each object pair in ``keys``.
+
+        ``keys`` are ``object_a * n_objects + object_b`` (a < b); sparse: only
+        pairs that were ever within the radius are counted, the others get 0.
+        """
+        n_obj = np.int64(len(snaps.objects))
+        a = snaps.obj[self.pairs.i].astype(np.int64)
+        b = snaps.obj[self.pairs.j].astype(np.int64)
+        found = np.sort(np.minimum(a, b) * n_obj + np.maximum(a, b))
+        start = np.searchsorted(found, keys, side="left")
+        return (np.searchsorted(found, keys, side="right") - start).astype(np.float64)
+
+
+def group_chain(
+    snaps: Snapshots,
+    grouping: GroupParams,
+    episodes: EpisodeParams,
+    *,
+    motion: Motion | None = None,
+    workers: int = 1,
+    before_search: Callable[[NeighbourPairs, Motion], None] | None = None,
+) -> GroupTally:
+    """Return the groups and episodes of the objects in ``snaps``.
+
+    Parameters
+    ----------
+    snaps : Snapshots
+        Aligned snapshots.
+    grouping : GroupParams
+        Radius, motion predicates and group mode.
+    episodes : EpisodeParams
+        Size, duration and tolerance of episodes.
+    motion : Motion, optional
+        Velocities of the entries when already known (a time-shift replicate
+        carries the observed ones along with its entries); computed otherwise.
+    workers : int, default 1
+        Threads of the neighbour search and velocities (-1: every core).
+    before_search : callable, optional
+        Called with the neighbour pairs and velocities before the (mostly
+        Python) episode search starts, so that a caller can start other work
+        on them in a helper thread meanwhile.
+
+    Returns
+    -------
+    GroupTally
+
+    Examples
+    --------
+    Three walkers side by side for ten seconds, a fourth far away:
+
+    >>> import numpy as np
+    >>> from comove.tracks.alignment import Snapshots
+    >>> t = np.repeat(np.arange(10), 4)
+    >>> snaps = Snapshots(
+    ...     step_ns=10**9, first_index=0, n_snapshots=10, snap=t,
+    ...     obj=np.tile(np.arange(4, dtype=np.int32), 10),
+    ...     role=np.zeros(40, dtype=np.int32),
+    ...     x=t * 1.2 + np.tile([0.0, 0.0, 0.0, 500.0], 10),
+    ...     y=np.tile([0.0, 1.0, 2.0, 0.0], 10),
+    ...     objects=np.array(["a", "b", "c", "d"]), roles=np.array([""]), max_gap_ns=0)
+    >>> tally = group_chain(snaps, GroupParams(radius=1.5), EpisodeParams(min_duration=5))
+    >>> [m.tolist() for m in tally.episodes.members], tally.episodes.together.tolist()
+    ([[0, 1, 2]], [10])
+    """
+    pairs = neighbour_pairs(snaps, grouping.radius, workers=workers)
+    if motion is None:
+        motion = entry_motion(snaps, grouping.velocity_window, workers=workers)
+    if before_search is not None:
+        before_search(pairs, motion)
+    groups = _groups(snaps, pairs, motion, grouping)
+    found = find_episodes(GroupTimeline.of(snaps, groups), episodes)
+    return GroupTally(pairs=pairs, motion=motion, groups=groups, episodes=found)
+
+
+def _groups(
+    snaps: Snapshots, pairs: NeighbourPairs, motion: Motion, grouping: GroupParams
+) -> SnapshotGroups:
+    """Return the per-snapshot groups of the pairs that also move alike."""
+    return snapshot_groups(snaps, linked_pairs(pairs, motion, grouping), grouping)
+
+
+def chunk_timeline(
+    snaps: Snapshots, start: int, stop: int, grouping: GroupParams, workers: int = 1
+) -> GroupTimeline:
+    """Return the group timeline of snapshots ``start`` to ``stop - 1`` of ``snaps``.
+
+    Velocities are computed with the snapshots around the chunk that they
+    depend on, so the chunk's groups equal those of the whole run there; the
+    timelines of consecutive chunks join into the whole run's
+    (:meth:`~comove.groups.grouping.GroupTimeline.joined`), for :func:`find_episodes`.
+
+    Parameters
+    ----------
+    snaps : Snapshots
+        The aligned snapshots (only the chunk and its context are read).
+    start, stop : int
+        The chunk's snapshots.
+    grouping : GroupParams
+        Radius, motion predicates and group mode.
+    workers : int, default 1
+        Threads of the neighbour search and velocities (-1: every core).
+    """
+    reach = half_window_snapshots(grouping.velocity_window, snaps.step_s)
+    chunk = snaps.window(start, stop)
+    outer = snaps.window(start - reach, stop + reach)
+    before = chunk.first_index - outer.first_index
+    lo, hi = outer.offsets()[[before, before + chunk.n_snapshots]]
+    around = entry_motion(outer, grouping.velocity_window, workers=workers)
+    motion = Motion(vx=around.vx[lo:hi], vy=around.vy[lo:hi])
+    pairs = neighbour_pairs(chunk, grouping.radius, workers=workers)
+    return GroupTimeline.of(chunk, _groups(chunk, pairs, motion, grouping))

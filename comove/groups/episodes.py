@@ -1,0 +1,1059 @@
+"""Episodes: sets of objects that stay grouped over time, with their splits and merges.
+
+An *episode* is a set S of at least ``min_size`` objects and a time span such
+that at every snapshot of the span all of S lie in one group (see
+:mod:`comove.groups.grouping`), except for separations no longer than ``tolerance``
+seconds, and whose members are together for at least ``min_duration``
+seconds in all: a tolerated separation does not break an episode, but it does
+not count as time together either. A member with no data at a snapshot (a
+missed fix beyond the interpolation gap) is not taken to have left: while its
+absence lasts no longer than ``tolerance``, and if it was with the others at
+its last fix, the others being grouped is enough. The episode's end is the
+last snapshot at which every member has data. Only maximal episodes are
+reported: none whose members and time span are both contained in another
+episode's. With DBSCAN groups this is a convoy (Jeung et al. 2008);
+with ``tolerance > 0`` short separations do not break it, in the spirit of
+the evolving and gathering variants of convoy discovery.
+
+The search follows the candidate-intersection scheme of convoy discovery:
+live candidates are intersected with the groups of each snapshot, a subset
+that stays together inherits its parent's start, and a candidate closes once
+it has been separated for longer than the tolerance. Because group structure
+changes much less often than snapshots tick (at 25 Hz, most consecutive
+snapshots have identical groups), snapshots with the same groups are first
+merged into *spans* with one vectorised hashing pass (a span also ends where
+an object appears, disappears or has been missing longer than the tolerance),
+and the scheme runs per span rather than per snapshot.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from comove.errors import bad_setting
+from comove.groups.grouping import GroupTimeline
+from comove.io.projection import working_to_input
+from comove.tracks.alignment import Snapshots
+from comove.tracks.motion import Motion
+
+MEMBER_SEP = ";"
+
+#: Live candidates above which dominated ones are pruned during the search.
+PRUNE_ABOVE = 64
+
+#: Spans with remembered "together" answers above which the stale ones are dropped.
+FORGET_ABOVE = 256
+
+# flags of a live candidate (see find_episodes)
+GAPPED = 1
+EXCUSED = 2
+UNSURE = 4
+
+
+@dataclass(frozen=True)
+class EpisodeParams:
+    """Settings of episode discovery.
+
+    Parameters
+    ----------
+    min_size : int, default 2
+        Least number of objects in an episode.
+    min_duration : float, default 0.0
+        Least time in seconds for which an episode's members are together;
+        tolerated separations do not count towards it.
+    tolerance : float, default 0.0
+        Longest separation in seconds that does not break an episode.
+    """
+
+    min_size: int = field(default=2, metadata={"help": "least number of objects in an episode"})
+    min_duration: float = field(
+        default=0.0,
+        metadata={
+            "help": "least time together of an episode in seconds (separations "
+            "bridged by --tolerance do not count)"
+        },
+    )
+    tolerance: float = field(
+        default=0.0, metadata={"help": "longest separation in seconds that does not break one"}
+    )
+
+    def __post_init__(self) -> None:
+        if int(self.min_size) != self.min_size or self.min_size < 2:
+            raise bad_setting("min_size", "must be a whole number of at least 2")
+        if not (np.isfinite(self.min_duration) and self.min_duration >= 0):
+            raise bad_setting("min_duration", "must be zero or a positive number of seconds")
+        if not (np.isfinite(self.tolerance) and self.tolerance >= 0):
+            raise bad_setting("tolerance", "must be zero or a positive number of seconds")
+
+
+@dataclass
+class Episodes:
+    """Maximal episodes as arrays (one row per episode, sorted by start).
+
+    Attributes
+    ----------
+    members : list of ndarray of int
+        Object codes of each episode, ascending.
+    start, end : ndarray of int64
+        First and last snapshot of each episode.
+    together : ndarray of int64
+        Snapshots of [start, end] at which the members are together (all but
+        the tolerated separations).
+    came_from, went_into : list of list of int
+        Indices of the episodes each one was formed from (smaller episodes
+        running when it began, whose members it contains) and split into
+        (smaller episodes of its members still running after it ended).
+    """
+
+    members: list[np.ndarray]
+    start: np.ndarray
+    end: np.ndarray
+    together: np.ndarray
+    came_from: list[list[int]]
+    went_into: list[list[int]]
+
+    @property
+    def n_episodes(self) -> int:
+        """Return the number of episodes."""
+        return int(self.start.size)
+
+
+class _Timeline:
+    """Spans of constant groups and presence, and which member sets are together when.
+
+    A *span* is a maximal run of consecutive snapshots with identical groups and
+    no presence change (an object appearing, disappearing, or being missing for
+    longer than the tolerance), so that whether a set of objects is together is
+    the same at every snapshot of a span. Member sets are Python ints used as
+    bitmasks (bit o = object o): intersections, sizes and subset tests are then
+    single integer operations, whatever the number of objects.
+    """
+
+    def __init__(self, line: GroupTimeline, min_size: int, tol_snaps: int):
+        self.min_size = min_size
+        self.tol = tol_snaps
+        n_obj = line.n_objects
+        self.n_obj = n_obj
+        # each object's presence runs, for telling absence (no data) from separation
+        self.runs = [line.runs(o) for o in range(n_obj)]
+        events = _presence_changes(line, tol_snaps)
+        self.first, self.last, first_group = _spans(line, events)
+        self._masks, self._bounds, self.group_span, self.group_words = _span_groups(
+            line, self.first, first_group, min_size
+        )
+        if n_obj <= 63:
+            self.presence = _presence_masks(line, self.first)
+            self.presence_words = np.asarray(self.presence, dtype=np.uint64)
+        else:
+            self._cursor = _PresenceCursor(line)
+            self.presence_words = None
+        # together(members, k) per span, kept while a later span may look back at it
+        self._memo: dict[int, dict[int, bool]] = {}
+
+    def groups(self, k: int) -> list[int]:
+        """Return the member bitmasks of the groups of at least ``min_size`` in span k."""
+        return self._masks[self._bounds[k] : self._bounds[k + 1]]
+
+    @property
+    def n_spans(self) -> int:
+        """Return the number of spans."""
+        return int(self.first.size)
+
+    def present(self, k: int) -> int:
+        """Return the objects with data in span k as a bitmask."""
+        if self.presence_words is not None:
+            return self.presence[k]
+        return self._cursor.at(int(self.first[k]))  # more than 63 objects
+
+    def last_fix_span(self, obj: int, k: int) -> int:
+        """Return the span of the last fix of ``obj``, or -1 unless it is missing in span k.
+
+        Missing: no data in the span, for no longer than the tolerance.
+        """
+        a, b = int(self.first[k]), int(self.last[k])
+        run_first, run_last = self.runs[obj]
+        i = int(np.searchsorted(run_last, a))  # the first run that ends at a or later
+        if i < run_first.size and run_first[i] <= b:
+            return -1  # it has data in the span, so it is present
+        if i == 0 or b - int(run_last[i - 1]) > self.tol:
+            return -1
+        return int(np.searchsorted(self.first, run_last[i - 1], side="right")) - 1
+
+    def together(self, members: int, k: int) -> bool:
+        """Tell whether ``members`` are together in span k.
+
+        At least ``min_size`` of them lie in one group, and every other member is
+        missing (no data, for no longer than the tolerance) and was together with
+        the set at its last fix.
+        """
+        at_k = self._memo.setdefault(k, {})
+        known = at_k.get(members)
+        if known is not None:
+            return known
+        result = False
+        for grp in self.groups(k):
+            common = members & grp
+            if common.bit_count() < self.min_size:
+                continue
+            if all(
+                (j := self.last_fix_span(m, k)) >= 0 and self.together(members, j)
+                for m in _bits(members & ~common)
+            ):
+                result = True
+                break
+        at_k[members] = result
+        return result
+
+    def forget_before(self, k: int) -> None:
+        """Drop remembered answers for spans that no span from k on can look back at."""
+        if len(self._memo) > FORGET_ABOVE:
+            horizon = int(self.first[k]) - self.tol - 1
+            for old in [j for j in self._memo if self.last[j] < horizon]:
+                del self._memo[old]
+
+    def with_missing(self, part: int, others: int, k: int) -> int:
+        """Return ``part`` (together in span k) with its missing companions.
+
+        Those are the members of ``others`` that are missing in span k and were
+        together with the grown part at their last fix.
+        """
+        missing = {m: j for m in _bits(others) if (j := self.last_fix_span(m, k)) >= 0}
+        while missing:  # drop those not together with the rest at their last fix
+            grown = part
+            for m in missing:
+                grown |= 1 << m
+            stay = {m: j for m, j in missing.items() if self.together(grown, j)}
+            if len(stay) == len(missing):
+                return grown
+            missing = stay
+        return part
+
+    def last_present(self, members: int, seen: int) -> int:
+        """Return the last snapshot up to ``seen`` at which every member has data (or -1)."""
+        bits = _bits(members)
+        t = seen
+        while t >= 0:  # step back to each member's latest data until all agree
+            latest = []
+            for m in bits:
+                run_first, run_last = self.runs[m]
+                i = int(np.searchsorted(run_first, t, side="right")) - 1
+                latest.append(min(t, int(run_last[i])) if i >= 0 else -1)
+            earliest = min(latest)
+            if earliest == t:
+                return t
+            t = earliest
+        return -1
+
+    def time_together(self, members: int, start: int, end: int) -> int:
+        """Return the number of snapshots in [start, end] at which ``members`` are together."""
+        k0 = int(np.searchsorted(self.first, start, side="right")) - 1
+        k1 = int(np.searchsorted(self.first, end, side="right"))
+        if self.group_words is None:  # more than 63 objects: span by span
+            spans = np.asarray([k for k in range(k0, k1) if self.together(members, k)], int)
+        else:
+            # spans where a group holds every member, as whole-array tests; only spans
+            # where a member has no data need the excusing rule
+            g0, g1 = np.searchsorted(self.group_span, [k0, k1])
+            word = np.uint64(members)
+            hit = np.zeros(k1 - k0, dtype=bool)
+            holds = (self.group_words[g0:g1] & word) == word
+            hit[self.group_span[g0:g1][holds] - k0] = True
+            lacking = (self.presence_words[k0:k1] & word) != word
+            for j in np.flatnonzero(lacking & ~hit).tolist():  # spans with a member missing
+                hit[j] = self.together(members, k0 + j)
+            spans = np.flatnonzero(hit) + k0
+        overlap = np.minimum(self.last[spans], end) - np.maximum(self.first[spans], start) + 1
+        return int(overlap.sum())
+
+    def run_start(self, members: int, k: int, lower: int) -> int:
+        """Return where the run of togetherness of ``members`` that reaches span k began.
+
+        ``members`` are together in span k; the run goes back through separations
+        of at most the tolerance, but not before ``lower``.
+        """
+        start = int(self.first[k])
+        for j in range(k - 1, -1, -1):  # per earlier span, back to a long separation
+            if self.last[j] < lower:
+                break
+            if self.together(members, j):
+                if start - int(self.last[j]) - 1 > self.tol:
+                    break
+                start = max(int(self.first[j]), lower)
+            elif start - max(int(self.first[j]), lower) > self.tol:
+                break
+        return start
+
+
+def _presence_changes(line: GroupTimeline, tol_snaps: int) -> np.ndarray:
+    """Return the snapshots at which some object's presence or excuse changes.
+
+    These are where an object appears, where it disappears (the first snapshot
+    without data after a stretch with data), and where an absence grows longer
+    than the tolerance (so the absent member is no longer excused).
+    """
+    out = np.concatenate([line.run_first, line.run_last + 1, line.run_last + tol_snaps + 1])
+    return out[out < line.n_snapshots]
+
+
+def _spans(line: GroupTimeline, events: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Return (first snapshot, last snapshot, first group index) of each span.
+
+    Spans end where the groups change or at ``events`` (see
+    :func:`_presence_changes`). Group identity is tested with Zobrist hashing:
+    each object draws a fixed random 64-bit key; a group's hash is the XOR of
+    its members' keys and a snapshot's the wrapping sum of mixed group hashes,
+    so equal group sets give equal hashes (a collision is ~2^-64 per
+    comparison).
+    """
+    rng = np.random.default_rng(0x5EED)
+    keys = rng.integers(1, 2**63 - 1, size=line.n_objects, dtype=np.int64).astype(np.uint64)
+    n_snap = line.n_snapshots
+    snap_hash = np.zeros(n_snap, dtype=np.uint64)
+    if line.group_snap.size:
+        obj_keys = keys[line.group_objects]
+        group_hash = np.bitwise_xor.reduceat(obj_keys, line.group_offsets[:-1])
+        # a multiply-xorshift mix, so that sums of group hashes do not cancel
+        mixed = group_hash * np.uint64(0x9E3779B97F4A7C15)
+        mixed ^= mixed >> np.uint64(29)
+        with np.errstate(over="ignore"):
+            np.add.at(snap_hash, line.group_snap, mixed)
+    change = np.ones(n_snap, dtype=bool)
+    change[1:] = snap_hash[1:] != snap_hash[:-1]
+    change[events] = True
+    first = np.flatnonzero(change)
+    last = np.append(first[1:] - 1, n_snap - 1)
+    first_group = np.searchsorted(line.group_snap, first, side="left")
+    return first, last, first_group
+
+
+def _presence_masks(line: GroupTimeline, first: np.ndarray) -> list[int]:
+    """Return, per span start, the objects with data as an int bitmask (63 objects at most)."""
+    masks = np.zeros(first.size, dtype=np.uint64)
+    for o in range(line.n_objects):  # per object: one search of its runs for every span
+        run_first, run_last = line.runs(o)
+        if run_first.size == 0:
+            continue
+        i = np.searchsorted(run_last, first)  # the first run that ends at the span or later
+        inside = (i < run_first.size) & (run_first[np.minimum(i, run_first.size - 1)] <= first)
+        masks[inside] |= np.uint64(1 << o)
+    return masks.tolist()
+
+
+class _PresenceCursor:
+    """The objects with data at a snapshot, as an int bitmask, for any number of objects.
+
+    Presence changes only where a run starts or ends, so the mask is kept at
+    the last snapshot asked for and updated by the changes since; the search
+    asks for span starts in increasing order.
+    """
+
+    def __init__(self, line: GroupTimeline) -> None:
+        owner = np.repeat(np.arange(line.n_objects), np.diff(line.run_bounds))
+        when = np.concatenate([line.run_first, line.run_last + 1])
+        order = np.argsort(when, kind="stable")
+        self.when = when[order]
+        self.who = np.concatenate([owner, owner])[order].tolist()
+        self.t = -1
+        self.done = 0
+        self.mask = 0
+
+    def at(self, t: int) -> int:
+        """Return the bitmask of the objects with data at snapshot ``t``."""
+        if t < self.t:
+            self.t, self.done, self.mask = -1, 0, 0
+        upto = int(np.searchsorted(self.when, t, side="right"))
+        for o in self.who[self.done : upto]:  # each run's start and end, once
+            self.mask ^= 1 << o
+        self.t, self.done = t, upto
+        return self.mask
+
+
+def _span_groups(
+    line: GroupTimeline, first: np.ndarray, first_group: np.ndarray, min_size: int
+) -> tuple[list[int], list[int], np.ndarray, np.ndarray | None]:
+    """Return the groups of at least ``min_size`` members at each span start.
+
+    Returns
+    -------
+    masks : list of int
+        The member bitmasks of those groups, span after span.
+    bounds : list of int
+        Span k's groups are ``masks[bounds[k]:bounds[k + 1]]``.
+    span_of : ndarray of int64
+        The span of each of those groups, in order (ascending).
+    words : ndarray of uint64 or None
+        The same bitmasks as one array, when objects fit in 63 bits.
+    """
+    n_spans = first.size
+    count = np.searchsorted(line.group_snap, first, side="right") - first_group
+    total = int(count.sum())
+    # the group indices of every span, in order: first_group[k] + 0, 1, ..., count[k] - 1
+    start_at = np.repeat(np.cumsum(count) - count, count)
+    idx = np.arange(total) - start_at + np.repeat(first_group, count)
+    span_of = np.repeat(np.arange(n_spans), count)
+    big = np.diff(line.group_offsets)[idx] >= min_size
+    idx, span_of = idx[big], span_of[big]
+    masks = _group_masks(line.group_objects, line.group_offsets, line.n_objects, idx)
+    bounds = np.searchsorted(span_of, np.arange(n_spans + 1)).tolist()
+    words = np.asarray(masks, dtype=np.uint64) if line.n_objects <= 63 else None
+    return masks, bounds, span_of, words
+
+
+def find_episodes(timeline: GroupTimeline, params: EpisodeParams) -> Episodes:
+    """Return the maximal episodes of objects that stay grouped.
+
+    Parameters
+    ----------
+    timeline : GroupTimeline
+        Groups at every snapshot and each object's presence, of a whole run or
+        of consecutive chunks joined (:meth:`GroupTimeline.joined`).
+    params : EpisodeParams
+        Size, duration and tolerance.
+
+    Returns
+    -------
+    Episodes
+
+    Notes
+    -----
+    A set is *together* at a snapshot when at least ``min_size`` of its
+    members lie in one group and every other member is *missing*: it has no
+    data there, has had none for no longer than the tolerance, and was
+    together with the set at its last fix. Runs of together snapshots joined
+    across separations of at most the tolerance are episodes; only the
+    snapshots at which the set is together count towards ``min_duration``.
+    The result equals a brute-force search that tries every set of objects at
+    every snapshot (``tests/scenes.py``).
+
+    The search is the candidate-intersection scheme of convoy discovery, run
+    per span of constant groups and presence rather than per snapshot: live
+    candidates are intersected with each span's groups, a part that stays
+    together inherits its set's start (and its missing members, when they were
+    with it at their last fix), and a candidate closes once it has been apart
+    for longer than the tolerance. Time is proportional to the spans times the
+    live candidates times the groups per span, with candidates as integer
+    bitmasks; a candidate whose time together is not known from its own history
+    (a part of a set that was once apart) is recounted when it closes, span by
+    span, as whole-array tests when objects fit in 63 bits.
+
+    References
+    ----------
+    .. [1] H. Jeung, M. L. Yiu, X. Zhou, C. S. Jensen, H. T. Shen, "Discovery
+       of convoys in trajectory databases", PVLDB 1(1), 2008.
+    .. [2] K. Zheng, Y. Zheng, N. J. Yuan, S. Shang, X. Zhou, "Online discovery
+       of gathering patterns over trajectories", IEEE TKDE 26(8), 2014.
+    .. [3] A. L. Zobrist, "A new hashing method with application for game
+       playing", Technical Report 88, University of Wisconsin, 1970.
+    """
+    step = timeline.step_s
+    tol_snaps = int(np.floor(params.tolerance / step + 1e-9))
+    min_snaps = max(1, int(np.ceil(params.min_duration / step - 1e-9)))
+    min_size = int(params.min_size)
+    line = _Timeline(timeline, min_size, tol_snaps)
+
+    search = _Search(line, min_size, min_snaps, tol_snaps)
+    live: dict[int, list[int]] = {}
+    for k in range(line.n_spans):  # per span of constant groups, not per snapshot
+        live = search.span(live, k)
+        line.forget_before(k)
+    for members, (start, seen, flags, count) in live.items():
+        search.close(members, start, seen, flags, count)
+    return _maximal(search.closed, tol_snaps)
+
+
+class _Search:
+    """The candidate-intersection search over spans (see :func:`find_episodes`).
+
+    Live candidates map members -> [start, last snapshot seen together, flags,
+    snapshots together in [start, seen]]. Flags: GAPPED, the set was not
+    together at every snapshot since its start (a tolerated separation, or
+    missing members excused); EXCUSED, missing members were excused, so a part
+    of the set was not necessarily together whenever the set was and a part's
+    own run must be looked up; UNSURE, the count is only a lower bound (a part
+    of a gapped set may have been together while the set was apart) and is
+    recounted when the candidate closes.
+    """
+
+    def __init__(self, line: _Timeline, min_size: int, min_snaps: int, tol_snaps: int) -> None:
+        self.line = line
+        self.min_size = min_size
+        self.min_snaps = min_snaps
+        self.tol = tol_snaps
+        self.closed: list[tuple[frozenset, int, int, int]] = []
+
+    def close(self, members: int, start: int, seen: int, flags: int, count: int) -> None:
+        """Record a candidate that has ended, if it lasts long enough."""
+        line = self.line
+        end = line.last_present(members, seen)
+        if end - start + 1 < self.min_snaps:
+            return
+        if flags & UNSURE:
+            count = line.time_together(members, start, end)
+        elif end < seen:  # the last snapshots lacked a member's data: not in the span
+            count -= line.time_together(members, end + 1, seen)
+        if count >= self.min_snaps:
+            self.closed.append((frozenset(_bits(members)), start, end, count))
+
+    def span(self, live: dict[int, list[int]], k: int) -> dict[int, list[int]]:
+        """Return the live candidates after span k."""
+        line, min_size = self.line, self.min_size
+        a, b = int(line.first[k]), int(line.last[k])
+        n_k = b - a + 1
+        groups_k = line.groups(k)
+        nxt: dict[int, list[int]] = {}
+        for members, record in live.items():
+            parts = []
+            for grp in groups_k:
+                common = members & grp
+                if common == members:
+                    break
+                if common.bit_count() >= min_size:
+                    parts.append(common)
+            else:  # no group holds the whole set
+                self._not_whole(nxt, members, record, parts, k)
+                continue
+            start, _, flags, count = record
+            if members in nxt:
+                _offer(nxt, members, start, b, flags, count + n_k)
+            else:  # the usual case, inline: no other way reached this set yet
+                nxt[members] = [start, b, flags, count + n_k]
+        for grp in groups_k:
+            if grp in nxt:
+                _offer(nxt, grp, a, b, 0, n_k)
+            else:
+                nxt[grp] = [a, b, 0, n_k]
+        # Candidates contained in another that started no later, is seen as late and
+        # was together throughout can go: the final maximality filter would remove them
+        # anyway. Only pruned when many are live (measured: ~1 % of candidates pruned
+        # in a 25 Hz match, for 60 % of the time of the whole search).
+        return _prune_dominated(nxt) if len(nxt) > PRUNE_ABOVE else nxt
+
+    def _not_whole(
+        self, nxt: dict[int, list[int]], members: int, record: list[int], parts: list[int], k: int
+    ) -> None:
+        """Carry on a candidate no group of span k holds whole: excused, split, or apart."""
+        line = self.line
+        start, seen, flags, count = record
+        b = int(line.last[k])
+        n_k = b - int(line.first[k]) + 1
+        whole = False
+        missing = members & ~line.present(k) if parts else 0
+        if missing and line.together(members, k):  # by excusing missing members
+            whole = True
+            _offer(nxt, members, start, b, flags | GAPPED | EXCUSED, count + n_k)
+        # The parts still together (when the set is together by excusing missing
+        # members, its present part, which may outlast the whole set's end). A part was
+        # together whenever the set was; more often if the set was ever apart.
+        part_flags = flags | UNSURE if flags & GAPPED else flags
+        for common in parts:
+            if flags & EXCUSED:  # not even whenever the set was: look its run up
+                run = line.run_start(common, k, start)
+                _offer(nxt, common, run, b, part_flags | UNSURE, 0)
+            else:
+                _offer(nxt, common, start, b, part_flags, count + n_k)
+            if not whole and missing:  # and the part with its missing members
+                grown = line.with_missing(common, missing, k)
+                if grown != common:
+                    run = line.run_start(grown, k, start)
+                    _offer(nxt, grown, run, b, part_flags | GAPPED | EXCUSED | UNSURE, 0)
+        if whole:
+            return
+        # apart for this whole span (nothing changes within it)
+        if b - seen <= self.tol:
+            _offer(nxt, members, start, seen, flags | GAPPED, count)
+        else:
+            self.close(members, start, seen, flags, count)
+
+
+def _offer(
+    into: dict[int, list[int]], members: int, start: int, seen: int, flags: int, count: int
+) -> None:
+    """Add a candidate to ``into``, merging it with the same set reached another way."""
+    held = into.get(members)
+    if held is None:
+        into[members] = [start, seen, flags, count]
+        return
+    if (start, seen) == (held[0], held[1]):  # two ways over the same stretch
+        if held[2] & UNSURE and not flags & UNSURE:
+            held[3] = count  # an exact count beats a lower bound
+        elif (held[2] ^ flags) & UNSURE == 0:
+            held[3] = max(held[3], count)
+        held[2] &= flags  # either way's guarantee holds
+        return
+    # the set has been together since the earlier start; the way with the earlier start
+    # (then the later sighting) carries the facts
+    if start < held[0] or (start == held[0] and seen > held[1]):
+        other_seen = held[1]
+        held[:] = [start, seen, flags, count]
+    else:
+        other_seen = seen
+    if other_seen > held[1]:  # together later than the carrying way knew
+        held[1] = other_seen
+        held[2] |= GAPPED | UNSURE
+
+
+def _bits(mask: int) -> list[int]:
+    """Return the positions of the set bits of ``mask``, ascending."""
+    out = []
+    while mask:
+        low = mask & -mask
+        out.append(low.bit_length() - 1)
+        mask ^= low
+    return out
+
+
+def _group_masks(
+    member_obj: np.ndarray, offsets: np.ndarray, n_obj: int, which: np.ndarray
+) -> list[int]:
+    """Return the members of groups ``which`` as int bitmasks (bit o = object o)."""
+    if which.size == 0:
+        return []
+    if n_obj <= 63:  # one machine word per group: vectorised
+        return _word_masks(member_obj, offsets[:-1])[which].tolist()
+    # per group; only for more than 63 objects
+    return [_mask(member_obj[offsets[g] : offsets[g + 1]]) for g in which.tolist()]
+
+
+def _mask(objects: np.ndarray) -> int:
+    """Return ``objects`` as an int bitmask (bit o = object o), whatever their number."""
+    mask = 0
+    for o in objects.tolist():
+        mask |= 1 << o
+    return mask
+
+
+def _word_masks(objects: np.ndarray, starts: np.ndarray) -> np.ndarray:
+    """Return the objects of each segment of ``objects`` (from ``starts``) as uint64 masks.
+
+    For codes below 64 only; segments must be non-empty.
+    """
+    return np.bitwise_or.reduceat(np.left_shift(np.uint64(1), objects.astype(np.uint64)), starts)
+
+
+def _prune_dominated(cands: dict[int, list]) -> dict[int, list]:
+    """Return candidates not contained in another that is together throughout them.
+
+    A candidate goes when another has all of its members, started no later, was
+    seen as late and has not been apart since its start: the other then holds it
+    over its whole time, with at least its time together.
+    """
+    if len(cands) < 2:
+        return cands
+    items = sorted(cands.items(), key=lambda kv: -kv[0].bit_count())
+    kept: dict[int, list] = {}
+    for members, record in items:
+        start, seen = record[0], record[1]
+        if any(
+            members != other and members & other == members and o[0] <= start
+            and o[1] >= seen and not o[2]
+            for other, o in kept.items()
+        ):  # fmt: skip
+            continue
+        kept[members] = record
+    return kept
+
+
+def _containment(members: list[frozenset], n_obj: int, block: int = 2048):
+    """Yield (rows, counts) blocks: counts[r, j] = |members[rows[r]] & members[j]|."""
+    matrix = np.zeros((len(members), n_obj), dtype=np.float32)
+    for k, m in enumerate(members):  # per episode
+        matrix[k, list(m)] = 1.0
+    for lo in range(0, len(members), block):  # bounded memory: block x n rows at a time
+        rows = np.arange(lo, min(lo + block, len(members)))
+        yield rows, matrix[rows] @ matrix.T
+
+
+def _maximal(closed: list[tuple[frozenset, int, int, int]], tol_snaps: int) -> Episodes:
+    """Return the closed candidates that no other contains, with splits and merges."""
+    # (members, start, end) fixes the time together too, so duplicates are exact
+    closed = sorted(set(closed), key=lambda e: (e[1], -len(e[0]), e[2], sorted(e[0])))
+    if not closed:
+        empty = np.empty(0, np.int64)
+        return Episodes([], empty, empty.copy(), empty.copy(), [], [])
+    sets = [m for m, _, _, _ in closed]
+    n_obj = max(max(m) for m in sets) + 1
+    size = np.array([len(m) for m in sets])
+    start = np.array([c[1] for c in closed])
+    end = np.array([c[2] for c in closed])
+    together = np.array([c[3] for c in closed])
+    contained = np.zeros(len(closed), dtype=bool)
+    for rows, common in _containment(sets, n_obj):
+        # another candidate holds all of its members over at least its whole span
+        inside = (common == size[rows, None]) & (start[None, :] <= start[rows, None])
+        inside &= end[None, :] >= end[rows, None]
+        inside[np.arange(rows.size), rows] = False  # not itself (duplicates were merged)
+        contained[rows] = inside.any(axis=1)
+    keep = np.flatnonzero(~contained)
+    sets = [sets[k] for k in keep]
+    size, start, end, together = size[keep], start[keep], end[keep], together[keep]
+    came_from: list[list[int]] = []
+    went_into: list[list[int]] = []
+    for rows, common in _containment(sets, n_obj):
+        # f is a smaller episode of members of e: common == |f| and |f| < |e|
+        sub = (common == size[None, :]) & (size[None, :] < size[rows, None])
+        formed = sub & (start[None, :] < start[rows, None])
+        formed &= start[rows, None] <= end[None, :] + 1 + tol_snaps  # f ran when e formed
+        broke = sub & (start[None, :] <= end[rows, None]) & (end[rows, None] < end[None, :])
+        came_from += [np.flatnonzero(r).tolist() for r in formed]
+        went_into += [np.flatnonzero(r).tolist() for r in broke]
+    return Episodes(
+        members=[np.asarray(sorted(m), dtype=np.int64) for m in sets],
+        start=start.astype(np.int64),
+        end=end.astype(np.int64),
+        together=together.astype(np.int64),
+        came_from=came_from,
+        went_into=went_into,
+    )
+
+
+class _EntryLookup:
+    """Entry index of (snapshot, object) pairs, -1 where the object is absent."""
+
+    #: Cells of the dense (snapshot x object) table used when it fits (int32: 200 MB).
+    MAX_DENSE = 50_000_000
+
+    def __init__(self, snaps: Snapshots) -> None:
+        self.n_obj = len(snaps.objects)
+        if snaps.n_snapshots * self.n_obj <= self.MAX_DENSE:
+            self.dense = np.full((snaps.n_snapshots, self.n_obj), -1, dtype=np.int32)
+            self.dense[snaps.snap, snaps.obj] = np.arange(snaps.n_entries, dtype=np.int32)
+        else:
+            self.dense = None
+            # sorted, since entries are in (snapshot, object) order
+            self.keys = snaps.snap * self.n_obj + snaps.obj
+
+    def entries(self, snapshots: np.ndarray, objects: np.ndarray) -> np.ndarray:
+        """Return the entry index of each (object, snapshot) cell, or -1.
+
+        ``snapshots`` has shape (n,) and ``objects`` shape (k, n): column r
+        asks for objects ``objects[:, r]`` at snapshot ``snapshots[r]``. The
+        result has shape (k, n), so that sums over the objects are sums of
+        contiguous rows.
+        """
+        if self.dense is not None:
+            return self.dense[snapshots[None, :], objects].astype(np.int64)
+        if self.keys.size == 0:
+            return np.full(objects.shape, -1, dtype=np.int64)
+        want = snapshots[None, :] * self.n_obj + objects
+        pos = np.minimum(np.searchsorted(self.keys, want), self.keys.size - 1)
+        return np.where(self.keys[pos] == want, pos, -1)
+
+
+#: Cells (rows x member pairs) handled at once by the episode table; bounds its memory.
+TABLE_BLOCK = 1_000_000
+
+
+class _RowStats:
+    """Per-row statistics of episodes: one row per (episode, snapshot of its span)."""
+
+    def __init__(self, n_rows: int) -> None:
+        self.n_present = np.zeros(n_rows, dtype=np.int64)
+        self.cx = np.full(n_rows, np.nan)
+        self.cy = np.full(n_rows, np.nan)
+        self.d_sum = np.zeros(n_rows)
+        self.n_both = np.zeros(n_rows, dtype=np.int64)
+        self.d_max = np.zeros(n_rows)
+        self.moving = np.zeros(n_rows, dtype=bool)
+
+    def fill(
+        self,
+        rows: np.ndarray,
+        entry: np.ndarray,
+        pairs: tuple[np.ndarray, np.ndarray],
+        snaps: Snapshots,
+        motion: Motion,
+        min_speed: float,
+    ) -> None:
+        """Fill ``rows`` from their members' entries (shape (size, rows), -1 if absent)."""
+        present = entry >= 0
+        safe = np.maximum(entry, 0)  # absent cells read entry 0, masked out below
+        ex, ey = snaps.x[safe], snaps.y[safe]
+        n_present = present.sum(axis=0)
+        self.n_present[rows] = n_present
+        iu, ju = pairs
+        both = present[iu] & present[ju]
+        d = ex[iu] - ex[ju]
+        d *= d
+        dy = ey[iu] - ey[ju]
+        dy *= dy
+        d += dy
+        np.sqrt(d, out=d)
+        d *= both
+        self.d_sum[rows] = d.sum(axis=0)
+        self.n_both[rows] = both.sum(axis=0)
+        self.d_max[rows] = d.max(axis=0)
+        ex *= present
+        ey *= present
+        with np.errstate(invalid="ignore", divide="ignore"):
+            self.cx[rows] = ex.sum(axis=0) / n_present
+            self.cy[rows] = ey.sum(axis=0) / n_present
+        # most present members faster than min_speed (NaN speeds count as not moving)
+        fast = present & (motion.speed[safe] > min_speed)
+        self.moving[rows] = 2 * fast.sum(axis=0) > n_present
+
+
+def _per_episode_mean(owner: np.ndarray, values: np.ndarray, use: np.ndarray, n: int) -> np.ndarray:
+    """Return per episode the mean of ``values`` over its rows where ``use``; NaN if none."""
+    total = np.bincount(owner, weights=np.where(use, values, 0.0), minlength=n)
+    count = np.bincount(owner, weights=use, minlength=n)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(count > 0, total / count, np.nan)
+
+
+def episode_role_sets(snaps: Snapshots, episodes: Episodes) -> list[str]:
+    """Return per episode the roles its members had at their fixes within the episode.
+
+    This is the one definition of an episode's role set, used by the episode
+    table and by the tests of episode counts: the names of every role held
+    by a member at a snapshot of the episode where it has data, sorted and
+    joined by ``MEMBER_SEP``. A member whose role never changes contributes
+    that role (it has data at the episode's end, so it has a fix inside);
+    only members whose role changes somewhere are looked up within the
+    episode's span.
+
+    Parameters
+    ----------
+    snaps : Snapshots
+        Aligned snapshots the episodes were found in.
+    episodes : Episodes
+        Output of :func:`find_episodes`.
+
+    Returns
+    -------
+    list of str
+        One label per episode.
+    """
+    names = np.array([str(r) for r in snaps.roles], dtype=object)
+    order, bounds = snaps.object_order(), snaps.object_bounds()
+    main = snaps.main_roles()
+    role_sorted = snaps.role[order]
+    obj_sorted = snaps.obj[order]
+    changes = np.bincount(obj_sorted[role_sorted != main[obj_sorted]], minlength=len(snaps.objects))
+    labels = []
+    for members, start, end in zip(episodes.members, episodes.start.tolist(),
+                                   episodes.end.tolist(), strict=True):  # fmt: skip
+        roles = {int(main[m]) for m in members if not changes[m]}
+        for m in members[changes[members] > 0].tolist():  # members whose role changes
+            lo, hi = int(bounds[m]), int(bounds[m + 1])
+            at = snaps.snap[order[lo:hi]]
+            first, last = np.searchsorted(at, [start, end + 1])
+            roles.update(role_sorted[lo + first : lo + last].tolist())
+        labels.append(MEMBER_SEP.join(sorted(names[r] for r in roles)))
+    return labels
+
+
+def _text_column(values: list[str]) -> pd.Series:
+    """Return a text column, typed as text also when it is empty."""
+    return pd.Series(values, dtype="str")
+
+
+def _row_stats(
+    snaps: Snapshots,
+    episodes: Episodes,
+    sizes: np.ndarray,
+    row_ep: np.ndarray,
+    row_snap: np.ndarray,
+    motion: Motion,
+    min_speed: float,
+) -> _RowStats:
+    """Return the statistics of every (episode, snapshot) row, by episode size, in blocks."""
+    stats = _RowStats(row_ep.size)
+    lookup = _EntryLookup(snaps)
+    for size in np.unique(sizes).tolist():  # per episode size: rows of equal width
+        eps = np.flatnonzero(sizes == size)
+        member_rows = np.stack([episodes.members[k] for k in eps], axis=1)  # (size, eps)
+        pairs = np.triu_indices(size, 1)
+        rows = np.flatnonzero(sizes[row_ep] == size)
+        step = max(1, TABLE_BLOCK // max(size, pairs[0].size))
+        for r0 in range(0, rows.size, step):  # per block of rows
+            r = rows[r0 : r0 + step]
+            owner = row_ep[r]
+            entry = lookup.entries(row_snap[r], member_rows[:, np.searchsorted(eps, owner)])
+            stats.fill(r, entry, pairs, snaps, motion, min_speed)
+    return stats
+
+
+def episode_table(
+    snaps: Snapshots, episodes: Episodes, motion: Motion, min_speed: float
+) -> tuple[pd.DataFrame, list[np.ndarray]]:
+    """Return one row per episode and the centroid path of each.
+
+    Parameters
+    ----------
+    snaps : Snapshots
+        Aligned snapshots the episodes were found in.
+    episodes : Episodes
+        Output of :func:`find_episodes`.
+    motion : Motion
+        Velocity of every entry.
+    min_speed : float
+        Speed in m/s above which a member counts as moving.
+
+    Returns
+    -------
+    table : DataFrame
+        Columns ``episode``, ``start``, ``end`` (UTC, first and last
+        snapshot), ``duration_s``, ``size``, ``members`` and ``roles`` (sorted,
+        joined by ';'), ``together_s`` (time together: the duration less the
+        tolerated separations), ``mean_spacing_m`` and ``max_spacing_m`` (pairwise
+        distances of present members), ``moving_share`` (share of snapshots at
+        which most present members move faster than ``min_speed``), ``came_from``
+        and ``went_into`` (episode ids joined by ';').
+    paths : list of ndarray, shape (n_snapshots, 3)
+        Per episode: snapshot time (ns), centroid x and y in the working plane.
+
+    Notes
+    -----
+    Whole-array over all episodes at once: one row per (episode, snapshot of
+    its span), episodes of one size together, in blocks of at most
+    ``TABLE_BLOCK`` (row, member pair) cells. The mean spacing is the mean over
+    snapshots (with two or more members present) of the mean pairwise distance.
+    """
+    n_ep = episodes.n_episodes
+    ids = [f"E{k + 1:04d}" for k in range(n_ep)]
+    start = np.asarray(episodes.start, dtype=np.int64)
+    length = np.asarray(episodes.end, dtype=np.int64) - start + 1
+    first_row = np.concatenate([[0], np.cumsum(length)])
+    row_ep = np.repeat(np.arange(n_ep), length)  # one row per (episode, snapshot of its span)
+    row_snap = np.arange(first_row[-1], dtype=np.int64) - first_row[row_ep] + start[row_ep]
+    sizes = np.array([m.size for m in episodes.members], dtype=np.int64)
+    stats = _row_stats(snaps, episodes, sizes, row_ep, row_snap, motion, min_speed)
+    spaced = stats.n_both > 0  # snapshots with one member present have no spacing
+    with np.errstate(invalid="ignore", divide="ignore"):
+        row_spacing = stats.d_sum / stats.n_both
+    observed = stats.n_present > 0  # in a tolerated gap no member may have data
+    max_spacing = np.full(n_ep, np.nan)
+    if n_ep:
+        max_spacing = np.maximum.reduceat(stats.d_max, first_row[:-1])
+        max_spacing[np.bincount(row_ep, weights=spaced, minlength=n_ep) == 0] = np.nan
+    names = np.array([str(o) for o in snaps.objects], dtype=object)
+    text = _text_column
+
+    def utc(snapshot: np.ndarray) -> pd.DatetimeIndex:
+        return pd.to_datetime(snaps.times(snapshot).astype("datetime64[ns]"), utc=True)
+
+    table = pd.DataFrame(
+        {
+            "episode": text(ids),
+            "start": utc(start),
+            "end": utc(episodes.end),
+            "duration_s": length * snaps.step_s,
+            "size": sizes,
+            "members": text([MEMBER_SEP.join(names[m]) for m in episodes.members]),
+            "roles": text(episode_role_sets(snaps, episodes)),
+            "together_s": np.asarray(episodes.together, dtype=np.int64) * snaps.step_s,
+            "mean_spacing_m": _per_episode_mean(row_ep, row_spacing, spaced, n_ep),
+            "max_spacing_m": max_spacing,
+            "moving_share": _per_episode_mean(row_ep, stats.moving, observed, n_ep),
+            "came_from": text([MEMBER_SEP.join(ids[f] for f in c) for c in episodes.came_from]),
+            "went_into": text([MEMBER_SEP.join(ids[f] for f in w) for w in episodes.went_into]),
+        },
+        columns=EPISODE_COLUMNS,
+    )
+    return table, _centroid_paths(snaps, stats, row_ep, row_snap, n_ep)
+
+
+def _centroid_paths(
+    snaps: Snapshots, stats: _RowStats, row_ep: np.ndarray, row_snap: np.ndarray, n_ep: int
+) -> list[np.ndarray]:
+    """Return per episode its (time ns, centroid x, centroid y) rows where a member has data."""
+    kept = np.flatnonzero(stats.n_present > 0)
+    path = np.column_stack([snaps.times(row_snap[kept]), stats.cx[kept], stats.cy[kept]])
+    cuts = np.cumsum(np.bincount(row_ep[kept], minlength=n_ep))[:-1]
+    return np.split(path, cuts) if n_ep else []
+
+
+EPISODE_COLUMNS = [
+    "episode", "start", "end", "duration_s", "size", "members", "roles", "together_s",
+    "mean_spacing_m", "max_spacing_m", "moving_share", "came_from", "went_into",
+]  # fmt: skip
+
+
+#: Display paths keep at most one vertex per this many seconds (plus each path's ends).
+DISPLAY_INTERVAL_S = 1.0
+
+
+def episode_paths(
+    snaps: Snapshots, table: pd.DataFrame, centroids: list[np.ndarray]
+) -> tuple[Any, Any]:
+    """Return the episode centroid paths as LineStrings: full, and thinned for display.
+
+    Parameters
+    ----------
+    snaps : Snapshots
+        Aligned snapshots (for the coordinate reference systems).
+    table : DataFrame
+        Output of :func:`episode_table`.
+    centroids : list of ndarray
+        The per-episode centroid arrays from :func:`episode_table`.
+
+    Returns
+    -------
+    paths, display : GeoDataFrame
+        One row per episode, geometry in the input's CRS. ``paths`` has a vertex
+        at every snapshot; ``display`` keeps the first vertex in each
+        ``DISPLAY_INTERVAL_S`` of time and each path's last vertex, for files
+        meant for viewing such as GeoJSON (a match at 25 Hz would otherwise
+        put a million vertices in one).
+    """
+    import geopandas as gpd
+    import shapely
+
+    attrs = table[["episode", "start", "end", "duration_s", "size", "members", "roles"]]
+    if not centroids:
+        empty = gpd.GeoDataFrame(attrs.copy(), geometry=[], crs=snaps.input_crs)
+        return empty, empty.copy()
+    # a one-snapshot episode becomes a line of two equal points
+    parts = [c if len(c) > 1 else np.repeat(c, 2, axis=0) for c in centroids]
+    counts = np.array([len(c) for c in parts])
+    owner = np.repeat(np.arange(counts.size), counts)
+    allc = np.concatenate(parts)
+    x, y = working_to_input(snaps, allc[:, 1], allc[:, 2])
+    xy = np.column_stack([x, y])
+    slot = np.floor(allc[:, 0] * (1e-9 / DISPLAY_INTERVAL_S))  # not //: slow on floats
+    first = np.r_[True, (owner[1:] != owner[:-1]) | (slot[1:] != slot[:-1])]
+    last = np.r_[owner[1:] != owner[:-1], True]
+    keep = first | last
+    return (
+        gpd.GeoDataFrame(attrs.copy(), geometry=shapely.linestrings(xy, indices=owner),
+                         crs=snaps.input_crs),
+        gpd.GeoDataFrame(attrs.copy(), geometry=shapely.linestrings(xy[keep],
+                         indices=owner[keep]), crs=snaps.input_crs),
+    )  # fmt: skip
+
+
+def role_rollup(table: pd.DataFrame) -> pd.DataFrame:
+    """Return, per role set of episodes, their count and total and longest time.
+
+    Parameters
+    ----------
+    table : DataFrame
+        Output of :func:`episode_table`.
+
+    Returns
+    -------
+    DataFrame
+        Columns ``roles``, ``episodes``, ``total_seconds``, ``longest_seconds``,
+        ``mean_size``; sorted by total time, descending.
+    """
+    if table.empty:
+        return pd.DataFrame(
+            columns=["roles", "episodes", "total_seconds", "longest_seconds", "mean_size"]
+        )
+    out = (
+        table.groupby("roles", sort=True)
+        .agg(
+            episodes=("episode", "size"),
+            total_seconds=("duration_s", "sum"),
+            longest_seconds=("duration_s", "max"),
+            mean_size=("size", "mean"),
+        )
+        .reset_index()
+        .sort_values(["total_seconds", "roles"], ascending=[False, True], kind="stable")
+        .reset_index(drop=True)
+    )
+    return out

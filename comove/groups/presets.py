@@ -1,0 +1,172 @@
+"""Named sets of defaults for the kinds of user of ``comove groups``.
+
+A preset only supplies defaults; every flag given on the command line (or
+keyword given to :func:`comove.pipeline.core.groups`) overrides it. Each value
+carries where it comes from; "common practice" marks a value with no single
+published source.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+from comove.errors import bad_setting
+
+
+@dataclass(frozen=True)
+class Preset:
+    """A documented set of defaults.
+
+    Attributes
+    ----------
+    name : str
+        The name given to ``--preset``.
+    summary : str
+        Who it is for.
+    values : dict
+        Option name -> value.
+    why : dict
+        Option name -> where the value comes from.
+    """
+
+    name: str
+    summary: str
+    values: dict[str, Any]
+    why: dict[str, str]
+
+
+PRESETS: dict[str, Preset] = {
+    p.name: p
+    for p in (
+        Preset(
+            name="pedestrians",
+            summary="people walking together in a crowd (overhead video or indoor tracking)",
+            values={
+                "radius": 1.5,
+                "mode": "component",
+                "min_speed": 0.3,
+                "max_heading": 30.0,
+                "max_speed_ratio": 1.25,
+                "velocity_window": 1.2,
+                "min_size": 2,
+                "min_duration": 4.0,
+                "tolerance": 2.0,
+            },
+            why={
+                "radius": "Hall's proxemics: personal distance, kept among companions, ends "
+                "at about 1.2 m; social distance (1.2–3.6 m) is kept among strangers "
+                "(Hall 1966); plus about 0.3 m for the position error of person tracking "
+                "(common practice)",
+                "min_speed": "about a quarter of normal walking speed (1.2–1.4 m/s, "
+                "Fruin 1971): slower counts as standing, where headings are noise",
+                "max_heading": "companions walk in step; 30 degrees allows for weaving "
+                "(common practice)",
+                "max_speed_ratio": "companions keep a common pace: 1.25 allows about 10 % "
+                "either side of it, the spread of one walker's speed (common practice)",
+                "velocity_window": "about one stride pair, which averages out body sway "
+                "(common practice)",
+                "min_duration": "a few seconds together, so that passing strangers who fall "
+                "in step for a moment are not a group (common practice)",
+                "tolerance": "brief occlusions or a step aside do not split a group "
+                "(common practice)",
+            },
+        ),
+        Preset(
+            name="team-sport",
+            summary="players of a team sport tracked by optical or GNSS systems",
+            values={
+                "radius": 5.0,
+                "mode": "component",
+                "min_speed": 1.0,
+                "max_heading": 45.0,
+                "max_speed_ratio": 2.0,
+                "velocity_window": 1.0,
+                "min_size": 2,
+                "min_duration": 5.0,
+                "tolerance": 1.0,
+            },
+            why={
+                "radius": "GNSS player tracking errs by about 1–1.5 m per position, so "
+                "radii below ~2 m are noise on GNSS data; 5 m is within reach of a "
+                "challenge or a short pass (common practice)",
+                "min_speed": "1 m/s separates walking from standing in player-load "
+                "speed zones (common practice)",
+                "max_heading": "45 degrees keeps players running the same line together "
+                "and drops crossing runs (common practice)",
+                "max_speed_ratio": "2.0 (common practice)",
+                "velocity_window": "1 s smooths 10–25 Hz positional noise (common practice)",
+                "min_duration": "5 s: longer than a passing duel (common practice)",
+                "tolerance": "1 s (common practice)",
+            },
+        ),
+        Preset(
+            name="vehicles",
+            summary="road vehicles or vessels travelling in convoy (GPS or AIS fixes)",
+            values={
+                "radius": 60.0,
+                "mode": "component",
+                "min_speed": 2.0,
+                "max_heading": 30.0,
+                "max_speed_ratio": 1.5,
+                "velocity_window": 20.0,
+                "min_size": 2,
+                "min_duration": 120.0,
+                "tolerance": 30.0,
+            },
+            why={
+                "radius": "the two-second following headway (common practice in driver "
+                "guidance) at about 30 m/s, i.e. 60 m",
+                "min_speed": "2 m/s: below it a vehicle is queueing or parked (common practice)",
+                "max_heading": "30 degrees (common practice)",
+                "max_speed_ratio": "1.5 (common practice)",
+                "velocity_window": "20 s, a few GPS/AIS fixes (common practice)",
+                "min_duration": "2 minutes: longer than meeting at a junction (common practice)",
+                "tolerance": "30 s covers a missed fix or two (common practice)",
+            },
+        ),
+        Preset(
+            name="collars",
+            summary="collared animals with fixes every few minutes to hours",
+            values={
+                "radius": 100.0,
+                "mode": "component",
+                "min_speed": 0.0,
+                "max_heading": None,
+                "max_speed_ratio": None,
+                "velocity_window": 7200.0,
+                "min_size": 2,
+                "min_duration": 6 * 3600.0,
+                "tolerance": 6 * 3600.0,
+            },
+            why={
+                "radius": "proximity thresholds of 50–100 m are widely used for "
+                "association of ungulates from GPS collars, a little above collar "
+                "error and herd spacing (common practice)",
+                "max_heading": "off: headings between hourly fixes say little about "
+                "moving together (common practice)",
+                "max_speed_ratio": "off, for the same reason",
+                "min_duration": "6 hours (common practice)",
+                "tolerance": "6 hours: with hourly fixes and 10–30 % of them missed, runs "
+                "of three or four missed fixes are routine (common practice)",
+                "min_speed": "0: with the motion predicates off it does not matter",
+                "velocity_window": "two fixes at hourly sampling",
+            },
+        ),
+    )
+}
+
+
+def preset_values(name: str | None) -> dict[str, Any]:
+    """Return the defaults of preset ``name`` (empty for None).
+
+    Raises
+    ------
+    InputError
+        When no preset has that name.
+    """
+    if name is None:
+        return {}
+    if name not in PRESETS:
+        raise bad_setting("preset", f"must be one of {', '.join(PRESETS)}, not {name!r}")
+    return dict(PRESETS[name].values)

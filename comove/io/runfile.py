@@ -1,0 +1,164 @@
+"""Run files: describe a run in TOML, or repeat one from its ``run.json``.
+
+A TOML run file holds the command's options as top-level keys, with the same
+names as the long flags (``min_prevalence`` or ``min-prevalence``), plus
+``input`` (a path, a glob, or a list of them) and optionally ``out``::
+
+    input = "synthetic_tracks/fleet/vehicles.csv"
+    out = "fleet-results"
+    radius = 150
+    min_duration = 600
+    permutations = 199
+    seed = 7
+
+A results folder's ``run.json`` is accepted too: its recorded input and
+effective settings (seed included) repeat the run. Flags given on the command
+line override the file. An unknown key is an error that names it.
+"""
+
+from __future__ import annotations
+
+import tomllib
+from dataclasses import fields
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from comove.errors import InputError, bad_setting
+from comove.io.results import run_records
+
+#: Keys of a run file that are not stage settings.
+RUN_KEYS = ("input", "out", "preset")
+
+
+def _stage_fields(stages: tuple[type, ...]) -> set[str]:
+    return {f.name for stage in stages for f in fields(stage)}
+
+
+def load_run_file(path: str | Path, command: str, stages: tuple[type, ...]) -> dict[str, Any]:
+    """Return the options in a TOML run file or a ``run.json``, keyed by option name.
+
+    Parameters
+    ----------
+    path : path
+        ``*.toml`` run file, or a results folder's ``run.json`` (or the folder).
+    command : str
+        ``"mine"`` or ``"groups"``: which command's settings to take from a
+        ``run.json`` that holds both.
+    stages : tuple of type
+        The command's stage settings dataclasses; their fields are the known
+        option names.
+
+    Returns
+    -------
+    dict
+        Option name -> value; ``input`` (list of str), ``out`` and ``preset``
+        when given.
+
+    Raises
+    ------
+    InputError
+        When the file cannot be read or parsed, holds an unknown key, or is a
+        ``run.json`` of another command or of an in-memory input.
+    """
+    p = Path(path)
+    if p.is_dir():
+        p = p / "run.json"
+    if not p.is_file():
+        raise InputError(f"{p}: no such run file; give a .toml run file or a results run.json")
+    known = _stage_fields(stages)
+    if p.suffix.lower() == ".json":
+        return _from_run_json(p, command, known)
+    try:
+        raw = tomllib.loads(p.read_text())
+    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
+        raise InputError(f"{p}: not valid TOML ({exc}); fix the file") from None
+    options: dict[str, Any] = {}
+    for key, value in raw.items():
+        name = key.replace("-", "_")
+        if name not in known and name not in RUN_KEYS:
+            raise InputError(
+                f"{p}: unknown key {key!r}; use the long option names of comove {command} "
+                "(see comove {command} --help)".replace("{command}", command)
+            )
+        if isinstance(value, dict):
+            raise InputError(f"{p}: key {key!r} is a table; give options as top-level keys")
+        options[name] = value
+    if "input" in options:
+        options["input"] = _inputs(options["input"], p)
+    if isinstance(options.get("out"), str) and not Path(options["out"]).is_absolute():
+        options["out"] = str(p.parent / options["out"])
+    return options
+
+
+def _inputs(value: Any, source: Path) -> list[str]:
+    """Return input paths from a run file, relative ones resolved against its folder."""
+    items = value if isinstance(value, list) else [value]
+    if not items or not all(isinstance(v, str) for v in items):
+        raise InputError(f"{source}: 'input' must be a path or a list of paths")
+    return [v if Path(v).is_absolute() else str(source.parent / v) for v in items]
+
+
+def _from_run_json(p: Path, command: str, known: set[str]) -> dict[str, Any]:
+    runs = run_records(p)
+    if command not in runs and len(runs) == 1:
+        other = next(iter(runs))
+        raise InputError(f"{p}: records a {other!r} run, not {command}; "
+                         f"use comove {other} --config")  # fmt: skip
+    if command not in runs:
+        raise InputError(f"{p}: holds no {command} run; its runs: "
+                         f"{', '.join(runs) or 'none'}")  # fmt: skip
+    run = runs[command]
+    options: dict[str, Any] = {}
+    for stage, values in run.get("settings", {}).items():
+        for key, value in values.items():
+            if key not in known:
+                raise InputError(f"{p}: unknown setting {stage}.{key}; was it made by "
+                                 "another version of comove?")  # fmt: skip
+            options[key] = value
+    recorded = run.get("input")
+    if not isinstance(recorded, list):
+        raise InputError(f"{p}: the run read an in-memory table ({recorded}); give INPUT")
+    options["input"] = recorded
+    if run.get("preset") is not None:
+        options["preset"] = run["preset"]
+    return options
+
+
+def parse_grid(text: str, setting: str) -> tuple[float, ...]:
+    """Return the values of ``start:stop:step`` (stop included) or ``a,b,c`` text.
+
+    Examples
+    --------
+    >>> parse_grid("1:2:0.5", "radius"), parse_grid("3, 5", "radius")
+    ((1.0, 1.5, 2.0), (3.0, 5.0))
+    """
+    try:
+        if ":" in text:
+            start, stop, step = (float(v) for v in text.split(":"))
+            if step <= 0 or stop < start:
+                raise ValueError
+            values = np.round(np.arange(start, stop + step / 2, step), 10)
+        else:
+            values = np.array([float(v) for v in text.split(",") if v.strip()])
+    except ValueError:
+        raise bad_setting(
+            setting,
+            "must be start:stop:step (stop >= start, step > 0) or a comma-separated list of "
+            "numbers",
+        ) from None
+    if values.size == 0:
+        raise bad_setting(setting, "is empty; give at least one value")
+    return tuple(float(v) for v in values)
+
+
+def as_grid(value: Any, setting: str) -> tuple[float, ...]:
+    """Return a grid of values given as grid text, one number, or a list of numbers."""
+    if isinstance(value, str):
+        return parse_grid(value, setting)
+    items = value if isinstance(value, (list, tuple)) else [value]
+    try:
+        return tuple(float(v) for v in items)
+    except (TypeError, ValueError):
+        raise bad_setting(setting, "must be numbers, or grid text such as 1:5:1") from None

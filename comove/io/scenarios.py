@@ -1,0 +1,51 @@
+"""The bundled invented scenarios in ``synthetic_tracks/`` and their planted truth.
+
+Each scenario folder holds a generator, its data and ``truth.json``, which
+names the input, its columns and the settings the scenario is meant for.
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+from typing import Any
+
+from comove.errors import InputError
+
+SCENARIOS_DIR = Path(__file__).resolve().parents[2] / "synthetic_tracks"
+DEMO_SCENARIO = "small_sided_game"
+
+#: truth.json parameter names that are settings of ``comove mine``.
+_MINE_SETTINGS = ("radius", "min_participation", "min_prevalence", "min_duration", "step",
+                  "max_gap", "max_size", "max_speed")  # fmt: skip
+
+
+def scenario_names() -> list[str]:
+    """Return the names of the bundled scenarios."""
+    return sorted(p.parent.name for p in SCENARIOS_DIR.glob("*/truth.json"))
+
+
+def load_truth(name: str) -> dict[str, Any]:
+    """Return the planted truth of scenario ``name``."""
+    path = SCENARIOS_DIR / name / "truth.json"
+    if not path.is_file():
+        raise InputError(
+            f"{path}: scenario not found; the demo needs the source checkout "
+            "(install with `pip install -e .` from the repository)"
+        )
+    return json.loads(path.read_text())
+
+
+def mine_options(name: str) -> tuple[str, dict[str, Any]]:
+    """Return the input path (or glob) and the ``mine`` options of scenario ``name``."""
+    truth = load_truth(name)
+    source = str(SCENARIOS_DIR / name / truth["input"])
+    options = {k: v for k, v in truth.get("columns", {}).items()}
+    params = truth.get("parameters", {})
+    options.update({k: params[k] for k in _MINE_SETTINGS if k in params})
+    return source, options
+
+
+def demo_options() -> tuple[str, dict[str, Any]]:
+    """Return the input and options of the demo run (the small-sided game)."""
+    return mine_options(DEMO_SCENARIO)

@@ -1,0 +1,514 @@
+"""The jobs end to end: raw tracks in, role patterns or co-moving groups out.
+
+Stages run forward, each a plain function of the previous stage's output::
+
+    read_tracks -> clean_fixes -> align -> neighbour_pairs
+        -> mine_levels -> durable_patterns                       (mine)
+        -> entry_motion -> linked_pairs -> snapshot_groups
+           -> find_episodes -> episode_table, role_rollup;
+           dyad_table                                            (groups)
+
+:func:`mine` and :func:`groups` run them and return a :class:`MiningResult` or
+:class:`GroupsResult`, whose ``write`` stores a results folder.
+"""
+
+from __future__ import annotations
+
+import os
+from collections.abc import Iterator
+from concurrent.futures import Future, ThreadPoolExecutor
+from contextlib import contextmanager
+from dataclasses import dataclass, field, fields
+from pathlib import Path
+from typing import Any
+
+import pandas as pd
+
+from comove.errors import InputError
+from comove.groups.chain import group_chain
+from comove.groups.dyads import dyad_table
+from comove.groups.episodes import EpisodeParams, episode_paths, episode_table, role_rollup
+from comove.groups.grouping import GroupParams
+from comove.groups.presets import preset_values
+from comove.io.projection import working_to_input
+from comove.io.provenance import input_digest, run_record, settings_record
+from comove.io.reading import ColumnSpec, read_tracks
+from comove.io.results import (
+    CAUTION,
+    csv_writer,
+    geojson_writer,
+    geoparquet_writer,
+    json_writer,
+    parquet_writer,
+    write_folder,
+)
+from comove.io.runfile import parse_grid
+from comove.roles.chain import role_chain
+from comove.roles.colocation import ColocationParams
+from comove.roles.crossk import CrossKParams
+from comove.roles.persistence import PersistenceParams, durable_patterns
+from comove.stats.engine import RunParams
+from comove.stats.significance import (
+    TEST_COLUMNS,
+    SignificanceParams,
+    cross_k_tests,
+    group_tests,
+    pattern_tests,
+)
+from comove.tracks.alignment import AlignParams, Snapshots, align, alignment_summary, track_sample
+from comove.tracks.cleaning import CleanParams, clean_fixes
+from comove.tracks.neighbours import NeighbourPairs
+
+
+@dataclass(frozen=True)
+class CrossKRequest:
+    """Settings of the optional cross-K/L companion of ``mine``.
+
+    Parameters
+    ----------
+    k_radii : str or None, default None
+        Radii in metres, as ``start:stop:step`` or a comma-separated list;
+        None skips cross-K.
+    k_correction : {"translation", "border"}, default "translation"
+        Edge correction.
+    k_window : str or None, default None
+        Window ``xmin,ymin,xmax,ymax`` in the working plane (metres); None uses
+        the bounding box of all positions.
+    """
+
+    k_radii: str | None = field(
+        default=None,
+        metadata={"help": "cross-K/L per role pair at these radii (m): start:stop:step or "
+                  "r1,r2,...; envelopes from time-shift replicates"},
+    )  # fmt: skip
+    k_correction: str = field(
+        default="translation", metadata={"help": "cross-K edge correction: translation or border"}
+    )
+    k_window: str | None = field(
+        default=None,
+        metadata={"help": "cross-K window xmin,ymin,xmax,ymax in working-plane metres"},
+    )
+
+    def params(self) -> CrossKParams | None:
+        """Return the cross-K settings, or None when cross-K was not asked for."""
+        if self.k_radii is None:
+            return None
+        return CrossKParams(
+            radii=parse_grid(self.k_radii, "k_radii"),
+            window=parse_grid(self.k_window, "k_window") if self.k_window else None,
+            correction=self.k_correction,
+        )
+
+
+#: The stage settings of ``mine``, in pipeline order.
+MINE_STAGES: tuple[type, ...] = (
+    ColumnSpec, CleanParams, AlignParams, ColocationParams, PersistenceParams, SignificanceParams,
+    CrossKRequest, RunParams,
+)  # fmt: skip
+
+#: The stage settings of ``groups``, in pipeline order.
+GROUP_STAGES: tuple[type, ...] = (
+    ColumnSpec, CleanParams, AlignParams, GroupParams, EpisodeParams, SignificanceParams,
+    RunParams,
+)  # fmt: skip
+
+
+def split_options(stages: tuple[type, ...], options: dict[str, Any]) -> list[Any]:
+    """Return one settings object per stage built from flat keyword ``options``.
+
+    Raises
+    ------
+    TypeError
+        When an option belongs to no stage.
+    """
+    known: dict[str, type] = {}
+    for stage in stages:
+        for f in fields(stage):
+            known.setdefault(f.name, stage)
+    unknown = sorted(set(options) - set(known))
+    if unknown:
+        raise TypeError(f"unknown option(s): {', '.join(unknown)}")
+    return [stage(**{k: v for k, v in options.items() if known[k] is stage}) for stage in stages]
+
+
+class _Progress:
+    """A stage progress bar that can be switched off."""
+
+    def __init__(self, enabled: bool, total: int) -> None:
+        self.bar = None
+        if enabled:
+            from tqdm.auto import tqdm  # imported when used: it costs start-up time
+
+            # disable=None: shown on a terminal only, so logs and pipes get no bar debris
+            self.bar = tqdm(total=total, disable=None, unit="stage", leave=False)
+
+    @contextmanager
+    def stage(self, name: str) -> Iterator[None]:
+        if self.bar is not None:
+            self.bar.set_description(name)
+        yield
+        if self.bar is not None:
+            self.bar.update(1)
+
+    def close(self) -> None:
+        if self.bar is not None:
+            self.bar.close()
+
+
+@dataclass
+class MiningResult:
+    """Durable role co-location patterns and everything needed to trust them.
+
+    Attributes
+    ----------
+    patterns : DataFrame
+        One row per kept role set; see :func:`comove.roles.persistence.durable_patterns`.
+    participation : DataFrame
+        Mean participation ratio of each role of each kept set.
+    series : DataFrame
+        Participation index of each kept set at each snapshot where all its
+        roles are present.
+    quality : dict
+        What was read, dropped and why, and how the tracks were aligned.
+    run : dict
+        Settings, versions and input digest (the content of ``run.json``).
+    snapshots : Snapshots
+        The aligned tracks, for further analysis.
+    tests : DataFrame or None
+        Monte Carlo tests of every role set with a prevalent snapshot (see
+        :func:`comove.stats.significance.pattern_tests`); None when not run.
+    cross_k : DataFrame or None
+        Cross-K/L per role pair and radius with pointwise envelopes (see
+        :func:`comove.stats.significance.cross_k_tests`); None when not asked for.
+    """
+
+    patterns: pd.DataFrame
+    participation: pd.DataFrame
+    series: pd.DataFrame
+    quality: dict
+    run: dict
+    snapshots: Snapshots = field(repr=False)
+    tests: pd.DataFrame | None = None
+    cross_k: pd.DataFrame | None = None
+
+    def write(
+        self, out_dir: str | os.PathLike[str], force: bool = False, merge: bool = False
+    ) -> Path:
+        """Write the results folder atomically and return its path.
+
+        Files: ``patterns.csv``, ``participation.csv``, ``pi_series.parquet``,
+        ``track_sample.parquet`` (thinned positions for maps),
+        ``quality.json``, ``run.json``, ``significance.csv`` (every role set
+        tested) when significance tests ran, and ``cross_k.csv`` when asked for.
+        """
+        files = {
+            "track_sample.parquet": parquet_writer(lambda: _sample(self.snapshots)),
+            "patterns.csv": csv_writer(self.patterns),
+            "participation.csv": csv_writer(self.participation),
+            "pi_series.parquet": parquet_writer(self.series),
+            "quality.json": json_writer(self.quality),
+            "run.json": json_writer(self.run),
+        }
+        if self.tests is not None:
+            files["significance.csv"] = csv_writer(self.tests)
+        if self.cross_k is not None:
+            files["cross_k.csv"] = csv_writer(self.cross_k)
+        return write_folder(out_dir, files, force=force, merge="mine" if merge else None)
+
+
+def mine(source: Any, *, progress: bool = False, **options: Any) -> MiningResult:
+    """Return the durable role co-location patterns of the tracks in ``source``.
+
+    Parameters
+    ----------
+    source : path, glob, list of paths, DataFrame, GeoDataFrame or TrajectoryCollection
+        The tracks; see :func:`comove.io.reading.read_tracks`.
+    progress : bool, default False
+        Show a progress bar over the stages.
+    **options
+        Any field of :class:`~comove.io.reading.ColumnSpec`,
+        :class:`~comove.tracks.cleaning.CleanParams`,
+        :class:`~comove.tracks.alignment.AlignParams`,
+        :class:`~comove.roles.colocation.ColocationParams` (``radius`` is required)
+        or :class:`~comove.roles.persistence.PersistenceParams`.
+
+    Returns
+    -------
+    MiningResult
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> tracks = pd.DataFrame({
+    ...     "id": ["a", "a", "b", "b"], "time": [0, 10, 0, 10],
+    ...     "x": [0.0, 10.0, 1.0, 11.0], "y": [0.0, 0.0, 0.0, 0.0],
+    ...     "role": ["dog", "dog", "owner", "owner"]})
+    >>> result = mine(tracks, radius=2.0, step=1.0)
+    >>> result.patterns[["roles", "time_prevalence"]].to_dict("records")
+    [{'roles': 'dog;owner', 'time_prevalence': 1.0}]
+    """
+    (columns, cleaning, alignment, colocation, persistence, significance, k_request,
+     run_params) = split_options(MINE_STAGES, options)  # fmt: skip
+    run_params = run_params.resolved()
+    k_params = k_request.params()
+    bar = _Progress(progress, total=7)
+    digest = _digest_beside(source)
+    try:
+        snaps, quality = _aligned(source, columns, cleaning, alignment, bar)
+        with bar.stage("co-location"):
+            tally = role_chain(
+                snaps,
+                colocation,
+                min_prevalent_snapshots=persistence.min_prevalent_snapshots(snaps.step_s),
+                workers=run_params.threads,
+            )
+        with bar.stage("persistence"):
+            tables = durable_patterns(tally, persistence, colocation.min_participation)
+        tests = None
+        patterns = tables.patterns
+        if significance.permutations > 0:
+            with bar.stage("significance"):
+                tests = pattern_tests(snaps, tally, colocation, significance, run_params, progress)
+                patterns = patterns.merge(
+                    tests[["roles", *TEST_COLUMNS]], on="roles", how="left", validate="1:1"
+                )
+        cross = None
+        if k_params is not None:
+            with bar.stage("cross-K"):
+                cross = cross_k_tests(snaps, k_params, significance, run_params, progress)
+    finally:
+        bar.close()
+    run = run_record(
+        "mine",
+        source,
+        settings_record(
+            columns,
+            cleaning,
+            _effective(snaps),
+            colocation,
+            persistence,
+            significance,
+            k_request,
+            run_params,
+        ),  # fmt: skip
+        extra={"caution": CAUTION},
+        digest=digest.result(),
+    )
+    return MiningResult(
+        patterns, tables.participation, tables.series, quality, run, snaps, tests, cross
+    )
+
+
+def _digest_beside(source: Any) -> Future[str]:
+    """Return the future digest of ``source``, taken in a helper thread while the stages run.
+
+    Reading and hashing the input files mostly waits on the disk or runs in
+    hashlib, which releases the interpreter lock over large blocks.
+    """
+    helper = ThreadPoolExecutor(max_workers=1)
+    digest = helper.submit(input_digest, source)
+    helper.shutdown(wait=False)  # its thread ends once the digest is taken
+    return digest
+
+
+def _sample(snaps: Snapshots) -> pd.DataFrame:
+    """Return the thinned positions a results folder keeps for drawing maps."""
+    return track_sample(snaps, lambda x, y: working_to_input(snaps, x, y))
+
+
+def _aligned(
+    source: Any,
+    columns: ColumnSpec,
+    cleaning: CleanParams,
+    alignment: AlignParams,
+    bar: _Progress,
+) -> tuple[Snapshots, dict]:
+    """Return the aligned snapshots of ``source`` and its quality report."""
+    with bar.stage("reading"):
+        raw = read_tracks(source, columns)
+    with bar.stage("cleaning"):
+        fixes, quality = clean_fixes(raw, cleaning)
+    with bar.stage("aligning"):
+        snaps = align(fixes, alignment)
+        quality["alignment"] = alignment_summary(snaps)
+    return snaps, quality
+
+
+def _effective(snaps: Snapshots) -> AlignParams:
+    """Return the alignment settings actually used (defaults resolved)."""
+    return AlignParams(step=snaps.step_s, max_gap=snaps.max_gap_ns / 1e9)
+
+
+@dataclass
+class GroupsResult:
+    """Co-moving groups of objects: episodes, their role roll-up, and dyads.
+
+    Attributes
+    ----------
+    episodes : DataFrame
+        One row per maximal episode; see :func:`comove.groups.episodes.episode_table`.
+    roles : DataFrame
+        Per role set of episodes: count, total and longest time.
+    dyads : DataFrame
+        One row per pair of objects with shared presence; see
+        :func:`comove.groups.dyads.dyad_table`.
+    paths : GeoDataFrame
+        The centroid path of each episode as a LineString, in the input's CRS
+        (lon/lat input gives lon/lat paths; planar input has no CRS), one
+        vertex per snapshot.
+    display_paths : GeoDataFrame
+        The same paths thinned to about one vertex per second for viewing
+        (written as GeoJSON); see :func:`comove.groups.episodes.episode_paths`.
+    quality, run : dict
+        As in :class:`MiningResult`.
+    snapshots : Snapshots
+        The aligned tracks.
+    """
+
+    episodes: pd.DataFrame
+    roles: pd.DataFrame
+    dyads: pd.DataFrame
+    paths: Any
+    display_paths: Any
+    quality: dict
+    run: dict
+    snapshots: Snapshots = field(repr=False)
+    centroids: list = field(repr=False, default_factory=list)
+
+    def write(
+        self, out_dir: str | os.PathLike[str], force: bool = False, merge: bool = False
+    ) -> Path:
+        """Write the results folder atomically and return its path.
+
+        Files: ``episodes.csv``, ``episode_roles.csv``, ``dyads.csv``,
+        ``track_sample.parquet`` (thinned positions for maps),
+        ``episode_paths.parquet`` (GeoParquet, every snapshot),
+        ``episode_paths.geojson`` (thinned for viewing),
+        ``quality.json`` and ``run.json``.
+        """
+        return write_folder(
+            out_dir,
+            {
+                "track_sample.parquet": parquet_writer(lambda: _sample(self.snapshots)),
+                "episodes.csv": csv_writer(self.episodes),
+                "episode_roles.csv": csv_writer(self.roles),
+                "dyads.csv": csv_writer(self.dyads),
+                "episode_paths.parquet": geoparquet_writer(self.paths),
+                "episode_paths.geojson": geojson_writer(self.display_paths),
+                "quality.json": json_writer(self.quality),
+                "run.json": json_writer(self.run),
+            },
+            force=force,
+            merge="groups" if merge else None,
+        )
+
+    def to_trajectories(self) -> Any:
+        """Return the episode centroid paths as a movingpandas ``TrajectoryCollection``."""
+        import geopandas as gpd
+        import movingpandas as mpd
+
+        frames = []
+        for (_, row), path in zip(self.episodes.iterrows(), self.centroids, strict=True):
+            x, y = working_to_input(self.snapshots, path[:, 1], path[:, 2])
+            frames.append(pd.DataFrame({
+                "episode": row["episode"],
+                "time": pd.to_datetime(path[:, 0].astype("int64"), utc=True).tz_localize(None),
+                "x": x, "y": y,
+            }))  # fmt: skip
+        points = (
+            pd.concat(frames, ignore_index=True)
+            if frames
+            else pd.DataFrame(columns=["episode", "time", "x", "y"])
+        )
+        gdf = gpd.GeoDataFrame(
+            points, geometry=gpd.points_from_xy(points["x"], points["y"]),
+            crs=self.paths.crs,
+        )  # fmt: skip
+        return mpd.TrajectoryCollection(gdf, "episode", t="time")
+
+
+def groups(
+    source: Any, *, preset: str | None = None, progress: bool = False, **options: Any
+) -> GroupsResult:
+    """Return the co-moving groups (episodes) and dyads of the tracks in ``source``.
+
+    Parameters
+    ----------
+    source : path, glob, list of paths, DataFrame, GeoDataFrame or TrajectoryCollection
+        The tracks; see :func:`comove.io.reading.read_tracks`. A role column is
+        optional here.
+    preset : str, optional
+        Name of a preset of defaults (see :mod:`comove.groups.presets`); options given
+        explicitly override it.
+    progress : bool, default False
+        Show a progress bar over the stages.
+    **options
+        Any field of :class:`~comove.io.reading.ColumnSpec`,
+        :class:`~comove.tracks.cleaning.CleanParams`,
+        :class:`~comove.tracks.alignment.AlignParams`,
+        :class:`~comove.groups.grouping.GroupParams` (``radius`` is required unless a
+        preset gives it) or :class:`~comove.groups.episodes.EpisodeParams`.
+
+    Returns
+    -------
+    GroupsResult
+    """
+    merged = preset_values(preset)
+    merged.update(options)  # an explicit None (a predicate switched off) overrides too
+    merged.setdefault("require_role", False)
+    if merged.get("radius") is None:
+        raise InputError("give --radius (metres) or a --preset that sets one")
+    columns, cleaning, alignment, grouping, episode_params, significance, run_params = (
+        split_options(GROUP_STAGES, merged)
+    )
+    run_params = run_params.resolved()
+    bar = _Progress(progress, total=6 if significance.permutations > 0 else 5)
+    digest = _digest_beside(source)
+    try:
+        snaps, quality = _aligned(source, columns, cleaning, alignment, bar)
+        # The dyads (whole-array numpy, which releases the interpreter lock) are counted
+        # in a helper thread while the episodes (mostly Python) are searched: both only
+        # read the snapshots and pairs, so the results are those of one after the other.
+        with bar.stage("groups, episodes and dyads"), ThreadPoolExecutor(max_workers=1) as side:
+            counting: list[Future] = []
+
+            def count_dyads(pairs: NeighbourPairs, _motion: object) -> None:
+                counting.append(side.submit(dyad_table, snaps, pairs))
+
+            tally = group_chain(snaps, grouping, episode_params, workers=run_params.threads,
+                                before_search=count_dyads)  # fmt: skip
+            table, centroids = episode_table(snaps, tally.episodes, tally.motion,
+                                             grouping.min_speed)  # fmt: skip
+            dyads = counting[0].result()
+        with bar.stage("paths"):
+            paths, display = episode_paths(snaps, table, centroids)
+        roles = role_rollup(table)
+        if significance.permutations > 0:
+            with bar.stage("significance"):
+                pair_tests, role_tests = group_tests(
+                    snaps, tally, dyads, table["roles"], grouping, episode_params, significance,
+                    run_params, progress,
+                )  # fmt: skip
+            if pair_tests is not None:
+                dyads = dyads.merge(pair_tests, on=["object_a", "object_b"], how="left",
+                                    validate="1:1")  # fmt: skip
+            roles = roles.merge(role_tests.drop(columns="episodes"), on="roles", how="left",
+                                validate="1:1")  # fmt: skip
+    finally:
+        bar.close()
+    run = run_record(
+        "groups",
+        source,
+        settings_record(
+            columns,
+            cleaning,
+            _effective(snaps),
+            grouping,
+            episode_params,
+            significance,
+            run_params,
+        ),  # fmt: skip
+        extra={"preset": preset, "caution": CAUTION},
+        digest=digest.result(),
+    )
+    return GroupsResult(table, roles, dyads, paths, display, quality, run, snaps, centroids)

@@ -1,0 +1,603 @@
+"""A self-contained HTML report of a results folder.
+
+:func:`build_report` reads what ``comove mine`` and ``comove groups`` wrote
+into a folder and writes ``report.html`` beside it: one file with the figures
+embedded as PNG data URIs, inline CSS, no scripts and nothing fetched from a
+network, plus the same figures as PNG files under ``figures/``. Each section
+appears only when its data are in the folder. Everything drawn is thinned or
+binned for drawing; nothing is recomputed.
+"""
+
+from __future__ import annotations
+
+import base64
+import html
+import os
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from comove.errors import InputError
+from comove.io.results import (
+    CAUTION,
+    REPORT,
+    ResultsFolder,
+    bytes_writer,
+    claim,
+    open_results,
+    text_writer,
+)
+from comove.present import figures
+
+#: The report's page, beside the results.
+PAGE = "report.html"
+#: The report's figures, each written as ``figures/<name>.png``.
+FIGURE_NAMES = ("patterns_pi", "track_map", "episode_timeline", "dyad_matrix", "cross_l")
+#: Most role patterns drawn as timelines.
+TOP_PATTERNS = 8
+#: Most role patterns listed in the table.
+TABLE_PATTERNS = 30
+#: Most episodes drawn on the map.
+MAP_EPISODES = 6
+#: Most episodes drawn on the timeline.
+TIMELINE_EPISODES = 40
+#: Most role pairs drawn as cross-L curves.
+CROSS_PAIRS = 6
+
+_CSS = """
+body{font-family:"DejaVu Sans",Verdana,sans-serif;color:#222;background:#fff;margin:0 auto;
+max-width:60rem;padding:1.5rem;line-height:1.45;font-size:15px}
+h1{font-size:1.5rem;font-weight:600;margin:.2rem 0 1rem}
+h2{font-size:1.2rem;font-weight:600;margin:2.2rem 0 .6rem;border-bottom:1px solid #ccc;
+padding-bottom:.2rem}
+h3{font-size:1rem;font-weight:600;margin:1.2rem 0 .4rem}
+.caution{border:2px solid #D55E00;background:#fff6ef;padding:.7rem 1rem;margin:1rem 0;
+font-weight:600}
+table{border-collapse:collapse;margin:.5rem 0 1rem;font-size:.85rem}
+th,td{border:1px solid #ddd;padding:.25rem .5rem;text-align:left;vertical-align:top}
+th{background:#f4f4f4;font-weight:600}
+td.num{text-align:right;font-variant-numeric:tabular-nums}
+figure{margin:1rem 0}
+figure img{max-width:100%;height:auto;border:1px solid #eee}
+figcaption{font-size:.85rem;color:#555}
+.muted{color:#666;font-size:.85rem}
+code{font-size:.85rem}
+"""
+
+
+@dataclass
+class _Picture:
+    """One figure of the report."""
+
+    name: str
+    png: figures.Png
+    alt: str
+    caption: str
+
+
+@dataclass
+class _Results:
+    """What a results folder holds (absent files are None or empty)."""
+
+    source: ResultsFolder
+    runs: dict[str, dict] = field(default_factory=dict)
+    quality: dict[str, dict] = field(default_factory=dict)
+    patterns: pd.DataFrame | None = None
+    cross_k: pd.DataFrame | None = None
+    episodes: pd.DataFrame | None = None
+    dyads: pd.DataFrame | None = None
+
+
+def _load(source: ResultsFolder) -> _Results:
+    """Return the tables and records of a results folder."""
+    res = _Results(source)
+    res.runs = source.runs()
+    res.quality = source.quality()
+    res.patterns = source.table("patterns.csv")
+    res.cross_k = source.table("cross_k.csv")
+    res.episodes = source.table("episodes.csv")
+    res.dyads = source.table("dyads.csv")
+    return res
+
+
+# ---------------------------------------------------------------- text helpers
+
+
+def _e(value: object) -> str:
+    """Return ``value`` as HTML-escaped text."""
+    return html.escape(str(value), quote=True)
+
+
+def _num(value: object, digits: int = 3) -> str:
+    """Return a number with ``digits`` significant digits, or a dash when missing."""
+    try:
+        v = float(value)  # type: ignore[arg-type]
+    except (TypeError, ValueError):
+        return _e(value)
+    if not np.isfinite(v):
+        return "—" if np.isnan(v) else ("∞" if v > 0 else "−∞")
+    if v == int(v) and abs(v) < 1e9:
+        return f"{int(v):,}"
+    return f"{v:.{digits}g}"
+
+
+def _duration(seconds: object) -> str:
+    """Return a duration in words, such as ``"5 min 59.9 s"`` or ``"2 d 3 h"``."""
+    try:
+        s = float(seconds)  # type: ignore[arg-type]
+    except (TypeError, ValueError):
+        return "—"
+    if not np.isfinite(s):
+        return "—"
+    if s < 60:
+        return f"{s:.3g} s"
+    if s < 3600:
+        m, rest = divmod(s, 60)
+        return f"{int(m)} min {rest:.3g} s" if rest >= 0.05 else f"{int(m)} min"
+    if s < 86_400:
+        h, rest = divmod(s, 3600)
+        return f"{int(h)} h {int(rest // 60)} min" if rest >= 60 else f"{int(h)} h"
+    d, rest = divmod(s, 86_400)
+    return f"{int(d)} d {int(rest // 3600)} h" if rest >= 3600 else f"{int(d)} d"
+
+
+def _table(header: list[str], rows: list[list[str]], numeric: set[int] | None = None) -> str:
+    """Return an HTML table; cells are already escaped HTML."""
+    numeric = numeric or set()
+    head = "".join(f"<th>{_e(h)}</th>" for h in header)
+    body = "".join(
+        "<tr>"
+        + "".join(
+            f'<td class="num">{c}</td>' if i in numeric else f"<td>{c}</td>"
+            for i, c in enumerate(row)
+        )
+        + "</tr>"
+        for row in rows
+    )
+    return f"<table><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>"
+
+
+def _roles_text(roles: object) -> str:
+    """Return ``;``-joined roles as ``a + b`` text (not yet escaped); empty when missing."""
+    return " + ".join(roles.split(";")) if isinstance(roles, str) else ""
+
+
+def _when(value: object) -> str:
+    """Return a UTC time as ``2026-05-16 10:03:57.2 UTC`` (not yet escaped)."""
+    if not isinstance(value, str) or not value:
+        return "—"
+    try:
+        ts = pd.Timestamp(value)
+    except ValueError:
+        return value
+    ts = ts.tz_convert("UTC") if ts.tzinfo else ts
+    text = ts.strftime("%Y-%m-%d %H:%M:%S.%f").rstrip("0").rstrip(".")
+    return f"{text} UTC"
+
+
+def _figure_html(pic: _Picture) -> str:
+    """Return an HTML figure embedding ``pic`` as a PNG data URI."""
+    data = base64.b64encode(pic.png.data).decode("ascii")
+    return (
+        f'<figure><img src="data:image/png;base64,{data}" width="{pic.png.width}" '
+        f'height="{pic.png.height}" alt="{_e(pic.alt)}">'
+        f"<figcaption>{_e(pic.caption)}</figcaption></figure>"
+    )
+
+
+# ---------------------------------------------------------------- sections
+
+
+def _run_section(res: _Results) -> str:
+    """Return the section on the run: input, settings, versions, data quality, caution."""
+    parts = ["<h2>The run</h2>"]
+    cautions = {str(r.get("caution")) for r in res.runs.values() if r.get("caution")}
+    for text in sorted(cautions) or [CAUTION]:
+        parts.append(f'<p class="caution">Caution: {_e(text)}</p>')
+    if not res.runs:
+        parts.append('<p class="muted">No run.json in the folder.</p>')
+    for command, run in res.runs.items():
+        parts.append(f"<h3>Command: comove {_e(command)}</h3>")
+        inputs = run.get("input")
+        inputs = inputs if isinstance(inputs, list) else [inputs]
+        rows = [
+            ["input", "<br>".join(f"<code>{_e(p)}</code>" for p in inputs)],
+            ["input digest", f"<code>{_e(run.get('input_digest', '—'))}</code>"],
+            ["created", _e(run.get("created", "—"))],
+        ]
+        if run.get("preset"):
+            rows.append(["preset", _e(run["preset"])])
+        for stage, values in (run.get("settings") or {}).items():
+            if isinstance(values, dict):
+                shown = "; ".join(f"{k} = {v}" for k, v in values.items() if v is not None)
+            else:
+                shown = str(values)
+            rows.append([_e(stage), _e(shown or "defaults")])
+        versions = run.get("versions") or {}
+        rows.append(["versions", _e(", ".join(f"{k} {v}" for k, v in versions.items()))])
+        parts.append(_table(["item", "value"], rows))
+    parts.append(_quality_html(res.quality))
+    return "\n".join(parts)
+
+
+def _quality_html(quality: dict[str, dict]) -> str:
+    """Return the data-quality summary, one table per distinct quality record."""
+    if not quality:
+        return '<p class="muted">No quality.json in the folder.</p>'
+    distinct: list[tuple[list[str], dict]] = []
+    for command, q in quality.items():
+        for names, seen in distinct:
+            if seen == q:
+                names.append(command)
+                break
+        else:
+            distinct.append(([command], q))
+    parts = []
+    for names, q in distinct:
+        label = " and ".join(f"comove {n}" for n in names)
+        parts.append(f"<h3>Data quality ({_e(label)})</h3>")
+        dropped = {k: v for k, v in (q.get("dropped") or {}).items() if v}
+        merged = {k: v for k, v in (q.get("merged") or {}).items() if v}
+        interval = q.get("sampling_interval_s") or {}
+        coords = q.get("coordinates") or {}
+        align = q.get("alignment") or {}
+        rows = [
+            ["rows read", _num(q.get("rows_read"))],
+            ["rows kept", _num(q.get("rows_kept"))],
+            [
+                "dropped",
+                _e("; ".join(f"{k.replace('_', ' ')}: {v:,}" for k, v in dropped.items()))
+                if dropped
+                else "none",
+            ],
+        ]
+        if merged:
+            rows.append(["merged", _e("; ".join(f"{k.replace('_', ' ')}: {v:,}"
+                                               for k, v in merged.items()))])  # fmt: skip
+        rows += [
+            ["objects", _num(q.get("objects"))],
+            ["roles", _num(q.get("roles"))],
+            [
+                "time span",
+                _e(
+                    f"{_when(q.get('time_start'))} to {_when(q.get('time_end'))} "
+                    f"({_duration(q.get('time_span_s'))})"
+                ),  # fmt: skip
+            ],
+            [
+                "sampling interval",
+                _e(
+                    f"median {_num(interval.get('median'))} s "
+                    f"(10–90 %: {_num(interval.get('p10'))}–{_num(interval.get('p90'))} s)"
+                )
+                if interval
+                else "—",  # fmt: skip
+            ],
+            [
+                "coordinates",
+                _e(
+                    f"input {coords.get('input', '—')}"
+                    + (f" ({coords['input_crs']})" if coords.get("input_crs") else "")
+                    + f"; working plane {coords.get('working_crs', '—')}"
+                ),  # fmt: skip
+            ],
+        ]
+        if align:
+            rows.append([
+                "alignment",
+                _e(f"step {_num(align.get('step_s'))} s, gaps bridged up to "
+                   f"{_num(align.get('max_gap_s'))} s, {_num(align.get('snapshots'))} snapshots, "
+                   f"{_num(align.get('entries'))} positions"),
+            ])  # fmt: skip
+        if q.get("time_note"):
+            rows.append(["time note", _e(q["time_note"])])
+        parts.append(_table(["item", "value"], rows))
+    return "\n".join(parts)
+
+
+def _mine_settings(res: _Results) -> dict[str, dict]:
+    """Return the settings of the mine run, or an empty dict."""
+    return (res.runs.get("mine") or {}).get("settings") or {}
+
+
+def _period(res: _Results, times: pd.Series | None) -> tuple[int, int, int]:
+    """Return the run's start, end and step in nanoseconds (from quality, else the data)."""
+    q = res.quality.get("mine") or next(iter(res.quality.values()), {})
+    start = end = None
+    if q.get("time_start") and q.get("time_end"):
+        start = pd.Timestamp(q["time_start"]).as_unit("ns").value
+        end = pd.Timestamp(q["time_end"]).as_unit("ns").value
+    step_s = (q.get("alignment") or {}).get("step_s") or (
+        _mine_settings(res).get("AlignParams") or {}
+    ).get("step")
+    if times is not None and len(times):
+        t = figures.ns_times(times)
+        lo, hi = int(t.min()), int(t.max())
+        start = lo if start is None else min(start, lo)
+        end = hi if end is None else max(end, hi)
+        if not step_s:
+            gaps = np.diff(np.unique(t))
+            step_s = float(np.median(gaps)) / 1e9 if len(gaps) else 1.0
+    step_ns = max(int(round(float(step_s or 1.0) * 1e9)), 1)
+    return int(start or 0), int(end or 0), step_ns
+
+
+def _ranked(patterns: pd.DataFrame) -> pd.DataFrame:
+    """Return patterns ranked by time prevalence, then longest run, then prevalent time."""
+    keys = [c for c in ("time_prevalence", "longest_run_seconds", "prevalent_seconds")
+            if c in patterns]  # fmt: skip
+    if not keys:
+        return patterns
+    return patterns.sort_values(keys, ascending=False, kind="stable").reset_index(drop=True)
+
+
+def _patterns_section(res: _Results) -> tuple[str, list[_Picture]]:
+    """Return the ranked role patterns: table and PI timelines."""
+    patterns = _ranked(res.patterns)  # type: ignore[arg-type]
+    parts = ["<h2>Ranked role patterns</h2>"]
+    if patterns.empty:
+        parts.append("<p>No role pattern met the thresholds of this run.</p>")
+        return "\n".join(parts), []
+    tested = "p_value" in patterns
+    header = ["rank", "roles", "time prevalence", "prevalent", "longest run", "from", "mean PI"]
+    if tested:
+        header += ["p", "q"]
+    rows = []
+    for i, row in patterns.head(TABLE_PATTERNS).iterrows():
+        cells = [
+            str(i + 1),
+            _e(_roles_text(row["roles"])),
+            _num(row.get("time_prevalence")),
+            _e(_duration(row.get("prevalent_seconds"))),
+            _e(_duration(row.get("longest_run_seconds"))),
+            _e(_when(row.get("longest_run_start"))),
+            _num(row.get("mean_participation_index")),
+        ]
+        if tested:
+            cells += [_num(row.get("p_value")), _num(row.get("q_value"))]
+        rows.append(cells)
+    numeric = {0, 2, 6, 7, 8}
+    if len(patterns) > TABLE_PATTERNS:
+        parts.append(f'<p class="muted">The top {TABLE_PATTERNS} of {len(patterns):,} '
+                     "patterns; all are in patterns.csv.</p>")  # fmt: skip
+    parts.append(_table(header, rows, numeric))
+    name = "pi_series.parquet"
+    if not res.source.has(name):
+        return "\n".join(parts), []
+    top = [str(r) for r in patterns["roles"].head(TOP_PATTERNS)]
+    columns = ["roles", "time", "participation_index", "prevalent"]
+    try:
+        series = res.source.parquet(name, columns=columns, filters=[("roles", "in", top)])
+    except (InputError, NotImplementedError, TypeError):  # a reader without filter support
+        series = res.source.parquet(name, columns=columns)
+        series = series[series["roles"].astype(str).isin(top)]
+    if series is None or series.empty:
+        return "\n".join(parts), []
+    threshold = (_mine_settings(res).get("ColocationParams") or {}).get("min_participation")
+    start, end, step = _period(res, series["time"])
+    labels = [f"time prevalence {_num(v)}" for v in patterns["time_prevalence"].head(len(top))]
+    fig, note = figures.pi_timelines(
+        series, top, threshold=threshold, start_ns=start, end_ns=end, step_ns=step,
+        labels=labels,
+    )  # fmt: skip
+    pic = _Picture(
+        "patterns_pi",
+        figures.to_png(fig),
+        "Participation index over time for the top role patterns",
+        f"Participation index of the top {len(top)} patterns over the whole period; shaded: "
+        f"prevalent (index at or above the threshold). {note}",
+    )
+    parts.append(_figure_html(pic))
+    return "\n".join(parts), [pic]
+
+
+def _lonlat(res: _Results, paths: Any) -> bool:
+    """Return whether the folder's coordinates are longitude/latitude."""
+    for q in res.quality.values():
+        coords = q.get("coordinates") or {}
+        if coords.get("input"):
+            return coords["input"] == "lonlat"
+    crs = getattr(paths, "crs", None)
+    return bool(crs is not None and crs.is_geographic)
+
+
+def _top_episodes(episodes: pd.DataFrame, n: int) -> pd.DataFrame:
+    """Return the ``n`` longest episodes."""
+    return episodes.sort_values(["duration_s", "episode"], ascending=[False, True]).head(n)
+
+
+def _map_section(res: _Results, max_points: int) -> tuple[str, list[_Picture]]:
+    """Return the map of the track sample with the longest episodes' paths."""
+    sample = res.source.parquet("track_sample.parquet", columns=["x", "y"])
+    stored_every = 1
+    if sample is not None:
+        stored_every = int(sample.attrs.get("every", 1) or 1)
+    paths = coords = geo = None
+    if res.episodes is not None and len(res.episodes):
+        geo = res.source.geoparquet("episode_paths.parquet")
+    if geo is not None:
+        import shapely
+
+        chosen = _top_episodes(res.episodes, MAP_EPISODES)["episode"].astype(str)
+        geo = geo.assign(episode=geo["episode"].astype(str)).set_index("episode")
+        chosen = [e for e in chosen if e in geo.index]
+        paths = geo.loc[chosen].reset_index()[["episode", "members"]]
+        coords = [shapely.get_coordinates(g) for g in geo.loc[chosen].geometry]
+        lonlat = _lonlat(res, geo)
+    else:
+        lonlat = _lonlat(res, None)
+    if (sample is None or sample.empty) and (paths is None or paths.empty):
+        return "", []
+    fig, note = figures.track_map(
+        sample, paths, lonlat=lonlat, max_points=max_points, stored_every=stored_every,
+        path_coords=coords or [],
+    )  # fmt: skip
+    what = "longitude/latitude, equal-distance aspect" if lonlat else "planar metres"
+    pic = _Picture(
+        "track_map",
+        figures.to_png(fig),
+        "Map of the sampled track positions with the longest episodes' paths",
+        f"Positions of the results folder's track sample ({what}), grey; coloured lines: "
+        f"centroid paths of the longest episodes, dot at the start. {note}",
+    )
+    return "<h2>Map of the tracks</h2>\n" + _figure_html(pic), [pic]
+
+
+def _timeline_section(res: _Results) -> tuple[str, list[_Picture]]:
+    """Return the timeline of episodes and a short table of the longest."""
+    episodes = res.episodes
+    parts = ["<h2>Timeline of episodes</h2>"]
+    if episodes is None or episodes.empty:
+        parts.append("<p>No episode met the thresholds of this run.</p>")
+        return "\n".join(parts), []
+    fig, note = figures.episode_timeline(episodes, TIMELINE_EPISODES)
+    pic = _Picture(
+        "episode_timeline",
+        figures.to_png(fig),
+        "Timeline of the longest episodes",
+        f"One bar per episode from its start to its end (UTC). {note}",
+    )
+    parts.append(_figure_html(pic))
+    rows = []
+    for _, row in _top_episodes(episodes, 15).iterrows():
+        rows.append([
+            _e(row["episode"]), _e(_when(row["start"])), _e(_duration(row["duration_s"])),
+            # results written before time together was recorded have no such column
+            _e(_duration(row["together_s"])) if "together_s" in row else "",
+            _num(row["size"]), _e(_roles_text(row.get("roles", ""))),
+            _e(", ".join(str(row["members"]).split(";"))),
+        ])  # fmt: skip
+    parts.append("<h3>The longest episodes</h3>")
+    parts.append(_table(["episode", "start", "duration", "together", "size", "roles", "members"],
+                        rows, {4}))  # fmt: skip
+    return "\n".join(parts), [pic]
+
+
+def _dyad_section(res: _Results) -> tuple[str, list[_Picture]]:
+    """Return the dyad association heatmap and the strongest pairs."""
+    dyads = res.dyads
+    if dyads is None or dyads.empty or "half_weight_index" not in dyads:
+        return "", []
+    matrix, note = figures.association_matrix(dyads)
+    if len(matrix) < 2:
+        return "", []
+    pic = _Picture(
+        "dyad_matrix",
+        figures.to_png(figures.dyad_heatmap(matrix, note)),
+        "Heatmap of the half-weight association index between objects",
+        "Half-weight index of every pair of objects; objects ordered by average-linkage "
+        f"clustering on 1 − index, so groups that keep together show as bright blocks. {note}",
+    )
+    strongest = dyads.sort_values("half_weight_index", ascending=False).head(10)
+    rows = [
+        [_e(r["object_a"]), _e(r["object_b"]), _num(r["half_weight_index"]),
+         _e(_duration(r.get("together_seconds")))]
+        for _, r in strongest.iterrows()
+    ]  # fmt: skip
+    table = _table(["object", "object", "half-weight index", "together"], rows, {2})
+    return (
+        "<h2>Dyad association</h2>\n" + _figure_html(pic) + "<h3>Strongest pairs</h3>" + table,
+        [pic],
+    )
+
+
+def _cross_section(res: _Results) -> tuple[str, list[_Picture]]:
+    """Return the cross-L curves of the top role pairs."""
+    cross = res.cross_k
+    if cross is None or cross.empty or not np.isfinite(cross["l_minus_r"]).any():
+        return "", []
+    cross = cross[np.isfinite(cross["l_minus_r"])]
+    fig, pairs = figures.cross_l_curves(cross, CROSS_PAIRS)
+    pic = _Picture(
+        "cross_l",
+        figures.to_png(fig),
+        "Cross-L curves of the top role pairs",
+        f"L(r) − r of the {len(pairs)} role pairs with the largest departure; above 0: "
+        "closer than independent placement, band: pointwise null envelope.",
+    )
+    return "<h2>Cross-L curves of role pairs</h2>\n" + _figure_html(pic), [pic]
+
+
+# ---------------------------------------------------------------- assembly
+
+
+def _page(title: str, body: str) -> str:
+    """Return the whole HTML page."""
+    return (
+        '<!DOCTYPE html>\n<html lang="en"><head><meta charset="utf-8">'
+        '<meta name="viewport" content="width=device-width, initial-scale=1">'
+        f"<title>{_e(title)}</title><style>{_CSS}</style></head>\n<body>\n"
+        f"<h1>{_e(title)}</h1>\n{body}\n</body></html>\n"
+    )
+
+
+def build_report(folder: str | os.PathLike, *, max_points: int = 50_000) -> Path:
+    """Write ``report.html`` and ``figures/*.png`` for a results folder and return the report.
+
+    Parameters
+    ----------
+    folder : path
+        A folder written by ``comove mine`` and/or ``comove groups`` (merged
+        folders give one report of both).
+    max_points : int, default 50_000
+        Most track positions drawn on the map; the folder's track sample is
+        thinned evenly to this for drawing.
+
+    Returns
+    -------
+    Path
+        ``folder/report.html``.
+
+    Raises
+    ------
+    InputError
+        When ``folder`` does not exist or holds neither ``patterns.csv`` nor
+        ``episodes.csv``, or when one of its files cannot be read.
+
+    Notes
+    -----
+    Sections, each only when its data exist: the run (input, settings,
+    versions, data quality and the caution); ranked role patterns with
+    participation-index timelines; a map of the tracks with the longest
+    episodes' paths; a timeline of episodes; the dyad association matrix;
+    cross-L curves with envelopes. The page is one self-contained file (PNG
+    data URIs, inline CSS, no scripts); every text from the data is
+    HTML-escaped. The folder is locked while the report is built, and the
+    page and figures are written through :func:`comove.io.results.claim`: staged
+    under temporary names and renamed into place, figures first, so a failure
+    leaves the previous report (or none), never half of one. Only the report's
+    own files are replaced: anything else in ``figures/`` is kept.
+    """
+    source = open_results(folder)
+    owned = (PAGE, *(f"figures/{name}.png" for name in FIGURE_NAMES))  # older comove's report
+    with claim(source.path, command=REPORT, owned=owned) as held:
+        page, pictures = _assemble(_load(source), max_points)
+        files = {f"figures/{pic.name}.png": bytes_writer(pic.png.data) for pic in pictures}
+        files[PAGE] = text_writer(page)
+        held.commit(files)
+    return source.path / PAGE
+
+
+def _assemble(res: _Results, max_points: int) -> tuple[str, list[_Picture]]:
+    """Return the report's page and its figures."""
+    body = [_run_section(res)]
+    pictures: list[_Picture] = []
+    builders: list[Any] = []
+    if res.patterns is not None:
+        builders.append(lambda: _patterns_section(res))
+    if res.source.has("track_sample.parquet") or res.source.has("episode_paths.parquet"):
+        builders.append(lambda: _map_section(res, max_points))
+    if res.episodes is not None:
+        builders.append(lambda: _timeline_section(res))
+    builders += [lambda: _dyad_section(res), lambda: _cross_section(res)]
+    for build in builders:
+        html_part, pics = build()
+        if html_part:
+            body.append(html_part)
+            pictures += pics
+    commands = " and ".join(f"comove {c}" for c in res.runs) or "comove"
+    title = f"Results of {commands}: {res.source.path.resolve().name}"
+    return _page(title, "\n".join(body)), pictures

@@ -1,0 +1,477 @@
+"""Put every track on one common time grid: the aligned snapshots.
+
+The grid is the multiples of ``step`` seconds since the Unix epoch, so two runs
+with the same step share snapshots whatever their start. Positions between two
+consecutive fixes of an object are linearly interpolated, never across a gap
+longer than ``max_gap`` and never beyond a track's first or last fix. An object
+is *present* at a snapshot when it has an aligned position there; its role at a
+snapshot is the role of its latest fix at or before that snapshot.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass, field, replace
+from typing import TYPE_CHECKING
+
+import numpy as np
+import pyproj
+
+from comove.errors import InputError
+
+if TYPE_CHECKING:
+    from comove.tracks.cleaning import Fixes
+
+NS_PER_S = 1_000_000_000
+
+#: Default ``max_gap`` as a multiple of the step: bridging one or two missed
+#: fixes is harmless for smooth movement; longer holes are treated as absence.
+DEFAULT_GAP_STEPS = 3
+
+#: Round step values (seconds) the default step is chosen from. 0.04 s is in the
+#: list because 25 Hz is the usual rate of optical player tracking.
+ROUND_STEPS_S = (
+    0.001, 0.002, 0.005, 0.01, 0.02, 0.04, 0.05, 0.1, 0.2, 0.25, 0.5,
+    1.0, 2.0, 5.0, 10.0, 15.0, 20.0, 30.0, 60.0, 120.0, 300.0, 600.0, 900.0,
+    1800.0, 3600.0, 7200.0, 10800.0, 21600.0, 43200.0, 86400.0,
+)  # fmt: skip
+
+
+def _positive_or_none(value: float | None, name: str) -> None:
+    if value is not None and not (np.isfinite(value) and value > 0):
+        raise InputError(f"--{name.replace('_', '-')} must be a positive number of seconds")
+
+
+@dataclass(frozen=True)
+class AlignParams:
+    """Settings of the alignment stage.
+
+    Parameters
+    ----------
+    step : float or None, default None
+        Snapshot spacing in seconds. ``None`` picks the round value nearest (on a
+        log scale) to the median sampling interval, see :func:`default_step`.
+    max_gap : float or None, default None
+        Longest interval between two fixes, in seconds, that is bridged by
+        interpolation. ``None`` means ``DEFAULT_GAP_STEPS`` times the step.
+    """
+
+    step: float | None = field(
+        default=None,
+        metadata={
+            "help": "snapshot spacing in seconds (default: a round value near the "
+            "median sampling interval)"
+        },
+    )
+    max_gap: float | None = field(
+        default=None,
+        metadata={
+            "help": f"longest gap between fixes bridged by interpolation, seconds "
+            f"(default: {DEFAULT_GAP_STEPS} x step)"
+        },
+    )
+
+    def __post_init__(self) -> None:
+        _positive_or_none(self.step, "step")
+        _positive_or_none(self.max_gap, "max_gap")
+
+
+@dataclass
+class Snapshots:
+    """Aligned positions of every present object at every snapshot.
+
+    One *entry* per (snapshot, present object), sorted by snapshot then object.
+    Entry indices are the node ids of the per-snapshot neighbour graphs.
+
+    Attributes
+    ----------
+    step_ns : int
+        Snapshot spacing in nanoseconds.
+    first_index : int
+        Grid index (time // step) of snapshot 0.
+    n_snapshots : int
+        Number of grid snapshots from the first to the last with an entry.
+    snap : ndarray of int64
+        Snapshot index of each entry (0 .. n_snapshots-1), non-decreasing.
+    obj, role : ndarray of int32
+        Object and role code of each entry.
+    x, y : ndarray of float64
+        Position of each entry in metres in the working plane.
+    objects, roles : ndarray of str
+        Names behind the object and role codes.
+    max_gap_ns : int
+        Gap bridged by interpolation, in nanoseconds.
+    metric_crs, input_crs
+        Passed on from :class:`comove.tracks.cleaning.Fixes`.
+    """
+
+    step_ns: int
+    first_index: int
+    n_snapshots: int
+    snap: np.ndarray
+    obj: np.ndarray
+    role: np.ndarray
+    x: np.ndarray
+    y: np.ndarray
+    objects: np.ndarray
+    roles: np.ndarray
+    max_gap_ns: int
+    metric_crs: pyproj.CRS | None = None
+    input_crs: str | None = None
+
+    @property
+    def n_entries(self) -> int:
+        """Return the number of (snapshot, present object) entries."""
+        return int(self.snap.size)
+
+    @property
+    def step_s(self) -> float:
+        """Return the snapshot spacing in seconds."""
+        return self.step_ns / NS_PER_S
+
+    def times(self, snapshot: np.ndarray | None = None) -> np.ndarray:
+        """Return snapshot times as int64 nanoseconds since the epoch (UTC).
+
+        Parameters
+        ----------
+        snapshot : ndarray of int, optional
+            Snapshot indices; all snapshots when omitted.
+        """
+        if snapshot is None:
+            snapshot = np.arange(self.n_snapshots, dtype=np.int64)
+        return (np.asarray(snapshot, dtype=np.int64) + self.first_index) * self.step_ns
+
+    def main_roles(self) -> np.ndarray:
+        """Return each object's most frequent role code (ties: lowest code)."""
+        n_obj = len(self.objects)
+        n_roles = max(len(self.roles), int(self.role.max()) + 1 if self.n_entries else 1)
+        if n_obj * n_roles <= 50_000_000:
+            counts = np.bincount(
+                self.obj.astype(np.int64) * n_roles + self.role, minlength=n_obj * n_roles
+            ).reshape(n_obj, n_roles)
+            return counts.argmax(axis=1)
+        # many objects and roles: count only the (object, role) keys that occur
+        keys = np.sort(self.obj.astype(np.int64) * n_roles + self.role)
+        first = np.flatnonzero(np.r_[True, keys[1:] != keys[:-1]])
+        count = np.diff(np.append(first, keys.size))
+        key = keys[first]
+        order = np.lexsort((key % n_roles, -count, key // n_roles))
+        obj = key[order] // n_roles
+        best = order[np.r_[True, obj[1:] != obj[:-1]]]
+        roles = np.zeros(n_obj, dtype=np.int64)
+        roles[key[best] // n_roles] = key[best] % n_roles
+        return roles
+
+    def offsets(self) -> np.ndarray:
+        """Return CSR offsets: entries of snapshot ``s`` are ``offsets[s]:offsets[s+1]``.
+
+        Computed once per ``snap`` array and returned read-only.
+        """
+        return self._derived(
+            "offsets",
+            (self.snap, self.n_snapshots),
+            lambda: np.searchsorted(self.snap, np.arange(self.n_snapshots + 1), side="left"),
+        )
+
+    def object_order(self) -> np.ndarray:
+        """Return the entries in (object, snapshot) order: each object's track is one run.
+
+        A stable sort of the object codes, so snapshot order is kept within each
+        object; with fewer than 2**15 objects the codes are sorted as 16-bit
+        integers, which numpy does as a radix sort (O(n)). Computed once per
+        ``obj`` array and returned read-only.
+        """
+
+        def order() -> np.ndarray:
+            codes = self.obj.astype(np.int16) if len(self.objects) < 2**15 else self.obj
+            return np.argsort(codes, kind="stable")
+
+        return self._derived("object_order", (self.obj,), order)
+
+    def object_bounds(self) -> np.ndarray:
+        """Return where each object's run starts in :meth:`object_order` (n_objects + 1 values).
+
+        Object o's entries are ``object_order()[bounds[o]:bounds[o + 1]]``.
+        Computed once per ``obj`` array and returned read-only.
+        """
+        return self._derived(
+            "object_bounds",
+            (self.obj,),
+            lambda: np.concatenate(
+                [[0], np.cumsum(np.bincount(self.obj, minlength=len(self.objects)))]
+            ),
+        )
+
+    def window(self, start: int, stop: int) -> Snapshots:
+        """Return the snapshots ``start`` to ``stop - 1`` as a chunk of their own.
+
+        The chunk keeps the object and role codes and names, so results of
+        chunks of one run can be combined; its snapshot 0 is this run's
+        snapshot ``start`` (``first_index`` moves with it). The entry arrays
+        are views, not copies.
+        """
+        start, stop = max(int(start), 0), min(int(stop), self.n_snapshots)
+        lo, hi = self.offsets()[[start, max(stop, start)]]
+        return replace(
+            self,
+            first_index=self.first_index + start,
+            n_snapshots=max(stop - start, 0),
+            snap=self.snap[lo:hi] - start,
+            obj=self.obj[lo:hi],
+            role=self.role[lo:hi],
+            x=self.x[lo:hi],
+            y=self.y[lo:hi],
+        )
+
+    def _derived(self, name: str, inputs: tuple, compute: Callable[[], np.ndarray]) -> np.ndarray:
+        """Return ``compute()``, kept while the attributes it derives from are the same objects.
+
+        Several stages ask for the same orders; the inputs are compared by
+        identity, so an attribute given a new array is never answered from the old.
+        """
+        held = self.__dict__.get("_cache_" + name)
+        if held is not None and all(a is b for a, b in zip(held[0], inputs, strict=True)):
+            return held[1]
+        value = compute()
+        value.flags.writeable = False
+        self.__dict__["_cache_" + name] = (inputs, value)
+        return value
+
+
+def longest_runs(
+    set_id: np.ndarray, snap: np.ndarray, n_sets: int
+) -> tuple[np.ndarray, np.ndarray]:
+    """Return the longest run length and its first snapshot per set.
+
+    ``set_id``/``snap`` list the snapshots at which each set (a role set, a
+    pair of objects) holds, sorted by set then snapshot; a run is a stretch
+    of consecutive snapshots.
+    """
+    longest = np.zeros(n_sets, dtype=np.int64)
+    start = np.full(n_sets, -1, dtype=np.int64)
+    if set_id.size == 0:
+        return longest, start
+    brk = np.ones(set_id.size, dtype=bool)
+    brk[1:] = (set_id[1:] != set_id[:-1]) | (snap[1:] != snap[:-1] + 1)
+    run_first = np.flatnonzero(brk)
+    run_len = np.diff(np.append(run_first, set_id.size))
+    run_set = set_id[run_first]
+    # longest per set; ties go to the earliest run
+    order = np.lexsort((run_first, -run_len, run_set))
+    best = order[np.r_[True, run_set[order][1:] != run_set[order][:-1]]]
+    longest[run_set[best]] = run_len[best]
+    start[run_set[best]] = snap[run_first[best]]
+    return longest, start
+
+
+def default_step(fixes: Fixes) -> float:
+    """Return a round snapshot step (seconds) near the median sampling interval.
+
+    Parameters
+    ----------
+    fixes : Fixes
+        Cleaned fixes, sorted by object then time.
+
+    Returns
+    -------
+    float
+        The value of ``ROUND_STEPS_S`` nearest on a log scale to the median
+        interval between consecutive fixes of the same object.
+    """
+    same = fixes.obj[1:] == fixes.obj[:-1]
+    dt = np.diff(fixes.time)[same]
+    dt = dt[dt > 0]
+    if dt.size == 0:
+        raise InputError(
+            "cannot choose a time step: no object has two fixes at different times; give --step"
+        )
+    median_s = float(np.median(dt)) / NS_PER_S
+    steps = np.asarray(ROUND_STEPS_S)
+    return float(steps[np.argmin(np.abs(np.log(steps) - np.log(median_s)))])
+
+
+def align(fixes: Fixes, params: AlignParams | None = None) -> Snapshots:
+    """Return the tracks interpolated onto the common snapshot grid.
+
+    Parameters
+    ----------
+    fixes : Fixes
+        Cleaned fixes sorted by object then strictly increasing time.
+    params : AlignParams, optional
+        Step and maximum bridged gap.
+
+    Returns
+    -------
+    Snapshots
+        One entry per (snapshot, present object).
+
+    Notes
+    -----
+    Fully vectorised: each fix owns the grid points in the half-open interval up
+    to the next fix of the same object when that interval is bridged (no longer
+    than ``max_gap``), otherwise only a grid point exactly at its own time. Grid
+    points are generated with one ``numpy.repeat`` over all fixes, so time and
+    memory are O(n_fixes + n_entries). The interpolation equals ``numpy.interp``
+    on each track with gaps masked.
+
+    Examples
+    --------
+    Fixes 2 s apart on a 1 s grid: the snapshot between them is interpolated.
+
+    >>> import pandas as pd
+    >>> from comove.tracks.cleaning import clean_fixes
+    >>> from comove.io.reading import read_tracks
+    >>> frame = pd.DataFrame({"id": "a", "time": [10, 12], "x": [0.0, 4.0], "y": 0.0,
+    ...                       "role": "r"})
+    >>> snaps = align(clean_fixes(read_tracks(frame))[0], AlignParams(step=1.0))
+    >>> snaps.first_index, snaps.snap.tolist(), snaps.x.tolist()
+    (10, [0, 1, 2], [0.0, 2.0, 4.0])
+    """
+    params = params or AlignParams()
+    step_s = params.step if params.step is not None else default_step(fixes)
+    step_ns = int(round(step_s * NS_PER_S))
+    if step_ns <= 0:
+        raise InputError("--step is below one nanosecond; give a larger --step")
+    max_gap_s = params.max_gap if params.max_gap is not None else DEFAULT_GAP_STEPS * step_s
+    max_gap_ns = int(round(max_gap_s * NS_PER_S))
+
+    first, count, on_grid, t_next = _owned_grid_points(fixes, step_ns, max_gap_ns)
+    total = int(count.sum())
+    if total == 0:
+        raise InputError(
+            f"no fix falls on or spans a grid point of step {step_s:g} s; "
+            "give a smaller --step or a larger --max-gap"
+        )
+    if total == fixes.time.size and on_grid.all() and (count == 1).all():
+        # every fix sits on its own grid point (regular sampling at the step, the usual
+        # case for 10-25 Hz tracking): nothing to interpolate
+        entries = (first, fixes.x, fixes.y, fixes.obj, fixes.role)
+    else:
+        entries = _interpolate(fixes, first, count, t_next, step_ns)
+    return _in_snapshot_order(fixes, entries, step_ns, max_gap_ns)
+
+
+def _owned_grid_points(
+    fixes: Fixes, step_ns: int, max_gap_ns: int
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Return the grid points each fix owns, as a first grid index and a count.
+
+    Also returns whether each fix lies on a grid point, and the time it is interpolated
+    towards: the next fix's when the gap to it is bridged, else its own.
+    """
+    t = fixes.time
+    n = t.size
+    bridged = np.zeros(n, dtype=bool)
+    if n > 1:
+        bridged[:-1] = (fixes.obj[1:] == fixes.obj[:-1]) & (np.diff(t) <= max_gap_ns)
+    t_next = np.where(bridged, np.roll(t, -1), t)
+
+    # one integer division (slow in numpy): first grid index at or after each fix
+    below = t // step_ns
+    on_grid = t == below * step_ns
+    first = below + ~on_grid
+    # bridged: grid points g with t <= g*step < t_next, where t_next is the next fix and
+    # its first grid index the next entry of ``first``; otherwise only g*step == t
+    last = np.where(bridged, np.roll(first, -1) - 1, first - ~on_grid)
+    count = np.maximum(last - first + 1, 0)
+    return first, count, on_grid, t_next
+
+
+def _interpolate(
+    fixes: Fixes, first: np.ndarray, count: np.ndarray, t_next: np.ndarray, step_ns: int
+) -> tuple[np.ndarray, ...]:
+    """Return grid index, x, y, object and role of every grid point the fixes own."""
+    t = fixes.time
+    n = t.size
+    owner = np.repeat(np.arange(n), count)
+    start = np.cumsum(count) - count
+    grid = first[owner] + (np.arange(owner.size) - start[owner])
+    x0, y0 = fixes.x[owner], fixes.y[owner]
+    nxt = np.minimum(owner + 1, n - 1)
+    span = (t_next - t)[owner]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        w = np.where(span > 0, (grid * step_ns - t[owner]) / np.where(span > 0, span, 1), 0.0)
+    x = x0 + w * (fixes.x[nxt] - x0)
+    y = y0 + w * (fixes.y[nxt] - y0)
+    return grid, x, y, fixes.obj[owner], fixes.role[owner]
+
+
+def _in_snapshot_order(
+    fixes: Fixes, entries: tuple[np.ndarray, ...], step_ns: int, max_gap_ns: int
+) -> Snapshots:
+    """Return the entries (grid index, x, y, object, role), grouped by object, as snapshots."""
+    grid, x, y, obj, role = entries
+    first_index = int(grid.min())
+    snap = grid - first_index
+    # entries come grouped by object with increasing snapshots: a stable sort by
+    # snapshot only merges those runs, giving (snapshot, object) order cheaply
+    order = np.argsort(snap, kind="stable")
+    return Snapshots(
+        step_ns=step_ns,
+        first_index=first_index,
+        n_snapshots=int(snap.max()) + 1,
+        snap=snap[order].astype(np.int64, copy=False),
+        obj=obj[order].astype(np.int32, copy=False),
+        role=role[order].astype(np.int32, copy=False),
+        x=x[order],
+        y=y[order],
+        objects=fixes.objects,
+        roles=fixes.roles,
+        max_gap_ns=max_gap_ns,
+        metric_crs=fixes.metric_crs,
+        input_crs=fixes.input_crs,
+    )
+
+
+def alignment_summary(snaps: Snapshots) -> dict:
+    """Return plain-typed facts about the alignment for the quality report."""
+    per_obj = np.bincount(snaps.obj, minlength=len(snaps.objects))
+    return {
+        "step_s": snaps.step_s,
+        "max_gap_s": snaps.max_gap_ns / NS_PER_S,
+        "snapshots": snaps.n_snapshots,
+        "entries": snaps.n_entries,
+        "mean_objects_per_snapshot": float(snaps.n_entries / max(snaps.n_snapshots, 1)),
+        "objects_never_present": int((per_obj == 0).sum()),
+    }
+
+
+#: Most positions kept in a results folder's track sample (for drawing only).
+SAMPLE_POSITIONS = 200_000
+
+
+def track_sample(snaps: Snapshots, to_input=None, limit: int = SAMPLE_POSITIONS):
+    """Return an evenly thinned sample of the aligned positions, for drawing maps.
+
+    Parameters
+    ----------
+    snaps : Snapshots
+        Aligned snapshots.
+    to_input : callable, optional
+        ``to_input(x, y) -> (x, y)`` taking working-plane metres to the input's
+        CRS (lon/lat for lon/lat input); identity when omitted.
+    limit : int, default 200_000
+        Most positions kept: every k-th snapshot is kept, with k the smallest
+        whole number that brings the count under the limit.
+
+    Returns
+    -------
+    DataFrame
+        ``object``, ``role``, ``time`` (UTC), ``x``, ``y``; ``attrs["every"]``
+        holds k. Only drawing uses it; every computation uses all snapshots.
+    """
+    import pandas as pd
+
+    every = max(1, -(-snaps.n_entries // max(limit, 1)))
+    keep = snaps.snap % every == 0
+    x, y = snaps.x[keep], snaps.y[keep]
+    if to_input is not None:
+        x, y = to_input(x, y)
+    frame = pd.DataFrame({
+        "object": pd.Categorical.from_codes(snaps.obj[keep], categories=snaps.objects),
+        "role": pd.Categorical.from_codes(snaps.role[keep], categories=snaps.roles),
+        "time": pd.to_datetime(snaps.times(snaps.snap[keep]), utc=True),
+        "x": x, "y": y,
+    })  # fmt: skip
+    frame.attrs["every"] = int(every)
+    return frame

@@ -1,0 +1,189 @@
+"""Per-snapshot neighbour graphs: pairs of present objects within a radius.
+
+All snapshots are searched with one k-d tree per chunk of snapshots: the
+snapshots of a chunk are laid side by side along x, each shifted by more than
+the extent of the data plus twice the radius, so that no pair can form across
+snapshots. One tree query then finds the pairs of every snapshot in the chunk,
+which is far faster than one tree per snapshot when snapshots hold few objects.
+"""
+
+from __future__ import annotations
+
+import os
+from concurrent.futures import ThreadPoolExecutor
+from dataclasses import dataclass
+from functools import partial
+
+import numpy as np
+from scipy.spatial import cKDTree
+
+from comove.tracks.alignment import Snapshots
+
+#: Entries per k-d tree. Bounds the memory of the search; smaller trees are also
+#: built faster per entry (measured at 25 Hz with 23 objects: 0.25 s to build one
+#: tree of 3.1 M entries against 0.15 s for two of 1.55 M, and flat below 1 M).
+DEFAULT_CHUNK_ENTRIES = 500_000
+
+#: Most entries searched in one call: pair keys i * n + j must fit in int64.
+MAX_ENTRIES = 3_000_000_000
+
+
+@dataclass
+class NeighbourPairs:
+    """Undirected edges of the neighbour graphs of all snapshots.
+
+    Attributes
+    ----------
+    i, j : ndarray of int64
+        Entry indices (into :class:`~comove.tracks.alignment.Snapshots`) of the two
+        ends, ``i < j``, both in the same snapshot; sorted by ``i`` then ``j``.
+    radius : float
+        Search radius in metres (pairs at exactly this distance are included).
+    """
+
+    i: np.ndarray
+    j: np.ndarray
+    radius: float
+
+    @property
+    def n_pairs(self) -> int:
+        """Return the number of pairs."""
+        return int(self.i.size)
+
+    def keys(self, n_entries: int) -> np.ndarray:
+        """Return sorted int64 keys ``i * n_entries + j`` for membership tests."""
+        return self.i * np.int64(n_entries) + self.j
+
+
+def worker_count(workers: int) -> int:
+    """Return the number of threads asked for by a ``workers`` setting.
+
+    Parameters
+    ----------
+    workers : int
+        Threads wanted; -1 means one per processor, any other number below 1 means one.
+
+    Returns
+    -------
+    int
+        At least 1.
+    """
+    return (os.cpu_count() or 1) if workers == -1 else max(1, int(workers))
+
+
+def neighbour_pairs(
+    snaps: Snapshots,
+    radius: float,
+    chunk_entries: int = DEFAULT_CHUNK_ENTRIES,
+    workers: int = 1,
+) -> NeighbourPairs:
+    """Return all pairs of entries in the same snapshot within ``radius`` metres.
+
+    Parameters
+    ----------
+    snaps : Snapshots
+        Aligned snapshots.
+    radius : float
+        Distance in metres; inclusive.
+    chunk_entries : int, default 500_000
+        Largest number of entries searched with one tree.
+    workers : int, default 1
+        Threads searching chunks at the same time (the k-d tree releases the
+        interpreter lock); -1 means one per processor. With more than one, the
+        entries are cut into at least that many chunks. The result does not
+        depend on it.
+
+    Returns
+    -------
+    NeighbourPairs
+        The edges, sorted.
+
+    Notes
+    -----
+    Candidate pairs are found with a slightly widened radius in the shifted
+    coordinates and then re-tested on the original coordinates, so the
+    inclusive ``<= radius`` test is exact and unaffected by the shift's
+    rounding. Time is O(E log E) for E entries in a chunk plus the output;
+    memory is O(E + pairs) per chunk searched at once.
+
+    References
+    ----------
+    .. [1] J. L. Bentley, "Multidimensional binary search trees used for
+       associative searching", Communications of the ACM 18(9), 509-517, 1975.
+       doi:10.1145/361002.361007
+
+    Examples
+    --------
+    Three objects at one time; only a and b, 1 m apart, are within 1.5 m:
+
+    >>> import pandas as pd
+    >>> from comove.tracks.alignment import AlignParams, align
+    >>> from comove.tracks.cleaning import clean_fixes
+    >>> from comove.io.reading import read_tracks
+    >>> frame = pd.DataFrame({"id": ["a", "b", "c"], "time": 0, "x": [0.0, 1.0, 5.0],
+    ...                       "y": 0.0, "role": "r"})
+    >>> snaps = align(clean_fixes(read_tracks(frame))[0], AlignParams(step=1.0))
+    >>> pairs = neighbour_pairs(snaps, radius=1.5)
+    >>> pairs.i.tolist(), pairs.j.tolist()
+    ([0], [1])
+    >>> snaps.objects[snaps.obj[[0, 1]]].tolist()
+    ['a', 'b']
+    """
+    if not (np.isfinite(radius) and radius > 0):
+        raise ValueError("radius must be a positive number of metres")
+    n = snaps.n_entries
+    empty = np.empty(0, dtype=np.int64)
+    if n < 2:
+        return NeighbourPairs(empty, empty, float(radius))
+    if n > MAX_ENTRIES:
+        raise ValueError(f"more than {MAX_ENTRIES} entries: search them in time chunks")
+    workers = worker_count(workers)
+
+    x0 = snaps.x - snaps.x.min()
+    pitch = float(x0.max()) + 2.0 * radius + 1.0  # shift between consecutive snapshots
+    search = partial(_pair_keys, snaps, x0, pitch, radius)
+    chunks = _chunks(snaps.offsets(), n, chunk_entries, workers)
+    if workers > 1 and len(chunks) > 1:
+        with ThreadPoolExecutor(max_workers=min(workers, len(chunks))) as pool:
+            found = list(pool.map(search, chunks))
+    else:
+        found = [search(chunk) for chunk in chunks]
+    # chunks hold consecutive entries, so their sorted keys concatenate in order
+    keys = np.concatenate(found) if found else empty
+    return NeighbourPairs(keys // n, keys % n, float(radius))
+
+
+def _chunks(offsets: np.ndarray, n: int, chunk_entries: int, workers: int) -> list[tuple[int, int]]:
+    """Return (first, stop) entries of the chunks searched with one tree each.
+
+    Chunks hold at most ``chunk_entries`` entries (more when one snapshot holds more), at
+    least ``workers`` chunks when there are enough snapshots, and are cut at snapshot
+    boundaries so that every snapshot is searched whole.
+    """
+    size = max(1, min(chunk_entries, -(-n // workers)))
+    bounds = np.unique(np.append(offsets[np.searchsorted(offsets, np.arange(0, n, size))], n))
+    return list(zip(bounds[:-1].tolist(), bounds[1:].tolist(), strict=True))
+
+
+def _pair_keys(
+    snaps: Snapshots, x0: np.ndarray, pitch: float, radius: float, chunk: tuple[int, int]
+) -> np.ndarray:
+    """Return the sorted pair keys i * n + j (i < j) within ``radius`` of a chunk's entries.
+
+    ``x0`` is x shifted to start at 0 and ``pitch`` the shift between consecutive
+    snapshots laid side by side.
+    """
+    lo, hi = chunk
+    n = snaps.n_entries
+    widened = radius * (1.0 + 1e-9) + 1e-9
+    s = snaps.snap[lo:hi]
+    xs = x0[lo:hi] + (s - s[0]) * pitch
+    tree = cKDTree(np.column_stack([xs, snaps.y[lo:hi]]), balanced_tree=False, compact_nodes=False)
+    pairs = tree.query_pairs(widened, output_type="ndarray")
+    del tree
+    a, b = pairs[:, 0] + lo, pairs[:, 1] + lo
+    keep = (snaps.x[a] - snaps.x[b]) ** 2 + (snaps.y[a] - snaps.y[b]) ** 2 <= radius * radius
+    a, b = a[keep], b[keep]
+    keys = np.minimum(a, b).astype(np.int64) * n + np.maximum(a, b)
+    keys.sort()
+    return keys

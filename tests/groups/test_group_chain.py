@@ -1,0 +1,128 @@
+"""The group chain wired once: its pair counts, and one role-set definition for tests and table."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+from scenes import SCENARIO_RUNS, grid_scene, random_walkers, run_scenario
+from scipy.spatial.distance import cdist
+
+from comove.groups.chain import chunk_timeline, group_chain
+from comove.groups.episodes import EpisodeParams, episode_role_sets, find_episodes
+from comove.groups.grouping import GroupParams, GroupTimeline
+from comove.groups.presets import preset_values
+from comove.pipeline.core import GROUP_STAGES, split_options
+
+
+def test_pair_counts_equal_a_brute_force_count_of_distances():
+    # reference: scipy.spatial.distance.cdist at every snapshot
+    rng = np.random.default_rng(4)
+    n_snap, n_obj, radius = 40, 7, 2.5
+    x, y = rng.uniform(0, 8, (n_snap, n_obj)), rng.uniform(0, 8, (n_snap, n_obj))
+    present = rng.random((n_snap, n_obj)) < 0.8
+    snaps = grid_scene(x, y, np.zeros((n_snap, n_obj), int), present, 1)
+    tally = group_chain(snaps, GroupParams(radius=radius), EpisodeParams())
+    expected = np.zeros((n_obj, n_obj))
+    for s in range(n_snap):
+        here = np.flatnonzero(present[s])
+        d = cdist(
+            np.column_stack([x[s, here], y[s, here]]), np.column_stack([x[s, here], y[s, here]])
+        )
+        a, b = np.nonzero(np.triu(d <= radius, 1))
+        np.add.at(expected, (here[a], here[b]), 1)
+    a, b = np.triu_indices(n_obj, 1)
+    counts = tally.together(snaps, a * n_obj + b)
+    np.testing.assert_array_equal(counts, expected[a, b])
+    assert counts.sum() > 0
+
+
+def test_every_role_set_of_the_table_is_tested_when_a_role_changes():
+    # in the game, player A06 changes role at 4:00: the table and the tests of episode
+    # counts must name the episodes' role sets alike, so that every one gets a p-value
+    _, result = run_scenario("small_sided_game", permutations=19, seed=3, jobs=1)
+    snaps = result.snapshots
+    assert (snaps.main_roles()[snaps.obj] != snaps.role).any()
+    roles = result.roles
+    assert len(roles) > 0
+    assert roles["p_value"].notna().all()
+    assert set(roles["roles"]) == set(result.episodes["roles"])
+    counted = result.episodes["roles"].value_counts()
+    assert (roles.set_index("roles")["episodes"] == counted.reindex(roles["roles"])).all()
+
+
+def test_episode_role_sets_name_the_roles_held_inside_each_episode():
+    # two walkers side by side; walker 1 is role0 for the first half, role1 after
+    n = 20
+    t = np.arange(n, dtype=float)
+    x = np.column_stack([t, t])
+    y = np.column_stack([np.zeros(n), np.ones(n)])
+    role = np.zeros((n, 2), int)
+    role[n // 2 :, 1] = 1
+    snaps = grid_scene(x, y, role, np.ones((n, 2), bool), 2)
+    gp = GroupParams(radius=1.5, max_heading=None, max_speed_ratio=None)
+    found = group_chain(snaps, gp, EpisodeParams()).episodes
+    assert episode_role_sets(snaps, found) == ["role0;role1"]
+    early = group_chain(snaps.window(0, n // 2), gp, EpisodeParams())
+    assert episode_role_sets(snaps.window(0, n // 2), early.episodes) == ["role0"]
+    pd.testing.assert_series_equal(pd.Series(found.start), pd.Series([0]))
+
+
+def episodes_as_tuples(found):
+    return [
+        (tuple(m.tolist()), int(s), int(e), int(t), tuple(c), tuple(w))
+        for m, s, e, t, c, w in zip(found.members, found.start, found.end, found.together,
+                                    found.came_from, found.went_into, strict=True)
+    ]  # fmt: skip
+
+
+def chunked_episodes(snaps, grouping, episode_params, cuts):
+    edges = [0, *cuts, snaps.n_snapshots]
+    parts = [chunk_timeline(snaps, a, b, grouping) for a, b in zip(edges[:-1], edges[1:],
+                                                                    strict=True)]  # fmt: skip
+    return find_episodes(GroupTimeline.joined(parts), episode_params)
+
+
+@pytest.fixture(scope="module", params=["small_sided_game", "fleet", "herd"])
+def scenario_groups(request):
+    truth, result = run_scenario(request.param, permutations=0)
+    options = dict(preset_values(SCENARIO_RUNS[request.param][0]),
+                   radius=truth["parameters"]["radius"])  # fmt: skip
+    _, _, _, grouping, episode_params, _, _ = split_options(GROUP_STAGES, options)
+    return result.snapshots, grouping, episode_params
+
+
+def test_chunked_episodes_equal_the_whole_on_every_scenario(scenario_groups):
+    # chunk edges at several sizes, so that some fall inside episodes and inside gaps
+    snaps, grouping, episode_params = scenario_groups
+    whole = group_chain(snaps, grouping, episode_params).episodes
+    assert whole.n_episodes > 0
+    expected = episodes_as_tuples(whole)
+    n = snaps.n_snapshots
+    inside = [(int(s) + int(e)) // 2 for s, e in zip(whole.start, whole.end, strict=True)]
+    for cuts in (list(range(n // 7, n, n // 7)), [n // 2], sorted(set(inside))[:40]):
+        found = chunked_episodes(snaps, grouping, episode_params, cuts)
+        assert episodes_as_tuples(found) == expected
+
+
+@settings(max_examples=30, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(seed=st.integers(0, 10_000), tol=st.integers(0, 3), data=st.data())
+def test_any_cut_of_a_random_scene_gives_the_same_episodes(seed, tol, data):
+    rng = np.random.default_rng(seed)
+    n_snap, n_obj = 40, 6
+    x, y, _ = random_walkers(rng, n_obj, n_snap)
+    present = rng.random((n_snap, n_obj)) < 0.85
+    present[0] = True
+    snaps = grid_scene(x, y, np.zeros((n_snap, n_obj), int), present, 1)
+    # heading and speed predicates make the links depend on velocities, which reach
+    # over chunk edges
+    gp = GroupParams(radius=1.5, min_speed=0.1, max_heading=60.0, max_speed_ratio=2.0,
+                     velocity_window=4.0)  # fmt: skip
+    params = EpisodeParams(tolerance=float(tol), min_duration=2.0)
+    cuts = sorted(set(data.draw(st.lists(st.integers(1, snaps.n_snapshots - 1), max_size=8))))
+    whole = group_chain(snaps, gp, params).episodes
+    assert episodes_as_tuples(chunked_episodes(snaps, gp, params, cuts)) == episodes_as_tuples(
+        whole
+    )

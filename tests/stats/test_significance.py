@@ -1,0 +1,230 @@
+"""Monte Carlo tests: p and q values, null models, calibration and the crowding trap."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+from scenes import grid_scene
+
+from comove.errors import InputError
+from comove.pipeline.core import groups, mine
+from comove.stats.engine import RunParams
+from comove.stats.significance import (
+    NullModel,
+    SignificanceParams,
+    monte_carlo_p,
+    summary_table,
+)
+
+
+def test_q_values_reject_as_in_the_published_worked_example():
+    # Benjamini & Hochberg (1995), section 4: fifteen p-values of which the step-up
+    # procedure at FDR 0.05 rejects the four smallest (values written from memory of
+    # the paper's example, not checked against it here)
+    p = np.array([0.0001, 0.0004, 0.0019, 0.0095, 0.0201, 0.0278, 0.0298, 0.0344, 0.0459,
+                  0.3240, 0.4262, 0.5719, 0.6528, 0.7590, 1.000])  # fmt: skip
+    n = 9999  # replicates so that (1 + exceed) / (1 + n) hits each p exactly; observed 1
+    exceed = np.round(p * (n + 1) - 1).astype(int)
+    null = (np.arange(n)[:, None] < exceed[None, :]).astype(float)
+    table = summary_table(np.ones(p.size), null, alpha=0.05)
+    np.testing.assert_allclose(table["p_value"], (1 + exceed) / (n + 1))
+    assert table["significant"].tolist() == [True] * 4 + [False] * 11
+    # BH q-values by their definition: q_(i) = min_{j >= i} m p_(j) / j
+    m = p.size
+    q = np.minimum.accumulate((table["p_value"].to_numpy() * m / np.arange(1, m + 1))[::-1])[::-1]
+    np.testing.assert_allclose(table["q_value"], np.minimum(q, 1))
+
+
+def test_monte_carlo_p_follows_its_definition():
+    # (1 + #{null >= observed}) / (1 + N)  (Davison & Hinkley 1997, eq. 4.11)
+    null = np.array([[0.1, 0.5], [0.3, 0.5], [0.2, 0.9], [0.4, 0.1]])
+    p = monte_carlo_p(np.array([0.3, 0.95]), null)
+    np.testing.assert_allclose(p, [(1 + 2) / 5, 1 / 5])
+
+
+def walkers(seed, n_obj=12, n_snap=400, side=30.0, n_roles=4):
+    """Independent reflecting random walks, uniform start: a stationary, independent scene."""
+    rng = np.random.default_rng(seed)
+    pos = rng.uniform(0, side, (n_obj, 2))
+    xs, ys = np.empty((n_snap, n_obj)), np.empty((n_snap, n_obj))
+    for t in range(n_snap):  # a test scene generator, not library code
+        pos = np.abs(pos + rng.normal(0, 0.8, pos.shape))
+        pos = side - np.abs(side - pos)
+        xs[t], ys[t] = pos[:, 0], pos[:, 1]
+    roles = np.tile(np.arange(n_obj) % n_roles, (n_snap, 1))
+    return xs, ys, roles
+
+
+def frame_of(xs, ys, roles, names=None):
+    n_snap, n_obj = xs.shape
+    names = names or [f"r{k}" for k in range(roles.max() + 1)]
+    return pd.DataFrame({
+        "id": np.tile([f"o{k}" for k in range(n_obj)], n_snap),
+        "time": np.repeat(np.arange(n_snap, dtype=float), n_obj),
+        "x": xs.ravel(), "y": ys.ravel(),
+        "role": np.asarray(names)[roles.ravel()],
+    })  # fmt: skip
+
+
+MINE = dict(radius=3.0, step=1.0, min_prevalence=0.01, min_participation=0.25)
+
+
+@pytest.mark.slow
+def test_p_values_are_calibrated_when_roles_move_independently():
+    # 24 independent scenes x 6 role pairs; under the null P(p <= 0.05) <= 0.05 (exactly
+    # 0.05 for continuous statistics). With 144 p-values, correlated within a scene, a
+    # binomial(144, 0.05) 99.9 % interval is [1, 17]; we allow 0..17 and also check that
+    # the p-values are not piled up at 1 (which would hide a broken null).
+    ps = []
+    for seed in range(24):
+        result = mine(frame_of(*walkers(seed)), **MINE, permutations=99, seed=seed, jobs=1)
+        ps.extend(result.tests.loc[result.tests["size"] == 2, "p_value"].tolist())
+    ps = np.asarray(ps)
+    assert ps.size >= 100
+    assert (ps <= 0.05).sum() <= 17
+    assert 0.3 < np.median(ps) < 0.7
+
+
+def crowd_scene(seed=11, n_obj=16, n_snap=500):
+    """Every object orbits one wandering attractor (a ball); roles are given at random."""
+    rng = np.random.default_rng(seed)
+    ball = np.cumsum(rng.normal(0, 1.5, (n_snap, 2)), axis=0)
+    offsets = np.zeros((n_obj, 2))
+    xs, ys = np.empty((n_snap, n_obj)), np.empty((n_snap, n_obj))
+    for t in range(n_snap):  # a test scene generator, not library code
+        offsets = 0.8 * offsets + rng.normal(0, 1.2, offsets.shape)
+        xs[t], ys[t] = ball[t, 0] + offsets[:, 0], ball[t, 1] + offsets[:, 1]
+    roles = np.tile(rng.permutation(np.arange(n_obj) % 4), (n_snap, 1))
+    return xs, ys, roles
+
+
+def test_crowding_trap_role_shuffle_versus_time_shift():
+    frame = frame_of(*crowd_scene())
+    options = dict(radius=3.0, step=1.0, min_prevalence=0.5, permutations=199, seed=5)
+    by_roles = mine(frame, null="role-shuffle", **options)
+    by_time = mine(frame, null="time-shift", **options)
+    # the crowd makes every role pair look durable...
+    assert len(by_roles.patterns) >= 6
+    assert by_roles.patterns["time_prevalence"].min() > 0.5
+    # ...but no role prefers another: nothing survives the false discovery rate
+    assert not by_roles.tests["significant"].any()
+    # while the objects are together far more than their separate movements imply
+    pairs = by_time.tests[by_time.tests["size"] == 2]
+    assert pairs["significant"].all()
+    assert (pairs["effect"] > 2).all()
+
+
+def test_same_seed_same_results_and_jobs_do_not_matter():
+    frame = frame_of(*walkers(1, n_snap=150))
+    a = mine(frame, **MINE, permutations=40, seed=9, jobs=1)
+    b = mine(frame, **MINE, permutations=40, seed=9, jobs=2)
+    c = mine(frame, **MINE, permutations=40, seed=10, jobs=1)
+    pd.testing.assert_frame_equal(a.tests, b.tests)
+    assert not a.tests["null_mean"].equals(c.tests["null_mean"])
+    assert a.run["settings"]["RunParams"]["seed"] == 9
+
+
+def test_a_drawn_seed_is_recorded_and_repeats_the_run():
+    frame = frame_of(*walkers(2, n_snap=120))
+    first = mine(frame, **MINE, permutations=20)
+    seed = first.run["settings"]["RunParams"]["seed"]
+    again = mine(frame, **MINE, permutations=20, seed=seed)
+    pd.testing.assert_frame_equal(first.tests, again.tests)
+
+
+def small_snaps(n_snap=50, n_obj=6, gaps=True):
+    rng = np.random.default_rng(4)
+    x = rng.uniform(0, 10, (n_snap, n_obj))
+    y = rng.uniform(0, 10, (n_snap, n_obj))
+    present = np.ones((n_snap, n_obj), bool)
+    if gaps:
+        present[10:15, 0] = False
+        present[:20, 1] = False
+    roles = np.tile([0, 0, 1, 1, 2, 3], (n_snap, 1))
+    return grid_scene(x, y, roles, present, 4)
+
+
+@pytest.mark.parametrize("within", ["period", "object"])
+def test_time_shift_keeps_each_track_and_its_gaps(within):
+    snaps = small_snaps()
+    model = NullModel(snaps, SignificanceParams(shift_within=within))
+    shifted, order = model.draw(np.random.default_rng(0))
+    assert np.all(np.diff(shifted.snap * 10 + shifted.obj) > 0)  # (snapshot, object) order
+    for o in range(len(snaps.objects)):
+        before = snaps.snap[snaps.obj == o]
+        after = shifted.snap[shifted.obj == o]
+        assert after.size == before.size
+        # the same positions, in the same circular order: a rotation of the track
+        xb = snaps.x[snaps.obj == o]
+        xa = shifted.x[shifted.obj == o]
+        assert sorted(xa) == sorted(xb)
+        # gaps are kept: the circular spacings of presence are the same multiset
+        if within == "object":
+            assert (after.min(), after.max()) == (before.min(), before.max())
+            base, span = before.min(), before.max() - before.min() + 1
+        else:
+            base, span = 0, snaps.n_snapshots
+
+        def circular_gaps(s, base=base, span=span):
+            s = np.sort(s - base)
+            return np.sort(np.diff(np.r_[s, s[0] + span]))
+
+        np.testing.assert_array_equal(circular_gaps(after), circular_gaps(before))
+    np.testing.assert_array_equal(shifted.x, snaps.x[order])
+
+
+def test_role_shuffle_keeps_tracks_and_respects_strata():
+    snaps = small_snaps(gaps=False)
+    snaps.roles = np.array(["home_back", "home_wing", "away_back", "away_wing"])
+    model = NullModel(snaps, SignificanceParams(null="role-shuffle", shuffle_strata="_"))
+    seen = set()
+    for k in range(20):
+        shuffled, order = model.draw(np.random.default_rng(k))
+        assert order is None
+        np.testing.assert_array_equal(shuffled.x, snaps.x)
+        before = dict(zip(snaps.obj.tolist(), snaps.roles[snaps.role].tolist(), strict=False))
+        after = dict(
+            zip(shuffled.obj.tolist(), shuffled.roles[shuffled.role].tolist(), strict=False)
+        )
+        for o in before:
+            assert before[o].split("_")[0] == after[o].split("_")[0]
+        seen.add(tuple(after[o] for o in sorted(after)))
+    assert len(seen) > 1  # it does permute
+
+
+def test_bad_significance_settings():
+    with pytest.raises(InputError, match="^null"):
+        SignificanceParams(null="bootstrap")
+    with pytest.raises(InputError, match="^permutations"):
+        SignificanceParams(permutations=-1)
+    with pytest.raises(InputError, match="^alpha"):
+        SignificanceParams(alpha=1.5)
+    with pytest.raises(InputError, match="^jobs"):
+        RunParams(jobs=0)
+
+
+def test_nothing_to_test_gives_empty_tables_not_errors(tmp_path):
+    # three objects that never meet: no role set, no episode, dyads never together
+    n = 50
+    frame = pd.DataFrame({
+        "id": np.repeat(["a", "b", "c"], n), "time": np.tile(np.arange(n), 3).astype(float),
+        "x": np.r_[np.zeros(n), np.full(n, 100.0), np.full(n, 200.0)], "y": 0.0,
+        "role": np.repeat(["r", "s", "t"], n),
+    })  # fmt: skip
+    mined = mine(frame, radius=2.0, permutations=9, seed=1)
+    assert mined.patterns.empty and mined.tests.empty
+    found = groups(frame, radius=2.0, permutations=9, seed=1)
+    assert found.episodes.empty and len(found.dyads) == 3
+    assert (found.dyads["p_value"] == 1.0).all()  # never together, nor in any replicate
+    mined.write(tmp_path / "r")
+    found.write(tmp_path / "r", merge=True)
+
+
+def test_a_q_value_equal_to_alpha_is_significant():
+    # two items with p = 1/40 and 2/40 out of 39 replicates: BH q = 0.05 for both
+    null = np.zeros((39, 2))
+    null[:1, 1] = 1.0
+    table = summary_table(np.array([1.0, 1.0]), null, alpha=0.05)
+    np.testing.assert_allclose(table["q_value"], [0.05, 0.05])
+    assert table["significant"].all()

@@ -1,0 +1,56 @@
+"""Neighbour pairs per snapshot against scikit-learn's radius_neighbors_graph."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from scenes import grid_scene
+from sklearn.neighbors import radius_neighbors_graph
+
+from comove.tracks.neighbours import neighbour_pairs
+
+
+@pytest.mark.parametrize("seed", range(4))
+@pytest.mark.parametrize(("chunk", "workers"), [(7, 1), (7, 3), (4_000_000, 1), (50, -1)])
+def test_pairs_equal_scikit_learn_radius_neighbors_graph(seed, chunk, workers):
+    # reference: sklearn.neighbors.radius_neighbors_graph per snapshot (distances <= radius)
+    rng = np.random.default_rng(seed)
+    n_snap, n_obj, radius = 25, 12, 3.0
+    x = rng.uniform(-20, 20, (n_snap, n_obj))
+    y = rng.uniform(-20, 20, (n_snap, n_obj))
+    present = rng.random((n_snap, n_obj)) < 0.85
+    snaps = grid_scene(x, y, np.zeros_like(present, dtype=int), present, 1)
+    pairs = neighbour_pairs(snaps, radius, chunk_entries=chunk, workers=workers)
+    expected = set()
+    offsets = snaps.offsets()
+    for s in range(snaps.n_snapshots):
+        lo, hi = offsets[s], offsets[s + 1]
+        if hi - lo < 2:
+            continue
+        pts = np.column_stack([snaps.x[lo:hi], snaps.y[lo:hi]])
+        g = radius_neighbors_graph(pts, radius, mode="connectivity").tocoo()
+        expected |= {(lo + a, lo + b) for a, b in zip(g.row, g.col, strict=True) if a < b}
+    assert set(zip(pairs.i.tolist(), pairs.j.tolist(), strict=True)) == expected
+    assert len(expected) > 0
+    assert np.all(snaps.snap[pairs.i] == snaps.snap[pairs.j])
+    # sorted by i, then j, however the entries were cut and searched
+    assert np.all(np.diff(pairs.i * snaps.n_entries + pairs.j) > 0)
+
+
+def test_radius_is_inclusive_even_far_from_the_origin():
+    # a 3-4-5 triangle, placed where coordinates are large
+    x = np.array([[1e6, 1e6 + 3.0, 1e6 + 10.0]])
+    y = np.array([[5e6, 5e6 + 4.0, 5e6]])
+    snaps = grid_scene(x, y, np.zeros((1, 3), int), np.ones((1, 3), bool), 1)
+    pairs = neighbour_pairs(snaps, 5.0)
+    assert list(zip(pairs.i, pairs.j, strict=True)) == [(0, 1)]
+    assert neighbour_pairs(snaps, 4.999999).n_pairs == 0
+
+
+def test_no_pair_crosses_snapshots():
+    x = np.zeros((50, 2))
+    y = np.zeros((50, 2))
+    present = np.zeros((50, 2), bool)
+    present[np.arange(50), np.arange(50) % 2] = True  # one object per snapshot
+    snaps = grid_scene(x, y, np.zeros((50, 2), int), present, 1)
+    assert neighbour_pairs(snaps, 100.0).n_pairs == 0
