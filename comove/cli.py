@@ -71,13 +71,16 @@ class _Parser(argparse.ArgumentParser):
 def _scalar_type(annotation: Any) -> type:
     """Return the type a flag's text is read as, from a field annotation.
 
-    ``float | None`` is read as float; a grid (``tuple[float, ...]``) stays text,
-    which its settings class reads (``start:stop:step`` or ``a,b,c``).
+    ``float | None`` is read as float; a grid (``tuple[float, ...]``, optional
+    or not) stays text, which its settings class reads (``start:stop:step`` or
+    ``a,b,c``).
     """
+    args = [a for a in typing.get_args(annotation) if a is not type(None)]
+    if typing.get_origin(annotation) is not tuple and len(args) == 1:
+        annotation = args[0]  # X | None
     if typing.get_origin(annotation) is tuple:
         return str
-    args = [a for a in typing.get_args(annotation) if a is not type(None)]
-    return args[0] if args else annotation
+    return annotation
 
 
 def _add_stage_options(

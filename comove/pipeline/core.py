@@ -42,7 +42,6 @@ from comove.io.results import (
     parquet_writer,
     write_folder,
 )
-from comove.io.runfile import parse_grid
 from comove.roles.chain import role_chain
 from comove.roles.colocation import ColocationParams
 from comove.roles.crossk import CrossKParams
@@ -59,51 +58,10 @@ from comove.tracks.alignment import AlignParams, Snapshots, align, alignment_sum
 from comove.tracks.cleaning import CleanParams, clean_fixes
 from comove.tracks.neighbours import NeighbourPairs
 
-
-@dataclass(frozen=True)
-class CrossKRequest:
-    """Settings of the optional cross-K/L companion of ``mine``.
-
-    Parameters
-    ----------
-    k_radii : str or None, default None
-        Radii in metres, as ``start:stop:step`` or a comma-separated list;
-        None skips cross-K.
-    k_correction : {"translation", "border"}, default "translation"
-        Edge correction.
-    k_window : str or None, default None
-        Window ``xmin,ymin,xmax,ymax`` in the working plane (metres); None uses
-        the bounding box of all positions.
-    """
-
-    k_radii: str | None = field(
-        default=None,
-        metadata={"help": "cross-K/L per role pair at these radii (m): start:stop:step or "
-                  "r1,r2,...; envelopes from time-shift replicates"},
-    )  # fmt: skip
-    k_correction: str = field(
-        default="translation", metadata={"help": "cross-K edge correction: translation or border"}
-    )
-    k_window: str | None = field(
-        default=None,
-        metadata={"help": "cross-K window xmin,ymin,xmax,ymax in working-plane metres"},
-    )
-
-    def params(self) -> CrossKParams | None:
-        """Return the cross-K settings, or None when cross-K was not asked for."""
-        if self.k_radii is None:
-            return None
-        return CrossKParams(
-            radii=parse_grid(self.k_radii, "k_radii"),
-            window=parse_grid(self.k_window, "k_window") if self.k_window else None,
-            correction=self.k_correction,
-        )
-
-
 #: The stage settings of ``mine``, in pipeline order.
 MINE_STAGES: tuple[type, ...] = (
     ColumnSpec, CleanParams, AlignParams, ColocationParams, PersistenceParams, SignificanceParams,
-    CrossKRequest, RunParams,
+    CrossKParams, RunParams,
 )  # fmt: skip
 
 #: The stage settings of ``groups``, in pipeline order.
@@ -247,10 +205,9 @@ def mine(source: Any, *, progress: bool = False, **options: Any) -> MiningResult
     >>> result.patterns[["roles", "time_prevalence"]].to_dict("records")
     [{'roles': 'dog;owner', 'time_prevalence': 1.0}]
     """
-    (columns, cleaning, alignment, colocation, persistence, significance, k_request,
+    (columns, cleaning, alignment, colocation, persistence, significance, k_params,
      run_params) = split_options(MINE_STAGES, options)  # fmt: skip
     run_params = run_params.resolved()
-    k_params = k_request.params()
     bar = _Progress(progress, total=7)
     digest = _digest_beside(source)
     try:
@@ -273,7 +230,7 @@ def mine(source: Any, *, progress: bool = False, **options: Any) -> MiningResult
                     tests[["roles", *TEST_COLUMNS]], on="roles", how="left", validate="1:1"
                 )
         cross = None
-        if k_params is not None:
+        if k_params.k_radii is not None:
             with bar.stage("cross-K"):
                 cross = cross_k_tests(snaps, k_params, significance, run_params, progress)
     finally:
@@ -288,7 +245,7 @@ def mine(source: Any, *, progress: bool = False, **options: Any) -> MiningResult
             colocation,
             persistence,
             significance,
-            k_request,
+            k_params,
             run_params,
         ),  # fmt: skip
         extra={"caution": CAUTION},

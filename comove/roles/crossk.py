@@ -41,7 +41,8 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from comove.errors import InputError
+from comove.errors import InputError, bad_setting
+from comove.io.runfile import as_grid
 from comove.tracks.alignment import Snapshots
 from comove.tracks.neighbours import neighbour_pairs
 
@@ -59,66 +60,74 @@ _KEY_COLUMNS = ["role_a", "role_b", "radius_m"]
 
 @dataclass(frozen=True)
 class CrossKParams:
-    """Settings of the cross-K functions.
+    """Settings of the cross-K functions (``mine`` computes them when ``k_radii`` is given).
 
     Parameters
     ----------
-    radii : tuple of float
+    k_radii : tuple of float or None, default None
         Distances r in metres at which K is evaluated; strictly ascending, > 0.
-    window : tuple of 4 floats or None, default None
+        Text is read as ``start:stop:step`` (stop included) or ``r1,r2,...``.
+        ``None``: no cross-K.
+    k_window : tuple of 4 floats or None, default None
         Observation window ``(xmin, ymin, xmax, ymax)`` in the working plane,
-        metres. ``None`` uses the bounding box of all positions. Entries outside
-        the window are dropped.
-    correction : {"translation", "border"}, default "translation"
+        metres (text: ``xmin,ymin,xmax,ymax``). ``None`` uses the bounding box
+        of all positions. Entries outside the window are dropped.
+    k_correction : {"translation", "border"}, default "translation"
         Edge correction, see :func:`cross_k`.
     """
 
-    radii: tuple[float, ...] = field(
-        metadata={"help": "distances in metres at which cross-K is evaluated, ascending"}
-    )
-    window: tuple[float, float, float, float] | None = field(
+    k_radii: tuple[float, ...] | None = field(
         default=None,
-        metadata={
-            "help": "observation window xmin,ymin,xmax,ymax in metres "
-            "(default: bounding box of all positions)"
-        },
-    )
-    correction: str = field(
+        metadata={"help": "cross-K/L per role pair at these radii (m): start:stop:step or "
+                  "r1,r2,...; envelopes from time-shift replicates"},
+    )  # fmt: skip
+    k_window: tuple[float, ...] | None = field(
+        default=None,
+        metadata={"help": "cross-K window xmin,ymin,xmax,ymax in working-plane metres "
+                  "(default: bounding box of all positions)"},
+    )  # fmt: skip
+    k_correction: str = field(
         default="translation",
-        metadata={"help": "edge correction: translation or border"},
+        metadata={"help": "cross-K edge correction: translation or border"},
     )
 
     def __post_init__(self) -> None:
-        try:
-            radii = tuple(float(r) for r in np.atleast_1d(np.asarray(self.radii, dtype=float)))
-        except (TypeError, ValueError):
-            raise InputError("--k-radii must be a list of distances in metres") from None
-        r = np.asarray(radii)
-        if r.size == 0:
-            raise InputError("--k-radii is empty; give one or more distances in metres")
-        if not (np.all(np.isfinite(r)) and np.all(r > 0)):
-            raise InputError("--k-radii must all be positive distances in metres")
-        if np.any(np.diff(r) <= 0):
-            raise InputError("--k-radii must be strictly ascending, without repeats")
-        object.__setattr__(self, "radii", radii)
+        if self.k_radii is not None:
+            object.__setattr__(self, "k_radii", _checked_radii(self.k_radii))
+        if self.k_window is not None:
+            object.__setattr__(self, "k_window", _checked_window(self.k_window))
+        if self.k_correction not in CORRECTIONS:
+            raise bad_setting(
+                "k_correction", f"{self.k_correction!r} is unknown; use one of "
+                f"{', '.join(CORRECTIONS)}",
+            )  # fmt: skip
 
-        if self.window is not None:
-            try:
-                window = tuple(float(v) for v in self.window)
-            except (TypeError, ValueError):
-                raise InputError("--k-window must be four numbers xmin,ymin,xmax,ymax") from None
-            if len(window) != 4 or not np.all(np.isfinite(window)):
-                raise InputError("--k-window must be four finite numbers xmin,ymin,xmax,ymax")
-            xmin, ymin, xmax, ymax = window
-            if not (xmin < xmax and ymin < ymax):
-                raise InputError("--k-window needs xmin < xmax and ymin < ymax")
-            object.__setattr__(self, "window", window)
 
-        if self.correction not in CORRECTIONS:
-            raise InputError(
-                f"--k-correction {self.correction!r} is unknown; "
-                f"use one of {', '.join(CORRECTIONS)}"
-            )
+def _checked_radii(value: object) -> tuple[float, ...]:
+    """Return cross-K radii given as grid text, one number or numbers, checked."""
+    radii = as_grid(value, "k_radii")
+    r = np.asarray(radii)
+    if r.size == 0:
+        raise bad_setting("k_radii", "is empty; give one or more distances in metres")
+    if not (np.all(np.isfinite(r)) and np.all(r > 0)):
+        raise bad_setting("k_radii", "must all be positive distances in metres")
+    if np.any(np.diff(r) <= 0):
+        raise bad_setting("k_radii", "must be strictly ascending, without repeats")
+    return radii
+
+
+def _checked_window(value: object) -> tuple[float, ...]:
+    """Return a cross-K window given as text or four numbers, checked."""
+    try:
+        window = as_grid(value, "k_window")
+    except InputError:
+        window = ()
+    if len(window) != 4 or not np.all(np.isfinite(window)):
+        raise bad_setting("k_window", "must be four finite numbers xmin,ymin,xmax,ymax")
+    xmin, ymin, xmax, ymax = window
+    if not (xmin < xmax and ymin < ymax):
+        raise bad_setting("k_window", "needs xmin < xmax and ymin < ymax")
+    return window
 
 
 def _empty_table() -> pd.DataFrame:
@@ -142,12 +151,13 @@ def _resolve_window(
     if window is not None:
         return window
     if snaps.n_entries == 0:
-        raise InputError("no positions to build a window from; give --k-window")
+        raise bad_setting("k_window", "is needed: there are no positions to build one from")
     box = (float(snaps.x.min()), float(snaps.y.min()), float(snaps.x.max()), float(snaps.y.max()))
     if not (box[0] < box[2] and box[1] < box[3]):
-        raise InputError(
-            "the bounding box of all positions has zero area (all on one line); give --k-window"
-        )
+        raise bad_setting(
+            "k_window", "is needed: the bounding box of all positions has zero area (all on one "
+            "line)",
+        )  # fmt: skip
     return box
 
 
@@ -232,20 +242,22 @@ def cross_k(
     ...                   obj=np.arange(2), role=np.arange(2), x=np.array([5.0, 6.0]),
     ...                   y=np.full(2, 5.0), objects=np.array(["p", "q"]),
     ...                   roles=np.array(["a", "b"]), max_gap_ns=0)
-    >>> params = CrossKParams(radii=(0.5, 2.0), window=(0, 0, 10, 10), correction="border")
+    >>> params = CrossKParams(k_radii=(0.5, 2.0), k_window=(0, 0, 10, 10), k_correction="border")
     >>> cross_k(snaps, params)[["radius_m", "k", "pairs_counted"]].to_dict("list")
     {'radius_m': [0.5, 2.0], 'k': [0.0, 100.0], 'pairs_counted': [0, 1]}
     """
-    window = _resolve_window(snaps, params.window)
-    radii = np.asarray(params.radii, dtype=np.float64)
-    _check_radii(window, radii, params.correction)
+    if params.k_radii is None:
+        raise ValueError("no cross-K radii: give CrossKParams(k_radii=...)")
+    window = _resolve_window(snaps, params.k_window)
+    radii = np.asarray(params.k_radii, dtype=np.float64)
+    _check_radii(window, radii, params.k_correction)
     sub, n_outside = _inside_window(snaps, window)
     names = np.asarray(snaps.roles)
     pairs = _role_pairs(sub.role, names, role_pairs)
-    out = _pooled_k(sub, pairs, names, window, radii, params.correction)
+    out = _pooled_k(sub, pairs, names, window, radii, params.k_correction)
     xmin, ymin, xmax, ymax = window
     area = (xmax - xmin) * (ymax - ymin)
-    out.attrs.update(window=window, window_area_m2=area, correction=params.correction)
+    out.attrs.update(window=window, window_area_m2=area, correction=params.k_correction)
     out.attrs["entries_outside_window"] = n_outside
     return out
 
@@ -257,9 +269,10 @@ def _check_radii(
     xmin, ymin, xmax, ymax = window
     wx, wy = xmax - xmin, ymax - ymin
     if correction == "translation" and radii[-1] >= min(wx, wy):
-        raise InputError(
-            f"--k-radii: the largest radius {radii[-1]:g} m is not below the shorter window "
-            f"side {min(wx, wy):g} m; give smaller --k-radii or a larger --k-window"
+        raise bad_setting(
+            "k_radii",
+            f"reach too far: the largest radius {radii[-1]:g} m is not below the shorter window "
+            f"side {min(wx, wy):g} m; give smaller radii or a larger window",
         )
 
 

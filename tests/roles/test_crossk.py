@@ -39,7 +39,7 @@ def csr_points():
 
 def batch_k(points, correction: str) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Pooled K and l over all snapshots, and per-batch K over N_BATCH blocks of snapshots."""
-    params = CrossKParams(radii=CSR_RADII, window=WINDOW, correction=correction)
+    params = CrossKParams(k_radii=CSR_RADII, k_window=WINDOW, k_correction=correction)
     pooled = cross_k(two_role_scene(*points), params)
     size = N_SNAP // N_BATCH
     batches = np.array(
@@ -84,9 +84,8 @@ def test_uncorrected_k_is_biased_low(csr_points):
     expected = np.pi * r**2 - 4 / 3 * r**3 * (WX + WY) / (WX * WY) + r**4 / (2 * WX * WY)
     assert np.all(np.abs(k_naive - expected) < 4 * se)
     assert k_naive[-1] < np.pi * r[-1] ** 2 - 4 * se[-1]  # biased low at large r
-    corrected = cross_k(two_role_scene(*csr_points), CrossKParams(radii=CSR_RADII, window=WINDOW))[
-        "k"
-    ].to_numpy()
+    params = CrossKParams(k_radii=CSR_RADII, k_window=WINDOW)
+    corrected = cross_k(two_role_scene(*csr_points), params)["k"].to_numpy()
     assert corrected[-1] - k_naive[-1] > 0.1 * np.pi * r[-1] ** 2
 
 
@@ -142,7 +141,7 @@ def test_matches_brute_force(correction):
     window = (1.0, 1.0, 12.0, 9.0)
     radii = (1.0, 2.0, 3.0, 4.5, 5.0)
     snaps = grid_scene(x, y, role, present, 3)
-    params = CrossKParams(radii=radii, window=window, correction=correction)
+    params = CrossKParams(k_radii=radii, k_window=window, k_correction=correction)
     got = cross_k(snaps, params)
     assert list(got.columns) == CROSSK_COLUMNS
     pairs = [(0, 1), (0, 2), (1, 2)]
@@ -170,9 +169,10 @@ def test_translation_symmetric_border_not():
     role = np.tile(np.r_[np.zeros(4, int), np.ones(8, int)], (20, 1))
     snaps = grid_scene(x, y, role, np.ones(x.shape, bool), 2)
     radii = (2.0, 4.0, 8.0)
-    t = cross_k(snaps, CrossKParams(radii=radii), role_pairs=[(0, 1), (1, 0)])
+    t = cross_k(snaps, CrossKParams(k_radii=radii), role_pairs=[(0, 1), (1, 0)])
     np.testing.assert_allclose(t["k"][:3], t["k"][3:], rtol=1e-12)
-    b = cross_k(snaps, CrossKParams(radii=radii, correction="border"), role_pairs=[(0, 1), (1, 0)])
+    border = CrossKParams(k_radii=radii, k_correction="border")
+    b = cross_k(snaps, border, role_pairs=[(0, 1), (1, 0)])
     assert not np.allclose(b["k"][:3], b["k"][3:])
 
 
@@ -206,7 +206,7 @@ ENV_RADII = (1.0, 2.0, 3.0, 5.0, 8.0, 12.0, 16.0, 20.0)
 def test_clustered_scene_flags_above_envelope():
     rng = np.random.default_rng(11)
     points = clustered_points(rng, 80, 15, 15, spread=3.0)
-    params = CrossKParams(radii=ENV_RADII, window=WINDOW)
+    params = CrossKParams(k_radii=ENV_RADII, k_window=WINDOW)
     obs = cross_k(two_role_scene(*points), params)
     small = obs["radius_m"] <= 3
     assert np.all(obs.loc[small, "l_minus_r"] > 2.0)
@@ -223,7 +223,7 @@ def test_clustered_scene_flags_above_envelope():
 def test_independent_scene_stays_inside_envelope():
     rng = np.random.default_rng(12)
     points = clustered_points(rng, 80, 15, 15, spread=None)
-    params = CrossKParams(radii=ENV_RADII, window=WINDOW)
+    params = CrossKParams(k_radii=ENV_RADII, k_window=WINDOW)
     obs = cross_k(two_role_scene(*points), params)
     env = envelopes(obs, shifted_replicates(points, params, 39))
     outside = env["above"] | env["below"]
@@ -279,7 +279,7 @@ def test_invariant_to_translation_and_relabelling(correction, window):
     radii = (1.5, 3.0, 6.0, 9.0)
     base = cross_k(
         grid_scene(x, y, role, present, 3),
-        CrossKParams(radii=radii, window=window, correction=correction),
+        CrossKParams(k_radii=radii, k_window=window, k_correction=correction),
     )
     assert base["pairs_counted"].sum() > 0
 
@@ -288,7 +288,7 @@ def test_invariant_to_translation_and_relabelling(correction, window):
                                                 window[2] + sx, window[3] + sy)  # fmt: skip
     moved = cross_k(
         grid_scene(x + sx, y + sy, role, present, 3),
-        CrossKParams(radii=radii, window=moved_window, correction=correction),
+        CrossKParams(k_radii=radii, k_window=moved_window, k_correction=correction),
     )
     np.testing.assert_allclose(moved["k"], base["k"], rtol=1e-9)
     assert moved["pairs_counted"].tolist() == base["pairs_counted"].tolist()
@@ -296,7 +296,7 @@ def test_invariant_to_translation_and_relabelling(correction, window):
     perm = np.random.default_rng(1).permutation(x.shape[1])
     relabelled = cross_k(
         grid_scene(x[:, perm], y[:, perm], role[:, perm], present[:, perm], 3),
-        CrossKParams(radii=radii, window=window, correction=correction),
+        CrossKParams(k_radii=radii, k_window=window, k_correction=correction),
     )
     np.testing.assert_allclose(relabelled["k"], base["k"], rtol=1e-12)
     assert relabelled["pairs_counted"].tolist() == base["pairs_counted"].tolist()
@@ -307,7 +307,7 @@ def test_absent_role_pair_and_single_role():
     x, y, role, present = random_scene(9)
     role[:] = np.where(role == 2, 1, role)  # role2 never occurs
     snaps = grid_scene(x, y, role, present, 3)
-    params = CrossKParams(radii=(2.0, 4.0))
+    params = CrossKParams(k_radii=(2.0, 4.0))
     assert cross_k(snaps, params)[["role_a", "role_b"]].drop_duplicates().values.tolist() == [
         ["role0", "role1"]
     ]
@@ -325,17 +325,17 @@ def test_absent_role_pair_and_single_role():
 @pytest.mark.parametrize(
     "kwargs, option",
     [
-        ({"radii": ()}, "--k-radii"),
-        ({"radii": (2.0, 1.0)}, "--k-radii"),
-        ({"radii": (1.0, 1.0)}, "--k-radii"),
-        ({"radii": (-1.0,)}, "--k-radii"),
-        ({"radii": (np.nan,)}, "--k-radii"),
-        ({"radii": ("far",)}, "--k-radii"),
-        ({"radii": (1.0,), "window": (0, 0, 1)}, "--k-window"),
-        ({"radii": (1.0,), "window": (0, 0, 0, 5)}, "--k-window"),
-        ({"radii": (1.0,), "window": (0, 5, 5, 1)}, "--k-window"),
-        ({"radii": (1.0,), "window": (0, 0, np.inf, 5)}, "--k-window"),
-        ({"radii": (1.0,), "correction": "ripley"}, "--k-correction"),
+        ({"k_radii": ()}, "^k_radii"),
+        ({"k_radii": (2.0, 1.0)}, "^k_radii"),
+        ({"k_radii": (1.0, 1.0)}, "^k_radii"),
+        ({"k_radii": (-1.0,)}, "^k_radii"),
+        ({"k_radii": (np.nan,)}, "^k_radii"),
+        ({"k_radii": ("far",)}, "^k_radii"),
+        ({"k_radii": (1.0,), "k_window": (0, 0, 1)}, "^k_window"),
+        ({"k_radii": (1.0,), "k_window": (0, 0, 0, 5)}, "^k_window"),
+        ({"k_radii": (1.0,), "k_window": (0, 5, 5, 1)}, "^k_window"),
+        ({"k_radii": (1.0,), "k_window": (0, 0, np.inf, 5)}, "^k_window"),
+        ({"k_radii": (1.0,), "k_correction": "ripley"}, "^k_correction"),
     ],
 )
 def test_bad_parameters(kwargs, option):
@@ -347,12 +347,12 @@ def test_bad_parameters(kwargs, option):
 def test_radius_beyond_window_and_flat_window():
     x, y, role, present = random_scene(2)
     snaps = grid_scene(x, y, role, present, 3)
-    with pytest.raises(InputError, match="--k-radii"):
-        cross_k(snaps, CrossKParams(radii=(5.0, 30.0), window=(0, 0, 40, 25)))
+    with pytest.raises(InputError, match="^k_radii"):
+        cross_k(snaps, CrossKParams(k_radii=(5.0, 30.0), k_window=(0, 0, 40, 25)))
     # border correction: no centre lies 30 m from the edge, K is undefined there
-    border = cross_k(snaps, CrossKParams(radii=(5.0, 30.0), window=(0, 0, 40, 25),
-                                         correction="border"))  # fmt: skip
+    border = cross_k(snaps, CrossKParams(k_radii=(5.0, 30.0), k_window=(0, 0, 40, 25),
+                                         k_correction="border"))  # fmt: skip
     assert border.loc[border["radius_m"] == 30.0, "k"].isna().all()
     flat = grid_scene(x, np.zeros_like(y), role, present, 3)
-    with pytest.raises(InputError, match="--k-window"):
-        cross_k(flat, CrossKParams(radii=(1.0,)))
+    with pytest.raises(InputError, match="^k_window"):
+        cross_k(flat, CrossKParams(k_radii=(1.0,)))
