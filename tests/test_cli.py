@@ -173,7 +173,7 @@ def test_groups_preset_supplies_defaults_and_flags_override(tracks_csv, tmp_path
 @pytest.mark.parametrize(
     ("options", "expected"),
     [
-        ([], "give --radius (metres) or a --preset"),
+        ([], "--radius is required: give it in metres, or a preset"),
         (["--preset", "robots"], "--preset"),
         (["--radius", "2", "--mode", "blob"], "--mode must be one of"),
         (["--radius", "2", "--min-size", "1"], "--min-size"),

@@ -24,8 +24,8 @@ from typing import Any
 
 import pandas as pd
 
-from comove.errors import InputError
-from comove.groups.chain import group_chain
+from comove.errors import bad_setting
+from comove.groups.chain import GroupTally, group_chain
 from comove.groups.dyads import dyad_table
 from comove.groups.episodes import EpisodeParams, episode_paths, episode_table, role_rollup
 from comove.groups.grouping import GroupParams
@@ -205,8 +205,10 @@ def mine(source: Any, *, progress: bool = False, **options: Any) -> MiningResult
     >>> result.patterns[["roles", "time_prevalence"]].to_dict("records")
     [{'roles': 'dog;owner', 'time_prevalence': 1.0}]
     """
-    (columns, cleaning, alignment, colocation, persistence, significance, k_params,
-     run_params) = split_options(MINE_STAGES, options)  # fmt: skip
+    stages = split_options(MINE_STAGES, options)
+    columns, cleaning, alignment, colocation, persistence, significance, k_params, run_params = (
+        stages
+    )
     run_params = run_params.resolved()
     bar = _Progress(progress, total=7)
     digest = _digest_beside(source)
@@ -235,22 +237,8 @@ def mine(source: Any, *, progress: bool = False, **options: Any) -> MiningResult
                 cross = cross_k_tests(snaps, k_params, significance, run_params, progress)
     finally:
         bar.close()
-    run = run_record(
-        "mine",
-        source,
-        settings_record(
-            columns,
-            cleaning,
-            _effective(snaps),
-            colocation,
-            persistence,
-            significance,
-            k_params,
-            run_params,
-        ),  # fmt: skip
-        extra={"caution": CAUTION},
-        digest=digest.result(),
-    )
+    settings = settings_record(columns, cleaning, _effective(snaps), *stages[3:7], run_params)
+    run = run_record("mine", source, settings, extra={"caution": CAUTION}, digest=digest.result())
     return MiningResult(
         patterns, tables.participation, tables.series, quality, run, snaps, tests, cross
     )
@@ -414,29 +402,17 @@ def groups(
     merged.update(options)  # an explicit None (a predicate switched off) overrides too
     merged.setdefault("require_role", False)
     if merged.get("radius") is None:
-        raise InputError("give --radius (metres) or a --preset that sets one")
-    columns, cleaning, alignment, grouping, episode_params, significance, run_params = (
-        split_options(GROUP_STAGES, merged)
-    )
+        raise bad_setting("radius", "is required: give it in metres, or a preset that sets one")
+    stages = split_options(GROUP_STAGES, merged)
+    columns, cleaning, alignment, grouping, episode_params, significance, run_params = stages
     run_params = run_params.resolved()
     bar = _Progress(progress, total=6 if significance.permutations > 0 else 5)
     digest = _digest_beside(source)
     try:
         snaps, quality = _aligned(source, columns, cleaning, alignment, bar)
-        # The dyads (whole-array numpy, which releases the interpreter lock) are counted
-        # in a helper thread while the episodes (mostly Python) are searched: both only
-        # read the snapshots and pairs, so the results are those of one after the other.
-        with bar.stage("groups, episodes and dyads"), ThreadPoolExecutor(max_workers=1) as side:
-            counting: list[Future] = []
-
-            def count_dyads(pairs: NeighbourPairs, _motion: object) -> None:
-                counting.append(side.submit(dyad_table, snaps, pairs))
-
-            tally = group_chain(snaps, grouping, episode_params, workers=run_params.threads,
-                                before_search=count_dyads)  # fmt: skip
-            table, centroids = episode_table(snaps, tally.episodes, tally.motion,
-                                             grouping.min_speed)  # fmt: skip
-            dyads = counting[0].result()
+        with bar.stage("groups, episodes and dyads"):
+            tally, table, centroids, dyads = _observed_groups(snaps, grouping, episode_params,
+                                                              run_params)  # fmt: skip
         with bar.stage("paths"):
             paths, display = episode_paths(snaps, table, centroids)
         roles = role_rollup(table)
@@ -453,19 +429,29 @@ def groups(
                                 validate="1:1")  # fmt: skip
     finally:
         bar.close()
-    run = run_record(
-        "groups",
-        source,
-        settings_record(
-            columns,
-            cleaning,
-            _effective(snaps),
-            grouping,
-            episode_params,
-            significance,
-            run_params,
-        ),  # fmt: skip
-        extra={"preset": preset, "caution": CAUTION},
-        digest=digest.result(),
-    )
+    settings = settings_record(columns, cleaning, _effective(snaps), *stages[3:6], run_params)
+    run = run_record("groups", source, settings, extra={"preset": preset, "caution": CAUTION},
+                     digest=digest.result())  # fmt: skip
     return GroupsResult(table, roles, dyads, paths, display, quality, run, snaps, centroids)
+
+
+def _observed_groups(
+    snaps: Snapshots, grouping: GroupParams, episode_params: EpisodeParams, run_params: RunParams
+) -> tuple[GroupTally, pd.DataFrame, list, pd.DataFrame]:
+    """Return the group chain's tally, the episode table and paths, and the dyads.
+
+    The dyads (whole-array numpy, which releases the interpreter lock) are
+    counted in a helper thread while the episodes (mostly Python) are searched:
+    both only read the snapshots and pairs, so the results are those of one
+    after the other.
+    """
+    with ThreadPoolExecutor(max_workers=1) as side:
+        counting: list[Future] = []
+
+        def count_dyads(pairs: NeighbourPairs, _motion: object) -> None:
+            counting.append(side.submit(dyad_table, snaps, pairs))
+
+        tally = group_chain(snaps, grouping, episode_params, workers=run_params.threads,
+                            before_search=count_dyads)  # fmt: skip
+        table, centroids = episode_table(snaps, tally.episodes, tally.motion, grouping.min_speed)
+        return tally, table, centroids, counting[0].result()

@@ -189,7 +189,7 @@ def cross_k(
     snaps : Snapshots
         Aligned snapshots; positions in metres.
     params : CrossKParams
-        Radii, window and edge correction.
+        Radii (required here), window and edge correction.
     role_pairs : list of (int, int), optional
         Role codes ``(a, b)`` to evaluate, in this order (``a`` is the centre
         role of the border correction). Default: every pair of distinct roles
@@ -209,15 +209,14 @@ def cross_k(
     Raises
     ------
     InputError
-        With the translation correction, when the largest radius is not below
-        the shorter side of the window (the weights are unbounded there).
+        Translation correction with a radius not below the window's shorter side.
 
     Notes
     -----
     The module docstring gives the pooled estimator with its translation
     [2]_ [3]_ and border [1]_ corrections, unbiased under independence and
     complete spatial randomness [1]_ [4]_. One neighbour search at the largest
-    radius finds every pair: O(E log E + P) time for E entries and P pairs.
+    radius finds every pair: O(E log E + P) time, E entries, P pairs.
 
     References
     ----------
@@ -234,8 +233,8 @@ def cross_k(
 
     Examples
     --------
-    At one snapshot, an object of role a at (5, 5) and one of role b at (6, 5), in a
-    10 m square: K(r) = |W| (pairs within r) / (n_a n_b) = 100 m² x pairs within r.
+    One snapshot, role a at (5, 5) and role b at (6, 5) in a 10 m square:
+    K(r) = |W| (pairs within r) / (n_a n_b) = 100 m² x pairs within r.
 
     >>> import numpy as np
     >>> snaps = Snapshots(step_ns=1, first_index=0, n_snapshots=1, snap=np.zeros(2, int),
