@@ -33,6 +33,19 @@ both tracks thinned by the same factor where possible. The result is
 deterministic; it approximates the exact De closely for tracks that do not
 oscillate in step with the stride.
 
+Columns of the dyad table:
+
+- ``object_a``, ``object_b``: object ids; ``role_a``, ``role_b``: each
+  one's most frequent role (ties: the first in ``snaps.roles``);
+- ``shared_snapshots`` (both present), ``together_snapshots`` (x),
+  ``only_a_snapshots`` (y_a), ``only_b_snapshots`` (y_b);
+- ``together_seconds`` (x times the step), ``longest_together_seconds``
+  (longest run of consecutive grid snapshots together, times the step),
+  ``first_together``, ``last_together`` (UTC; NaT when never together);
+- ``mean_distance_m`` (Do), ``expected_distance_m`` (De);
+- ``simple_ratio_index``, ``half_weight_index``, ``proximity_index``,
+  ``coefficient_of_sociality``.
+
 References
 ----------
 .. [1] R. J. Cairns, S. J. Schwager, "A comparison of association indices",
@@ -341,18 +354,8 @@ def dyad_table(
     -------
     DataFrame
         One row per unordered pair of objects (``object_a`` has the lower
-        object code) that are both present at one snapshot or more, with columns
-
-        - ``object_a``, ``object_b``: object ids; ``role_a``, ``role_b``: each
-          one's most frequent role (ties: the first in ``snaps.roles``);
-        - ``shared_snapshots`` (both present), ``together_snapshots`` (x),
-          ``only_a_snapshots`` (y_a), ``only_b_snapshots`` (y_b);
-        - ``together_seconds`` (x times the step), ``longest_together_seconds``
-          (longest run of consecutive grid snapshots together, times the step),
-          ``first_together``, ``last_together`` (UTC; NaT when never together);
-        - ``mean_distance_m`` (Do), ``expected_distance_m`` (De);
-        - ``simple_ratio_index``, ``half_weight_index``, ``proximity_index``,
-          ``coefficient_of_sociality``.
+        object code) that are both present at one snapshot or more, with the
+        columns listed in the module docstring.
 
         Sorted by half-weight index, descending, then ``object_a``,
         ``object_b``. ``attrs`` holds ``radius_m``, ``step_s`` and
@@ -360,15 +363,23 @@ def dyad_table(
 
     Notes
     -----
-    The indices, the subsampling for De and their sources are given in the
-    module docstring (and ``docs/association.md``). Counts are whole-array
-    numpy: shared counts are a matrix product of per-object presence grids,
-    together counts a bincount over pair rows, runs one sort of (pair,
-    snapshot) keys. Do uses dense (objects x snapshots) position grids in
-    chunks of about ``GRID_BYTES`` bytes, one pass per object per chunk. Time
-    O(n_objects^2 x n_snapshots + P log P) for P together pairs, plus
-    O(n_pairs x max_expected_pairs) for De; memory O(GRID_BYTES + n_objects^2 + P).
+    The indices, the subsampling for De and their sources are in the module
+    docstring. Time O(n_objects^2 x n_snapshots + P log P) for P together
+    pairs, plus O(n_pairs x max_expected_pairs); memory O(GRID_BYTES +
+    n_objects^2 + P) (dense per-object grids in chunks of snapshots).
 
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from comove.tracks.alignment import Snapshots
+    >>> from comove.tracks.neighbours import neighbour_pairs
+    >>> snaps = Snapshots(step_ns=10**9, first_index=0, n_snapshots=4,
+    ...     snap=np.repeat(np.arange(4), 2), obj=np.tile(np.arange(2, dtype=np.int32), 4),
+    ...     role=np.zeros(8, np.int32), x=np.array([0, 1, 0, 1, 0, 9, 0, 9.0]),
+    ...     y=np.zeros(8), objects=np.array(["a", "b"]), roles=np.array([""]), max_gap_ns=0)
+    >>> row = dyad_table(snaps, neighbour_pairs(snaps, 2.0)).iloc[0]
+    >>> int(row.together_snapshots), float(row.half_weight_index)
+    (2, 0.5)
     """
     if max_expected_pairs < 1:
         raise ValueError("max_expected_pairs must be at least 1")

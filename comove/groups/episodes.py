@@ -440,6 +440,21 @@ def find_episodes(timeline: GroupTimeline, params: EpisodeParams) -> Episodes:
     (a part of a set that was once apart) is recounted when it closes, span by
     span, as whole-array tests when objects fit in 63 bits.
 
+    Examples
+    --------
+    Objects 0 and 1 grouped at snapshots 0-5, then 0 alone with data:
+
+    >>> import numpy as np
+    >>> from comove.groups.grouping import GroupTimeline
+    >>> line = GroupTimeline(
+    ...     n_objects=2, n_snapshots=8, step_ns=10**9, first_index=0,
+    ...     group_snap=np.arange(6), group_offsets=np.arange(0, 13, 2),
+    ...     group_objects=np.tile([0, 1], 6), run_first=np.array([0, 0]),
+    ...     run_last=np.array([7, 7]), run_bounds=np.array([0, 1, 2]))
+    >>> found = find_episodes(line, EpisodeParams(min_duration=3))
+    >>> [m.tolist() for m in found.members], found.start.tolist(), found.end.tolist()
+    ([[0, 1]], [0], [5])
+
     References
     ----------
     .. [1] H. Jeung, M. L. Yiu, X. Zhou, C. S. Jensen, H. T. Shen, "Discovery

@@ -352,11 +352,27 @@ def mine_levels(
     Time and memory are linear in the number of row instances, which for
     dense scenes grows with the number of cliques of the neighbour graphs.
 
+    Examples
+    --------
+    One snapshot: a dog beside its owner, a second dog alone. PR(dog) = 1/2,
+    PR(owner) = 1, so PI = 1/2:
+
+    >>> import numpy as np
+    >>> from comove.tracks.alignment import Snapshots
+    >>> from comove.tracks.neighbours import neighbour_pairs
+    >>> snaps = Snapshots(step_ns=10**9, first_index=0, n_snapshots=1, snap=np.zeros(3, int),
+    ...     obj=np.arange(3, dtype=np.int32), role=np.array([0, 1, 0], dtype=np.int32),
+    ...     x=np.array([0.0, 1.0, 50.0]), y=np.zeros(3), objects=np.array(["d1", "o", "d2"]),
+    ...     roles=np.array(["dog", "owner"]), max_gap_ns=0)
+    >>> pair = mine_levels(snaps, neighbour_pairs(snaps, 2.0), ColocationParams(radius=2.0))[0]
+    >>> pair.pr.tolist(), pair.pi.tolist(), pair.prevalent.tolist()
+    ([[0.5, 1.0]], [0.5], [1])
+
     References
     ----------
     .. [1] Y. Huang, S. Shekhar, H. Xiong, "Discovering colocation patterns from
        spatial data sets: a general approach", IEEE Transactions on Knowledge
-       and Data Engineering 16(12), 2004.
+       and Data Engineering 16(12), 2004. doi:10.1109/TKDE.2004.90 (DOI from memory)
     .. [2] R. Agrawal, R. Srikant, "Fast algorithms for mining association
        rules", VLDB 1994.
     """
