@@ -274,6 +274,32 @@ def test_episodes_equal_a_brute_force_search_of_the_definition(
     assert found_set(found) == brute_force_episodes(snaps, groups_, min_size, min_snaps, tol)
 
 
+@settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(scene=scenes, tol=st.integers(0, 3), p_present=st.sampled_from([1.0, 0.7]))
+def test_memory_bounds_of_the_search_do_not_change_its_episodes(scene, tol, p_present):
+    # the search drops dominated candidates when many are live and forgets old
+    # "together" answers when many are kept: with both bounds at zero (always on) the
+    # episodes are the brute-force search's, as with the defaults
+    import comove.groups.episodes as ep
+
+    rng, n_obj, n_snap = scene
+    x, y, _ = random_walkers(rng, n_obj, n_snap)
+    present = rng.random((n_snap, n_obj)) < p_present
+    present[0] = True
+    snaps = walk_scene(x, y, n_obj, present)
+    gp = GroupParams(radius=1.5, max_heading=None, max_speed_ratio=None)
+    groups_ = snapshot_groups(snaps, linked_pairs(neighbour_pairs(snaps, 1.5),
+                                                  entry_motion(snaps), gp), gp)  # fmt: skip
+    params = EpisodeParams(min_duration=2.0, tolerance=float(tol))
+    old = (ep.PRUNE_ABOVE, ep.FORGET_ABOVE)
+    ep.PRUNE_ABOVE, ep.FORGET_ABOVE = 0, 0
+    try:
+        found = find_episodes(GroupTimeline.of(snaps, groups_), params)
+    finally:
+        ep.PRUNE_ABOVE, ep.FORGET_ABOVE = old
+    assert found_set(found) == brute_force_episodes(snaps, groups_, 2, 2, tol)
+
+
 def test_time_apart_does_not_count_towards_the_minimum_duration():
     # together 3 s, apart 2 s (tolerated), together 3 s: an 8 s episode, 6 s together
     t = np.arange(8.0)
