@@ -14,7 +14,7 @@ import signal
 import sys
 import threading
 import typing
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from dataclasses import MISSING, fields
 from pathlib import Path
@@ -127,61 +127,67 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
-def _add_mine(sub: Any) -> None:
-    """Add the ``comove mine`` command to the subcommands ``sub``."""
-    p = sub.add_parser(
-        "mine",
-        help="durable role co-location patterns of tracks",
-        description="Find the sets of roles whose objects stay close together.",
-    )
-    p.add_argument(
-        "input",
-        nargs="*",
-        help="track file(s) or glob(s): CSV, TSV, Parquet, GeoParquet, GeoPackage, GeoJSON",
-    )
+def _add_analysis(
+    sub: Any,
+    name: str,
+    stages: tuple[type, ...],
+    *,
+    input_help: str = "track file(s) or glob(s), as for `comove mine`",
+    merge: bool = True,
+    extra: Callable[[argparse.ArgumentParser], None] | None = None,
+    **texts: str,
+) -> None:
+    """Add an analysis command: INPUT, --out, --config, ``extra`` flags, its settings' flags."""
+    p = sub.add_parser(name, **texts)
+    p.add_argument("input", nargs="*", help=input_help)
     p.add_argument("--out", type=Path, help="results folder to create")
     _add_config(p)
-    _add_stage_options(p, MINE_STAGES, required=set())
-    _add_common(p)
+    if extra is not None:
+        extra(p)
+    _add_stage_options(p, stages, required=set())
+    _add_common(p, merge=merge)
 
 
-def _add_groups(sub: Any) -> None:
-    """Add the ``comove groups`` command to the subcommands ``sub``."""
-    g = sub.add_parser(
-        "groups",
-        help="co-moving groups of objects: episodes and dyads",
-        description="Find which objects travel together, when groups form and split, and "
-        "how strongly each pair is associated. A preset supplies defaults; flags override "
-        "them.",
-    )
-    g.add_argument("input", nargs="*", help="track file(s) or glob(s), as for `comove mine`")
-    g.add_argument("--out", type=Path, help="results folder to create")
-    _add_config(g)
-    g.add_argument(
+def _add_mine(sub: Any) -> None:
+    """Add the ``comove mine`` command to the subcommands ``sub``."""
+    _add_analysis(
+        sub, "mine", MINE_STAGES,
+        input_help="track file(s) or glob(s): CSV, TSV, Parquet, GeoParquet, GeoPackage, GeoJSON",
+        help="durable role co-location patterns of tracks",
+        description="Find the sets of roles whose objects stay close together.",
+    )  # fmt: skip
+
+
+def _add_preset(p: argparse.ArgumentParser) -> None:
+    p.add_argument(
         "--preset",
         choices=sorted(PRESETS),
         default=None,
         help="defaults for a kind of data: "
         + "; ".join(f"{p.name}: {p.summary}" for p in PRESETS.values()),
     )
-    _add_stage_options(g, GROUP_STAGES, required=set())
-    _add_common(g)
+
+
+def _add_groups(sub: Any) -> None:
+    """Add the ``comove groups`` command to the subcommands ``sub``."""
+    _add_analysis(
+        sub, "groups", GROUP_STAGES, extra=_add_preset,
+        help="co-moving groups of objects: episodes and dyads",
+        description="Find which objects travel together, when groups form and split, and "
+        "how strongly each pair is associated. A preset supplies defaults; flags override "
+        "them.",
+    )  # fmt: skip
 
 
 def _add_sweep(sub: Any) -> None:
     """Add the ``comove sweep`` command to the subcommands ``sub``."""
-    w = sub.add_parser(
-        "sweep",
+    _add_analysis(
+        sub, "sweep", SWEEP_STAGES, merge=False,
         help="the miner over a grid of radii and participation thresholds",
         description="Run the role co-location miner at every radius (and participation "
         "threshold) of a grid, reusing one alignment and one neighbour search, to see where "
         "results are stable.",
-    )
-    w.add_argument("input", nargs="*", help="track file(s) or glob(s), as for `comove mine`")
-    w.add_argument("--out", type=Path, help="results folder to create")
-    _add_config(w)
-    _add_stage_options(w, SWEEP_STAGES, required=set())
-    _add_common(w, merge=False)
+    )  # fmt: skip
 
 
 def _add_report(sub: Any) -> None:
