@@ -49,7 +49,7 @@ Columns of the dyad table:
 References
 ----------
 .. [1] R. J. Cairns, S. J. Schwager, "A comparison of association indices",
-   Animal Behaviour 35(5), 1454-1469, 1987.
+   Animal Behaviour 35(5), 1454-1469, 1987. (from memory, not checked)
 .. [2] R. E. Kenward, V. Marcström, M. Karlbom, "Post-nestling behaviour in
    goshawks, Accipiter gentilis: II. Sex differences in sociality and
    nest-switching", Animal Behaviour 46(2), 371-378, 1993 (details from memory).
@@ -58,7 +58,7 @@ References
    white-tailed deer", Journal of Wildlife Management 60(4), 899-909, 1996 (from
    memory).
 .. [4] R. Joo, M.-P. Etienne, N. Bez, S. Mahévas, "Metrics for describing
-   dyadic movement: a review", Movement Ecology 6, 26, 2018.
+   dyadic movement: a review", Movement Ecology 6, 26, 2018. (from memory, not checked)
 """
 
 from __future__ import annotations

@@ -458,11 +458,11 @@ def find_episodes(timeline: GroupTimeline, params: EpisodeParams) -> Episodes:
     References
     ----------
     .. [1] H. Jeung, M. L. Yiu, X. Zhou, C. S. Jensen, H. T. Shen, "Discovery
-       of convoys in trajectory databases", PVLDB 1(1), 2008.
+       of convoys in trajectory databases", PVLDB 1(1), 2008. (from memory, not checked)
     .. [2] K. Zheng, Y. Zheng, N. J. Yuan, S. Shang, X. Zhou, "Online discovery
-       of gathering patterns over trajectories", IEEE TKDE 26(8), 2014.
+       of gathering patterns over trajectories", IEEE TKDE 26(8), 2014. (from memory, not checked)
     .. [3] A. L. Zobrist, "A new hashing method with application for game
-       playing", Technical Report 88, University of Wisconsin, 1970.
+       playing", Technical Report 88, University of Wisconsin, 1970. (from memory, not checked)
     """
     step = timeline.step_s
     tol_snaps = int(np.floor(params.tolerance / step + 1e-9))

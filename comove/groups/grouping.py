@@ -347,11 +347,11 @@ def snapshot_groups(snaps: Snapshots, links: NeighbourPairs, params: GroupParams
     ----------
     .. [1] M. Ester, H.-P. Kriegel, J. Sander, X. Xu, "A density-based
        algorithm for discovering clusters in large spatial databases with
-       noise", KDD 1996.
+       noise", KDD 1996. (from memory, not checked)
     .. [2] H. Jeung, M. L. Yiu, X. Zhou, C. S. Jensen, H. T. Shen, "Discovery
-       of convoys in trajectory databases", PVLDB 1(1), 2008.
+       of convoys in trajectory databases", PVLDB 1(1), 2008. (from memory, not checked)
     .. [3] C. Bron, J. Kerbosch, "Algorithm 457: finding all cliques of an
-       undirected graph", Communications of the ACM 16(9), 1973.
+       undirected graph", Communications of the ACM 16(9), 1973. (from memory, not checked)
     """
     n = snaps.n_entries
     i, j = links.i, links.j

@@ -374,7 +374,7 @@ def mine_levels(
        spatial data sets: a general approach", IEEE Transactions on Knowledge
        and Data Engineering 16(12), 2004. doi:10.1109/TKDE.2004.90 (DOI from memory)
     .. [2] R. Agrawal, R. Srikant, "Fast algorithms for mining association
-       rules", VLDB 1994.
+       rules", VLDB 1994. (from memory, not checked)
     """
     if pairs.radius != params.radius:
         raise ValueError("neighbour pairs were computed at another radius")

@@ -229,7 +229,7 @@ def cross_k(
     .. [3] A. Baddeley, E. Rubak and R. Turner, "Spatial Point Patterns:
        Methodology and Applications with R", CRC Press, 2015. doi:10.1201/b19708
     .. [4] P. J. Diggle, "Statistical Analysis of Spatial Point Patterns",
-       2nd ed., Arnold, 2003.
+       2nd ed., Arnold, 2003. (from memory, not checked)
 
     Examples
     --------

@@ -127,9 +127,10 @@ def durable_patterns(
     References
     ----------
     .. [1] Y. Huang, S. Shekhar, H. Xiong, "Discovering colocation patterns from
-       spatial data sets: a general approach", IEEE TKDE 16(12), 2004.
+       spatial data sets: a general approach", IEEE TKDE 16(12), 2004. (from memory, not checked)
     .. [2] M. Celik, S. Shekhar, J. P. Rogers, J. A. Shine, "Mixed-drove
        spatiotemporal co-occurrence pattern mining", IEEE TKDE 20(10), 2008.
+       (from memory, not checked)
     """
     pattern_rows: list[dict] = []
     part_rows: list[dict] = []

@@ -283,9 +283,9 @@ def monte_carlo_p(observed: np.ndarray, null: np.ndarray) -> np.ndarray:
     References
     ----------
     .. [1] A. C. A. Hope, "A simplified Monte Carlo significance test
-       procedure", JRSS B 30(3), 1968.
+       procedure", JRSS B 30(3), 1968. (from memory, not checked)
     .. [2] A. C. Davison, D. V. Hinkley, "Bootstrap Methods and their
-       Application", Cambridge University Press, 1997, section 4.2.
+       Application", Cambridge University Press, 1997, section 4.2. (from memory, not checked)
     """
     n = null.shape[0]
     exceed = (null >= observed[None, :] - 1e-12).sum(axis=0)
