@@ -255,7 +255,12 @@ def _resolve(
 
 
 def _add_common(p: argparse.ArgumentParser, merge: bool = True) -> None:
-    p.add_argument("--force", action="store_true", help="replace an existing results folder")
+    p.add_argument(
+        "--force",
+        action="store_true",
+        help="replace the files comove wrote in an existing results folder (a folder "
+        "holding anything else is refused)",
+    )
     if merge:
         p.add_argument(
             "--merge", action="store_true",
