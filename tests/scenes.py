@@ -190,3 +190,12 @@ def run_scenario(name, **extra):
         **extra,
     )
     return truth, groups(str(SCENARIOS_DIR / name / truth["input"]), preset=preset, **options)
+
+
+def gap_midpoints(snaps: Snapshots, most: int = 40) -> list[int]:
+    """Return snapshots in the middle of objects' gaps in data (no fix there), at most ``most``."""
+    order = snaps.object_order()
+    snap, obj = snaps.snap[order], snaps.obj[order]
+    gap = (obj[1:] == obj[:-1]) & (snap[1:] - snap[:-1] > 1)
+    middle = (snap[:-1][gap] + snap[1:][gap]) // 2
+    return sorted({int(m) for m in middle})[:most]

@@ -7,7 +7,7 @@ import pandas as pd
 import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
-from scenes import SCENARIO_RUNS, grid_scene, random_walkers, run_scenario
+from scenes import SCENARIO_RUNS, gap_midpoints, grid_scene, random_walkers, run_scenario
 from scipy.spatial.distance import cdist
 
 from comove.groups.chain import chunk_timeline, group_chain
@@ -95,14 +95,16 @@ def scenario_groups(request):
 
 
 def test_chunked_episodes_equal_the_whole_on_every_scenario(scenario_groups):
-    # chunk edges at several sizes, so that some fall inside episodes and inside gaps
+    # chunk edges at several sizes, in the middle of every episode, and in the middle
+    # of gaps in objects' data
     snaps, grouping, episode_params = scenario_groups
     whole = group_chain(snaps, grouping, episode_params).episodes
     assert whole.n_episodes > 0
     expected = episodes_as_tuples(whole)
     n = snaps.n_snapshots
     inside = [(int(s) + int(e)) // 2 for s, e in zip(whole.start, whole.end, strict=True)]
-    for cuts in (list(range(n // 7, n, n // 7)), [n // 2], sorted(set(inside))[:40]):
+    gaps = gap_midpoints(snaps)  # the fleet's dropouts and the herd's missed fixes
+    for cuts in (list(range(n // 7, n, n // 7)), [n // 2], sorted(set(inside))[:40], gaps):
         found = chunked_episodes(snaps, grouping, episode_params, cuts)
         assert episodes_as_tuples(found) == expected
 

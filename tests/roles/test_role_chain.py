@@ -7,7 +7,7 @@ import pandas as pd
 import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
-from scenes import grid_scene, random_scene
+from scenes import gap_midpoints, grid_scene, random_scene
 
 from comove.io.scenarios import mine_options, scenario_names
 from comove.pipeline.core import mine
@@ -55,6 +55,7 @@ def test_chunked_tally_equals_the_whole_on_every_scenario(scenario, fraction):
     combined = chunked(snaps, colocation, size=size)
     assert combined.n_snapshots == whole.n_snapshots
     assert_same_levels(combined, whole)
+    assert_same_levels(chunked(snaps, colocation, cuts=gap_midpoints(snaps, most=20)), whole)
     # and after the whole run's pruning bound, the tables a user sees are the same
     bound = persistence.min_prevalent_snapshots(snaps.step_s)
     fast = role_chain(snaps, colocation, min_prevalent_snapshots=bound)
