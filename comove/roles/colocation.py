@@ -21,7 +21,6 @@ method).
 
 from __future__ import annotations
 
-from collections.abc import Callable
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -319,7 +318,6 @@ def mine_levels(
     params: ColocationParams,
     min_prevalent_snapshots: int = 1,
     presence: RolePresence | None = None,
-    on_level: Callable[[int, int], None] | None = None,
 ) -> list[LevelResult]:
     """Return per-snapshot co-location of every candidate role set, level by level.
 
@@ -338,8 +336,6 @@ def mine_levels(
         instance (what a time chunk needs, see :mod:`comove.roles.chain`).
     presence : RolePresence, optional
         Role presence of ``snaps``, when the caller already has it.
-    on_level : callable, optional
-        Called with (size, number of candidates) as each level starts.
 
     Returns
     -------
@@ -354,8 +350,7 @@ def mine_levels(
 
     Examples
     --------
-    One snapshot: a dog beside its owner, a second dog alone. PR(dog) = 1/2,
-    PR(owner) = 1, so PI = 1/2:
+    A dog beside its owner, a second dog alone: PR(dog) = 1/2, PR(owner) = 1, PI = 1/2.
 
     >>> import numpy as np
     >>> from comove.tracks.alignment import Snapshots
@@ -381,26 +376,15 @@ def mine_levels(
     role_counts = RoleCounts(snaps)
     presence = presence or RolePresence(snaps)
     role_sets, instances, instance_set = _pair_level(snaps, pairs)
-    if on_level:
-        on_level(2, role_sets.shape[0])
-    level = _level_from_instances(
-        snaps,
-        role_sets,
-        instances,
-        instance_set,
-        role_counts,
-        presence,
-        params.min_participation,
-    )
+    level = _level_from_instances(snaps, role_sets, instances, instance_set, role_counts,
+                                  presence, params.min_participation)  # fmt: skip
     levels = [level]
     edge_keys = pairs.keys(snaps.n_entries)
-    for k in range(3, params.max_size + 1):
+    for _size in range(3, params.max_size + 1):  # one pass per set size
         keep = level.prevalent >= int(min_prevalent_snapshots)
         candidates = _candidates(level.roles, keep)
         if candidates.shape[0] == 0:
             break
-        if on_level:
-            on_level(k, candidates.shape[0])
         level = _next_level(snaps, level, keep, candidates, edge_keys, role_counts, presence,
                             params.min_participation)  # fmt: skip
         levels.append(level)
