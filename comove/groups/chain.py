@@ -13,7 +13,11 @@ its groups are exactly the whole run's. The chunks' timelines join
 (:meth:`~comove.groups.grouping.GroupTimeline.joined`: groups concatenated, each
 object's presence runs stitched where they meet at a chunk edge), and the
 episode search runs over the joined timeline, so episodes that cross chunk
-edges, or tolerated gaps that do, are found as in one piece.
+edges, or tolerated gaps that do, are found as in one piece. The dyad counts
+of a chunk (:func:`chunk_dyads`) join likewise (:meth:`~comove.groups.dyads.DyadTally.then`:
+counts and exact distance sums add, runs together stitch at the edge); only
+the expected distance of the coefficient of sociality pairs positions across
+the whole run and is computed from the tracks once the chunks are joined.
 """
 
 from __future__ import annotations
@@ -23,6 +27,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from comove.groups.dyads import DyadTally, dyad_tally
 from comove.groups.episodes import EpisodeParams, Episodes, find_episodes
 from comove.groups.grouping import (
     GroupParams,
@@ -169,3 +174,26 @@ def chunk_timeline(
     motion = Motion(vx=around.vx[lo:hi], vy=around.vy[lo:hi])
     pairs = neighbour_pairs(chunk, grouping.radius, workers=workers)
     return GroupTimeline.of(chunk, _groups(chunk, pairs, motion, grouping))
+
+
+def chunk_dyads(
+    snaps: Snapshots, start: int, stop: int, radius: float, workers: int = 1
+) -> DyadTally:
+    """Return the dyad counts of snapshots ``start`` to ``stop - 1`` of ``snaps``.
+
+    The tallies of consecutive chunks join (:meth:`~comove.groups.dyads.DyadTally.then`)
+    into the tally of the whole run, exactly.
+
+    Parameters
+    ----------
+    snaps : Snapshots
+        The aligned snapshots (only the chunk is read).
+    start, stop : int
+        The chunk's snapshots.
+    radius : float
+        Distance (m) within which two objects are together.
+    workers : int, default 1
+        Threads of the neighbour search (-1: every core).
+    """
+    chunk = snaps.window(start, stop)
+    return dyad_tally(chunk, neighbour_pairs(chunk, radius, workers=workers))

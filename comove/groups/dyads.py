@@ -33,6 +33,15 @@ both tracks thinned by the same factor where possible. The result is
 deterministic; it approximates the exact De closely for tracks that do not
 oscillate in step with the stride.
 
+Over chunks of time. :func:`dyad_tally` counts one chunk of snapshots;
+:meth:`DyadTally.then` joins the tallies of consecutive chunks into the tally of
+the whole run, exactly: counts add, the distances behind Do are summed as
+integers of 2**-37 m (each distance rounded to the nearest; a float sum would
+depend on where the chunks are cut and in which order they are added), and
+runs together stitch across chunk edges. De pairs positions at any two times,
+so it is computed from the tracks (:func:`expected_distances`) once the
+tally is complete; :func:`dyad_rows` then builds the table.
+
 Columns of the dyad table:
 
 - ``object_a``, ``object_b``: object ids; ``role_a``, ``role_b``: each
@@ -63,12 +72,14 @@ References
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+
 import numpy as np
 import pandas as pd
 from scipy.spatial.distance import cdist
 
 from comove.errors import InputError
-from comove.tracks.alignment import Snapshots, longest_runs
+from comove.tracks.alignment import Snapshots, longest_runs, most_frequent_roles
 from comove.tracks.neighbours import NeighbourPairs
 
 #: Bytes allowed for the dense per-object grids of one chunk of snapshots (positions,
@@ -79,9 +90,9 @@ GRID_BYTES = 200_000_000
 #: memory (32 MB) whatever ``max_expected_pairs`` is.
 EXPECTED_BLOCK = 4_000_000
 
-#: float64 arrays alive at once per grid cell in a chunk: x, y, presence and the
-#: two differences of a distance pass.
-_GRID_ARRAYS = 5
+#: 8-byte arrays alive at once per grid cell in a chunk: x, y, presence, the two
+#: differences of a distance pass and its fixed-point copy and low half.
+_GRID_ARRAYS = 7
 
 DYAD_COLUMNS = [
     "object_a", "object_b", "role_a", "role_b",
@@ -100,6 +111,129 @@ _TIME_COLUMNS = {"first_together", "last_together"}
 _TEXT_COLUMNS = {"object_a", "object_b", "role_a", "role_b"}
 
 
+#: Distances are summed as integers of 2**-37 m (7 picometres; each distance rounded
+#: to the nearest), held in two int64 halves of 32 bits, so that the sum over a run
+#: of snapshots is the same number however the run is cut into chunks and in whatever
+#: order the chunks' sums are added (a float sum would change in its last bits).
+_FIXED_BITS = 37
+_LOW_BITS = 32
+_LOW_MASK = (1 << _LOW_BITS) - 1
+
+#: Farthest two positions may be apart for the fixed-point sums (2**26 m, 67 000 km:
+#: more than any two points on the Earth in any projection in metres).
+_MAX_SPAN_M = 2.0 ** (63 - _FIXED_BITS)
+
+
+@dataclass(frozen=True)
+class DyadTally:
+    """Dyad counts of a stretch of consecutive snapshots; stretches combine exactly.
+
+    One tally per chunk of time; :meth:`then` joins the tally of the chunk that
+    follows. Counts and distance sums add (the distance sums are integers, see
+    ``_FIXED_BITS``), runs of snapshots together stitch across the edge, so the
+    joined tally equals the tally of the joined chunks, bit for bit.
+
+    Attributes
+    ----------
+    first_index : int
+        Grid index of the stretch's first snapshot (as ``Snapshots.first_index``).
+    n_snapshots : int
+        Snapshots in the stretch.
+    n_objects, n_roles : int
+        Sizes of the run's object and role tables (codes are the run's).
+    key : ndarray of int64
+        ``a * n_objects + b`` (a < b), sorted: the pairs counted.
+    shared, together : ndarray of int64
+        Snapshots at which both are present; at which they are together.
+    distance_high, distance_low : ndarray of int64
+        Summed distance at the shared snapshots,
+        ``(high * 2**32 + low) * 2**-37`` metres.
+    longest, head, tail : ndarray of int64
+        Longest run together; the run together that starts at the stretch's
+        first snapshot and the one that ends at its last (0 when none).
+    first, last : ndarray of int64
+        Grid index of the first and last snapshot together (-1: never).
+    present : ndarray of int64
+        Snapshots at which each object is present.
+    role_key, role_count : ndarray of int64
+        ``object * n_roles + role`` codes that occur, sorted, and their entries.
+    """
+
+    first_index: int
+    n_snapshots: int
+    n_objects: int
+    n_roles: int
+    key: np.ndarray
+    shared: np.ndarray
+    together: np.ndarray
+    distance_high: np.ndarray
+    distance_low: np.ndarray
+    longest: np.ndarray
+    head: np.ndarray
+    tail: np.ndarray
+    first: np.ndarray
+    last: np.ndarray
+    present: np.ndarray
+    role_key: np.ndarray
+    role_count: np.ndarray
+
+    def then(self, later: DyadTally) -> DyadTally:
+        """Return the tally of this stretch followed directly by ``later``."""
+        if (later.n_objects, later.n_roles) != (self.n_objects, self.n_roles):
+            raise ValueError("tallies of different runs (object or role tables differ)")
+        if later.first_index != self.first_index + self.n_snapshots:
+            raise ValueError("tallies to join must be of consecutive stretches of snapshots")
+        if self.n_snapshots == 0 or later.n_snapshots == 0:
+            return later if self.n_snapshots == 0 else self
+        key = np.union1d(self.key, later.key)
+        mine, theirs = np.searchsorted(key, self.key), np.searchsorted(key, later.key)
+
+        def both(name: str, fill: int = 0) -> tuple[np.ndarray, np.ndarray]:
+            a, b = np.full(key.size, fill, np.int64), np.full(key.size, fill, np.int64)
+            a[mine], b[theirs] = getattr(self, name), getattr(later, name)
+            return a, b
+
+        (head_a, head_b), (tail_a, tail_b) = both("head"), both("tail")
+        (first_a, first_b), (last_a, last_b) = both("first", -1), both("last", -1)
+        high, low = _carried(*(sum(both(name)) for name in ("distance_high", "distance_low")))
+        role_key, role_at = np.unique(np.r_[self.role_key, later.role_key], return_inverse=True)
+        n_a, n_b = self.n_snapshots, later.n_snapshots
+        return DyadTally(
+            first_index=self.first_index, n_snapshots=n_a + n_b,
+            n_objects=self.n_objects, n_roles=self.n_roles, key=key,
+            shared=sum(both("shared")), together=sum(both("together")),
+            distance_high=high, distance_low=low,
+            longest=np.maximum(np.maximum(*both("longest")), tail_a + head_b),
+            head=np.where(head_a == n_a, n_a + head_b, head_a),
+            tail=np.where(tail_b == n_b, n_b + tail_a, tail_b),
+            first=np.where(first_a >= 0, first_a, first_b),
+            last=np.where(last_b >= 0, last_b, last_a),
+            present=self.present + later.present, role_key=role_key,
+            role_count=np.bincount(role_at, np.r_[self.role_count, later.role_count],
+                                   minlength=role_key.size).astype(np.int64),
+        )  # fmt: skip
+
+    def pairs(self) -> tuple[np.ndarray, np.ndarray]:
+        """Return the object codes (a, b), a < b, of the counted pairs."""
+        return self.key // self.n_objects, self.key % self.n_objects
+
+    def mean_distance(self) -> np.ndarray:
+        """Return the mean distance (m) of each pair over its shared snapshots."""
+        total = self.distance_high * 2.0 ** (_LOW_BITS - _FIXED_BITS)
+        total += self.distance_low * 2.0**-_FIXED_BITS
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return total / self.shared
+
+    def main_roles(self) -> np.ndarray:
+        """Return each object's most frequent role code (ties: lowest code)."""
+        return most_frequent_roles(self.role_key, self.role_count, self.n_objects, self.n_roles)
+
+
+def _carried(high: np.ndarray, low: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Return the fixed-point halves with the low half's carry moved into the high half."""
+    return high + (low >> _LOW_BITS), low & _LOW_MASK
+
+
 def _check_together(snaps: Snapshots, together: NeighbourPairs) -> None:
     """Raise ValueError unless every pair joins two entries of one snapshot."""
     i, j = np.asarray(together.i), np.asarray(together.j)
@@ -116,16 +250,23 @@ def _check_together(snaps: Snapshots, together: NeighbourPairs) -> None:
         raise ValueError("together joins an object with itself")
 
 
-def _shared_and_distance_sums(snaps: Snapshots, n_obj: int) -> tuple[np.ndarray, np.ndarray]:
-    """Return (shared snapshot counts, summed distance over them), both (n_obj, n_obj).
+def _shared_and_distance_sums(
+    snaps: Snapshots, n_obj: int
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Return shared snapshot counts and the distance sums over them, each (n_obj, n_obj).
 
-    Only the upper triangle (a < b) of the distance sums is filled.
+    The distance sums are the two fixed-point halves (see ``_FIXED_BITS``);
+    only their upper triangle (a < b) is filled.
     """
     shared = np.zeros((n_obj, n_obj), dtype=np.float64)
-    dist_sum = np.zeros((n_obj, n_obj), dtype=np.float64)
+    high = np.zeros((n_obj, n_obj), dtype=np.int64)
+    low = np.zeros((n_obj, n_obj), dtype=np.int64)
     n_snap = snaps.n_snapshots
     if snaps.n_entries == 0:
-        return shared.astype(np.int64), dist_sum
+        return shared.astype(np.int64), high, low
+    span = np.hypot(np.ptp(snaps.x), np.ptp(snaps.y))
+    if not span < _MAX_SPAN_M:
+        raise ValueError(f"positions {span:.3g} m apart: coordinates are not in metres")
     width = max(1, GRID_BYTES // (8 * _GRID_ARRAYS * max(n_obj, 1)))
     offsets = snaps.offsets()
     for c0 in range(0, n_snap, width):  # per chunk of snapshots
@@ -149,16 +290,71 @@ def _shared_and_distance_sums(snaps: Snapshots, n_obj: int) -> tuple[np.ndarray,
         # blocks, ten times the calls, were no faster alone).
         with_partner = chunk_shared.sum(axis=1) > np.diag(chunk_shared)
         for a in np.flatnonzero(with_partner[:-1]).tolist():  # per object: the later ones
-            dx = gx[a + 1 :] - gx[a]
-            dy = gy[a + 1 :] - gy[a]
-            dx *= dx
-            dy *= dy
-            dx += dy
-            np.sqrt(dx, out=dx)
-            # NaN marks "one of the two absent"; such snapshots are not shared
-            np.fmax(dx, 0.0, out=dx)
-            dist_sum[a, a + 1 :] += dx.sum(axis=1)
-    return np.rint(shared).astype(np.int64), dist_sum
+            part_high, part_low = _fixed_distance_sums(gx, gy, a)
+            high[a, a + 1 :] += part_high
+            low[a, a + 1 :] += part_low
+    high, low = _carried(high, low)
+    return np.rint(shared).astype(np.int64), high, low
+
+
+def _fixed_distance_sums(gx: np.ndarray, gy: np.ndarray, a: int) -> tuple[np.ndarray, np.ndarray]:
+    """Return the fixed-point sums of the distances from object ``a`` to each later object.
+
+    ``gx``/``gy`` are (objects, snapshots) grids with NaN where an object is
+    absent; a snapshot at which either is absent adds nothing.
+    """
+    dx = gx[a + 1 :] - gx[a]
+    dy = gy[a + 1 :] - gy[a]
+    dx *= dx
+    dy *= dy
+    dx += dy
+    np.sqrt(dx, out=dx)
+    # NaN marks "one of the two absent"; such snapshots are not shared
+    np.fmax(dx, 0.0, out=dx)
+    dx *= 2.0**_FIXED_BITS
+    units = np.rint(dx, out=dx).astype(np.int64)
+    part_low = np.bitwise_and(units, _LOW_MASK).sum(axis=1)
+    np.right_shift(units, _LOW_BITS, out=units)
+    return units.sum(axis=1), part_low
+
+
+def dyad_tally(snaps: Snapshots, together: NeighbourPairs) -> DyadTally:
+    """Return the dyad counts of every pair of objects present at the same time in ``snaps``.
+
+    Parameters
+    ----------
+    snaps : Snapshots
+        Aligned snapshots: a whole run, or one chunk of it (:meth:`Snapshots.window`).
+    together : NeighbourPairs
+        The pairs of entries of ``snaps`` counted as together (see :func:`dyad_table`).
+
+    Returns
+    -------
+    DyadTally
+        Counts of the pairs present together at one snapshot or more; the
+        tallies of consecutive chunks join with :meth:`DyadTally.then` into
+        the tally of the whole.
+    """
+    _check_together(snaps, together)
+    n_obj = len(snaps.objects)
+    n_roles = max(len(snaps.roles), int(snaps.role.max()) + 1 if snaps.n_entries else 1)
+    shared_m, high_m, low_m = _shared_and_distance_sums(snaps, n_obj)
+    a, b = np.nonzero(np.triu(shared_m, 1))  # row-major: sorted by a, then b
+    x, longest, head, tail, first, last = _together_runs(snaps, together, a, b)
+    role_key, role_count = np.unique(
+        snaps.obj.astype(np.int64) * n_roles + snaps.role, return_counts=True
+    )
+    return DyadTally(
+        first_index=snaps.first_index, n_snapshots=snaps.n_snapshots,
+        n_objects=n_obj, n_roles=n_roles, key=a.astype(np.int64) * n_obj + b,
+        shared=shared_m[a, b], together=x,
+        distance_high=high_m[a, b], distance_low=low_m[a, b],
+        longest=longest, head=head, tail=tail,
+        first=np.where(x > 0, first + snaps.first_index, -1),
+        last=np.where(x > 0, last + snaps.first_index, -1),
+        present=np.bincount(snaps.obj, minlength=n_obj).astype(np.int64),
+        role_key=role_key, role_count=role_count.astype(np.int64),
+    )  # fmt: skip
 
 
 def _subsample_sizes(n_a: np.ndarray, n_b: np.ndarray, cap: int) -> tuple[np.ndarray, np.ndarray]:
@@ -182,10 +378,28 @@ def _even_sample(n: int, m: int) -> np.ndarray:
     return (2 * np.arange(m, dtype=np.int64) + 1) * n // (2 * m)
 
 
-def _expected_distances(
-    snaps: Snapshots, n_obj: int, a: np.ndarray, b: np.ndarray, cap: int
-) -> np.ndarray:
-    """Return the mean distance over all pairings of a fix of a with a fix of b, per pair."""
+def expected_distances(snaps: Snapshots, tally: DyadTally, max_expected_pairs: int) -> np.ndarray:
+    """Return De, the mean distance over all pairings of a position of a with one of b.
+
+    Parameters
+    ----------
+    snaps : Snapshots
+        The whole run: De pairs positions at any times, so it is not a sum
+        over chunks; the tracks are read once more after the chunks are tallied.
+    tally : DyadTally
+        The pairs (the whole run's tally).
+    max_expected_pairs : int
+        Most pairings per pair; above it both tracks are thinned (module docstring).
+
+    Returns
+    -------
+    ndarray
+        De of each pair of ``tally``, in its order.
+    """
+    a, b = tally.pairs()
+    if a.size == 0:
+        return np.zeros(0)
+    cap = int(max_expected_pairs)
     # each object's entries stay in time order, so strata are stretches of time
     by_obj, start = snaps.object_order(), snaps.object_bounds()
     counts = np.diff(start)
@@ -237,10 +451,12 @@ def _empty_table() -> pd.DataFrame:
 
 def _together_runs(
     snaps: Snapshots, together: NeighbourPairs, a: np.ndarray, b: np.ndarray
-) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """Return per dyad row (pairs ``a`` < ``b``): snapshots together, longest run, first, last.
+) -> tuple[np.ndarray, ...]:
+    """Return per dyad row (pairs ``a`` < ``b``) the runs of snapshots together.
 
-    Runs come from one sort of (row, snapshot) keys of the together pairs.
+    Returns (snapshots together, longest run, run from the first snapshot,
+    run to the last snapshot, first and last snapshot together), from one
+    sort of (row, snapshot) keys of the together pairs.
     """
     n_obj = len(snaps.objects)
     n_rows = a.size
@@ -263,45 +479,77 @@ def _together_runs(
         row, snap = row[order], snap[order]
     if row.size > 1 and np.any((row[1:] == row[:-1]) & (snap[1:] == snap[:-1])):
         raise ValueError("together lists the same pair of objects twice in one snapshot")
-    x = np.bincount(row, minlength=n_rows)
+    x = np.bincount(row, minlength=n_rows).astype(np.int64)
     longest, _ = longest_runs(row, snap, n_rows)
-    first_snap = np.zeros(n_rows, dtype=np.int64)
-    last_snap = np.zeros(n_rows, dtype=np.int64)
+    edges = [np.zeros(n_rows, dtype=np.int64) for _ in range(4)]
+    head, tail, first_snap, last_snap = edges
     if row.size:
+        new_run = np.r_[True, (row[1:] != row[:-1]) | (snap[1:] != snap[:-1] + 1)]
+        run_first = np.flatnonzero(new_run)
+        run_len = np.diff(np.append(run_first, row.size))
+        run_row, run_start = row[run_first], snap[run_first]
+        at_start, at_end = run_start == 0, run_start + run_len == snaps.n_snapshots
+        head[run_row[at_start]] = run_len[at_start]
+        tail[run_row[at_end]] = run_len[at_end]
         brk = np.flatnonzero(row[1:] != row[:-1])
         first_snap[row[np.r_[0, brk + 1]]] = snap[np.r_[0, brk + 1]]
         last_snap[row[np.r_[brk, row.size - 1]]] = snap[np.r_[brk, row.size - 1]]
-    return x, longest, first_snap, last_snap
+    return x, longest, head, tail, first_snap, last_snap
 
 
-def _dyad_frame(
-    snaps: Snapshots,
-    a: np.ndarray,
-    b: np.ndarray,
-    shared: np.ndarray,
-    x: np.ndarray,
-    longest: np.ndarray,
-    first_snap: np.ndarray,
-    last_snap: np.ndarray,
-    mean_dist: np.ndarray,
-    expected: np.ndarray,
+def dyad_rows(
+    tally: DyadTally, snaps: Snapshots, expected: np.ndarray, max_expected_pairs: int
 ) -> pd.DataFrame:
-    """Return the dyad rows of pairs ``a`` < ``b`` from their counts and distances."""
-    present = np.bincount(snaps.obj, minlength=len(snaps.objects))
-    only_a = present[a] - shared
-    only_b = present[b] - shared
-    never = x == 0
+    """Return the dyad table of a tally, given the expected distance of each of its pairs.
 
-    def utc(s: np.ndarray) -> pd.DatetimeIndex:
-        t = snaps.times(s).astype("datetime64[ns]")
-        t[never] = np.datetime64("NaT")
+    Parameters
+    ----------
+    tally : DyadTally
+        Counts of the whole run (the tallies of its chunks joined).
+    snaps : Snapshots
+        The run or any chunk of it: only its object and role names and its step are read.
+    expected : ndarray
+        Expected distance De of each pair of the tally (see :func:`expected_distances`).
+    max_expected_pairs : int
+        The subsampling cap De was computed with, kept in ``attrs``.
+
+    Returns
+    -------
+    DataFrame
+        As :func:`dyad_table`, without its ``radius_m`` attribute.
+    """
+    a, b = tally.pairs()
+    if a.size == 0:
+        table = _empty_table()
+    else:
+        table = _dyad_frame(tally, snaps, expected).sort_values(
+            ["half_weight_index", "object_a", "object_b"],
+            ascending=[False, True, True],
+            kind="stable",
+        )
+    table = table.reset_index(drop=True)
+    table.attrs.update(step_s=snaps.step_s, max_expected_pairs=int(max_expected_pairs))
+    return table
+
+
+def _dyad_frame(tally: DyadTally, snaps: Snapshots, expected: np.ndarray) -> pd.DataFrame:
+    """Return the dyad rows of a tally's pairs, in the tally's order."""
+    a, b = tally.pairs()
+    shared, x = tally.shared, tally.together
+    only_a = tally.present[a] - shared
+    only_b = tally.present[b] - shared
+    mean_dist = tally.mean_distance()
+
+    def utc(grid_index: np.ndarray) -> pd.DatetimeIndex:
+        t = (grid_index * snaps.step_ns).astype("datetime64[ns]")
+        t[grid_index < 0] = np.datetime64("NaT")
         return pd.DatetimeIndex(t).tz_localize("UTC")
 
     with np.errstate(invalid="ignore", divide="ignore"):
         cs = (expected - mean_dist) / (expected + mean_dist)
     apart = shared - x
     step = snaps.step_s
-    roles = snaps.main_roles()
+    roles = tally.main_roles()
     objects = np.asarray(snaps.objects).astype(str)
     role_names = np.asarray(snaps.roles).astype(str)
     return pd.DataFrame(
@@ -310,14 +558,14 @@ def _dyad_frame(
             "object_b": pd.array(objects[b], dtype=str),
             "role_a": pd.array(role_names[roles[a]], dtype=str),
             "role_b": pd.array(role_names[roles[b]], dtype=str),
-            "shared_snapshots": shared.astype(np.int64),
-            "together_snapshots": x.astype(np.int64),
-            "only_a_snapshots": only_a.astype(np.int64),
-            "only_b_snapshots": only_b.astype(np.int64),
+            "shared_snapshots": shared,
+            "together_snapshots": x,
+            "only_a_snapshots": only_a,
+            "only_b_snapshots": only_b,
             "together_seconds": x * step,
-            "longest_together_seconds": longest * step,
-            "first_together": utc(first_snap),
-            "last_together": utc(last_snap),
+            "longest_together_seconds": tally.longest * step,
+            "first_together": utc(tally.first),
+            "last_together": utc(tally.last),
             "mean_distance_m": mean_dist,
             "expected_distance_m": expected,
             "simple_ratio_index": x / (x + apart + only_a + only_b),
@@ -383,29 +631,10 @@ def dyad_table(
     """
     if max_expected_pairs < 1:
         raise ValueError("max_expected_pairs must be at least 1")
-    _check_together(snaps, together)
-    n_obj = len(snaps.objects)
-    shared_m, dist_sum = _shared_and_distance_sums(snaps, n_obj)
-    a, b = np.nonzero(np.triu(shared_m, 1))  # row-major: sorted by a, then b
-    attrs = {"radius_m": float(together.radius), "step_s": snaps.step_s,
-             "max_expected_pairs": int(max_expected_pairs)}  # fmt: skip
-    if a.size == 0:
-        table = _empty_table()
-        table.attrs.update(attrs)
-        return table
-    shared = shared_m[a, b]
-    mean_dist = dist_sum[a, b] / shared
-
-    x, longest, first_snap, last_snap = _together_runs(snaps, together, a, b)
-    expected = _expected_distances(snaps, n_obj, a, b, int(max_expected_pairs))
-    table = _dyad_frame(snaps, a, b, shared, x, longest, first_snap, last_snap, mean_dist,
-                        expected)  # fmt: skip
-    table = table.sort_values(
-        ["half_weight_index", "object_a", "object_b"],
-        ascending=[False, True, True],
-        kind="stable",
-    ).reset_index(drop=True)
-    table.attrs.update(attrs)
+    tally = dyad_tally(snaps, together)
+    table = dyad_rows(tally, snaps, expected_distances(snaps, tally, max_expected_pairs),
+                      max_expected_pairs)  # fmt: skip
+    table.attrs = {"radius_m": float(together.radius), **table.attrs}
     return table
 
 

@@ -151,16 +151,8 @@ class Snapshots:
             ).reshape(n_obj, n_roles)
             return counts.argmax(axis=1)
         # many objects and roles: count only the (object, role) keys that occur
-        keys = np.sort(self.obj.astype(np.int64) * n_roles + self.role)
-        first = np.flatnonzero(np.r_[True, keys[1:] != keys[:-1]])
-        count = np.diff(np.append(first, keys.size))
-        key = keys[first]
-        order = np.lexsort((key % n_roles, -count, key // n_roles))
-        obj = key[order] // n_roles
-        best = order[np.r_[True, obj[1:] != obj[:-1]]]
-        roles = np.zeros(n_obj, dtype=np.int64)
-        roles[key[best] // n_roles] = key[best] % n_roles
-        return roles
+        key, count = np.unique(self.obj.astype(np.int64) * n_roles + self.role, return_counts=True)
+        return most_frequent_roles(key, count, n_obj, n_roles)
 
     def offsets(self) -> np.ndarray:
         """Return CSR offsets: entries of snapshot ``s`` are ``offsets[s]:offsets[s+1]``.
@@ -236,6 +228,23 @@ class Snapshots:
         value.flags.writeable = False
         self.__dict__["_cache_" + name] = (inputs, value)
         return value
+
+
+def most_frequent_roles(
+    key: np.ndarray, count: np.ndarray, n_objects: int, n_roles: int
+) -> np.ndarray:
+    """Return each object's most frequent role code (ties: lowest code; 0 when never seen).
+
+    ``key`` lists distinct ``object * n_roles + role`` codes and ``count`` how
+    many entries hold each.
+    """
+    key, count = np.asarray(key, dtype=np.int64), np.asarray(count)
+    order = np.lexsort((key % n_roles, -count, key // n_roles))
+    obj = key[order] // n_roles
+    best = order[np.r_[True, obj[1:] != obj[:-1]]] if order.size else order
+    roles = np.zeros(n_objects, dtype=np.int64)
+    roles[key[best] // n_roles] = key[best] % n_roles
+    return roles
 
 
 def longest_runs(

@@ -20,6 +20,7 @@ from comove.groups.dyads import (
     dyad_matrix,
     dyad_table,
 )
+from comove.tracks.alignment import most_frequent_roles
 from comove.tracks.neighbours import NeighbourPairs, neighbour_pairs
 
 
@@ -435,3 +436,56 @@ def test_dyad_matrix_rejects_unknown_or_text_columns():
         dyad_matrix(table, "closeness")
     with pytest.raises(InputError, match="role_a"):
         dyad_matrix(table, "role_a")
+
+
+# --- tallies of chunks of time ------------------------------------------------------
+
+
+def test_tallies_join_only_consecutive_stretches_of_one_run():
+    snaps = random_scene(2)
+
+    def tally(start: int, stop: int) -> dyads.DyadTally:
+        chunk = snaps.window(start, stop)
+        return dyads.dyad_tally(chunk, neighbour_pairs(chunk, 3.0))
+
+    early, late = tally(0, 20), tally(20, 60)
+    with pytest.raises(ValueError, match="consecutive"):
+        early.then(tally(21, 60))
+    with pytest.raises(ValueError, match="consecutive"):
+        late.then(early)
+    with pytest.raises(ValueError, match="different runs"):
+        early.then(dataclasses.replace(late, n_objects=late.n_objects + 1))
+    assert early.then(tally(20, 20)) is early
+
+
+def test_distance_sums_are_exact_integers_of_the_fixed_point_unit():
+    # each distance is rounded to the nearest 2**-37 m and summed as an integer: the
+    # mean is within half a unit of the float mean, and the same for any cut
+    snaps = random_scene(5, n_snap=200)
+    pairs = neighbour_pairs(snaps, 3.0)
+    tally = dyads.dyad_tally(snaps, pairs)
+    expected = brute_force(snaps, pair_keys(snaps, pairs))
+    a, b = tally.pairs()
+    float_mean = np.array([expected[(int(i), int(j))]["do"] for i, j in zip(a, b, strict=True)])
+    assert np.all(np.abs(tally.mean_distance() - float_mean) <= 2.0**-38 + 1e-13 * float_mean)
+    assert np.all(tally.distance_low < 2**32)
+
+
+def test_positions_beyond_any_distance_in_metres_are_refused():
+    n = 3
+    x = np.column_stack([np.zeros(n), np.full(n, 1e9)])
+    snaps = grid_scene(x, np.zeros((n, 2)), np.zeros((n, 2), int), np.ones((n, 2), bool), 1)
+    with pytest.raises(ValueError, match="not in metres"):
+        dyad_table(snaps, neighbour_pairs(snaps, 2.0))
+
+
+@pytest.mark.parametrize("seed", range(5))
+def test_most_frequent_roles_equal_the_argmax_of_the_dense_counts(seed: int):
+    # reference: numpy.argmax over each object's row of role counts (first maximum)
+    rng = np.random.default_rng(seed)
+    n_obj, n_roles = 30, 4
+    counts = rng.integers(0, 3, (n_obj, n_roles))
+    obj, role = np.nonzero(counts)
+    key = obj * n_roles + role
+    found = most_frequent_roles(key, counts[obj, role], n_obj, n_roles)
+    np.testing.assert_array_equal(found, counts.argmax(axis=1))

@@ -10,11 +10,13 @@ from hypothesis import strategies as st
 from scenes import SCENARIO_RUNS, gap_midpoints, grid_scene, random_walkers, run_scenario
 from scipy.spatial.distance import cdist
 
-from comove.groups.chain import chunk_timeline, group_chain
+from comove.groups.chain import chunk_dyads, chunk_timeline, group_chain
+from comove.groups.dyads import dyad_rows, dyad_table, expected_distances
 from comove.groups.episodes import EpisodeParams, episode_role_sets, find_episodes
 from comove.groups.grouping import GroupParams, GroupTimeline
 from comove.groups.presets import preset_values
 from comove.pipeline.core import GROUP_STAGES, split_options
+from comove.tracks.neighbours import neighbour_pairs
 
 
 def test_pair_counts_equal_a_brute_force_count_of_distances():
@@ -85,6 +87,27 @@ def chunked_episodes(snaps, grouping, episode_params, cuts):
     return find_episodes(GroupTimeline.joined(parts), episode_params)
 
 
+def chunked_dyads(snaps, radius, cuts, order="left"):
+    """The dyad table from the tallies of the chunks between ``cuts``, joined in ``order``."""
+    edges = [0, *cuts, snaps.n_snapshots]
+    parts = [chunk_dyads(snaps, a, b, radius) for a, b in zip(edges[:-1], edges[1:], strict=True)]
+    while len(parts) > 1:  # "left": a running total; "tree": neighbours pairwise, as a reduction
+        if order == "left":
+            parts = [parts[0].then(parts[1]), *parts[2:]]
+        else:
+            joined = [p.then(q) for p, q in zip(parts[::2], parts[1::2], strict=False)]
+            parts = joined + ([parts[-1]] if len(parts) % 2 else [])
+    tally = parts[0]
+    return dyad_rows(tally, snaps, expected_distances(snaps, tally, 62_500), 62_500)
+
+
+def assert_same_dyads(found, whole):
+    whole = whole.copy()
+    whole.attrs.pop("radius_m")
+    pd.testing.assert_frame_equal(found, whole, check_exact=True)
+    assert found.attrs == whole.attrs
+
+
 @pytest.fixture(scope="module", params=["small_sided_game", "fleet", "herd"])
 def scenario_groups(request):
     truth, result = run_scenario(request.param, permutations=0)
@@ -109,6 +132,24 @@ def test_chunked_episodes_equal_the_whole_on_every_scenario(scenario_groups):
         assert episodes_as_tuples(found) == expected
 
 
+def test_chunked_dyads_equal_the_whole_on_every_scenario(scenario_groups):
+    # counts, distance sums and runs together, bit for bit, whatever the cuts and
+    # whichever way the chunks' tallies are joined
+    snaps, grouping, episode_params = scenario_groups
+    whole = dyad_table(snaps, neighbour_pairs(snaps, grouping.radius))
+    assert (whole["together_snapshots"] > 0).any()
+    runs = group_chain(snaps, grouping, episode_params).episodes
+    n = snaps.n_snapshots
+    inside = [(int(s) + int(e)) // 2 for s, e in zip(runs.start, runs.end, strict=True)]
+    for cuts, order in (
+        (list(range(n // 7, n, n // 7)), "left"),
+        ([n // 2], "left"),
+        (sorted(set(inside))[:40], "tree"),
+        (gap_midpoints(snaps), "tree"),
+    ):
+        assert_same_dyads(chunked_dyads(snaps, grouping.radius, cuts, order), whole)
+
+
 @settings(max_examples=30, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(seed=st.integers(0, 10_000), tol=st.integers(0, 3), data=st.data())
 def test_any_cut_of_a_random_scene_gives_the_same_episodes(seed, tol, data):
@@ -128,3 +169,6 @@ def test_any_cut_of_a_random_scene_gives_the_same_episodes(seed, tol, data):
     assert episodes_as_tuples(chunked_episodes(snaps, gp, params, cuts)) == episodes_as_tuples(
         whole
     )
+    order = data.draw(st.sampled_from(["left", "tree"]))
+    assert_same_dyads(chunked_dyads(snaps, gp.radius, cuts, order),
+                      dyad_table(snaps, neighbour_pairs(snaps, gp.radius)))  # fmt: skip
