@@ -27,9 +27,10 @@ import pandas as pd
 from comove.errors import bad_setting
 from comove.groups.chain import GroupTally, group_chain
 from comove.groups.dyads import dyad_table
-from comove.groups.episodes import EpisodeParams, episode_paths, episode_table, role_rollup
+from comove.groups.episodes import EpisodeParams
 from comove.groups.grouping import GroupParams
 from comove.groups.presets import preset_values
+from comove.groups.summary import episode_paths, episode_table, role_rollup
 from comove.io.projection import working_to_input
 from comove.io.provenance import input_digest, run_record, settings_record
 from comove.io.reading import ColumnSpec, read_tracks
@@ -291,7 +292,7 @@ class GroupsResult:
     Attributes
     ----------
     episodes : DataFrame
-        One row per maximal episode; see :func:`comove.groups.episodes.episode_table`.
+        One row per maximal episode; see :func:`comove.groups.summary.episode_table`.
     roles : DataFrame
         Per role set of episodes: count, total and longest time.
     dyads : DataFrame
@@ -303,7 +304,7 @@ class GroupsResult:
         vertex per snapshot.
     display_paths : GeoDataFrame
         The same paths thinned to about one vertex per second for viewing
-        (written as GeoJSON); see :func:`comove.groups.episodes.episode_paths`.
+        (written as GeoJSON); see :func:`comove.groups.summary.episode_paths`.
     quality, run : dict
         As in :class:`MiningResult`.
     snapshots : Snapshots

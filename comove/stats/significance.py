@@ -435,7 +435,7 @@ class GroupStatistic:
     pair_keys : ndarray of int64
         ``object_a * n_objects + object_b`` of each tested pair.
     labels : tuple of str
-        Tested role sets of episodes (see :func:`comove.groups.episodes.episode_role_sets`).
+        Tested role sets of episodes (see :func:`comove.groups.summary.episode_role_sets`).
     vx, vy : ndarray
         Observed velocity of every entry, carried along with the entries.
     """
@@ -463,7 +463,7 @@ def group_statistics(
     snaps: Snapshots, tally: Any, pair_keys: np.ndarray, labels: tuple[str, ...]
 ) -> np.ndarray:
     """Return [snapshots together per tested pair, episodes per tested role set]."""
-    from comove.groups.episodes import episode_role_sets
+    from comove.groups.summary import episode_role_sets
 
     together = tally.together(snaps, pair_keys)
     found = episode_role_sets(snaps, tally.episodes)

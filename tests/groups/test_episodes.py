@@ -17,9 +17,10 @@ from scenes import (
 
 from comove.errors import InputError
 from comove.groups.dyads import dyad_table
-from comove.groups.episodes import EpisodeParams, episode_table, find_episodes, role_rollup
+from comove.groups.episodes import EpisodeParams, find_episodes
 from comove.groups.grouping import GroupParams, GroupTimeline, linked_pairs, snapshot_groups
 from comove.groups.presets import preset_values
+from comove.groups.summary import episode_table, role_rollup
 from comove.pipeline.core import GROUP_STAGES, split_options
 from comove.tracks.motion import entry_motion
 from comove.tracks.neighbours import neighbour_pairs
@@ -419,7 +420,7 @@ def test_episode_table_equals_a_per_snapshot_computation(scene, tol, dense, bloc
     # whole-array over all episodes, by size and in blocks of rows, with the dense or the
     # sorted entry lookup: the same statistics as a plain loop over the definitions,
     # with missing members, roles that change, and tolerated gaps without any data
-    import comove.groups.episodes as ep
+    import comove.groups.summary as ep
 
     rng, n_obj, n_snap = scene
     x, y, present = random_walkers(rng, n_obj, n_snap)

@@ -12,9 +12,10 @@ from scipy.spatial.distance import cdist
 
 from comove.groups.chain import chunk_dyads, chunk_timeline, group_chain
 from comove.groups.dyads import dyad_rows, dyad_table, expected_distances
-from comove.groups.episodes import EpisodeParams, episode_role_sets, find_episodes
+from comove.groups.episodes import EpisodeParams, find_episodes
 from comove.groups.grouping import GroupParams, GroupTimeline
 from comove.groups.presets import preset_values
+from comove.groups.summary import episode_role_sets
 from comove.pipeline.core import GROUP_STAGES, split_options
 from comove.tracks.neighbours import neighbour_pairs
 

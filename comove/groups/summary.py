@@ -1,0 +1,366 @@
+"""Episode summaries: one row per episode, its centroid path, and roll-ups by role set.
+
+Everything here reads the episodes found by :func:`comove.groups.episodes.find_episodes`
+and the snapshots they were found in; nothing feeds back into the search.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from comove.groups.episodes import MEMBER_SEP, Episodes
+from comove.io.projection import working_to_input
+from comove.tracks.alignment import Snapshots
+from comove.tracks.motion import Motion
+
+
+class _EntryLookup:
+    """Entry index of (snapshot, object) pairs, -1 where the object is absent."""
+
+    #: Cells of the dense (snapshot x object) table used when it fits (int32: 200 MB).
+    MAX_DENSE = 50_000_000
+
+    def __init__(self, snaps: Snapshots) -> None:
+        self.n_obj = len(snaps.objects)
+        if snaps.n_snapshots * self.n_obj <= self.MAX_DENSE:
+            self.dense = np.full((snaps.n_snapshots, self.n_obj), -1, dtype=np.int32)
+            self.dense[snaps.snap, snaps.obj] = np.arange(snaps.n_entries, dtype=np.int32)
+        else:
+            self.dense = None
+            # sorted, since entries are in (snapshot, object) order
+            self.keys = snaps.snap * self.n_obj + snaps.obj
+
+    def entries(self, snapshots: np.ndarray, objects: np.ndarray) -> np.ndarray:
+        """Return the entry index of each (object, snapshot) cell, or -1.
+
+        ``snapshots`` has shape (n,) and ``objects`` shape (k, n): column r
+        asks for objects ``objects[:, r]`` at snapshot ``snapshots[r]``. The
+        result has shape (k, n), so that sums over the objects are sums of
+        contiguous rows.
+        """
+        if self.dense is not None:
+            return self.dense[snapshots[None, :], objects].astype(np.int64)
+        if self.keys.size == 0:
+            return np.full(objects.shape, -1, dtype=np.int64)
+        want = snapshots[None, :] * self.n_obj + objects
+        pos = np.minimum(np.searchsorted(self.keys, want), self.keys.size - 1)
+        return np.where(self.keys[pos] == want, pos, -1)
+
+
+#: Cells (rows x member pairs) handled at once by the episode table; bounds its memory.
+TABLE_BLOCK = 1_000_000
+
+
+class _RowStats:
+    """Per-row statistics of episodes: one row per (episode, snapshot of its span)."""
+
+    def __init__(self, n_rows: int) -> None:
+        self.n_present = np.zeros(n_rows, dtype=np.int64)
+        self.cx = np.full(n_rows, np.nan)
+        self.cy = np.full(n_rows, np.nan)
+        self.d_sum = np.zeros(n_rows)
+        self.n_both = np.zeros(n_rows, dtype=np.int64)
+        self.d_max = np.zeros(n_rows)
+        self.moving = np.zeros(n_rows, dtype=bool)
+
+    def fill(
+        self,
+        rows: np.ndarray,
+        entry: np.ndarray,
+        pairs: tuple[np.ndarray, np.ndarray],
+        snaps: Snapshots,
+        motion: Motion,
+        min_speed: float,
+    ) -> None:
+        """Fill ``rows`` from their members' entries (shape (size, rows), -1 if absent)."""
+        present = entry >= 0
+        safe = np.maximum(entry, 0)  # absent cells read entry 0, masked out below
+        ex, ey = snaps.x[safe], snaps.y[safe]
+        n_present = present.sum(axis=0)
+        self.n_present[rows] = n_present
+        iu, ju = pairs
+        both = present[iu] & present[ju]
+        d = ex[iu] - ex[ju]
+        d *= d
+        dy = ey[iu] - ey[ju]
+        dy *= dy
+        d += dy
+        np.sqrt(d, out=d)
+        d *= both
+        self.d_sum[rows] = d.sum(axis=0)
+        self.n_both[rows] = both.sum(axis=0)
+        self.d_max[rows] = d.max(axis=0)
+        ex *= present
+        ey *= present
+        with np.errstate(invalid="ignore", divide="ignore"):
+            self.cx[rows] = ex.sum(axis=0) / n_present
+            self.cy[rows] = ey.sum(axis=0) / n_present
+        # most present members faster than min_speed (NaN speeds count as not moving)
+        fast = present & (motion.speed[safe] > min_speed)
+        self.moving[rows] = 2 * fast.sum(axis=0) > n_present
+
+
+def _per_episode_mean(owner: np.ndarray, values: np.ndarray, use: np.ndarray, n: int) -> np.ndarray:
+    """Return per episode the mean of ``values`` over its rows where ``use``; NaN if none."""
+    total = np.bincount(owner, weights=np.where(use, values, 0.0), minlength=n)
+    count = np.bincount(owner, weights=use, minlength=n)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(count > 0, total / count, np.nan)
+
+
+def episode_role_sets(snaps: Snapshots, episodes: Episodes) -> list[str]:
+    """Return per episode the roles its members had at their fixes within the episode.
+
+    This is the one definition of an episode's role set, used by the episode
+    table and by the tests of episode counts: the names of every role held
+    by a member at a snapshot of the episode where it has data, sorted and
+    joined by ``MEMBER_SEP``. A member whose role never changes contributes
+    that role (it has data at the episode's end, so it has a fix inside);
+    only members whose role changes somewhere are looked up within the
+    episode's span.
+
+    Parameters
+    ----------
+    snaps : Snapshots
+        Aligned snapshots the episodes were found in.
+    episodes : Episodes
+        Output of :func:`find_episodes`.
+
+    Returns
+    -------
+    list of str
+        One label per episode.
+    """
+    names = np.array([str(r) for r in snaps.roles], dtype=object)
+    order, bounds = snaps.object_order(), snaps.object_bounds()
+    main = snaps.main_roles()
+    role_sorted = snaps.role[order]
+    obj_sorted = snaps.obj[order]
+    changes = np.bincount(obj_sorted[role_sorted != main[obj_sorted]], minlength=len(snaps.objects))
+    labels = []
+    for members, start, end in zip(episodes.members, episodes.start.tolist(),
+                                   episodes.end.tolist(), strict=True):  # fmt: skip
+        roles = {int(main[m]) for m in members if not changes[m]}
+        for m in members[changes[members] > 0].tolist():  # members whose role changes
+            lo, hi = int(bounds[m]), int(bounds[m + 1])
+            at = snaps.snap[order[lo:hi]]
+            first, last = np.searchsorted(at, [start, end + 1])
+            roles.update(role_sorted[lo + first : lo + last].tolist())
+        labels.append(MEMBER_SEP.join(sorted(names[r] for r in roles)))
+    return labels
+
+
+def _text_column(values: list[str]) -> pd.Series:
+    """Return a text column, typed as text also when it is empty."""
+    return pd.Series(values, dtype="str")
+
+
+def _row_stats(
+    snaps: Snapshots,
+    episodes: Episodes,
+    sizes: np.ndarray,
+    row_ep: np.ndarray,
+    row_snap: np.ndarray,
+    motion: Motion,
+    min_speed: float,
+) -> _RowStats:
+    """Return the statistics of every (episode, snapshot) row, by episode size, in blocks."""
+    stats = _RowStats(row_ep.size)
+    lookup = _EntryLookup(snaps)
+    for size in np.unique(sizes).tolist():  # per episode size: rows of equal width
+        eps = np.flatnonzero(sizes == size)
+        member_rows = np.stack([episodes.members[k] for k in eps], axis=1)  # (size, eps)
+        pairs = np.triu_indices(size, 1)
+        rows = np.flatnonzero(sizes[row_ep] == size)
+        step = max(1, TABLE_BLOCK // max(size, pairs[0].size))
+        for r0 in range(0, rows.size, step):  # per block of rows
+            r = rows[r0 : r0 + step]
+            owner = row_ep[r]
+            entry = lookup.entries(row_snap[r], member_rows[:, np.searchsorted(eps, owner)])
+            stats.fill(r, entry, pairs, snaps, motion, min_speed)
+    return stats
+
+
+def episode_table(
+    snaps: Snapshots, episodes: Episodes, motion: Motion, min_speed: float
+) -> tuple[pd.DataFrame, list[np.ndarray]]:
+    """Return one row per episode and the centroid path of each.
+
+    Parameters
+    ----------
+    snaps : Snapshots
+        Aligned snapshots the episodes were found in.
+    episodes : Episodes
+        Output of :func:`find_episodes`.
+    motion : Motion
+        Velocity of every entry.
+    min_speed : float
+        Speed in m/s above which a member counts as moving.
+
+    Returns
+    -------
+    table : DataFrame
+        Columns ``episode``, ``start``, ``end`` (UTC, first and last
+        snapshot), ``duration_s``, ``size``, ``members`` and ``roles`` (sorted,
+        joined by ';'), ``together_s`` (time together: the duration less the
+        tolerated separations), ``mean_spacing_m`` and ``max_spacing_m`` (pairwise
+        distances of present members), ``moving_share`` (share of snapshots at
+        which most present members move faster than ``min_speed``), ``came_from``
+        and ``went_into`` (episode ids joined by ';').
+    paths : list of ndarray, shape (n_snapshots, 3)
+        Per episode: snapshot time (ns), centroid x and y in the working plane.
+
+    Notes
+    -----
+    Whole-array over all episodes at once: one row per (episode, snapshot of
+    its span), episodes of one size together, in blocks of at most
+    ``TABLE_BLOCK`` (row, member pair) cells. The mean spacing is the mean over
+    snapshots (with two or more members present) of the mean pairwise distance.
+    """
+    n_ep = episodes.n_episodes
+    ids = [f"E{k + 1:04d}" for k in range(n_ep)]
+    start = np.asarray(episodes.start, dtype=np.int64)
+    length = np.asarray(episodes.end, dtype=np.int64) - start + 1
+    first_row = np.concatenate([[0], np.cumsum(length)])
+    row_ep = np.repeat(np.arange(n_ep), length)  # one row per (episode, snapshot of its span)
+    row_snap = np.arange(first_row[-1], dtype=np.int64) - first_row[row_ep] + start[row_ep]
+    sizes = np.array([m.size for m in episodes.members], dtype=np.int64)
+    stats = _row_stats(snaps, episodes, sizes, row_ep, row_snap, motion, min_speed)
+    spaced = stats.n_both > 0  # snapshots with one member present have no spacing
+    with np.errstate(invalid="ignore", divide="ignore"):
+        row_spacing = stats.d_sum / stats.n_both
+    observed = stats.n_present > 0  # in a tolerated gap no member may have data
+    max_spacing = np.full(n_ep, np.nan)
+    if n_ep:
+        max_spacing = np.maximum.reduceat(stats.d_max, first_row[:-1])
+        max_spacing[np.bincount(row_ep, weights=spaced, minlength=n_ep) == 0] = np.nan
+    names = np.array([str(o) for o in snaps.objects], dtype=object)
+    text = _text_column
+
+    def utc(snapshot: np.ndarray) -> pd.DatetimeIndex:
+        return pd.to_datetime(snaps.times(snapshot).astype("datetime64[ns]"), utc=True)
+
+    table = pd.DataFrame(
+        {
+            "episode": text(ids),
+            "start": utc(start),
+            "end": utc(episodes.end),
+            "duration_s": length * snaps.step_s,
+            "size": sizes,
+            "members": text([MEMBER_SEP.join(names[m]) for m in episodes.members]),
+            "roles": text(episode_role_sets(snaps, episodes)),
+            "together_s": np.asarray(episodes.together, dtype=np.int64) * snaps.step_s,
+            "mean_spacing_m": _per_episode_mean(row_ep, row_spacing, spaced, n_ep),
+            "max_spacing_m": max_spacing,
+            "moving_share": _per_episode_mean(row_ep, stats.moving, observed, n_ep),
+            "came_from": text([MEMBER_SEP.join(ids[f] for f in c) for c in episodes.came_from]),
+            "went_into": text([MEMBER_SEP.join(ids[f] for f in w) for w in episodes.went_into]),
+        },
+        columns=EPISODE_COLUMNS,
+    )
+    return table, _centroid_paths(snaps, stats, row_ep, row_snap, n_ep)
+
+
+def _centroid_paths(
+    snaps: Snapshots, stats: _RowStats, row_ep: np.ndarray, row_snap: np.ndarray, n_ep: int
+) -> list[np.ndarray]:
+    """Return per episode its (time ns, centroid x, centroid y) rows where a member has data."""
+    kept = np.flatnonzero(stats.n_present > 0)
+    path = np.column_stack([snaps.times(row_snap[kept]), stats.cx[kept], stats.cy[kept]])
+    cuts = np.cumsum(np.bincount(row_ep[kept], minlength=n_ep))[:-1]
+    return np.split(path, cuts) if n_ep else []
+
+
+EPISODE_COLUMNS = [
+    "episode", "start", "end", "duration_s", "size", "members", "roles", "together_s",
+    "mean_spacing_m", "max_spacing_m", "moving_share", "came_from", "went_into",
+]  # fmt: skip
+
+
+#: Display paths keep at most one vertex per this many seconds (plus each path's ends).
+DISPLAY_INTERVAL_S = 1.0
+
+
+def episode_paths(
+    snaps: Snapshots, table: pd.DataFrame, centroids: list[np.ndarray]
+) -> tuple[Any, Any]:
+    """Return the episode centroid paths as LineStrings: full, and thinned for display.
+
+    Parameters
+    ----------
+    snaps : Snapshots
+        Aligned snapshots (for the coordinate reference systems).
+    table : DataFrame
+        Output of :func:`episode_table`.
+    centroids : list of ndarray
+        The per-episode centroid arrays from :func:`episode_table`.
+
+    Returns
+    -------
+    paths, display : GeoDataFrame
+        One row per episode, geometry in the input's CRS. ``paths`` has a vertex
+        at every snapshot; ``display`` keeps the first vertex in each
+        ``DISPLAY_INTERVAL_S`` of time and each path's last vertex, for files
+        meant for viewing such as GeoJSON (a match at 25 Hz would otherwise
+        put a million vertices in one).
+    """
+    import geopandas as gpd
+    import shapely
+
+    attrs = table[["episode", "start", "end", "duration_s", "size", "members", "roles"]]
+    if not centroids:
+        empty = gpd.GeoDataFrame(attrs.copy(), geometry=[], crs=snaps.input_crs)
+        return empty, empty.copy()
+    # a one-snapshot episode becomes a line of two equal points
+    parts = [c if len(c) > 1 else np.repeat(c, 2, axis=0) for c in centroids]
+    counts = np.array([len(c) for c in parts])
+    owner = np.repeat(np.arange(counts.size), counts)
+    allc = np.concatenate(parts)
+    x, y = working_to_input(snaps, allc[:, 1], allc[:, 2])
+    xy = np.column_stack([x, y])
+    slot = np.floor(allc[:, 0] * (1e-9 / DISPLAY_INTERVAL_S))  # not //: slow on floats
+    first = np.r_[True, (owner[1:] != owner[:-1]) | (slot[1:] != slot[:-1])]
+    last = np.r_[owner[1:] != owner[:-1], True]
+    keep = first | last
+    return (
+        gpd.GeoDataFrame(attrs.copy(), geometry=shapely.linestrings(xy, indices=owner),
+                         crs=snaps.input_crs),
+        gpd.GeoDataFrame(attrs.copy(), geometry=shapely.linestrings(xy[keep],
+                         indices=owner[keep]), crs=snaps.input_crs),
+    )  # fmt: skip
+
+
+def role_rollup(table: pd.DataFrame) -> pd.DataFrame:
+    """Return, per role set of episodes, their count and total and longest time.
+
+    Parameters
+    ----------
+    table : DataFrame
+        Output of :func:`episode_table`.
+
+    Returns
+    -------
+    DataFrame
+        Columns ``roles``, ``episodes``, ``total_seconds``, ``longest_seconds``,
+        ``mean_size``; sorted by total time, descending.
+    """
+    if table.empty:
+        return pd.DataFrame(
+            columns=["roles", "episodes", "total_seconds", "longest_seconds", "mean_size"]
+        )
+    out = (
+        table.groupby("roles", sort=True)
+        .agg(
+            episodes=("episode", "size"),
+            total_seconds=("duration_s", "sum"),
+            longest_seconds=("duration_s", "max"),
+            mean_size=("size", "mean"),
+        )
+        .reset_index()
+        .sort_values(["total_seconds", "roles"], ascending=[False, True], kind="stable")
+        .reset_index(drop=True)
+    )
+    return out
