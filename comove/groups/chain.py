@@ -36,6 +36,7 @@ from comove.groups.grouping import (
     linked_pairs,
     snapshot_groups,
 )
+from comove.groups.summary import EpisodeRows, episode_rows
 from comove.tracks.alignment import Snapshots
 from comove.tracks.motion import Motion, entry_motion, half_window_snapshots
 from comove.tracks.neighbours import NeighbourPairs, neighbour_pairs
@@ -165,15 +166,58 @@ def chunk_timeline(
     workers : int, default 1
         Threads of the neighbour search and velocities (-1: every core).
     """
+    chunk, motion = _chunk_motion(snaps, start, stop, grouping, workers)
+    pairs = neighbour_pairs(chunk, grouping.radius, workers=workers)
+    return GroupTimeline.of(chunk, _groups(chunk, pairs, motion, grouping))
+
+
+def chunk_episode_rows(
+    snaps: Snapshots,
+    start: int,
+    stop: int,
+    episodes: Episodes,
+    grouping: GroupParams,
+    workers: int = 1,
+) -> EpisodeRows:
+    """Return the episode-table rows of snapshots ``start`` to ``stop - 1`` of ``snaps``.
+
+    The second pass of a chunked run: once the episodes of the whole run are
+    found, each chunk gives the statistics of the episodes' snapshots within
+    it; joined (:meth:`~comove.groups.summary.EpisodeRows.then`), they make the
+    episode table (:func:`~comove.groups.summary.episode_table`) of the whole run.
+
+    Parameters
+    ----------
+    snaps : Snapshots
+        The aligned snapshots (only the chunk and its velocity context are read).
+    start, stop : int
+        The chunk's snapshots.
+    episodes : Episodes
+        The whole run's episodes.
+    grouping : GroupParams
+        Its velocity window and moving speed are used.
+    workers : int, default 1
+        Threads of the velocities (-1: every core).
+    """
+    chunk, motion = _chunk_motion(snaps, start, stop, grouping, workers)
+    return episode_rows(chunk, episodes, motion, grouping.min_speed, offset=max(int(start), 0))
+
+
+def _chunk_motion(
+    snaps: Snapshots, start: int, stop: int, grouping: GroupParams, workers: int
+) -> tuple[Snapshots, Motion]:
+    """Return a chunk of ``snaps`` and the velocities of its entries, as in the whole run.
+
+    Velocities reach ``half_window_snapshots`` to each side, so they are
+    computed on the chunk with that many snapshots of context around it.
+    """
     reach = half_window_snapshots(grouping.velocity_window, snaps.step_s)
     chunk = snaps.window(start, stop)
     outer = snaps.window(start - reach, stop + reach)
     before = chunk.first_index - outer.first_index
     lo, hi = outer.offsets()[[before, before + chunk.n_snapshots]]
     around = entry_motion(outer, grouping.velocity_window, workers=workers)
-    motion = Motion(vx=around.vx[lo:hi], vy=around.vy[lo:hi])
-    pairs = neighbour_pairs(chunk, grouping.radius, workers=workers)
-    return GroupTimeline.of(chunk, _groups(chunk, pairs, motion, grouping))
+    return chunk, Motion(vx=around.vx[lo:hi], vy=around.vy[lo:hi])
 
 
 def chunk_dyads(

@@ -6,6 +6,7 @@ and the snapshots they were found in; nothing feeds back into the search.
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
@@ -57,6 +58,8 @@ TABLE_BLOCK = 1_000_000
 class _RowStats:
     """Per-row statistics of episodes: one row per (episode, snapshot of its span)."""
 
+    FIELDS = ("n_present", "cx", "cy", "d_sum", "n_both", "d_max", "moving")
+
     def __init__(self, n_rows: int) -> None:
         self.n_present = np.zeros(n_rows, dtype=np.int64)
         self.cx = np.full(n_rows, np.nan)
@@ -65,6 +68,21 @@ class _RowStats:
         self.n_both = np.zeros(n_rows, dtype=np.int64)
         self.d_max = np.zeros(n_rows)
         self.moving = np.zeros(n_rows, dtype=bool)
+
+    @classmethod
+    def stacked(cls, parts: list[_RowStats]) -> _RowStats:
+        """Return the rows of ``parts`` one after the other."""
+        out = cls(0)
+        for name in cls.FIELDS:
+            setattr(out, name, np.concatenate([getattr(p, name) for p in parts]))
+        return out
+
+    def placed(self, rows: np.ndarray, n_rows: int) -> _RowStats:
+        """Return these statistics moved to positions ``rows`` of ``n_rows`` rows."""
+        out = _RowStats(n_rows)
+        for name in self.FIELDS:
+            getattr(out, name)[rows] = getattr(self, name)
+        return out
 
     def fill(
         self,
@@ -117,10 +135,7 @@ def episode_role_sets(snaps: Snapshots, episodes: Episodes) -> list[str]:
     This is the one definition of an episode's role set, used by the episode
     table and by the tests of episode counts: the names of every role held
     by a member at a snapshot of the episode where it has data, sorted and
-    joined by ``MEMBER_SEP``. A member whose role never changes contributes
-    that role (it has data at the episode's end, so it has a fix inside);
-    only members whose role changes somewhere are looked up within the
-    episode's span.
+    joined by ``MEMBER_SEP``.
 
     Parameters
     ----------
@@ -134,23 +149,132 @@ def episode_role_sets(snaps: Snapshots, episodes: Episodes) -> list[str]:
     list of str
         One label per episode.
     """
-    names = np.array([str(r) for r in snaps.roles], dtype=object)
-    order, bounds = snaps.object_order(), snaps.object_bounds()
-    main = snaps.main_roles()
-    role_sorted = snaps.role[order]
-    obj_sorted = snaps.obj[order]
-    changes = np.bincount(obj_sorted[role_sorted != main[obj_sorted]], minlength=len(snaps.objects))
-    labels = []
-    for members, start, end in zip(episodes.members, episodes.start.tolist(),
-                                   episodes.end.tolist(), strict=True):  # fmt: skip
-        roles = {int(main[m]) for m in members if not changes[m]}
-        for m in members[changes[members] > 0].tolist():  # members whose role changes
-            lo, hi = int(bounds[m]), int(bounds[m + 1])
-            at = snaps.snap[order[lo:hi]]
-            first, last = np.searchsorted(at, [start, end + 1])
-            roles.update(role_sorted[lo + first : lo + last].tolist())
-        labels.append(MEMBER_SEP.join(sorted(names[r] for r in roles)))
-    return labels
+    return _role_labels(snaps, _role_keys(snaps, episodes), episodes.n_episodes)
+
+
+def _n_roles(snaps: Snapshots) -> int:
+    """Return the size of the run's role table (the same in every chunk of it)."""
+    return max(len(snaps.roles), 1)
+
+
+def _role_keys(snaps: Snapshots, episodes: Episodes, offset: int = 0) -> np.ndarray:
+    """Return the sorted ``episode * n_roles + role`` codes held at members' fixes in episodes.
+
+    ``snaps`` may be a chunk of the run the episodes were found in whose
+    snapshot 0 is the run's snapshot ``offset``: only its fixes are read, so
+    the codes of consecutive chunks unite into the whole run's.
+    """
+    n_roles = _n_roles(snaps)
+    if episodes.n_episodes == 0 or snaps.n_entries == 0:
+        return np.zeros(0, dtype=np.int64)
+    sizes = np.array([m.size for m in episodes.members], dtype=np.int64)
+    ep = np.repeat(np.arange(sizes.size, dtype=np.int64), sizes)
+    member = np.concatenate(episodes.members).astype(np.int64)
+    first = np.maximum(episodes.start[ep] - offset, 0)
+    after = np.clip(episodes.end[ep] - offset + 1, first, snaps.n_snapshots)
+    # each object's fixes in time order; (object, snapshot) keys sorted
+    order = snaps.object_order()
+    width = np.int64(snaps.n_snapshots + 1)
+    key = snaps.obj[order].astype(np.int64) * width + snaps.snap[order]
+    role = snaps.role[order].astype(np.int64)
+    lo, hi = (
+        np.searchsorted(key, member * width + first),
+        np.searchsorted(key, member * width + after),
+    )
+    changes = np.r_[0, np.cumsum(role[1:] != role[:-1])]  # role changes before each fix
+    seen = hi > lo
+    single = seen & (changes[np.maximum(hi - 1, 0)] == changes[lo.clip(max=role.size - 1)])
+    keys = [ep[single] * n_roles + role[lo[single]]]
+    several = np.flatnonzero(seen & ~single)  # members whose role changes inside: every fix
+    if several.size:
+        length = hi[several] - lo[several]
+        ends = np.cumsum(length)
+        fix = np.arange(ends[-1]) - np.repeat(ends - length - lo[several], length)
+        keys.append(np.repeat(ep[several], length) * n_roles + role[fix])
+    return np.unique(np.concatenate(keys))
+
+
+def _role_labels(snaps: Snapshots, keys: np.ndarray, n_episodes: int) -> list[str]:
+    """Return per episode its role names from ``_role_keys`` codes, sorted and joined."""
+    if n_episodes == 0:
+        return []
+    n_roles = _n_roles(snaps)
+    names = np.array([str(r) for r in snaps.roles] or [""], dtype=object)
+    cuts = np.searchsorted(keys // n_roles, np.arange(1, n_episodes))
+    return [MEMBER_SEP.join(sorted(names[k % n_roles])) for k in np.split(keys, cuts)]
+
+
+@dataclass
+class EpisodeRows:
+    """What the episode table reads from the snapshots, for the part of a run in one chunk.
+
+    The table has one row per (episode, snapshot of its span); a chunk of
+    time holds some of those rows. :meth:`then` joins the rows of two chunks;
+    once every chunk's rows are joined, :func:`episode_table` builds the table
+    from them, exactly as from the whole run.
+
+    Attributes
+    ----------
+    rows : ndarray of int64
+        Which rows of the run (episodes in order, each one's span in time order).
+    stats : _RowStats
+        Their statistics (members present, centroid, spacing, moving), in ``rows`` order.
+    role_keys : ndarray of int64
+        Sorted ``episode * n_roles + role`` codes of roles held at members' fixes here.
+    """
+
+    rows: np.ndarray
+    stats: _RowStats
+    role_keys: np.ndarray
+
+    def then(self, later: EpisodeRows) -> EpisodeRows:
+        """Return the rows of this chunk and of ``later`` together."""
+        return EpisodeRows(
+            rows=np.concatenate([self.rows, later.rows]),
+            stats=_RowStats.stacked([self.stats, later.stats]),
+            role_keys=np.union1d(self.role_keys, later.role_keys),
+        )
+
+
+def _spans(episodes: Episodes) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Return, per row of the episode table's rows, its episode and snapshot; and row offsets."""
+    start = np.asarray(episodes.start, dtype=np.int64)
+    length = np.asarray(episodes.end, dtype=np.int64) - start + 1
+    first_row = np.concatenate([[0], np.cumsum(length)])
+    row_ep = np.repeat(np.arange(start.size), length)  # one row per (episode, snapshot of its span)
+    row_snap = np.arange(first_row[-1], dtype=np.int64) - first_row[row_ep] + start[row_ep]
+    return row_ep, row_snap, first_row
+
+
+def episode_rows(
+    snaps: Snapshots, episodes: Episodes, motion: Motion, min_speed: float, offset: int = 0
+) -> EpisodeRows:
+    """Return the episode-table rows that fall in ``snaps``.
+
+    Parameters
+    ----------
+    snaps : Snapshots
+        The run the episodes were found in, or a chunk of it whose snapshot 0
+        is the run's snapshot ``offset`` (:meth:`Snapshots.window`).
+    episodes : Episodes
+        The run's episodes (:func:`comove.groups.episodes.find_episodes`).
+    motion : Motion
+        Velocity of every entry of ``snaps``.
+    min_speed : float
+        Speed in m/s above which a member counts as moving.
+    offset : int, default 0
+        The run's snapshot at which ``snaps`` starts.
+
+    Returns
+    -------
+    EpisodeRows
+    """
+    row_ep, row_snap, _ = _spans(episodes)
+    local = row_snap - offset
+    rows = np.flatnonzero((local >= 0) & (local < snaps.n_snapshots))
+    sizes = np.array([m.size for m in episodes.members], dtype=np.int64)
+    stats = _row_stats(snaps, episodes, sizes, row_ep[rows], local[rows], motion, min_speed)
+    return EpisodeRows(rows=rows, stats=stats, role_keys=_role_keys(snaps, episodes, offset))
 
 
 def _text_column(values: list[str]) -> pd.Series:
@@ -185,7 +309,11 @@ def _row_stats(
 
 
 def episode_table(
-    snaps: Snapshots, episodes: Episodes, motion: Motion, min_speed: float
+    snaps: Snapshots,
+    episodes: Episodes,
+    motion: Motion,
+    min_speed: float,
+    rows: EpisodeRows | None = None,
 ) -> tuple[pd.DataFrame, list[np.ndarray]]:
     """Return one row per episode and the centroid path of each.
 
@@ -199,6 +327,10 @@ def episode_table(
         Velocity of every entry.
     min_speed : float
         Speed in m/s above which a member counts as moving.
+    rows : EpisodeRows, optional
+        The rows read chunk by chunk (:func:`episode_rows` of each chunk,
+        joined); read from ``snaps`` and ``motion`` when omitted. Given, only
+        the names, step and first snapshot of ``snaps`` are used.
 
     Returns
     -------
@@ -224,11 +356,13 @@ def episode_table(
     ids = [f"E{k + 1:04d}" for k in range(n_ep)]
     start = np.asarray(episodes.start, dtype=np.int64)
     length = np.asarray(episodes.end, dtype=np.int64) - start + 1
-    first_row = np.concatenate([[0], np.cumsum(length)])
-    row_ep = np.repeat(np.arange(n_ep), length)  # one row per (episode, snapshot of its span)
-    row_snap = np.arange(first_row[-1], dtype=np.int64) - first_row[row_ep] + start[row_ep]
+    row_ep, row_snap, first_row = _spans(episodes)
     sizes = np.array([m.size for m in episodes.members], dtype=np.int64)
-    stats = _row_stats(snaps, episodes, sizes, row_ep, row_snap, motion, min_speed)
+    if rows is None:
+        rows = episode_rows(snaps, episodes, motion, min_speed)
+    if rows.rows.size != row_ep.size or np.unique(rows.rows).size != row_ep.size:
+        raise ValueError("the chunks' episode rows do not cover each episode snapshot once")
+    stats = rows.stats.placed(rows.rows, row_ep.size)
     spaced = stats.n_both > 0  # snapshots with one member present have no spacing
     with np.errstate(invalid="ignore", divide="ignore"):
         row_spacing = stats.d_sum / stats.n_both
@@ -251,7 +385,7 @@ def episode_table(
             "duration_s": length * snaps.step_s,
             "size": sizes,
             "members": text([MEMBER_SEP.join(names[m]) for m in episodes.members]),
-            "roles": text(episode_role_sets(snaps, episodes)),
+            "roles": text(_role_labels(snaps, rows.role_keys, n_ep)),
             "together_s": np.asarray(episodes.together, dtype=np.int64) * snaps.step_s,
             "mean_spacing_m": _per_episode_mean(row_ep, row_spacing, spaced, n_ep),
             "max_spacing_m": max_spacing,

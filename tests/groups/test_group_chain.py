@@ -10,12 +10,12 @@ from hypothesis import strategies as st
 from scenes import SCENARIO_RUNS, gap_midpoints, grid_scene, random_walkers, run_scenario
 from scipy.spatial.distance import cdist
 
-from comove.groups.chain import chunk_dyads, chunk_timeline, group_chain
+from comove.groups.chain import chunk_dyads, chunk_episode_rows, chunk_timeline, group_chain
 from comove.groups.dyads import dyad_rows, dyad_table, expected_distances
 from comove.groups.episodes import EpisodeParams, find_episodes
 from comove.groups.grouping import GroupParams, GroupTimeline
 from comove.groups.presets import preset_values
-from comove.groups.summary import episode_role_sets
+from comove.groups.summary import episode_role_sets, episode_table
 from comove.pipeline.core import GROUP_STAGES, split_options
 from comove.tracks.neighbours import neighbour_pairs
 
@@ -102,6 +102,24 @@ def chunked_dyads(snaps, radius, cuts, order="left"):
     return dyad_rows(tally, snaps, expected_distances(snaps, tally, 62_500), 62_500)
 
 
+def chunked_table(snaps, grouping, tally, cuts):
+    """The episode table and paths from the rows of the chunks between ``cuts``."""
+    edges = [0, *cuts, snaps.n_snapshots]
+    parts = [chunk_episode_rows(snaps, a, b, tally.episodes, grouping)
+             for a, b in zip(edges[:-1], edges[1:], strict=True)]  # fmt: skip
+    rows = parts[0]
+    for part in parts[1:]:
+        rows = rows.then(part)
+    return episode_table(snaps, tally.episodes, tally.motion, grouping.min_speed, rows=rows)
+
+
+def assert_same_table(found, whole):
+    pd.testing.assert_frame_equal(found[0], whole[0], check_exact=True)
+    assert len(found[1]) == len(whole[1])
+    for path, expected in zip(found[1], whole[1], strict=True):
+        np.testing.assert_array_equal(path, expected)
+
+
 def assert_same_dyads(found, whole):
     whole = whole.copy()
     whole.attrs.pop("radius_m")
@@ -151,6 +169,18 @@ def test_chunked_dyads_equal_the_whole_on_every_scenario(scenario_groups):
         assert_same_dyads(chunked_dyads(snaps, grouping.radius, cuts, order), whole)
 
 
+def test_chunked_episode_table_equals_the_whole_on_every_scenario(scenario_groups):
+    # the second pass: the rows of the whole run's episodes read chunk by chunk
+    snaps, grouping, episode_params = scenario_groups
+    tally = group_chain(snaps, grouping, episode_params)
+    whole = episode_table(snaps, tally.episodes, tally.motion, grouping.min_speed)
+    n = snaps.n_snapshots
+    runs = tally.episodes
+    inside = [(int(s) + int(e)) // 2 for s, e in zip(runs.start, runs.end, strict=True)]
+    for cuts in (list(range(n // 7, n, n // 7)), sorted(set(inside))[:40], gap_midpoints(snaps)):
+        assert_same_table(chunked_table(snaps, grouping, tally, cuts), whole)
+
+
 @settings(max_examples=30, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(seed=st.integers(0, 10_000), tol=st.integers(0, 3), data=st.data())
 def test_any_cut_of_a_random_scene_gives_the_same_episodes(seed, tol, data):
@@ -170,6 +200,37 @@ def test_any_cut_of_a_random_scene_gives_the_same_episodes(seed, tol, data):
     assert episodes_as_tuples(chunked_episodes(snaps, gp, params, cuts)) == episodes_as_tuples(
         whole
     )
+    tally = group_chain(snaps, gp, params)
+    assert_same_table(chunked_table(snaps, gp, tally, cuts),
+                      episode_table(snaps, tally.episodes, tally.motion, gp.min_speed))  # fmt: skip
     order = data.draw(st.sampled_from(["left", "tree"]))
     assert_same_dyads(chunked_dyads(snaps, gp.radius, cuts, order),
                       dyad_table(snaps, neighbour_pairs(snaps, gp.radius)))  # fmt: skip
+
+
+@settings(max_examples=30, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(seed=st.integers(0, 10_000), data=st.data())
+def test_episode_role_sets_equal_a_loop_over_members_fixes(seed, data):
+    # objects change roles at random snapshots; reference: every fix of every member
+    # within each episode's span, looked up one by one
+    rng = np.random.default_rng(seed)
+    n_snap, n_obj = 40, 6
+    x, y, _ = random_walkers(rng, n_obj, n_snap)
+    present = rng.random((n_snap, n_obj)) < 0.85
+    present[0] = True
+    role = np.repeat(rng.integers(0, 3, (1, n_obj)), n_snap, axis=0)
+    switch = rng.random((n_snap, n_obj)) < 0.05
+    role = np.where(np.cumsum(switch, axis=0) % 2 == 1, (role + 1) % 3, role)
+    snaps = grid_scene(x, y, role, present, 3)
+    gp = GroupParams(radius=1.5, max_heading=None, max_speed_ratio=None)
+    tally = group_chain(snaps, gp, EpisodeParams(tolerance=1.0, min_duration=2.0))
+    expected = []
+    for members, start, end in zip(tally.episodes.members, tally.episodes.start,
+                                   tally.episodes.end, strict=True):  # fmt: skip
+        held = {str(snaps.roles[snaps.role[e]]) for e in range(snaps.n_entries)
+                if snaps.obj[e] in members and start <= snaps.snap[e] <= end}  # fmt: skip
+        expected.append(";".join(sorted(held)))
+    assert episode_role_sets(snaps, tally.episodes) == expected
+    cuts = sorted(set(data.draw(st.lists(st.integers(1, n_snap - 1), max_size=6))))
+    table, _ = chunked_table(snaps, gp, tally, cuts)
+    assert table["roles"].tolist() == expected
