@@ -90,9 +90,10 @@ GRID_BYTES = 200_000_000
 #: memory (32 MB) whatever ``max_expected_pairs`` is.
 EXPECTED_BLOCK = 4_000_000
 
-#: 8-byte arrays alive at once per grid cell in a chunk: x, y, presence, the two
-#: differences of a distance pass and its fixed-point copy and low half.
-_GRID_ARRAYS = 7
+#: 8-byte arrays alive at once per grid cell in a chunk: x, y, presence, and the three
+#: work buffers of a distance pass (two differences, the fixed-point copy).
+_GRID_ARRAYS = 6
+_WORK_TYPES = (np.float64, np.float64, np.int64)
 
 DYAD_COLUMNS = [
     "object_a", "object_b", "role_a", "role_b",
@@ -111,8 +112,8 @@ _TIME_COLUMNS = {"first_together", "last_together"}
 _TEXT_COLUMNS = {"object_a", "object_b", "role_a", "role_b"}
 
 
-#: Distances are summed as integers of 2**-37 m (7 picometres; each distance rounded
-#: to the nearest), held in two int64 halves of 32 bits, so that the sum over a run
+#: Distances are summed as integers of 2**-37 m (7 picometres; each distance rounded to the
+#: nearest), held in two int64 halves of 32 bits, so that the sum over a run
 #: of snapshots is the same number however the run is cut into chunks and in whatever
 #: order the chunks' sums are added (a float sum would change in its last bits).
 _FIXED_BITS = 37
@@ -122,6 +123,12 @@ _LOW_MASK = (1 << _LOW_BITS) - 1
 #: Farthest two positions may be apart for the fixed-point sums (2**26 m, 67 000 km:
 #: more than any two points on the Earth in any projection in metres).
 _MAX_SPAN_M = 2.0 ** (63 - _FIXED_BITS)
+
+#: Share of ``_MAX_SPAN_M`` that span x snapshots must stay below for the distances of
+#: a chunk to be summed as whole integers, without splitting each into halves first
+#: (0 always splits). Skipping the split saves two passes over each distance grid
+#: (docs/performance.md).
+_DIRECT_SUM_SHARE = 0.5
 
 
 @dataclass(frozen=True)
@@ -269,6 +276,7 @@ def _shared_and_distance_sums(
         raise ValueError(f"positions {span:.3g} m apart: coordinates are not in metres")
     width = max(1, GRID_BYTES // (8 * _GRID_ARRAYS * max(n_obj, 1)))
     offsets = snaps.offsets()
+    work = None
     for c0 in range(0, n_snap, width):  # per chunk of snapshots
         c1 = min(c0 + width, n_snap)
         lo, hi = offsets[c0], offsets[c1]
@@ -278,8 +286,10 @@ def _shared_and_distance_sums(
         gx = np.full((n_obj, c1 - c0), np.nan)
         gy = np.full((n_obj, c1 - c0), np.nan)
         present = np.zeros((n_obj, c1 - c0), dtype=np.float64)
-        gx[obj, col] = snaps.x[lo:hi]
-        gy[obj, col] = snaps.y[lo:hi]
+        # positions in fixed-point units (a power of two: the distances are those in
+        # metres times the unit, bit for bit)
+        gx[obj, col] = snaps.x[lo:hi] * 2.0**_FIXED_BITS
+        gy[obj, col] = snaps.y[lo:hi] * 2.0**_FIXED_BITS
         present[obj, col] = 1.0
         # a matrix product of 0/1 float64 rows counts exactly (far below 2**53)
         chunk_shared = present @ present.T
@@ -289,33 +299,48 @@ def _shared_and_distance_sums(
         # while the episode search runs in the other thread (measured: 8 192-snapshot
         # blocks, ten times the calls, were no faster alone).
         with_partner = chunk_shared.sum(axis=1) > np.diag(chunk_shared)
+        if work is None:  # buffers of the first (widest) chunk, reused by the others
+            work = tuple(np.empty((max(n_obj - 1, 1), c1 - c0), dt) for dt in _WORK_TYPES)
         for a in np.flatnonzero(with_partner[:-1]).tolist():  # per object: the later ones
-            part_high, part_low = _fixed_distance_sums(gx, gy, a)
+            part_high, part_low = _fixed_distance_sums(gx, gy, a, span, work)
             high[a, a + 1 :] += part_high
             low[a, a + 1 :] += part_low
     high, low = _carried(high, low)
     return np.rint(shared).astype(np.int64), high, low
 
 
-def _fixed_distance_sums(gx: np.ndarray, gy: np.ndarray, a: int) -> tuple[np.ndarray, np.ndarray]:
+def _fixed_distance_sums(
+    gx: np.ndarray, gy: np.ndarray, a: int, span: float, work: tuple[np.ndarray, ...]
+) -> tuple[np.ndarray, np.ndarray]:
     """Return the fixed-point sums of the distances from object ``a`` to each later object.
 
-    ``gx``/``gy`` are (objects, snapshots) grids with NaN where an object is
-    absent; a snapshot at which either is absent adds nothing.
+    ``gx``/``gy`` are (objects, snapshots) grids of positions in fixed-point
+    units, NaN where an object is absent; a snapshot at which either is
+    absent adds nothing. Each distance is rounded to the nearest unit.
+    ``span`` (m) bounds every distance in the grids: when no sum can reach
+    2**63 units (span times snapshots below 2**25 m, e.g. a pitch for a whole
+    match) the integers are summed as they are; otherwise each is split into
+    its 32-bit halves first. Both give the same halves. ``work`` holds three
+    buffers of the grids' shape (two float64, one int64), reused from object
+    to object so that no pass allocates memory.
     """
-    dx = gx[a + 1 :] - gx[a]
-    dy = gy[a + 1 :] - gy[a]
+    k = gx.shape[0] - a - 1
+    dx, dy, units = (w[:k, : gx.shape[1]] for w in work)
+    np.subtract(gx[a + 1 :], gx[a], out=dx)
+    np.subtract(gy[a + 1 :], gy[a], out=dy)
     dx *= dx
     dy *= dy
     dx += dy
     np.sqrt(dx, out=dx)
     # NaN marks "one of the two absent"; such snapshots are not shared
     np.fmax(dx, 0.0, out=dx)
-    dx *= 2.0**_FIXED_BITS
-    units = np.rint(dx, out=dx).astype(np.int64)
-    part_low = np.bitwise_and(units, _LOW_MASK).sum(axis=1)
-    np.right_shift(units, _LOW_BITS, out=units)
-    return units.sum(axis=1), part_low
+    np.rint(dx, out=dx)  # to the nearest unit
+    np.copyto(units, dx, casting="unsafe")
+    if span * units.shape[1] < _MAX_SPAN_M * _DIRECT_SUM_SHARE:
+        return _carried(np.zeros(k, dtype=np.int64), units.sum(axis=1))
+    high = np.right_shift(units, _LOW_BITS).sum(axis=1)
+    np.bitwise_and(units, _LOW_MASK, out=units)
+    return high, units.sum(axis=1)
 
 
 def dyad_tally(snaps: Snapshots, together: NeighbourPairs) -> DyadTally:
@@ -337,13 +362,11 @@ def dyad_tally(snaps: Snapshots, together: NeighbourPairs) -> DyadTally:
     """
     _check_together(snaps, together)
     n_obj = len(snaps.objects)
-    n_roles = max(len(snaps.roles), int(snaps.role.max()) + 1 if snaps.n_entries else 1)
+    n_roles = snaps.n_roles
     shared_m, high_m, low_m = _shared_and_distance_sums(snaps, n_obj)
     a, b = np.nonzero(np.triu(shared_m, 1))  # row-major: sorted by a, then b
     x, longest, head, tail, first, last = _together_runs(snaps, together, a, b)
-    role_key, role_count = np.unique(
-        snaps.obj.astype(np.int64) * n_roles + snaps.role, return_counts=True
-    )
+    role_key, role_count = snaps.role_counts()
     return DyadTally(
         first_index=snaps.first_index, n_snapshots=snaps.n_snapshots,
         n_objects=n_obj, n_roles=n_roles, key=a.astype(np.int64) * n_obj + b,

@@ -78,7 +78,18 @@ class _RowStats:
         return out
 
     def placed(self, rows: np.ndarray, n_rows: int) -> _RowStats:
-        """Return these statistics moved to positions ``rows`` of ``n_rows`` rows."""
+        """Return these statistics moved to positions ``rows`` of ``n_rows`` rows.
+
+        ``rows`` must name every row once; when they are already in order
+        (one chunk, or chunks joined in time order with one episode each) the
+        statistics are returned as they are.
+        """
+        filled = np.zeros(n_rows, dtype=bool)
+        filled[rows] = True
+        if rows.size != n_rows or not filled.all():
+            raise ValueError("the chunks' episode rows do not cover each episode snapshot once")
+        if n_rows == 0 or np.all(rows[1:] > rows[:-1]):
+            return self
         out = _RowStats(n_rows)
         for name in self.FIELDS:
             getattr(out, name)[rows] = getattr(self, name)
@@ -152,11 +163,6 @@ def episode_role_sets(snaps: Snapshots, episodes: Episodes) -> list[str]:
     return _role_labels(snaps, _role_keys(snaps, episodes), episodes.n_episodes)
 
 
-def _n_roles(snaps: Snapshots) -> int:
-    """Return the size of the run's role table (the same in every chunk of it)."""
-    return max(len(snaps.roles), 1)
-
-
 def _role_keys(snaps: Snapshots, episodes: Episodes, offset: int = 0) -> np.ndarray:
     """Return the sorted ``episode * n_roles + role`` codes held at members' fixes in episodes.
 
@@ -164,7 +170,7 @@ def _role_keys(snaps: Snapshots, episodes: Episodes, offset: int = 0) -> np.ndar
     snapshot 0 is the run's snapshot ``offset``: only its fixes are read, so
     the codes of consecutive chunks unite into the whole run's.
     """
-    n_roles = _n_roles(snaps)
+    n_roles = snaps.n_roles
     if episodes.n_episodes == 0 or snaps.n_entries == 0:
         return np.zeros(0, dtype=np.int64)
     sizes = np.array([m.size for m in episodes.members], dtype=np.int64)
@@ -198,7 +204,7 @@ def _role_labels(snaps: Snapshots, keys: np.ndarray, n_episodes: int) -> list[st
     """Return per episode its role names from ``_role_keys`` codes, sorted and joined."""
     if n_episodes == 0:
         return []
-    n_roles = _n_roles(snaps)
+    n_roles = snaps.n_roles
     names = np.array([str(r) for r in snaps.roles] or [""], dtype=object)
     cuts = np.searchsorted(keys // n_roles, np.arange(1, n_episodes))
     return [MEMBER_SEP.join(sorted(names[k % n_roles])) for k in np.split(keys, cuts)]
@@ -360,8 +366,6 @@ def episode_table(
     sizes = np.array([m.size for m in episodes.members], dtype=np.int64)
     if rows is None:
         rows = episode_rows(snaps, episodes, motion, min_speed)
-    if rows.rows.size != row_ep.size or np.unique(rows.rows).size != row_ep.size:
-        raise ValueError("the chunks' episode rows do not cover each episode snapshot once")
     stats = rows.stats.placed(rows.rows, row_ep.size)
     spaced = stats.n_both > 0  # snapshots with one member present have no spacing
     with np.errstate(invalid="ignore", divide="ignore"):

@@ -143,16 +143,27 @@ class Snapshots:
 
     def main_roles(self) -> np.ndarray:
         """Return each object's most frequent role code (ties: lowest code)."""
-        n_obj = len(self.objects)
-        n_roles = max(len(self.roles), int(self.role.max()) + 1 if self.n_entries else 1)
-        if n_obj * n_roles <= 50_000_000:
-            counts = np.bincount(
-                self.obj.astype(np.int64) * n_roles + self.role, minlength=n_obj * n_roles
-            ).reshape(n_obj, n_roles)
-            return counts.argmax(axis=1)
-        # many objects and roles: count only the (object, role) keys that occur
-        key, count = np.unique(self.obj.astype(np.int64) * n_roles + self.role, return_counts=True)
-        return most_frequent_roles(key, count, n_obj, n_roles)
+        return most_frequent_roles(*self.role_counts(), len(self.objects), self.n_roles)
+
+    @property
+    def n_roles(self) -> int:
+        """Return the size of the role code space (the role table, at least one)."""
+        return max(len(self.roles), int(self.role.max()) + 1 if self.n_entries else 1)
+
+    def role_counts(self) -> tuple[np.ndarray, np.ndarray]:
+        """Return the ``object * n_roles + role`` codes that occur, sorted, and their entries.
+
+        Counted in a dense table when objects x roles fit ``DENSE_ROLE_CELLS``
+        (a bincount, O(n)); otherwise by sorting the codes (O(n log n)).
+        """
+        codes = self.obj.astype(np.int64) * self.n_roles + self.role
+        cells = len(self.objects) * self.n_roles
+        if cells <= DENSE_ROLE_CELLS:
+            counts = np.bincount(codes, minlength=cells)
+            key = np.flatnonzero(counts)
+            return key, counts[key]
+        key, count = np.unique(codes, return_counts=True)
+        return key, count.astype(np.int64)
 
     def offsets(self) -> np.ndarray:
         """Return CSR offsets: entries of snapshot ``s`` are ``offsets[s]:offsets[s+1]``.
@@ -228,6 +239,10 @@ class Snapshots:
         value.flags.writeable = False
         self.__dict__["_cache_" + name] = (inputs, value)
         return value
+
+
+#: Objects x roles up to which role entries are counted in a dense table (400 MB of int64).
+DENSE_ROLE_CELLS = 50_000_000
 
 
 def most_frequent_roles(

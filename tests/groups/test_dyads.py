@@ -471,6 +471,18 @@ def test_distance_sums_are_exact_integers_of_the_fixed_point_unit():
     assert np.all(tally.distance_low < 2**32)
 
 
+def test_distance_sums_split_or_whole_give_the_same_integers(monkeypatch):
+    # the two ways of summing the units (whole, or each split into 32-bit halves first)
+    snaps = random_scene(6, n_snap=300)
+    pairs = neighbour_pairs(snaps, 3.0)
+    whole = dyads.dyad_tally(snaps, pairs)
+    monkeypatch.setattr(dyads, "_DIRECT_SUM_SHARE", 0.0)
+    split = dyads.dyad_tally(snaps, pairs)
+    np.testing.assert_array_equal(split.distance_high, whole.distance_high)
+    np.testing.assert_array_equal(split.distance_low, whole.distance_low)
+    assert whole.distance_low.max() > 2**20  # the sums are not trivially small
+
+
 def test_positions_beyond_any_distance_in_metres_are_refused():
     n = 3
     x = np.column_stack([np.zeros(n), np.full(n, 1e9)])

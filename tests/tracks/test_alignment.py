@@ -6,7 +6,7 @@ from collections import Counter
 
 import numpy as np
 import pytest
-from scenes import NS, make_fixes
+from scenes import NS, grid_scene, make_fixes
 
 from comove.errors import InputError
 from comove.tracks.alignment import AlignParams, Snapshots, align, default_step
@@ -165,3 +165,23 @@ def test_main_role_is_the_most_frequent_lowest_on_ties(n_objects, n_roles):
     ties = sum(list(c.values()).count(max(c.values())) > 1 for c in counts.values())
     assert ties > 0  # the tie rule is exercised
     assert np.array_equal(snaps.main_roles(), expected)
+
+
+def test_role_counts_dense_and_sorted_agree(monkeypatch):
+    # the two ways of counting (object, role) entries: a dense bincount, or sorting codes
+    from comove.tracks import alignment
+
+    rng = np.random.default_rng(3)
+    n_snap, n_obj = 30, 8
+    snaps = grid_scene(rng.uniform(0, 9, (n_snap, n_obj)), rng.uniform(0, 9, (n_snap, n_obj)),
+                       rng.integers(0, 4, (n_snap, n_obj)), rng.random((n_snap, n_obj)) < 0.8,
+                       4)  # fmt: skip
+    dense = snaps.role_counts()
+    monkeypatch.setattr(alignment, "DENSE_ROLE_CELLS", 0)
+    by_sorting = snaps.role_counts()
+    for d, s in zip(dense, by_sorting, strict=True):
+        np.testing.assert_array_equal(d, s)
+    # reference: numpy.argmax of each object's role counts (first maximum)
+    counts = np.zeros((n_obj, snaps.n_roles), int)
+    np.add.at(counts, (snaps.obj, snaps.role), 1)
+    np.testing.assert_array_equal(snaps.main_roles(), counts.argmax(axis=1))
