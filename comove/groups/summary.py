@@ -367,14 +367,8 @@ def episode_table(
     if rows is None:
         rows = episode_rows(snaps, episodes, motion, min_speed)
     stats = rows.stats.placed(rows.rows, row_ep.size)
-    spaced = stats.n_both > 0  # snapshots with one member present have no spacing
-    with np.errstate(invalid="ignore", divide="ignore"):
-        row_spacing = stats.d_sum / stats.n_both
+    mean_spacing, max_spacing = _spacings(stats, row_ep, first_row, n_ep)
     observed = stats.n_present > 0  # in a tolerated gap no member may have data
-    max_spacing = np.full(n_ep, np.nan)
-    if n_ep:
-        max_spacing = np.maximum.reduceat(stats.d_max, first_row[:-1])
-        max_spacing[np.bincount(row_ep, weights=spaced, minlength=n_ep) == 0] = np.nan
     names = np.array([str(o) for o in snaps.objects], dtype=object)
     text = _text_column
 
@@ -391,7 +385,7 @@ def episode_table(
             "members": text([MEMBER_SEP.join(names[m]) for m in episodes.members]),
             "roles": text(_role_labels(snaps, rows.role_keys, n_ep)),
             "together_s": np.asarray(episodes.together, dtype=np.int64) * snaps.step_s,
-            "mean_spacing_m": _per_episode_mean(row_ep, row_spacing, spaced, n_ep),
+            "mean_spacing_m": mean_spacing,
             "max_spacing_m": max_spacing,
             "moving_share": _per_episode_mean(row_ep, stats.moving, observed, n_ep),
             "came_from": text([MEMBER_SEP.join(ids[f] for f in c) for c in episodes.came_from]),
@@ -400,6 +394,20 @@ def episode_table(
         columns=EPISODE_COLUMNS,
     )
     return table, _centroid_paths(snaps, stats, row_ep, row_snap, n_ep)
+
+
+def _spacings(
+    stats: _RowStats, row_ep: np.ndarray, first_row: np.ndarray, n_ep: int
+) -> tuple[np.ndarray, np.ndarray]:
+    """Return per episode the mean and the largest spacing of its members (NaN if never two)."""
+    spaced = stats.n_both > 0  # snapshots with one member present have no spacing
+    with np.errstate(invalid="ignore", divide="ignore"):
+        row_spacing = stats.d_sum / stats.n_both
+    max_spacing = np.full(n_ep, np.nan)
+    if n_ep:
+        max_spacing = np.maximum.reduceat(stats.d_max, first_row[:-1])
+        max_spacing[np.bincount(row_ep, weights=spaced, minlength=n_ep) == 0] = np.nan
+    return _per_episode_mean(row_ep, row_spacing, spaced, n_ep), max_spacing
 
 
 def _centroid_paths(
