@@ -339,7 +339,9 @@ def _run_groups(args: argparse.Namespace) -> None:
         top = result.episodes.sort_values("duration_s", ascending=False).head(10)
         shown = ["episode", "start", "duration_s", "together_s", "members"]
         print(top[shown].to_string(index=False))
-    print(f"{len(result.dyads)} pairs of objects with shared presence in dyads.csv.")
+    listed = result.run["settings"]["DyadParams"]["dyad_pairs"]
+    meaning = "together at least once" if listed == "together" else "seen at the same time"
+    print(f"{len(result.dyads)} pairs of objects {meaning} in dyads.csv.")
     _written(out, held)
     print(f"Caution: {CAUTION}")
 

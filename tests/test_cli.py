@@ -142,10 +142,26 @@ def test_groups_writes_episodes_dyads_and_paths(tracks_csv, tmp_path, capsys):
     assert sorted(episodes["members"]) == ["a0;a2", "a1;a3"]
     assert episodes["duration_s"].tolist() == [60.0, 60.0]
     dyads = pd.read_csv(out_dir / "dyads.csv")
-    assert len(dyads) == 10  # every pair of 5 objects shares presence
+    # by default the pairs ever within the radius: each dog with its owner
+    assert sorted(dyads["object_a"] + ";" + dyads["object_b"]) == ["a0;a2", "a1;a3"]
+    assert "2 pairs of objects together at least once in dyads.csv" in out
     run_json = json.loads((out_dir / "run.json").read_text())
     assert run_json["command"] == "groups"
     assert run_json["settings"]["EpisodeParams"]["min_duration"] == 10.0
+    assert run_json["settings"]["DyadParams"]["dyad_pairs"] == "together"
+
+
+def test_groups_can_list_every_co_present_pair(tracks_csv, tmp_path, capsys):
+    out_dir = tmp_path / "g"
+    code, out, err = run(["groups", tracks_csv, "--radius", 2, "--dyad-pairs", "co-present",
+                          "--out", out_dir], capsys)  # fmt: skip
+    assert code == 0, err
+    assert len(pd.read_csv(out_dir / "dyads.csv")) == 10  # every pair of 5 objects
+    assert "10 pairs of objects seen at the same time" in out
+    code, _, err = run(["groups", tracks_csv, "--radius", 2, "--dyad-pairs", "all",
+                        "--out", tmp_path / "h"], capsys)  # fmt: skip
+    assert code != 0
+    assert err.strip().splitlines()[-1].endswith("--dyad-pairs must be one of together, co-present")
 
 
 def test_groups_preset_supplies_defaults_and_flags_override(tracks_csv, tmp_path, capsys):

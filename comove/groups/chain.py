@@ -15,9 +15,11 @@ object's presence runs stitched where they meet at a chunk edge), and the
 episode search runs over the joined timeline, so episodes that cross chunk
 edges, or tolerated gaps that do, are found as in one piece. The dyad counts
 of a chunk (:func:`chunk_dyads`) join likewise (:meth:`~comove.groups.dyads.DyadTally.then`:
-counts and exact distance sums add, runs together stitch at the edge); only
-the expected distance of the coefficient of sociality pairs positions across
-the whole run and is computed from the tracks once the chunks are joined.
+counts and exact distance sums add, runs together stitch at the edge), once
+the pairs to count are fixed: the pairs ever together are found by a first
+pass (:func:`chunk_together_keys`). The expected distance of the coefficient
+of sociality pairs positions across the whole run and is computed from the
+tracks once the chunks are joined.
 """
 
 from __future__ import annotations
@@ -27,7 +29,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from comove.groups.dyads import DyadTally, dyad_tally
+from comove.groups.dyads import DyadTally, dyad_tally, together_keys
 from comove.groups.episodes import EpisodeParams, Episodes, find_episodes
 from comove.groups.grouping import (
     GroupParams,
@@ -221,10 +223,19 @@ def _chunk_motion(
 
 
 def chunk_dyads(
-    snaps: Snapshots, start: int, stop: int, radius: float, workers: int = 1
+    snaps: Snapshots,
+    start: int,
+    stop: int,
+    radius: float,
+    keys: np.ndarray | None = None,
+    workers: int = 1,
 ) -> DyadTally:
     """Return the dyad counts of snapshots ``start`` to ``stop - 1`` of ``snaps``.
 
+    Counted for the pairs ``keys`` (``a * n_objects + b``, a < b, sorted),
+    normally the pairs ever together in the whole run, from a first pass
+    (:func:`chunk_together_keys` of every chunk, united); without ``keys``,
+    every pair present in the chunk at one time (objects x objects memory).
     The tallies of consecutive chunks join (:meth:`~comove.groups.dyads.DyadTally.then`)
     into the tally of the whole run, exactly.
 
@@ -236,8 +247,21 @@ def chunk_dyads(
         The chunk's snapshots.
     radius : float
         Distance (m) within which two objects are together.
+    keys : ndarray of int64, optional
+        The pairs to count.
     workers : int, default 1
         Threads of the neighbour search (-1: every core).
     """
     chunk = snaps.window(start, stop)
-    return dyad_tally(chunk, neighbour_pairs(chunk, radius, workers=workers))
+    pairs = neighbour_pairs(chunk, radius, workers=workers)
+    if keys is None:
+        return dyad_tally(chunk, pairs, pairs="co-present")
+    return dyad_tally(chunk, pairs, keys=keys)
+
+
+def chunk_together_keys(
+    snaps: Snapshots, start: int, stop: int, radius: float, workers: int = 1
+) -> np.ndarray:
+    """Return the keys of the pairs within ``radius`` at a snapshot ``start`` to ``stop - 1``."""
+    chunk = snaps.window(start, stop)
+    return together_keys(chunk, neighbour_pairs(chunk, radius, workers=workers))

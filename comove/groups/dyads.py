@@ -72,28 +72,30 @@ References
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
 from scipy.spatial.distance import cdist
 
-from comove.errors import InputError
+from comove.errors import InputError, bad_setting
 from comove.tracks.alignment import Snapshots, longest_runs, most_frequent_roles
 from comove.tracks.neighbours import NeighbourPairs
 
-#: Bytes allowed for the dense per-object grids of one chunk of snapshots (positions,
-#: presence and the temporaries of one distance pass).
+#: Bytes allowed for the per-object position grids of a stretch of snapshots and the
+#: work buffers of a block of pairs (half each).
 GRID_BYTES = 200_000_000
 
 #: Distances evaluated by one ``cdist`` call for the expected distance; bounds its
 #: memory (32 MB) whatever ``max_expected_pairs`` is.
 EXPECTED_BLOCK = 4_000_000
 
-#: 8-byte arrays alive at once per grid cell in a chunk: x, y, presence, and the three
-#: work buffers of a distance pass (two differences, the fixed-point copy).
-_GRID_ARRAYS = 6
-_WORK_TYPES = (np.float64, np.float64, np.int64)
+#: Objects up to which every co-present pair may be listed (an objects x objects table
+#: of 400 MB of booleans).
+MAX_CO_PRESENT_OBJECTS = 20_000
+
+#: Which pairs the dyad table lists.
+PAIR_SELECTIONS = ("together", "co-present")
 
 DYAD_COLUMNS = [
     "object_a", "object_b", "role_a", "role_b",
@@ -148,6 +150,8 @@ class DyadTally:
         Snapshots in the stretch.
     n_objects, n_roles : int
         Sizes of the run's object and role tables (codes are the run's).
+    selection : {"together", "co-present", "given"}
+        How the pairs were chosen (see :func:`dyad_tally`).
     key : ndarray of int64
         ``a * n_objects + b`` (a < b), sorted: the pairs counted.
     shared, together : ndarray of int64
@@ -170,6 +174,7 @@ class DyadTally:
     n_snapshots: int
     n_objects: int
     n_roles: int
+    selection: str
     key: np.ndarray
     shared: np.ndarray
     together: np.ndarray
@@ -190,6 +195,13 @@ class DyadTally:
             raise ValueError("tallies of different runs (object or role tables differ)")
         if later.first_index != self.first_index + self.n_snapshots:
             raise ValueError("tallies to join must be of consecutive stretches of snapshots")
+        if "together" in (self.selection, later.selection):
+            raise ValueError(
+                "tallies of the pairs together in each chunk cannot be joined (a pair may be "
+                "together only in a later chunk): count every chunk with the run's keys"
+            )
+        if self.selection != later.selection:
+            raise ValueError("tallies of differently chosen pairs cannot be joined")
         if self.n_snapshots == 0 or later.n_snapshots == 0:
             return later if self.n_snapshots == 0 else self
         key = np.union1d(self.key, later.key)
@@ -207,7 +219,7 @@ class DyadTally:
         n_a, n_b = self.n_snapshots, later.n_snapshots
         return DyadTally(
             first_index=self.first_index, n_snapshots=n_a + n_b,
-            n_objects=self.n_objects, n_roles=self.n_roles, key=key,
+            n_objects=self.n_objects, n_roles=self.n_roles, selection=self.selection, key=key,
             shared=sum(both("shared")), together=sum(both("together")),
             distance_high=high, distance_low=low,
             longest=np.maximum(np.maximum(*both("longest")), tail_a + head_b),
@@ -257,94 +269,138 @@ def _check_together(snaps: Snapshots, together: NeighbourPairs) -> None:
         raise ValueError("together joins an object with itself")
 
 
-def _shared_and_distance_sums(
-    snaps: Snapshots, n_obj: int
+def _pair_sums(
+    snaps: Snapshots, a: np.ndarray, b: np.ndarray
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Return shared snapshot counts and the distance sums over them, each (n_obj, n_obj).
+    """Return, per pair (a[k], b[k]), the shared snapshots and the distance sums over them.
 
-    The distance sums are the two fixed-point halves (see ``_FIXED_BITS``);
-    only their upper triangle (a < b) is filled.
+    The distance sums are the two fixed-point halves (see ``_FIXED_BITS``).
+    Positions go into (objects x snapshots) grids for a stretch of snapshots
+    at a time (``GRID_BYTES`` / 2 bytes), and the pairs are handled in blocks
+    whose work buffers take as much again; only the given pairs are visited.
     """
-    shared = np.zeros((n_obj, n_obj), dtype=np.float64)
-    high = np.zeros((n_obj, n_obj), dtype=np.int64)
-    low = np.zeros((n_obj, n_obj), dtype=np.int64)
-    n_snap = snaps.n_snapshots
-    if snaps.n_entries == 0:
-        return shared.astype(np.int64), high, low
+    n_pairs, n_obj = a.size, len(snaps.objects)
+    shared = np.zeros(n_pairs, dtype=np.int64)
+    high, low = np.zeros(n_pairs, dtype=np.int64), np.zeros(n_pairs, dtype=np.int64)
+    if n_pairs == 0 or snaps.n_entries == 0:
+        return shared, high, low
     span = np.hypot(np.ptp(snaps.x), np.ptp(snaps.y))
     if not span < _MAX_SPAN_M:
         raise ValueError(f"positions {span:.3g} m apart: coordinates are not in metres")
-    width = max(1, GRID_BYTES // (8 * _GRID_ARRAYS * max(n_obj, 1)))
+    width = max(1, GRID_BYTES // (2 * 8 * 2 * n_obj))  # two float64 grids
+    rows = max(1, GRID_BYTES // (2 * 8 * _WORK_ARRAYS * min(width, snaps.n_snapshots)))
+    cells = min(rows, n_pairs) * min(width, snaps.n_snapshots)
+    work = (np.empty(_WORK_ARRAYS * cells), np.empty(cells, dtype=bool))
     offsets = snaps.offsets()
-    work = None
-    for c0 in range(0, n_snap, width):  # per chunk of snapshots
-        c1 = min(c0 + width, n_snap)
+    for c0 in range(0, snaps.n_snapshots, width):  # per stretch of snapshots
+        c1 = min(c0 + width, snaps.n_snapshots)
         lo, hi = offsets[c0], offsets[c1]
         if hi == lo:
             continue
         obj, col = snaps.obj[lo:hi], snaps.snap[lo:hi] - c0
         gx = np.full((n_obj, c1 - c0), np.nan)
         gy = np.full((n_obj, c1 - c0), np.nan)
-        present = np.zeros((n_obj, c1 - c0), dtype=np.float64)
         # positions in fixed-point units (a power of two: the distances are those in
         # metres times the unit, bit for bit)
         gx[obj, col] = snaps.x[lo:hi] * 2.0**_FIXED_BITS
         gy[obj, col] = snaps.y[lo:hi] * 2.0**_FIXED_BITS
-        present[obj, col] = 1.0
-        # a matrix product of 0/1 float64 rows counts exactly (far below 2**53)
-        chunk_shared = present @ present.T
-        shared += chunk_shared
-        # One pass per object over the whole chunk: few, large whole-array calls matter,
-        # since each releases the interpreter lock and must win it back, which is slow
-        # while the episode search runs in the other thread (measured: 8 192-snapshot
-        # blocks, ten times the calls, were no faster alone).
-        with_partner = chunk_shared.sum(axis=1) > np.diag(chunk_shared)
-        if work is None:  # buffers of the first (widest) chunk, reused by the others
-            work = tuple(np.empty((max(n_obj - 1, 1), c1 - c0), dt) for dt in _WORK_TYPES)
-        for a in np.flatnonzero(with_partner[:-1]).tolist():  # per object: the later ones
-            part_high, part_low = _fixed_distance_sums(gx, gy, a, span, work)
-            high[a, a + 1 :] += part_high
-            low[a, a + 1 :] += part_low
+        # Few, large whole-array calls: each releases the interpreter lock and must win
+        # it back, which is slow while the episode search runs in the other thread.
+        for p0 in range(0, n_pairs, rows):  # per block of pairs
+            p1 = min(p0 + rows, n_pairs)
+            part = _block_sums(gx, gy, a[p0:p1], b[p0:p1], span, work)
+            shared[p0:p1] += part[0]
+            high[p0:p1] += part[1]
+            low[p0:p1] += part[2]
     high, low = _carried(high, low)
-    return np.rint(shared).astype(np.int64), high, low
+    return shared, high, low
 
 
-def _fixed_distance_sums(
-    gx: np.ndarray, gy: np.ndarray, a: int, span: float, work: tuple[np.ndarray, ...]
-) -> tuple[np.ndarray, np.ndarray]:
-    """Return the fixed-point sums of the distances from object ``a`` to each later object.
+#: float64-sized work buffers per (pair, snapshot) cell of a block: two positions, a
+#: temporary and the fixed-point copy.
+_WORK_ARRAYS = 4
+
+
+def _block_sums(
+    gx: np.ndarray,
+    gy: np.ndarray,
+    a: np.ndarray,
+    b: np.ndarray,
+    span: float,
+    work: tuple[np.ndarray, np.ndarray],
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Return shared snapshots and the fixed-point distance sums of the pairs (a[k], b[k]).
 
     ``gx``/``gy`` are (objects, snapshots) grids of positions in fixed-point
     units, NaN where an object is absent; a snapshot at which either is
-    absent adds nothing. Each distance is rounded to the nearest unit.
-    ``span`` (m) bounds every distance in the grids: when no sum can reach
+    absent is not shared and adds nothing. Each distance is rounded to the
+    nearest unit. ``span`` (m) bounds every distance: when no sum can reach
     2**63 units (span times snapshots below 2**25 m, e.g. a pitch for a whole
     match) the integers are summed as they are; otherwise each is split into
-    its 32-bit halves first. Both give the same halves. ``work`` holds three
-    buffers of the grids' shape (two float64, one int64), reused from object
-    to object so that no pass allocates memory.
+    its 32-bit halves first. Both give the same halves. ``work`` is reused
+    from block to block (float64 cells for four arrays, and booleans), so that
+    no pass allocates memory.
     """
-    k = gx.shape[0] - a - 1
-    dx, dy, units = (w[:k, : gx.shape[1]] for w in work)
-    np.subtract(gx[a + 1 :], gx[a], out=dx)
-    np.subtract(gy[a + 1 :], gy[a], out=dy)
+    shape = (a.size, gx.shape[1])
+    cells = shape[0] * shape[1]
+    floats, flags = work
+    dx, dy, tmp = (floats[k * cells : (k + 1) * cells].reshape(shape) for k in range(3))
+    units = floats[3 * cells : 4 * cells].view(np.int64).reshape(shape)
+    np.take(gx, a, axis=0, out=dx)
+    np.take(gx, b, axis=0, out=tmp)
+    dx -= tmp
+    np.take(gy, a, axis=0, out=dy)
+    np.take(gy, b, axis=0, out=tmp)
+    dy -= tmp
     dx *= dx
     dy *= dy
     dx += dy
     np.sqrt(dx, out=dx)
-    # NaN marks "one of the two absent"; such snapshots are not shared
+    absent = np.isnan(dx, out=flags[:cells].reshape(shape))  # NaN: one of the two absent
+    shared = shape[1] - absent.sum(axis=1)
     np.fmax(dx, 0.0, out=dx)
     np.rint(dx, out=dx)  # to the nearest unit
     np.copyto(units, dx, casting="unsafe")
-    if span * units.shape[1] < _MAX_SPAN_M * _DIRECT_SUM_SHARE:
-        return _carried(np.zeros(k, dtype=np.int64), units.sum(axis=1))
+    if span * shape[1] < _MAX_SPAN_M * _DIRECT_SUM_SHARE:
+        high, low = _carried(np.zeros(a.size, dtype=np.int64), units.sum(axis=1))
+        return shared, high, low
     high = np.right_shift(units, _LOW_BITS).sum(axis=1)
     np.bitwise_and(units, _LOW_MASK, out=units)
-    return high, units.sum(axis=1)
+    return shared, high, units.sum(axis=1)
 
 
-def dyad_tally(snaps: Snapshots, together: NeighbourPairs) -> DyadTally:
-    """Return the dyad counts of every pair of objects present at the same time in ``snaps``.
+def co_present_pairs(snaps: Snapshots) -> np.ndarray:
+    """Return the keys ``a * n_objects + b`` (a < b, sorted) of the pairs present at one time.
+
+    Counted with an (objects x objects) product per stretch of snapshots, so
+    for small studies only: refused beyond ``MAX_CO_PRESENT_OBJECTS`` objects.
+    """
+    n_obj = len(snaps.objects)
+    if n_obj > MAX_CO_PRESENT_OBJECTS:
+        raise InputError(
+            f"{n_obj} objects: listing every co-present pair needs objects x objects memory; "
+            f"it is offered up to {MAX_CO_PRESENT_OBJECTS} objects (keep the pairs ever together)"
+        )
+    met = np.zeros((n_obj, n_obj), dtype=bool)
+    width = max(1, GRID_BYTES // (4 * max(n_obj, 1)))
+    offsets = snaps.offsets()
+    for c0 in range(0, snaps.n_snapshots, width):  # per stretch of snapshots
+        c1 = min(c0 + width, snaps.n_snapshots)
+        lo, hi = offsets[c0], offsets[c1]
+        present = np.zeros((n_obj, c1 - c0), dtype=np.float32)
+        present[snaps.obj[lo:hi], snaps.snap[lo:hi] - c0] = 1.0
+        met |= (present @ present.T) > 0
+    a, b = np.nonzero(np.triu(met, 1))  # row-major: sorted by a, then b
+    return a.astype(np.int64) * n_obj + b
+
+
+def dyad_tally(
+    snaps: Snapshots,
+    together: NeighbourPairs,
+    pairs: str = "together",
+    keys: np.ndarray | None = None,
+) -> DyadTally:
+    """Return the dyad counts of the chosen pairs of objects in ``snaps``.
 
     Parameters
     ----------
@@ -352,32 +408,56 @@ def dyad_tally(snaps: Snapshots, together: NeighbourPairs) -> DyadTally:
         Aligned snapshots: a whole run, or one chunk of it (:meth:`Snapshots.window`).
     together : NeighbourPairs
         The pairs of entries of ``snaps`` counted as together (see :func:`dyad_table`).
+    pairs : {"together", "co-present"}, default "together"
+        Which pairs to count: those together at one snapshot or more, or
+        every pair present at one snapshot or more (objects x objects memory).
+    keys : ndarray of int64, optional
+        Count exactly these pairs, ``a * n_objects + b`` (a < b, sorted), instead:
+        over chunks of time, the pairs ever together are known only after a
+        first pass (the union of each chunk's :func:`together_keys`).
 
     Returns
     -------
     DyadTally
-        Counts of the pairs present together at one snapshot or more; the
-        tallies of consecutive chunks join with :meth:`DyadTally.then` into
-        the tally of the whole.
+        Tallies of consecutive chunks join with :meth:`DyadTally.then` into
+        the tally of the whole when their pairs are fixed in advance
+        (``keys``) or are all co-present pairs; a pair first together in a
+        later chunk would be missing from an earlier chunk's ``"together"``
+        tally, so such tallies are not joined.
     """
     _check_together(snaps, together)
     n_obj = len(snaps.objects)
-    n_roles = snaps.n_roles
-    shared_m, high_m, low_m = _shared_and_distance_sums(snaps, n_obj)
-    a, b = np.nonzero(np.triu(shared_m, 1))  # row-major: sorted by a, then b
+    if keys is not None:
+        selection, key = "given", np.asarray(keys, dtype=np.int64)
+        if np.setdiff1d(together_keys(snaps, together), key).size:
+            raise ValueError("together holds pairs that are not among the keys")
+    elif pairs == "co-present":
+        selection, key = "co-present", co_present_pairs(snaps)
+    elif pairs == "together":
+        selection, key = "together", together_keys(snaps, together)
+    else:
+        raise bad_setting("dyad_pairs", f"must be one of {', '.join(PAIR_SELECTIONS)}")
+    a, b = key // max(n_obj, 1), key % max(n_obj, 1)
+    shared, high, low = _pair_sums(snaps, a, b)
     x, longest, head, tail, first, last = _together_runs(snaps, together, a, b)
     role_key, role_count = snaps.role_counts()
     return DyadTally(
         first_index=snaps.first_index, n_snapshots=snaps.n_snapshots,
-        n_objects=n_obj, n_roles=n_roles, key=a.astype(np.int64) * n_obj + b,
-        shared=shared_m[a, b], together=x,
-        distance_high=high_m[a, b], distance_low=low_m[a, b],
+        n_objects=n_obj, n_roles=snaps.n_roles, selection=selection, key=key,
+        shared=shared, together=x, distance_high=high, distance_low=low,
         longest=longest, head=head, tail=tail,
         first=np.where(x > 0, first + snaps.first_index, -1),
         last=np.where(x > 0, last + snaps.first_index, -1),
         present=np.bincount(snaps.obj, minlength=n_obj).astype(np.int64),
-        role_key=role_key, role_count=role_count.astype(np.int64),
+        role_key=role_key, role_count=role_count,
     )  # fmt: skip
+
+
+def together_keys(snaps: Snapshots, together: NeighbourPairs) -> np.ndarray:
+    """Return the keys ``a * n_objects + b`` (a < b, sorted) of the pairs in ``together``."""
+    n_obj = np.int64(len(snaps.objects))
+    oa, ob = snaps.obj[together.i].astype(np.int64), snaps.obj[together.j].astype(np.int64)
+    return np.unique(np.minimum(oa, ob) * n_obj + np.maximum(oa, ob))
 
 
 def _subsample_sizes(n_a: np.ndarray, n_b: np.ndarray, cap: int) -> tuple[np.ndarray, np.ndarray]:
@@ -600,10 +680,47 @@ def _dyad_frame(tally: DyadTally, snaps: Snapshots, expected: np.ndarray) -> pd.
     )
 
 
+@dataclass(frozen=True)
+class DyadParams:
+    """Settings of the dyad table.
+
+    Parameters
+    ----------
+    dyad_pairs : {"together", "co-present"}, default "together"
+        Pairs listed: those within the radius at one snapshot or more, or
+        every pair present at one snapshot or more. The second grows with the
+        square of the number of objects (for small studies; refused beyond
+        ``MAX_CO_PRESENT_OBJECTS``).
+    max_expected_pairs : int, default 62_500
+        Most pairings of a position of a with one of b used for the expected
+        distance De of one pair (250 x 250 positions); above it, both tracks
+        are thinned evenly (module docstring). On a 90-minute match at 25 Hz
+        this kept every pair's De within 0.5 % of the value from 4 000 000
+        pairings (median 0.1 %); raise it for more precision at proportional cost.
+    """
+
+    dyad_pairs: str = field(
+        default="together",
+        metadata={"help": "pairs in dyads.csv: together (within the radius at least once) or "
+                  "co-present (every pair seen at one time; grows with objects squared)"},
+    )  # fmt: skip
+    max_expected_pairs: int = field(
+        default=62_500,
+        metadata={"help": "most pairings of positions for a pair's expected distance "
+                  "(coefficient of sociality); above it both tracks are thinned evenly"},
+    )  # fmt: skip
+
+    def __post_init__(self) -> None:
+        if self.dyad_pairs not in PAIR_SELECTIONS:
+            raise bad_setting("dyad_pairs", f"must be one of {', '.join(PAIR_SELECTIONS)}")
+        if not isinstance(self.max_expected_pairs, int) or self.max_expected_pairs < 1:
+            raise bad_setting("max_expected_pairs", "must be a whole number of at least 1")
+
+
 def dyad_table(
-    snaps: Snapshots, together: NeighbourPairs, max_expected_pairs: int = 62_500
+    snaps: Snapshots, together: NeighbourPairs, params: DyadParams | None = None
 ) -> pd.DataFrame:
-    """Return association counts and indices for every pair of objects seen at the same time.
+    """Return association counts and indices for pairs of objects.
 
     Parameters
     ----------
@@ -614,18 +731,15 @@ def dyad_table(
         ``neighbour_pairs(snaps, radius)``; any subset of such pairs (for
         example those that also move alike) may be given. Pairs are used as
         given, never recomputed.
-    max_expected_pairs : int, default 62_500
-        Most pairings of a fix of a with a fix of b used for the expected
-        distance of one pair (250 x 250 positions); above it, both tracks are
-        thinned (see Notes). On a 90-minute match at 25 Hz this kept every
-        pair's De within 0.5 % of the value from 4 000 000 pairings (median
-        0.1 %); raise it for more precision at proportional cost.
+    params : DyadParams, optional
+        Which pairs, and the cap of De's pairings; the defaults when omitted.
 
     Returns
     -------
     DataFrame
         One row per unordered pair of objects (``object_a`` has the lower
-        object code) that are both present at one snapshot or more, with the
+        object code) that are together at one snapshot or more (or, with
+        ``dyad_pairs="co-present"``, present at one snapshot or more), with the
         columns listed in the module docstring.
 
         Sorted by half-weight index, descending, then ``object_a``,
@@ -635,9 +749,10 @@ def dyad_table(
     Notes
     -----
     The indices, the subsampling for De and their sources are in the module
-    docstring. Time O(n_objects^2 x n_snapshots + P log P) for P together
-    pairs, plus O(n_pairs x max_expected_pairs); memory O(GRID_BYTES +
-    n_objects^2 + P) (dense per-object grids in chunks of snapshots).
+    docstring. Time O(n_pairs x n_snapshots + P log P) for P together
+    entry pairs, plus O(n_pairs x max_expected_pairs); memory O(GRID_BYTES +
+    n_pairs + P): position grids of stretches of snapshots, never an
+    objects x objects table (except for ``"co-present"``).
 
     Examples
     --------
@@ -652,11 +767,10 @@ def dyad_table(
     >>> int(row.together_snapshots), float(row.half_weight_index)
     (2, 0.5)
     """
-    if max_expected_pairs < 1:
-        raise ValueError("max_expected_pairs must be at least 1")
-    tally = dyad_tally(snaps, together)
-    table = dyad_rows(tally, snaps, expected_distances(snaps, tally, max_expected_pairs),
-                      max_expected_pairs)  # fmt: skip
+    params = params or DyadParams()
+    tally = dyad_tally(snaps, together, pairs=params.dyad_pairs)
+    cap = params.max_expected_pairs
+    table = dyad_rows(tally, snaps, expected_distances(snaps, tally, cap), cap)
     table.attrs = {"radius_m": float(together.radius), **table.attrs}
     return table
 

@@ -26,7 +26,7 @@ import pandas as pd
 
 from comove.errors import bad_setting
 from comove.groups.chain import GroupTally, group_chain
-from comove.groups.dyads import dyad_table
+from comove.groups.dyads import DyadParams, dyad_table
 from comove.groups.episodes import EpisodeParams
 from comove.groups.grouping import GroupParams
 from comove.groups.presets import preset_values
@@ -67,8 +67,8 @@ MINE_STAGES: tuple[type, ...] = (
 
 #: The stage settings of ``groups``, in pipeline order.
 GROUP_STAGES: tuple[type, ...] = (
-    ColumnSpec, CleanParams, AlignParams, GroupParams, EpisodeParams, SignificanceParams,
-    RunParams,
+    ColumnSpec, CleanParams, AlignParams, GroupParams, EpisodeParams, DyadParams,
+    SignificanceParams, RunParams,
 )  # fmt: skip
 
 
@@ -405,7 +405,16 @@ def groups(
     if merged.get("radius") is None:
         raise bad_setting("radius", "is required: give it in metres, or a preset that sets one")
     stages = split_options(GROUP_STAGES, merged)
-    columns, cleaning, alignment, grouping, episode_params, significance, run_params = stages
+    (
+        columns,
+        cleaning,
+        alignment,
+        grouping,
+        episode_params,
+        dyad_params,
+        significance,
+        run_params,
+    ) = stages
     run_params = run_params.resolved()
     bar = _Progress(progress, total=6 if significance.permutations > 0 else 5)
     digest = _digest_beside(source)
@@ -413,7 +422,7 @@ def groups(
         snaps, quality = _aligned(source, columns, cleaning, alignment, bar)
         with bar.stage("groups, episodes and dyads"):
             tally, table, centroids, dyads = _observed_groups(snaps, grouping, episode_params,
-                                                              run_params)  # fmt: skip
+                                                              dyad_params, run_params)  # fmt: skip
         with bar.stage("paths"):
             paths, display = episode_paths(snaps, table, centroids)
         roles = role_rollup(table)
@@ -430,14 +439,18 @@ def groups(
                                 validate="1:1")  # fmt: skip
     finally:
         bar.close()
-    settings = settings_record(columns, cleaning, _effective(snaps), *stages[3:6], run_params)
+    settings = settings_record(columns, cleaning, _effective(snaps), *stages[3:7], run_params)
     run = run_record("groups", source, settings, extra={"preset": preset, "caution": CAUTION},
                      digest=digest.result())  # fmt: skip
     return GroupsResult(table, roles, dyads, paths, display, quality, run, snaps, centroids)
 
 
 def _observed_groups(
-    snaps: Snapshots, grouping: GroupParams, episode_params: EpisodeParams, run_params: RunParams
+    snaps: Snapshots,
+    grouping: GroupParams,
+    episode_params: EpisodeParams,
+    dyad_params: DyadParams,
+    run_params: RunParams,
 ) -> tuple[GroupTally, pd.DataFrame, list, pd.DataFrame]:
     """Return the group chain's tally, the episode table and paths, and the dyads.
 
@@ -450,7 +463,7 @@ def _observed_groups(
         counting: list[Future] = []
 
         def count_dyads(pairs: NeighbourPairs, _motion: object) -> None:
-            counting.append(side.submit(dyad_table, snaps, pairs))
+            counting.append(side.submit(dyad_table, snaps, pairs, dyad_params))
 
         tally = group_chain(snaps, grouping, episode_params, workers=run_params.threads,
                             before_search=count_dyads)  # fmt: skip

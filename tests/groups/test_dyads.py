@@ -15,6 +15,7 @@ from comove.errors import InputError
 from comove.groups import dyads
 from comove.groups.dyads import (
     DYAD_COLUMNS,
+    DyadParams,
     _even_sample,
     _subsample_sizes,
     dyad_matrix,
@@ -41,6 +42,10 @@ def random_scene(seed: int, n_obj: int = 5, n_snap: int = 60, p_present: float =
     present[0] = True  # every object appears at least once
     role = rng.integers(0, 3, (n_snap, n_obj))
     return grid_scene(x, y, role, present, 3)
+
+
+#: Every pair seen at the same time, also those never within the radius.
+ALL = DyadParams(dyad_pairs="co-present")
 
 
 def row_of(table: pd.DataFrame, a: str, b: str) -> pd.Series:
@@ -88,7 +93,7 @@ def test_hand_computed_coefficient_of_sociality():
     # a at (0,0) then (3,0); b at (0,4) then (3,4): simultaneous distances 4 and 4,
     # cross pairings 5 and 5 (3-4-5 triangles)
     snaps = pair_scene([0, 3], [0, 0], [0, 3], [4, 4], [1, 1], [1, 1])
-    row = dyad_table(snaps, neighbour_pairs(snaps, 1.0)).iloc[0]
+    row = dyad_table(snaps, neighbour_pairs(snaps, 1.0), ALL).iloc[0]
     assert row["mean_distance_m"] == pytest.approx(4.0)
     assert row["expected_distance_m"] == pytest.approx((4 + 5 + 5 + 4) / 4)
     # Kenward et al. 1993: Cs = (De - Do) / (De + Do) = 0.5 / 8.5, attraction > 0
@@ -96,7 +101,7 @@ def test_hand_computed_coefficient_of_sociality():
 
     # b's positions swapped in time: Do = 5, De unchanged -> avoidance, Cs < 0
     snaps = pair_scene([0, 3], [0, 0], [3, 0], [4, 4], [1, 1], [1, 1])
-    row = dyad_table(snaps, neighbour_pairs(snaps, 1.0)).iloc[0]
+    row = dyad_table(snaps, neighbour_pairs(snaps, 1.0), ALL).iloc[0]
     assert row["mean_distance_m"] == pytest.approx(5.0)
     # Kenward et al. 1993: Cs = (4.5 - 5) / (4.5 + 5)
     assert row["coefficient_of_sociality"] == pytest.approx(-1 / 19)
@@ -110,7 +115,8 @@ def test_never_together_and_never_shared():
     present[:3, 2] = False
     present[3:, 0] = False
     snaps = grid_scene(x, np.zeros((n, 3)), np.zeros((n, 3), int), present, 1)
-    table = dyad_table(snaps, neighbour_pairs(snaps, 2.0))
+    assert len(dyad_table(snaps, neighbour_pairs(snaps, 2.0))) == 0  # by default: never together
+    table = dyad_table(snaps, neighbour_pairs(snaps, 2.0), ALL)
     pairs = list(zip(table["object_a"], table["object_b"], strict=True))
     assert pairs == [("obj00", "obj01"), ("obj01", "obj02")]  # HWI tie (0): by ids
     row = row_of(table, "obj00", "obj01")
@@ -198,7 +204,8 @@ def pair_keys(snaps, pairs: NeighbourPairs) -> set:
 
 @pytest.mark.parametrize("seed", range(4))
 @pytest.mark.parametrize("thin", [False, True])
-def test_counts_match_brute_force(seed: int, thin: bool):
+@pytest.mark.parametrize("which", ["together", "co-present"])
+def test_counts_match_brute_force(seed: int, thin: bool, which: str):
     snaps = random_scene(seed)
     pairs = neighbour_pairs(snaps, 3.0)
     if thin:
@@ -206,8 +213,10 @@ def test_counts_match_brute_force(seed: int, thin: bool):
         keep = np.random.default_rng(seed).random(pairs.n_pairs) < 0.5
         pairs = NeighbourPairs(pairs.i[keep], pairs.j[keep], pairs.radius)
     expected = brute_force(snaps, pair_keys(snaps, pairs))
-    table = dyad_table(snaps, pairs)
-    assert len(table) == len(expected)
+    if which == "together":
+        expected = {k: e for k, e in expected.items() if e["together"] > 0}
+    table = dyad_table(snaps, pairs, DyadParams(dyad_pairs=which))
+    assert len(table) == len(expected) > 0
     codes = {str(name): k for k, name in enumerate(snaps.objects)}
     step = snaps.step_s
     for _, row in table.iterrows():
@@ -287,13 +296,13 @@ def test_expected_distance_subsampled_over_the_cap():
         np.ones(n),
     )
     pairs = neighbour_pairs(snaps, 5.0)
-    exact = dyad_table(snaps, pairs, max_expected_pairs=n * n).iloc[0]
-    thinned = dyad_table(snaps, pairs, max_expected_pairs=10_000).iloc[0]
+    exact = dyad_table(snaps, pairs, DyadParams("co-present", max_expected_pairs=n * n)).iloc[0]
+    thinned = dyad_table(snaps, pairs, DyadParams("co-present", max_expected_pairs=10_000)).iloc[0]
     # reference: scipy.spatial.distance.cdist over all 4 000 000 pairings
     assert exact["expected_distance_m"] == pytest.approx(exact_de(snaps, 0, 1), rel=1e-12)
     assert thinned["expected_distance_m"] == pytest.approx(exact["expected_distance_m"], rel=0.01)
     assert thinned["expected_distance_m"] != exact["expected_distance_m"]  # it did thin
-    again = dyad_table(snaps, pairs, max_expected_pairs=10_000).iloc[0]
+    again = dyad_table(snaps, pairs, DyadParams("co-present", max_expected_pairs=10_000)).iloc[0]
     assert again["expected_distance_m"] == thinned["expected_distance_m"]  # deterministic
     # counts and Do never depend on the cap
     for c in ("shared_snapshots", "together_snapshots", "mean_distance_m"):
@@ -388,7 +397,7 @@ def test_translation_changes_nothing():
 @pytest.mark.parametrize("seed", range(6))
 def test_indices_stay_in_range(seed: int):
     snaps = random_scene(seed, n_obj=6, p_present=0.5 + 0.08 * seed)
-    table = dyad_table(snaps, neighbour_pairs(snaps, 1.0 + seed))
+    table = dyad_table(snaps, neighbour_pairs(snaps, 1.0 + seed), ALL)
     assert len(table) > 0
     for c in ("simple_ratio_index", "half_weight_index", "proximity_index"):
         assert table[c].between(0, 1).all(), c
@@ -444,18 +453,44 @@ def test_dyad_matrix_rejects_unknown_or_text_columns():
 def test_tallies_join_only_consecutive_stretches_of_one_run():
     snaps = random_scene(2)
 
-    def tally(start: int, stop: int) -> dyads.DyadTally:
+    def tally(start: int, stop: int, **how) -> dyads.DyadTally:
         chunk = snaps.window(start, stop)
-        return dyads.dyad_tally(chunk, neighbour_pairs(chunk, 3.0))
+        return dyads.dyad_tally(chunk, neighbour_pairs(chunk, 3.0), **how)
 
-    early, late = tally(0, 20), tally(20, 60)
+    how = {"pairs": "co-present"}
+    early, late = tally(0, 20, **how), tally(20, 60, **how)
     with pytest.raises(ValueError, match="consecutive"):
-        early.then(tally(21, 60))
+        early.then(tally(21, 60, **how))
     with pytest.raises(ValueError, match="consecutive"):
         late.then(early)
     with pytest.raises(ValueError, match="different runs"):
         early.then(dataclasses.replace(late, n_objects=late.n_objects + 1))
-    assert early.then(tally(20, 20)) is early
+    assert early.then(tally(20, 20, **how)) is early
+    # pairs chosen per chunk as "together" would miss a pair's earlier shared time
+    with pytest.raises(ValueError, match="cannot be joined"):
+        tally(0, 20).then(tally(20, 60))
+    with pytest.raises(ValueError, match="differently chosen"):
+        early.then(tally(20, 60, keys=late.key))
+
+
+def test_tallies_of_the_pairs_ever_together_join_with_the_run_keys():
+    # the first pass collects each chunk's together pairs; the second counts them all
+    snaps = random_scene(4, n_snap=90)
+    edges = [0, 25, 26, 70, 90]
+    chunks = [snaps.window(a, b) for a, b in zip(edges[:-1], edges[1:], strict=True)]
+    keys = np.unique(np.concatenate(
+        [dyads.together_keys(c, neighbour_pairs(c, 3.0)) for c in chunks]))  # fmt: skip
+    tallies = [dyads.dyad_tally(c, neighbour_pairs(c, 3.0), keys=keys) for c in chunks]
+    joined = tallies[0]
+    for t in tallies[1:]:
+        joined = joined.then(t)
+    whole = dyads.dyad_tally(snaps, neighbour_pairs(snaps, 3.0))
+    for f in dataclasses.fields(whole):
+        if f.name != "selection":
+            np.testing.assert_array_equal(getattr(joined, f.name), getattr(whole, f.name))
+    # a pair outside the keys is refused, not dropped
+    with pytest.raises(ValueError, match="not among the keys"):
+        dyads.dyad_tally(snaps, neighbour_pairs(snaps, 3.0), keys=keys[1:])
 
 
 def test_distance_sums_are_exact_integers_of_the_fixed_point_unit():
@@ -488,7 +523,7 @@ def test_positions_beyond_any_distance_in_metres_are_refused():
     x = np.column_stack([np.zeros(n), np.full(n, 1e9)])
     snaps = grid_scene(x, np.zeros((n, 2)), np.zeros((n, 2), int), np.ones((n, 2), bool), 1)
     with pytest.raises(ValueError, match="not in metres"):
-        dyad_table(snaps, neighbour_pairs(snaps, 2.0))
+        dyad_table(snaps, neighbour_pairs(snaps, 2.0), ALL)
 
 
 @pytest.mark.parametrize("seed", range(5))

@@ -10,7 +10,13 @@ from hypothesis import strategies as st
 from scenes import SCENARIO_RUNS, gap_midpoints, grid_scene, random_walkers, run_scenario
 from scipy.spatial.distance import cdist
 
-from comove.groups.chain import chunk_dyads, chunk_episode_rows, chunk_timeline, group_chain
+from comove.groups.chain import (
+    chunk_dyads,
+    chunk_episode_rows,
+    chunk_timeline,
+    chunk_together_keys,
+    group_chain,
+)
 from comove.groups.dyads import dyad_rows, dyad_table, expected_distances
 from comove.groups.episodes import EpisodeParams, find_episodes
 from comove.groups.grouping import GroupParams, GroupTimeline
@@ -89,9 +95,13 @@ def chunked_episodes(snaps, grouping, episode_params, cuts):
 
 
 def chunked_dyads(snaps, radius, cuts, order="left"):
-    """The dyad table from the tallies of the chunks between ``cuts``, joined in ``order``."""
-    edges = [0, *cuts, snaps.n_snapshots]
-    parts = [chunk_dyads(snaps, a, b, radius) for a, b in zip(edges[:-1], edges[1:], strict=True)]
+    """The dyad table from the tallies of the chunks between ``cuts``, joined in ``order``.
+
+    Two passes, as a streaming run makes them: the pairs ever together, then their counts.
+    """
+    edges = list(zip([0, *cuts], [*cuts, snaps.n_snapshots], strict=True))
+    keys = np.unique(np.concatenate([chunk_together_keys(snaps, a, b, radius) for a, b in edges]))
+    parts = [chunk_dyads(snaps, a, b, radius, keys) for a, b in edges]
     while len(parts) > 1:  # "left": a running total; "tree": neighbours pairwise, as a reduction
         if order == "left":
             parts = [parts[0].then(parts[1]), *parts[2:]]
@@ -132,7 +142,7 @@ def scenario_groups(request):
     truth, result = run_scenario(request.param, permutations=0)
     options = dict(preset_values(SCENARIO_RUNS[request.param][0]),
                    radius=truth["parameters"]["radius"])  # fmt: skip
-    _, _, _, grouping, episode_params, _, _ = split_options(GROUP_STAGES, options)
+    _, _, _, grouping, episode_params, _, _, _ = split_options(GROUP_STAGES, options)
     return result.snapshots, grouping, episode_params
 
 
@@ -234,3 +244,21 @@ def test_episode_role_sets_equal_a_loop_over_members_fixes(seed, data):
     cuts = sorted(set(data.draw(st.lists(st.integers(1, n_snap - 1), max_size=6))))
     table, _ = chunked_table(snaps, gp, tally, cuts)
     assert table["roles"].tolist() == expected
+
+
+def test_chunks_of_one_snapshot_each_give_the_whole_dyads_and_table():
+    rng = np.random.default_rng(11)
+    n_snap, n_obj = 30, 14
+    x, y, _ = random_walkers(rng, n_obj, n_snap)
+    present = rng.random((n_snap, n_obj)) < 0.8
+    present[0] = True
+    snaps = grid_scene(x, y, np.zeros((n_snap, n_obj), int), present, 1)
+    gp = GroupParams(radius=1.5, max_heading=None, max_speed_ratio=None)
+    cuts = list(range(1, n_snap))
+    whole = dyad_table(snaps, neighbour_pairs(snaps, gp.radius))
+    assert len(whole) > 20
+    assert_same_dyads(chunked_dyads(snaps, gp.radius, cuts, "tree"), whole)
+    tally = group_chain(snaps, gp, EpisodeParams(min_duration=2.0))
+    assert tally.episodes.n_episodes > 0
+    assert_same_table(chunked_table(snaps, gp, tally, cuts),
+                      episode_table(snaps, tally.episodes, tally.motion, gp.min_speed))  # fmt: skip

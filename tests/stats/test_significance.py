@@ -215,8 +215,11 @@ def test_nothing_to_test_gives_empty_tables_not_errors(tmp_path):
     mined = mine(frame, radius=2.0, permutations=9, seed=1)
     assert mined.patterns.empty and mined.tests.empty
     found = groups(frame, radius=2.0, permutations=9, seed=1)
-    assert found.episodes.empty and len(found.dyads) == 3
-    assert (found.dyads["p_value"] == 1.0).all()  # never together, nor in any replicate
+    assert found.episodes.empty and found.dyads.empty  # no pair ever together
+    assert "p_value" in found.dyads.columns
+    listed = groups(frame, radius=2.0, permutations=9, seed=1, dyad_pairs="co-present")
+    assert len(listed.dyads) == 3
+    assert (listed.dyads["p_value"] == 1.0).all()  # never together, nor in any replicate
     mined.write(tmp_path / "r")
     found.write(tmp_path / "r", merge=True)
 
