@@ -28,7 +28,9 @@ and the scheme runs per span rather than per snapshot.
 
 from __future__ import annotations
 
+from collections.abc import Iterator
 from dataclasses import dataclass, field
+from itertools import chain
 
 import numpy as np
 
@@ -667,14 +669,33 @@ def _prune_dominated(cands: dict[int, list]) -> dict[int, list]:
     return kept
 
 
-def _containment(members: list[frozenset], n_obj: int, block: int = 2048):
-    """Yield (rows, counts) blocks: counts[r, j] = |members[rows[r]] & members[j]|."""
-    matrix = np.zeros((len(members), n_obj), dtype=np.float32)
-    for k, m in enumerate(members):  # per episode
-        matrix[k, list(m)] = 1.0
-    for lo in range(0, len(members), block):  # bounded memory: block x n rows at a time
-        rows = np.arange(lo, min(lo + block, len(members)))
-        yield rows, matrix[rows] @ matrix.T
+def _overlaps(
+    members: list[frozenset], n_obj: int, block: int = 4096
+) -> Iterator[tuple[np.ndarray, np.ndarray, np.ndarray]]:
+    """Yield (i, j, common) for the pairs of sets that share members: ``|members[i] & members[j]|``.
+
+    A sparse (sets x objects) incidence matrix times its transpose, a block
+    of rows at a time: memory follows the number of overlapping pairs, never
+    sets x objects or sets x sets. Each block is sorted by i, then j.
+    """
+    from scipy.sparse import csr_matrix
+
+    indptr = np.concatenate([[0], np.cumsum([len(m) for m in members])])
+    indices = np.fromiter(chain.from_iterable(members), dtype=np.int64, count=int(indptr[-1]))
+    incidence = csr_matrix(
+        (np.ones(indices.size, dtype=np.int32), indices, indptr), shape=(len(members), n_obj)
+    )
+    by_object = incidence.T.tocsr()
+    for lo in range(0, len(members), block):  # bounded memory: a block of rows at a time
+        common = (incidence[lo : lo + block] @ by_object).tocoo()
+        order = np.lexsort((common.col, common.row))
+        yield common.row[order] + lo, common.col[order].astype(np.int64), common.data[order]
+
+
+def _lists(owner: np.ndarray, item: np.ndarray, n: int) -> list[list[int]]:
+    """Return for each owner 0..n-1 its items, given (owner, item) sorted by owner then item."""
+    cuts = np.cumsum(np.bincount(owner, minlength=n))[:-1]
+    return [part.tolist() for part in np.split(item, cuts)]
 
 
 def _maximal(closed: list[tuple[frozenset, int, int, int]], tol_snaps: int) -> Episodes:
@@ -691,25 +712,24 @@ def _maximal(closed: list[tuple[frozenset, int, int, int]], tol_snaps: int) -> E
     end = np.array([c[2] for c in closed])
     together = np.array([c[3] for c in closed])
     contained = np.zeros(len(closed), dtype=bool)
-    for rows, common in _containment(sets, n_obj):
+    for i, j, common in _overlaps(sets, n_obj):
         # another candidate holds all of its members over at least its whole span
-        inside = (common == size[rows, None]) & (start[None, :] <= start[rows, None])
-        inside &= end[None, :] >= end[rows, None]
-        inside[np.arange(rows.size), rows] = False  # not itself (duplicates were merged)
-        contained[rows] = inside.any(axis=1)
+        inside = (common == size[i]) & (start[j] <= start[i]) & (end[j] >= end[i]) & (i != j)
+        contained[i[inside]] = True  # i != j: not itself (duplicates were merged)
     keep = np.flatnonzero(~contained)
     sets = [sets[k] for k in keep]
     size, start, end, together = size[keep], start[keep], end[keep], together[keep]
-    came_from: list[list[int]] = []
-    went_into: list[list[int]] = []
-    for rows, common in _containment(sets, n_obj):
+    formed_pairs: list[tuple[np.ndarray, np.ndarray]] = []
+    broke_pairs: list[tuple[np.ndarray, np.ndarray]] = []
+    for e, f, common in _overlaps(sets, n_obj):
         # f is a smaller episode of members of e: common == |f| and |f| < |e|
-        sub = (common == size[None, :]) & (size[None, :] < size[rows, None])
-        formed = sub & (start[None, :] < start[rows, None])
-        formed &= start[rows, None] <= end[None, :] + 1 + tol_snaps  # f ran when e formed
-        broke = sub & (start[None, :] <= end[rows, None]) & (end[rows, None] < end[None, :])
-        came_from += [np.flatnonzero(r).tolist() for r in formed]
-        went_into += [np.flatnonzero(r).tolist() for r in broke]
+        sub = (common == size[f]) & (size[f] < size[e])
+        formed = sub & (start[f] < start[e]) & (start[e] <= end[f] + 1 + tol_snaps)  # f ran then
+        broke = sub & (start[f] <= end[e]) & (end[e] < end[f])
+        formed_pairs.append((e[formed], f[formed]))
+        broke_pairs.append((e[broke], f[broke]))
+    came_from = _lists(*(np.concatenate(c) for c in zip(*formed_pairs, strict=True)), len(sets))
+    went_into = _lists(*(np.concatenate(c) for c in zip(*broke_pairs, strict=True)), len(sets))
     return Episodes(
         members=[np.asarray(sorted(m), dtype=np.int64) for m in sets],
         start=start.astype(np.int64),
