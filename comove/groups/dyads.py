@@ -90,6 +90,14 @@ GRID_BYTES = 200_000_000
 #: memory (32 MB) whatever ``max_expected_pairs`` is.
 EXPECTED_BLOCK = 4_000_000
 
+#: Pairings of positions for the expected distances of all pairs together (about a
+#: second of ``cdist`` on one core): with more pairs than this allows at
+#: ``max_expected_pairs`` each, every pair gets ``EXPECTED_BUDGET // n_pairs``
+#: pairings, but never fewer than ``MIN_EXPECTED_PAIRS`` (sampling errors measured in
+#: docs/association.md).
+EXPECTED_BUDGET = 200_000_000
+MIN_EXPECTED_PAIRS = 2_500
+
 #: Objects up to which every co-present pair may be listed (an objects x objects table
 #: of 400 MB of booleans).
 MAX_CO_PRESENT_OBJECTS = 20_000
@@ -481,6 +489,17 @@ def _even_sample(n: int, m: int) -> np.ndarray:
     return (2 * np.arange(m, dtype=np.int64) + 1) * n // (2 * m)
 
 
+def expected_cap(n_pairs: int, max_expected_pairs: int) -> int:
+    """Return the pairings of positions used per pair for De when ``n_pairs`` pairs need it.
+
+    ``max_expected_pairs``, lowered so that all pairs together stay within
+    ``EXPECTED_BUDGET``, but not below ``MIN_EXPECTED_PAIRS`` (nor above the
+    setting).
+    """
+    shared = max(EXPECTED_BUDGET // max(int(n_pairs), 1), MIN_EXPECTED_PAIRS)
+    return int(min(int(max_expected_pairs), shared))
+
+
 def expected_distances(snaps: Snapshots, tally: DyadTally, max_expected_pairs: int) -> np.ndarray:
     """Return De, the mean distance over all pairings of a position of a with one of b.
 
@@ -492,7 +511,8 @@ def expected_distances(snaps: Snapshots, tally: DyadTally, max_expected_pairs: i
     tally : DyadTally
         The pairs (the whole run's tally).
     max_expected_pairs : int
-        Most pairings per pair; above it both tracks are thinned (module docstring).
+        Most pairings per pair; above it both tracks are thinned (module
+        docstring). With many pairs it is lowered (:func:`expected_cap`).
 
     Returns
     -------
@@ -502,7 +522,7 @@ def expected_distances(snaps: Snapshots, tally: DyadTally, max_expected_pairs: i
     a, b = tally.pairs()
     if a.size == 0:
         return np.zeros(0)
-    cap = int(max_expected_pairs)
+    cap = expected_cap(a.size, max_expected_pairs)
     # each object's entries stay in time order, so strata are stretches of time
     by_obj, start = snaps.object_order(), snaps.object_bounds()
     counts = np.diff(start)
@@ -614,7 +634,8 @@ def dyad_rows(
     expected : ndarray
         Expected distance De of each pair of the tally (see :func:`expected_distances`).
     max_expected_pairs : int
-        The subsampling cap De was computed with, kept in ``attrs``.
+        The cap De was computed with; ``attrs`` keeps the one used per pair
+        (:func:`expected_cap`).
 
     Returns
     -------
@@ -631,7 +652,8 @@ def dyad_rows(
             kind="stable",
         )
     table = table.reset_index(drop=True)
-    table.attrs.update(step_s=snaps.step_s, max_expected_pairs=int(max_expected_pairs))
+    cap = expected_cap(tally.key.size, max_expected_pairs)
+    table.attrs.update(step_s=snaps.step_s, max_expected_pairs=cap)
     return table
 
 
@@ -697,6 +719,9 @@ class DyadParams:
         are thinned evenly (module docstring). On a 90-minute match at 25 Hz
         this kept every pair's De within 0.5 % of the value from 4 000 000
         pairings (median 0.1 %); raise it for more precision at proportional cost.
+        With more than 3 200 pairs it is lowered so that all pairs together use
+        at most ``EXPECTED_BUDGET`` pairings, but never below
+        ``MIN_EXPECTED_PAIRS`` (:func:`expected_cap`; errors in docs/association.md).
     """
 
     dyad_pairs: str = field(

@@ -536,3 +536,26 @@ def test_most_frequent_roles_equal_the_argmax_of_the_dense_counts(seed: int):
     key = obj * n_roles + role
     found = most_frequent_roles(key, counts[obj, role], n_obj, n_roles)
     np.testing.assert_array_equal(found, counts.argmax(axis=1))
+
+
+def test_expected_cap_shares_a_budget_among_many_pairs():
+    assert dyads.expected_cap(253, 62_500) == 62_500  # a match: the setting
+    budget = dyads.EXPECTED_BUDGET
+    assert dyads.expected_cap(20_000, 62_500) == budget // 20_000
+    assert dyads.expected_cap(10**7, 62_500) == dyads.MIN_EXPECTED_PAIRS  # the floor
+    assert dyads.expected_cap(10**7, 100) == 100  # never above the setting
+
+
+def test_many_pairs_lower_each_pairs_sample_and_say_so(monkeypatch):
+    snaps = random_scene(3, n_obj=6, n_snap=120)
+    pairs = neighbour_pairs(snaps, 3.0)
+    full = dyad_table(snaps, pairs)
+    assert full.attrs["max_expected_pairs"] == 62_500
+    monkeypatch.setattr(dyads, "EXPECTED_BUDGET", 100)
+    monkeypatch.setattr(dyads, "MIN_EXPECTED_PAIRS", 25)
+    thinned = dyad_table(snaps, pairs)
+    assert thinned.attrs["max_expected_pairs"] == 25
+    assert not np.array_equal(thinned["expected_distance_m"], full["expected_distance_m"])
+    np.testing.assert_allclose(thinned["expected_distance_m"], full["expected_distance_m"],
+                               rtol=0.25)  # fmt: skip
+    pd.testing.assert_series_equal(thinned["mean_distance_m"], full["mean_distance_m"])
