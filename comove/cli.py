@@ -32,7 +32,7 @@ _COLLECTING = gc.isenabled()  # a program that imports this module keeps its own
 gc.disable()
 
 import comove  # noqa: E402
-from comove.errors import InputError  # noqa: E402
+from comove.errors import EngineError, InputError  # noqa: E402
 from comove.groups.presets import PRESETS  # noqa: E402
 from comove.io.results import CAUTION, Claim, claim  # noqa: E402
 from comove.io.runfile import load_run_file  # noqa: E402
@@ -105,6 +105,7 @@ def _add_stage_options(
                 default=None,
                 required=f.name in required,
                 metavar=f.name.upper(),
+                choices=f.metadata.get("choices"),
                 help=help_text,
             )
 
@@ -444,10 +445,11 @@ def _left(args: argparse.Namespace) -> str:
 def main(argv: list[str] | None = None) -> int:
     """Run the ``comove`` command and return its exit status.
 
-    Errors in the input are one line and exit status 2. SIGINT, SIGTERM and
-    SIGHUP stop the run with one line and exit status 128 + the signal's
-    number (130, 143, 129), after its worker processes, temporary folders and
-    lock are removed.
+    Errors in the input are one line and exit status 2; a run its engine could
+    not carry out (:class:`~comove.errors.EngineError`) is one line and exit
+    status 1. SIGINT, SIGTERM and SIGHUP stop the run with one line and exit
+    status 128 + the signal's number (130, 143, 129), after its worker
+    processes, temporary folders and lock are removed.
     """
     try:
         args = build_parser().parse_args(argv)
@@ -462,6 +464,9 @@ def main(argv: list[str] | None = None) -> int:
     except InputError as err:
         print(f"comove {args.command}: error: {err.worded_for('--')}", file=sys.stderr)
         return EXIT_INPUT
+    except EngineError as err:
+        print(f"comove {args.command}: error: {err}", file=sys.stderr)
+        return 1
     except KeyboardInterrupt:
         print(f"comove {args.command}: interrupted; {_left(args)}", file=sys.stderr)
         return 130

@@ -1,4 +1,4 @@
-"""The one exception type that carries a problem with the user's input."""
+"""The exceptions that carry a problem for users: with their input, or with the engine."""
 
 from __future__ import annotations
 
@@ -31,6 +31,15 @@ class InputError(Exception):
             flag = flag_prefix + self.setting.replace("_", "-")
             return flag + text[len(self.setting) :]
         return text
+
+
+class EngineError(Exception):
+    """A run that its engine could not carry out, explained in one line.
+
+    Not a problem with the input: the cluster that runs the tasks cannot (its
+    workers lack comove, or keep dying). The command line prints the message
+    without a traceback and exits with status 1; nothing was written.
+    """
 
 
 def bad_setting(setting: str, problem: str) -> InputError:

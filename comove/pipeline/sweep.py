@@ -228,7 +228,7 @@ def sweep(source: Any, *, progress: bool = False, **options: Any) -> SweepResult
         bar.close()
     grid = [(r, m) for m in params.min_participation for r in params.radius]
     shared = _SweepInputs(snaps, pairs, distance, persistence, params.max_size)
-    parts = run_params.engine().map(
+    parts = run_params.make_engine().map(
         _grid_point, grid, shared=shared, work_size=snaps.n_entries * len(grid),
         progress=progress, label="sweep",
     )  # fmt: skip

@@ -14,8 +14,9 @@ or their scheduling: that is each caller's part (seeds are drawn per task,
 never per worker), and the tests compare engines.
 
 :class:`LocalEngine` runs tasks in this process or in worker processes on
-this machine. A distributed engine is a second implementation of the same
-:class:`Engine` protocol.
+this machine; :class:`comove.stats.dask_engine.DaskEngine` runs them on a
+dask.distributed cluster, a second implementation of the same :class:`Engine`
+protocol. :meth:`RunParams.make_engine` chooses between them.
 """
 
 from __future__ import annotations
@@ -23,6 +24,7 @@ from __future__ import annotations
 import ctypes
 import multiprocessing
 import os
+import re
 import signal
 import sys
 from collections.abc import Callable, Sequence
@@ -240,20 +242,36 @@ class LocalEngine:
         return results
 
 
+#: The engines a run can use (``RunParams.engine``).
+ENGINES = ("local", "dask")
+
+
 @dataclass(frozen=True)
 class RunParams:
-    """How a run is carried out: how many workers, and the seed of what is random.
+    """How a run is carried out: which engine, how many workers, the seed of what is random.
 
     Parameters
     ----------
     jobs : int or None, default None
         Worker processes for independent tasks (null replicates, sweep grid
         points) and threads for the stages that use threads (neighbour
-        search, velocities); ``None`` uses every core.
+        search, velocities); ``None`` uses every core. With the dask engine
+        and no ``scheduler``, the worker processes of the local cluster.
     seed : int or None, default None
         Seed of everything random in the run (the null replicates); ``None``
         draws one, which is recorded in ``run.json`` so that the run can be
-        repeated. Results never depend on ``jobs``.
+        repeated. Results never depend on ``jobs``, ``engine`` or
+        ``scheduler``.
+    engine : {"local", "dask"}, default "local"
+        What runs the independent tasks: ``local``, this machine's processes
+        (:class:`LocalEngine`); ``dask``, a dask.distributed cluster
+        (:class:`comove.stats.dask_engine.DaskEngine`, needs the ``dask``
+        extra).
+    scheduler : str or None, default None
+        Address of a running dask scheduler (``tcp://host:8786``), for
+        ``engine="dask"`` only (given with the local engine it is refused, not
+        ignored); ``None`` with the dask engine starts a local cluster of
+        ``jobs`` worker processes.
     """
 
     jobs: int | None = field(
@@ -262,12 +280,40 @@ class RunParams:
                   "(neighbour search, velocities) (default: all cores)"},
     )  # fmt: skip
     seed: int | None = field(default=None, metadata={"help": "seed of the null replicates"})
+    engine: str = field(
+        default="local",
+        metadata={"help": "what runs null replicates and sweep grid points: local (this "
+                  "machine) or dask (a dask cluster; see docs/distributed.md)",
+                  "choices": ENGINES},
+    )  # fmt: skip
+    scheduler: str | None = field(
+        default=None,
+        metadata={"help": "address of a running dask scheduler, e.g. tcp://host:8786, for "
+                  "--engine dask (default: a cluster of --jobs processes on this machine)"},
+    )  # fmt: skip
 
     def __post_init__(self) -> None:
         if self.jobs is not None and (int(self.jobs) != self.jobs or self.jobs < 1):
             raise bad_setting("jobs", "must be a whole number of at least 1")
         if self.seed is not None and (int(self.seed) != self.seed or self.seed < 0):
             raise bad_setting("seed", "must be a whole number, 0 or more")
+        if self.engine not in ENGINES:
+            raise bad_setting("engine", f"must be one of {', '.join(ENGINES)}, not {self.engine!r}")
+        if self.scheduler is not None:
+            self._check_scheduler()
+        if self.engine == "dask":
+            from comove.stats.dask_engine import require_dask
+
+            require_dask()
+
+    def _check_scheduler(self) -> None:
+        """Refuse a scheduler address that is not one, or one given without the dask engine."""
+        text = self.scheduler
+        if not isinstance(text, str) or not _ADDRESS.fullmatch(text):
+            raise bad_setting("scheduler", f"must be an address like tcp://host:8786, not {text!r}")
+        if self.engine != "dask":
+            raise bad_setting("scheduler", "is the address of a dask scheduler; add --engine dask "
+                              "to use it, or leave it out to run on this machine")  # fmt: skip
 
     def resolved(self) -> RunParams:
         """Return these settings with a drawn seed in place of ``None``."""
@@ -275,11 +321,19 @@ class RunParams:
             return self
         return replace(self, seed=int(np.random.SeedSequence().generate_state(1)[0] >> 1))
 
-    def engine(self) -> LocalEngine:
+    def make_engine(self) -> Engine:
         """Return the engine that runs this run's independent tasks."""
+        if self.engine == "dask":
+            from comove.stats.dask_engine import DaskEngine
+
+            return DaskEngine(scheduler=self.scheduler, jobs=self.jobs)
         return LocalEngine(self.jobs)
 
     @property
     def threads(self) -> int:
         """Return the threads for threaded stages (-1: one per core)."""
         return self.jobs or -1
+
+
+#: A scheduler address: protocol://host:port, or host:port (dask then assumes tcp).
+_ADDRESS = re.compile(r"([a-z][a-z0-9+.-]*://)?(\[[0-9a-fA-F:.]+\]|[^\s:/\[\]]+):\d{1,5}")

@@ -259,7 +259,7 @@ def null_distribution(
     if run.seed is None:
         raise ValueError("resolve the seed first (RunParams.resolved)")
     seeds = np.random.SeedSequence(run.seed).spawn(n)
-    rows = run.engine().map(
+    rows = run.make_engine().map(
         _replicate, seeds, shared=(model, statistic), work_size=model.snaps.n_entries * n,
         progress=progress, label=label,
     )  # fmt: skip

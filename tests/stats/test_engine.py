@@ -3,11 +3,14 @@
 from __future__ import annotations
 
 import os
+import subprocess
+import sys
 
 import numpy as np
 import pytest
 
-from comove.stats.engine import IN_PROCESS_WORK, LocalEngine
+from comove.errors import InputError
+from comove.stats.engine import IN_PROCESS_WORK, LocalEngine, RunParams
 
 
 def _scaled_draw(shared, seed):
@@ -52,3 +55,51 @@ def test_a_failing_task_raises_its_error(jobs):
 
 def test_no_tasks_give_no_results():
     assert LocalEngine(jobs=2).map(_pid, []) == []
+
+
+def test_run_settings_choose_the_engine():
+    from comove.stats.dask_engine import DaskEngine
+
+    assert RunParams().make_engine() == LocalEngine(None)
+    assert RunParams(jobs=3, engine="dask").make_engine() == DaskEngine(scheduler=None, jobs=3)
+    given = RunParams(engine="dask", scheduler="tcp://10.0.0.5:8786").make_engine()
+    assert given == DaskEngine(scheduler="tcp://10.0.0.5:8786", jobs=None)
+
+
+@pytest.mark.parametrize(
+    ("settings", "flag", "words"),
+    [
+        ({"engine": "spark"}, "engine", "must be one of local, dask"),
+        ({"scheduler": "tcp://host:8786"}, "scheduler", "add --engine dask"),
+        ({"engine": "dask", "scheduler": "host"}, "scheduler", "must be an address like"),
+        ({"engine": "dask", "scheduler": "tcp://a b:1"}, "scheduler", "must be an address like"),
+    ],
+)
+def test_bad_engine_settings_are_named(settings, flag, words):
+    with pytest.raises(InputError) as caught:
+        RunParams(**settings)
+    assert caught.value.setting == flag and words in str(caught.value)
+
+
+@pytest.mark.parametrize("address", ["tcp://127.0.0.1:8786", "scheduler.lan:8786", "tls://[::1]:1"])
+def test_scheduler_addresses_are_taken(address):
+    assert RunParams(engine="dask", scheduler=address).scheduler == address
+
+
+def test_the_dask_engine_without_dask_says_what_to_install(monkeypatch):
+    import importlib.util
+
+    real = importlib.util.find_spec
+
+    def find_spec(name, *args):
+        return None if name == "distributed" else real(name, *args)
+
+    monkeypatch.setattr(importlib.util, "find_spec", find_spec)
+    with pytest.raises(InputError, match=r'pip install "comove\[dask\]"'):
+        RunParams(engine="dask")
+
+
+def test_importing_the_command_line_does_not_import_dask():
+    code = "import sys, comove.cli; print(sorted(m for m in sys.modules if 'dask' in m))"
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert done.stdout.strip() == "[]"
