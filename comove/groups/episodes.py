@@ -45,6 +45,13 @@ PRUNE_ABOVE = 64
 #: Spans with remembered "together" answers above which the stale ones are dropped.
 FORGET_ABOVE = 256
 
+#: Groups in a span above which a candidate is tested only against the groups that
+#: hold one of its members, found through an object -> group index of the span.
+INDEX_GROUPS_ABOVE = 16
+
+#: Spans whose object -> group index is kept (the current one and a few looked back at).
+OWNER_SPANS = 8
+
 # flags of a live candidate (see find_episodes)
 GAPPED = 1
 EXCUSED = 2
@@ -150,10 +157,31 @@ class _Timeline:
             self.presence_words = None
         # together(members, k) per span, kept while a later span may look back at it
         self._memo: dict[int, dict[int, bool]] = {}
+        # which group holds each object, for the last few spans asked (see groups_meeting)
+        self._owners: dict[int, dict[int, int]] = {}
 
     def groups(self, k: int) -> list[int]:
         """Return the member bitmasks of the groups of at least ``min_size`` in span k."""
         return self._masks[self._bounds[k] : self._bounds[k + 1]]
+
+    def groups_meeting(self, members: int, k: int) -> list[int]:
+        """Return the groups of span k that hold a member of ``members``, in group order.
+
+        With few groups in the span, all of them (testing each is cheaper than
+        looking members up); with more than ``INDEX_GROUPS_ABOVE``, those found
+        through each member's group, so that a fleet's thousands of groups are
+        not all tested against every candidate.
+        """
+        groups = self.groups(k)
+        if len(groups) <= INDEX_GROUPS_ABOVE:
+            return groups
+        owner = self._owners.get(k)
+        if owner is None:
+            if len(self._owners) >= OWNER_SPANS:  # the search looks back only a few spans
+                del self._owners[next(iter(self._owners))]
+            owner = self._owners[k] = {o: g for g, grp in enumerate(groups) for o in _bits(grp)}
+        found = {owner[o] for o in _bits(members) if o in owner}
+        return [groups[g] for g in sorted(found)]
 
     @property
     def n_spans(self) -> int:
@@ -192,7 +220,7 @@ class _Timeline:
         if known is not None:
             return known
         result = False
-        for grp in self.groups(k):
+        for grp in self.groups_meeting(members, k):
             common = members & grp
             if common.bit_count() < self.min_size:
                 continue
@@ -519,7 +547,7 @@ class _Search:
         nxt: dict[int, list[int]] = {}
         for members, record in live.items():
             parts = []
-            for grp in groups_k:
+            for grp in line.groups_meeting(members, k):
                 common = members & grp
                 if common == members:
                     break
@@ -657,15 +685,20 @@ def _prune_dominated(cands: dict[int, list]) -> dict[int, list]:
         return cands
     items = sorted(cands.items(), key=lambda kv: -kv[0].bit_count())
     kept: dict[int, list] = {}
+    # a candidate that holds another holds its lowest member: look only at those
+    holding: dict[int, list[tuple[int, list]]] = {}
     for members, record in items:
         start, seen = record[0], record[1]
+        low = (members & -members).bit_length() - 1
         if any(
             members != other and members & other == members and o[0] <= start
             and o[1] >= seen and not o[2]
-            for other, o in kept.items()
+            for other, o in holding.get(low, ())
         ):  # fmt: skip
             continue
         kept[members] = record
+        for m in _bits(members):
+            holding.setdefault(m, []).append((members, record))
     return kept
 
 

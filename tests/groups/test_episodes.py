@@ -278,9 +278,10 @@ def test_episodes_equal_a_brute_force_search_of_the_definition(
 @settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(scene=scenes, tol=st.integers(0, 3), p_present=st.sampled_from([1.0, 0.7]))
 def test_memory_bounds_of_the_search_do_not_change_its_episodes(scene, tol, p_present):
-    # the search drops dominated candidates when many are live and forgets old
-    # "together" answers when many are kept: with both bounds at zero (always on) the
-    # episodes are the brute-force search's, as with the defaults
+    # the search drops dominated candidates when many are live, forgets old "together"
+    # answers when many are kept, and looks groups up by member when a span has many:
+    # with all of them always on, the episodes are the brute-force search's, as with
+    # the defaults
     import comove.groups.episodes as ep
 
     rng, n_obj, n_snap = scene
@@ -292,12 +293,13 @@ def test_memory_bounds_of_the_search_do_not_change_its_episodes(scene, tol, p_pr
     groups_ = snapshot_groups(snaps, linked_pairs(neighbour_pairs(snaps, 1.5),
                                                   entry_motion(snaps), gp), gp)  # fmt: skip
     params = EpisodeParams(min_duration=2.0, tolerance=float(tol))
-    old = (ep.PRUNE_ABOVE, ep.FORGET_ABOVE)
-    ep.PRUNE_ABOVE, ep.FORGET_ABOVE = 0, 0
+    old = (ep.PRUNE_ABOVE, ep.FORGET_ABOVE, ep.INDEX_GROUPS_ABOVE, ep.OWNER_SPANS)
+    # also the object -> group index always on, with the fewest spans kept
+    ep.PRUNE_ABOVE, ep.FORGET_ABOVE, ep.INDEX_GROUPS_ABOVE, ep.OWNER_SPANS = 0, 0, 0, 1
     try:
         found = find_episodes(GroupTimeline.of(snaps, groups_), params)
     finally:
-        ep.PRUNE_ABOVE, ep.FORGET_ABOVE = old
+        ep.PRUNE_ABOVE, ep.FORGET_ABOVE, ep.INDEX_GROUPS_ABOVE, ep.OWNER_SPANS = old
     assert found_set(found) == brute_force_episodes(snaps, groups_, 2, 2, tol)
 
 
