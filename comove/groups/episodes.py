@@ -30,6 +30,7 @@ from __future__ import annotations
 
 from collections.abc import Iterator
 from dataclasses import dataclass, field
+from functools import lru_cache
 from itertools import chain
 
 import numpy as np
@@ -636,14 +637,20 @@ def _offer(
         held[2] |= GAPPED | UNSURE
 
 
-def _bits(mask: int) -> list[int]:
-    """Return the positions of the set bits of ``mask``, ascending."""
+@lru_cache(maxsize=1 << 16)
+def _bits(mask: int) -> tuple[int, ...]:
+    """Return the positions of the set bits of ``mask``, ascending.
+
+    Remembered for the most recent masks: live candidates and groups are asked
+    for again span after span, and with thousands of objects each step below
+    works on integers of thousands of bits.
+    """
     out = []
     while mask:
         low = mask & -mask
         out.append(low.bit_length() - 1)
         mask ^= low
-    return out
+    return tuple(out)
 
 
 def _group_masks(

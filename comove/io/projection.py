@@ -8,6 +8,8 @@ data.
 
 from __future__ import annotations
 
+import os
+from concurrent.futures import ThreadPoolExecutor
 from functools import lru_cache
 from typing import Any
 
@@ -119,7 +121,13 @@ def local_metric_crs(lon: np.ndarray, lat: np.ndarray) -> pyproj.CRS:
     )
 
 
-def to_metric(lon: np.ndarray, lat: np.ndarray, crs: pyproj.CRS) -> tuple[np.ndarray, np.ndarray]:
+#: Points per block when a projection runs on several threads.
+PROJECT_BLOCK = 1_000_000
+
+
+def to_metric(
+    lon: np.ndarray, lat: np.ndarray, crs: pyproj.CRS, workers: int = 1
+) -> tuple[np.ndarray, np.ndarray]:
     """Project WGS84 longitude/latitude into ``crs``.
 
     Parameters
@@ -128,14 +136,33 @@ def to_metric(lon: np.ndarray, lat: np.ndarray, crs: pyproj.CRS) -> tuple[np.nda
         WGS84 longitudes and latitudes in degrees.
     crs : pyproj.CRS
         Target CRS, usually from :func:`local_metric_crs`.
+    workers : int, default 1
+        Threads (-1: one per core). With more than one and more than
+        ``PROJECT_BLOCK`` points, blocks of points are projected on threads,
+        each with its own transformer (PROJ releases the interpreter lock while
+        it works); every point gets the same numbers either way.
 
     Returns
     -------
     x, y : numpy.ndarray
         Float64 easting and northing in the units of ``crs`` (metres for the local CRS).
     """
-    x, y = _transformer(_WGS84, _as_crs(crs)).transform(_as_float_array(lon), _as_float_array(lat))
-    return np.asarray(x, dtype=np.float64), np.asarray(y, dtype=np.float64)
+    lon, lat, target = _as_float_array(lon), _as_float_array(lat), _as_crs(crs)
+    threads = (os.cpu_count() or 1) if workers == -1 else max(1, int(workers))
+    if threads == 1 or lon.size <= PROJECT_BLOCK:
+        x, y = _transformer(_WGS84, target).transform(lon, lat)
+        return np.asarray(x, dtype=np.float64), np.asarray(y, dtype=np.float64)
+    x, y = np.empty(lon.size), np.empty(lon.size)
+
+    def block(lo: int) -> None:
+        hi = min(lo + PROJECT_BLOCK, lon.size)
+        # a transformer per block: one is not to be shared between threads
+        own = pyproj.Transformer.from_crs(_WGS84, target, always_xy=True)
+        x[lo:hi], y[lo:hi] = own.transform(lon[lo:hi], lat[lo:hi])
+
+    with ThreadPoolExecutor(max_workers=threads) as pool:
+        list(pool.map(block, range(0, lon.size, PROJECT_BLOCK)))
+    return x, y
 
 
 def to_lonlat(x: np.ndarray, y: np.ndarray, crs: pyproj.CRS) -> tuple[np.ndarray, np.ndarray]:

@@ -214,7 +214,7 @@ def mine(source: Any, *, progress: bool = False, **options: Any) -> MiningResult
     bar = _Progress(progress, total=7)
     digest = _digest_beside(source)
     try:
-        snaps, quality = _aligned(source, columns, cleaning, alignment, bar)
+        snaps, quality = _aligned(source, columns, cleaning, alignment, bar, run_params.threads)
         with bar.stage("co-location"):
             tally = role_chain(
                 snaps,
@@ -268,12 +268,13 @@ def _aligned(
     cleaning: CleanParams,
     alignment: AlignParams,
     bar: _Progress,
+    workers: int = 1,
 ) -> tuple[Snapshots, dict]:
     """Return the aligned snapshots of ``source`` and its quality report."""
     with bar.stage("reading"):
         raw = read_tracks(source, columns)
     with bar.stage("cleaning"):
-        fixes, quality = clean_fixes(raw, cleaning)
+        fixes, quality = clean_fixes(raw, cleaning, workers)
     with bar.stage("aligning"):
         snaps = align(fixes, alignment)
         quality["alignment"] = alignment_summary(snaps)
@@ -419,7 +420,7 @@ def groups(
     bar = _Progress(progress, total=6 if significance.permutations > 0 else 5)
     digest = _digest_beside(source)
     try:
-        snaps, quality = _aligned(source, columns, cleaning, alignment, bar)
+        snaps, quality = _aligned(source, columns, cleaning, alignment, bar, run_params.threads)
         with bar.stage("groups, episodes and dyads"):
             tally, table, centroids, dyads = _observed_groups(snaps, grouping, episode_params,
                                                               dyad_params, run_params)  # fmt: skip

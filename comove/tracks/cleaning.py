@@ -257,7 +257,9 @@ def _quantiles(values: np.ndarray, per: float = 1.0) -> dict[str, float | None]:
 # --------------------------------------------------------------------------- cleaning
 
 
-def clean_fixes(raw: RawTracks, params: CleanParams | None = None) -> tuple[Fixes, dict]:
+def clean_fixes(
+    raw: RawTracks, params: CleanParams | None = None, workers: int = 1
+) -> tuple[Fixes, dict]:
     """Parse times, drop unusable rows, and project the fixes into a metric plane.
 
     Parameters
@@ -266,6 +268,8 @@ def clean_fixes(raw: RawTracks, params: CleanParams | None = None) -> tuple[Fixe
         Fixes as read by :func:`comove.io.reading.read_tracks`.
     params : CleanParams, optional
         Cleaning options; by default no speed filter.
+    workers : int, default 1
+        Threads of the projection of longitude/latitude (-1: one per core).
 
     Returns
     -------
@@ -310,7 +314,7 @@ def clean_fixes(raw: RawTracks, params: CleanParams | None = None) -> tuple[Fixe
     frame = raw.frame.reset_index(drop=True)
     rows = _mark_invalid(raw, frame)
     kept = _resolve_duplicates(rows)
-    metric_crs, input_crs = _project(raw, rows, kept)
+    metric_crs, input_crs = _project(raw, rows, kept, workers)
     passes = _drop_speed_spikes(rows, kept, params.max_speed)
     dropped, examples = _drop_counts(raw, frame, rows.reason)
     if kept.rows.size == 0:
@@ -466,14 +470,16 @@ def _mark_duplicates(
     reason[valid[rest[conflict]]] = _CODE["conflicting_duplicate"]
 
 
-def _project(raw: RawTracks, rows: _Rows, kept: _Kept) -> tuple[pyproj.CRS | None, str | None]:
+def _project(
+    raw: RawTracks, rows: _Rows, kept: _Kept, workers: int = 1
+) -> tuple[pyproj.CRS | None, str | None]:
     """Set the kept rows' working-plane coordinates; return the working and the input CRS."""
     metric_crs: pyproj.CRS | None
     if rows.lon is not None:
         if kept.rows.size:
             lon, lat = kept.take(rows.lon), kept.take(rows.lat)
             metric_crs = local_metric_crs(lon, lat)
-            kept.x, kept.y = to_metric(lon, lat, metric_crs)
+            kept.x, kept.y = to_metric(lon, lat, metric_crs, workers)
         else:
             metric_crs, kept.x, kept.y = None, np.empty(0), np.empty(0)
         input_crs = "EPSG:4326" if raw.coords == "lonlat" else raw.crs

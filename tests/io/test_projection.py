@@ -138,3 +138,17 @@ def test_web_mercator_input_gives_true_distances() -> None:
     assert fixes.input_crs == "EPSG:3857"
     assert fixes.metric_crs is not None and _params(fixes.metric_crs)["proj"] == "aeqd"
     assert quality["coordinates"]["input"] == "crs"
+
+
+def test_projection_on_threads_gives_the_same_numbers(monkeypatch) -> None:
+    # blocks of points on several threads, each with its own transformer, against one pass
+    from comove.io import projection
+
+    rng = np.random.default_rng(2)
+    lon, lat = rng.uniform(9.5, 10.5, 5_000), rng.uniform(49.5, 50.5, 5_000)
+    crs = projection.local_metric_crs(lon, lat)
+    one = projection.to_metric(lon, lat, crs)
+    monkeypatch.setattr(projection, "PROJECT_BLOCK", 700)
+    threaded = projection.to_metric(lon, lat, crs, workers=3)
+    np.testing.assert_array_equal(threaded[0], one[0])
+    np.testing.assert_array_equal(threaded[1], one[1])
