@@ -51,11 +51,13 @@ BATCHES_PER_THREAD = 4
 
 #: A local cluster that prints nothing and takes no fixed port: no dashboard, and the
 #: scheduler's small HTTP server on a free port (on the usual 8787 it warns when a
-#: dashboard already runs there).
+#: dashboard already runs there). Its logs are silenced up to errors too: what goes
+#: wrong reaches the user as one line from this engine (a stopped run otherwise adds
+#: the scheduler's own report of the workers it lost).
 QUIET_CLUSTER: dict[str, Any] = {
     "dashboard_address": None,
     "scheduler_kwargs": {"dashboard_address": "127.0.0.1:0"},
-    "silence_logs": logging.ERROR,
+    "silence_logs": logging.CRITICAL,
 }
 
 #: What to install where, said by every message about a cluster's environment.

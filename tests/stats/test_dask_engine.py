@@ -137,9 +137,15 @@ def test_a_task_whose_worker_died_runs_again_elsewhere(tmp_path):
     assert ours() == before  # the cluster it started is closed
 
 
+# With two workers, which failure dask reports first depends on timing: the task's
+# retries running out, or the last worker holding the scattered inputs dying; both
+# are the engine's one line. With one worker the inputs always go with it.
+KEPT_DYING = "dask workers kept dying|every worker holding the run's inputs died"
+
+
 @pytest.mark.parametrize(
     ("jobs", "why"),
-    [(2, "dask workers kept dying"), (1, "every worker holding the run's inputs died")],
+    [(2, KEPT_DYING), (1, "every worker holding the run's inputs died")],
 )
 def test_workers_that_keep_dying_fail_in_one_line_and_leave_no_process(jobs, why):
     before = ours()
