@@ -58,9 +58,13 @@ def _longitude_centre(lon: np.ndarray) -> float:
     The interval is the circle minus its widest empty gap, so data straddling the
     antimeridian (e.g. 179.9 and -179.9) are centred on 180 rather than on 0.
     """
-    wrapped = np.sort(np.mod(lon + 180.0, 360.0) - 180.0)
-    if wrapped.size == 1:
-        return float(wrapped[0])
+    wrapped = np.mod(lon + 180.0, 360.0) - 180.0
+    low, high = float(wrapped.min()), float(wrapped.max())
+    if high - low <= 180.0:
+        # the gap across the antimeridian is then the widest (the others add up to
+        # less): the interval is [low, high], found without sorting every value
+        return float(np.mod(0.5 * (low + high) + 180.0, 360.0) - 180.0)
+    wrapped = np.sort(wrapped)
     gaps = np.diff(wrapped)
     wrap_gap = wrapped[0] + 360.0 - wrapped[-1]
     widest = int(np.argmax(gaps))

@@ -152,3 +152,18 @@ def test_projection_on_threads_gives_the_same_numbers(monkeypatch) -> None:
     threaded = projection.to_metric(lon, lat, crs, workers=3)
     np.testing.assert_array_equal(threaded[0], one[0])
     np.testing.assert_array_equal(threaded[1], one[1])
+
+
+@pytest.mark.parametrize("seed", range(8))
+def test_longitude_centre_is_the_middle_of_the_shortest_interval_holding_all(seed) -> None:
+    # reference: every point tried as the western end of the interval (brute force)
+    from comove.io.projection import _longitude_centre
+
+    rng = np.random.default_rng(seed)
+    spread = [5.0, 90.0, 179.0, 200.0, 300.0, 10.0, 120.0, 250.0][seed]
+    lon = rng.uniform(0, spread, 50) + rng.uniform(-180, 180)
+    lon = np.mod(lon + 180.0, 360.0) - 180.0
+    widths = [np.max(np.mod(lon - w, 360.0)) for w in lon]
+    west = lon[int(np.argmin(widths))]
+    expected = np.mod(west + min(widths) / 2 + 180.0, 360.0) - 180.0
+    assert _longitude_centre(lon) == pytest.approx(expected, abs=1e-9)
