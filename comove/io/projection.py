@@ -58,13 +58,24 @@ def _longitude_centre(lon: np.ndarray) -> float:
     The interval is the circle minus its widest empty gap, so data straddling the
     antimeridian (e.g. 179.9 and -179.9) are centred on 180 rather than on 0.
     """
-    wrapped = np.mod(lon + 180.0, 360.0) - 180.0
-    low, high = float(wrapped.min()), float(wrapped.max())
+
+    def wrap(v: np.ndarray) -> np.ndarray:
+        return np.mod(v + 180.0, 360.0) - 180.0
+
+    least, most = float(lon.min()), float(lon.max())
+    if -180.0 <= least and most < 180.0:
+        # wrapping is monotone on [-180, 180): the extremes wrap to the extremes, so
+        # only they are wrapped
+        low, high = float(wrap(np.array(least))), float(wrap(np.array(most)))
+        wrapped = None
+    else:
+        wrapped = wrap(lon)
+        low, high = float(wrapped.min()), float(wrapped.max())
     if high - low <= 180.0:
         # the gap across the antimeridian is then the widest (the others add up to
         # less): the interval is [low, high], found without sorting every value
         return float(np.mod(0.5 * (low + high) + 180.0, 360.0) - 180.0)
-    wrapped = np.sort(wrapped)
+    wrapped = np.sort(wrap(lon) if wrapped is None else wrapped)
     gaps = np.diff(wrapped)
     wrap_gap = wrapped[0] + 360.0 - wrapped[-1]
     widest = int(np.argmax(gaps))

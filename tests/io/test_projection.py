@@ -167,3 +167,5 @@ def test_longitude_centre_is_the_middle_of_the_shortest_interval_holding_all(see
     west = lon[int(np.argmin(widths))]
     expected = np.mod(west + min(widths) / 2 + 180.0, 360.0) - 180.0
     assert _longitude_centre(lon) == pytest.approx(expected, abs=1e-9)
+    # longitudes written 0..360 (or beyond) are wrapped first: the same centre
+    assert _longitude_centre(lon + 360.0) == pytest.approx(expected, abs=1e-9)
