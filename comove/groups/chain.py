@@ -29,7 +29,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from comove.groups.dyads import DyadTally, dyad_tally, together_keys
+from comove.groups.dyads import DyadTally, dyad_tally, pair_keys, together_keys
 from comove.groups.episodes import EpisodeParams, Episodes, find_episodes
 from comove.groups.grouping import (
     GroupParams,
@@ -71,10 +71,7 @@ class GroupTally:
         ``keys`` are ``object_a * n_objects + object_b`` (a < b); sparse: only
         pairs that were ever within the radius are counted, the others get 0.
         """
-        n_obj = np.int64(len(snaps.objects))
-        a = snaps.obj[self.pairs.i].astype(np.int64)
-        b = snaps.obj[self.pairs.j].astype(np.int64)
-        found = np.sort(np.minimum(a, b) * n_obj + np.maximum(a, b))
+        found = np.sort(pair_keys(snaps, self.pairs))
         start = np.searchsorted(found, keys, side="left")
         return (np.searchsorted(found, keys, side="right") - start).astype(np.float64)
 

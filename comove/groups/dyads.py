@@ -447,9 +447,8 @@ def dyad_tally(
         selection, key = "together", together_keys(snaps, together)
     else:
         raise bad_setting("dyad_pairs", f"must be one of {', '.join(PAIR_SELECTIONS)}")
-    a, b = key // max(n_obj, 1), key % max(n_obj, 1)
-    shared, high, low = _pair_sums(snaps, a, b)
-    x, longest, head, tail, first, last = _together_runs(snaps, together, a, b)
+    shared, high, low = _pair_sums(snaps, key // max(n_obj, 1), key % max(n_obj, 1))
+    x, longest, head, tail, first, last = _together_runs(snaps, together, key)
     role_key, role_count = snaps.role_counts()
     return DyadTally(
         first_index=snaps.first_index, n_snapshots=snaps.n_snapshots,
@@ -463,11 +462,16 @@ def dyad_tally(
     )  # fmt: skip
 
 
-def together_keys(snaps: Snapshots, together: NeighbourPairs) -> np.ndarray:
-    """Return the keys ``a * n_objects + b`` (a < b, sorted) of the pairs in ``together``."""
+def pair_keys(snaps: Snapshots, together: NeighbourPairs) -> np.ndarray:
+    """Return per pair of entries in ``together`` its objects' key ``a * n_objects + b``, a < b."""
     n_obj = np.int64(len(snaps.objects))
     oa, ob = snaps.obj[together.i].astype(np.int64), snaps.obj[together.j].astype(np.int64)
-    return np.unique(np.minimum(oa, ob) * n_obj + np.maximum(oa, ob))
+    return np.minimum(oa, ob) * n_obj + np.maximum(oa, ob)
+
+
+def together_keys(snaps: Snapshots, together: NeighbourPairs) -> np.ndarray:
+    """Return the keys ``a * n_objects + b`` (a < b, sorted) of the pairs in ``together``."""
+    return np.unique(pair_keys(snaps, together))
 
 
 def _subsample_sizes(n_a: np.ndarray, n_b: np.ndarray, cap: int) -> tuple[np.ndarray, np.ndarray]:
@@ -575,20 +579,17 @@ def _empty_table() -> pd.DataFrame:
 
 
 def _together_runs(
-    snaps: Snapshots, together: NeighbourPairs, a: np.ndarray, b: np.ndarray
+    snaps: Snapshots, together: NeighbourPairs, key: np.ndarray
 ) -> tuple[np.ndarray, ...]:
-    """Return per dyad row (pairs ``a`` < ``b``) the runs of snapshots together.
+    """Return per dyad row (the sorted pair keys ``key``) the runs of snapshots together.
 
     Returns (snapshots together, longest run, run from the first snapshot,
     run to the last snapshot, first and last snapshot together), from one
     sort of (row, snapshot) keys of the together pairs.
     """
-    n_obj = len(snaps.objects)
-    n_rows = a.size
-    # together pairs -> dyad rows; both ends are present, so the pair has a row
-    oa, ob = snaps.obj[together.i].astype(np.int64), snaps.obj[together.j].astype(np.int64)
-    pair_key = np.minimum(oa, ob) * n_obj + np.maximum(oa, ob)
-    row = np.searchsorted(a.astype(np.int64) * n_obj + b, pair_key)
+    n_rows = key.size
+    # together pairs -> dyad rows; every together pair's key is among ``key``
+    row = np.searchsorted(key, pair_keys(snaps, together))
     snap = snaps.snap[together.i]
     n_snap = max(snaps.n_snapshots, 1)
     if n_rows < 2**15 and np.all(snap[1:] >= snap[:-1]):
