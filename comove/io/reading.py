@@ -9,9 +9,12 @@ from __future__ import annotations
 
 import csv
 import glob
+import importlib
+import json
+import operator
 import os
 import sys
-from collections.abc import Iterable, Sequence
+from collections.abc import Iterable, Iterator, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -24,7 +27,7 @@ from pyproj.exceptions import CRSError
 from comove.errors import InputError
 from comove.io.projection import crs_to_lonlat, max_scale_error
 
-__all__ = ["ColumnSpec", "RawTracks", "read_tracks"]
+__all__ = ["ColumnSpec", "RawTracks", "read_blocks", "read_tracks"]
 
 # Preference order matters: the first name present wins.
 ID_NAMES = (
@@ -90,6 +93,31 @@ GEO_SUFFIXES = (".gpkg", ".geojson", ".json")
 _ALL_SUFFIXES = TEXT_SUFFIXES + PARQUET_SUFFIXES + GEO_SUFFIXES
 #: Compressions of text files, read transparently (``tracks.csv.gz``).
 COMPRESSION_SUFFIXES = {".gz": "gzip", ".bz2": "bz2", ".xz": "lzma"}
+#: Text cells read as missing values in text files (the defaults of ``pandas.read_csv``,
+#: written out so that whole and block-wise reading agree).
+NA_TEXT = (
+    "",
+    "#N/A",
+    "#N/A N/A",
+    "#NA",
+    "-1.#IND",
+    "-1.#QNAN",
+    "-NaN",
+    "-nan",
+    "1.#IND",
+    "1.#QNAN",
+    "<NA>",
+    "N/A",
+    "NA",
+    "NULL",
+    "NaN",
+    "None",
+    "n/a",
+    "nan",
+    "null",
+)
+#: Rows per block when the input is read in blocks.
+BLOCK_ROWS = 1_000_000
 
 
 def _kind_suffix(path: str) -> str:
@@ -106,8 +134,6 @@ def _open_text(path: str):
     module = COMPRESSION_SUFFIXES.get(Path(path).suffix.lower())
     if module is None:
         return open(path, encoding="utf-8-sig", errors="replace", newline="")
-    import importlib
-
     return importlib.import_module(module).open(
         path, "rt", encoding="utf-8-sig", errors="replace", newline=""
     )
@@ -232,6 +258,12 @@ class RawTracks:
         Whether missing roles are a reason to drop a row (copied from the column spec).
     time_unit : {None, "s", "ms"}
         Unit of numeric epoch times, ``None`` to detect it (copied from the column spec).
+    first_row : int
+        For a block of :func:`read_blocks`: the 0-based row within its source of the block's
+        first row; 0 for everything :func:`read_tracks` reads.
+    source_index : int
+        For a block of :func:`read_blocks`: the index into ``sources`` of the block's one
+        source; 0 for everything :func:`read_tracks` reads.
     """
 
     frame: pd.DataFrame
@@ -241,6 +273,8 @@ class RawTracks:
     columns: dict[str, str]
     role_required: bool = True
     time_unit: str | None = None
+    first_row: int = 0
+    source_index: int = 0
 
     def source_rows(self, where: np.ndarray) -> np.ndarray:
         """Return the 1-based data row within its source (header not counted) of frame rows."""
@@ -250,7 +284,7 @@ class RawTracks:
         codes = self.frame["source"].cat.codes.to_numpy()
         n_sources = len(self.frame["source"].cat.categories)
         first = np.searchsorted(codes, np.arange(n_sources))  # sources follow one another
-        return where - first[codes[where]] + 1
+        return where - first[codes[where]] + 1 + self.first_row
 
 
 @dataclass
@@ -344,6 +378,112 @@ def read_tracks(source: Any, columns: ColumnSpec | None = None) -> RawTracks:
     )
 
 
+def read_blocks(
+    source: Any, columns: ColumnSpec | None = None, rows: int = BLOCK_ROWS
+) -> Iterator[RawTracks]:
+    """Read fixes like :func:`read_tracks`, as consecutive blocks of at most ``rows`` rows.
+
+    The blocks' frames, one after another, hold the rows of
+    ``read_tracks(source, columns).frame`` in the same order and with the same values, so
+    that a caller can stream inputs much larger than memory.
+
+    Parameters
+    ----------
+    source : str, pathlib.Path, sequence of these, DataFrame, GeoDataFrame or trajectories
+        Anything :func:`read_tracks` reads.
+    columns : ColumnSpec, optional
+        Column names and options; by default every column is detected by its name.
+    rows : int, default BLOCK_ROWS
+        The most rows a block holds; at least 1.
+
+    Returns
+    -------
+    iterator of RawTracks
+        The blocks, read as they are asked for. Each holds rows of one source only; its
+        ``coords``, ``crs``, ``sources``, ``columns``, ``role_required`` and ``time_unit``
+        are those :func:`read_tracks` gives, its ``source_index`` names its source in
+        ``sources`` and its ``first_row`` is the 0-based row within that source of its first
+        row, so that :meth:`RawTracks.source_rows` tells rows within the source.
+
+    Raises
+    ------
+    InputError
+        For the inputs :func:`read_tracks` refuses, with the same messages. A missing file
+        or a pattern matching nothing is refused at once; a file's columns and contents only
+        when its blocks are reached, after the blocks of the files before it.
+    ValueError
+        If ``rows`` is less than 1.
+
+    Notes
+    -----
+    Memory is bounded by the block for CSV/TSV and other delimited text files, compressed
+    or not, which are streamed, and for Parquet and (WKB-encoded) GeoParquet files, which
+    are read in batches of only the columns needed. GeoPackage and GeoJSON files, GeoParquet
+    files with other geometry encodings, and in-memory inputs (DataFrame, GeoDataFrame,
+    trajectories) are read whole, or already are, and then cut into blocks: their memory is
+    not bounded by the block.
+
+    A file is opened only when the blocks of the files before it have been taken. Its
+    columns are bound once, from its header or schema, as :func:`read_tracks` binds them.
+    When a coordinate cell of a text file holds text, the rest of the file is read with
+    coordinates as text and converted to numbers, bad cells becoming NaN, as
+    :func:`read_tracks` does. Point geometries of a GeoParquet file read in batches in a
+    projected CRS in metres are taken as planar metres or not from the points of its first
+    block, where :func:`read_tracks` samples the whole file.
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> frame = pd.DataFrame({"player": [7, 7, 9], "t": [0.0, 0.04, 0.0],
+    ...                       "x": [1.0, 1.5, 20.0], "y": [2.0, 2.0, 5.0],
+    ...                       "position": ["back", "back", "wing"]})
+    >>> blocks = list(read_blocks(frame, rows=2))
+    >>> [(len(block.frame), block.first_row) for block in blocks]
+    [(2, 0), (1, 2)]
+    >>> blocks[1].frame
+      object  time     x    y  role       source
+    0      9   0.0  20.0  5.0  wing  <DataFrame>
+    >>> blocks[1].source_rows([0])
+    array([3])
+    """
+    spec = columns if columns is not None else ColumnSpec()
+    rows = operator.index(rows)
+    if rows < 1:
+        raise ValueError(f"rows must be at least 1, not {rows}")
+    # Paths are checked now; the files themselves are read as the blocks are asked for.
+    return _blocks(_tables(source), spec, rows)
+
+
+def _blocks(tables: list[_Table], spec: ColumnSpec, rows: int) -> Iterator[RawTracks]:
+    """Yield the blocks of the tables one after another, checking them as read_tracks does."""
+    sources = [t.resolved for t in tables]
+    first: _Part | None = None
+    reference: tuple[_Table, dict[str, str]] | None = None
+    for index, table in enumerate(tables):
+        first_row = 0
+        for part, mapping in _source_blocks(table, spec, reference, rows):
+            if first is None:
+                first, reference = part, (table, mapping)
+            elif first_row == 0:
+                _check_same_coords(table, part, tables[0], first)
+            frame = part.frame
+            frame["source"] = pd.Categorical.from_codes(
+                np.zeros(len(frame), dtype=np.int64), categories=[table.name]
+            )
+            yield RawTracks(
+                frame=frame,
+                coords=first.coords,
+                crs=first.crs,
+                sources=list(sources),
+                columns=dict(first.columns),
+                role_required=spec.require_role,
+                time_unit=spec.time_unit,
+                first_row=first_row,
+                source_index=index,
+            )
+            first_row += len(frame)
+
+
 def _standardise_all(tables: list[_Table], spec: ColumnSpec) -> list[_Part]:
     """Standardise each table; later files must have the first one's columns and coordinates."""
     parts: list[_Part] = []
@@ -353,15 +493,19 @@ def _standardise_all(tables: list[_Table], spec: ColumnSpec) -> list[_Part]:
         if reference is None:
             reference = (table, mapping)
         else:
-            first = parts[0]
-            if (part.coords, part.crs) != (first.coords, first.crs):
-                raise InputError(
-                    f"{table.name}: coordinates are {_describe_coords(part.coords, part.crs)} "
-                    f"but {tables[0].name} has {_describe_coords(first.coords, first.crs)}; "
-                    "convert the files to one coordinate system"
-                )
+            _check_same_coords(table, part, tables[0], parts[0])
         parts.append(part)
     return parts
+
+
+def _check_same_coords(table: _Table, part: _Part, first_table: _Table, first: _Part) -> None:
+    """Refuse a later table whose coordinates differ in kind or CRS from the first table's."""
+    if (part.coords, part.crs) != (first.coords, first.crs):
+        raise InputError(
+            f"{table.name}: coordinates are {_describe_coords(part.coords, part.crs)} "
+            f"but {first_table.name} has {_describe_coords(first.coords, first.crs)}; "
+            "convert the files to one coordinate system"
+        )
 
 
 # --------------------------------------------------------------------------- sources
@@ -617,9 +761,15 @@ def _text_layout(path: str, name: str) -> tuple[str, list[str]]:
     return sep, names
 
 
-def _read_text(table: _Table, spec: ColumnSpec, reference: Any) -> tuple[pd.DataFrame, dict]:
-    path = table.name
-    sep, cols = _text_layout(path, table.name)
+def _text_columns(
+    table: _Table, spec: ColumnSpec, reference: tuple[_Table, dict[str, str]] | None
+) -> tuple[str, dict[str, str], dict[str, str], str]:
+    """Return a text file's delimiter, column binding, types of the columns to read and kind.
+
+    The types map each column to read to ``"str"`` (ids, times, roles) or ``"float64"``
+    (coordinates); the kind names the format in messages.
+    """
+    sep, cols = _text_layout(table.name, table.name)
     mapping = (
         _check_same_columns(table, cols, reference)
         if reference is not None
@@ -630,16 +780,29 @@ def _read_text(table: _Table, spec: ColumnSpec, reference: Any) -> tuple[pd.Data
     # Ids, roles and times stay text: "007" keeps its zeros and cleaning can see time zones.
     dtype = {c: ("str" if c in text_fields else "float64") for c in usecols}
     kind = {",": "CSV", "\t": "TSV"}.get(sep, "delimited text")
+    return sep, mapping, dtype, kind
+
+
+def _read_text(table: _Table, spec: ColumnSpec, reference: Any) -> tuple[pd.DataFrame, dict]:
+    path = table.name
+    sep, mapping, dtype, kind = _text_columns(table, spec, reference)
+    usecols = list(dtype)
+    options: dict[str, Any] = {
+        "engine": "pyarrow",
+        "sep": sep,
+        "usecols": usecols,
+        "na_values": list(NA_TEXT),
+        "keep_default_na": False,
+    }
     try:
         try:
-            data = pd.read_csv(path, engine="pyarrow", sep=sep, usecols=usecols, dtype=dtype)
+            data = pd.read_csv(path, dtype=dtype, **options)
         except ValueError as exc:
             if "convert" not in str(exc):
                 raise
             # A coordinate column holds some text; read it as text and let the numeric
             # conversion turn the bad cells into NaN, which cleaning counts.
-            dtype = dict.fromkeys(usecols, "str")
-            data = pd.read_csv(path, engine="pyarrow", sep=sep, usecols=usecols, dtype=dtype)
+            data = pd.read_csv(path, dtype=dict.fromkeys(usecols, "str"), **options)
     except InputError:
         raise
     except Exception as exc:  # noqa: BLE001 - any reader failure is a bad file to the user
@@ -704,6 +867,278 @@ def _read_table(table: _Table) -> _Table:
     return _Table(table.name, table.resolved, data, geometry=True)
 
 
+# --------------------------------------------------------------------------- reading in blocks
+
+# pyarrow's message when a cell cannot be read as a coordinate (a float64 column)
+_NOT_A_NUMBER = "conversion error to double"
+
+
+def _source_blocks(
+    table: _Table, spec: ColumnSpec, reference: tuple[_Table, dict[str, str]] | None, rows: int
+) -> Iterator[tuple[_Part, dict[str, str]]]:
+    """Yield one table's standard blocks of at most ``rows`` rows, each with the binding."""
+    if table.is_file:
+        suffix = _file_kind(table.name)
+        stream: _Stream | None = None
+        if suffix in TEXT_SUFFIXES:
+            stream = _text_stream(table, spec, reference, rows)
+        elif suffix in PARQUET_SUFFIXES:
+            stream = _parquet_stream(table, spec, reference, rows)
+        if stream is not None:
+            yield from _stream_blocks(stream, spec)
+            return
+    # Read whole (or in memory already): standardise at once, then cut.
+    part, mapping = _standardise(table, spec, reference)
+    for start in range(0, len(part.frame), rows):
+        block = part.frame.iloc[start : start + rows].reset_index(drop=True)
+        yield _Part(block, part.coords, part.crs, part.columns), mapping
+
+
+@dataclass
+class _Stream:
+    """A file opened for reading in blocks: its binding and its blocks of input columns."""
+
+    table: _Table  # name and resolved path of the file
+    mapping: dict[str, str]
+    geometry_col: str | None  # column of the point geometries, if the file has them
+    chunks: Iterator[pd.DataFrame]
+
+
+def _stream_blocks(stream: _Stream, spec: ColumnSpec) -> Iterator[tuple[_Part, dict[str, str]]]:
+    """Standardise a streamed file's blocks; the first block decides the kind of coordinates."""
+    table = stream.table
+    decided: tuple[str, str | None] | None = None
+    report: dict[str, str] | None = None
+    first_row = 0
+    for data in stream.chunks:
+        data = _str_columns(data)
+        block = _Table(table.name, table.resolved, data, geometry=stream.geometry_col is not None)
+        frame, coords, crs = _standard_frame(
+            block, data, stream.mapping, spec, decided=decided, first_row=first_row
+        )
+        if report is None:
+            decided = (coords, crs)
+            report = _columns_report(block, data, stream.mapping, coords, stream.geometry_col)
+        yield _Part(frame, coords, crs, report), stream.mapping
+        first_row += len(data)
+    if report is None:
+        raise _no_rows(table.name)
+
+
+def _rebatch(batches: Iterable[Any], rows: int) -> Iterator[Any]:
+    """Regroup Arrow record batches into tables of ``rows`` rows (the last may hold fewer)."""
+    import pyarrow as pa
+
+    pending: list[Any] = []
+    count = 0
+    for batch in batches:
+        while batch.num_rows:
+            take = min(rows - count, batch.num_rows)
+            pending.append(batch.slice(0, take))
+            count += take
+            batch = batch.slice(take)
+            if count == rows:
+                yield pa.Table.from_batches(pending)
+                pending, count = [], 0
+    if count:
+        yield pa.Table.from_batches(pending)
+
+
+def _text_stream(
+    table: _Table, spec: ColumnSpec, reference: tuple[_Table, dict[str, str]] | None, rows: int
+) -> _Stream:
+    """Bind a text file's columns from its header and open it for streaming."""
+    sep, mapping, dtype, kind = _text_columns(table, spec, reference)
+    batches = _text_batches(table.name, sep, dtype, kind)
+    chunks = (t.to_pandas(split_blocks=True) for t in _rebatch(batches, rows))
+    return _Stream(table, mapping, None, chunks)
+
+
+def _text_batches(path: str, sep: str, dtype: dict[str, str], kind: str) -> Iterator[Any]:
+    """Yield a text file's columns ``dtype`` in record batches, typed as :func:`_read_text` does.
+
+    When a coordinate cell holds text, the file is read again with coordinates as text,
+    skipping the rows already given, and the rest is converted as the whole-file reader
+    converts it.
+    """
+    import pyarrow as pa
+
+    coords = [c for c, t in dtype.items() if t != "str"]
+    given = 0
+    as_text = False
+    while True:
+        try:
+            for batch in _csv_batches(path, sep, dtype, as_text=as_text, skip=given):
+                if as_text:
+                    batch = _numeric_columns(batch, coords)
+                given += batch.num_rows
+                yield batch
+            return
+        except pa.ArrowInvalid as exc:
+            if as_text or _NOT_A_NUMBER not in str(exc):
+                raise _read_error(path, kind, exc) from exc
+            as_text = True
+        except Exception as exc:  # noqa: BLE001 - any reader failure is a bad file to the user
+            raise _read_error(path, kind, exc) from exc
+
+
+def _csv_batches(
+    path: str, sep: str, dtype: dict[str, str], *, as_text: bool, skip: int
+) -> Iterator[Any]:
+    """Yield the record batches of a delimited text file, leaving out its first ``skip`` rows."""
+    import pyarrow as pa
+    import pyarrow.csv as pacsv
+
+    types = {
+        c: pa.large_string() if t == "str" or as_text else pa.float64() for c, t in dtype.items()
+    }
+    convert = pacsv.ConvertOptions(
+        include_columns=list(dtype),
+        column_types=types,
+        null_values=list(NA_TEXT),
+        strings_can_be_null=True,
+    )
+    with _open_binary(path) as stream:
+        reader = pacsv.open_csv(
+            stream, parse_options=pacsv.ParseOptions(delimiter=sep), convert_options=convert
+        )
+        for batch in reader:
+            if skip >= batch.num_rows:
+                skip -= batch.num_rows
+                continue
+            yield batch.slice(skip) if skip else batch
+            skip = 0
+
+
+def _numeric_columns(batch: Any, names: list[str]) -> Any:
+    """Return a record batch with its text columns ``names`` converted to float64."""
+    import pyarrow as pa
+
+    arrays = [
+        pa.array(_floats(column.to_pandas()), type=pa.float64()) if name in names else column
+        for name, column in zip(batch.schema.names, batch.columns, strict=True)
+    ]
+    return pa.RecordBatch.from_arrays(arrays, names=batch.schema.names)
+
+
+def _open_binary(path: str) -> Any:
+    """Open a possibly compressed file as a stream of its (decompressed) bytes."""
+    import pyarrow as pa
+
+    module = COMPRESSION_SUFFIXES.get(Path(path).suffix.lower())
+    if module is None:
+        return pa.input_stream(path, compression=None)
+    if module in ("gzip", "bz2") and pa.Codec.is_available(module):
+        return pa.input_stream(path, compression=module)
+    return importlib.import_module(module).open(path, "rb")
+
+
+def _parquet_stream(
+    table: _Table, spec: ColumnSpec, reference: tuple[_Table, dict[str, str]] | None, rows: int
+) -> _Stream | None:
+    """Bind a Parquet file's columns from its schema and open it for reading in batches.
+
+    Returns ``None`` for a GeoParquet file whose geometries are not WKB, which is read whole.
+    """
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    name = table.name
+    try:
+        geo = _has_geo_metadata(name)
+        schema = pq.read_schema(name)
+        n_rows = pq.read_metadata(name).num_rows
+        # the columns, index and dtypes the whole-file reader gives, without the rows
+        view = _str_columns(schema.empty_table().to_pandas())
+        geometry_col = covering = crs = None
+        if geo:
+            meta = json.loads(schema.metadata[b"geo"])
+            geometry_col = str(meta["primary_column"])
+            column = meta["columns"][geometry_col]
+            if column.get("encoding") != "WKB":
+                return None
+            # no CRS given means longitude/latitude; an explicit null means none
+            crs = column["crs"] if "crs" in column else "OGC:CRS84"
+            covering = column.get("covering", {}).get("bbox", {}).get("xmin", [None])[0]
+    except Exception as exc:  # noqa: BLE001 - any reader failure is a bad file to the user
+        raise _read_error(name, "Parquet", exc) from exc
+    if n_rows == 0:
+        raise _no_rows(name)
+    hidden = {geometry_col, covering, _OBJ_COL, _TIME_COL}
+    visible = [c for c in view.columns if c not in hidden]
+    bound = _Table(name, table.resolved, view, geometry=geo)
+    time_index = isinstance(view.index, pd.DatetimeIndex)
+    mapping = _bind_columns(bound, visible, spec, reference, time_index=time_index)
+
+    wanted = [c for c in dict.fromkeys(mapping.values()) if c != _INDEX]
+    if geometry_col is not None and "x" not in mapping and "lon" not in mapping:
+        wanted.append(geometry_col)
+    text = [
+        f.name for f in schema if pa.types.is_string(f.type) or pa.types.is_large_string(f.type)
+    ]
+    chunks = _parquet_chunks(
+        name,
+        wanted,
+        text,
+        rows,
+        with_index=mapping["time"] == _INDEX,
+        geometry_col=geometry_col,
+        crs=crs,
+    )
+    return _Stream(table, mapping, geometry_col, chunks)
+
+
+def _parquet_chunks(
+    name: str,
+    columns: list[str],
+    text: list[str],
+    rows: int,
+    *,
+    with_index: bool,
+    geometry_col: str | None,
+    crs: Any,
+) -> Iterator[pd.DataFrame]:
+    """Yield frames of ``rows`` rows of a Parquet file's ``columns`` (text as categoricals).
+
+    ``with_index`` also reads the columns that hold the frame's index; WKB geometries in
+    ``geometry_col`` become a GeoDataFrame's points in ``crs``.
+    """
+    import pyarrow.parquet as pq
+
+    try:
+        file = pq.ParquetFile(name, read_dictionary=text)
+    except Exception as exc:  # noqa: BLE001 - any reader failure is a bad file to the user
+        raise _read_error(name, "Parquet", exc) from exc
+    try:
+        batches = file.iter_batches(
+            batch_size=rows, columns=columns, use_pandas_metadata=with_index
+        )
+        tables = _rebatch(batches, rows)
+        while True:
+            try:
+                arrow = next(tables, None)
+                if arrow is None:
+                    return
+                data = _arrow_frame(arrow, geometry_col, crs)
+            except Exception as exc:  # noqa: BLE001 - any reader failure is a bad file
+                raise _read_error(name, "Parquet", exc) from exc
+            yield data
+    finally:
+        file.close()
+
+
+def _arrow_frame(arrow: Any, geometry_col: str | None, crs: Any) -> pd.DataFrame:
+    """Convert an Arrow table to a frame; WKB in ``geometry_col`` becomes point geometries."""
+    if geometry_col is None or geometry_col not in arrow.column_names:
+        return arrow.to_pandas(split_blocks=True)
+    import geopandas
+
+    attrs = arrow.drop_columns([geometry_col]).to_pandas(split_blocks=True)
+    wkb = np.asarray(arrow[geometry_col], dtype=object)
+    geometry = geopandas.GeoSeries.from_wkb(wkb, index=attrs.index, crs=crs)
+    return geopandas.GeoDataFrame(attrs, geometry=geometry)
+
+
 # --------------------------------------------------------------------------- standardising
 
 
@@ -718,10 +1153,9 @@ def _standardise(
     table, mapping = _load(table, spec, reference)
     data = table.data
     if len(data) == 0:
-        raise InputError(f"{table.name}: has no data rows; give a table with at least one fix")
-    cols = [str(c) for c in data.columns]
-    if not all(isinstance(c, str) for c in data.columns):
-        data = data.set_axis(cols, axis=1)
+        raise _no_rows(table.name)
+    data = _str_columns(data)
+    cols = list(data.columns)
     if table.geometry and not _has_geometry(data):
         # e.g. a GeoPackage attribute table: a plain table after all.
         table = _Table(table.name, table.resolved, pd.DataFrame(data), fixed=table.fixed)
@@ -735,6 +1169,28 @@ def _standardise(
     return _Part(frame, coords, crs, report), mapping
 
 
+def _no_rows(name: str) -> InputError:
+    return InputError(f"{name}: has no data rows; give a table with at least one fix")
+
+
+def _str_columns(data: pd.DataFrame) -> pd.DataFrame:
+    """Return ``data`` with its column labels as strings."""
+    if all(isinstance(c, str) for c in data.columns):
+        return data
+    return data.set_axis([str(c) for c in data.columns], axis=1)
+
+
+def _file_kind(name: str) -> str:
+    """Return the suffix naming a file's format, refusing formats that cannot be read."""
+    suffix = _kind_suffix(name)
+    if suffix not in _ALL_SUFFIXES:
+        raise InputError(
+            f"{name}: unknown file type {suffix or '(no extension)'!r}; use "
+            f"{', '.join(_ALL_SUFFIXES)} (text files may be compressed: .gz, .bz2, .xz)"
+        )
+    return suffix
+
+
 def _load(
     table: _Table, spec: ColumnSpec, reference: tuple[_Table, dict[str, str]] | None
 ) -> tuple[_Table, dict[str, str]]:
@@ -745,12 +1201,7 @@ def _load(
     """
     if not table.is_file:
         return table, {}
-    suffix = _kind_suffix(table.name)
-    if suffix not in _ALL_SUFFIXES:
-        raise InputError(
-            f"{table.name}: unknown file type {suffix or '(no extension)'!r}; use "
-            f"{', '.join(_ALL_SUFFIXES)} (text files may be compressed: .gz, .bz2, .xz)"
-        )
+    suffix = _file_kind(table.name)
     if suffix in TEXT_SUFFIXES:
         data, mapping = _read_text(table, spec, reference)
         return _Table(table.name, table.resolved, data), mapping
@@ -775,9 +1226,20 @@ def _bind_columns(
 
 
 def _standard_frame(
-    table: _Table, data: pd.DataFrame, mapping: dict[str, str], spec: ColumnSpec
+    table: _Table,
+    data: pd.DataFrame,
+    mapping: dict[str, str],
+    spec: ColumnSpec,
+    *,
+    decided: tuple[str, str | None] | None = None,
+    first_row: int = 0,
 ) -> tuple[pd.DataFrame, str, str | None]:
-    """Return the standard columns of ``data``, the kind of its coordinates and their CRS."""
+    """Return the standard columns of ``data``, the kind of its coordinates and their CRS.
+
+    ``data`` may be a block of a source whose first row is row ``first_row`` of the source
+    (for messages); ``decided`` is the kind and CRS of coordinates already decided for the
+    source's earlier blocks, which point geometries in a projected CRS keep.
+    """
     # .array keeps time zones and assigns by position whatever the input's index is.
     time_values = data.index if mapping["time"] == _INDEX else data[mapping["time"]]
     crs: str | None
@@ -787,7 +1249,7 @@ def _standard_frame(
         b = _floats(data[mapping[pair[1]]])
         coords, crs = _column_coords(table.name, spec, lonlat=pair[0] == "lon")
     else:
-        a, b, coords, crs = _geometry_coords(table, spec)
+        a, b, coords, crs = _geometry_coords(table, spec, decided=decided, first_row=first_row)
     a_name, b_name = ("lon", "lat") if coords == "lonlat" else ("x", "y")
     role = (
         _labels(data[mapping["role"]]).array
@@ -944,8 +1406,18 @@ def _column_coords(name: str, spec: ColumnSpec, *, lonlat: bool) -> tuple[str, s
 
 
 def _geometry_coords(
-    table: _Table, spec: ColumnSpec
+    table: _Table,
+    spec: ColumnSpec,
+    *,
+    decided: tuple[str, str | None] | None = None,
+    first_row: int = 0,
 ) -> tuple[np.ndarray, np.ndarray, str, str | None]:
+    """Return x, y, kind and CRS of the point geometries of ``table.data``.
+
+    A projected CRS in metres is used as the working plane when its scale error over a
+    sample of the points is small, unless ``decided`` already gives the kind and CRS.
+    ``first_row`` is the row within its source of the data's first row (for messages).
+    """
     import shapely
 
     data = table.data
@@ -957,8 +1429,8 @@ def _geometry_coords(
         first = int(np.flatnonzero(bad)[0])
         kind = shapely.GeometryType(int(kinds[first])).name.title()
         raise InputError(
-            f"{table.name}: row {first + 1} has a {kind} geometry, not a point; comove reads "
-            "point fixes — convert the features to points first"
+            f"{table.name}: row {first_row + first + 1} has a {kind} geometry, not a point; "
+            "comove reads point fixes — convert the features to points first"
         )
     x = np.full(len(geoms), np.nan)
     y = np.full(len(geoms), np.nan)
@@ -976,6 +1448,8 @@ def _geometry_coords(
     text = _crs_string(crs)
     metres = all(axis.unit_name in ("metre", "meter") for axis in crs.axis_info)
     if metres and crs.is_projected:
+        if decided is not None:
+            return x, y, *decided
         ok = np.flatnonzero(~missing)
         sample = ok[:: max(1, ok.size // 2000)]
         lon, lat = crs_to_lonlat(x[sample], y[sample], crs)
