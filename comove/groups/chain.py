@@ -177,6 +177,7 @@ def chunk_episode_rows(
     episodes: Episodes,
     grouping: GroupParams,
     workers: int = 1,
+    offset: int | None = None,
 ) -> EpisodeRows:
     """Return the episode-table rows of snapshots ``start`` to ``stop - 1`` of ``snaps``.
 
@@ -197,9 +198,13 @@ def chunk_episode_rows(
         Its velocity window and moving speed are used.
     workers : int, default 1
         Threads of the velocities (-1: every core).
+    offset : int, optional
+        The chunk's first snapshot counted from the run's first; ``start`` when
+        ``snaps`` is the whole run (the default), else the caller says.
     """
     chunk, motion = _chunk_motion(snaps, start, stop, grouping, workers)
-    return episode_rows(chunk, episodes, motion, grouping.min_speed, offset=max(int(start), 0))
+    offset = max(int(start), 0) if offset is None else int(offset)
+    return episode_rows(chunk, episodes, motion, grouping.min_speed, offset=offset)
 
 
 def _chunk_motion(

@@ -506,14 +506,100 @@ def expected_cap(n_pairs: int, max_expected_pairs: int) -> int:
     return int(min(int(max_expected_pairs), shared))
 
 
-def expected_distances(snaps: Snapshots, tally: DyadTally, max_expected_pairs: int) -> np.ndarray:
+class TrackSamples:
+    """The positions De reads: each object's entries at the ranks of its even samples.
+
+    De thins each track of a pair to an even sample of its entries in time
+    order (:func:`_even_sample` of the track's entry count); which ranks a
+    track needs depends only on the entry counts and the pairs. A run held in
+    memory reads them from its snapshots (:meth:`of`); a run over time
+    windows gathers them window by window (:meth:`needed`, :meth:`gather`,
+    :meth:`joined`), with the same positions.
+
+    Attributes
+    ----------
+    counts : ndarray of int64
+        Entries of each object in the whole run.
+    """
+
+    def __init__(self, counts: np.ndarray, snaps: Snapshots | None = None,
+                 keys: np.ndarray | None = None, xy: np.ndarray | None = None) -> None:  # fmt: skip
+        self.counts = np.asarray(counts, dtype=np.int64)
+        self._snaps, self._keys, self._xy = snaps, keys, xy
+        self._cache: dict[tuple[int, int], np.ndarray] = {}
+
+    @classmethod
+    def of(cls, snaps: Snapshots) -> TrackSamples:
+        """Return the samples of a run held in memory."""
+        return cls(np.diff(snaps.object_bounds()), snaps=snaps)
+
+    @staticmethod
+    def needed(
+        a: np.ndarray, b: np.ndarray, counts: np.ndarray, max_expected_pairs: int
+    ) -> np.ndarray:
+        """Return the ``object * 2**32 + rank`` keys of every entry De reads for pairs (a, b).
+
+        ``counts`` holds each object's entries in the whole run.
+        """
+        a, b = np.asarray(a, dtype=np.int64), np.asarray(b, dtype=np.int64)
+        if a.size == 0:
+            return np.zeros(0, dtype=np.int64)
+        counts = np.asarray(counts, dtype=np.int64)
+        m_a, m_b = _subsample_sizes(counts[a], counts[b], expected_cap(a.size, max_expected_pairs))
+        tracks = np.unique(np.concatenate([a * 2**32 + m_a, b * 2**32 + m_b]))
+        keys = [o * 2**32 + _even_sample(int(counts[o]), m)
+                for o, m in zip((tracks >> 32).tolist(), (tracks & (2**32 - 1)).tolist(),
+                                strict=True)]  # fmt: skip
+        return np.unique(np.concatenate(keys))
+
+    @staticmethod
+    def gather(snaps: Snapshots, before: np.ndarray, needed: np.ndarray) -> tuple[np.ndarray, ...]:
+        """Return the keys and positions of a window's needed entries.
+
+        ``before`` holds each object's entries in the windows before this one.
+        """
+        order = snaps.object_order()
+        obj = snaps.obj[order].astype(np.int64)
+        starts = snaps.object_bounds()[:-1]
+        rank = before[obj] + np.arange(obj.size) - starts[obj]
+        keys = obj * 2**32 + rank
+        hit = np.isin(keys, needed, assume_unique=True)
+        picked = order[hit]
+        return keys[hit], np.column_stack([snaps.x[picked], snaps.y[picked]])
+
+    @classmethod
+    def joined(cls, counts: np.ndarray, parts: list[tuple[np.ndarray, np.ndarray]]) -> TrackSamples:
+        """Return the samples gathered from every window (:meth:`gather`)."""
+        keys = np.concatenate([k for k, _ in parts]) if parts else np.zeros(0, np.int64)
+        xy = np.concatenate([p for _, p in parts]) if parts else np.zeros((0, 2))
+        order = np.argsort(keys, kind="stable")
+        return cls(counts, keys=keys[order], xy=xy[order])
+
+    def track(self, o: int, m: int) -> np.ndarray:
+        """Return the (m, 2) positions of object ``o``'s even sample of ``m`` entries."""
+        if (o, m) not in self._cache:
+            ranks = _even_sample(int(self.counts[o]), m)
+            if self._snaps is not None:
+                by_obj, start = self._snaps.object_order(), self._snaps.object_bounds()
+                picked = by_obj[start[o] : start[o + 1]][ranks]
+                xy = np.column_stack([self._snaps.x[picked], self._snaps.y[picked]])
+            else:
+                at = np.searchsorted(self._keys, o * 2**32 + ranks)
+                xy = self._xy[at]
+            self._cache[(o, m)] = xy
+        return self._cache[(o, m)]
+
+
+def expected_distances(
+    tracks: Snapshots | TrackSamples, tally: DyadTally, max_expected_pairs: int
+) -> np.ndarray:
     """Return De, the mean distance over all pairings of a position of a with one of b.
 
     Parameters
     ----------
-    snaps : Snapshots
-        The whole run: De pairs positions at any times, so it is not a sum
-        over chunks; the tracks are read once more after the chunks are tallied.
+    tracks : Snapshots or TrackSamples
+        The whole run (De pairs positions at any times, so it is not a sum over
+        chunks), or the samples of it De reads, gathered window by window.
     tally : DyadTally
         The pairs (the whole run's tally).
     max_expected_pairs : int
@@ -528,19 +614,10 @@ def expected_distances(snaps: Snapshots, tally: DyadTally, max_expected_pairs: i
     a, b = tally.pairs()
     if a.size == 0:
         return np.zeros(0)
+    samples = tracks if isinstance(tracks, TrackSamples) else TrackSamples.of(tracks)
     cap = expected_cap(a.size, max_expected_pairs)
-    # each object's entries stay in time order, so strata are stretches of time
-    by_obj, start = snaps.object_order(), snaps.object_bounds()
-    counts = np.diff(start)
-    cache: dict[tuple[int, int], np.ndarray] = {}
-
-    def track(o: int, m: int) -> np.ndarray:
-        if (o, m) not in cache:
-            entries = by_obj[start[o] : start[o + 1]]
-            picked = entries[_even_sample(entries.size, m)]
-            cache[(o, m)] = np.column_stack([snaps.x[picked], snaps.y[picked]])
-        return cache[(o, m)]
-
+    counts = samples.counts
+    track = samples.track
     m_a, m_b = _subsample_sizes(counts[a], counts[b], cap)
     total = np.zeros(a.size, dtype=np.float64)
     # pairs sharing a first track and its sample size: one cdist against the concatenated

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import os
 from concurrent.futures import ThreadPoolExecutor
+from dataclasses import dataclass
 from functools import lru_cache
 from typing import Any
 
@@ -20,9 +21,11 @@ from pyproj.exceptions import CRSError
 from comove.errors import InputError
 
 __all__ = [
+    "LonLatExtent",
     "crs_to_lonlat",
     "local_metric_crs",
     "max_scale_error",
+    "metric_crs_of",
     "to_lonlat",
     "to_metric",
 ]
@@ -52,41 +55,138 @@ def _as_float_array(values: np.ndarray | list[float] | float) -> np.ndarray:
     return np.asarray(values, dtype=np.float64)
 
 
-def _longitude_centre(lon: np.ndarray) -> float:
-    """Midpoint of the shortest longitude interval that holds every value.
+#: Width (degrees) of the longitude bins an extent keeps when its longitudes spread over
+#: more than half the circle (see :class:`LonLatExtent`).
+LONGITUDE_BIN_DEG = 0.1
+_N_BINS = int(round(360.0 / LONGITUDE_BIN_DEG))
 
-    The interval is the circle minus its widest empty gap, so data straddling the
-    antimeridian (e.g. 179.9 and -179.9) are centred on 180 rather than on 0.
+
+def _wrap(v: np.ndarray) -> np.ndarray:
+    return np.mod(v + 180.0, 360.0) - 180.0
+
+
+@dataclass(frozen=True)
+class LonLatExtent:
+    """Where longitude/latitude data lie, in a form that combines across parts of the data.
+
+    The working plane's centre (:func:`local_metric_crs`) depends only on this,
+    so the data can be read in blocks: the extents of the blocks, joined with
+    :meth:`then`, give the extent of the whole, exactly.
+
+    Attributes
+    ----------
+    lat_min, lat_max : float
+        Latitude bounds.
+    lon_low, lon_high : float
+        Bounds of the longitudes wrapped into [-180, 180).
+    bin_min, bin_max : ndarray or None
+        Per bin of ``LONGITUDE_BIN_DEG`` degrees of wrapped longitude, the least
+        and greatest value in it (inf / -inf when empty). Kept only when asked
+        for (:meth:`of` with ``bins=True``); :meth:`centre` needs them when the
+        longitudes spread over more than 180 degrees.
     """
 
-    def wrap(v: np.ndarray) -> np.ndarray:
-        return np.mod(v + 180.0, 360.0) - 180.0
+    lat_min: float
+    lat_max: float
+    lon_low: float
+    lon_high: float
+    bin_min: np.ndarray | None = None
+    bin_max: np.ndarray | None = None
 
-    least, most = float(lon.min()), float(lon.max())
-    if -180.0 <= least and most < 180.0:
-        # wrapping is monotone on [-180, 180): the extremes wrap to the extremes, so
-        # only they are wrapped
-        low, high = float(wrap(np.array(least))), float(wrap(np.array(most)))
-        wrapped = None
-    else:
-        wrapped = wrap(lon)
-        low, high = float(wrapped.min()), float(wrapped.max())
-    if high - low <= 180.0:
-        # the gap across the antimeridian is then the widest (the others add up to
-        # less): the interval is [low, high], found without sorting every value
-        return float(np.mod(0.5 * (low + high) + 180.0, 360.0) - 180.0)
-    wrapped = np.sort(wrap(lon) if wrapped is None else wrapped)
-    gaps = np.diff(wrapped)
-    wrap_gap = wrapped[0] + 360.0 - wrapped[-1]
-    widest = int(np.argmax(gaps))
-    if gaps[widest] > wrap_gap:
-        # The empty gap lies inside [-180, 180]: the occupied interval runs from just after
-        # it, eastwards across the antimeridian, to just before it.
-        west, east = wrapped[widest + 1], wrapped[widest] + 360.0
-    else:
-        west, east = wrapped[0], wrapped[-1]
-    centre = 0.5 * (west + east)
-    return float(np.mod(centre + 180.0, 360.0) - 180.0)
+    @classmethod
+    def of(cls, lon: np.ndarray, lat: np.ndarray, bins: bool = False) -> LonLatExtent:
+        """Return the extent of the finite lon/lat pairs; ``bins`` keeps the longitude bins."""
+        lon, lat = _as_float_array(lon).ravel(), _as_float_array(lat).ravel()
+        ok = np.isfinite(lon) & np.isfinite(lat)
+        if not ok.all():
+            lon, lat = lon[ok], lat[ok]
+        bin_min, bin_max = (
+            (np.full(_N_BINS, np.inf), np.full(_N_BINS, -np.inf)) if bins else (None, None)
+        )
+        if lon.size == 0:
+            return cls(np.inf, -np.inf, np.inf, -np.inf, bin_min, bin_max)
+        least, most = float(lon.min()), float(lon.max())
+        if -180.0 <= least and most < 180.0:
+            # wrapping is monotone on [-180, 180): only the extremes are wrapped
+            low, high = float(_wrap(np.array(least))), float(_wrap(np.array(most)))
+            wrapped = lon
+        else:
+            wrapped = _wrap(lon)
+            low, high = float(wrapped.min()), float(wrapped.max())
+        if bins:
+            index = ((wrapped + 180.0) / LONGITUDE_BIN_DEG).astype(np.intp)
+            np.minimum(index, _N_BINS - 1, out=index)
+            np.minimum.at(bin_min, index, wrapped)  # type: ignore[arg-type]
+            np.maximum.at(bin_max, index, wrapped)  # type: ignore[arg-type]
+        return cls(float(lat.min()), float(lat.max()), low, high, bin_min, bin_max)
+
+    @property
+    def empty(self) -> bool:
+        """Return whether no finite pair was seen."""
+        return not self.lat_min <= self.lat_max
+
+    @property
+    def needs_bins(self) -> bool:
+        """Return whether :meth:`centre` needs the longitude bins (a spread over 180 degrees)."""
+        return self.lon_high - self.lon_low > 180.0
+
+    def then(self, other: LonLatExtent) -> LonLatExtent:
+        """Return the extent of this part and ``other`` together (in either order)."""
+        bins = self.bin_min is not None and other.bin_min is not None
+        return LonLatExtent(
+            min(self.lat_min, other.lat_min), max(self.lat_max, other.lat_max),
+            min(self.lon_low, other.lon_low), max(self.lon_high, other.lon_high),
+            np.minimum(self.bin_min, other.bin_min) if bins else None,
+            np.maximum(self.bin_max, other.bin_max) if bins else None,
+        )  # fmt: skip
+
+    def centre(self) -> tuple[float, float]:
+        """Return (lon_0, lat_0), the centre of the data's shortest lon/lat box.
+
+        The longitude interval is the circle minus its widest empty gap, so data
+        straddling the antimeridian (e.g. 179.9 and -179.9) are centred on 180
+        rather than on 0. When the longitudes spread over 180 degrees or less,
+        the gap outside [low, high] is the widest (the others add up to less)
+        and the extremes decide. Otherwise the gaps are measured between
+        occupied bins: a gap within a bin is narrower than a bin, so this is
+        exact unless the data leave no gap as wide as one bin anywhere round the
+        circle; then the widest gap between bins is used.
+
+        Raises
+        ------
+        ValueError
+            When the extent is empty, or needs bins it does not have.
+        """
+        if self.empty:
+            raise ValueError("local_metric_crs needs at least one finite lon/lat pair")
+        lat_0 = 0.5 * (self.lat_min + self.lat_max)
+        if not self.needs_bins:
+            return float(_wrap(np.array(0.5 * (self.lon_low + self.lon_high)))), lat_0
+        if self.bin_min is None or self.bin_max is None:
+            raise ValueError("the longitudes spread over 180 degrees: the extent needs its bins")
+        used = np.flatnonzero(self.bin_min <= self.bin_max)
+        first, last = self.bin_min[used], self.bin_max[used]
+        gaps = first[1:] - last[:-1]
+        wrap_gap = first[0] + 360.0 - last[-1]
+        widest = int(np.argmax(gaps)) if gaps.size else 0
+        if gaps.size and gaps[widest] > wrap_gap:
+            # the empty gap lies inside [-180, 180): the occupied interval runs from just
+            # after it, eastwards across the antimeridian, to just before it
+            west, east = first[widest + 1], last[widest] + 360.0
+        else:
+            west, east = first[0], last[-1]
+        return float(_wrap(np.array(0.5 * (west + east)))), lat_0
+
+
+def metric_crs_of(extent: LonLatExtent) -> pyproj.CRS:
+    """Return the azimuthal equidistant CRS of :func:`local_metric_crs` for an extent."""
+    lon_c, lat_c = extent.centre()
+    # round() can return -0.0; adding 0.0 prints plain zeros so the CRS string reads naturally
+    lat_0 = round(lat_c, 7) + 0.0
+    lon_0 = round(lon_c, 7) + 0.0
+    return pyproj.CRS.from_proj4(
+        f"+proj=aeqd +lat_0={lat_0:.7f} +lon_0={lon_0:.7f} +datum=WGS84 +units=m +no_defs"
+    )
 
 
 def local_metric_crs(lon: np.ndarray, lat: np.ndarray) -> pyproj.CRS:
@@ -120,20 +220,10 @@ def local_metric_crs(lon: np.ndarray, lat: np.ndarray) -> pyproj.CRS:
     error grows as ``(d / R)**2 / 6`` with distance ``d`` from the centre (``R`` the Earth
     radius): under 2 ppm within 20 km, about 10 ppm at 50 km, about 0.1 % at 500 km.
     """
-    lon = _as_float_array(lon).ravel()
-    lat = _as_float_array(lat).ravel()
-    ok = np.isfinite(lon) & np.isfinite(lat)
-    if not ok.any():
-        raise ValueError("local_metric_crs needs at least one finite lon/lat pair")
-    lon, lat = lon[ok], lat[ok]
-    lat_0 = round(0.5 * (float(lat.min()) + float(lat.max())), 7)
-    lon_0 = round(_longitude_centre(lon), 7)
-    # round() can return -0.0; print plain zeros so the CRS string reads naturally.
-    lat_0 = lat_0 + 0.0
-    lon_0 = lon_0 + 0.0
-    return pyproj.CRS.from_proj4(
-        f"+proj=aeqd +lat_0={lat_0:.7f} +lon_0={lon_0:.7f} +datum=WGS84 +units=m +no_defs"
-    )
+    extent = LonLatExtent.of(lon, lat)
+    if extent.needs_bins:
+        extent = LonLatExtent.of(lon, lat, bins=True)
+    return metric_crs_of(extent)
 
 
 #: Points per block when a projection runs on several threads.

@@ -43,6 +43,7 @@ from comove.io.results import (
     parquet_writer,
     write_folder,
 )
+from comove.pipeline.windows import group_windows, mine_windows, windowed_tracks
 from comove.roles.chain import role_chain
 from comove.roles.colocation import ColocationParams
 from comove.roles.crossk import CrossKParams
@@ -55,20 +56,29 @@ from comove.stats.significance import (
     group_tests,
     pattern_tests,
 )
-from comove.tracks.alignment import AlignParams, Snapshots, align, alignment_summary, track_sample
+from comove.tracks.alignment import (
+    AlignParams,
+    Snapshots,
+    align,
+    alignment_summary,
+    fix_extents,
+    sample_every,
+    track_sample,
+)
 from comove.tracks.cleaning import CleanParams, clean_fixes
 from comove.tracks.neighbours import NeighbourPairs
+from comove.tracks.streaming import WindowParams, plan_windows
 
 #: The stage settings of ``mine``, in pipeline order.
 MINE_STAGES: tuple[type, ...] = (
     ColumnSpec, CleanParams, AlignParams, ColocationParams, PersistenceParams, SignificanceParams,
-    CrossKParams, RunParams,
+    CrossKParams, WindowParams, RunParams,
 )  # fmt: skip
 
 #: The stage settings of ``groups``, in pipeline order.
 GROUP_STAGES: tuple[type, ...] = (
     ColumnSpec, CleanParams, AlignParams, GroupParams, EpisodeParams, DyadParams,
-    SignificanceParams, RunParams,
+    SignificanceParams, WindowParams, RunParams,
 )  # fmt: skip
 
 
@@ -132,7 +142,8 @@ class MiningResult:
     run : dict
         Settings, versions and input digest (the content of ``run.json``).
     snapshots : Snapshots
-        The aligned tracks, for further analysis.
+        The aligned tracks, for further analysis. A run over time windows
+        keeps only their names, step and span (no entries).
     tests : DataFrame or None
         Monte Carlo tests of every role set with a prevalent snapshot (see
         :func:`comove.stats.significance.pattern_tests`); None when not run.
@@ -149,6 +160,7 @@ class MiningResult:
     snapshots: Snapshots = field(repr=False)
     tests: pd.DataFrame | None = None
     cross_k: pd.DataFrame | None = None
+    sample: Any = field(default=None, repr=False)
 
     def write(
         self, out_dir: str | os.PathLike[str], force: bool = False, merge: bool = False
@@ -161,7 +173,7 @@ class MiningResult:
         tested) when significance tests ran, and ``cross_k.csv`` when asked for.
         """
         files = {
-            "track_sample.parquet": parquet_writer(lambda: _sample(self.snapshots)),
+            "track_sample.parquet": parquet_writer(self.sample),
             "patterns.csv": csv_writer(self.patterns),
             "participation.csv": csv_writer(self.participation),
             "pi_series.parquet": parquet_writer(self.series),
@@ -207,42 +219,93 @@ def mine(source: Any, *, progress: bool = False, **options: Any) -> MiningResult
     [{'roles': 'dog;owner', 'time_prevalence': 1.0}]
     """
     stages = split_options(MINE_STAGES, options)
-    columns, cleaning, alignment, colocation, persistence, significance, k_params, run_params = (
-        stages
-    )
-    run_params = run_params.resolved()
+    columns, cleaning, alignment, colocation, persistence, significance, k_params = stages[:7]
+    window_params, run_params = stages[7], stages[8].resolved()
+    plan = _plan(source, columns, window_params, significance, k_params)
     bar = _Progress(progress, total=7)
     digest = _digest_beside(source)
     try:
-        snaps, quality = _aligned(source, columns, cleaning, alignment, bar, run_params.threads)
-        with bar.stage("co-location"):
-            tally = role_chain(
-                snaps,
-                colocation,
-                min_prevalent_snapshots=persistence.min_prevalent_snapshots(snaps.step_s),
-                workers=run_params.threads,
-            )
-        with bar.stage("persistence"):
-            tables = durable_patterns(tally, persistence, colocation.min_participation)
-        tests = None
-        patterns = tables.patterns
-        if significance.permutations > 0:
-            with bar.stage("significance"):
-                tests = pattern_tests(snaps, tally, colocation, significance, run_params, progress)
-                patterns = patterns.merge(
-                    tests[["roles", *TEST_COLUMNS]], on="roles", how="left", validate="1:1"
+        if plan is not None:
+            patterns, tables, snaps, quality, sample = _mine_windows(
+                source, stages, plan, run_params, progress)  # fmt: skip
+            tests = cross = None
+        else:
+            snaps, quality, sample = _aligned(source, columns, cleaning, alignment, bar,
+                                              run_params.threads)  # fmt: skip
+            with bar.stage("co-location"):
+                tally = role_chain(
+                    snaps,
+                    colocation,
+                    min_prevalent_snapshots=persistence.min_prevalent_snapshots(snaps.step_s),
+                    workers=run_params.threads,
                 )
-        cross = None
-        if k_params.k_radii is not None:
-            with bar.stage("cross-K"):
-                cross = cross_k_tests(snaps, k_params, significance, run_params, progress)
+            with bar.stage("persistence"):
+                tables = durable_patterns(tally, persistence, colocation.min_participation)
+            tests = None
+            patterns = tables.patterns
+            if significance.permutations > 0:
+                with bar.stage("significance"):
+                    tests = pattern_tests(snaps, tally, colocation, significance, run_params,
+                                          progress)  # fmt: skip
+                    patterns = patterns.merge(
+                        tests[["roles", *TEST_COLUMNS]], on="roles", how="left", validate="1:1"
+                    )
+            cross = None
+            if k_params.k_radii is not None:
+                with bar.stage("cross-K"):
+                    cross = cross_k_tests(snaps, k_params, significance, run_params, progress)
     finally:
         bar.close()
-    settings = settings_record(columns, cleaning, _effective(snaps), *stages[3:7], run_params)
-    run = run_record("mine", source, settings, extra={"caution": CAUTION}, digest=digest.result())
-    return MiningResult(
-        patterns, tables.participation, tables.series, quality, run, snaps, tests, cross
-    )
+    settings = settings_record(columns, cleaning, _effective(snaps), *stages[3:8], run_params)
+    run = run_record("mine", source, settings, extra={"caution": CAUTION, **_windows_note(plan)},
+                     digest=digest.result())  # fmt: skip
+    return MiningResult(patterns, tables.participation, tables.series, quality, run, snaps, tests,
+                        cross, sample)  # fmt: skip
+
+
+def _plan(
+    source: Any,
+    columns: ColumnSpec,
+    window_params: WindowParams,
+    significance: SignificanceParams,
+    k_params: CrossKParams | None = None,
+) -> tuple[int, int | None] | None:
+    """Return the windows a run is cut into (bucket ns, most rows), or None for one piece.
+
+    Significance tests and cross-K read the whole period at once: with them an
+    explicit ``chunk`` is refused, and ``auto`` keeps the run in one piece.
+    """
+    tested = significance.permutations > 0 or (k_params is not None and k_params.k_radii)
+    if tested:
+        if window_params.chunk_ns() is not None:
+            raise bad_setting(
+                "chunk",
+                "cannot be used with significance tests or cross-K yet: they read the whole "
+                "period at once; give --permutations 0 (and no --k-radii), or leave --chunk out",
+            )
+        return None
+    bucket, max_rows = plan_windows(source, columns, window_params)
+    return None if bucket is None else (bucket, max_rows)
+
+
+def _windows_note(plan: tuple[int, int | None] | None) -> dict:
+    """Return what run.json records of the windows a run was cut into."""
+    if plan is None:
+        return {"windows": None}
+    return {"windows": {"bucket_s": plan[0] / 1e9, "max_rows": plan[1]}}
+
+
+def _mine_windows(source: Any, stages: list, plan: tuple[int, int | None],
+                  run_params: RunParams, progress: bool) -> tuple:  # fmt: skip
+    """Return what ``mine`` needs of a run over time windows."""
+    columns, cleaning, alignment, colocation, persistence, _, _, window_params, _ = stages
+    with windowed_tracks(source, columns, cleaning, alignment, plan,
+                         window_params.scratch) as run:  # fmt: skip
+        bound = persistence.min_prevalent_snapshots(run.shell.step_s)
+        tally = mine_windows(run, colocation, bound, run_params.threads,
+                             "co-location" if progress else None)  # fmt: skip
+        tables = durable_patterns(tally, persistence, colocation.min_participation)
+        return tables.patterns, tables, run.shell, run.quality(), run.sample()
 
 
 def _digest_beside(source: Any) -> Future[str]:
@@ -257,9 +320,9 @@ def _digest_beside(source: Any) -> Future[str]:
     return digest
 
 
-def _sample(snaps: Snapshots) -> pd.DataFrame:
-    """Return the thinned positions a results folder keeps for drawing maps."""
-    return track_sample(snaps, lambda x, y: working_to_input(snaps, x, y))
+def _sample(snaps: Snapshots, every: int) -> Any:
+    """Return a writer's source of the thinned positions a results folder keeps for maps."""
+    return lambda: track_sample(snaps, lambda x, y: working_to_input(snaps, x, y), every=every)
 
 
 def _aligned(
@@ -269,8 +332,11 @@ def _aligned(
     alignment: AlignParams,
     bar: _Progress,
     workers: int = 1,
-) -> tuple[Snapshots, dict]:
-    """Return the aligned snapshots of ``source`` and its quality report."""
+) -> tuple[Snapshots, dict, Any]:
+    """Return the aligned snapshots of ``source``, its quality report and its track sample.
+
+    The sample is a function that draws it when a results folder is written.
+    """
     with bar.stage("reading"):
         raw = read_tracks(source, columns)
     with bar.stage("cleaning"):
@@ -278,7 +344,8 @@ def _aligned(
     with bar.stage("aligning"):
         snaps = align(fixes, alignment)
         quality["alignment"] = alignment_summary(snaps)
-    return snaps, quality
+    every = sample_every(*fix_extents(fixes), snaps.step_ns)
+    return snaps, quality, _sample(snaps, every)
 
 
 def _effective(snaps: Snapshots) -> AlignParams:
@@ -309,7 +376,8 @@ class GroupsResult:
     quality, run : dict
         As in :class:`MiningResult`.
     snapshots : Snapshots
-        The aligned tracks.
+        The aligned tracks (a run over time windows keeps only their names,
+        step and span).
     """
 
     episodes: pd.DataFrame
@@ -321,6 +389,7 @@ class GroupsResult:
     run: dict
     snapshots: Snapshots = field(repr=False)
     centroids: list = field(repr=False, default_factory=list)
+    sample: Any = field(default=None, repr=False)
 
     def write(
         self, out_dir: str | os.PathLike[str], force: bool = False, merge: bool = False
@@ -336,7 +405,7 @@ class GroupsResult:
         return write_folder(
             out_dir,
             {
-                "track_sample.parquet": parquet_writer(lambda: _sample(self.snapshots)),
+                "track_sample.parquet": parquet_writer(self.sample),
                 "episodes.csv": csv_writer(self.episodes),
                 "episode_roles.csv": csv_writer(self.roles),
                 "dyads.csv": csv_writer(self.dyads),
@@ -406,24 +475,22 @@ def groups(
     if merged.get("radius") is None:
         raise bad_setting("radius", "is required: give it in metres, or a preset that sets one")
     stages = split_options(GROUP_STAGES, merged)
-    (
-        columns,
-        cleaning,
-        alignment,
-        grouping,
-        episode_params,
-        dyad_params,
-        significance,
-        run_params,
-    ) = stages
-    run_params = run_params.resolved()
+    columns, cleaning, alignment, grouping, episode_params, dyad_params, significance = stages[:7]
+    window_params, run_params = stages[7], stages[8].resolved()
+    plan = _plan(source, columns, window_params, significance)
     bar = _Progress(progress, total=6 if significance.permutations > 0 else 5)
     digest = _digest_beside(source)
     try:
-        snaps, quality = _aligned(source, columns, cleaning, alignment, bar, run_params.threads)
-        with bar.stage("groups, episodes and dyads"):
-            tally, table, centroids, dyads = _observed_groups(snaps, grouping, episode_params,
-                                                              dyad_params, run_params)  # fmt: skip
+        if plan is not None:
+            snaps, quality, sample, table, centroids, dyads = _group_windows(
+                source, stages, plan, run_params, progress)  # fmt: skip
+        else:
+            snaps, quality, sample = _aligned(source, columns, cleaning, alignment, bar,
+                                              run_params.threads)  # fmt: skip
+            with bar.stage("groups, episodes and dyads"):
+                tally, table, centroids, dyads = _observed_groups(
+                    snaps, grouping, episode_params, dyad_params, run_params
+                )
         with bar.stage("paths"):
             paths, display = episode_paths(snaps, table, centroids)
         roles = role_rollup(table)
@@ -440,10 +507,23 @@ def groups(
                                 validate="1:1")  # fmt: skip
     finally:
         bar.close()
-    settings = settings_record(columns, cleaning, _effective(snaps), *stages[3:7], run_params)
-    run = run_record("groups", source, settings, extra={"preset": preset, "caution": CAUTION},
+    settings = settings_record(columns, cleaning, _effective(snaps), *stages[3:8], run_params)
+    run = run_record("groups", source, settings,
+                     extra={"preset": preset, "caution": CAUTION, **_windows_note(plan)},
                      digest=digest.result())  # fmt: skip
-    return GroupsResult(table, roles, dyads, paths, display, quality, run, snaps, centroids)
+    return GroupsResult(table, roles, dyads, paths, display, quality, run, snaps, centroids,
+                        sample)  # fmt: skip
+
+
+def _group_windows(source: Any, stages: list, plan: tuple[int, int | None],
+                   run_params: RunParams, progress: bool) -> tuple:  # fmt: skip
+    """Return what ``groups`` needs of a run over time windows."""
+    columns, cleaning, alignment, grouping, episode_params, dyad_params = stages[:6]
+    with windowed_tracks(source, columns, cleaning, alignment, plan,
+                         stages[7].scratch) as run:  # fmt: skip
+        found = group_windows(run, grouping, episode_params, dyad_params, run_params.threads,
+                              "groups" if progress else None)  # fmt: skip
+        return run.shell, run.quality(), run.sample(), found.table, found.centroids, found.dyads
 
 
 def _observed_groups(

@@ -219,7 +219,7 @@ def sweep(source: Any, *, progress: bool = False, **options: Any) -> SweepResult
     )
     bar = _Progress(progress, total=4)
     try:
-        snaps, quality = _aligned(source, columns, cleaning, alignment, bar, run_params.threads)
+        snaps, quality, _ = _aligned(source, columns, cleaning, alignment, bar, run_params.threads)
         with bar.stage("neighbour search"):
             pairs = neighbour_pairs(snaps, max(params.radius), workers=run_params.threads)
             dx, dy = snaps.x[pairs.i] - snaps.x[pairs.j], snaps.y[pairs.i] - snaps.y[pairs.j]

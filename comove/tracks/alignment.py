@@ -302,6 +302,8 @@ def default_step(fixes: Fixes) -> float:
         The value of ``ROUND_STEPS_S`` nearest on a log scale to the median
         interval between consecutive fixes of the same object.
     """
+    from comove.tracks.cleaning import _quantiles
+
     same = fixes.obj[1:] == fixes.obj[:-1]
     dt = np.diff(fixes.time)[same]
     dt = dt[dt > 0]
@@ -309,7 +311,11 @@ def default_step(fixes: Fixes) -> float:
         raise InputError(
             "cannot choose a time step: no object has two fixes at different times; give --step"
         )
-    median_s = float(np.median(dt)) / NS_PER_S
+    return round_step(float(_quantiles(dt, NS_PER_S)["median"]))
+
+
+def round_step(median_s: float) -> float:
+    """Return the value of ``ROUND_STEPS_S`` nearest on a log scale to ``median_s`` seconds."""
     steps = np.asarray(ROUND_STEPS_S)
     return float(steps[np.argmin(np.abs(np.log(steps) - np.log(median_s)))])
 
@@ -420,12 +426,54 @@ def _interpolate(
     return grid, x, y, fixes.obj[owner], fixes.role[owner]
 
 
+def align_window(fixes: Fixes, step_ns: int, max_gap_ns: int, span: tuple[int, int]) -> Snapshots:
+    """Return the snapshots at grid indices ``span[0] <= g < span[1]`` of some fixes.
+
+    Parameters
+    ----------
+    fixes : Fixes
+        Cleaned fixes of a time window with margins of ``max_gap`` on each
+        side, sorted by object then time.
+    step_ns, max_gap_ns : int
+        The whole run's step and bridged gap.
+    span : (int, int)
+        Grid indices of the window's first snapshot and one past its last.
+
+    Returns
+    -------
+    Snapshots
+        With ``first_index = span[0]`` and ``span[1] - span[0]`` snapshots
+        (some may be empty): equal to the same window of the whole run's
+        snapshots (:meth:`Snapshots.window`).
+
+    Notes
+    -----
+    A grid point is owned by the last fix at or before it, when the next fix
+    is at most ``max_gap`` later; both lie within ``max_gap`` of the window,
+    so margins of ``max_gap`` give each grid point its owner and its
+    interpolation partner exactly, and the positions equal the whole run's.
+    """
+    g0, g1 = int(span[0]), int(span[1])
+    first, count, _, t_next = _owned_grid_points(fixes, step_ns, max_gap_ns)
+    lo = np.maximum(first, g0)
+    count = np.maximum(np.minimum(first + count, g1) - lo, 0)
+    entries = _interpolate(fixes, lo, count, t_next, step_ns)
+    return _in_snapshot_order(fixes, entries, step_ns, max_gap_ns, span=(g0, g1))
+
+
 def _in_snapshot_order(
-    fixes: Fixes, entries: tuple[np.ndarray, ...], step_ns: int, max_gap_ns: int
+    fixes: Fixes,
+    entries: tuple[np.ndarray, ...],
+    step_ns: int,
+    max_gap_ns: int,
+    span: tuple[int, int] | None = None,
 ) -> Snapshots:
-    """Return the entries (grid index, x, y, object, role), grouped by object, as snapshots."""
+    """Return the entries (grid index, x, y, object, role), grouped by object, as snapshots.
+
+    The snapshots run from the first entry to the last, or over ``span`` when given.
+    """
     grid, x, y, obj, role = entries
-    first_index = int(grid.min())
+    first_index = int(grid.min()) if span is None else span[0]
     snap = grid - first_index
     # entries come grouped by object with increasing snapshots: a stable sort by
     # snapshot only merges those runs, giving (snapshot, object) order cheaply
@@ -433,7 +481,7 @@ def _in_snapshot_order(
     return Snapshots(
         step_ns=step_ns,
         first_index=first_index,
-        n_snapshots=int(snap.max()) + 1,
+        n_snapshots=int(snap.max()) + 1 if span is None else span[1] - span[0],
         snap=snap[order].astype(np.int64, copy=False),
         obj=obj[order].astype(np.int32, copy=False),
         role=role[order].astype(np.int32, copy=False),
@@ -464,30 +512,61 @@ def alignment_summary(snaps: Snapshots) -> dict:
 SAMPLE_POSITIONS = 200_000
 
 
-def track_sample(snaps: Snapshots, to_input=None, limit: int = SAMPLE_POSITIONS):
+def sample_every(
+    first_ns: np.ndarray, last_ns: np.ndarray, step_ns: int, limit: int = SAMPLE_POSITIONS
+) -> int:
+    """Return the stride of the track sample: every k-th grid index brings it under ``limit``.
+
+    ``first_ns`` and ``last_ns`` are each object's first and last kept fix
+    (objects without one are skipped); an object has at most one entry per
+    grid point between them, so k is the smallest whole number with
+    (grid points within the objects' spans) / k <= limit. It depends on the
+    cleaned fixes only, so a run over time windows knows it before aligning.
+    """
+    has = first_ns <= last_ns
+    first = -(-first_ns[has] // step_ns)
+    last = last_ns[has] // step_ns
+    bound = int(np.maximum(last - first + 1, 0).sum())
+    return max(1, -(-bound // max(limit, 1)))
+
+
+def fix_extents(fixes: Fixes) -> tuple[np.ndarray, np.ndarray]:
+    """Return each object's first and last fix time (fixes sorted by object, then time)."""
+    n = len(fixes.objects)
+    first = np.full(n, np.iinfo(np.int64).max, dtype=np.int64)
+    last = np.full(n, np.iinfo(np.int64).min, dtype=np.int64)
+    if fixes.obj.size:
+        starts = np.flatnonzero(np.r_[True, fixes.obj[1:] != fixes.obj[:-1]])
+        ends = np.r_[starts[1:], fixes.obj.size] - 1
+        first[fixes.obj[starts]], last[fixes.obj[starts]] = fixes.time[starts], fixes.time[ends]
+    return first, last
+
+
+def track_sample(snaps: Snapshots, to_input=None, every: int = 1):
     """Return an evenly thinned sample of the aligned positions, for drawing maps.
 
     Parameters
     ----------
     snaps : Snapshots
-        Aligned snapshots.
+        Aligned snapshots (a whole run, or one window of it).
     to_input : callable, optional
         ``to_input(x, y) -> (x, y)`` taking working-plane metres to the input's
         CRS (lon/lat for lon/lat input); identity when omitted.
-    limit : int, default 200_000
-        Most positions kept: every k-th snapshot is kept, with k the smallest
-        whole number that brings the count under the limit.
+    every : int, default 1
+        Keep the snapshots whose grid index (time // step) is a multiple of
+        ``every`` (:func:`sample_every`), so windows of a run give parts of the
+        same sample.
 
     Returns
     -------
     DataFrame
         ``object``, ``role``, ``time`` (UTC), ``x``, ``y``; ``attrs["every"]``
-        holds k. Only drawing uses it; every computation uses all snapshots.
+        holds the stride. Only drawing uses it; every computation uses all snapshots.
     """
     import pandas as pd
 
-    every = max(1, -(-snaps.n_entries // max(limit, 1)))
-    keep = snaps.snap % every == 0
+    every = max(1, int(every))
+    keep = (snaps.snap + snaps.first_index) % every == 0
     x, y = snaps.x[keep], snaps.y[keep]
     if to_input is not None:
         x, y = to_input(x, y)
@@ -497,5 +576,5 @@ def track_sample(snaps: Snapshots, to_input=None, limit: int = SAMPLE_POSITIONS)
         "time": pd.to_datetime(snaps.times(snaps.snap[keep]), utc=True),
         "x": x, "y": y,
     })  # fmt: skip
-    frame.attrs["every"] = int(every)
+    frame.attrs["every"] = every
     return frame

@@ -28,7 +28,7 @@ import pandas as pd
 import pyproj
 
 from comove.errors import InputError
-from comove.io.projection import crs_to_lonlat, local_metric_crs, to_metric
+from comove.io.projection import LonLatExtent, crs_to_lonlat, metric_crs_of, to_metric
 from comove.io.reading import RawTracks
 from comove.io.times import ParsedTimes, human_seconds, parse_times, utc_iso
 
@@ -236,22 +236,154 @@ def _spike_mask(
     return interior | first | last
 
 
-def _quantiles(values: np.ndarray, per: float = 1.0) -> dict[str, float | None]:
-    """Return the median, 10th and 90th percentiles and IQR of ``values`` / ``per``.
+#: Percentiles of the sampling interval in the quality report.
+INTERVAL_PERCENTILES = (10, 25, 50, 75, 90)
 
-    ``values`` is reordered.
+
+def percentile_ranks(n: int, q: float) -> tuple[int, int, float]:
+    """Return the order statistics (0-based ranks) and weight of the ``q``-th percentile of n.
+
+    The linear rule (numpy's default): the virtual rank ``q / 100 * (n - 1)``
+    lies between ranks ``lo`` and ``hi``, weighted ``frac`` towards ``hi``.
     """
-    if values.size == 0:
+    virtual = q / 100.0 * (n - 1)
+    lo = int(math.floor(virtual))
+    return lo, min(lo + 1, n - 1), virtual - lo
+
+
+def percentiles(n: int, order_stat, per: float = 1.0) -> dict[str, float | None]:
+    """Return the median, 10th and 90th percentiles and IQR of n values, divided by ``per``.
+
+    ``order_stat(rank)`` gives the value of 0-based rank ``rank`` in sorted order.
+    One formula for values held in memory and for values tallied window by
+    window (:class:`GapTally`), so both give the same numbers.
+    """
+    if n == 0:
         return {"median": None, "p10": None, "p90": None, "iqr": None}
-    # values is a temporary of the caller's: partitioned in place, no copy of millions
-    q = np.percentile(values, [10, 25, 50, 75, 90], overwrite_input=True) / per
-    p10, p25, p50, p75, p90 = q
-    return {
-        "median": float(p50),
-        "p10": float(p10),
-        "p90": float(p90),
-        "iqr": float(p75 - p25),
-    }
+    q = {}
+    for p in INTERVAL_PERCENTILES:
+        lo, hi, frac = percentile_ranks(n, p)
+        a, b = float(order_stat(lo)), float(order_stat(hi))
+        q[p] = (a + (b - a) * frac) / per
+    return {"median": q[50], "p10": q[10], "p90": q[90], "iqr": q[75] - q[25]}
+
+
+def _quantiles(values: np.ndarray, per: float = 1.0) -> dict[str, float | None]:
+    """Return :func:`percentiles` of ``values`` (reordered in place: no copy of millions)."""
+    ranks = sorted({r for p in INTERVAL_PERCENTILES for r in percentile_ranks(values.size, p)[:2]})
+    if values.size:
+        values.partition(ranks)
+    return percentiles(values.size, lambda r: values[r], per)
+
+
+_NO_TIME = np.iinfo(np.int64).max
+
+
+def gap_bins(gaps: np.ndarray) -> np.ndarray:
+    """Return the histogram bins of positive int64 gaps: float64 exponent, top 12 mantissa bits.
+
+    Bins are about 0.02 % wide relative to their values.
+    """
+    return gaps.astype(np.float64).view(np.int64) >> 40
+
+
+@dataclass
+class GapTally:
+    """The gaps between consecutive kept fixes of each object, joinable along time.
+
+    A window's tally holds a histogram of its gaps (bins about 0.02 % wide,
+    with the least and greatest gap in each bin) and each object's first and
+    last kept time, so that joining it to the next window's (:meth:`then`)
+    adds the gaps across the edge. Percentiles then need the exact values of
+    at most a few bins (:meth:`order_stat`).
+
+    Attributes
+    ----------
+    key, count, low, high : ndarray of int64
+        Occupied bins (sorted), their gap counts, least and greatest gap (ns).
+    first, last : ndarray of int64
+        Per object code, first and last kept time (``first`` int64 max when none).
+    """
+
+    key: np.ndarray
+    count: np.ndarray
+    low: np.ndarray
+    high: np.ndarray
+    first: np.ndarray
+    last: np.ndarray
+
+    @classmethod
+    def of(cls, obj: np.ndarray, t: np.ndarray, n_objects: int) -> GapTally:
+        """Return the tally of fixes sorted by (object, time)."""
+        same = obj[1:] == obj[:-1]
+        tally = cls._histogram(np.diff(t)[same])
+        first = np.full(n_objects, _NO_TIME, dtype=np.int64)
+        last = np.full(n_objects, -_NO_TIME, dtype=np.int64)
+        if obj.size:
+            starts = np.flatnonzero(np.r_[True, ~same])
+            ends = np.r_[starts[1:], obj.size] - 1
+            first[obj[starts]], last[obj[starts]] = t[starts], t[ends]
+        return cls(*tally, first, last)
+
+    @staticmethod
+    def _histogram(gaps: np.ndarray) -> tuple[np.ndarray, ...]:
+        keys = gap_bins(gaps)
+        order = np.argsort(keys, kind="stable")
+        keys, gaps = keys[order], gaps[order]
+        starts = np.flatnonzero(np.r_[True, keys[1:] != keys[:-1]]) if keys.size else order[:0]
+        ends = np.r_[starts[1:], keys.size]
+        low = np.minimum.reduceat(gaps, starts) if keys.size else gaps[:0]
+        high = np.maximum.reduceat(gaps, starts) if keys.size else gaps[:0]
+        return keys[starts], (ends - starts).astype(np.int64), low, high
+
+    @property
+    def n(self) -> int:
+        """Return the number of gaps."""
+        return int(self.count.sum())
+
+    def then(self, later: GapTally) -> GapTally:
+        """Return the tally of this window and the ``later`` one that follows it in time."""
+        both = (self.first != _NO_TIME) & (later.first != _NO_TIME)
+        cross = GapTally._histogram(later.first[both] - self.last[both])
+        key = np.concatenate([self.key, later.key, cross[0]])
+        order = np.argsort(key, kind="stable")
+        key = key[order]
+        starts = np.flatnonzero(np.r_[True, key[1:] != key[:-1]]) if key.size else order[:0]
+
+        def merged(parts: list[np.ndarray], reduce) -> np.ndarray:
+            values = np.concatenate(parts)[order]
+            return reduce.reduceat(values, starts) if values.size else values
+
+        return GapTally(
+            key[starts],
+            merged([self.count, later.count, cross[1]], np.add),
+            merged([self.low, later.low, cross[2]], np.minimum),
+            merged([self.high, later.high, cross[3]], np.maximum),
+            np.where(self.first != _NO_TIME, self.first, later.first),
+            np.where(later.first != _NO_TIME, later.last, self.last),
+        )
+
+    def bins_needed(self, ranks: list[int]) -> np.ndarray:
+        """Return the bins whose values are needed for the gaps of ``ranks`` (unequal extremes)."""
+        ends = np.cumsum(self.count)
+        where = np.searchsorted(ends, np.asarray(ranks, dtype=np.int64), side="right")
+        return np.unique(self.key[where[self.low[where] != self.high[where]]])
+
+    def order_stat(self, rank: int, values: dict[int, np.ndarray] | None = None) -> int:
+        """Return the gap of ``rank``; ``values`` holds the sorted gaps of bins that need them."""
+        ends = np.cumsum(self.count)
+        b = int(np.searchsorted(ends, rank, side="right"))
+        if self.low[b] == self.high[b]:
+            return int(self.low[b])
+        if values is None or int(self.key[b]) not in values:
+            raise KeyError(f"the gaps of bin {int(self.key[b])} are needed")
+        return int(values[int(self.key[b])][rank - (ends[b] - self.count[b])])
+
+
+def gaps_in_bins(obj: np.ndarray, t: np.ndarray, bins: np.ndarray) -> np.ndarray:
+    """Return the gaps of fixes sorted by (object, time) that fall in the histogram ``bins``."""
+    gaps = np.diff(t)[obj[1:] == obj[:-1]]
+    return gaps[np.isin(gap_bins(gaps), bins)]
 
 
 # --------------------------------------------------------------------------- cleaning
@@ -313,9 +445,10 @@ def clean_fixes(
     params = params if params is not None else CleanParams()
     frame = raw.frame.reset_index(drop=True)
     rows = _mark_invalid(raw, frame)
+    plane = _plane(rows)  # before duplicates are judged: see _extent
     kept = _resolve_duplicates(rows)
-    metric_crs, input_crs = _project(raw, rows, kept, workers)
-    passes = _drop_speed_spikes(rows, kept, params.max_speed)
+    metric_crs, input_crs = _project(raw, rows, kept, workers, plane)
+    passes = _drop_speed_spikes(rows, kept, params.max_speed)[0]
     dropped, examples = _drop_counts(raw, frame, rows.reason)
     if kept.rows.size == 0:
         raise _nothing_kept(raw, dropped, examples)
@@ -358,6 +491,16 @@ class _Kept:
 def _mark(reason: np.ndarray, mask: np.ndarray, name: str) -> None:
     """Drop the rows in ``mask`` not dropped yet, for the reason ``name``."""
     reason[mask & (reason < 0)] = _CODE[name]
+
+
+def row_checks(raw: RawTracks, frame: pd.DataFrame | None = None) -> _Rows:
+    """Return every row's codes, coordinates and times, with the rows unusable on their own marked.
+
+    ``rows.reason`` is -1 for a row kept so far, else the index in
+    :data:`DROP_REASONS` of why it goes (missing id, role or coordinates,
+    impossible coordinates, unreadable time): the checks that need no other row.
+    """
+    return _mark_invalid(raw, raw.frame.reset_index(drop=True) if frame is None else frame)
 
 
 def _mark_invalid(raw: RawTracks, frame: pd.DataFrame) -> _Rows:
@@ -470,15 +613,44 @@ def _mark_duplicates(
     reason[valid[rest[conflict]]] = _CODE["conflicting_duplicate"]
 
 
+def _extent(rows: _Rows) -> LonLatExtent:
+    """Return the extent of the rows still valid: the rows that are well-formed on their own.
+
+    The working plane is centred on these, before duplicates and speed spikes
+    are judged, so that tracks read in blocks get the same plane from the
+    extents of their blocks.
+    """
+    assert rows.lon is not None and rows.lat is not None
+    valid = rows.reason < 0
+    lon, lat = (rows.lon, rows.lat) if valid.all() else (rows.lon[valid], rows.lat[valid])
+    extent = LonLatExtent.of(lon, lat)
+    return LonLatExtent.of(lon, lat, bins=True) if extent.needs_bins else extent
+
+
+def _plane(rows: _Rows) -> pyproj.CRS | None:
+    """Return the working plane of lon/lat rows (None for planar input or no valid row)."""
+    if rows.lon is None or not (rows.reason < 0).any():
+        return None
+    return metric_crs_of(_extent(rows))
+
+
 def _project(
-    raw: RawTracks, rows: _Rows, kept: _Kept, workers: int = 1
+    raw: RawTracks,
+    rows: _Rows,
+    kept: _Kept,
+    workers: int = 1,
+    working_crs: pyproj.CRS | None = None,
 ) -> tuple[pyproj.CRS | None, str | None]:
-    """Set the kept rows' working-plane coordinates; return the working and the input CRS."""
+    """Set the kept rows' working-plane coordinates; return the working and the input CRS.
+
+    ``working_crs`` is the plane of lon/lat input when already chosen (tracks
+    cleaned window by window); otherwise it is centred on the rows (:func:`_extent`).
+    """
     metric_crs: pyproj.CRS | None
     if rows.lon is not None:
         if kept.rows.size:
             lon, lat = kept.take(rows.lon), kept.take(rows.lat)
-            metric_crs = local_metric_crs(lon, lat)
+            metric_crs = working_crs if working_crs is not None else _plane(rows)
             kept.x, kept.y = to_metric(lon, lat, metric_crs, workers)
         else:
             metric_crs, kept.x, kept.y = None, np.empty(0), np.empty(0)
@@ -490,25 +662,66 @@ def _project(
     return metric_crs, input_crs
 
 
-def _drop_speed_spikes(rows: _Rows, kept: _Kept, max_speed: float | None) -> int:
-    """Drop speed spikes from the kept rows, each pass over all of them; return the passes."""
-    passes = 0
+def _spread(mark: np.ndarray, obj: np.ndarray, hops: int) -> np.ndarray:
+    """Return ``mark`` widened by ``hops`` neighbours on each side within each object."""
+    same = obj[1:] == obj[:-1]
+    for _ in range(hops):
+        wider = mark.copy()
+        wider[1:] |= mark[:-1] & same
+        wider[:-1] |= mark[1:] & same
+        mark = wider
+    return mark
+
+
+def _drop_speed_spikes(
+    rows: _Rows, kept: _Kept, max_speed: float | None, cut: np.ndarray | None = None
+) -> tuple[int, int, np.ndarray | None]:
+    """Drop speed spikes from the kept rows, each pass over all of them.
+
+    ``cut`` marks kept rows whose track may go on beyond the rows at hand (a
+    time window's first and last fix of an object): their neighbours are
+    unknown, so the decisions that could depend on them are not taken. A
+    pass's decision at a fix reads its neighbours and theirs, so the doubt
+    spreads two fixes per pass, over every pass the whole track could take.
+
+    Returns
+    -------
+    passes : int
+        Passes made (at most ``MAX_SPIKE_PASSES``; 0 without ``max_speed``).
+    last : int
+        The last pass that dropped a fix (0: none).
+    doubt : ndarray of bool or None
+        Per kept row before the passes, whether its fate is unknown (None without ``cut``).
+    """
+    passes = last = 0
     if max_speed is None or not kept.rows.size:
-        return passes
+        return passes, last, None
+    doubt = None if cut is None else cut.copy()
     alive = np.arange(kept.rows.size)
     t = kept.take(rows.times.ns)
     while passes < MAX_SPIKE_PASSES:
         passes += 1
-        spike = _spike_mask(kept.obj[alive], t[alive], kept.x[alive], kept.y[alive], max_speed)
+        obj = kept.obj[alive]
+        spike = _spike_mask(obj, t[alive], kept.x[alive], kept.y[alive], max_speed)
+        if doubt is not None:
+            unsure = _spread(doubt[alive], obj, 2)
+            doubt[alive] = unsure
+            spike &= ~unsure
         if not spike.any():
             break
+        last = passes
         rows.reason[kept.rows[alive[spike]]] = _CODE["speed_spike"]
         alive = alive[~spike]
+    if doubt is not None:
+        # the whole track may take more passes, each spreading the doubt further
+        doubt[alive] = _spread(doubt[alive], kept.obj[alive], 2 * (MAX_SPIKE_PASSES - passes))
     if alive.size < kept.rows.size:
         kept.rows, kept.obj, kept.role = kept.rows[alive], kept.obj[alive], kept.role[alive]
         kept.x, kept.y = kept.x[alive], kept.y[alive]
         kept.whole = False
-    return passes
+        if doubt is not None:
+            doubt = doubt[alive]
+    return passes, last, doubt
 
 
 def _drop_counts(
@@ -577,22 +790,61 @@ def _quality_report(
     """Return the quality report of :func:`clean_fixes`."""
     kt = fixes.time
     gaps = np.diff(kt)[fixes.obj[1:] == fixes.obj[:-1]]  # ns; quantiles scaled below
-    zone_less = int(kept.take(rows.times.zone_less).sum())
-    t0, t1 = int(kt.min()), int(kt.max())
-    metric_crs = fixes.metric_crs
+    return quality_report(
+        rows_read=int(rows.reason.size),
+        dropped=dropped,
+        examples=examples,
+        objects=fixes.objects,
+        roles=fixes.roles,
+        span=(int(kt.min()), int(kt.max())),
+        interval=_quantiles(gaps, 1e9),
+        zone_less=int(kept.take(rows.times.zone_less).sum()),
+        time_input=rows.times.kind,
+        coords=raw.coords,
+        crs=(fixes.input_crs, fixes.metric_crs),
+        max_speed=params.max_speed,
+        passes=passes,
+        sources=raw.sources,
+    )
+
+
+def quality_report(
+    *,
+    rows_read: int,
+    dropped: dict[str, int],
+    examples: dict[str, list[dict]],
+    objects: np.ndarray,
+    roles: np.ndarray,
+    span: tuple[int, int],
+    interval: dict[str, float | None],
+    zone_less: int,
+    time_input: str,
+    coords: str,
+    crs: tuple[str | None, pyproj.CRS | None],
+    max_speed: float | None,
+    passes: int,
+    sources: list[str],
+) -> dict:
+    """Return the quality report (see :func:`clean_fixes`) from what cleaning counted.
+
+    One report for tracks cleaned at once and for tracks cleaned window by
+    window (:mod:`comove.tracks.streaming`), which count the same things.
+    """
+    t0, t1 = span
+    input_crs, metric_crs = crs
     return {
-        "rows_read": int(rows.reason.size),
-        "rows_kept": int(kept.rows.size),
+        "rows_read": int(rows_read),
+        "rows_kept": int(rows_read - sum(dropped.values())),
         "dropped": dropped,
         "merged": {"exact_duplicate": dropped["exact_duplicate"]},
         "examples": examples,
-        "objects": int(fixes.objects.size),
-        "roles": int(fixes.roles.size),
-        "role_names": [str(r) for r in fixes.roles],
+        "objects": int(len(objects)),
+        "roles": int(len(roles)),
+        "role_names": [str(r) for r in roles],
         "time_start": utc_iso(t0),
         "time_end": utc_iso(t1),
         "time_span_s": (t1 - t0) / 1e9,
-        "sampling_interval_s": _quantiles(gaps, 1e9),
+        "sampling_interval_s": interval,
         "zone_less_times": zone_less,
         "time_note": (
             f"{zone_less} kept {'row' if zone_less == 1 else 'rows'} had times without a "
@@ -600,15 +852,15 @@ def _quality_report(
             if zone_less
             else None
         ),
-        "time_input": rows.times.kind,
+        "time_input": time_input,
         "coordinates": {
-            "input": raw.coords,
-            "input_crs": fixes.input_crs,
+            "input": coords,
+            "input_crs": input_crs,
             "working_crs": metric_crs.to_string() if metric_crs is not None else "planar metres",
         },
-        "max_speed_m_s": params.max_speed,
+        "max_speed_m_s": max_speed,
         "speed_spike_passes": passes,
-        "sources": [str(s) for s in raw.sources],
+        "sources": [str(s) for s in sources],
     }
 
 
@@ -659,3 +911,173 @@ def format_quality_summary(quality: dict) -> str:
     if quality.get("time_note"):
         lines.append("note: " + quality["time_note"])
     return "\n".join(lines)
+
+
+# --------------------------------------------------------------------------- windows
+
+
+@dataclass
+class WindowRows:
+    """The rows of a time window and its margins, read in blocks, each well-formed on its own.
+
+    Rows dropped for reasons that need no other row (missing id, role or
+    coordinates, impossible coordinates, unreadable time) are counted while
+    reading and never reach a window.
+
+    Attributes
+    ----------
+    obj, role : ndarray of int32
+        Object and role codes of the whole input (:class:`WindowPlan`).
+    t : ndarray of int64
+        Times, ns UTC.
+    a, b : ndarray of float64
+        Coordinates as read (lon/lat, or x/y).
+    lon, lat : ndarray of float64 or None
+        Lon/lat of lon/lat and "crs" input; None for planar input.
+    zone_less : ndarray of bool
+        Times written without a zone.
+    seq : ndarray of int64
+        Each row's number in reading order (sources one after the other, from 0).
+    """
+
+    obj: np.ndarray
+    role: np.ndarray
+    t: np.ndarray
+    a: np.ndarray
+    b: np.ndarray
+    lon: np.ndarray | None
+    lat: np.ndarray | None
+    zone_less: np.ndarray
+    seq: np.ndarray
+
+
+@dataclass
+class WindowPlan:
+    """What is decided once for the whole input before its windows are cleaned.
+
+    Attributes
+    ----------
+    objects, roles : ndarray of str
+        Sorted names behind the codes of :class:`WindowRows`.
+    coords : str
+        ``"lonlat"``, ``"planar"`` or ``"crs"`` (as :class:`~comove.io.reading.RawTracks`).
+    input_crs : str or None
+        The input's CRS (``"EPSG:4326"`` for lon/lat).
+    metric_crs : pyproj.CRS or None
+        The working plane: centred on the extent of every well-formed row.
+    time_kind : str
+        How the times were written.
+    """
+
+    objects: np.ndarray
+    roles: np.ndarray
+    coords: str
+    input_crs: str | None
+    metric_crs: pyproj.CRS | None
+    time_kind: str
+
+
+@dataclass
+class CleanedWindow:
+    """The fixes a time window owns after cleaning, and what cleaning counted there.
+
+    Attributes
+    ----------
+    obj, t, x, y, role : ndarray
+        The kept fixes with times in the window, sorted by (object, time);
+        ``x``, ``y`` in the working plane.
+    dropped : ndarray of int64
+        Rows of the window dropped, per reason of :data:`DROP_REASONS`.
+    examples : list of ndarray
+        Per reason, the reading-order numbers of its first dropped rows (at most
+        ``MAX_EXAMPLES``).
+    zone_less : int
+        Kept rows whose times had no zone.
+    last_spike_pass : int
+        The last speed-spike pass that dropped a fix of the window (0: none).
+    gaps : GapTally
+        The gaps between the window's kept fixes.
+    """
+
+    obj: np.ndarray
+    t: np.ndarray
+    x: np.ndarray
+    y: np.ndarray
+    role: np.ndarray
+    dropped: np.ndarray
+    examples: list[np.ndarray]
+    zone_less: int
+    last_spike_pass: int
+    gaps: GapTally
+
+
+def clean_window(
+    part: WindowRows,
+    plan: WindowPlan,
+    params: CleanParams,
+    owned: tuple[int, int],
+    cut: tuple[bool, bool],
+) -> CleanedWindow | None:
+    """Clean the rows of a time window with its margins as :func:`clean_fixes` cleans them all.
+
+    Parameters
+    ----------
+    part : WindowRows
+        The window's rows and rows of its margins.
+    plan : WindowPlan
+        Names, coordinates and working plane of the whole input.
+    params : CleanParams
+        Cleaning options.
+    owned : (int, int)
+        The window, ns: rows at times ``start <= t < stop`` are its own.
+    cut : (bool, bool)
+        Whether the input may have rows before, and after, the rows in ``part``.
+
+    Returns
+    -------
+    CleanedWindow or None
+        None when a speed-spike decision on a fix of the window could depend on
+        fixes beyond the margins: the caller widens them and tries again.
+
+    Notes
+    -----
+    Duplicates share a time, so they fall in one window. A speed-spike pass
+    reads each fix's neighbours and theirs; fixes whose fate could depend on
+    the unknown neighbours beyond a cut are left undecided (see
+    :func:`_drop_speed_spikes`), so every decision taken equals the one on the
+    whole input.
+    """
+    times = ParsedTimes(part.t, np.ones(part.t.size, dtype=bool), part.zone_less, plan.time_kind)
+    reason = np.full(part.t.size, -1, dtype=np.int8)
+    rows = _Rows(reason, part.obj, plan.objects, part.role, plan.roles, part.a, part.b,
+                 part.lon, part.lat, times)  # fmt: skip
+    kept = _resolve_duplicates(rows)
+    if rows.lon is not None:
+        kept.x, kept.y = to_metric(kept.take(rows.lon), kept.take(rows.lat), plan.metric_crs)
+    else:
+        kept.x, kept.y = kept.take(rows.a), kept.take(rows.b)
+    ends = np.zeros(kept.rows.size, dtype=bool)
+    if kept.rows.size:
+        change = kept.obj[1:] != kept.obj[:-1]
+        ends[np.r_[True, change]] |= cut[0]  # first fix of an object: its past is unknown
+        ends[np.r_[change, True]] |= cut[1]
+    _, last, doubt = _drop_speed_spikes(rows, kept, params.max_speed, ends)
+    kt = kept.take(part.t)
+    mine = (kt >= owned[0]) & (kt < owned[1])
+    if doubt is not None and (doubt & mine).any():
+        return None
+    row_mine = (part.t >= owned[0]) & (part.t < owned[1])
+    gone = row_mine & (reason >= 0)
+    order = np.argsort(part.seq[gone], kind="stable")
+    seq, why = part.seq[gone][order], reason[gone][order]
+    obj, t = kept.obj[mine], kt[mine]
+    return CleanedWindow(
+        obj=obj.astype(np.int32), t=t.astype(np.int64),
+        x=np.asarray(kept.x)[mine], y=np.asarray(kept.y)[mine],
+        role=kept.role[mine].astype(np.int32),
+        dropped=np.bincount(why.astype(np.intp), minlength=len(DROP_REASONS)).astype(np.int64),
+        examples=[seq[why == i][:MAX_EXAMPLES] for i in range(len(DROP_REASONS))],
+        zone_less=int(kept.take(part.zone_less)[mine].sum()),
+        last_spike_pass=last,
+        gaps=GapTally.of(obj, t, len(plan.objects)),
+    )  # fmt: skip

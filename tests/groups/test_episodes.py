@@ -117,7 +117,7 @@ def test_groups_equals_its_stages_run_one_after_another():
     truth, result = run_scenario("small_sided_game", permutations=0, jobs=2)
     snaps = result.snapshots
     options = dict(preset_values("team-sport"), radius=truth["parameters"]["radius"])
-    _, _, _, grouping, episode_params, _, _, _ = split_options(GROUP_STAGES, options)
+    grouping, episode_params = split_options(GROUP_STAGES, options)[3:5]
     pairs = neighbour_pairs(snaps, grouping.radius)
     motion = entry_motion(snaps, grouping.velocity_window)
     links = linked_pairs(pairs, motion, grouping)

@@ -142,7 +142,7 @@ def scenario_groups(request):
     truth, result = run_scenario(request.param, permutations=0)
     options = dict(preset_values(SCENARIO_RUNS[request.param][0]),
                    radius=truth["parameters"]["radius"])  # fmt: skip
-    _, _, _, grouping, episode_params, _, _, _ = split_options(GROUP_STAGES, options)
+    grouping, episode_params = split_options(GROUP_STAGES, options)[3:5]
     return result.snapshots, grouping, episode_params
 
 

@@ -154,11 +154,18 @@ def test_projection_on_threads_gives_the_same_numbers(monkeypatch) -> None:
     np.testing.assert_array_equal(threaded[1], one[1])
 
 
+def _centre(lon: np.ndarray) -> float:
+    from comove.io.projection import LonLatExtent
+
+    extent = LonLatExtent.of(lon, np.zeros_like(lon))
+    if extent.needs_bins:
+        extent = LonLatExtent.of(lon, np.zeros_like(lon), bins=True)
+    return extent.centre()[0]
+
+
 @pytest.mark.parametrize("seed", range(8))
 def test_longitude_centre_is_the_middle_of_the_shortest_interval_holding_all(seed) -> None:
     # reference: every point tried as the western end of the interval (brute force)
-    from comove.io.projection import _longitude_centre
-
     rng = np.random.default_rng(seed)
     spread = [5.0, 90.0, 179.0, 200.0, 300.0, 10.0, 120.0, 250.0][seed]
     lon = rng.uniform(0, spread, 50) + rng.uniform(-180, 180)
@@ -166,6 +173,39 @@ def test_longitude_centre_is_the_middle_of_the_shortest_interval_holding_all(see
     widths = [np.max(np.mod(lon - w, 360.0)) for w in lon]
     west = lon[int(np.argmin(widths))]
     expected = np.mod(west + min(widths) / 2 + 180.0, 360.0) - 180.0
-    assert _longitude_centre(lon) == pytest.approx(expected, abs=1e-9)
+    assert _centre(lon) == pytest.approx(expected, abs=1e-9)
     # longitudes written 0..360 (or beyond) are wrapped first: the same centre
-    assert _longitude_centre(lon + 360.0) == pytest.approx(expected, abs=1e-9)
+    assert _centre(lon + 360.0) == pytest.approx(expected, abs=1e-9)
+
+
+@pytest.mark.parametrize("spread", [3.0, 170.0, 200.0, 350.0])
+def test_extents_of_blocks_joined_give_the_whole_data_crs_exactly(spread) -> None:
+    # the working plane of data read in blocks is the one of the data read at once
+    from comove.io.projection import LonLatExtent, local_metric_crs, metric_crs_of
+
+    rng = np.random.default_rng(int(spread))
+    lon = np.mod(rng.uniform(0, spread, 5000) + 150.0 + 180.0, 360.0) - 180.0
+    lat = rng.uniform(-60, 70, lon.size)
+    lon[::97] = np.nan  # missing values are ignored in both
+    whole = local_metric_crs(lon, lat)
+    cuts = np.sort(rng.choice(np.arange(1, lon.size), 6, replace=False))
+    # straddling the antimeridian, even a spread under 180 degrees needs the bins
+    bins = LonLatExtent.of(lon, lat).needs_bins
+    assert bins == (spread > 30)
+    blocks = zip(np.split(lon, cuts), np.split(lat, cuts), strict=True)
+    parts = [LonLatExtent.of(a, b, bins=bins) for a, b in blocks]
+    joined = parts[0]
+    for part in parts[1:]:
+        joined = part.then(joined)  # any order
+    assert joined.needs_bins == bins
+    assert metric_crs_of(joined).to_proj4() == whole.to_proj4()
+
+
+def test_an_extent_without_bins_refuses_a_spread_it_cannot_centre() -> None:
+    from comove.io.projection import LonLatExtent
+
+    extent = LonLatExtent.of(np.array([-170.0, 20.0, 170.0]), np.zeros(3))
+    with pytest.raises(ValueError, match="needs its bins"):
+        extent.centre()
+    with pytest.raises(ValueError, match="at least one finite"):
+        LonLatExtent.of(np.array([np.nan]), np.array([1.0])).centre()

@@ -1,0 +1,91 @@
+"""A run over time windows writes the same results as the whole period held in memory."""
+
+from __future__ import annotations
+
+import json
+
+import pandas as pd
+import pytest
+from scenes import run_scenario
+
+from comove.cli import main
+from comove.io.scenarios import mine_options
+from comove.pipeline.core import mine
+
+#: Window lengths that cut each scenario into many windows, some shorter than its max gap.
+CHUNKS = {"small_sided_game": ("7s", "41.3s"), "fleet": ("20min", "2h"),
+          "herd": ("1 day", "5 days")}  # fmt: skip
+
+
+def assert_same_folders(whole, windowed) -> None:
+    """Every file of two results folders is the same, but run.json's record of the windows."""
+    names = sorted(p.name for p in whole.iterdir() if not p.name.startswith("."))
+    assert names == sorted(p.name for p in windowed.iterdir() if not p.name.startswith("."))
+    for name in names:
+        a, b = whole / name, windowed / name
+        if name == "run.json":
+            ra, rb = json.loads(a.read_text()), json.loads(b.read_text())
+            assert (
+                ra["settings"]["WindowParams"]["chunk"] != rb["settings"]["WindowParams"]["chunk"]
+            )
+            for record in (ra, rb):
+                record["settings"].pop("WindowParams")
+                record.pop("windows")
+                record.pop("created", None)
+            assert ra["settings"] == rb["settings"]
+        elif name.endswith(".parquet"):
+            pd.testing.assert_frame_equal(pd.read_parquet(a), pd.read_parquet(b), check_exact=True)
+        else:
+            assert a.read_bytes() == b.read_bytes(), name
+
+
+@pytest.mark.parametrize("name", sorted(CHUNKS))
+def test_groups_over_windows_write_the_whole_run_files(name, tmp_path):
+    _, whole = run_scenario(name, chunk="whole", permutations=0, seed=1)
+    whole.write(tmp_path / "whole")
+    for chunk in CHUNKS[name]:
+        _, windowed = run_scenario(name, chunk=chunk, permutations=0, seed=1)
+        assert windowed.run["windows"]["bucket_s"] > 0
+        windowed.write(tmp_path / chunk)
+        assert_same_folders(tmp_path / "whole", tmp_path / chunk)
+    assert len(whole.episodes) > 0 and len(whole.dyads) > 0
+
+
+@pytest.mark.parametrize("name", sorted(CHUNKS))
+def test_mine_over_windows_writes_the_whole_run_files(name, tmp_path):
+    source, options = mine_options(name)
+    whole = mine(source, chunk="whole", seed=1, permutations=0, **options)
+    whole.write(tmp_path / "whole")
+    assert len(whole.patterns) > 0
+    for chunk in CHUNKS[name]:
+        mine(source, chunk=chunk, seed=1, permutations=0, **options).write(tmp_path / chunk)
+        assert_same_folders(tmp_path / "whole", tmp_path / chunk)
+
+
+def test_co_present_dyads_over_windows_equal_the_whole_run():
+    _, whole = run_scenario("fleet", chunk="whole", dyad_pairs="co-present", permutations=0, seed=1)
+    _, windowed = run_scenario(
+        "fleet", chunk="30min", dyad_pairs="co-present", permutations=0, seed=1
+    )
+    pd.testing.assert_frame_equal(whole.dyads, windowed.dyads, check_exact=True)
+
+
+def test_a_chunk_with_significance_tests_is_refused_in_one_line(capsys, tmp_path):
+    source, options = mine_options("small_sided_game")
+    flags = [a for k, v in options.items() for a in ("--" + k.replace("_", "-"), str(v))]
+    code = main(["mine", source, *flags, "--permutations", "9", "--chunk", "10s", "--quiet",
+                 "--out", str(tmp_path / "out")])  # fmt: skip
+    err = capsys.readouterr().err
+    assert code != 0 and "--chunk" in err and "Traceback" not in err
+    assert len(err.strip().splitlines()) == 1
+    assert not (tmp_path / "out").exists()
+
+
+@pytest.mark.parametrize("chunk", ["0", "-2h", "soon", "nan"])
+def test_a_bad_chunk_is_refused_in_one_line(chunk, capsys, tmp_path):
+    source, options = mine_options("small_sided_game")
+    flags = [a for k, v in options.items() for a in ("--" + k.replace("_", "-"), str(v))]
+    code = main(["mine", source, *flags, "--chunk", chunk, "--quiet",
+                 "--out", str(tmp_path / "out")])  # fmt: skip
+    err = capsys.readouterr().err
+    assert code != 0 and "--chunk" in err and len(err.strip().splitlines()) == 1
