@@ -165,9 +165,25 @@ def chunk_timeline(
     workers : int, default 1
         Threads of the neighbour search and velocities (-1: every core).
     """
+    return chunk_timeline_and_keys(snaps, start, stop, grouping, workers, keys=False)[0]
+
+
+def chunk_timeline_and_keys(
+    snaps: Snapshots,
+    start: int,
+    stop: int,
+    grouping: GroupParams,
+    workers: int = 1,
+    keys: bool = True,
+) -> tuple[GroupTimeline, np.ndarray | None]:
+    """Return :func:`chunk_timeline` and :func:`chunk_together_keys` from one neighbour search.
+
+    The first pass of a run over time windows needs both.
+    """
     chunk, motion = _chunk_motion(snaps, start, stop, grouping, workers)
     pairs = neighbour_pairs(chunk, grouping.radius, workers=workers)
-    return GroupTimeline.of(chunk, _groups(chunk, pairs, motion, grouping))
+    timeline = GroupTimeline.of(chunk, _groups(chunk, pairs, motion, grouping))
+    return timeline, together_keys(chunk, pairs) if keys else None
 
 
 def chunk_episode_rows(

@@ -21,8 +21,7 @@ import pandas as pd
 from comove.groups.chain import (
     chunk_dyads,
     chunk_episode_rows,
-    chunk_timeline,
-    chunk_together_keys,
+    chunk_timeline_and_keys,
 )
 from comove.groups.dyads import DyadParams, DyadTally, TrackSamples, dyad_rows, expected_distances
 from comove.groups.episodes import EpisodeParams, Episodes, find_episodes
@@ -35,7 +34,7 @@ from comove.roles.colocation import ColocationParams
 from comove.tracks.alignment import NS_PER_S, AlignParams, Snapshots, sample_every, track_sample
 from comove.tracks.cleaning import CleanParams
 from comove.tracks.motion import half_window_snapshots
-from comove.tracks.streaming import Cleaned, spill_tracks
+from comove.tracks.streaming import Cleaned, release_memory, spill_tracks
 
 
 @dataclass
@@ -81,6 +80,8 @@ class Windowed:
             outer = self.cleaned.window(window, context, self.span)
             start = g0 - outer.first_index
             yield outer, start, start + (g1 - g0)
+            del outer
+            release_memory()
 
     def count(self, chunk: Snapshots) -> None:
         """Count a window's entries per object and take its part of the track sample."""
@@ -116,17 +117,19 @@ def windowed_tracks(
     alignment: AlignParams,
     plan: tuple[int, int | None],
     scratch: str | None = None,
+    workers: int = 1,
 ) -> Iterator[Windowed]:
     """Read and clean the tracks into a scratch folder; remove it when the run ends.
 
     ``plan`` is the bucket length (ns) and the most rows per window
-    (:func:`comove.tracks.streaming.plan_windows`).
+    (:func:`comove.tracks.streaming.plan_windows`); ``workers`` the threads of
+    the stages that use threads (-1: one per core).
     """
     bucket_ns, max_rows = plan
     spill = spill_tracks(source, columns, int(bucket_ns), scratch)
     try:
         windows = spill.windows(max_rows)
-        cleaned = spill.clean(cleaning, alignment, windows)
+        cleaned = spill.clean(cleaning, alignment, windows, workers)
         span = cleaned.grid_span()
         empty = cleaned.window((windows[0][0], windows[0][0]))
         shell = replace(empty, first_index=span[0], n_snapshots=span[1] - span[0] + 1)
@@ -196,9 +199,9 @@ def group_windows(
     timelines, keys = [], []
     for outer, start, stop in run.each(reach, label and f"{label} (1/2)"):
         run.count(outer.window(start, stop))
-        timelines.append(chunk_timeline(outer, start, stop, grouping, workers))
-        if together:
-            keys.append(chunk_together_keys(outer, start, stop, grouping.radius, workers))
+        timeline, found = chunk_timeline_and_keys(outer, start, stop, grouping, workers, together)
+        timelines.append(timeline)
+        keys.append(found)
     episodes = find_episodes(GroupTimeline.joined(timelines), episode_params)
     del timelines
     pair_keys = np.unique(np.concatenate(keys)) if together else None

@@ -327,14 +327,19 @@ class GapTally:
 
     @staticmethod
     def _histogram(gaps: np.ndarray) -> tuple[np.ndarray, ...]:
+        if gaps.size == 0:
+            empty = np.zeros(0, dtype=np.int64)
+            return empty, empty, empty, empty
         keys = gap_bins(gaps)
-        order = np.argsort(keys, kind="stable")
-        keys, gaps = keys[order], gaps[order]
-        starts = np.flatnonzero(np.r_[True, keys[1:] != keys[:-1]]) if keys.size else order[:0]
-        ends = np.r_[starts[1:], keys.size]
-        low = np.minimum.reduceat(gaps, starts) if keys.size else gaps[:0]
-        high = np.maximum.reduceat(gaps, starts) if keys.size else gaps[:0]
-        return keys[starts], (ends - starts).astype(np.int64), low, high
+        base = int(keys.min())
+        at = keys - base  # a few thousand bins per octave of gaps: counted densely
+        count = np.bincount(at)
+        used = np.flatnonzero(count)
+        low = np.full(count.size, np.iinfo(np.int64).max, dtype=np.int64)
+        high = np.full(count.size, np.iinfo(np.int64).min, dtype=np.int64)
+        np.minimum.at(low, at, gaps)
+        np.maximum.at(high, at, gaps)
+        return used + base, count[used].astype(np.int64), low[used], high[used]
 
     @property
     def n(self) -> int:
@@ -1017,6 +1022,7 @@ def clean_window(
     params: CleanParams,
     owned: tuple[int, int],
     cut: tuple[bool, bool],
+    workers: int = 1,
 ) -> CleanedWindow | None:
     """Clean the rows of a time window with its margins as :func:`clean_fixes` cleans them all.
 
@@ -1032,6 +1038,8 @@ def clean_window(
         The window, ns: rows at times ``start <= t < stop`` are its own.
     cut : (bool, bool)
         Whether the input may have rows before, and after, the rows in ``part``.
+    workers : int, default 1
+        Threads of the projection of longitude/latitude (-1: one per core).
 
     Returns
     -------
@@ -1053,7 +1061,8 @@ def clean_window(
                  part.lon, part.lat, times)  # fmt: skip
     kept = _resolve_duplicates(rows)
     if rows.lon is not None:
-        kept.x, kept.y = to_metric(kept.take(rows.lon), kept.take(rows.lat), plan.metric_crs)
+        lon, lat = kept.take(rows.lon), kept.take(rows.lat)
+        kept.x, kept.y = to_metric(lon, lat, plan.metric_crs, workers)
     else:
         kept.x, kept.y = kept.take(rows.a), kept.take(rows.b)
     ends = np.zeros(kept.rows.size, dtype=bool)

@@ -148,7 +148,9 @@ class Spill:
     def _batch(self, name: str, index: int) -> pa.RecordBatch:
         reader = self._open.get(name)
         if reader is None:
-            reader = ipc.open_file(pa.memory_map(str(self.folder / name)))
+            # read, not memory-mapped: mapped pages would stay in the process's memory
+            # until the run ends, so memory would grow with the input
+            reader = ipc.open_file(pa.OSFile(str(self.folder / name)))
             self._open[name] = reader
         return reader.get_batch(index)
 
@@ -184,12 +186,14 @@ class Spill:
         params: CleanParams,
         alignment: AlignParams,
         windows: list[tuple[int, int]] | None = None,
+        workers: int = 1,
     ) -> Cleaned:
         """Clean every window; return the kept fixes (in the scratch folder) and the quality report.
 
-        ``windows`` defaults to one bucket each (:meth:`windows`).
+        ``windows`` defaults to one bucket each (:meth:`windows`); ``workers``
+        are the threads of the projection (-1: one per core).
         """
-        out = _CleanPass(self, params)
+        out = _CleanPass(self, params, workers)
         for k0, k1 in windows if windows is not None else self.windows():
             out.add(k0, k1)
         return out.finish(alignment)
@@ -198,6 +202,22 @@ class Spill:
         """Delete the scratch folder."""
         self._open.clear()
         shutil.rmtree(self.folder, ignore_errors=True)
+
+
+def release_memory() -> None:
+    """Give memory freed by a finished window back to the system.
+
+    A run over windows frees each window's arrays before the next; the C
+    allocator keeps freed pages in its heap (and Arrow's allocator keeps them
+    for a while), so without this the process's memory would creep up with
+    every window. ``malloc_trim`` is glibc's; elsewhere this does nothing.
+    """
+    try:
+        import ctypes
+
+        ctypes.CDLL("libc.so.6").malloc_trim(0)
+    except (OSError, AttributeError):
+        pass
 
 
 def _window_rows(parts: list[pa.RecordBatch], plan: WindowPlan) -> WindowRows:
@@ -387,7 +407,7 @@ class _SpillPass:
         extent = None
         for files in self.batches.values():
             for name, index in files:
-                batch = ipc.open_file(pa.memory_map(str(self.folder / name))).get_batch(index)
+                batch = ipc.open_file(pa.OSFile(str(self.folder / name))).get_batch(index)
                 lon_col, lat_col = ("lon", "lat") if "lon" in batch.schema.names else ("a", "b")
                 part = LonLatExtent.of(batch.column(lon_col).to_numpy(),
                                        batch.column(lat_col).to_numpy(), bins=True)  # fmt: skip
@@ -545,8 +565,8 @@ class Cleaned:
 class _CleanPass:
     """Pass 2: each window cleaned with its margins; the counts joined in time order."""
 
-    def __init__(self, spill: Spill, params: CleanParams) -> None:
-        self.spill, self.params = spill, params
+    def __init__(self, spill: Spill, params: CleanParams, workers: int = 1) -> None:
+        self.spill, self.params, self.workers = spill, params, workers
         self.dropped = spill.dropped.copy()
         self.examples = [[e] if e.size else [] for e in spill.examples]
         self.zone_less = 0
@@ -565,13 +585,15 @@ class _CleanPass:
             lo, hi = max(k0 - reach, self.first_bucket), min(k1 - 1 + reach, self.last_bucket)
             part = spill.rows(range(lo, hi + 1))
             cut = (lo > self.first_bucket, hi < self.last_bucket)
-            done = clean_window(part, spill.plan, self.params, owned, cut)
+            done = clean_window(part, spill.plan, self.params, owned, cut, self.workers)
             if done is not None:
                 break
             # a spike decision reached beyond the margins: widen them (once they hold
             # every bucket nothing is cut, so this ends)
             reach = max(1, 2 * reach)
+        del part
         self._count(done)
+        release_memory()
 
     def _count(self, done: CleanedWindow) -> None:
         self.dropped += done.dropped
@@ -781,9 +803,33 @@ def plan_windows(source: Any, columns: ColumnSpec, params: WindowParams,
     times = row_checks(first).times
     ns = times.ns[times.ok]
     span = int(ns.max() - ns.min()) if ns.size > 1 else NS_PER_S
+    span = max(span, _parquet_time_span(first.sources, first.columns.get("time")))
     wanted_s = max_rows / 4 / (rows / max(span, 1)) / NS_PER_S
     fits = [b for b in ROUND_BUCKETS_S if b <= wanted_s]
     return (fits[-1] if fits else ROUND_BUCKETS_S[0]) * NS_PER_S, max_rows
+
+
+def _parquet_time_span(paths: list[str], column: str | None) -> int:
+    """Return the time span (ns) Parquet files' statistics give for a timestamp column (0: none)."""
+    import pyarrow.parquet as pq
+
+    low, high = None, None
+    for path in paths:
+        if column is None or Path(path).suffix.lower() not in (".parquet", ".pq"):
+            return 0
+        meta = pq.ParquetFile(path).metadata
+        names = [meta.schema.column(i).name for i in range(meta.num_columns)]
+        if column not in names:
+            return 0
+        at = names.index(column)
+        for g in range(meta.num_row_groups):
+            stats = meta.row_group(g).column(at).statistics
+            if stats is None or not stats.has_min_max or not hasattr(stats.min, "timestamp"):
+                return 0
+            lo, hi = stats.min.timestamp(), stats.max.timestamp()
+            low = lo if low is None else min(low, lo)
+            high = hi if high is None else max(high, hi)
+    return 0 if low is None else int((high - low) * NS_PER_S)
 
 
 def estimated_rows(source: Any) -> int | None:

@@ -181,3 +181,59 @@ def test_percentiles_follow_numpy_and_gap_tallies_join_exactly():
         np.testing.assert_array_equal(getattr(joined, name), getattr(whole, name))
     tree = parts[0].then(parts[1].then(parts[2]))
     np.testing.assert_array_equal(tree.count, whole.count)
+
+
+def test_chunk_settings_read_durations_and_refuse_nonsense():
+    from comove.tracks.streaming import WindowParams
+
+    assert WindowParams("2h").chunk_ns() == 2 * 3600 * S
+    assert WindowParams("30min").chunk_ns() == 1800 * S
+    assert WindowParams("1 day").chunk_ns() == 86400 * S
+    assert WindowParams("900").chunk_ns() == 900 * S
+    assert WindowParams("auto").chunk_ns() is None and WindowParams("whole").chunk_ns() is None
+    for bad in ("0", "-1h", "soon", "inf", "nan"):
+        with pytest.raises(InputError, match="chunk must be"):
+            WindowParams(bad)
+    with pytest.raises(InputError, match="scratch"):
+        WindowParams(scratch="/no/such/folder")
+
+
+def test_auto_windows_follow_the_memory_budget(tmp_path):
+    from comove.tracks.streaming import (
+        BYTES_PER_FIX,
+        WindowParams,
+        estimated_rows,
+        plan_windows,
+    )
+
+    frame = _messy(1, n_obj=20, n_t=500)
+    frame["time"] = pd.Timestamp("2026-05-01", tz="UTC") + pd.to_timedelta(frame["time"], "s")
+    frame = frame.sort_values("time", kind="stable")
+    frame.to_parquet(tmp_path / "t.parquet", row_group_size=1000)
+    frame.to_csv(tmp_path / "t.csv", index=False)
+    frame.to_csv(tmp_path / "t.csv.gz", index=False)
+    n = len(frame)
+    assert estimated_rows(str(tmp_path / "t.parquet")) == n  # from the metadata, exactly
+    assert abs(estimated_rows(str(tmp_path / "t.csv")) - n) < 0.1 * n  # from size and lines
+    assert estimated_rows(str(tmp_path / "t.csv.gz")) > 0
+    assert estimated_rows(frame) is None  # in memory already
+    auto = WindowParams()
+    for name in ("t.parquet", "t.csv"):
+        src = str(tmp_path / name)
+        assert plan_windows(src, ColumnSpec(), auto, budget=n * BYTES_PER_FIX * 2) == (None, None)
+        bucket, max_rows = plan_windows(src, ColumnSpec(), auto, budget=n * BYTES_PER_FIX // 5)
+        assert max_rows == n // 5 and bucket >= S
+        # the run over those windows equals the whole run
+        from comove.tracks.cleaning import CleanParams
+
+        spill = spill_tracks(src, ColumnSpec(), bucket)
+        try:
+            windows = spill.windows(max_rows)
+            assert len(windows) >= 5
+            assert all(sum(spill.counts.get(k, 0) for k in range(*w)) <= max_rows
+                       or w[1] - w[0] == 1 for w in windows)  # fmt: skip
+        finally:
+            spill.remove()
+        assert_same_run(src, ColumnSpec(), CleanParams(), AlignParams(), bucket / S, 400, max_rows)
+    assert plan_windows(frame, ColumnSpec(), auto, budget=1) == (None, None)
+    assert plan_windows(frame, ColumnSpec(), WindowParams("5min")) == (300 * S, None)
