@@ -67,21 +67,39 @@ class Windowed:
         self.counts = np.zeros(len(self.cleaned.objects), dtype=np.int64)
 
     def each(
-        self, context: int = 0, label: str | None = None
+        self, context: int = 0, label: str | None = None, keep: bool = False
     ) -> Iterator[tuple[Snapshots, int, int]]:
         """Yield each window's snapshots with ``context`` more on each side, and its own range.
 
         The range ``start, stop`` indexes the window's own snapshots within the
         yielded ones, as the chunk functions of the chains take it. With a
-        ``label``, a progress bar follows the windows.
+        ``label``, a progress bar follows the windows. With ``keep``, the
+        aligned windows are kept in the scratch folder, and a later pass with
+        the same context reads them instead of aligning again.
         """
-        for window in _bar(self.windows, label):
+        for i, window in enumerate(_bar(self.windows, label)):
             g0, g1 = self.cleaned.bucket_grid(window, self.span)
-            outer = self.cleaned.window(window, context, self.span)
+            path = self.cleaned.spill.folder / f"aligned-{context}-{i}.npz"
+            if path.exists():
+                outer = self._load(path)
+            else:
+                outer = self.cleaned.window(window, context, self.span)
+                if keep:
+                    np.savez(path, first_index=outer.first_index, n_snapshots=outer.n_snapshots,
+                             snap=outer.snap, obj=outer.obj, role=outer.role, x=outer.x,
+                             y=outer.y)  # fmt: skip
             start = g0 - outer.first_index
             yield outer, start, start + (g1 - g0)
             del outer
             release_memory()
+
+    def _load(self, path) -> Snapshots:
+        with np.load(path) as data:
+            return replace(
+                self.shell, first_index=int(data["first_index"]),
+                n_snapshots=int(data["n_snapshots"]), snap=data["snap"], obj=data["obj"],
+                role=data["role"], x=data["x"], y=data["y"],
+            )  # fmt: skip
 
     def count(self, chunk: Snapshots) -> None:
         """Count a window's entries per object and take its part of the track sample."""
@@ -197,7 +215,7 @@ def group_windows(
     reach = half_window_snapshots(grouping.velocity_window, run.shell.step_s)
     together = dyad_params.dyad_pairs == "together"
     timelines, keys = [], []
-    for outer, start, stop in run.each(reach, label and f"{label} (1/2)"):
+    for outer, start, stop in run.each(reach, label and f"{label} (1/2)", keep=True):
         run.count(outer.window(start, stop))
         timeline, found = chunk_timeline_and_keys(outer, start, stop, grouping, workers, together)
         timelines.append(timeline)

@@ -359,9 +359,10 @@ class _SpillPass:
         self._write(i, pa.table(columns), t // self.bucket_ns)
 
     def _write(self, i: int, table: pa.Table, bucket: np.ndarray) -> None:
-        order = np.argsort(bucket, kind="stable")
-        bucket = bucket[order]
-        table = table.take(pa.array(order))
+        if not np.all(bucket[1:] >= bucket[:-1]):  # a block in time order needs no sort
+            order = np.argsort(bucket, kind="stable")
+            bucket = bucket[order]
+            table = table.take(pa.array(order))
         cuts = np.flatnonzero(np.r_[True, bucket[1:] != bucket[:-1]])
         name = f"block-{i:06d}.arrow"
         with ipc.new_file(str(self.folder / name), table.schema) as writer:
@@ -492,8 +493,9 @@ class Cleaned:
         t = np.concatenate([p.time for p in parts])
         keep = (t >= lo_ns) & (t <= hi_ns)
         # buckets follow one another in time and each is in (object, time) order:
-        # a stable sort by object gives (object, time) order
-        order = np.flatnonzero(keep)[np.argsort(obj[keep], kind="stable")]
+        # a stable sort by object gives (object, time) order (a radix sort on 16 bits)
+        codes = obj[keep].astype(np.int16) if len(self.objects) < 2**15 else obj[keep]
+        order = np.flatnonzero(keep)[np.argsort(codes, kind="stable")]
         first = parts[0]
         return Fixes(
             obj=obj[order], time=t[order],
