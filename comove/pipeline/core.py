@@ -300,7 +300,7 @@ def _mine_windows(source: Any, stages: list, plan: tuple[int, int | None],
     """Return what ``mine`` needs of a run over time windows."""
     columns, cleaning, alignment, colocation, persistence, _, _, window_params, _ = stages
     with windowed_tracks(source, columns, cleaning, alignment, plan, window_params.scratch,
-                         run_params.threads) as run:  # fmt: skip
+                         run_params.threads, progress) as run:  # fmt: skip
         bound = persistence.min_prevalent_snapshots(run.shell.step_s)
         tally = mine_windows(run, colocation, bound, run_params.threads,
                              "co-location" if progress else None)  # fmt: skip
@@ -520,7 +520,7 @@ def _group_windows(source: Any, stages: list, plan: tuple[int, int | None],
     """Return what ``groups`` needs of a run over time windows."""
     columns, cleaning, alignment, grouping, episode_params, dyad_params = stages[:6]
     with windowed_tracks(source, columns, cleaning, alignment, plan, stages[7].scratch,
-                         run_params.threads) as run:  # fmt: skip
+                         run_params.threads, progress) as run:  # fmt: skip
         found = group_windows(run, grouping, episode_params, dyad_params, run_params.threads,
                               "groups" if progress else None)  # fmt: skip
         return run.shell, run.quality(), run.sample(), found.table, found.centroids, found.dyads

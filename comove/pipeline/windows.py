@@ -136,18 +136,20 @@ def windowed_tracks(
     plan: tuple[int, int | None],
     scratch: str | None = None,
     workers: int = 1,
+    progress: bool = False,
 ) -> Iterator[Windowed]:
     """Read and clean the tracks into a scratch folder; remove it when the run ends.
 
     ``plan`` is the bucket length (ns) and the most rows per window
     (:func:`comove.tracks.streaming.plan_windows`); ``workers`` the threads of
-    the stages that use threads (-1: one per core).
+    the stages that use threads (-1: one per core); ``progress`` shows a bar
+    over the windows while they are cleaned.
     """
     bucket_ns, max_rows = plan
     spill = spill_tracks(source, columns, int(bucket_ns), scratch)
     try:
         windows = spill.windows(max_rows)
-        cleaned = spill.clean(cleaning, alignment, windows, workers)
+        cleaned = spill.clean(cleaning, alignment, windows, workers, progress)
         span = cleaned.grid_span()
         empty = cleaned.window((windows[0][0], windows[0][0]))
         shell = replace(empty, first_index=span[0], n_snapshots=span[1] - span[0] + 1)

@@ -187,14 +187,21 @@ class Spill:
         alignment: AlignParams,
         windows: list[tuple[int, int]] | None = None,
         workers: int = 1,
+        progress: bool = False,
     ) -> Cleaned:
         """Clean every window; return the kept fixes (in the scratch folder) and the quality report.
 
         ``windows`` defaults to one bucket each (:meth:`windows`); ``workers``
-        are the threads of the projection (-1: one per core).
+        are the threads of the projection (-1: one per core); ``progress``
+        shows a bar over the windows (on a terminal).
         """
         out = _CleanPass(self, params, workers)
-        for k0, k1 in windows if windows is not None else self.windows():
+        todo = windows if windows is not None else self.windows()
+        if progress:
+            from tqdm.auto import tqdm
+
+            todo = tqdm(todo, disable=None, unit="window", leave=False, desc="cleaning")
+        for k0, k1 in todo:
             out.add(k0, k1)
         return out.finish(alignment)
 
