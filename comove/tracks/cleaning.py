@@ -750,9 +750,18 @@ def _drop_counts(
 
 def _nothing_kept(raw: RawTracks, dropped: dict[str, int], examples: dict) -> InputError:
     """Return the error for input of which no row survives, naming the main reason."""
+    return nothing_kept(raw.sources, dropped, examples)
+
+
+def nothing_kept(sources: list[str], dropped: dict[str, int], examples: dict) -> InputError:
+    """Return the error for input of which no row survives, naming the main reason.
+
+    ``dropped`` counts the rows per reason and ``examples`` lists, per reason,
+    ``{"source", "row"}`` of the first rows dropped for it (as the quality report).
+    """
     n = sum(dropped.values())  # every row read was dropped
     main = max(DROP_REASONS, key=lambda r: dropped[r]) if n else None
-    where = _describe_sources(raw.sources)
+    where = _describe_sources(sources)
     if main is None:
         return InputError(f"{where}: no rows to clean; give a file with data rows")
     example = examples[main][0]

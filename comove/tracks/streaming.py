@@ -65,6 +65,7 @@ from comove.tracks.cleaning import (
     clean_window,
     gap_bins,
     gaps_in_bins,
+    nothing_kept,
     percentile_ranks,
     percentiles,
     quality_report,
@@ -382,12 +383,16 @@ class _SpillPass:
     def _finish(self) -> Spill:
         raw = self.first
         if not self.batches:
-            names = ", ".join(dict.fromkeys(self.source_names.values()))
-            main = DROP_REASONS[int(np.argmax(self.dropped))]
-            raise InputError(
-                f"{names}: no usable rows — all {self.seq} were dropped, most "
-                f"({int(self.dropped.max())}) for {main.replace('_', ' ')}"
-            )
+            starts = np.asarray([self.source_starts[k] for k in sorted(self.source_starts)])
+            names = [self.source_names[k] for k in sorted(self.source_names)]
+            dropped = {name: int(self.dropped[i]) for i, name in enumerate(DROP_REASONS)}
+            examples = {}
+            for i, name in enumerate(DROP_REASONS):
+                seq = np.concatenate(self.examples[i]) if self.examples[i] else starts[:0]
+                src = np.searchsorted(starts, seq, side="right") - 1
+                examples[name] = [{"source": names[a], "row": int(q - starts[a] + 1)}
+                                  for a, q in zip(src, seq, strict=True)]  # fmt: skip
+            raise nothing_kept(list(raw.sources) if raw is not None else [], dropped, examples)
         metric_crs = None
         if self.extent is not None:
             if self.extent.needs_bins:

@@ -257,3 +257,14 @@ def test_windows_shorter_than_a_spike_decision_widen_their_margins(monkeypatch):
     cleaned = assert_same_run(frame, ColumnSpec(), CleanParams(max_speed=30.0), AlignParams(),
                               1.1, 97)  # fmt: skip
     assert any(widened) and cleaned.quality["dropped"]["speed_spike"] > 0
+
+
+def test_input_with_no_usable_row_gets_the_whole_run_message():
+    frame = pd.DataFrame({"id": ["a", "b", None], "time": ["x", "y", "z"], "x": 1.0, "y": 2.0,
+                          "role": "r"})  # fmt: skip
+    with pytest.raises(InputError) as whole:
+        clean_fixes(read_tracks(frame))
+    with pytest.raises(InputError) as windowed:
+        spill_tracks(frame, ColumnSpec(), 60 * S, block_rows=2)
+    assert str(windowed.value) == str(whole.value)
+    assert "unparseable time" in str(whole.value)
