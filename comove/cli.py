@@ -32,7 +32,7 @@ _COLLECTING = gc.isenabled()  # a program that imports this module keeps its own
 gc.disable()
 
 import comove  # noqa: E402
-from comove.errors import EngineError, InputError  # noqa: E402
+from comove.errors import ComoveNote, EngineError, InputError  # noqa: E402
 from comove.groups.presets import PRESETS  # noqa: E402
 from comove.io.results import CAUTION, Claim, claim  # noqa: E402
 from comove.io.runfile import load_run_file  # noqa: E402
@@ -459,7 +459,7 @@ def main(argv: list[str] | None = None) -> int:
     commands = {"mine": _run_mine, "groups": _run_groups, "sweep": _run_sweep,
                 "report": _run_report, "demo": _run_demo}  # fmt: skip
     try:
-        with _stopping_on_signals():
+        with _stopping_on_signals(), _notes_printed(args.command):
             commands[args.command](args)
     except InputError as err:
         print(f"comove {args.command}: error: {err.worded_for('--')}", file=sys.stderr)
@@ -479,6 +479,25 @@ def main(argv: list[str] | None = None) -> int:
         print(f"comove {args.command}: error: {where}{err.strerror or err}", file=sys.stderr)
         return 1
     return 0
+
+
+@contextmanager
+def _notes_printed(command: str) -> Iterator[None]:
+    """Print the run's notes (:class:`~comove.errors.ComoveNote`) as one line each on stderr."""
+    import warnings
+
+    shown = warnings.showwarning
+
+    def show(message, category, filename, lineno, file=None, line=None) -> None:  # noqa: ANN001
+        if issubclass(category, ComoveNote):
+            print(f"comove {command}: note: {message}", file=sys.stderr)
+        else:
+            shown(message, category, filename, lineno, file, line)
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("always", ComoveNote)
+        warnings.showwarning = show
+        yield
 
 
 if __name__ == "__main__":

@@ -33,6 +33,14 @@ class InputError(Exception):
         return text
 
 
+class ComoveNote(UserWarning):
+    """Something a user should know before a run's results: a warning, in one line.
+
+    The command line prints it as ``comove COMMAND: note: ...`` on standard
+    error; library users see it as a warning and can filter it by this class.
+    """
+
+
 class EngineError(Exception):
     """A run that its engine could not carry out, explained in one line.
 

@@ -15,6 +15,7 @@ Stages run forward, each a plain function of the previous stage's output::
 from __future__ import annotations
 
 import os
+import warnings
 from collections.abc import Iterator
 from concurrent.futures import Future, ThreadPoolExecutor
 from contextlib import contextmanager
@@ -24,7 +25,7 @@ from typing import Any
 
 import pandas as pd
 
-from comove.errors import bad_setting
+from comove.errors import ComoveNote, bad_setting
 from comove.groups.chain import GroupTally, group_chain
 from comove.groups.dyads import DyadParams, dyad_table
 from comove.groups.episodes import EpisodeParams
@@ -283,6 +284,16 @@ def _plan(
                 "cannot be used with significance tests or cross-K yet: they read the whole "
                 "period at once; give --permutations 0 (and no --k-radii), or leave --chunk out",
             )
+        if str(window_params.chunk).strip().lower() == "auto":
+            if plan_windows(source, columns, window_params)[0] is not None:
+                warnings.warn(
+                    "the input needs more memory in one piece than this run plans to use, but "
+                    "significance tests and cross-K read the whole period at once, so it runs "
+                    "in one piece; give --permutations 0 (and no --k-radii) to run it in time "
+                    "windows (docs/long-inputs.md)",
+                    ComoveNote,
+                    stacklevel=3,
+                )
         return None
     bucket, max_rows = plan_windows(source, columns, window_params)
     return None if bucket is None else (bucket, max_rows)

@@ -89,3 +89,25 @@ def test_a_bad_chunk_is_refused_in_one_line(chunk, capsys, tmp_path):
                  "--out", str(tmp_path / "out")])  # fmt: skip
     err = capsys.readouterr().err
     assert code != 0 and "--chunk" in err and len(err.strip().splitlines()) == 1
+
+
+def test_tests_that_keep_a_large_input_in_one_piece_say_so_first(capsys, tmp_path, monkeypatch):
+    import comove.tracks.streaming as streaming
+
+    # a machine with little memory: the scenario is larger than the run plans to hold
+    monkeypatch.setattr(streaming, "memory_budget", lambda: 10_000)
+    source, options = mine_options("small_sided_game")
+    flags = [a for k, v in options.items() for a in ("--" + k.replace("_", "-"), str(v))]
+    assert main(["mine", source, *flags, "--permutations", "3", "--quiet", "--seed", "1",
+                 "--out", str(tmp_path / "tested")]) == 0  # fmt: skip
+    err = capsys.readouterr().err.strip().splitlines()
+    assert (
+        len(err) == 1 and err[0].startswith("comove mine: note: ") and "--permutations 0" in err[0]
+    )
+    run = json.loads((tmp_path / "tested" / "run.json").read_text())
+    assert run["windows"] is None  # held in one piece
+    # without tests the same machine cuts the run into windows, silently
+    assert main(["mine", source, *flags, "--permutations", "0", "--quiet",
+                 "--out", str(tmp_path / "windows")]) == 0  # fmt: skip
+    assert capsys.readouterr().err == ""
+    assert json.loads((tmp_path / "windows" / "run.json").read_text())["windows"] is not None
