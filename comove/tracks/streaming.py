@@ -123,6 +123,7 @@ class Spill:
     span: tuple[int, int]
     counts: dict[int, int] = field(default_factory=dict)
     _open: dict[str, Any] = field(default_factory=dict, repr=False)
+    _codes: dict[tuple[str, str], np.ndarray] = field(default_factory=dict, repr=False)
 
     @property
     def buckets(self) -> range:
@@ -135,8 +136,8 @@ class Spill:
         parts = []
         for k in buckets:
             for name, index in self.batches.get(k, []):
-                parts.append(self._batch(name, index))
-        rows = _window_rows(parts, self.plan)
+                parts.append((name, self._batch(name, index)))
+        rows = _window_rows(parts, self.plan, self._codes)
         if lo is None and hi is None:
             return rows
         keep = np.ones(rows.t.size, dtype=bool)
@@ -209,6 +210,7 @@ class Spill:
     def remove(self) -> None:
         """Delete the scratch folder."""
         self._open.clear()
+        self._codes.clear()
         shutil.rmtree(self.folder, ignore_errors=True)
 
 
@@ -228,22 +230,33 @@ def release_memory() -> None:
         pass
 
 
-def _window_rows(parts: list[pa.RecordBatch], plan: WindowPlan) -> WindowRows:
-    """Return record batches of the spill as rows with the whole input's codes."""
+def _window_rows(
+    parts: list[tuple[str, pa.RecordBatch]],
+    plan: WindowPlan,
+    known: dict[tuple[str, str], np.ndarray],
+) -> WindowRows:
+    """Return record batches of the spill as rows with the whole input's codes.
+
+    A file of the spill has one dictionary per text column (the IPC file format
+    does not replace dictionaries), so its codes are mapped once and kept in ``known``.
+    """
 
     def codes(column: str, names: np.ndarray) -> np.ndarray:
         out = []
-        for part in parts:
+        for name, part in parts:
             d = part.column(column)
-            at = np.searchsorted(names, np.asarray(d.dictionary.to_pylist(), dtype=object))
-            out.append(at.astype(np.int32)[d.indices.to_numpy()])
+            at = known.get((name, column))
+            if at is None:
+                words = np.asarray(d.dictionary.to_pylist(), dtype=object)
+                at = known[(name, column)] = np.searchsorted(names, words).astype(np.int32)
+            out.append(at[d.indices.to_numpy()])
         return np.concatenate(out) if out else np.zeros(0, dtype=np.int32)
 
     def plain(column: str, dtype: Any) -> np.ndarray:
-        out = [part.column(column).to_numpy(zero_copy_only=False) for part in parts]
+        out = [part.column(column).to_numpy(zero_copy_only=False) for _, part in parts]
         return np.concatenate(out).astype(dtype, copy=False) if out else np.zeros(0, dtype)
 
-    has_lonlat = bool(parts) and "lon" in parts[0].schema.names
+    has_lonlat = bool(parts) and "lon" in parts[0][1].schema.names
     lonlat = plan.coords != "planar"
     a, b = plain("a", np.float64), plain("b", np.float64)
     lon = plain("lon", np.float64) if has_lonlat else (a if lonlat else None)
@@ -706,8 +719,10 @@ def _grid(alignment: AlignParams, median_s: float | None, n_gaps: int) -> tuple[
 #: Share of the available memory a run may plan to use, and the most it plans for.
 MEMORY_SHARE = 0.25
 MEMORY_CAP = 2 * 2**30
-#: Memory a run needs per fix it holds (read, cleaned, aligned and chained), bytes; measured
-#: on the fleet-day benchmark (docs/performance.md).
+#: Memory a run plans per fix of a window (read, cleaned, aligned and chained), bytes. On the
+#: fleet-day benchmark a window of 5.4 M fixes peaked at about 250 bytes a fix above the
+#: process's start (docs/performance.md); 400 leaves room for denser scenes (more
+#: neighbour pairs per fix).
 BYTES_PER_FIX = 400
 #: Bytes per row of compressed text, as a multiple of the compressed size (common practice
 #: for CSV under gzip: ratios of 4-10).
