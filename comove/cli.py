@@ -38,7 +38,7 @@ from comove.io.results import CAUTION, Claim, claim  # noqa: E402
 from comove.io.runfile import load_run_file  # noqa: E402
 from comove.pipeline.core import GROUP_STAGES, MINE_STAGES, groups, mine  # noqa: E402
 from comove.pipeline.sweep import SWEEP_STAGES, sweep  # noqa: E402
-from comove.tracks.cleaning import format_quality_summary  # noqa: E402
+from comove.tracks.quality import format_quality_summary  # noqa: E402
 
 gc.freeze()  # what is loaded now stays: later collections skip it
 if _COLLECTING:

@@ -302,7 +302,7 @@ def default_step(fixes: Fixes) -> float:
         The value of ``ROUND_STEPS_S`` nearest on a log scale to the median
         interval between consecutive fixes of the same object.
     """
-    from comove.tracks.cleaning import _quantiles
+    from comove.tracks.quality import _quantiles
 
     same = fixes.obj[1:] == fixes.obj[:-1]
     dt = np.diff(fixes.time)[same]

@@ -53,23 +53,25 @@ from comove.tracks.alignment import (
 )
 from comove.tracks.cleaning import (
     DROP_REASONS,
-    INTERVAL_PERCENTILES,
     MAX_EXAMPLES,
     MAX_SPIKE_PASSES,
     CleanedWindow,
     CleanParams,
     Fixes,
-    GapTally,
     WindowPlan,
     WindowRows,
     clean_window,
+    nothing_kept,
+    row_checks,
+)
+from comove.tracks.quality import (
+    INTERVAL_PERCENTILES,
+    GapTally,
     gap_bins,
     gaps_in_bins,
-    nothing_kept,
     percentile_ranks,
     percentiles,
     quality_report,
-    row_checks,
 )
 
 __all__ = ["Cleaned", "Spill", "WindowParams", "plan_windows", "spill_tracks"]

@@ -13,13 +13,8 @@ import pytest
 
 from comove.errors import InputError
 from comove.io.reading import ColumnSpec, RawTracks, read_tracks
-from comove.tracks.cleaning import (
-    DROP_REASONS,
-    CleanParams,
-    Fixes,
-    clean_fixes,
-    format_quality_summary,
-)
+from comove.tracks.cleaning import DROP_REASONS, CleanParams, Fixes, clean_fixes
+from comove.tracks.quality import format_quality_summary
 
 T0 = 1_772_366_400  # 2026-03-01T12:00:00Z in epoch seconds (checked against calendar below)
 NS = 1_000_000_000

@@ -12,11 +12,8 @@ from scenes import SCENARIOS_DIR
 from comove.errors import InputError
 from comove.io.reading import ColumnSpec, read_tracks
 from comove.tracks.alignment import AlignParams, align
-from comove.tracks.cleaning import (
-    GapTally,
-    clean_fixes,
-    percentiles,
-)
+from comove.tracks.cleaning import clean_fixes
+from comove.tracks.quality import GapTally, percentiles
 from comove.tracks.streaming import SCRATCH_PREFIX, spill_tracks
 
 S = 1_000_000_000
