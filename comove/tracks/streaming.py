@@ -133,21 +133,13 @@ class Spill:
         keys = sorted(self.batches)
         return range(keys[0], keys[-1] + 1)
 
-    def rows(self, buckets: range, lo: int | None = None, hi: int | None = None) -> WindowRows:
-        """Return the rows of ``buckets`` with times ``lo <= t <= hi`` (all when None)."""
+    def rows(self, buckets: range) -> WindowRows:
+        """Return the rows of ``buckets``, with the whole input's codes."""
         parts = []
         for k in buckets:
             for name, index in self.batches.get(k, []):
                 parts.append((name, self._batch(name, index)))
-        rows = _window_rows(parts, self.plan, self._codes)
-        if lo is None and hi is None:
-            return rows
-        keep = np.ones(rows.t.size, dtype=bool)
-        if lo is not None:
-            keep &= rows.t >= lo
-        if hi is not None:
-            keep &= rows.t <= hi
-        return WindowRows(*(None if v is None else v[keep] for v in vars(rows).values()))
+        return _window_rows(parts, self.plan, self._codes)
 
     def _batch(self, name: str, index: int) -> pa.RecordBatch:
         reader = self._open.get(name)
