@@ -235,6 +235,12 @@ def group_windows(
     tally: DyadTally | None = None
     gathered = []
     before = np.zeros_like(run.counts)
+
+    def gather(chunk: Snapshots, needed: np.ndarray) -> None:
+        """Take a window's positions De reads; windows come in time order."""
+        gathered.append(TrackSamples.gather(chunk, before, needed))
+        before[:] += np.bincount(chunk.obj, minlength=n)
+
     for outer, start, stop in run.each(reach, label and f"{label} (2/2)"):
         offset = outer.first_index + start - run.span[0]
         part = chunk_episode_rows(outer, start, stop, episodes, grouping, workers, offset)
@@ -242,17 +248,12 @@ def group_windows(
         counted = chunk_dyads(outer, start, stop, grouping.radius, pair_keys, workers)
         tally = counted if tally is None else tally.then(counted)
         if needed is not None:
-            chunk = outer.window(start, stop)
-            gathered.append(TrackSamples.gather(chunk, before, needed))
-            before += np.bincount(chunk.obj, minlength=n)
+            gather(outer.window(start, stop), needed)
     assert rows is not None and tally is not None
     if needed is None:  # co-present pairs: known only now
-        a, b = tally.pairs()
-        needed = TrackSamples.needed(a, b, run.counts, cap)
+        needed = TrackSamples.needed(*tally.pairs(), run.counts, cap)
         for outer, start, stop in run.each(0, label and f"{label} (De)"):
-            chunk = outer.window(start, stop)
-            gathered.append(TrackSamples.gather(chunk, before, needed))
-            before += np.bincount(chunk.obj, minlength=n)
+            gather(outer.window(start, stop), needed)
     expected = expected_distances(TrackSamples.joined(run.counts, gathered), tally, cap)
     table, centroids = episode_table(run.shell, episodes, None, grouping.min_speed, rows=rows)
     return WindowedGroups(episodes, table, centroids, dyad_rows(tally, run.shell, expected, cap))

@@ -18,6 +18,7 @@ import numpy as np
 import pyproj
 
 from comove.errors import InputError
+from comove.tracks.quality import _quantiles
 
 if TYPE_CHECKING:
     from comove.tracks.cleaning import Fixes
@@ -302,22 +303,58 @@ def default_step(fixes: Fixes) -> float:
         The value of ``ROUND_STEPS_S`` nearest on a log scale to the median
         interval between consecutive fixes of the same object.
     """
-    from comove.tracks.quality import _quantiles
+    return _step_near(_median_interval(fixes))
 
+
+def _median_interval(fixes: Fixes) -> float | None:
+    """Return the median interval (s) between consecutive fixes of an object (None: none)."""
     same = fixes.obj[1:] == fixes.obj[:-1]
     dt = np.diff(fixes.time)[same]
     dt = dt[dt > 0]
-    if dt.size == 0:
+    return _quantiles(dt, NS_PER_S)["median"] if dt.size else None
+
+
+def _step_near(median_s: float | None) -> float:
+    """Return :func:`round_step` of a median interval, refusing when there is none."""
+    if median_s is None:
         raise InputError(
             "cannot choose a time step: no object has two fixes at different times; give --step"
         )
-    return round_step(float(_quantiles(dt, NS_PER_S)["median"]))
+    return round_step(float(median_s))
 
 
 def round_step(median_s: float) -> float:
     """Return the value of ``ROUND_STEPS_S`` nearest on a log scale to ``median_s`` seconds."""
     steps = np.asarray(ROUND_STEPS_S)
     return float(steps[np.argmin(np.abs(np.log(steps) - np.log(median_s)))])
+
+
+def grid_ns(params: AlignParams, median_s: Callable[[], float | None]) -> tuple[int, int]:
+    """Return the step and the bridged gap in ns, their defaults resolved.
+
+    Parameters
+    ----------
+    params : AlignParams
+        The settings.
+    median_s : callable
+        Returns the median sampling interval (s), or None when no object has
+        two fixes; called only when ``params.step`` is not given. The run in one
+        piece reads it from its fixes, a run over windows from its gap tally.
+    """
+    step_s = params.step if params.step is not None else _step_near(median_s())
+    step_ns = int(round(step_s * NS_PER_S))
+    if step_ns <= 0:
+        raise InputError("--step is below one nanosecond; give a larger --step")
+    max_gap_s = params.max_gap if params.max_gap is not None else DEFAULT_GAP_STEPS * step_s
+    return step_ns, int(round(max_gap_s * NS_PER_S))
+
+
+def no_grid_point(step_ns: int) -> InputError:
+    """Return the error for fixes of which none falls on or spans a grid point."""
+    return InputError(
+        f"no fix falls on or spans a grid point of step {step_ns / NS_PER_S:g} s; "
+        "give a smaller --step or a larger --max-gap"
+    )
 
 
 def align(fixes: Fixes, params: AlignParams | None = None) -> Snapshots:
@@ -357,21 +394,11 @@ def align(fixes: Fixes, params: AlignParams | None = None) -> Snapshots:
     >>> snaps.first_index, snaps.snap.tolist(), snaps.x.tolist()
     (10, [0, 1, 2], [0.0, 2.0, 4.0])
     """
-    params = params or AlignParams()
-    step_s = params.step if params.step is not None else default_step(fixes)
-    step_ns = int(round(step_s * NS_PER_S))
-    if step_ns <= 0:
-        raise InputError("--step is below one nanosecond; give a larger --step")
-    max_gap_s = params.max_gap if params.max_gap is not None else DEFAULT_GAP_STEPS * step_s
-    max_gap_ns = int(round(max_gap_s * NS_PER_S))
-
+    step_ns, max_gap_ns = grid_ns(params or AlignParams(), lambda: _median_interval(fixes))
     first, count, on_grid, t_next = _owned_grid_points(fixes, step_ns, max_gap_ns)
     total = int(count.sum())
     if total == 0:
-        raise InputError(
-            f"no fix falls on or spans a grid point of step {step_s:g} s; "
-            "give a smaller --step or a larger --max-gap"
-        )
+        raise no_grid_point(step_ns)
     if total == fixes.time.size and on_grid.all() and (count == 1).all():
         # every fix sits on its own grid point (regular sampling at the step, the usual
         # case for 10-25 Hz tracking): nothing to interpolate

@@ -44,12 +44,12 @@ from comove.errors import InputError, bad_setting
 from comove.io.projection import LonLatExtent, metric_crs_of
 from comove.io.reading import BLOCK_ROWS, ColumnSpec, read_blocks
 from comove.tracks.alignment import (
-    DEFAULT_GAP_STEPS,
     NS_PER_S,
     AlignParams,
     Snapshots,
     align_window,
-    round_step,
+    grid_ns,
+    no_grid_point,
 )
 from comove.tracks.cleaning import (
     DROP_REASONS,
@@ -152,11 +152,7 @@ class Spill:
 
     def example_rows(self, seq: np.ndarray) -> list[dict]:
         """Return ``{"source", "row"}`` of rows given by their reading-order numbers."""
-        src = np.searchsorted(self.source_starts, seq, side="right") - 1
-        return [
-            {"source": self.source_names[s], "row": int(q - self.source_starts[s] + 1)}
-            for s, q in zip(src.tolist(), seq.tolist(), strict=True)
-        ]
+        return _example_rows(self.source_starts, self.source_names, seq)
 
     def windows(self, max_rows: int | None = None) -> list[tuple[int, int]]:
         """Return the windows: runs ``k0 <= k < k1`` of consecutive buckets, in time order.
@@ -206,6 +202,15 @@ class Spill:
         self._open.clear()
         self._codes.clear()
         shutil.rmtree(self.folder, ignore_errors=True)
+
+
+def _example_rows(starts: np.ndarray, names: list[str], seq: np.ndarray) -> list[dict]:
+    """Return ``{"source", "row"}`` (1-based row within its source) of reading-order numbers."""
+    src = np.searchsorted(starts, seq, side="right") - 1
+    return [
+        {"source": names[s], "row": int(q - starts[s] + 1)}
+        for s, q in zip(src.tolist(), seq.tolist(), strict=True)
+    ]
 
 
 def release_memory() -> None:
@@ -389,17 +394,16 @@ class _SpillPass:
 
     def _finish(self) -> Spill:
         raw = self.first
+        starts = np.asarray([self.source_starts[k] for k in sorted(self.source_starts)],
+                            dtype=np.int64)  # fmt: skip
+        names = [self.source_names[k] for k in sorted(self.source_names)]
+        examples = [np.concatenate(e)[:MAX_EXAMPLES] if e else np.zeros(0, np.int64)
+                    for e in self.examples]  # fmt: skip
         if not self.batches:
-            starts = np.asarray([self.source_starts[k] for k in sorted(self.source_starts)])
-            names = [self.source_names[k] for k in sorted(self.source_names)]
             dropped = {name: int(self.dropped[i]) for i, name in enumerate(DROP_REASONS)}
-            examples = {}
-            for i, name in enumerate(DROP_REASONS):
-                seq = np.concatenate(self.examples[i]) if self.examples[i] else starts[:0]
-                src = np.searchsorted(starts, seq, side="right") - 1
-                examples[name] = [{"source": names[a], "row": int(q - starts[a] + 1)}
-                                  for a, q in zip(src, seq, strict=True)]  # fmt: skip
-            raise nothing_kept(list(raw.sources) if raw is not None else [], dropped, examples)
+            shown = {name: _example_rows(starts, names, examples[i])
+                     for i, name in enumerate(DROP_REASONS)}  # fmt: skip
+            raise nothing_kept(list(raw.sources) if raw is not None else [], dropped, shown)
         metric_crs = None
         if self.extent is not None:
             if self.extent.needs_bins:
@@ -414,13 +418,8 @@ class _SpillPass:
             input_crs="EPSG:4326" if raw.coords == "lonlat" else raw.crs,
             metric_crs=metric_crs, time_kind=str(self.kind),
         )  # fmt: skip
-        starts = [self.source_starts[k] for k in sorted(self.source_starts)]
-        names = [self.source_names[k] for k in sorted(self.source_names)]
-        examples = [np.concatenate(e)[:MAX_EXAMPLES] if e else np.zeros(0, np.int64)
-                    for e in self.examples]  # fmt: skip
         return Spill(self.folder, self.bucket_ns, self.batches, plan, list(raw.sources), names,
-                     np.asarray(starts, dtype=np.int64), self.seq, self.dropped, examples,
-                     self.span, self.counts)  # fmt: skip
+                     starts, self.seq, self.dropped, examples, self.span, self.counts)  # fmt: skip
 
     def _binned(self) -> LonLatExtent:
         """Return the extent with longitude bins, from the rows written (a spread over 180°)."""
@@ -540,10 +539,7 @@ class Cleaned:
                 last = snaps.first_index + int(snaps.snap[-1])
                 break
         if first is None or last is None:
-            raise InputError(
-                f"no fix falls on or spans a grid point of step {self.step_ns / NS_PER_S:g} s; "
-                "give a smaller --step or a larger --max-gap"
-            )
+            raise no_grid_point(self.step_ns)
         return first, last
 
     def bucket_grid(
@@ -658,7 +654,7 @@ class _CleanPass:
             coords=plan.coords, crs=(plan.input_crs, plan.metric_crs),
             max_speed=self.params.max_speed, passes=passes, sources=spill.sources,
         )  # fmt: skip
-        step_ns, max_gap_ns = _grid(alignment, interval["median"], gaps.n)
+        step_ns, max_gap_ns = grid_ns(alignment, lambda: interval["median"])
         return Cleaned(spill, objects, roles, remap_obj, remap_role, quality, step_ns,
                        max_gap_ns, gaps.first[used_obj], gaps.last[used_obj])  # fmt: skip
 
@@ -689,23 +685,6 @@ class _CleanPass:
         values = np.sort(np.concatenate(found))
         keys = gap_bins(values)
         return {int(key): values[keys == key] for key in bins}
-
-
-def _grid(alignment: AlignParams, median_s: float | None, n_gaps: int) -> tuple[int, int]:
-    """Return the step and bridged gap in ns, resolving their defaults as ``align`` does."""
-    if alignment.step is not None:
-        step_s = alignment.step
-    elif n_gaps == 0 or median_s is None:
-        raise InputError(
-            "cannot choose a time step: no object has two fixes at different times; give --step"
-        )
-    else:
-        step_s = round_step(median_s)
-    step_ns = int(round(step_s * NS_PER_S))
-    if step_ns <= 0:
-        raise InputError("--step is below one nanosecond; give a larger --step")
-    max_gap_s = alignment.max_gap if alignment.max_gap is not None else DEFAULT_GAP_STEPS * step_s
-    return step_ns, int(round(max_gap_s * NS_PER_S))
 
 
 # --------------------------------------------------------------------------- settings
