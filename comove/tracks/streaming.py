@@ -631,8 +631,6 @@ class _CleanPass:
         spill, plan, gaps = self.spill, self.spill.plan, self.gaps
         assert gaps is not None
         used_obj = gaps.first != np.iinfo(np.int64).max
-        if not used_obj.any():
-            raise InputError(f"{spill.source_names[0]}: no usable rows after cleaning")
         remap_obj = (np.cumsum(used_obj) - 1).astype(np.int32)
         remap_role = (np.cumsum(self.used_role) - 1).astype(np.int32)
         objects, roles = plan.objects[used_obj], plan.roles[self.used_role]
@@ -644,6 +642,8 @@ class _CleanPass:
             if self.examples[i] else []
             for i, name in enumerate(DROP_REASONS)
         }  # fmt: skip
+        if not used_obj.any():  # every row dropped: the message of a run in one piece
+            raise nothing_kept(spill.sources, dropped, examples)
         passes = 0
         if self.params.max_speed is not None:
             passes = min(self.last_pass + 1, MAX_SPIKE_PASSES)

@@ -257,11 +257,26 @@ def test_windows_shorter_than_a_spike_decision_widen_their_margins(monkeypatch):
 
 
 def test_input_with_no_usable_row_gets_the_whole_run_message():
+    from comove.tracks.cleaning import CleanParams
+
     frame = pd.DataFrame({"id": ["a", "b", None], "time": ["x", "y", "z"], "x": 1.0, "y": 2.0,
                           "role": "r"})  # fmt: skip
     with pytest.raises(InputError) as whole:
         clean_fixes(read_tracks(frame))
-    with pytest.raises(InputError) as windowed:
+    with pytest.raises(InputError) as windowed:  # every row unusable on its own
         spill_tracks(frame, ColumnSpec(), 60 * S, block_rows=2)
     assert str(windowed.value) == str(whole.value)
     assert "unparseable time" in str(whole.value)
+    # every row well-formed, but every one a conflicting duplicate: dropped in cleaning
+    clash = pd.DataFrame({"id": "a", "time": [5.0, 5.0, 9.0, 9.0], "x": [0.0, 1.0, 2.0, 3.0],
+                          "y": 0.0, "role": "r"})  # fmt: skip
+    with pytest.raises(InputError) as whole:
+        clean_fixes(read_tracks(clash))
+    spill = spill_tracks(clash, ColumnSpec(), 4 * S, block_rows=3)
+    try:
+        with pytest.raises(InputError) as windowed:
+            spill.clean(CleanParams(), AlignParams())
+    finally:
+        spill.remove()
+    assert str(windowed.value) == str(whole.value)
+    assert "conflicting duplicate" in str(whole.value)
