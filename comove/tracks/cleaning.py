@@ -125,7 +125,7 @@ class Fixes:
     roles : numpy.ndarray
         Role names (str), sorted; the index is the code.
     metric_crs : pyproj.CRS or None
-        The CRS ``x`` and ``y`` are in: the local azimuthal equidistant CRS for lon/lat and
+        The CRS ``x`` and ``y`` are in: the local Lambert azimuthal equal-area CRS for lon/lat and
         other-CRS input; the file's own CRS for planar input that came with one; ``None`` for
         plain planar input.
     input_crs : str or None

@@ -64,7 +64,7 @@ def test_local_plane_distances_match_geodesic(lat0: float) -> None:
 def test_centre_is_bounding_box_midpoint() -> None:
     crs = local_metric_crs(np.array([10.0, 12.0, 11.5]), np.array([50.0, 54.0, 51.0]))
     params = _params(crs)
-    assert params["proj"] == "aeqd"
+    assert params["proj"] == "laea"
     assert float(params["lon_0"]) == pytest.approx(11.0)
     assert float(params["lat_0"]) == pytest.approx(52.0)
     assert params["units"] == "m"
@@ -136,7 +136,7 @@ def test_web_mercator_input_gives_true_distances() -> None:
     length = np.hypot(fixes.x[1] - fixes.x[0], fixes.y[1] - fixes.y[0])
     assert length == pytest.approx(1_000.0, rel=1e-5)
     assert fixes.input_crs == "EPSG:3857"
-    assert fixes.metric_crs is not None and _params(fixes.metric_crs)["proj"] == "aeqd"
+    assert fixes.metric_crs is not None and _params(fixes.metric_crs)["proj"] == "laea"
     assert quality["coordinates"]["input"] == "crs"
 
 

@@ -351,7 +351,7 @@ def test_lonlat_is_projected_to_true_metres() -> None:
     fixes, quality = clean_fixes(read_tracks(frame))
     assert np.hypot(np.diff(fixes.x), np.diff(fixes.y))[0] == pytest.approx(250.0, rel=1e-6)
     assert fixes.input_crs == "EPSG:4326"
-    assert "+proj=aeqd" in quality["coordinates"]["working_crs"]
+    assert "+proj=laea" in quality["coordinates"]["working_crs"]
     assert quality["sampling_interval_s"] == {"median": 60.0, "p10": 60.0, "p90": 60.0, "iqr": 0}
 
 
