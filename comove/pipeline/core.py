@@ -44,7 +44,12 @@ from comove.io.results import (
     parquet_writer,
     write_folder,
 )
-from comove.pipeline.windows import group_windows, mine_windows, windowed_tracks
+from comove.pipeline.windows import (
+    group_windows,
+    mine_windows,
+    windowed_tracks,
+    windows_at_once,
+)
 from comove.roles.chain import role_chain
 from comove.roles.colocation import ColocationParams
 from comove.roles.crossk import CrossKParams
@@ -222,7 +227,7 @@ def mine(source: Any, *, progress: bool = False, **options: Any) -> MiningResult
     stages = split_options(MINE_STAGES, options)
     columns, cleaning, alignment, colocation, persistence, significance, k_params = stages[:7]
     window_params, run_params = stages[7], stages[8].resolved()
-    plan = _plan(source, columns, window_params, significance, k_params)
+    plan = _plan(source, columns, window_params, run_params, significance, k_params)
     bar = _Progress(progress, total=7)
     digest = _digest_beside(source)
     try:
@@ -268,6 +273,7 @@ def _plan(
     source: Any,
     columns: ColumnSpec,
     window_params: WindowParams,
+    run_params: RunParams,
     significance: SignificanceParams,
     k_params: CrossKParams | None = None,
 ) -> tuple[int, int | None] | None:
@@ -295,7 +301,8 @@ def _plan(
                     stacklevel=3,
                 )
         return None
-    bucket, max_rows = plan_windows(source, columns, window_params)
+    bucket, max_rows = plan_windows(source, columns, window_params,
+                                    at_once=windows_at_once(run_params))  # fmt: skip
     return None if bucket is None else (bucket, max_rows)
 
 
@@ -311,10 +318,9 @@ def _mine_windows(source: Any, stages: list, plan: tuple[int, int | None],
     """Return what ``mine`` needs of a run over time windows."""
     columns, cleaning, alignment, colocation, persistence, _, _, window_params, _ = stages
     with windowed_tracks(source, columns, cleaning, alignment, plan, window_params.scratch,
-                         run_params.threads, progress) as run:  # fmt: skip
+                         run_params, progress) as run:  # fmt: skip
         bound = persistence.min_prevalent_snapshots(run.shell.step_s)
-        tally = mine_windows(run, colocation, bound, run_params.threads,
-                             "co-location" if progress else None)  # fmt: skip
+        tally = mine_windows(run, colocation, bound)
         tables = durable_patterns(tally, persistence, colocation.min_participation)
         return tables.patterns, tables, run.shell, run.quality(), run.sample()
 
@@ -488,7 +494,7 @@ def groups(
     stages = split_options(GROUP_STAGES, merged)
     columns, cleaning, alignment, grouping, episode_params, dyad_params, significance = stages[:7]
     window_params, run_params = stages[7], stages[8].resolved()
-    plan = _plan(source, columns, window_params, significance)
+    plan = _plan(source, columns, window_params, run_params, significance)
     bar = _Progress(progress, total=6 if significance.permutations > 0 else 5)
     digest = _digest_beside(source)
     try:
@@ -531,9 +537,8 @@ def _group_windows(source: Any, stages: list, plan: tuple[int, int | None],
     """Return what ``groups`` needs of a run over time windows."""
     columns, cleaning, alignment, grouping, episode_params, dyad_params = stages[:6]
     with windowed_tracks(source, columns, cleaning, alignment, plan, stages[7].scratch,
-                         run_params.threads, progress) as run:  # fmt: skip
-        found = group_windows(run, grouping, episode_params, dyad_params, run_params.threads,
-                              "groups" if progress else None)  # fmt: skip
+                         run_params, progress) as run:  # fmt: skip
+        found = group_windows(run, grouping, episode_params, dyad_params)
         return run.shell, run.quality(), run.sample(), found.table, found.centroids, found.dyads
 
 

@@ -10,7 +10,7 @@ table.
 
 from __future__ import annotations
 
-from collections.abc import Iterable, Iterator
+from collections.abc import Iterator
 from contextlib import contextmanager
 from dataclasses import dataclass, field, replace
 from typing import Any
@@ -18,19 +18,21 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from comove.errors import bad_setting
 from comove.groups.chain import (
     chunk_dyads,
     chunk_episode_rows,
     chunk_timeline_and_keys,
 )
-from comove.groups.dyads import DyadParams, DyadTally, TrackSamples, dyad_rows, expected_distances
+from comove.groups.dyads import DyadParams, TrackSamples, dyad_rows, expected_distances
 from comove.groups.episodes import EpisodeParams, Episodes, find_episodes
 from comove.groups.grouping import GroupParams, GroupTimeline
-from comove.groups.summary import EpisodeRows, episode_table
+from comove.groups.summary import episode_table
 from comove.io.projection import working_to_input
 from comove.io.reading import ColumnSpec
 from comove.roles.chain import RoleTally, combine_role_tallies, prune_levels, role_chain
 from comove.roles.colocation import ColocationParams
+from comove.stats.engine import LocalEngine, RunParams, resolve_jobs
 from comove.tracks.alignment import NS_PER_S, AlignParams, Snapshots, sample_every, track_sample
 from comove.tracks.cleaning import CleanParams
 from comove.tracks.motion import half_window_snapshots
@@ -40,6 +42,12 @@ from comove.tracks.streaming import Cleaned, release_memory, spill_tracks
 @dataclass
 class Windowed:
     """A run's tracks, cleaned in a scratch folder, to be aligned window by window.
+
+    The windows are the tasks of an engine (:class:`comove.stats.engine.Engine`):
+    each task aligns its window from the scratch folder where the engine runs
+    it, and returns what the chains tallied there; the tallies join in time
+    order. A ``Windowed`` travels to the engine's workers as the tasks' shared
+    input (without its engine).
 
     Attributes
     ----------
@@ -53,6 +61,12 @@ class Windowed:
         The whole run's names, step, CRSs and snapshot span, without entries.
     sample_every : int
         Stride of the track sample (:func:`~comove.tracks.alignment.sample_every`).
+    engine : Engine
+        What runs the windows.
+    threads : int
+        Threads of each window's threaded stages (-1: one per core).
+    progress : bool
+        Show a progress bar over the windows.
     """
 
     cleaned: Cleaned
@@ -60,38 +74,55 @@ class Windowed:
     span: tuple[int, int]
     shell: Snapshots
     sample_every: int
+    engine: Any = None
+    threads: int = 1
+    progress: bool = False
     counts: np.ndarray = field(init=False)
     samples: list[pd.DataFrame] = field(init=False, default_factory=list)
 
     def __post_init__(self) -> None:
         self.counts = np.zeros(len(self.cleaned.objects), dtype=np.int64)
 
-    def each(
-        self, context: int = 0, label: str | None = None, keep: bool = False
-    ) -> Iterator[tuple[Snapshots, int, int]]:
-        """Yield each window's snapshots with ``context`` more on each side, and its own range.
+    def __getstate__(self) -> dict:
+        # what a task needs: not the engine, nor what the windows counted
+        return {**self.__dict__, "engine": None, "samples": []}
+
+    def map(self, work: Any, shared: Any, label: str, tasks: list | None = None) -> list:
+        """Return ``[work((self, shared), task)]`` for each window, run by the engine.
+
+        The tasks are the windows' indices unless ``tasks`` are given (one per window).
+        """
+        todo = list(range(len(self.windows))) if tasks is None else tasks
+        if self.engine is None:
+            return [work((self, shared), task) for task in todo]
+        return self.engine.map(work, todo, shared=(self, shared), progress=self.progress,
+                               label=label)  # fmt: skip
+
+    def outer(self, i: int, context: int = 0, keep: bool = False) -> tuple[Snapshots, int, int]:
+        """Return window ``i``'s snapshots with ``context`` more on each side, and its own range.
 
         The range ``start, stop`` indexes the window's own snapshots within the
-        yielded ones, as the chunk functions of the chains take it. With a
-        ``label``, a progress bar follows the windows. With ``keep``, the
-        aligned windows are kept in the scratch folder, and a later pass with
-        the same context reads them instead of aligning again.
+        returned ones, as the chunk functions of the chains take it. With
+        ``keep``, the aligned window is kept in the scratch folder, and a later
+        call with the same context reads it instead of aligning again.
         """
-        for i, window in enumerate(_bar(self.windows, label)):
-            g0, g1 = self.cleaned.bucket_grid(window, self.span)
-            path = self.cleaned.spill.folder / f"aligned-{context}-{i}.npz"
-            if path.exists():
-                outer = self._load(path)
-            else:
-                outer = self.cleaned.window(window, context, self.span)
-                if keep:
-                    np.savez(path, first_index=outer.first_index, n_snapshots=outer.n_snapshots,
-                             snap=outer.snap, obj=outer.obj, role=outer.role, x=outer.x,
-                             y=outer.y)  # fmt: skip
-            start = g0 - outer.first_index
-            yield outer, start, start + (g1 - g0)
-            del outer
-            release_memory()
+        folder = self.cleaned.spill.folder
+        if not folder.is_dir():
+            raise bad_setting("scratch", f"folder {folder} is not visible where this window "
+                              "runs; give --scratch a folder every worker shares")  # fmt: skip
+        window = self.windows[i]
+        g0, g1 = self.cleaned.bucket_grid(window, self.span)
+        path = folder / f"aligned-{context}-{i}.npz"
+        if path.exists():
+            outer = self._load(path)
+        else:
+            outer = self.cleaned.window(window, context, self.span)
+            if keep:
+                np.savez(path, first_index=outer.first_index, n_snapshots=outer.n_snapshots,
+                         snap=outer.snap, obj=outer.obj, role=outer.role, x=outer.x,
+                         y=outer.y)  # fmt: skip
+        start = g0 - outer.first_index
+        return outer, start, start + (g1 - g0)
 
     def _load(self, path) -> Snapshots:
         with np.load(path) as data:
@@ -101,11 +132,17 @@ class Windowed:
                 role=data["role"], x=data["x"], y=data["y"],
             )  # fmt: skip
 
-    def count(self, chunk: Snapshots) -> None:
-        """Count a window's entries per object and take its part of the track sample."""
-        self.counts += np.bincount(chunk.obj, minlength=self.counts.size)
+    def counted(self, chunk: Snapshots) -> tuple[np.ndarray, pd.DataFrame]:
+        """Return a window's entries per object and its part of the track sample."""
+        counts = np.bincount(chunk.obj, minlength=len(self.cleaned.objects))
         to_input = lambda x, y: working_to_input(chunk, x, y)  # noqa: E731
-        self.samples.append(track_sample(chunk, to_input, every=self.sample_every))
+        return counts, track_sample(chunk, to_input, every=self.sample_every)
+
+    def count(self, parts: list[tuple[np.ndarray, pd.DataFrame]]) -> None:
+        """Keep every window's entries per object and part of the track sample, in time order."""
+        for counts, sample in parts:
+            self.counts += counts
+            self.samples.append(sample)
 
     def sample(self) -> pd.DataFrame:
         """Return the track sample of every window counted."""
@@ -127,6 +164,28 @@ class Windowed:
         return dict(self.cleaned.quality, alignment=alignment)
 
 
+def window_engine(run_params: RunParams, n_windows: int) -> tuple[Any, int]:
+    """Return the engine that runs a run's windows, and the threads of each window's stages.
+
+    Windows run side by side in the engine's workers, each with one thread
+    (the local engine's ``jobs`` processes, or a dask cluster); with one
+    worker, or one window, they run in this process with the run's threads.
+    """
+    if run_params.engine == "dask":
+        return run_params.make_engine(), 1
+    jobs = min(resolve_jobs(run_params.jobs), n_windows)
+    if jobs <= 1:
+        return LocalEngine(1), run_params.threads
+    return LocalEngine(jobs), 1
+
+
+def windows_at_once(run_params: RunParams) -> int:
+    """Return how many windows a run plans to hold in this machine's memory at once."""
+    if run_params.engine == "dask" and run_params.scheduler is not None:
+        return 1  # the cluster's workers hold theirs in their own machines' memory
+    return resolve_jobs(run_params.jobs)
+
+
 @contextmanager
 def windowed_tracks(
     source: Any,
@@ -135,56 +194,56 @@ def windowed_tracks(
     alignment: AlignParams,
     plan: tuple[int, int | None],
     scratch: str | None = None,
-    workers: int = 1,
+    run_params: RunParams | None = None,
     progress: bool = False,
 ) -> Iterator[Windowed]:
     """Read and clean the tracks into a scratch folder; remove it when the run ends.
 
     ``plan`` is the bucket length (ns) and the most rows per window
-    (:func:`comove.tracks.streaming.plan_windows`); ``workers`` the threads of
-    the stages that use threads (-1: one per core); ``progress`` shows a bar
-    over the windows while they are cleaned.
+    (:func:`comove.tracks.streaming.plan_windows`); ``run_params`` says what
+    runs the windows (:func:`window_engine`; default: this process, one
+    thread); ``progress`` shows bars over the windows.
     """
     bucket_ns, max_rows = plan
     spill = spill_tracks(source, columns, int(bucket_ns), scratch)
     try:
         windows = spill.windows(max_rows)
-        cleaned = spill.clean(cleaning, alignment, windows, workers, progress)
+        engine, threads = window_engine(run_params or RunParams(jobs=1), len(windows))
+        cleaned = spill.clean(cleaning, alignment, windows, threads, progress, engine)
         span = cleaned.grid_span()
         empty = cleaned.window((windows[0][0], windows[0][0]))
         shell = replace(empty, first_index=span[0], n_snapshots=span[1] - span[0] + 1)
         every = sample_every(cleaned.first_ns, cleaned.last_ns, cleaned.step_ns)
-        yield Windowed(cleaned, windows, span, shell, every)
+        yield Windowed(cleaned, windows, span, shell, every, engine, threads, progress)
     finally:
         spill.remove()
 
 
-def _bar(items: list, label: str | None) -> Iterable:
-    if not label:
-        return items
-    from tqdm.auto import tqdm
-
-    return tqdm(items, disable=None, unit="window", leave=False, desc=label)
-
-
 def mine_windows(
-    run: Windowed,
-    colocation: ColocationParams,
-    min_prevalent_snapshots: int,
-    workers: int = 1,
-    label: str | None = None,
+    run: Windowed, colocation: ColocationParams, min_prevalent_snapshots: int
 ) -> RoleTally:
     """Return the role chain's tally of the whole run, mined window by window.
 
     Each window is mined without pruning; the tallies joined are pruned with
     the whole period's bound, as :func:`comove.roles.chain.role_chain` mines it in one piece.
     """
-    tallies = []
-    for outer, start, stop in run.each(0, label):
-        chunk = outer.window(start, stop)
-        run.count(chunk)
-        tallies.append(role_chain(chunk, colocation, workers=workers))
-    return prune_levels(combine_role_tallies(tallies), min_prevalent_snapshots)
+    found = run.map(_mine_window, colocation, "co-location")
+    run.count([part for _, part in found])
+    return prune_levels(combine_role_tallies([tally for tally, _ in found]),
+                        min_prevalent_snapshots)  # fmt: skip
+
+
+def _mine_window(shared: tuple[Windowed, ColocationParams], i: int) -> tuple:
+    """Mine window ``i`` (a task): its tally, entries per object and track sample."""
+    run, colocation = shared
+    outer, start, stop = run.outer(i)
+    chunk = outer.window(start, stop)
+    del outer
+    tally = role_chain(chunk, colocation, workers=run.threads)
+    counted = run.counted(chunk)
+    del chunk
+    release_memory()
+    return tally, counted
 
 
 @dataclass
@@ -202,8 +261,6 @@ def group_windows(
     grouping: GroupParams,
     episode_params: EpisodeParams,
     dyad_params: DyadParams,
-    workers: int = 1,
-    label: str | None = None,
 ) -> WindowedGroups:
     """Return the episodes, episode table and dyads of the whole run, window by window.
 
@@ -216,14 +273,13 @@ def group_windows(
     """
     reach = half_window_snapshots(grouping.velocity_window, run.shell.step_s)
     together = dyad_params.dyad_pairs == "together"
-    timelines, keys = [], []
-    for outer, start, stop in run.each(reach, label and f"{label} (1/2)", keep=True):
-        run.count(outer.window(start, stop))
-        timeline, found = chunk_timeline_and_keys(outer, start, stop, grouping, workers, together)
-        timelines.append(timeline)
-        keys.append(found)
-    episodes = find_episodes(GroupTimeline.joined(timelines), episode_params)
-    del timelines
+    found = run.map(_timeline_window, (grouping, reach, together), "groups (1/2)")
+    run.count([counted for _, _, counted in found])
+    episodes = find_episodes(GroupTimeline.joined([t for t, _, _ in found]), episode_params)
+    keys = [k for _, k, _ in found]
+    # each window's entries per object before it: where its entries rank in each track
+    before = np.cumsum([np.zeros_like(run.counts)] + [c for _, _, (c, _) in found[:-1]], axis=0)
+    del found
     pair_keys = np.unique(np.concatenate(keys)) if together else None
     cap, n = dyad_params.max_expected_pairs, run.counts.size
     needed = (
@@ -231,29 +287,60 @@ def group_windows(
         if pair_keys is not None
         else None
     )
-    rows: EpisodeRows | None = None
-    tally: DyadTally | None = None
-    gathered = []
-    before = np.zeros_like(run.counts)
-
-    def gather(chunk: Snapshots, needed: np.ndarray) -> None:
-        """Take a window's positions De reads; windows come in time order."""
-        gathered.append(TrackSamples.gather(chunk, before, needed))
-        before[:] += np.bincount(chunk.obj, minlength=n)
-
-    for outer, start, stop in run.each(reach, label and f"{label} (2/2)"):
-        offset = outer.first_index + start - run.span[0]
-        part = chunk_episode_rows(outer, start, stop, episodes, grouping, workers, offset)
-        rows = part if rows is None else rows.then(part)
-        counted = chunk_dyads(outer, start, stop, grouping.radius, pair_keys, workers)
-        tally = counted if tally is None else tally.then(counted)
-        if needed is not None:
-            gather(outer.window(start, stop), needed)
-    assert rows is not None and tally is not None
+    shared = (episodes, grouping, reach, pair_keys, needed)
+    parts = run.map(_rows_window, shared, "groups (2/2)", tasks=list(enumerate(before)))
+    rows = parts[0][0]
+    tally = parts[0][1]
+    for part_rows, part_tally, _ in parts[1:]:
+        rows, tally = rows.then(part_rows), tally.then(part_tally)
+    gathered = [g for _, _, g in parts if g is not None]
+    del parts
     if needed is None:  # co-present pairs: known only now
         needed = TrackSamples.needed(*tally.pairs(), run.counts, cap)
-        for outer, start, stop in run.each(0, label and f"{label} (De)"):
-            gather(outer.window(start, stop), needed)
+        gathered = run.map(_gather_window, needed, "groups (De)", tasks=list(enumerate(before)))
     expected = expected_distances(TrackSamples.joined(run.counts, gathered), tally, cap)
     table, centroids = episode_table(run.shell, episodes, None, grouping.min_speed, rows=rows)
     return WindowedGroups(episodes, table, centroids, dyad_rows(tally, run.shell, expected, cap))
+
+
+def _timeline_window(shared: tuple, i: int) -> tuple:
+    """Pass one of ``groups`` on window ``i`` (a task).
+
+    Returns its group timeline, the keys of its pairs ever together (or None),
+    and its entries per object and part of the track sample. The aligned
+    window is kept for pass two.
+    """
+    run, (grouping, reach, together) = shared
+    outer, start, stop = run.outer(i, reach, keep=True)
+    timeline, keys = chunk_timeline_and_keys(outer, start, stop, grouping, run.threads, together)
+    counted = run.counted(outer.window(start, stop))
+    del outer
+    release_memory()
+    return timeline, keys, counted
+
+
+def _rows_window(shared: tuple, task: tuple[int, np.ndarray]) -> tuple:
+    """Pass two of ``groups`` on a window (a task): episode rows, dyad counts, De's positions.
+
+    ``task`` is the window's index and each object's entries in the windows before it.
+    """
+    run, (episodes, grouping, reach, pair_keys, needed) = shared
+    i, before = task
+    outer, start, stop = run.outer(i, reach, keep=True)
+    offset = outer.first_index + start - run.span[0]
+    rows = chunk_episode_rows(outer, start, stop, episodes, grouping, run.threads, offset)
+    tally = chunk_dyads(outer, start, stop, grouping.radius, pair_keys, run.threads)
+    gathered = None
+    if needed is not None:
+        gathered = TrackSamples.gather(outer.window(start, stop), before, needed)
+    del outer
+    release_memory()
+    return rows, tally, gathered
+
+
+def _gather_window(shared: tuple, task: tuple[int, np.ndarray]) -> tuple:
+    """Take window ``i``'s positions De reads (a task); ``task`` as for :func:`_rows_window`."""
+    run, needed = shared
+    i, before = task
+    outer, start, stop = run.outer(i)
+    return TrackSamples.gather(outer.window(start, stop), before, needed)

@@ -55,7 +55,6 @@ from comove.tracks.cleaning import (
     DROP_REASONS,
     MAX_EXAMPLES,
     MAX_SPIKE_PASSES,
-    CleanedWindow,
     CleanParams,
     Fixes,
     WindowPlan,
@@ -74,7 +73,8 @@ from comove.tracks.quality import (
     quality_report,
 )
 
-__all__ = ["Cleaned", "Spill", "WindowParams", "plan_windows", "spill_tracks"]
+__all__ = ["CleanCounts", "Cleaned", "Spill", "WindowParams", "clean_stored", "plan_windows",
+           "spill_tracks"]  # fmt: skip
 
 #: Prefix of the scratch folders of runs over time windows.
 SCRATCH_PREFIX = "comove-scratch-"
@@ -126,6 +126,10 @@ class Spill:
     counts: dict[int, int] = field(default_factory=dict)
     _open: dict[str, Any] = field(default_factory=dict, repr=False)
     _codes: dict[tuple[str, str], np.ndarray] = field(default_factory=dict, repr=False)
+
+    def __getstate__(self) -> dict:
+        # open files and the codes mapped from them stay with each process
+        return {**self.__dict__, "_open": {}, "_codes": {}}
 
     @property
     def buckets(self) -> range:
@@ -180,21 +184,25 @@ class Spill:
         windows: list[tuple[int, int]] | None = None,
         workers: int = 1,
         progress: bool = False,
+        engine: Any = None,
     ) -> Cleaned:
         """Clean every window; return the kept fixes (in the scratch folder) and the quality report.
 
         ``windows`` defaults to one bucket each (:meth:`windows`); ``workers``
         are the threads of the projection (-1: one per core); ``progress``
-        shows a bar over the windows (on a terminal).
+        shows a bar over the windows (on a terminal). With an ``engine``
+        (:class:`comove.stats.engine.Engine`), the windows are its tasks: each
+        is cleaned where the engine runs it, which must see the scratch folder.
         """
-        out = _CleanPass(self, params, workers)
         todo = windows if windows is not None else self.windows()
-        if progress:
-            from tqdm.auto import tqdm
-
-            todo = tqdm(todo, disable=None, unit="window", leave=False, desc="cleaning")
-        for k0, k1 in todo:
-            out.add(k0, k1)
+        if engine is None:
+            counted = [clean_stored((self, params, workers), w) for w in todo]
+        else:
+            counted = engine.map(clean_stored, todo, shared=(self, params, workers),
+                                 progress=progress, label="cleaning")  # fmt: skip
+        out = _CleanPass(self, params)
+        for part in counted:
+            out.add(part)
         return out.finish(alignment)
 
     def remove(self) -> None:
@@ -481,6 +489,9 @@ class Cleaned:
     last_ns: np.ndarray
     _cache: dict[int, Fixes] = field(default_factory=dict, repr=False)
 
+    def __getstate__(self) -> dict:
+        return {**self.__dict__, "_cache": {}}
+
     def fixes(self, k: int) -> Fixes:
         """Return the cleaned fixes of bucket ``k``, in the final codes."""
         held = self._cache.get(k)
@@ -579,53 +590,79 @@ class Cleaned:
         self.spill.remove()
 
 
-class _CleanPass:
-    """Pass 2: each window cleaned with its margins; the counts joined in time order."""
+@dataclass
+class CleanCounts:
+    """What cleaning one window counted (its kept fixes are in the scratch folder).
 
-    def __init__(self, spill: Spill, params: CleanParams, workers: int = 1) -> None:
-        self.spill, self.params, self.workers = spill, params, workers
+    The fields are those of :class:`~comove.tracks.cleaning.CleanedWindow`
+    without the fixes, and the roles the window's kept fixes carry.
+    """
+
+    dropped: np.ndarray
+    examples: list[np.ndarray]
+    zone_less: int
+    last_spike_pass: int
+    gaps: GapTally
+    roles_used: np.ndarray
+
+
+def clean_stored(shared: tuple[Spill, CleanParams, int], window: tuple[int, int]) -> CleanCounts:
+    """Clean the window of buckets ``k0 <= k < k1``; write its kept fixes, one file per bucket.
+
+    A task of :meth:`Spill.clean`: ``shared`` is the spill, the cleaning
+    settings and the threads of the projection. The window is cleaned with
+    margins of neighbouring buckets, widened while a speed-spike decision on
+    its own fixes could depend on what lies beyond them.
+    """
+    spill, params, workers = shared
+    (k0, k1), b = window, spill.bucket_ns
+    first, last = spill.buckets[0], spill.buckets[-1]
+    owned = (k0 * b, k1 * b)
+    reach = 0 if params.max_speed is None else 1
+    while True:
+        lo, hi = max(k0 - reach, first), min(k1 - 1 + reach, last)
+        part = spill.rows(range(lo, hi + 1))
+        done = clean_window(part, spill.plan, params, owned, (lo > first, hi < last), workers)
+        if done is not None:
+            break
+        # a spike decision reached beyond the margins: widen them (once they hold
+        # every bucket nothing is cut, so this ends)
+        reach = max(1, 2 * reach)
+    del part
+    bucket = done.t // b
+    for k in np.unique(bucket).tolist():  # one file per bucket, each in (object, time) order
+        at = bucket == k
+        np.savez(spill.folder / f"clean-{k}.npz", obj=done.obj[at], t=done.t[at],
+                 x=done.x[at], y=done.y[at], role=done.role[at])  # fmt: skip
+    counts = CleanCounts(done.dropped, done.examples, done.zone_less, done.last_spike_pass,
+                         done.gaps, np.unique(done.role))  # fmt: skip
+    del done
+    release_memory()
+    return counts
+
+
+class _CleanPass:
+    """Pass 2: what cleaning counted in each window, joined in time order."""
+
+    def __init__(self, spill: Spill, params: CleanParams) -> None:
+        self.spill, self.params = spill, params
         self.dropped = spill.dropped.copy()
         self.examples = [[e] if e.size else [] for e in spill.examples]
         self.zone_less = 0
         self.last_pass = 0
         self.gaps: GapTally | None = None
-        plan = spill.plan
-        self.used_role = np.zeros(len(plan.roles), dtype=bool)
-        self.first_bucket, self.last_bucket = spill.buckets[0], spill.buckets[-1]
+        self.used_role = np.zeros(len(spill.plan.roles), dtype=bool)
 
-    def add(self, k0: int, k1: int) -> None:
-        """Clean the window of buckets ``k0 <= k < k1``."""
-        spill, b = self.spill, self.spill.bucket_ns
-        owned = (k0 * b, k1 * b)
-        reach = 0 if self.params.max_speed is None else 1
-        while True:
-            lo, hi = max(k0 - reach, self.first_bucket), min(k1 - 1 + reach, self.last_bucket)
-            part = spill.rows(range(lo, hi + 1))
-            cut = (lo > self.first_bucket, hi < self.last_bucket)
-            done = clean_window(part, spill.plan, self.params, owned, cut, self.workers)
-            if done is not None:
-                break
-            # a spike decision reached beyond the margins: widen them (once they hold
-            # every bucket nothing is cut, so this ends)
-            reach = max(1, 2 * reach)
-        del part
-        self._count(done)
-        release_memory()
-
-    def _count(self, done: CleanedWindow) -> None:
+    def add(self, done: CleanCounts) -> None:
+        """Join the counts of the next window."""
         self.dropped += done.dropped
         for r, seq in enumerate(done.examples):
             if seq.size:
                 self.examples[r].append(seq)
         self.zone_less += done.zone_less
         self.last_pass = max(self.last_pass, done.last_spike_pass)
-        self.used_role[np.unique(done.role)] = True
+        self.used_role[done.roles_used] = True
         self.gaps = done.gaps if self.gaps is None else self.gaps.then(done.gaps)
-        bucket = done.t // self.spill.bucket_ns
-        for k in np.unique(bucket).tolist():  # one file per bucket, each in (object, time) order
-            at = bucket == k
-            np.savez(self.spill.folder / f"clean-{k}.npz", obj=done.obj[at], t=done.t[at],
-                     x=done.x[at], y=done.y[at], role=done.role[at])  # fmt: skip
 
     def finish(self, alignment: AlignParams) -> Cleaned:
         spill, plan, gaps = self.spill, self.spill.plan, self.gaps
@@ -777,8 +814,13 @@ def memory_budget() -> int:
     return int(min(MEMORY_SHARE * available, MEMORY_CAP))
 
 
-def plan_windows(source: Any, columns: ColumnSpec, params: WindowParams,
-                 budget: int | None = None) -> tuple[int | None, int | None]:  # fmt: skip
+def plan_windows(
+    source: Any,
+    columns: ColumnSpec,
+    params: WindowParams,
+    budget: int | None = None,
+    at_once: int = 1,
+) -> tuple[int | None, int | None]:
     """Return the bucket length (ns) and most rows per window, or (None, None) for one piece.
 
     With a duration, every bucket is a window of that length. With ``auto``,
@@ -788,7 +830,8 @@ def plan_windows(source: Any, columns: ColumnSpec, params: WindowParams,
     period is cut into buckets of a round length, estimated from the rows and
     the time span of the first block read (a file in time order gives a short
     span, hence small buckets; one in object order, the whole span), and
-    consecutive buckets are joined into windows of at most the budget's rows.
+    consecutive buckets are joined into windows of at most the budget's rows,
+    shared among the ``at_once`` windows held side by side (one per worker).
     In-memory tables and geo files run in one piece.
     """
     chunk = params.chunk_ns()
@@ -800,7 +843,7 @@ def plan_windows(source: Any, columns: ColumnSpec, params: WindowParams,
     rows = estimated_rows(source)
     if rows is None or rows * BYTES_PER_FIX <= budget:
         return None, None
-    max_rows = max(1, budget // BYTES_PER_FIX)
+    max_rows = max(1, budget // max(1, at_once) // BYTES_PER_FIX)
     first = next(read_blocks(source, columns, rows=100_000))
     times = row_checks(first).times
     ns = times.ns[times.ok]

@@ -90,3 +90,17 @@ def test_a_cluster_started_with_the_dask_commands_gives_the_same_tables():
     assert assert_same_tables(mine(source, **options, **run, jobs=2), on_cluster) >= 5
     _, groups_here = run_scenario(SCENE, permutations=19, seed=8, jobs=1)
     assert assert_same_tables(groups_here, groups_on_cluster) >= 3
+
+
+def test_windows_run_on_a_dask_cluster_give_the_local_tables(cluster):
+    # the windows are the engine's tasks: cleaning, and both passes of groups
+    run = {"permutations": 0, "seed": 5, "chunk": "30min"}
+    _, local = run_scenario("fleet", **run, jobs=1)
+    _, dask = run_scenario("fleet", **run, engine="dask", scheduler=cluster)
+    assert dask.run["windows"] is not None and len(local.episodes) > 0
+    assert assert_same_tables(local, dask) >= 3
+    source, options = mine_options("fleet")
+    mined = [mine(source, chunk="2h", permutations=0, **options, **engine)
+             for engine in ({"jobs": 1}, {"engine": "dask", "scheduler": cluster})]  # fmt: skip
+    assert len(mined[0].patterns) > 0
+    assert assert_same_tables(*mined) >= 3

@@ -3,12 +3,14 @@
 from __future__ import annotations
 
 import json
+from dataclasses import fields
 
 import pandas as pd
 import pytest
 from scenes import run_scenario
 
 from comove.cli import main
+from comove.errors import InputError
 from comove.io.scenarios import mine_options
 from comove.pipeline.core import mine
 
@@ -60,6 +62,42 @@ def test_mine_over_windows_writes_the_whole_run_files(name, tmp_path):
     for chunk in CHUNKS[name]:
         mine(source, chunk=chunk, seed=1, permutations=0, **options).write(tmp_path / chunk)
         assert_same_folders(tmp_path / "whole", tmp_path / chunk)
+
+
+@pytest.mark.parametrize("command", ["mine", "groups"])
+def test_windows_in_this_process_and_in_two_workers_give_the_same_tables(command):
+    # one worker: every window in this process with the run's threads; two: the windows
+    # are tasks of two worker processes, one thread each
+    if command == "mine":
+        source, options = mine_options("fleet")
+        one, two = (mine(source, chunk="30min", seed=1, permutations=0, jobs=j, **options)
+                    for j in (1, 2))  # fmt: skip
+    else:
+        (_, one), (_, two) = (run_scenario("fleet", chunk="30min", permutations=0, seed=1, jobs=j)
+                              for j in (1, 2))  # fmt: skip
+    compared = 0
+    for name, value in vars(one).items():
+        if isinstance(value, pd.DataFrame):
+            pd.testing.assert_frame_equal(value, getattr(two, name), check_exact=True, obj=name)
+            compared += 1
+    assert compared >= 3
+
+
+def test_a_window_without_its_scratch_folder_says_which_setting_to_give(tmp_path):
+    from comove.io.reading import ColumnSpec
+    from comove.pipeline.windows import windowed_tracks
+    from comove.tracks.alignment import AlignParams
+    from comove.tracks.cleaning import CleanParams
+
+    source, options = mine_options("fleet")
+    names = {f.name for f in fields(ColumnSpec)}
+    columns = ColumnSpec(**{k: v for k, v in options.items() if k in names})
+    with windowed_tracks(source, columns, CleanParams(), AlignParams(step=60.0),
+                         (3600 * 10**9, None), str(tmp_path)) as run:  # fmt: skip
+        run.cleaned.spill.folder.rename(tmp_path / "elsewhere")  # as on a worker of another machine
+        with pytest.raises(InputError, match="--scratch a folder every worker shares"):
+            run.outer(0)
+        (tmp_path / "elsewhere").rename(run.cleaned.spill.folder)
 
 
 def test_co_present_dyads_over_windows_equal_the_whole_run():
