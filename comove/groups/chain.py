@@ -175,15 +175,16 @@ def chunk_timeline_and_keys(
     grouping: GroupParams,
     workers: int = 1,
     keys: bool = True,
-) -> tuple[GroupTimeline, np.ndarray | None]:
+) -> tuple[GroupTimeline, np.ndarray | None, NeighbourPairs]:
     """Return :func:`chunk_timeline` and :func:`chunk_together_keys` from one neighbour search.
 
-    The first pass of a run over time windows needs both.
+    The first pass of a run over time windows needs both; the chunk's
+    neighbour pairs come third, for :func:`chunk_dyads` to reuse.
     """
     chunk, motion = _chunk_motion(snaps, start, stop, grouping, workers)
     pairs = neighbour_pairs(chunk, grouping.radius, workers=workers)
     timeline = GroupTimeline.of(chunk, _groups(chunk, pairs, motion, grouping))
-    return timeline, together_keys(chunk, pairs) if keys else None
+    return timeline, together_keys(chunk, pairs) if keys else None, pairs
 
 
 def chunk_episode_rows(
@@ -247,6 +248,7 @@ def chunk_dyads(
     radius: float,
     keys: np.ndarray | None = None,
     workers: int = 1,
+    pairs: NeighbourPairs | None = None,
 ) -> DyadTally:
     """Return the dyad counts of snapshots ``start`` to ``stop - 1`` of ``snaps``.
 
@@ -269,9 +271,13 @@ def chunk_dyads(
         The pairs to count.
     workers : int, default 1
         Threads of the neighbour search (-1: every core).
+    pairs : NeighbourPairs, optional
+        The chunk's neighbour pairs within ``radius``, when a first pass found
+        them (:func:`chunk_timeline_and_keys`); else they are searched here.
     """
     chunk = snaps.window(start, stop)
-    pairs = neighbour_pairs(chunk, radius, workers=workers)
+    if pairs is None:
+        pairs = neighbour_pairs(chunk, radius, workers=workers)
     if keys is None:
         return dyad_tally(chunk, pairs, pairs="co-present")
     return dyad_tally(chunk, pairs, keys=keys)

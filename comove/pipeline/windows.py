@@ -36,6 +36,7 @@ from comove.stats.engine import LocalEngine, RunParams, resolve_jobs
 from comove.tracks.alignment import NS_PER_S, AlignParams, Snapshots, sample_every, track_sample
 from comove.tracks.cleaning import CleanParams
 from comove.tracks.motion import half_window_snapshots
+from comove.tracks.neighbours import NeighbourPairs
 from comove.tracks.streaming import Cleaned, release_memory, spill_tracks
 
 
@@ -123,6 +124,22 @@ class Windowed:
                          y=outer.y)  # fmt: skip
         start = g0 - outer.first_index
         return outer, start, start + (g1 - g0)
+
+    def keep_pairs(self, i: int, pairs: NeighbourPairs) -> None:
+        """Keep window ``i``'s own neighbour pairs in the scratch folder, for a later pass."""
+        small = np.int32 if pairs.j.size == 0 or pairs.j[-1] < 2**31 else np.int64
+        np.savez(self.cleaned.spill.folder / f"pairs-{i}.npz", i=pairs.i.astype(small),
+                 j=pairs.j.astype(small), radius=pairs.radius)  # fmt: skip
+
+    def kept_pairs(self, i: int, radius: float) -> NeighbourPairs | None:
+        """Return window ``i``'s neighbour pairs within ``radius`` if a pass kept them."""
+        path = self.cleaned.spill.folder / f"pairs-{i}.npz"
+        if not path.exists():
+            return None
+        with np.load(path) as data:
+            if float(data["radius"]) != radius:
+                return None
+            return NeighbourPairs(data["i"].astype(np.int64), data["j"].astype(np.int64), radius)
 
     def _load(self, path) -> Snapshots:
         with np.load(path) as data:
@@ -312,7 +329,9 @@ def _timeline_window(shared: tuple, i: int) -> tuple:
     """
     run, (grouping, reach, together) = shared
     outer, start, stop = run.outer(i, reach, keep=True)
-    timeline, keys = chunk_timeline_and_keys(outer, start, stop, grouping, run.threads, together)
+    timeline, keys, pairs = chunk_timeline_and_keys(outer, start, stop, grouping, run.threads,
+                                                    together)  # fmt: skip
+    run.keep_pairs(i, pairs)
     counted = run.counted(outer.window(start, stop))
     del outer
     release_memory()
@@ -329,7 +348,8 @@ def _rows_window(shared: tuple, task: tuple[int, np.ndarray]) -> tuple:
     outer, start, stop = run.outer(i, reach, keep=True)
     offset = outer.first_index + start - run.span[0]
     rows = chunk_episode_rows(outer, start, stop, episodes, grouping, run.threads, offset)
-    tally = chunk_dyads(outer, start, stop, grouping.radius, pair_keys, run.threads)
+    tally = chunk_dyads(outer, start, stop, grouping.radius, pair_keys, run.threads,
+                        run.kept_pairs(i, grouping.radius))  # fmt: skip
     gathered = None
     if needed is not None:
         gathered = TrackSamples.gather(outer.window(start, stop), before, needed)

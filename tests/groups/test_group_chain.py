@@ -14,6 +14,7 @@ from comove.groups.chain import (
     chunk_dyads,
     chunk_episode_rows,
     chunk_timeline,
+    chunk_timeline_and_keys,
     chunk_together_keys,
     group_chain,
 )
@@ -262,3 +263,18 @@ def test_chunks_of_one_snapshot_each_give_the_whole_dyads_and_table():
     assert tally.episodes.n_episodes > 0
     assert_same_table(chunked_table(snaps, gp, tally, cuts),
                       episode_table(snaps, tally.episodes, tally.motion, gp.min_speed))  # fmt: skip
+
+
+def test_dyads_from_the_first_pass_pairs_equal_dyads_searching_again(scenario_groups):
+    # a run over windows keeps each window's neighbour pairs from the first pass
+    snaps, grouping, _ = scenario_groups
+    n = snaps.n_snapshots
+    edges = [(0, n // 3), (n // 3, n)]
+    found = [chunk_timeline_and_keys(snaps, a, b, grouping) for a, b in edges]
+    keys = np.unique(np.concatenate([k for _, k, _ in found]))
+    for (a, b), (_, _, pairs) in zip(edges, found, strict=True):
+        assert pairs.n_pairs > 0
+        reused = chunk_dyads(snaps, a, b, grouping.radius, keys, pairs=pairs)
+        searched = chunk_dyads(snaps, a, b, grouping.radius, keys)
+        for name, value in vars(searched).items():
+            np.testing.assert_array_equal(getattr(reused, name), value, err_msg=name)
