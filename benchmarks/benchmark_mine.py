@@ -161,15 +161,47 @@ def _median(values: list[float]) -> float:
 
 
 def _run_once(cmd: list[str]) -> tuple[float, float, str]:
+    """Run ``cmd`` once; return its wall seconds, peak memory (MiB) and stdout.
+
+    The peak is the larger of the largest single process's peak RSS (the
+    kernel's own figure for the command and its children) and the largest sum,
+    sampled every 0.2 s, of the proportional set sizes (PSS) of the command's
+    process tree, so that worker processes count with the command (PSS shares
+    pages the processes share, so forked workers are not counted twice).
+    """
     wrapper = textwrap.dedent("""
-        import resource, subprocess, sys, time, json
+        import json, resource, subprocess, sys, threading, time
+        try:
+            import psutil
+        except ImportError:
+            psutil = None
         t0 = time.perf_counter()
-        p = subprocess.run(sys.argv[1:], capture_output=True, text=True)
+        p = subprocess.Popen(sys.argv[1:], stdout=subprocess.PIPE, stderr=subprocess.PIPE,
+                             text=True)
+        tree = [0]
+        def watch():
+            root = psutil.Process(p.pid)
+            while p.poll() is None:
+                total = 0
+                try:
+                    procs = [root, *root.children(recursive=True)]
+                except psutil.Error:
+                    break
+                for q in procs:
+                    try:
+                        total += q.memory_full_info().pss
+                    except psutil.Error:
+                        pass
+                tree[0] = max(tree[0], total)
+                time.sleep(0.2)
+        if psutil is not None:
+            threading.Thread(target=watch, daemon=True).start()
+        out, err = p.communicate()
         wall = time.perf_counter() - t0
-        peak = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1024
+        single = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1024
         if p.returncode:
-            sys.stderr.write(p.stderr); sys.exit(p.returncode)
-        print(json.dumps({"wall": wall, "peak": peak, "out": p.stdout}))
+            sys.stderr.write(err); sys.exit(p.returncode)
+        print(json.dumps({"wall": wall, "peak": max(single, tree[0] / 2**20), "out": out}))
     """)
     # bytecode may be written, as on a user's machine (some shells forbid it)
     env = {k: v for k, v in os.environ.items() if k != "PYTHONDONTWRITEBYTECODE"}

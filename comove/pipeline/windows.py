@@ -223,6 +223,7 @@ def windowed_tracks(
     """
     bucket_ns, max_rows = plan
     spill = spill_tracks(source, columns, int(bucket_ns), scratch)
+    release_memory()  # before the engine's workers start (forked, they would share it)
     try:
         windows = spill.windows(max_rows)
         engine, threads = window_engine(run_params or RunParams(jobs=1), len(windows))

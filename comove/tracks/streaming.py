@@ -227,8 +227,10 @@ def release_memory() -> None:
     A run over windows frees each window's arrays before the next; the C
     allocator keeps freed pages in its heap (and Arrow's allocator keeps them
     for a while), so without this the process's memory would creep up with
-    every window. ``malloc_trim`` is glibc's; elsewhere this does nothing.
+    every window. Arrow's pool is asked to release what it holds unused;
+    ``malloc_trim`` is glibc's, and elsewhere does nothing.
     """
+    pa.default_memory_pool().release_unused()
     try:
         import ctypes
 
