@@ -276,14 +276,14 @@ class RunParams:
 
     jobs: int | None = field(
         default=None,
-        metadata={"help": "worker processes (null replicates, sweep grid points) and threads "
-                  "(neighbour search, velocities) (default: all cores)"},
+        metadata={"help": "worker processes (null replicates, sweep grid points, time "
+                  "windows) and threads (neighbour search, velocities) (default: all cores)"},
     )  # fmt: skip
     seed: int | None = field(default=None, metadata={"help": "seed of the null replicates"})
     engine: str = field(
         default="local",
-        metadata={"help": "what runs null replicates and sweep grid points: local (this "
-                  "machine) or dask (a dask cluster; see docs/distributed.md)",
+        metadata={"help": "what runs null replicates, sweep grid points and time windows: "
+                  "local (this machine) or dask (a dask cluster; see docs/distributed.md)",
                   "choices": ENGINES},
     )  # fmt: skip
     scheduler: str | None = field(
