@@ -10,8 +10,8 @@ table.
 
 from __future__ import annotations
 
-from collections.abc import Iterator
-from contextlib import contextmanager
+from collections.abc import Callable, Iterator
+from contextlib import AbstractContextManager, contextmanager, nullcontext
 from dataclasses import dataclass, field, replace
 from typing import Any
 
@@ -27,7 +27,7 @@ from comove.groups.chain import (
 from comove.groups.dyads import DyadParams, TrackSamples, dyad_rows, expected_distances
 from comove.groups.episodes import EpisodeParams, Episodes, find_episodes
 from comove.groups.grouping import GroupParams, GroupTimeline
-from comove.groups.summary import episode_table
+from comove.groups.summary import EpisodeRows, episode_table
 from comove.io.projection import working_to_input
 from comove.io.reading import ColumnSpec
 from comove.roles.chain import RoleTally, combine_role_tallies, prune_levels, role_chain
@@ -93,11 +93,22 @@ class Windowed:
 
         The tasks are the windows' indices unless ``tasks`` are given (one per window).
         """
+        with self.started(work, shared, label, tasks) as results:
+            return results()
+
+    def started(
+        self, work: Any, shared: Any, label: str, tasks: list | None = None
+    ) -> AbstractContextManager[Callable[[], list]]:
+        """Start :meth:`map`'s tasks; the context gives a function that waits for their results.
+
+        This process can go on with work that needs none of them meanwhile
+        (:meth:`comove.stats.engine.LocalEngine.started`).
+        """
         todo = list(range(len(self.windows))) if tasks is None else tasks
         if self.engine is None:
-            return [work((self, shared), task) for task in todo]
-        return self.engine.map(work, todo, shared=(self, shared), progress=self.progress,
-                               label=label)  # fmt: skip
+            return nullcontext(lambda: [work((self, shared), task) for task in todo])
+        return self.engine.started(work, todo, shared=(self, shared), progress=self.progress,
+                                   label=label)  # fmt: skip
 
     def outer(self, i: int, context: int = 0, keep: bool = False) -> tuple[Snapshots, int, int]:
         """Return window ``i``'s snapshots with ``context`` more on each side, and its own range.
@@ -284,16 +295,17 @@ def group_windows(
 
     Pass one: each window's group timeline (with the velocity window's context
     on each side), the pairs ever together, and each object's entries; the
-    timelines joined give the episodes. Pass two: each window's episode rows,
-    the dyad counts of those pairs and the positions De reads. With
+    timelines joined give the episodes. Pass two, while this process searches
+    the episodes: each window's dyad counts of those pairs and the positions
+    De reads. Pass three: each window's episode rows. With
     ``dyad_pairs="co-present"`` the pairs are known only after pass two, and
-    a third pass reads De's positions.
+    a fourth pass reads De's positions.
     """
     reach = half_window_snapshots(grouping.velocity_window, run.shell.step_s)
     together = dyad_params.dyad_pairs == "together"
-    found = run.map(_timeline_window, (grouping, reach, together), "groups (1/2)")
+    found = run.map(_timeline_window, (grouping, reach, together), "groups (1/3)")
     run.count([counted for _, _, counted in found])
-    episodes = find_episodes(GroupTimeline.joined([t for t, _, _ in found]), episode_params)
+    timelines = [t for t, _, _ in found]
     keys = [k for _, k, _ in found]
     # each window's entries per object before it: where its entries rank in each track
     before = np.cumsum([np.zeros_like(run.counts)] + [c for _, _, (c, _) in found[:-1]], axis=0)
@@ -305,14 +317,22 @@ def group_windows(
         if pair_keys is not None
         else None
     )
-    shared = (episodes, grouping, reach, pair_keys, needed)
-    parts = run.map(_rows_window, shared, "groups (2/2)", tasks=list(enumerate(before)))
-    rows = parts[0][0]
-    tally = parts[0][1]
-    for part_rows, part_tally, _ in parts[1:]:
-        rows, tally = rows.then(part_rows), tally.then(part_tally)
-    gathered = [g for _, _, g in parts if g is not None]
+    # the dyads need the pairs, not the episodes: the workers count them while
+    # this process searches the episodes
+    with run.started(_dyads_window, (grouping, reach, pair_keys, needed), "groups (2/3)",
+                     tasks=list(enumerate(before))) as dyad_parts:  # fmt: skip
+        episodes = find_episodes(GroupTimeline.joined(timelines), episode_params)
+        del timelines
+        parts = dyad_parts()
+    tally = parts[0][0]
+    for part_tally, _ in parts[1:]:
+        tally = tally.then(part_tally)
+    gathered = [g for _, g in parts if g is not None]
     del parts
+    row_parts = run.map(_rows_window, (episodes, grouping, reach), "groups (3/3)")
+    rows = row_parts[0]
+    for part in row_parts[1:]:
+        rows = rows.then(part)
     if needed is None:  # co-present pairs: known only now
         needed = TrackSamples.needed(*tally.pairs(), run.counts, cap)
         gathered = run.map(_gather_window, needed, "groups (De)", tasks=list(enumerate(before)))
@@ -339,16 +359,16 @@ def _timeline_window(shared: tuple, i: int) -> tuple:
     return timeline, keys, counted
 
 
-def _rows_window(shared: tuple, task: tuple[int, np.ndarray]) -> tuple:
-    """Pass two of ``groups`` on a window (a task): episode rows, dyad counts, De's positions.
+def _dyads_window(shared: tuple, task: tuple[int, np.ndarray]) -> tuple:
+    """Count a window's dyads and take De's positions there (a task of ``groups``).
 
-    ``task`` is the window's index and each object's entries in the windows before it.
+    ``task`` is the window's index and each object's entries in the windows
+    before it. The window's aligned snapshots and neighbour pairs are those
+    the first pass kept.
     """
-    run, (episodes, grouping, reach, pair_keys, needed) = shared
+    run, (grouping, reach, pair_keys, needed) = shared
     i, before = task
     outer, start, stop = run.outer(i, reach, keep=True)
-    offset = outer.first_index + start - run.span[0]
-    rows = chunk_episode_rows(outer, start, stop, episodes, grouping, run.threads, offset)
     tally = chunk_dyads(outer, start, stop, grouping.radius, pair_keys, run.threads,
                         run.kept_pairs(i, grouping.radius))  # fmt: skip
     gathered = None
@@ -356,7 +376,18 @@ def _rows_window(shared: tuple, task: tuple[int, np.ndarray]) -> tuple:
         gathered = TrackSamples.gather(outer.window(start, stop), before, needed)
     del outer
     release_memory()
-    return rows, tally, gathered
+    return tally, gathered
+
+
+def _rows_window(shared: tuple, i: int) -> EpisodeRows:
+    """Return the episode-table rows of window ``i`` (a task of ``groups``, after the search)."""
+    run, (episodes, grouping, reach) = shared
+    outer, start, stop = run.outer(i, reach, keep=True)
+    offset = outer.first_index + start - run.span[0]
+    rows = chunk_episode_rows(outer, start, stop, episodes, grouping, run.threads, offset)
+    del outer
+    release_memory()
+    return rows
 
 
 def _gather_window(shared: tuple, task: tuple[int, np.ndarray]) -> tuple:

@@ -31,7 +31,7 @@ from __future__ import annotations
 import importlib.util
 import logging
 import pkgutil
-from collections.abc import Iterator, Sequence
+from collections.abc import Callable, Iterator, Sequence
 from concurrent.futures import CancelledError
 from contextlib import contextmanager
 from dataclasses import dataclass
@@ -159,6 +159,26 @@ class DaskEngine:
         with self._client() as client:
             self._check_cluster(client)
             return self._run(client, work, tasks, shared, progress, label)
+
+    @contextmanager
+    def started(
+        self,
+        work: Any,
+        tasks: Sequence[Any],
+        *,
+        shared: Any = None,
+        work_size: int = 0,
+        progress: bool = False,
+        label: str = "",
+    ) -> Iterator[Callable[[], list[Any]]]:
+        """Yield a function that runs :meth:`map` when its results are asked for.
+
+        The arguments are those of :meth:`map`. The tasks run only then, on
+        the cluster: this process waits for them rather than working beside
+        them.
+        """
+        yield lambda: self.map(work, tasks, shared=shared, work_size=work_size,
+                               progress=progress, label=label)  # fmt: skip
 
     @contextmanager
     def _client(self) -> Iterator[Any]:

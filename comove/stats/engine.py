@@ -27,8 +27,9 @@ import os
 import re
 import signal
 import sys
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Iterator, Sequence
 from concurrent.futures import ProcessPoolExecutor, as_completed
+from contextlib import AbstractContextManager, contextmanager
 from dataclasses import dataclass, field, replace
 from typing import Any, Protocol, TypeVar
 
@@ -67,6 +68,22 @@ class Engine(Protocol):
         label: str = "",
     ) -> list[Any]:
         """Return ``[work(shared, t) for t in tasks]``, in task order."""
+        ...
+
+    def started(
+        self,
+        work: Work,
+        tasks: Sequence[Any],
+        *,
+        shared: Any = None,
+        work_size: int = 0,
+        progress: bool = False,
+        label: str = "",
+    ) -> AbstractContextManager[Callable[[], list[Any]]]:
+        """Start ``map``'s tasks; the context gives a function that waits for their results.
+
+        An engine may run the tasks only when the results are asked for.
+        """
         ...
 
 
@@ -194,52 +211,94 @@ class LocalEngine:
         label : str
             Progress bar text.
         """
+        if self.workers_for(len(tasks), work_size) == 1:
+            return _here(work, tasks, shared, progress, label)
+        with self.started(work, tasks, shared=shared, work_size=work_size, progress=progress,
+                          label=label) as results:  # fmt: skip
+            return results()
+
+    @contextmanager
+    def started(
+        self,
+        work: Work,
+        tasks: Sequence[Any],
+        *,
+        shared: Any = None,
+        work_size: int = 0,
+        progress: bool = False,
+        label: str = "",
+    ) -> Iterator[Callable[[], list[Any]]]:
+        """Start :meth:`map`'s tasks; yield a function that waits for their results.
+
+        This process can go on with other work while the workers run the
+        tasks (work that needs none of their results). Leaving the block
+        without the results, or by an error or a signal, stops the workers at
+        once. With one worker the tasks run in this process when the results
+        are asked for. The arguments are those of :meth:`map`.
+        """
         n = len(tasks)
         workers = self.workers_for(n, work_size)
+        if workers == 1:
+            yield lambda: _here(work, tasks, shared, progress, label)
+            return
         from tqdm.auto import tqdm  # imported when used: it costs start-up time
 
-        bar = tqdm(total=n, desc=label, unit="task", disable=None if progress else True,
-                   leave=False)  # fmt: skip
-        try:
-            if workers == 1:
-                out = []
-                for task in tasks:
-                    out.append(work(shared, task))
-                    bar.update(1)
-                return out
-            return self._in_workers(work, tasks, shared, workers, bar)
-        finally:
-            bar.close()
-
-    @staticmethod
-    def _in_workers(work: Work, tasks: Sequence[Any], shared: Any, workers: int,
-                    bar: Any) -> list[Any]:  # fmt: skip
-        """Return the results of ``tasks`` run in batches by ``workers`` processes."""
-        n = len(tasks)
         size = max(1, n // (workers * BATCHES_PER_WORKER))
-        results: list[Any] = [None] * n
         # forked and spawned workers are children of this process; a fork server's are not
         ours = multiprocessing.get_start_method() in ("fork", "spawn")
         held = signal.pthread_sigmask(signal.SIG_BLOCK, _STOPPING)
-        with ProcessPoolExecutor(
-            max_workers=workers, initializer=_start_worker,
-            initargs=(shared, os.getpid() if ours else None),
-        ) as pool:  # fmt: skip
-            finished = False
-            try:
-                futures = [pool.submit(_run_batch, work, tasks[i : i + size], i)
-                           for i in range(0, n, size)]  # fmt: skip
-                signal.pthread_sigmask(signal.SIG_SETMASK, held)  # a held signal arrives here
+        finished = False
+        bar = None
+        try:
+            pool = ProcessPoolExecutor(
+                max_workers=workers, initializer=_start_worker,
+                initargs=(shared, os.getpid() if ours else None),
+            )  # fmt: skip
+        except BaseException:
+            signal.pthread_sigmask(signal.SIG_SETMASK, held)
+            raise
+        try:
+            futures = [pool.submit(_run_batch, work, tasks[i : i + size], i)
+                       for i in range(0, n, size)]  # fmt: skip
+            signal.pthread_sigmask(signal.SIG_SETMASK, held)  # a held signal arrives here
+            bar = tqdm(total=n, desc=label, unit="task", disable=None if progress else True,
+                       leave=False)  # fmt: skip
+
+            def results() -> list[Any]:
+                nonlocal finished
+                out: list[Any] = [None] * n
                 for done in as_completed(futures):
                     first, block = done.result()
-                    results[first : first + len(block)] = block
+                    out[first : first + len(block)] = block
                     bar.update(len(block))
                 finished = True
-            finally:
-                signal.pthread_sigmask(signal.SIG_SETMASK, held)
-                if not finished:  # an error or a signal: no worker may outlive the map
-                    _stop_pool(pool)
-        return results
+                return out
+
+            yield results
+        finally:
+            signal.pthread_sigmask(signal.SIG_SETMASK, held)
+            if bar is not None:
+                bar.close()
+            if finished:
+                pool.shutdown(wait=True)
+            else:  # an error, a signal or results not asked for: no worker may outlive this
+                _stop_pool(pool)
+
+
+def _here(work: Work, tasks: Sequence[Any], shared: Any, progress: bool, label: str) -> list:
+    """Return ``[work(shared, t) for t in tasks]`` run in this process, with a progress bar."""
+    from tqdm.auto import tqdm  # imported when used: it costs start-up time
+
+    bar = tqdm(total=len(tasks), desc=label, unit="task", disable=None if progress else True,
+               leave=False)  # fmt: skip
+    try:
+        out = []
+        for task in tasks:
+            out.append(work(shared, task))
+            bar.update(1)
+        return out
+    finally:
+        bar.close()
 
 
 #: The engines a run can use (``RunParams.engine``).

@@ -53,6 +53,43 @@ def test_a_failing_task_raises_its_error(jobs):
         LocalEngine(jobs=jobs).map(_fails_on_three, list(range(6)))
 
 
+def _sleeps(shared, task):
+    import time
+
+    time.sleep(shared)
+    return os.getpid()
+
+
+def _children() -> set[int]:
+    import multiprocessing
+
+    return {p.pid for p in multiprocessing.active_children()}
+
+
+@pytest.mark.parametrize("jobs", [1, 2])
+def test_started_tasks_give_the_map_results_after_work_here(jobs):
+    engine = LocalEngine(jobs=jobs)
+    with engine.started(_scaled_draw, list(range(9)), shared=(3.0, 4)) as results:
+        here = sum(range(1000))  # this process works while the workers run
+        out = results()
+    assert here == 499500
+    for a, b in zip(out, engine.map(_scaled_draw, list(range(9)), shared=(3.0, 4)), strict=True):
+        np.testing.assert_array_equal(a, b)
+    assert not _children()
+
+
+def test_leaving_started_tasks_by_an_error_stops_the_workers():
+    import time
+
+    before, t0 = _children(), time.monotonic()
+    with pytest.raises(KeyError):
+        with LocalEngine(jobs=2).started(_sleeps, list(range(8)), shared=5.0):
+            assert len(_children() - before) == 2  # the workers run ...
+            raise KeyError("an error in this process meanwhile")
+    assert _children() == before  # ... and are stopped,
+    assert time.monotonic() - t0 < 10.0  # not waited for: the tasks would sleep 20 s
+
+
 def test_no_tasks_give_no_results():
     assert LocalEngine(jobs=2).map(_pid, []) == []
 
