@@ -22,8 +22,11 @@ only the files listed there, and never a folder holding anything else
 
 from __future__ import annotations
 
+import csv
+import io
 import json
 import os
+import re
 import secrets
 import shutil
 import signal
@@ -132,13 +135,79 @@ def _iso_times(frame: pd.DataFrame) -> pd.DataFrame:
     return out
 
 
+#: How every CSV table writes a float: ten significant digits.
+FLOAT_FORMAT = "%.10g"
+
+#: Rows formatted at a time by :func:`csv_lines`.
+CSV_BLOCK = 100_000
+
+
 def csv_writer(frame: pd.DataFrame) -> Writer:
-    """Return a writer of ``frame`` as CSV, times as ISO 8601 UTC with ``Z``."""
+    """Return a writer of ``frame`` as CSV, times as ISO 8601 UTC with ``Z``.
+
+    The text is that of ``frame.to_csv(index=False, float_format=FLOAT_FORMAT)``,
+    byte for byte (:func:`csv_lines`), written several times faster.
+    """
 
     def write(path: Path) -> None:
-        _iso_times(frame).to_csv(path, index=False, float_format="%.10g")
+        with open(path, "w", encoding="utf-8", newline="") as handle:
+            handle.writelines(csv_lines(_iso_times(frame)))
 
     return write
+
+
+def csv_lines(frame: pd.DataFrame) -> Iterator[str]:
+    """Yield the text of ``frame.to_csv(index=False, float_format=FLOAT_FORMAT)`` in blocks.
+
+    Columns of floats, integers, booleans and text are formatted here, a
+    column at a time (pandas' writer formats value by value in Python, 2.4 s
+    for the 232 000 rows of a fleet day's dyads). Text is quoted as the
+    ``csv`` module quotes it (minimal quoting, ``"`` doubled). A frame of one
+    column, or with columns of any other kind, is written by pandas itself.
+    """
+    texts = [_column_text(frame[c]) for c in frame.columns] if frame.shape[1] > 1 else None
+    if texts is None or any(t is None for t in texts) or frame.columns.has_duplicates:
+        yield frame.to_csv(index=False, float_format=FLOAT_FORMAT, lineterminator="\n")
+        return
+    yield ",".join(_quoted([str(c) for c in frame.columns])) + "\n"
+    for lo in range(0, len(frame), CSV_BLOCK):
+        rows = zip(*(t[lo : lo + CSV_BLOCK] for t in texts), strict=True)
+        yield "".join([",".join(row) + "\n" for row in rows])
+
+
+def _column_text(column: pd.Series) -> list[str] | None:
+    """Return a column's values as CSV fields, or None for a kind pandas must write."""
+    dtype = column.dtype
+    if dtype == np.float64:
+        fmt = FLOAT_FORMAT
+        return ["" if v != v else fmt % v for v in column.to_numpy().tolist()]
+    if dtype == np.bool_:
+        return ["True" if v else "False" for v in column.to_numpy().tolist()]
+    if isinstance(dtype, np.dtype) and dtype.kind in "iu":
+        return list(map(str, column.to_numpy().tolist()))
+    if (isinstance(dtype, np.dtype) and dtype.kind == "O") or isinstance(dtype, pd.StringDtype):
+        values = column.to_numpy(dtype=object, na_value="")
+        if pd.api.types.infer_dtype(values, skipna=False) not in ("string", "empty"):
+            return None
+        values = values.tolist()
+        if not _NEEDS_QUOTES.search("\x1f".join(values)):  # the usual case: nothing to quote
+            return values
+        return _quoted(values)
+    return None
+
+
+_NEEDS_QUOTES = re.compile(r'[,"\r\n]')
+
+
+def _quoted(values: list[str]) -> list[str]:
+    """Return text fields quoted as the ``csv`` module quotes them (``QUOTE_MINIMAL``)."""
+    out = list(values)
+    for i, v in enumerate(values):
+        if _NEEDS_QUOTES.search(v):
+            buffer = io.StringIO()
+            csv.writer(buffer, lineterminator="\n").writerow([v])
+            out[i] = buffer.getvalue()[:-1]
+    return out
 
 
 def parquet_writer(frame: pd.DataFrame | Callable[[], pd.DataFrame]) -> Writer:

@@ -4,12 +4,14 @@ from __future__ import annotations
 
 import json
 
+import numpy as np
 import pandas as pd
 import pytest
 
 from comove.errors import InputError
 from comove.io.results import (
     MANIFEST,
+    csv_lines,
     csv_writer,
     geojson_writer,
     json_writer,
@@ -88,3 +90,41 @@ def test_geojson_keeps_geometry_times_and_crs(tmp_path, crs, member):
     assert back.geometry.geom_equals_exact(frame.geometry, 0).all()
     assert back["start"].astype(str).tolist()[1].startswith("1970-01-01")
     assert raw["features"][1]["properties"]["start"] == "1970-01-01T00:00:01.000000Z"
+
+
+def _pandas_text(frame: pd.DataFrame) -> str:
+    return frame.to_csv(index=False, float_format="%.10g", lineterminator="\n")
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_csv_text_is_pandas_text_byte_for_byte(seed):
+    # the reference is pandas' own writer with the same float format
+    rng = np.random.default_rng(seed)
+    n = 300
+    floats = rng.normal(0, 10.0 ** rng.integers(-12, 12, n), n)
+    floats[rng.random(n) < 0.1] = np.nan
+    floats[:6] = [np.inf, -np.inf, -0.0, 0.0, 1e300, 5e-324]
+    words = np.array(["a", "b,c", 'say "hi"', "two\nlines", "cr\rhere", "", " pad ", "é"])
+    text = pd.Series(words[rng.integers(0, words.size, n)], dtype=object)
+    text[rng.random(n) < 0.1] = None
+    frame = pd.DataFrame({
+        "f": floats, "i": rng.integers(-10**12, 10**12, n),
+        "u": rng.integers(0, 9, n).astype(np.uint8), "b": rng.random(n) < 0.5, "t": text,
+        "s": pd.Series(words[rng.integers(0, 8, n)], dtype="str"), 'odd, "name"': rng.random(n),
+    })  # fmt: skip
+    assert "".join(csv_lines(frame)) == _pandas_text(frame)
+    assert "".join(csv_lines(frame.iloc[:0])) == _pandas_text(frame.iloc[:0])
+
+
+@pytest.mark.parametrize(
+    "frame",
+    [
+        pd.DataFrame({"only": ["", "x", None]}),  # one column: an empty field alone is quoted
+        pd.DataFrame({"n": pd.array([1, None, 3], dtype="Int64"), "x": [1.0, 2.0, 3.0]}),
+        pd.DataFrame({"c": pd.Categorical(["a", "b", "a"]), "x": [1, 2, 3]}),
+        pd.DataFrame({"mixed": ["a", 1, 2.5], "x": [1, 2, 3]}),
+        pd.DataFrame({"f32": np.array([0.1, 2.5, np.nan], dtype=np.float32), "x": [1, 2, 3]}),
+    ],
+)
+def test_csv_text_of_other_kinds_is_pandas_text(frame):
+    assert "".join(csv_lines(frame)) == _pandas_text(frame)
