@@ -11,7 +11,7 @@ table.
 from __future__ import annotations
 
 from collections.abc import Callable, Iterator
-from contextlib import AbstractContextManager, contextmanager, nullcontext
+from contextlib import AbstractContextManager, ExitStack, contextmanager, nullcontext
 from dataclasses import dataclass, field, replace
 from typing import Any
 
@@ -235,17 +235,18 @@ def windowed_tracks(
     bucket_ns, max_rows = plan
     spill = spill_tracks(source, columns, int(bucket_ns), scratch)
     release_memory()  # before the engine's workers start (forked, they would share it)
-    try:
+    with ExitStack() as stack:
+        stack.callback(spill.remove)
         windows = spill.windows(max_rows)
         engine, threads = window_engine(run_params or RunParams(jobs=1), len(windows))
+        if hasattr(engine, "session"):  # one cluster for every pass
+            stack.enter_context(engine.session())
         cleaned = spill.clean(cleaning, alignment, windows, threads, progress, engine)
         span = cleaned.grid_span()
         empty = cleaned.window((windows[0][0], windows[0][0]))
         shell = replace(empty, first_index=span[0], n_snapshots=span[1] - span[0] + 1)
         every = sample_every(cleaned.first_ns, cleaned.last_ns, cleaned.step_ns)
         yield Windowed(cleaned, windows, span, shell, every, engine, threads, progress)
-    finally:
-        spill.remove()
 
 
 def mine_windows(

@@ -34,7 +34,7 @@ import pkgutil
 from collections.abc import Callable, Iterator, Sequence
 from concurrent.futures import CancelledError
 from contextlib import contextmanager
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 from comove.errors import EngineError, bad_setting
@@ -116,6 +116,26 @@ class DaskEngine:
     scheduler: str | None = None
     jobs: int | None = None
     worker_deaths: int = 2
+    _held: list = field(default_factory=list, init=False, compare=False, repr=False)
+
+    @contextmanager
+    def session(self) -> Iterator[DaskEngine]:
+        """Keep one client (and a started local cluster) for every map run inside.
+
+        A run that makes several maps (cleaning, then each pass over its time
+        windows) then starts its local cluster, and checks the cluster's
+        comove, once. The cluster closes when the block ends, however it ends.
+        """
+        if self._held:  # already inside a session: the outer one holds the client
+            yield self
+            return
+        with self._client(checked=False) as client:
+            self._check_cluster(client)
+            self._held.append(client)
+            try:
+                yield self
+            finally:
+                self._held.clear()
 
     def map(
         self,
@@ -157,7 +177,6 @@ class DaskEngine:
         if len(tasks) == 0:
             return []
         with self._client() as client:
-            self._check_cluster(client)
             return self._run(client, work, tasks, shared, progress, label)
 
     @contextmanager
@@ -181,7 +200,22 @@ class DaskEngine:
                                progress=progress, label=label)  # fmt: skip
 
     @contextmanager
-    def _client(self) -> Iterator[Any]:
+    def _client(self, checked: bool = True) -> Iterator[Any]:
+        """Yield a client of the scheduler, or of a local cluster started (and closed) here.
+
+        Inside a :meth:`session`, its client. A new client's cluster is checked
+        (:meth:`_check_cluster`) unless ``checked`` is false.
+        """
+        if self._held:
+            yield self._held[0]
+            return
+        with self._new_client() as client:
+            if checked:
+                self._check_cluster(client)
+            yield client
+
+    @contextmanager
+    def _new_client(self) -> Iterator[Any]:
         """Yield a client of the scheduler, or of a local cluster started (and closed) here."""
         require_dask()
         import dask

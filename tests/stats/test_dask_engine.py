@@ -67,6 +67,18 @@ def test_no_tasks_give_no_results_and_start_no_cluster():
     assert ours() == before
 
 
+def test_maps_in_a_session_share_one_local_cluster_and_close_it():
+    before = ours()
+    engine = DaskEngine(jobs=2)
+    with engine.session():
+        first = set(engine.map(_pid, list(range(8))))
+        with engine.started(_pid, list(range(8))) as results:
+            second = set(results())
+        assert first == second and len(first) == 2  # the same two workers both times
+    assert ours() == before  # the cluster is closed with the session
+    assert set(engine.map(_pid, list(range(8)))).isdisjoint(first)  # a map of its own
+
+
 class _Bar:
     """Stands in for tqdm: records what the bar was told."""
 
