@@ -138,8 +138,8 @@ def _iso_times(frame: pd.DataFrame) -> pd.DataFrame:
 #: How every CSV table writes a float: ten significant digits.
 FLOAT_FORMAT = "%.10g"
 
-#: Rows formatted at a time by :func:`csv_lines`.
-CSV_BLOCK = 100_000
+#: Rows formatted at a time by :func:`csv_lines` (their fields are Python strings).
+CSV_BLOCK = 20_000
 
 
 def csv_writer(frame: pd.DataFrame) -> Writer:
@@ -165,35 +165,50 @@ def csv_lines(frame: pd.DataFrame) -> Iterator[str]:
     ``csv`` module quotes it (minimal quoting, ``"`` doubled). A frame of one
     column, or with columns of any other kind, is written by pandas itself.
     """
-    texts = [_column_text(frame[c]) for c in frame.columns] if frame.shape[1] > 1 else None
-    if texts is None or any(t is None for t in texts) or frame.columns.has_duplicates:
+    ours = frame.shape[1] > 1 and not frame.columns.has_duplicates
+    kinds = [_column_kind(frame[c]) for c in frame.columns] if ours else [None]
+    if None in kinds:
         yield frame.to_csv(index=False, float_format=FLOAT_FORMAT, lineterminator="\n")
         return
     yield ",".join(_quoted([str(c) for c in frame.columns])) + "\n"
-    for lo in range(0, len(frame), CSV_BLOCK):
-        rows = zip(*(t[lo : lo + CSV_BLOCK] for t in texts), strict=True)
-        yield "".join([",".join(row) + "\n" for row in rows])
+    for lo in range(0, len(frame), CSV_BLOCK):  # a block at a time: memory bounded by a block
+        texts = [_column_text(frame[c].iloc[lo : lo + CSV_BLOCK], kind)
+                 for c, kind in zip(frame.columns, kinds, strict=True)]  # fmt: skip
+        yield "".join([",".join(row) + "\n" for row in zip(*texts, strict=True)])
 
 
-def _column_text(column: pd.Series) -> list[str] | None:
-    """Return a column's values as CSV fields, or None for a kind pandas must write."""
+def _column_kind(column: pd.Series) -> str | None:
+    """Return how :func:`_column_text` writes a column, or None for a kind pandas must write."""
     dtype = column.dtype
     if dtype == np.float64:
-        fmt = FLOAT_FORMAT
-        return ["" if v != v else fmt % v for v in column.to_numpy().tolist()]
+        return "float"
     if dtype == np.bool_:
-        return ["True" if v else "False" for v in column.to_numpy().tolist()]
+        return "bool"
     if isinstance(dtype, np.dtype) and dtype.kind in "iu":
-        return list(map(str, column.to_numpy().tolist()))
+        return "int"
     if (isinstance(dtype, np.dtype) and dtype.kind == "O") or isinstance(dtype, pd.StringDtype):
         values = column.to_numpy(dtype=object, na_value="")
-        if pd.api.types.infer_dtype(values, skipna=False) not in ("string", "empty"):
-            return None
-        values = values.tolist()
-        if not _NEEDS_QUOTES.search("\x1f".join(values)):  # the usual case: nothing to quote
-            return values
-        return _quoted(values)
+        return (
+            "text"
+            if pd.api.types.infer_dtype(values, skipna=False) in ("string", "empty")
+            else None
+        )
     return None
+
+
+def _column_text(column: pd.Series, kind: str) -> list[str]:
+    """Return a column's values as CSV fields (``kind`` from :func:`_column_kind`)."""
+    if kind == "float":
+        fmt = FLOAT_FORMAT
+        return ["" if v != v else fmt % v for v in column.to_numpy().tolist()]
+    if kind == "bool":
+        return ["True" if v else "False" for v in column.to_numpy().tolist()]
+    if kind == "int":
+        return list(map(str, column.to_numpy().tolist()))
+    values = column.to_numpy(dtype=object, na_value="").tolist()
+    if not _NEEDS_QUOTES.search("\x1f".join(values)):  # the usual case: nothing to quote
+        return values
+    return _quoted(values)
 
 
 _NEEDS_QUOTES = re.compile(r'[,"\r\n]')

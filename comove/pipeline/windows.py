@@ -322,8 +322,10 @@ def group_windows(
     # this process searches the episodes
     with run.started(_dyads_window, (grouping, reach, pair_keys, needed), "groups (2/3)",
                      tasks=list(enumerate(before))) as dyad_parts:  # fmt: skip
-        episodes = find_episodes(GroupTimeline.joined(timelines), episode_params)
-        del timelines
+        joined = GroupTimeline.joined(timelines)
+        del timelines  # the windows' parts: the joined timeline holds them all
+        episodes = find_episodes(joined, episode_params)
+        del joined
         parts = dyad_parts()
     tally = parts[0][0]
     for part_tally, _ in parts[1:]:

@@ -9,6 +9,7 @@ import pandas as pd
 import pytest
 
 from comove.errors import InputError
+from comove.io import results
 from comove.io.results import (
     MANIFEST,
     csv_lines,
@@ -97,7 +98,7 @@ def _pandas_text(frame: pd.DataFrame) -> str:
 
 
 @pytest.mark.parametrize("seed", range(6))
-def test_csv_text_is_pandas_text_byte_for_byte(seed):
+def test_csv_text_is_pandas_text_byte_for_byte(seed, monkeypatch):
     # the reference is pandas' own writer with the same float format
     rng = np.random.default_rng(seed)
     n = 300
@@ -114,6 +115,8 @@ def test_csv_text_is_pandas_text_byte_for_byte(seed):
     })  # fmt: skip
     assert "".join(csv_lines(frame)) == _pandas_text(frame)
     assert "".join(csv_lines(frame.iloc[:0])) == _pandas_text(frame.iloc[:0])
+    monkeypatch.setattr(results, "CSV_BLOCK", 7)  # many blocks, the last one short
+    assert "".join(csv_lines(frame)) == _pandas_text(frame)
 
 
 @pytest.mark.parametrize(
@@ -124,6 +127,7 @@ def test_csv_text_is_pandas_text_byte_for_byte(seed):
         pd.DataFrame({"c": pd.Categorical(["a", "b", "a"]), "x": [1, 2, 3]}),
         pd.DataFrame({"mixed": ["a", 1, 2.5], "x": [1, 2, 3]}),
         pd.DataFrame({"f32": np.array([0.1, 2.5, np.nan], dtype=np.float32), "x": [1, 2, 3]}),
+        pd.DataFrame([[1, 2.5], [3, 4.5]], columns=["same", "same"]),
     ],
 )
 def test_csv_text_of_other_kinds_is_pandas_text(frame):
