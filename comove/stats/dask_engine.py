@@ -181,23 +181,14 @@ class DaskEngine:
 
     @contextmanager
     def started(
-        self,
-        work: Any,
-        tasks: Sequence[Any],
-        *,
-        shared: Any = None,
-        work_size: int = 0,
-        progress: bool = False,
-        label: str = "",
+        self, work: Any, tasks: Sequence[Any], **options: Any
     ) -> Iterator[Callable[[], list[Any]]]:
         """Yield a function that runs :meth:`map` when its results are asked for.
 
-        The arguments are those of :meth:`map`. The tasks run only then, on
-        the cluster: this process waits for them rather than working beside
-        them.
+        ``options`` are those of :meth:`map`. The tasks run only then, on the
+        cluster: this process waits for them rather than working beside them.
         """
-        yield lambda: self.map(work, tasks, shared=shared, work_size=work_size,
-                               progress=progress, label=label)  # fmt: skip
+        yield lambda: self.map(work, tasks, **options)
 
     @contextmanager
     def _client(self, checked: bool = True) -> Iterator[Any]:
