@@ -13,6 +13,7 @@ from __future__ import annotations
 from collections.abc import Callable, Iterator
 from contextlib import AbstractContextManager, ExitStack, contextmanager, nullcontext
 from dataclasses import dataclass, field, replace
+from functools import reduce
 from typing import Any
 
 import numpy as np
@@ -24,7 +25,7 @@ from comove.groups.chain import (
     chunk_episode_rows,
     chunk_timeline_and_keys,
 )
-from comove.groups.dyads import DyadParams, TrackSamples, dyad_rows, expected_distances
+from comove.groups.dyads import DyadParams, DyadTally, TrackSamples, dyad_rows, expected_distances
 from comove.groups.episodes import EpisodeParams, Episodes, find_episodes
 from comove.groups.grouping import GroupParams, GroupTimeline
 from comove.groups.summary import EpisodeRows, episode_table
@@ -327,15 +328,12 @@ def group_windows(
         episodes = find_episodes(joined, episode_params)
         del joined
         parts = dyad_parts()
-    tally = parts[0][0]
-    for part_tally, _ in parts[1:]:
-        tally = tally.then(part_tally)
+    tally = reduce(DyadTally.then, [t for t, _ in parts])
     gathered = [g for _, g in parts if g is not None]
     del parts
-    row_parts = run.map(_rows_window, (episodes, grouping, reach), "groups (3/3)")
-    rows = row_parts[0]
-    for part in row_parts[1:]:
-        rows = rows.then(part)
+    rows = reduce(
+        EpisodeRows.then, run.map(_rows_window, (episodes, grouping, reach), "groups (3/3)")
+    )
     if needed is None:  # co-present pairs: known only now
         needed = TrackSamples.needed(*tally.pairs(), run.counts, cap)
         gathered = run.map(_gather_window, needed, "groups (De)", tasks=list(enumerate(before)))
@@ -349,7 +347,7 @@ def _timeline_window(shared: tuple, i: int) -> tuple:
 
     Returns its group timeline, the keys of its pairs ever together (or None),
     and its entries per object and part of the track sample. The aligned
-    window is kept for pass two.
+    window and its neighbour pairs are kept for the later passes.
     """
     run, (grouping, reach, together) = shared
     outer, start, stop = run.outer(i, reach, keep=True)
