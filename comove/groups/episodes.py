@@ -23,7 +23,9 @@ changes much less often than snapshots tick (at 25 Hz, most consecutive
 snapshots have identical groups), snapshots with the same groups are first
 merged into *spans* with one vectorised hashing pass (a span also ends where
 an object appears, disappears or has been missing longer than the tolerance),
-and the scheme runs per span rather than per snapshot.
+and the scheme runs per span rather than per snapshot. Within a span, only the
+candidates whose group changed are looked at: in a fleet, where some group
+changes somewhere at almost every snapshot, most groups carry on unchanged.
 """
 
 from __future__ import annotations
@@ -42,6 +44,11 @@ MEMBER_SEP = ";"
 
 #: Live candidates above which dominated ones are pruned during the search.
 PRUNE_ABOVE = 64
+
+#: After a pruning, the next waits until the live candidates have grown this many
+#: times over what it kept: where little is dominated (a fleet's hundreds of separate
+#: small groups), pruning every span would cost more than it saves.
+PRUNE_GROWTH = 2
 
 #: Spans with remembered "together" answers above which the stale ones are dropped.
 FORGET_ABOVE = 256
@@ -146,10 +153,10 @@ class _Timeline:
         # each object's presence runs, for telling absence (no data) from separation
         self.runs = [line.runs(o) for o in range(n_obj)]
         events = _presence_changes(line, tol_snaps)
-        self.first, self.last, first_group = _spans(line, events)
-        self._masks, self._bounds, self.group_span, self.group_words = _span_groups(
-            line, self.first, first_group, min_size
-        )
+        self.first, self.last, first_group, group_hash = _spans(line, events)
+        spans = _span_groups(line, self.first, first_group, group_hash, min_size)
+        self._masks, self._bounds, self.group_span, self.group_words = spans[:4]
+        self._new, self._ended = spans[4:]
         if n_obj <= 63:
             self.presence = _presence_masks(line, self.first)
             self.presence_words = np.asarray(self.presence, dtype=np.uint64)
@@ -165,6 +172,16 @@ class _Timeline:
         """Return the member bitmasks of the groups of at least ``min_size`` in span k."""
         return self._masks[self._bounds[k] : self._bounds[k + 1]]
 
+    def new_groups(self, k: int) -> list[int]:
+        """Return the groups of span k that were not groups of span k - 1 (all, for k = 0)."""
+        new, bounds = self._new
+        return new[bounds[k] : bounds[k + 1]]
+
+    def ended_groups(self, k: int) -> list[int]:
+        """Return the groups of span k - 1 that are not groups of span k (none, for k = 0)."""
+        ended, bounds = self._ended
+        return ended[bounds[k] : bounds[k + 1]]
+
     def groups_meeting(self, members: int, k: int) -> list[int]:
         """Return the groups of span k that hold a member of ``members``, in group order.
 
@@ -176,13 +193,34 @@ class _Timeline:
         groups = self.groups(k)
         if len(groups) <= INDEX_GROUPS_ABOVE:
             return groups
+        owner = self._owner(k)
+        found = {owner[o] for o in _bits(members) if o in owner}
+        return [groups[g] for g in sorted(found)]
+
+    def holding(self, members: int, k: int) -> int:
+        """Return the group of span k that holds all of ``members``, or 0 if none does."""
+        groups = self.groups(k)
+        if len(groups) <= INDEX_GROUPS_ABOVE:
+            for grp in groups:
+                if members & grp == members:
+                    return grp
+            return 0
+        # the group of its lowest member, if any, is the only one that can
+        g = self._owner(k).get((members & -members).bit_length() - 1)
+        if g is not None and members & groups[g] == members:
+            return groups[g]
+        return 0
+
+    def _owner(self, k: int) -> dict[int, int]:
+        """Return span k's object -> group index (of ``groups(k)``), for many groups."""
         owner = self._owners.get(k)
         if owner is None:
             if len(self._owners) >= OWNER_SPANS:  # the search looks back only a few spans
                 del self._owners[next(iter(self._owners))]
-            owner = self._owners[k] = {o: g for g, grp in enumerate(groups) for o in _bits(grp)}
-        found = {owner[o] for o in _bits(members) if o in owner}
-        return [groups[g] for g in sorted(found)]
+            owner = self._owners[k] = {
+                o: g for g, grp in enumerate(self.groups(k)) for o in _bits(grp)
+            }
+        return owner
 
     @property
     def n_spans(self) -> int:
@@ -325,20 +363,24 @@ def _presence_changes(line: GroupTimeline, tol_snaps: int) -> np.ndarray:
     return out[out < line.n_snapshots]
 
 
-def _spans(line: GroupTimeline, events: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Return (first snapshot, last snapshot, first group index) of each span.
+def _spans(
+    line: GroupTimeline, events: np.ndarray
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Return (first snapshot, last snapshot, first group index) of each span, and group hashes.
 
     Spans end where the groups change or at ``events`` (see
     :func:`_presence_changes`). Group identity is tested with Zobrist hashing:
     each object draws a fixed random 64-bit key; a group's hash is the XOR of
     its members' keys and a snapshot's the wrapping sum of mixed group hashes,
     so equal group sets give equal hashes (a collision is ~2^-64 per
-    comparison).
+    comparison). The groups' own hashes are returned too (one per group of
+    ``line``), for telling which groups carry on from one span to the next.
     """
     rng = np.random.default_rng(0x5EED)
     keys = rng.integers(1, 2**63 - 1, size=line.n_objects, dtype=np.int64).astype(np.uint64)
     n_snap = line.n_snapshots
     snap_hash = np.zeros(n_snap, dtype=np.uint64)
+    group_hash = np.zeros(line.group_snap.size, dtype=np.uint64)
     if line.group_snap.size:
         obj_keys = keys[line.group_objects]
         group_hash = np.bitwise_xor.reduceat(obj_keys, line.group_offsets[:-1])
@@ -353,7 +395,7 @@ def _spans(line: GroupTimeline, events: np.ndarray) -> tuple[np.ndarray, np.ndar
     first = np.flatnonzero(change)
     last = np.append(first[1:] - 1, n_snap - 1)
     first_group = np.searchsorted(line.group_snap, first, side="left")
-    return first, last, first_group
+    return first, last, first_group, group_hash
 
 
 def _presence_masks(line: GroupTimeline, first: np.ndarray) -> list[int]:
@@ -399,8 +441,15 @@ class _PresenceCursor:
 
 
 def _span_groups(
-    line: GroupTimeline, first: np.ndarray, first_group: np.ndarray, min_size: int
-) -> tuple[list[int], list[int], np.ndarray, np.ndarray | None]:
+    line: GroupTimeline,
+    first: np.ndarray,
+    first_group: np.ndarray,
+    group_hash: np.ndarray,
+    min_size: int,
+) -> tuple[
+    list[int], list[int], np.ndarray, np.ndarray | None,
+    tuple[list[int], list[int]], tuple[list[int], list[int]],
+]:  # fmt: skip
     """Return the groups of at least ``min_size`` members at each span start.
 
     Returns
@@ -413,6 +462,12 @@ def _span_groups(
         The span of each of those groups, in order (ascending).
     words : ndarray of uint64 or None
         The same bitmasks as one array, when objects fit in 63 bits.
+    new, ended : (list of int, list of int)
+        The groups of each span that the span before did not have, and those
+        of the span before that it does not have, as (masks, bounds) like
+        ``masks`` and ``bounds``. A group carried on from span to span is one
+        int object, built once: at fleet scale most groups carry on, and each
+        mask of thousands of objects takes a kilobyte.
     """
     n_spans = first.size
     count = np.searchsorted(line.group_snap, first, side="right") - first_group
@@ -423,10 +478,30 @@ def _span_groups(
     span_of = np.repeat(np.arange(n_spans), count)
     big = np.diff(line.group_offsets)[idx] >= min_size
     idx, span_of = idx[big], span_of[big]
-    masks = _group_masks(line.group_objects, line.group_offsets, line.n_objects, idx)
+    # the same group in consecutive spans: equal hashes in spans k - 1 and k
+    order = np.lexsort((span_of, group_hash[idx]))
+    h, sp = group_hash[idx][order], span_of[order]
+    carried = (h[1:] == h[:-1]) & (sp[1:] == sp[:-1] + 1)
+    is_new = np.ones(idx.size, dtype=bool)
+    is_new[order[1:][carried]] = False
+    ends = np.ones(idx.size, dtype=bool)
+    ends[order[:-1][carried]] = False
+    # each group's first appearance in its run of consecutive spans, where its mask is built
+    starts_run = np.concatenate([[True], ~carried]) if idx.size else np.zeros(0, dtype=bool)
+    first_of = np.empty(idx.size, dtype=np.int64)
+    first_of[order] = order[np.flatnonzero(starts_run)][np.cumsum(starts_run) - 1]
+    built = _group_masks(line.group_objects, line.group_offsets, line.n_objects, idx[is_new])
+    slot = np.cumsum(is_new) - 1  # the built mask of each first appearance
+    masks = [built[j] for j in slot[first_of].tolist()]
     bounds = np.searchsorted(span_of, np.arange(n_spans + 1)).tolist()
     words = np.asarray(masks, dtype=np.uint64) if line.n_objects <= 63 else None
-    return masks, bounds, span_of, words
+    new_at = np.flatnonzero(is_new)
+    new = ([masks[i] for i in new_at.tolist()],
+           np.searchsorted(span_of[new_at], np.arange(n_spans + 1)).tolist())  # fmt: skip
+    ended_at = np.flatnonzero(ends)  # ended with span k: listed at span k + 1
+    ended = ([masks[i] for i in ended_at.tolist()],
+             np.searchsorted(span_of[ended_at] + 1, np.arange(n_spans + 1)).tolist())  # fmt: skip
+    return masks, bounds, span_of, words, new, ended
 
 
 def find_episodes(timeline: GroupTimeline, params: EpisodeParams) -> Episodes:
@@ -460,8 +535,9 @@ def find_episodes(timeline: GroupTimeline, params: EpisodeParams) -> Episodes:
     candidates are intersected with each span's groups, a part that stays
     together inherits its set's start (and its missing members, when they were
     with it at their last fix), and a candidate closes once it has been apart
-    for longer than the tolerance. Time is proportional to the spans times the
-    live candidates times the groups per span, with candidates as integer
+    for longer than the tolerance. A candidate held whole by a group is looked
+    at again only when that group changes, so time is proportional to the
+    candidates whose groups change, span by span, with candidates as integer
     bitmasks; a candidate whose time together is not known from its own history
     (a part of a set that was once apart) is recounted when it closes, span by
     span, as whole-array tests when objects fit in 63 bits.
@@ -497,12 +573,10 @@ def find_episodes(timeline: GroupTimeline, params: EpisodeParams) -> Episodes:
     line = _Timeline(timeline, min_size, tol_snaps)
 
     search = _Search(line, min_size, min_snaps, tol_snaps)
-    live: dict[int, list[int]] = {}
     for k in range(line.n_spans):  # per span of constant groups, not per snapshot
-        live = search.span(live, k)
+        search.span(k)
         line.forget_before(k)
-    for members, (start, seen, flags, count) in live.items():
-        search.close(members, start, seen, flags, count)
+    search.close_all()
     return _maximal(search.closed, tol_snaps)
 
 
@@ -517,6 +591,16 @@ class _Search:
     own run must be looked up; UNSURE, the count is only a lower bound (a part
     of a gapped set may have been together while the set was apart) and is
     recounted when the candidate closes.
+
+    A candidate that one group held whole at the last span it was looked at is
+    *quiet*: while that group carries on unchanged, the candidate stays whole
+    and only its sighting and count grow, so it is looked at again only when
+    the group ends (its record is brought up to date then, or when another way
+    reaches the same set). At fleet scale most groups carry on from span to
+    span, so each span looks at the few candidates whose groups changed rather
+    than at every live one. The others (apart for a tolerated while, or
+    together only by excusing missing members) are *restless* and looked at
+    every span.
     """
 
     def __init__(self, line: _Timeline, min_size: int, min_snaps: int, tol_snaps: int) -> None:
@@ -525,6 +609,14 @@ class _Search:
         self.min_snaps = min_snaps
         self.tol = tol_snaps
         self.closed: list[tuple[frozenset, int, int, int]] = []
+        self.prune_at = PRUNE_ABOVE
+        self.live: dict[int, list[int]] = {}
+        self.holder: dict[int, int] = {}  # quiet candidate -> the group that holds it
+        self.held: dict[int, list[int]] = {}  # group -> candidates it held (some since moved)
+        self.restless: list[int] = []
+        # candidates that became live in this span -> the group that holds them (or 0)
+        self.fresh: dict[int, int] = {}
+        self.b = -1  # the last snapshot of the span being searched
 
     def close(self, members: int, start: int, seen: int, flags: int, count: int) -> None:
         """Record a candidate that has ended, if it lasts long enough."""
@@ -539,44 +631,103 @@ class _Search:
         if count >= self.min_snaps:
             self.closed.append((frozenset(_bits(members)), start, end, count))
 
-    def span(self, live: dict[int, list[int]], k: int) -> dict[int, list[int]]:
-        """Return the live candidates after span k."""
-        line, min_size = self.line, self.min_size
+    def close_all(self) -> None:
+        """Close every live candidate (after the last span)."""
+        self._catch_up()
+        for members, (start, seen, flags, count) in self.live.items():
+            self.close(members, start, seen, flags, count)
+
+    def span(self, k: int) -> None:
+        """Carry the live candidates through span k."""
+        line, min_size, live, holder = self.line, self.min_size, self.live, self.holder
         a, b = int(line.first[k]), int(line.last[k])
         n_k = b - a + 1
-        groups_k = line.groups(k)
-        nxt: dict[int, list[int]] = {}
-        for members, record in live.items():
-            parts = []
-            for grp in line.groups_meeting(members, k):
-                common = members & grp
-                if common == members:
-                    break
-                if common.bit_count() >= min_size:
-                    parts.append(common)
+        # the candidates to look at: those whose group ended with the span before
+        # (whole through it: brought up to date there), and the restless ones
+        todo = []
+        for grp in line.ended_groups(k):
+            for members in self.held.pop(grp, ()):
+                if holder.get(members) == grp:
+                    del holder[members]
+                    record = live.pop(members)
+                    record[3] += a - 1 - record[1]
+                    record[1] = a - 1
+                    todo.append((members, record))
+        todo.extend((members, live.pop(members)) for members in self.restless)
+        self.restless = []
+        self.b = b
+        for members, record in todo:
+            grp = line.holding(members, k)
+            if grp:
+                start, _, flags, count = record
+                self._offer(members, start, b, flags, count + n_k, grp)
             else:  # no group holds the whole set
-                self._not_whole(nxt, members, record, parts, k)
-                continue
-            start, _, flags, count = record
-            if members in nxt:
-                _offer(nxt, members, start, b, flags, count + n_k)
-            else:  # the usual case, inline: no other way reached this set yet
-                nxt[members] = [start, b, flags, count + n_k]
-        for grp in groups_k:
-            if grp in nxt:
-                _offer(nxt, grp, a, b, 0, n_k)
+                parts = []
+                for grp in line.groups_meeting(members, k):
+                    common = members & grp
+                    if common.bit_count() >= min_size:
+                        parts.append((common, grp))
+                self._not_whole(members, record, parts, k)
+        for grp in line.new_groups(k):  # a group carried on is a quiet candidate already
+            self._offer(grp, a, b, 0, n_k, grp)
+        for members, grp in self.fresh.items():  # quiet or restless from now on
+            if grp:
+                holder[members] = grp
+                self.held.setdefault(grp, []).append(members)
             else:
-                nxt[grp] = [a, b, 0, n_k]
+                self.restless.append(members)
+        self.fresh = {}
         # Candidates contained in another that started no later, is seen as late and
         # was together throughout can go: the final maximality filter would remove them
-        # anyway. Only pruned when many are live (measured: ~1 % of candidates pruned
-        # in a 25 Hz match, for 60 % of the time of the whole search).
-        return _prune_dominated(nxt) if len(nxt) > PRUNE_ABOVE else nxt
+        # anyway. Only pruned when many are live, and again only once they have grown
+        # well past what the last pruning kept.
+        if len(live) > self.prune_at:
+            self._prune()
+
+    def _offer(
+        self, members: int, start: int, seen: int, flags: int, count: int, grp: int = 0
+    ) -> None:
+        """Add a candidate, merging it with the same set reached another way.
+
+        ``grp`` is the group of this span that holds the set whole, if one does
+        (a set together only by excusing missing members, or apart, has none).
+        """
+        held = self.live.get(members)
+        if held is None:
+            self.live[members] = [start, seen, flags, count]
+            self.fresh[members] = grp
+            return
+        if members in self.holder:  # quiet: whole up to the end of this span
+            held[3] += self.b - held[1]
+            held[1] = self.b
+        _merge(held, start, seen, flags, count)
+
+    def _catch_up(self) -> None:
+        """Bring every quiet candidate's record up to the end of the current span."""
+        b, live = self.b, self.live
+        for members in self.holder:
+            record = live[members]
+            record[3] += b - record[1]
+            record[1] = b
+
+    def _prune(self) -> None:
+        """Drop dominated candidates (see :func:`_prune_dominated`)."""
+        self._catch_up()
+        kept = _prune_dominated(self.live)
+        if len(kept) < len(self.live):
+            for members in self.live.keys() - kept.keys():
+                self.holder.pop(members, None)
+            self.restless = [m for m in self.restless if m in kept]
+        self.live = kept
+        self.prune_at = max(PRUNE_ABOVE, PRUNE_GROWTH * len(kept))
 
     def _not_whole(
-        self, nxt: dict[int, list[int]], members: int, record: list[int], parts: list[int], k: int
+        self, members: int, record: list[int], parts: list[tuple[int, int]], k: int
     ) -> None:
-        """Carry on a candidate no group of span k holds whole: excused, split, or apart."""
+        """Carry on a candidate no group of span k holds whole: excused, split, or apart.
+
+        ``parts`` are its (members, group) of at least ``min_size`` in one group.
+        """
         line = self.line
         start, seen, flags, count = record
         b = int(line.last[k])
@@ -585,39 +736,33 @@ class _Search:
         missing = members & ~line.present(k) if parts else 0
         if missing and line.together(members, k):  # by excusing missing members
             whole = True
-            _offer(nxt, members, start, b, flags | GAPPED | EXCUSED, count + n_k)
+            self._offer(members, start, b, flags | GAPPED | EXCUSED, count + n_k)
         # The parts still together (when the set is together by excusing missing
         # members, its present part, which may outlast the whole set's end). A part was
         # together whenever the set was; more often if the set was ever apart.
         part_flags = flags | UNSURE if flags & GAPPED else flags
-        for common in parts:
+        for common, grp in parts:
             if flags & EXCUSED:  # not even whenever the set was: look its run up
                 run = line.run_start(common, k, start)
-                _offer(nxt, common, run, b, part_flags | UNSURE, 0)
+                self._offer(common, run, b, part_flags | UNSURE, 0, grp)
             else:
-                _offer(nxt, common, start, b, part_flags, count + n_k)
+                self._offer(common, start, b, part_flags, count + n_k, grp)
             if not whole and missing:  # and the part with its missing members
                 grown = line.with_missing(common, missing, k)
                 if grown != common:
                     run = line.run_start(grown, k, start)
-                    _offer(nxt, grown, run, b, part_flags | GAPPED | EXCUSED | UNSURE, 0)
+                    self._offer(grown, run, b, part_flags | GAPPED | EXCUSED | UNSURE, 0)
         if whole:
             return
         # apart for this whole span (nothing changes within it)
         if b - seen <= self.tol:
-            _offer(nxt, members, start, seen, flags | GAPPED, count)
+            self._offer(members, start, seen, flags | GAPPED, count)
         else:
             self.close(members, start, seen, flags, count)
 
 
-def _offer(
-    into: dict[int, list[int]], members: int, start: int, seen: int, flags: int, count: int
-) -> None:
-    """Add a candidate to ``into``, merging it with the same set reached another way."""
-    held = into.get(members)
-    if held is None:
-        into[members] = [start, seen, flags, count]
-        return
+def _merge(held: list[int], start: int, seen: int, flags: int, count: int) -> None:
+    """Merge a way of reaching a candidate into its record ``held`` (changed in place)."""
     if (start, seen) == (held[0], held[1]):  # two ways over the same stretch
         if held[2] & UNSURE and not flags & UNSURE:
             held[3] = count  # an exact count beats a lower bound

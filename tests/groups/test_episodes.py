@@ -293,13 +293,17 @@ def test_memory_bounds_of_the_search_do_not_change_its_episodes(scene, tol, p_pr
     groups_ = snapshot_groups(snaps, linked_pairs(neighbour_pairs(snaps, 1.5),
                                                   entry_motion(snaps), gp), gp)  # fmt: skip
     params = EpisodeParams(min_duration=2.0, tolerance=float(tol))
-    old = (ep.PRUNE_ABOVE, ep.FORGET_ABOVE, ep.INDEX_GROUPS_ABOVE, ep.OWNER_SPANS)
-    # also the object -> group index always on, with the fewest spans kept
-    ep.PRUNE_ABOVE, ep.FORGET_ABOVE, ep.INDEX_GROUPS_ABOVE, ep.OWNER_SPANS = 0, 0, 0, 1
+    names = ("PRUNE_ABOVE", "PRUNE_GROWTH", "FORGET_ABOVE", "INDEX_GROUPS_ABOVE", "OWNER_SPANS")
+    old = {name: getattr(ep, name) for name in names}
+    # pruning at every span; also the object -> group index always on, with the fewest
+    # spans kept
+    for name, value in zip(names, (0, 0, 0, 0, 1), strict=True):
+        setattr(ep, name, value)
     try:
         found = find_episodes(GroupTimeline.of(snaps, groups_), params)
     finally:
-        ep.PRUNE_ABOVE, ep.FORGET_ABOVE, ep.INDEX_GROUPS_ABOVE, ep.OWNER_SPANS = old
+        for name, value in old.items():
+            setattr(ep, name, value)
     assert found_set(found) == brute_force_episodes(snaps, groups_, 2, 2, tol)
 
 
