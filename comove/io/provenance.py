@@ -15,20 +15,27 @@ from typing import Any
 import pandas as pd
 
 import comove
+from comove.io import storage
 
 _VERSIONED = ("numpy", "scipy", "pandas", "pyarrow", "geopandas", "shapely", "pyproj")
 
 
-def _paths(source: Any) -> list[Path] | None:
-    """Return the files behind ``source`` when it names files, else None."""
+def _paths(source: Any) -> list[str] | None:
+    """Return the files behind ``source`` when it names files, else None.
+
+    Local files as absolute paths; object-store addresses as they are.
+    """
     items: Iterable[Any] = source if isinstance(source, (list, tuple)) else [source]
-    paths: list[Path] = []
+    paths: list[str] = []
     for item in items:
         if not isinstance(item, (str, Path)):
             return None
         text = str(item)
+        if storage.is_address(text):
+            paths.extend(storage.expand(text))
+            continue
         matched = sorted(glob.glob(text)) if glob.has_magic(text) else [text]
-        paths.extend(Path(m) for m in matched)
+        paths.extend(str(Path(m).resolve()) for m in matched)
     return sorted(set(paths))
 
 
@@ -43,8 +50,8 @@ def input_digest(source: Any) -> str:
     paths = _paths(source)
     if paths is not None:
         for path in paths:
-            h.update(path.name.encode() + b"\0")
-            with open(path, "rb") as fh:
+            h.update(storage.base_name(path).encode() + b"\0")
+            with storage.open_input(path) as fh:
                 for block in iter(lambda fh=fh: fh.read(1 << 20), b""):
                     h.update(block)
         return "sha256:" + h.hexdigest()
@@ -95,9 +102,7 @@ def run_record(
         "command": command,
         "created": datetime.now(UTC).isoformat(timespec="seconds").replace("+00:00", "Z"),
         # absolute, so that `--config run.json` repeats the run from any folder
-        "input": [str(p.resolve()) for p in paths]
-        if paths is not None
-        else f"<{type(source).__name__}>",
+        "input": paths if paths is not None else f"<{type(source).__name__}>",
         "input_digest": digest if digest is not None else input_digest(source),
         "settings": settings,
         "versions": versions,

@@ -10,6 +10,7 @@ from __future__ import annotations
 import csv
 import glob
 import importlib
+import io
 import json
 import operator
 import os
@@ -25,6 +26,7 @@ import pyproj
 from pyproj.exceptions import CRSError
 
 from comove.errors import InputError
+from comove.io import storage
 from comove.io.projection import crs_to_lonlat, max_scale_error
 
 __all__ = ["ColumnSpec", "RawTracks", "read_blocks", "read_tracks"]
@@ -130,13 +132,9 @@ def _kind_suffix(path: str) -> str:
 
 
 def _open_text(path: str):
-    """Open a possibly compressed text file for reading its first lines."""
+    """Open a possibly compressed text file (or address) for reading its first lines."""
     module = COMPRESSION_SUFFIXES.get(Path(path).suffix.lower())
-    if module is None:
-        return open(path, encoding="utf-8-sig", errors="replace", newline="")
-    return importlib.import_module(module).open(
-        path, "rt", encoding="utf-8-sig", errors="replace", newline=""
-    )
+    return storage.open_input(path, module, encoding="utf-8-sig", errors="replace", newline="")
 
 
 # A projected CRS in metres is used as the working plane as it stands only when its scale
@@ -537,7 +535,7 @@ def _tables(source: Any) -> list[_Table]:
     seen: set[str] = set()
     tables = []
     for path in paths:
-        resolved = str(Path(path).resolve())
+        resolved = path if storage.is_address(path) else str(Path(path).resolve())
         if resolved in seen:
             continue
         seen.add(resolved)
@@ -547,6 +545,8 @@ def _tables(source: Any) -> list[_Table]:
 
 def _expand(item: str | os.PathLike[str]) -> list[str]:
     text = os.fspath(item)
+    if storage.is_address(text):
+        return storage.expand(text)
     # A file whose name merely contains glob characters is still read as itself.
     if any(ch in text for ch in "*?[") and not os.path.isfile(os.path.expanduser(text)):
         matches = sorted(
@@ -813,7 +813,8 @@ def _read_text(table: _Table, spec: ColumnSpec, reference: Any) -> tuple[pd.Data
 def _has_geo_metadata(path: str) -> bool:
     import pyarrow.parquet as pq
 
-    metadata = pq.read_schema(path).metadata or {}
+    where, fs = storage.arrow_location(path)
+    metadata = pq.read_schema(where, filesystem=fs).metadata or {}
     return b"geo" in metadata
 
 
@@ -828,7 +829,8 @@ def _read_plain_parquet(path: str) -> pd.DataFrame:
     import pyarrow.dataset as ds
     import pyarrow.parquet as pq
 
-    schema = pq.read_schema(path)
+    where, fs = storage.arrow_location(path)
+    schema = pq.read_schema(where, filesystem=fs)
     text = [
         f.name for f in schema if pa.types.is_string(f.type) or pa.types.is_large_string(f.type)
     ]
@@ -838,7 +840,7 @@ def _read_plain_parquet(path: str) -> pd.DataFrame:
     # split_blocks: one array per column, not one 2-d block copied together (3x faster).
     pool = pa.system_memory_pool()
     fmt = ds.ParquetFileFormat(read_options=ds.ParquetReadOptions(dictionary_columns=text))
-    table = ds.dataset(path, format=fmt).to_table(memory_pool=pool)
+    table = ds.dataset(where, format=fmt, filesystem=fs).to_table(memory_pool=pool)
     return table.to_pandas(split_blocks=True, memory_pool=pool)
 
 
@@ -851,9 +853,9 @@ def _read_table(table: _Table) -> _Table:
             if _has_geo_metadata(path):
                 import geopandas
 
-                return _Table(
-                    table.name, table.resolved, geopandas.read_parquet(path), geometry=True
-                )
+                where, fs = storage.arrow_location(path)
+                data = geopandas.read_parquet(where, filesystem=fs)
+                return _Table(table.name, table.resolved, data, geometry=True)
             return _Table(table.name, table.resolved, _read_plain_parquet(path))
         except Exception as exc:  # noqa: BLE001 - any reader failure is a bad file to the user
             raise _read_error(table.name, "Parquet", exc) from exc
@@ -861,7 +863,13 @@ def _read_table(table: _Table) -> _Table:
 
     kind = "GeoPackage" if suffix == ".gpkg" else "GeoJSON"
     try:
-        data = geopandas.read_file(path, engine="pyogrio")
+        if storage.is_address(path):  # the GDAL readers take the bytes, not the address
+            with storage.open_input(path) as handle:
+                data = geopandas.read_file(io.BytesIO(handle.read()), engine="pyogrio")
+        else:
+            data = geopandas.read_file(path, engine="pyogrio")
+    except InputError:
+        raise
     except Exception as exc:  # noqa: BLE001 - any reader failure is a bad file to the user
         raise _read_error(table.name, kind, exc) from exc
     return _Table(table.name, table.resolved, data, geometry=True)
@@ -1026,6 +1034,8 @@ def _open_binary(path: str) -> Any:
     import pyarrow as pa
 
     module = COMPRESSION_SUFFIXES.get(Path(path).suffix.lower())
+    if storage.is_address(path):
+        return storage.open_input(path, module)
     if module is None:
         return pa.input_stream(path, compression=None)
     if module in ("gzip", "bz2") and pa.Codec.is_available(module):
@@ -1046,8 +1056,9 @@ def _parquet_stream(
     name = table.name
     try:
         geo = _has_geo_metadata(name)
-        schema = pq.read_schema(name)
-        n_rows = pq.read_metadata(name).num_rows
+        where, fs = storage.arrow_location(name)
+        schema = pq.read_schema(where, filesystem=fs)
+        n_rows = pq.read_metadata(where, filesystem=fs).num_rows
         # the columns, index and dtypes the whole-file reader gives, without the rows
         view = _str_columns(schema.empty_table().to_pandas())
         geometry_col = covering = crs = None
@@ -1106,7 +1117,8 @@ def _parquet_chunks(
     import pyarrow.parquet as pq
 
     try:
-        file = pq.ParquetFile(name, read_dictionary=text)
+        where, fs = storage.arrow_location(name)
+        file = pq.ParquetFile(where, read_dictionary=text, filesystem=fs)
     except Exception as exc:  # noqa: BLE001 - any reader failure is a bad file to the user
         raise _read_error(name, "Parquet", exc) from exc
     try:

@@ -860,11 +860,17 @@ def _parquet_time_span(paths: list[str], column: str | None) -> int:
     """Return the time span (ns) Parquet files' statistics give for a timestamp column (0: none)."""
     import pyarrow.parquet as pq
 
+    from comove.io import storage
+
     low, high = None, None
     for path in paths:
-        if column is None or Path(path).suffix.lower() not in (".parquet", ".pq"):
+        if column is None or Path(storage.base_name(path)).suffix.lower() not in (
+            ".parquet",
+            ".pq",
+        ):
             return 0
-        meta = pq.ParquetFile(path).metadata
+        where, fs = storage.arrow_location(path)
+        meta = pq.read_metadata(where, filesystem=fs)
         names = [meta.schema.column(i).name for i in range(meta.num_columns)]
         if column not in names:
             return 0
@@ -883,31 +889,33 @@ def estimated_rows(source: Any) -> int | None:
     """Return about how many rows the files of ``source`` hold (None: in memory or geo files)."""
     import pyarrow.parquet as pq
 
+    from comove.io import storage
     from comove.io.reading import COMPRESSION_SUFFIXES, PARQUET_SUFFIXES, TEXT_SUFFIXES, _tables
 
     total = 0
     for table in _tables(source):
         if not table.is_file:
             return None
-        path = Path(table.name)
-        suffixes = [s.lower() for s in path.suffixes[-2:]]
+        name = table.name
+        suffixes = [s.lower() for s in Path(storage.base_name(name)).suffixes[-2:]]
         if suffixes and suffixes[-1] in PARQUET_SUFFIXES:
-            total += pq.ParquetFile(path).metadata.num_rows
+            where, fs = storage.arrow_location(name)
+            total += pq.read_metadata(where, filesystem=fs).num_rows
         elif any(s in TEXT_SUFFIXES for s in suffixes):
-            size = path.stat().st_size
+            size = storage.size(name)
             if suffixes[-1] in COMPRESSION_SUFFIXES:
                 size *= TEXT_EXPANSION
-            total += size // max(_line_length(path), 1)
+            total += size // max(_line_length(name), 1)
         else:
             return None
     return total
 
 
-def _line_length(path: Path) -> int:
+def _line_length(path: str) -> int:
     """Return the mean length in bytes of the first lines of a (possibly compressed) text file."""
     from comove.io.reading import _open_text
 
-    with _open_text(str(path)) as handle:
+    with _open_text(path) as handle:
         sample = handle.read(65536)
     lines = sample.splitlines()[1:-1] or sample.splitlines()
     return max(1, int(np.mean([len(line.encode()) + 1 for line in lines]))) if lines else 1
