@@ -113,7 +113,11 @@ def _unique(keys: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     Sort-based: for the millions of int64 keys met here this is several times
     faster than ``numpy.unique``'s hash path.
     """
-    ordered = np.sort(keys)
+    return _runs(np.sort(keys))
+
+
+def _runs(ordered: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Return the distinct values of the sorted array ``ordered`` and their counts."""
     first = np.ones(ordered.size, dtype=bool)
     first[1:] = ordered[1:] != ordered[:-1]
     starts = np.flatnonzero(first)
@@ -207,18 +211,20 @@ def _level_from_instances(
     n_sets, k = role_sets.shape
     n_entries = np.int64(max(snaps.n_entries, 1))
     n_snap = np.int64(max(snaps.n_snapshots, 1))
-    row_snap = snaps.snap[instances[:, 0]] if instances.size else np.empty(0, np.int64)
-    row_key = instance_set * n_snap + row_snap
-    keys, _ = _unique(row_key)
-    set_id, snap = keys // n_snap, keys % n_snap
-    pr = np.empty((keys.size, k), dtype=np.float64)
+    keys = set_id = snap = np.empty(0, np.int64)
+    pr = np.empty((0, k), dtype=np.float64)
     for col in range(k):  # per role position of the set, each a whole-array pass
         participant, _ = _unique(instance_set * n_entries + instances[:, col])
         p_set, p_entry = participant // n_entries, participant % n_entries
-        p_key = p_set * n_snap + snaps.snap[p_entry]
-        # every (set, snapshot) with an instance has participants at every position,
-        # so the unique keys here are exactly ``keys``
-        _, n_part = _unique(p_key)
+        # entries are in snapshot order, so these (set, snapshot) keys come out sorted:
+        # each key's participants are one run, counted without another sort. Every
+        # (set, snapshot) with an instance has participants at every position, so the
+        # keys are the same at every position.
+        p_key, n_part = _runs(p_set * n_snap + snaps.snap[p_entry])
+        if col == 0:
+            keys = p_key
+            set_id, snap = keys // n_snap, keys % n_snap
+            pr = np.empty((keys.size, k), dtype=np.float64)
         n_role = role_counts.lookup(snap, role_sets[set_id, col])
         pr[:, col] = n_part / n_role
     pi = pr.min(axis=1)
