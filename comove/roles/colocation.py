@@ -190,12 +190,19 @@ class RoleCounts:
 
     def __init__(self, snaps: Snapshots) -> None:
         self.n_roles = len(snaps.roles)
-        self.keys, self.counts = _unique(snaps.snap * self.n_roles + snaps.role)
+        cells = snaps.n_snapshots * self.n_roles
+        key = snaps.snap * self.n_roles + snaps.role
+        # a dense table when it is no larger than the entries (few roles), else sorted keys
+        self.dense = np.bincount(key, minlength=cells) if cells <= snaps.n_entries else None
+        if self.dense is None:
+            self.keys, self.counts = _unique(key)
 
     def lookup(self, snap: np.ndarray, role: np.ndarray) -> np.ndarray:
         """Return the count of role ``role`` at snapshot ``snap`` (elementwise)."""
-        pos = np.searchsorted(self.keys, snap * self.n_roles + role)
-        return self.counts[pos]
+        key = snap * self.n_roles + role
+        if self.dense is not None:
+            return self.dense[key]
+        return self.counts[np.searchsorted(self.keys, key)]
 
 
 def _level_from_instances(
@@ -255,7 +262,13 @@ def _pair_level(
     hi = np.where(swap, i, j)
     roles = np.column_stack([np.minimum(ri, rj), np.maximum(ri, rj)]).astype(np.int64)
     n_roles = len(snaps.roles)
-    codes, instance_set = np.unique(encode_role_sets(roles, n_roles), return_inverse=True)
+    code = encode_role_sets(roles, n_roles)
+    if n_roles * n_roles <= max(code.size, 1):  # few roles: distinct codes by a dense count
+        seen = np.bincount(code, minlength=n_roles * n_roles) > 0
+        codes = np.flatnonzero(seen)
+        instance_set = (np.cumsum(seen) - 1)[code]
+    else:
+        codes, instance_set = np.unique(code, return_inverse=True)
     role_sets = np.column_stack([codes // n_roles, codes % n_roles]).astype(np.int64)
     return role_sets, np.column_stack([lo, hi]).astype(np.int64), instance_set.astype(np.int64)
 

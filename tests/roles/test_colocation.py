@@ -11,6 +11,7 @@ from scenes import brute_force_pi, grid_scene, random_scene
 from comove.roles.chain import role_chain
 from comove.roles.colocation import ColocationParams
 from comove.roles.persistence import PersistenceParams, durable_patterns
+from comove.tracks.neighbours import neighbour_pairs
 
 
 def mined(snaps, radius, min_participation, max_size, min_prevalent=1):
@@ -39,6 +40,25 @@ def test_every_instance_count_matches_networkx_cliques(seed):
         assert got_pi == pytest.approx(pi, abs=1e-12)
         assert got_pr == pytest.approx([pr_by_role[r] for r in key[0]], abs=1e-12)
     assert any(len(k[0]) == 4 for k in reference)  # the scene does reach size 4
+
+
+@pytest.mark.parametrize("seed", range(3))
+def test_many_roles_few_entries_match_networkx_cliques(seed):
+    # more (snapshot, role) cells than entries and more role pairs than pair instances:
+    # the miner's sparse counts rather than its dense tables (reference: networkx, as above)
+    x, y, role, present, n_roles = random_scene(
+        seed + 50, n_snap=12, n_obj=14, n_roles=13, side=20.0
+    )
+    snaps = grid_scene(x, y, role, present, n_roles)
+    assert snaps.n_snapshots * n_roles > snaps.n_entries
+    assert n_roles * n_roles > neighbour_pairs(snaps, 4.0).i.size > 0
+    reference = brute_force_pi(snaps, 4.0, max_size=3)
+    _, ours = mined(snaps, 4.0, min_participation=1e-9, max_size=3)
+    assert set(ours) == set(reference)
+    for key, (pi, pr_by_role) in reference.items():
+        got_pi, got_pr = ours[key]
+        assert got_pi == pytest.approx(pi, abs=1e-12)
+        assert got_pr == pytest.approx([pr_by_role[r] for r in key[0]], abs=1e-12)
 
 
 @pytest.mark.parametrize("seed", range(4))
