@@ -391,3 +391,26 @@ def test_importing_the_command_line_keeps_the_programs_garbage_collection_settin
     done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)
     assert done.returncode == 0, done.stderr
     assert done.stdout.split() == [str(collecting), "True"]
+
+
+@pytest.mark.parametrize("chunk", ["whole", "1h"])
+@pytest.mark.parametrize("command", ["mine", "groups"])
+def test_a_stray_time_stamp_is_refused_in_one_line_naming_it(chunk, command, tmp_path, capsys):
+    # one row at the epoch among fixes of 2023: a grid of 1.7e9 snapshots, or 472,000
+    # windows of an hour, refused before anything is allocated, naming the row's time
+    n = 120
+    frame = pd.DataFrame({
+        "id": ["a"] * n + ["b"] * n, "role": ["r"] * n + ["s"] * n,
+        "time": [1_700_000_000 + i for i in range(n)] * 2,
+        "x": [float(i % 7) for i in range(2 * n)], "y": 0.0,
+    })  # fmt: skip
+    frame.loc[5, "time"] = 0
+    path = tmp_path / "stray.csv"
+    frame.to_csv(path, index=False)
+    out_dir = tmp_path / "out"
+    code, _, err = run([command, path, "--radius", 2, "--chunk", chunk, "--permutations", 0,
+                        "--quiet", "--out", out_dir], capsys)  # fmt: skip
+    assert code == 2 and "Traceback" not in err
+    assert len(err.strip().splitlines()) == 1
+    assert "1970-01-01T00:00:00Z lies 53.9 years before the other" in err
+    assert not out_dir.exists()

@@ -219,4 +219,6 @@ def human_seconds(seconds: float) -> str:
         return f"{seconds / 60:.3g} min"
     if seconds < 2 * 86400:
         return f"{seconds / 3600:.3g} h"
-    return f"{seconds / 86400:.3g} days"
+    if seconds < 2 * 365.25 * 86400:
+        return f"{seconds / 86400:.3g} days"
+    return f"{seconds / (365.25 * 86400):.3g} years"

@@ -10,6 +10,8 @@ snapshot is the role of its latest fix at or before that snapshot.
 
 from __future__ import annotations
 
+import os
+import warnings
 from collections.abc import Callable
 from dataclasses import dataclass, field, replace
 from typing import TYPE_CHECKING
@@ -17,7 +19,8 @@ from typing import TYPE_CHECKING
 import numpy as np
 import pyproj
 
-from comove.errors import InputError
+from comove.errors import ComoveNote, InputError
+from comove.io.times import human_seconds, utc_iso
 from comove.tracks.quality import _quantiles
 
 if TYPE_CHECKING:
@@ -349,6 +352,133 @@ def grid_ns(params: AlignParams, median_s: Callable[[], float | None]) -> tuple[
     return step_ns, int(round(max_gap_s * NS_PER_S))
 
 
+#: Bytes a run holds per snapshot of its grid, besides one per role: the snapshot
+#: offsets, the group timeline's hashes and spans, role presence (an estimate from the
+#: arrays allocated per snapshot, rounded up).
+BYTES_PER_SNAPSHOT = 64
+
+#: Snapshots per fix above which the grid gets a note: nearly all of it empty, from a
+#: step far below the sampling interval or a stray time stamp far from the rest.
+SPARSE_GRID = 1000
+
+#: A gap between consecutive fix times longer than this share of the whole period marks
+#: the fixes on its smaller side as outlying (stray timestamps).
+OUTLYING_GAP_SHARE = 0.5
+
+
+def available_memory() -> int:
+    """Return the bytes of memory available to this process (8 GiB when it cannot be read)."""
+    try:
+        with open("/proc/meminfo") as handle:
+            for line in handle:
+                if line.startswith("MemAvailable:"):
+                    return int(line.split()[1]) * 1024
+    except OSError:
+        pass
+    try:
+        return int(os.sysconf("SC_AVPHYS_PAGES") * os.sysconf("SC_PAGE_SIZE"))
+    except (ValueError, OSError, AttributeError):
+        return 8 * 2**30
+
+
+def check_grid(
+    first_ns: int,
+    last_ns: int,
+    step_ns: int,
+    n_roles: int,
+    times_ns: np.ndarray,
+    budget: int | None = None,
+    n_fixes: int | None = None,
+) -> int:
+    """Return the number of snapshots of the grid, refusing one too large for memory.
+
+    Parameters
+    ----------
+    first_ns, last_ns : int
+        The first and last fix time of the run.
+    step_ns : int
+        The step.
+    n_roles : int
+        Number of roles (role presence is kept per role and snapshot).
+    times_ns : ndarray of int64
+        Fix times to explain a refusal with (all of them, or each object's first
+        and last): a few fixes far from the rest, such as a stray timestamp at
+        the epoch or a century away, are named.
+    budget : int, optional
+        Bytes the grid may take (default: the available memory).
+    n_fixes : int, optional
+        Number of fixes (default: the size of ``times_ns``). A grid of more than
+        ``SPARSE_GRID`` snapshots per fix gets a note (:class:`ComoveNote`).
+
+    Raises
+    ------
+    InputError
+        When the grid's per-snapshot arrays alone would take more than the budget.
+    """
+    n_snap = (int(last_ns) - int(first_ns)) // int(step_ns) + 1
+    need = n_snap * (BYTES_PER_SNAPSHOT + int(n_roles))
+    budget = available_memory() if budget is None else int(budget)
+    span = (
+        f"{human_seconds((int(last_ns) - int(first_ns)) / NS_PER_S)} at a step of "
+        f"{human_seconds(step_ns / NS_PER_S)}"
+    )
+    if need > budget:
+        advice = outlying_times(times_ns)
+        raise InputError(
+            f"the time grid would hold {n_snap:,} snapshots ({span}), about {_gib(need)} for "
+            f"them alone, more than the {_gib(budget)} of memory available; "
+            f"{advice + ', or give' if advice else 'give'} a larger --step"
+        )
+    n_fixes = int(times_ns.size) if n_fixes is None else int(n_fixes)
+    if n_snap > SPARSE_GRID * max(n_fixes, 1):
+        advice = outlying_times(times_ns)
+        warnings.warn(
+            ComoveNote(
+                f"the time grid holds {n_snap:,} snapshots for {n_fixes:,} fixes ({span}); "
+                f"{advice + ', or give' if advice else 'give'} a larger --step if that "
+                "is not meant"
+            ),
+            stacklevel=2,
+        )
+    return n_snap
+
+
+def _gib(n_bytes: int) -> str:
+    return f"{n_bytes / 2**30:.3g} GiB" if n_bytes >= 2**30 else f"{n_bytes / 2**20:.3g} MiB"
+
+
+def outlying_times(times_ns: np.ndarray, counts: np.ndarray | None = None) -> str:
+    """Return advice naming fixes far from the rest in time, or "" when there are none.
+
+    Outlying: on the smaller side of a gap between consecutive times that is
+    longer than ``OUTLYING_GAP_SHARE`` of the whole period. ``counts`` gives
+    how many fixes each time stands for (default one each).
+    """
+    times_ns = np.asarray(times_ns, dtype=np.int64)
+    order = np.argsort(times_ns, kind="stable")
+    t = times_ns[order]
+    weight = np.ones(t.size, np.int64) if counts is None else np.asarray(counts)[order]
+    if t.size < 2 or t[-1] == t[0]:
+        return ""
+    gaps = np.diff(t)
+    g = int(np.argmax(gaps))
+    if gaps[g] <= OUTLYING_GAP_SHARE * (t[-1] - t[0]):
+        return ""
+    before, after = int(weight[: g + 1].sum()), int(weight[g + 1 :].sum())
+    gap = human_seconds(int(gaps[g]) / NS_PER_S)
+    if before <= after:
+        lone, first, other = before, utc_iso(int(t[0])), f"from {utc_iso(int(t[g + 1]))}"
+        side = "before"
+    else:
+        lone, first, other = after, utc_iso(int(t[g + 1])), f"up to {utc_iso(int(t[g]))}"
+        side = "after"
+    rows = f"1 fix at {first} lies" if lone == 1 else f"{lone:,} fixes from {first} lie"
+    return (
+        f"{rows} {gap} {side} the other {max(before, after):,} ({other}): correct or "
+        "remove those rows"
+    )
+
+
 def no_grid_point(step_ns: int) -> InputError:
     """Return the error for fixes of which none falls on or spans a grid point."""
     return InputError(
@@ -395,6 +525,9 @@ def align(fixes: Fixes, params: AlignParams | None = None) -> Snapshots:
     (10, [0, 1, 2], [0.0, 2.0, 4.0])
     """
     step_ns, max_gap_ns = grid_ns(params or AlignParams(), lambda: _median_interval(fixes))
+    if fixes.time.size:
+        check_grid(int(fixes.time.min()), int(fixes.time.max()), step_ns, len(fixes.roles),
+                   fixes.time)  # fmt: skip
     first, count, on_grid, t_next = _owned_grid_points(fixes, step_ns, max_gap_ns)
     total = int(count.sum())
     if total == 0:

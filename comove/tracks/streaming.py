@@ -29,7 +29,6 @@ ends, however it ends.
 
 from __future__ import annotations
 
-import os
 import shutil
 import tempfile
 from dataclasses import dataclass, field
@@ -43,13 +42,17 @@ import pyarrow.ipc as ipc
 from comove.errors import InputError, bad_setting
 from comove.io.projection import LonLatExtent, metric_crs_of
 from comove.io.reading import BLOCK_ROWS, ColumnSpec, read_blocks
+from comove.io.times import human_seconds
 from comove.tracks.alignment import (
     NS_PER_S,
     AlignParams,
     Snapshots,
     align_window,
+    available_memory,
+    check_grid,
     grid_ns,
     no_grid_point,
+    outlying_times,
 )
 from comove.tracks.cleaning import (
     DROP_REASONS,
@@ -318,6 +321,30 @@ def spill_tracks(
         raise
 
 
+#: Windows from the first to the last that hold rows, above which a run over windows is
+#: refused when fewer than one in ``EMPTY_WINDOWS_RATIO`` of them holds any (a stray time
+#: stamp years away would otherwise make millions of empty windows).
+MANY_WINDOWS = 10_000
+EMPTY_WINDOWS_RATIO = 100
+
+
+def _check_buckets(bucket_ns: int, counts: dict[int, int]) -> None:
+    """Refuse a period whose windows are nearly all empty, naming the fixes far from the rest."""
+    full = np.array(sorted(k for k, n in counts.items() if n), dtype=np.int64)
+    if full.size == 0:
+        return
+    n_range = int(full[-1] - full[0] + 1)
+    if n_range <= MANY_WINDOWS or n_range <= EMPTY_WINDOWS_RATIO * full.size:
+        return
+    rows = np.array([counts[int(k)] for k in full], dtype=np.int64)
+    advice = outlying_times(full * bucket_ns, rows)
+    raise InputError(
+        f"the input's times span {n_range:,} windows of {human_seconds(bucket_ns / NS_PER_S)}, "
+        f"of which {full.size:,} hold fixes; "
+        + (advice + " (times rounded down to the window)" if advice else "check the time column")
+    )
+
+
 class _SpillPass:
     """Pass 1: blocks in, buckets out, and what must be known of the whole input."""
 
@@ -428,6 +455,7 @@ class _SpillPass:
             input_crs="EPSG:4326" if raw.coords == "lonlat" else raw.crs,
             metric_crs=metric_crs, time_kind=str(self.kind),
         )  # fmt: skip
+        _check_buckets(self.bucket_ns, self.counts)
         return Spill(self.folder, self.bucket_ns, self.batches, plan, list(raw.sources), names,
                      starts, self.seq, self.dropped, examples, self.span, self.counts)  # fmt: skip
 
@@ -694,6 +722,10 @@ class _CleanPass:
             max_speed=self.params.max_speed, passes=passes, sources=spill.sources,
         )  # fmt: skip
         step_ns, max_gap_ns = grid_ns(alignment, lambda: interval["median"])
+        first_fix, last_fix = gaps.first[used_obj], gaps.last[used_obj]
+        n_fixes = gaps.n + int(used_obj.sum())  # each object's gaps are its fixes less one
+        check_grid(int(first_fix.min()), int(last_fix.max()), step_ns, int(roles.size),
+                   np.concatenate([first_fix, last_fix]), n_fixes=n_fixes)  # fmt: skip
         return Cleaned(spill, objects, roles, remap_obj, remap_role, quality, step_ns,
                        max_gap_ns, gaps.first[used_obj], gaps.last[used_obj])  # fmt: skip
 
@@ -800,20 +832,7 @@ class WindowParams:
 
 def memory_budget() -> int:
     """Return the bytes a run plans to hold: ``MEMORY_SHARE`` of the available, at most the cap."""
-    available = None
-    try:
-        with open("/proc/meminfo") as handle:
-            for line in handle:
-                if line.startswith("MemAvailable:"):
-                    available = int(line.split()[1]) * 1024
-    except OSError:
-        pass
-    if available is None:
-        try:
-            available = os.sysconf("SC_AVPHYS_PAGES") * os.sysconf("SC_PAGE_SIZE")
-        except (ValueError, OSError, AttributeError):
-            available = 8 * 2**30
-    return int(min(MEMORY_SHARE * available, MEMORY_CAP))
+    return int(min(MEMORY_SHARE * available_memory(), MEMORY_CAP))
 
 
 def plan_windows(

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import warnings
 from collections import Counter
 
 import numpy as np
@@ -185,3 +186,47 @@ def test_role_counts_dense_and_sorted_agree(monkeypatch):
     counts = np.zeros((n_obj, snaps.n_roles), int)
     np.add.at(counts, (snaps.obj, snaps.role), 1)
     np.testing.assert_array_equal(snaps.main_roles(), counts.argmax(axis=1))
+
+
+# --------------------------------------------------------------------------- grid guards
+
+DAY_NS = 86_400 * NS
+
+
+def test_a_grid_beyond_memory_is_refused_naming_the_stray_fix():
+    from comove.tracks.alignment import check_grid
+
+    times = np.r_[0, 1_700_000_000 * NS + np.arange(100) * NS]  # one fix at the epoch
+    with pytest.raises(InputError) as caught:
+        check_grid(int(times.min()), int(times.max()), NS, 2, times, budget=2**30)
+    message = str(caught.value)
+    assert "1,700,000,100 snapshots" in message and "more than the 1 GiB" in message
+    assert "1 fix at 1970-01-01T00:00:00Z lies 53.9 years before the other 100" in message
+    assert "\n" not in message
+    # within the budget: the snapshots are counted, nothing refused
+    assert check_grid(int(times[1]), int(times[-1]), NS, 2, times[1:], budget=2**30) == 100
+
+
+def test_fixes_after_the_rest_are_named_with_their_count():
+    from comove.tracks.alignment import outlying_times
+
+    times = np.r_[np.arange(50) * NS, 400 * DAY_NS + np.arange(3) * NS]
+    advice = outlying_times(times)
+    assert advice.startswith("3 fixes from 1971-02-05T00:00:00Z lie 400 days after the other 50")
+    assert outlying_times(np.arange(50) * NS) == ""  # evenly spread: nothing to name
+    # weighted: a time standing for many fixes
+    assert outlying_times(np.array([0, 10 * DAY_NS]), np.array([5, 1])).startswith(
+        "1 fix at 1970-01-11T00:00:00Z lies 10 days after the other 5"
+    )
+
+
+def test_a_nearly_empty_grid_gets_a_note():
+    from comove.errors import ComoveNote
+    from comove.tracks.alignment import SPARSE_GRID
+
+    fixes = make_fixes([0, 0], [0.0, 1.0], [0.0, 1.0], [0.0, 0.0], [0, 0])
+    with pytest.warns(ComoveNote, match="snapshots for 2 fixes"):
+        align(fixes, AlignParams(step=1.0 / (2 * SPARSE_GRID)))
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", ComoveNote)
+        align(fixes, AlignParams(step=0.5))  # a finer grid than the fixes, but not empty
