@@ -27,6 +27,7 @@ import os
 import re
 import signal
 import sys
+import warnings
 from collections.abc import Callable, Iterator, Sequence
 from concurrent.futures import ProcessPoolExecutor, as_completed
 from contextlib import AbstractContextManager, contextmanager
@@ -35,7 +36,7 @@ from typing import Any, Protocol, TypeVar
 
 import numpy as np
 
-from comove.errors import bad_setting
+from comove.errors import ComoveNote, bad_setting
 
 Task = TypeVar("Task")
 Result = TypeVar("Result")
@@ -152,9 +153,17 @@ def _stop_pool(pool: ProcessPoolExecutor) -> None:
     pool.shutdown(wait=True, cancel_futures=True)
 
 
+def available_cores() -> int:
+    """Return the processors this process may run on (its affinity, else the machine's)."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except (AttributeError, OSError):
+        return max(1, os.cpu_count() or 1)
+
+
 def resolve_jobs(jobs: int | None) -> int:
     """Return the number of workers ``jobs`` asks for: ``None`` means every core."""
-    return max(1, int(jobs) if jobs is not None else (os.cpu_count() or 1))
+    return max(1, int(jobs) if jobs is not None else available_cores())
 
 
 @dataclass(frozen=True)
@@ -354,6 +363,12 @@ class RunParams:
     def __post_init__(self) -> None:
         if self.jobs is not None and (int(self.jobs) != self.jobs or self.jobs < 1):
             raise bad_setting("jobs", "must be a whole number of at least 1")
+        cores = available_cores()
+        if self.jobs is not None and self.jobs > cores and self.scheduler is None:
+            # processes and threads on this machine beyond its cores only compete
+            warnings.warn(ComoveNote(f"--jobs {self.jobs} lowered to {cores}, the cores this "
+                                     "process may use"), stacklevel=3)  # fmt: skip
+            object.__setattr__(self, "jobs", cores)
         if self.seed is not None and (int(self.seed) != self.seed or self.seed < 0):
             raise bad_setting("seed", "must be a whole number, 0 or more")
         if self.engine not in ENGINES:

@@ -6,10 +6,11 @@ report that accounts for every row read.
 Each row is dropped for the first reason that applies, tested in this order:
 ``missing_id``; ``missing_role`` (only when roles are required; otherwise a missing role
 becomes ``""``); ``missing_coordinates`` (NaN or infinite); ``coordinates_out_of_range``
-(lon/lat input outside [-180, 180] x [-90, 90], or "crs" input the transformation cannot
-take to lon/lat); ``unparseable_time``; ``exact_duplicate`` (same object, time, position
-and role as a kept row: merged into it); ``conflicting_duplicate`` (same object and time,
-different position or role: all such rows go, since the true position is unknown);
+(lon/lat input outside [-180, 180] x [-90, 90], "crs" input the transformation cannot
+take to lon/lat, or planar x/y beyond ``MAX_PLANAR_M`` metres); ``unparseable_time``;
+``exact_duplicate`` (same object, time, position and role as a kept row: merged into
+it); ``conflicting_duplicate`` (same object and time, different position or role: all
+such rows go, since the true position is unknown);
 ``speed_spike`` (only with ``max_speed``: a fix reached and left faster than
 ``max_speed``, or a track's first or last fix whose one adjacent speed is too fast;
 repeated for at most ten passes). A first or last fix whose neighbour is itself an
@@ -49,6 +50,12 @@ DROP_REASONS = (
 _CODE = {name: i for i, name in enumerate(DROP_REASONS)}
 
 MAX_SPIKE_PASSES = 10
+
+#: Largest planar coordinate kept, metres. Projected coordinates of places on Earth
+#: stay within about 2e7 m of any projection's origin (half the equator, 20 037 km;
+#: false eastings and northings add at most a few thousand km), so anything beyond
+#: 1e8 m is not a position in metres (and would break the spatial index's arithmetic).
+MAX_PLANAR_M = 1e8
 MAX_EXAMPLES = 5
 
 _ADVICE = {
@@ -56,8 +63,8 @@ _ADVICE = {
     "missing_role": "fill in the roles or name another column with --role",
     "missing_coordinates": "check the coordinate columns (--x/--y or --lon/--lat)",
     "coordinates_out_of_range": (
-        "longitudes must lie in [-180, 180] and latitudes in [-90, 90]; check --lon/--lat, "
-        "or give projected x/y with --x/--y and --crs"
+        "longitudes must lie in [-180, 180], latitudes in [-90, 90] and planar x/y within "
+        "1e8 m; check --lon/--lat, or give projected x/y in metres with --x/--y and --crs"
     ),
     "unparseable_time": (
         "give times as ISO 8601 (e.g. 2026-03-01T12:00:00Z) or epoch seconds or "
@@ -391,6 +398,10 @@ def _mark_coordinates(
         lon[finite], lat[finite] = crs_to_lonlat(a[finite], b[finite], raw.crs)
     elif raw.coords != "planar":
         raise ValueError(f"unknown coordinate kind {raw.coords!r}")
+    else:  # planar metres: no place on Earth is further than this from any origin
+        with np.errstate(invalid="ignore"):
+            far = (np.abs(a) > MAX_PLANAR_M) | (np.abs(b) > MAX_PLANAR_M)
+        _mark(reason, finite & far, "coordinates_out_of_range")
     if lon is not None:
         with np.errstate(invalid="ignore"):
             inside = (

@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 
 from comove.errors import InputError
-from comove.stats.engine import IN_PROCESS_WORK, LocalEngine, RunParams
+from comove.stats.engine import IN_PROCESS_WORK, LocalEngine, RunParams, available_cores
 
 
 def _scaled_draw(shared, seed):
@@ -98,7 +98,10 @@ def test_run_settings_choose_the_engine():
     from comove.stats.dask_engine import DaskEngine
 
     assert RunParams().make_engine() == LocalEngine(None)
-    assert RunParams(jobs=3, engine="dask").make_engine() == DaskEngine(scheduler=None, jobs=3)
+    cores = available_cores()
+    assert RunParams(jobs=cores, engine="dask").make_engine() == DaskEngine(
+        scheduler=None, jobs=cores
+    )
     given = RunParams(engine="dask", scheduler="tcp://10.0.0.5:8786").make_engine()
     assert given == DaskEngine(scheduler="tcp://10.0.0.5:8786", jobs=None)
 
@@ -140,3 +143,15 @@ def test_importing_the_command_line_does_not_import_dask():
     code = "import sys, comove.cli; print(sorted(m for m in sys.modules if 'dask' in m))"
     done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert done.stdout.strip() == "[]"
+
+
+def test_more_jobs_than_cores_are_lowered_with_a_note():
+    from comove.errors import ComoveNote
+
+    cores = available_cores()
+    with pytest.warns(ComoveNote, match=f"--jobs 10000 lowered to {cores}"):
+        run = RunParams(jobs=10_000)
+    assert run.jobs == cores and run.make_engine() == LocalEngine(cores)
+    # a cluster's workers are not this machine's: its --jobs is left alone
+    far = RunParams(jobs=10_000, engine="dask", scheduler="tcp://10.0.0.5:8786")
+    assert far.jobs == 10_000

@@ -113,6 +113,25 @@ def test_coordinates_out_of_range_for_lonlat() -> None:
     assert [e["row"] for e in quality["examples"]["coordinates_out_of_range"]] == [3, 4]
 
 
+def test_planar_coordinates_beyond_any_place_on_earth_are_out_of_range() -> None:
+    # 1e300 m once reached the k-d tree and broke its arithmetic; 2e7 m (half the equator)
+    # is a real projected coordinate and stays
+    frame = pd.DataFrame(
+        {
+            "id": ["a"] * 4,
+            "t": [T0 + i for i in range(4)],
+            "x": [0.0, 1e300, 2.0e7, -3e8],
+            "y": [0.0, 0.0, 1.0, 0.0],
+            "role": ["r"] * 4,
+        }
+    )
+    fixes, quality = clean_fixes(read_tracks(frame))
+    _check_invariants(fixes, quality)
+    assert quality["dropped"]["coordinates_out_of_range"] == 2
+    assert [e["row"] for e in quality["examples"]["coordinates_out_of_range"]] == [2, 4]
+    assert fixes.x.tolist() == [0.0, 2.0e7]
+
+
 def test_conflicting_duplicate_also_removes_a_merged_copy() -> None:
     rows = [
         ("a", T0, 0.0, 0.0, "r"),
