@@ -25,8 +25,9 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from comove.errors import bad_setting
-from comove.tracks.alignment import Snapshots
+from comove.errors import InputError, bad_setting
+from comove.io.times import utc_iso
+from comove.tracks.alignment import Snapshots, available_memory
 from comove.tracks.neighbours import NeighbourPairs
 
 #: Slack for comparing a ratio of counts with a decimal threshold (0.3 vs 3/10).
@@ -274,12 +275,28 @@ def _pair_level(
 
 
 def _candidates(prev_roles: np.ndarray, keep: np.ndarray) -> np.ndarray:
-    """Return the size-k candidates all of whose (k-1)-subsets are kept (Apriori-gen)."""
+    """Return the size-k candidates all of whose (k-1)-subsets are kept (Apriori-gen).
+
+    Raises
+    ------
+    InputError
+        When the joins would try more than ``MAX_CANDIDATES`` sets (many roles
+        all prevalent together): their number is counted before any is made.
+    """
     kept = [tuple(int(r) for r in row) for row in prev_roles[keep]]
     kept_set = set(kept)
     by_prefix: dict[tuple[int, ...], list[int]] = {}
     for row in kept:
         by_prefix.setdefault(row[:-1], []).append(row[-1])
+    joins = sum(len(lasts) * (len(lasts) - 1) // 2 for lasts in by_prefix.values())
+    if joins > MAX_CANDIDATES:
+        k = prev_roles.shape[1] + 1
+        roles = len({r for row in kept for r in row})
+        raise InputError(
+            f"{len(kept):,} role sets of size {k - 1} among {roles:,} roles are prevalent, "
+            f"which makes {joins:,} candidate sets of size {k} to try; give --max-size "
+            f"{k - 1} or less, or a higher --min-participation"
+        )
     out = []
     for prefix, lasts in by_prefix.items():
         lasts.sort()
@@ -314,6 +331,7 @@ def _join_instances(
     prefix = inst[:, : k - 2]
     new_group = np.ones(inst.shape[0], dtype=bool)
     new_group[1:] = np.any(prefix[1:] != prefix[:-1], axis=1)
+    _check_joins(snaps, inst, new_group, k)
     u, v = _pairs_within_groups(new_group, inst.shape[0])
     distinct = last_role[u] < last_role[v]
     u, v = u[distinct], v[distinct]
@@ -329,6 +347,39 @@ def _join_instances(
     pos = np.searchsorted(cand_codes, codes)
     found = (pos < cand_codes.size) & (cand_codes[np.minimum(pos, cand_codes.size - 1)] == codes)
     return rows[found], pos[found].astype(np.int64)
+
+
+#: Most candidate role sets one level may try (about a microsecond and a hundred bytes
+#: each while they are made; beyond this, many roles are all together and the sets of
+#: the next size are counted in billions).
+MAX_CANDIDATES = 1_000_000
+
+#: Bytes per pair of row instances tried by the join of one level (the pair's two
+#: indices, its edge key and lookups).
+BYTES_PER_JOIN = 64
+
+
+def _check_joins(snaps: Snapshots, inst: np.ndarray, new_group: np.ndarray, k: int) -> None:
+    """Refuse a join whose pairs of row instances would not fit in the available memory.
+
+    Instances sharing all but their last entry are joined pair by pair; in a
+    dense crowd (thousands of objects within the radius of each other) their
+    number grows like the cube of the crowd. Counted before any is made.
+    """
+    starts = np.flatnonzero(new_group)
+    sizes = np.diff(np.append(starts, new_group.size))
+    joins = int((sizes * (sizes - 1) // 2).sum())
+    need, budget = joins * BYTES_PER_JOIN, available_memory()
+    if need <= budget:
+        return
+    densest = int(starts[np.argmax(sizes)])
+    at = snaps.first_index + int(snaps.snap[inst[densest, 0]])
+    raise InputError(
+        f"row instances of {k} roles would be joined from {joins:,} pairs (about "
+        f"{need / 2**30:.3g} GiB), more than the {budget / 2**30:.3g} GiB of memory available: "
+        f"at {utc_iso(at * snaps.step_ns)}, one object has {int(sizes.max()):,} neighbours "
+        f"of other roles to join pairwise; give a smaller --radius or --max-size {k - 1}"
+    )
 
 
 def mine_levels(

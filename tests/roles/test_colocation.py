@@ -182,3 +182,49 @@ def test_hand_computed_scene():
     assert patterns.loc["role0;role2", "time_prevalence"] == 1.0
     assert patterns.loc["role0;role1", "time_prevalence"] == 0.5
     assert patterns.loc["role0;role1;role2", "prevalent_snapshots"] == 1
+
+
+def _crowd(n_obj: int, n_roles: int, n_snap: int = 2):
+    """Every object within a metre of every other, roles dealt in turn."""
+    rng = np.random.default_rng(7)
+    x = rng.uniform(0, 0.5, (n_snap, n_obj))
+    y = rng.uniform(0, 0.5, (n_snap, n_obj))
+    role = np.broadcast_to(np.arange(n_obj) % n_roles, (n_snap, n_obj)).copy()
+    return grid_scene(x, y, role, np.ones((n_snap, n_obj), bool), n_roles)
+
+
+def test_a_join_beyond_memory_is_refused_before_it_is_made(monkeypatch):
+    import comove.roles.colocation as colocation
+    from comove.errors import InputError
+
+    snaps = _crowd(40, 3)
+    params = ColocationParams(radius=2.0, max_size=3)
+    monkeypatch.setattr(colocation, "available_memory", lambda: 1000)
+    with pytest.raises(InputError, match="neighbours of other roles to join pairwise") as caught:
+        colocation.mine_levels(snaps, neighbour_pairs(snaps, 2.0), params)
+    assert "--max-size 2" in str(caught.value) and "\n" not in str(caught.value)
+    monkeypatch.undo()  # with the machine's memory the same crowd is mined
+    assert len(colocation.mine_levels(snaps, neighbour_pairs(snaps, 2.0), params)) == 2
+
+
+def test_too_many_candidate_sets_are_refused_before_they_are_made(monkeypatch, tmp_path, capsys):
+    import pandas as pd
+
+    import comove.roles.colocation as colocation
+    from comove.cli import main
+
+    # 12 roles all together: C(12, 3) = 220 sets of size 3 make 495 candidates of size 4
+    monkeypatch.setattr(colocation, "MAX_CANDIDATES", 300)
+    n, t = 12, 3
+    frame = pd.DataFrame({
+        "id": np.repeat([f"o{i}" for i in range(n)], t),
+        "role": np.repeat([f"r{i}" for i in range(n)], t),
+        "time": np.tile(np.arange(t), n), "x": np.repeat(np.arange(n) * 0.01, t), "y": 0.0,
+    })  # fmt: skip
+    frame.to_csv(tmp_path / "all.csv", index=False)
+    code = main(["mine", str(tmp_path / "all.csv"), "--radius", "2", "--max-size", "6",
+                 "--permutations", "0", "--quiet", "--out", str(tmp_path / "out")])  # fmt: skip
+    err = capsys.readouterr().err
+    assert code == 2 and len(err.strip().splitlines()) == 1
+    assert "220 role sets of size 3 among 12 roles" in err and "495 candidate sets" in err
+    assert "--max-size 3" in err and not (tmp_path / "out").exists()
