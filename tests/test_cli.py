@@ -340,6 +340,54 @@ def test_unknown_run_file_key_is_named(tracks_csv, tmp_path, capsys):
     assert "unknown key 'radiuss'" in err and "run.toml" in err
 
 
+@pytest.mark.parametrize(
+    ("line", "message"),
+    [
+        ('radius = "three"', "radius = 'three' must be a number"),
+        ("radius = [3, 4]", "radius = [3, 4] must be a number"),
+        ('permutations = "zero"', "permutations = 'zero' must be a whole number"),
+        ("permutations = 9.5", "permutations = 9.5 must be a whole number"),
+        ("jobs = true", "jobs = True must be a whole number or left out"),
+        ("out = 42", "out = 42 must be text"),
+        ('k_radii = [1, "x"]', "must be a list of numbers or grid text"),
+    ],
+)
+def test_run_file_values_of_the_wrong_type_are_named(line, message, tracks_csv, tmp_path, capsys):
+    (tmp_path / "run.toml").write_text(f"radius = 2\n{line}\n" if "radius" not in line else line)
+    code, _, err = run(
+        ["mine", tracks_csv, "--config", tmp_path / "run.toml", "--out", tmp_path / "o"], capsys
+    )
+    assert code == 2 and err.count("\n") == 1 and "Traceback" not in err
+    assert message in err and "run.toml" in err
+
+
+def test_run_file_numbers_are_taken_as_their_settings_take_them(tracks_csv, tmp_path, capsys):
+    # an integral float for a whole number, a whole number for a real one, a number for
+    # text (the window length in seconds)
+    (tmp_path / "run.toml").write_text("radius = 2\npermutations = 0.0\nchunk = 3600\n")
+    code, _, err = run(["mine", tracks_csv, "--config", tmp_path / "run.toml", "--quiet",
+                        "--out", tmp_path / "o"], capsys)  # fmt: skip
+    assert code == 0, err
+    settings = json.loads((tmp_path / "o" / "run.json").read_text())["settings"]
+    assert settings["ColocationParams"]["radius"] == 2.0
+    assert settings["SignificanceParams"]["permutations"] == 0
+    assert settings["WindowParams"]["chunk"] == "3600"
+
+
+def test_a_run_json_value_of_the_wrong_type_is_named(tracks_csv, tmp_path, capsys):
+    first = tmp_path / "first"
+    code, _, err = run(["mine", tracks_csv, "--radius", 2, "--out", first, "--quiet",
+                        "--permutations", 0], capsys)  # fmt: skip
+    assert code == 0, err
+    record = json.loads((first / "run.json").read_text())
+    text = json.dumps(record).replace('"radius": 2.0', '"radius": "3m"')
+    assert text != json.dumps(record)
+    (tmp_path / "edited.json").write_text(text)
+    code, _, err = run(["mine", "--config", tmp_path / "edited.json", "--out", tmp_path / "o"],
+                       capsys)  # fmt: skip
+    assert code == 2 and "radius = '3m' must be a number" in err and err.count("\n") == 1
+
+
 @pytest.mark.parametrize("command", ["mine", "groups"])
 def test_run_json_repeats_the_run_exactly(tracks_csv, tmp_path, capsys, command):
     first = tmp_path / "first"

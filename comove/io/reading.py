@@ -1254,6 +1254,9 @@ def _standard_frame(
     """
     # .array keeps time zones and assigns by position whatever the input's index is.
     time_values = data.index if mapping["time"] == _INDEX else data[mapping["time"]]
+    for key in ("id", "time", "role"):
+        if key in mapping and mapping[key] != _INDEX:
+            _check_flat(table.name, data[mapping[key]], mapping[key], key)
     crs: str | None
     if "lon" in mapping or "x" in mapping:
         pair = ("lon", "lat") if "lon" in mapping else ("x", "y")
@@ -1281,6 +1284,18 @@ def _standard_frame(
         copy=False,
     )
     return frame, coords, crs
+
+
+def _check_flat(name: str, series: pd.Series, column: str, key: str) -> None:
+    """Refuse a column of lists, arrays or structs where ids, times or roles are read."""
+    if series.dtype != object:
+        return
+    first = series.dropna().head(100)
+    if any(isinstance(v, (dict, list, tuple, np.ndarray)) for v in first):
+        raise InputError(
+            f"{name}: column {column!r} holds lists or structs, not {key} values; name a "
+            f"column of text or numbers with --{key}"
+        )
 
 
 def _columns_report(

@@ -21,7 +21,8 @@ from __future__ import annotations
 import tomllib
 from dataclasses import fields
 from pathlib import Path
-from typing import Any
+from types import UnionType
+from typing import Any, get_args, get_origin, get_type_hints
 
 import numpy as np
 
@@ -34,6 +35,73 @@ RUN_KEYS = ("input", "out", "preset")
 
 def _stage_fields(stages: tuple[type, ...]) -> set[str]:
     return {f.name for stage in stages for f in fields(stage)}
+
+
+def _stage_types(stages: tuple[type, ...]) -> dict[str, Any]:
+    """Return each stage setting's type hint, by name."""
+    hints: dict[str, Any] = {}
+    for stage in stages:
+        resolved = get_type_hints(stage)
+        for f in fields(stage):
+            hints.setdefault(f.name, resolved[f.name])
+    return hints
+
+
+def _typed(source: Path, key: str, value: Any, hint: Any) -> Any:
+    """Return a run file's ``value`` for setting ``key`` as its type ``hint`` takes it.
+
+    Numbers are what a number setting takes (an integral float for a whole
+    number); text settings take text, or a number written as text; a grid takes
+    a list of numbers or its text; a switch takes true or false; an optional
+    setting takes none (``null`` in run.json).
+
+    Raises
+    ------
+    InputError
+        When no type of the hint takes the value, naming the file, key and value.
+    """
+    options = get_args(hint) if isinstance(hint, UnionType) else (hint,)
+    for option in options:
+        ok, out = _fits(value, option)
+        if ok:
+            return out
+    wanted = " or ".join(dict.fromkeys(_TYPE_WORDS.get(_base(o), "a value") for o in options))
+    raise InputError(f"{source}: {key} = {value!r} must be {wanted}; fix the file")
+
+
+_TYPE_WORDS = {
+    float: "a number", int: "a whole number", bool: "true or false", str: "text",
+    tuple: "a list of numbers or grid text such as '1:5:1'", type(None): "left out",
+}  # fmt: skip
+
+
+def _base(hint: Any) -> Any:
+    return get_origin(hint) or hint
+
+
+def _fits(value: Any, hint: Any) -> tuple[bool, Any]:
+    """Return whether ``value`` is of type ``hint`` (loosely, as above), and it converted."""
+    number = isinstance(value, (int, float)) and not isinstance(value, bool)
+    base = _base(hint)
+    if base is type(None):
+        return value is None, None
+    if base is bool:
+        return isinstance(value, bool), value
+    if base is float:
+        return number, float(value) if number else value
+    if base is int:
+        whole = number and float(value).is_integer()
+        return whole, int(value) if whole else value
+    if base is str:
+        if number:
+            return True, f"{value:g}" if isinstance(value, float) else str(value)
+        return isinstance(value, str), value
+    if base is tuple:
+        listed = isinstance(value, (list, tuple)) and all(
+            isinstance(v, (int, float)) and not isinstance(v, bool) for v in value
+        )
+        return listed or isinstance(value, str), value
+    return True, value  # a type this check does not know: the setting itself validates
 
 
 def load_run_file(path: str | Path, command: str, stages: tuple[type, ...]) -> dict[str, Any]:
@@ -68,8 +136,9 @@ def load_run_file(path: str | Path, command: str, stages: tuple[type, ...]) -> d
     if not p.is_file():
         raise InputError(f"{p}: no such run file; give a .toml run file or a results run.json")
     known = _stage_fields(stages)
+    hints = _stage_types(stages)
     if p.suffix.lower() == ".json":
-        return _from_run_json(p, command, known)
+        return _from_run_json(p, command, known, hints)
     try:
         raw = tomllib.loads(p.read_text())
     except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
@@ -84,7 +153,9 @@ def load_run_file(path: str | Path, command: str, stages: tuple[type, ...]) -> d
             )
         if isinstance(value, dict):
             raise InputError(f"{p}: key {key!r} is a table; give options as top-level keys")
-        options[name] = value
+        if name in ("out", "preset") and not isinstance(value, str):
+            raise InputError(f"{p}: {key} = {value!r} must be text; fix the file")
+        options[name] = _typed(p, key, value, hints[name]) if name in hints else value
     if "input" in options:
         options["input"] = _inputs(options["input"], p)
     if isinstance(options.get("out"), str) and not Path(options["out"]).is_absolute():
@@ -100,7 +171,7 @@ def _inputs(value: Any, source: Path) -> list[str]:
     return [v if Path(v).is_absolute() else str(source.parent / v) for v in items]
 
 
-def _from_run_json(p: Path, command: str, known: set[str]) -> dict[str, Any]:
+def _from_run_json(p: Path, command: str, known: set[str], hints: dict[str, Any]) -> dict[str, Any]:
     runs = run_records(p)
     if command not in runs and len(runs) == 1:
         other = next(iter(runs))
@@ -116,7 +187,7 @@ def _from_run_json(p: Path, command: str, known: set[str]) -> dict[str, Any]:
             if key not in known:
                 raise InputError(f"{p}: unknown setting {stage}.{key}; was it made by "
                                  "another version of comove?")  # fmt: skip
-            options[key] = value
+            options[key] = _typed(p, key, value, hints[key])
     recorded = run.get("input")
     if not isinstance(recorded, list):
         raise InputError(f"{p}: the run read an in-memory table ({recorded}); give INPUT")

@@ -545,3 +545,22 @@ def test_compressed_text_files_are_read(tmp_path, suffix) -> None:
     raw = read_tracks(path)
     assert raw.frame["object"].astype(str).tolist() == ["a", "b"]
     assert raw.frame["x"].tolist() == [1.0, 2.0]
+
+
+@pytest.mark.parametrize("chunked", [False, True])
+def test_a_column_of_structs_is_refused_in_one_line(chunked, tmp_path: Path) -> None:
+    # a Parquet role column of structs once reached the labelling as unhashable dicts
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    from comove.io.reading import read_blocks
+
+    table = pa.table({
+        "id": ["a", "a", "b"], "t": [1.0, 2.0, 1.0], "x": [0.0, 1.0, 2.0], "y": [0.0] * 3,
+        "role": pa.array([{"k": 1}, {"k": 2}, {"k": 1}]),
+    })  # fmt: skip
+    path = tmp_path / "nested.parquet"
+    pq.write_table(table, path)
+    with pytest.raises(InputError, match="column 'role' holds lists or structs") as caught:
+        list(read_blocks(str(path), rows=2)) if chunked else read_tracks(str(path))
+    assert "--role" in str(caught.value) and "\n" not in str(caught.value)
