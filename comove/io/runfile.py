@@ -197,6 +197,11 @@ def _from_run_json(p: Path, command: str, known: set[str], hints: dict[str, Any]
     return options
 
 
+#: Most values a grid (``start:stop:step``) may hold: each is a radius or threshold
+#: to evaluate over the whole run, so even this many means hours of work.
+MAX_GRID_VALUES = 10_000
+
+
 def parse_grid(text: str, setting: str) -> tuple[float, ...]:
     """Return the values of ``start:stop:step`` (stop included) or ``a,b,c`` text.
 
@@ -208,8 +213,15 @@ def parse_grid(text: str, setting: str) -> tuple[float, ...]:
     try:
         if ":" in text:
             start, stop, step = (float(v) for v in text.split(":"))
-            if step <= 0 or stop < start:
+            if not (step > 0 and stop >= start and np.isfinite(start) and np.isfinite(stop)):
                 raise ValueError
+            count = np.floor((stop - start) / step + 0.5) + 1
+            if count > MAX_GRID_VALUES:  # counted before any value is made
+                raise bad_setting(
+                    setting,
+                    f"{text} holds {count:,.0f} values, more than the {MAX_GRID_VALUES:,} a "
+                    "grid may hold; give a larger step",
+                )
             values = np.round(np.arange(start, stop + step / 2, step), 10)
         else:
             values = np.array([float(v) for v in text.split(",") if v.strip()])

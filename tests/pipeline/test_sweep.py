@@ -59,10 +59,14 @@ def test_workers_do_not_change_the_table(game):
 def test_grid_text():
     assert parse_grid("1:3:0.5", "radius") == (1.0, 1.5, 2.0, 2.5, 3.0)
     assert parse_grid("2,5, 10", "radius") == (2.0, 5.0, 10.0)
-    for bad in ("1:3", "3:1:1", "1:3:0", "a,b", ""):
+    for bad in ("1:3", "3:1:1", "1:3:0", "a,b", "", "1:inf:1", "nan:3:1"):
         with pytest.raises(InputError, match="^radius") as caught:
             parse_grid(bad, "radius")
         assert caught.value.worded_for().startswith("--radius ")
+    # a grid too fine is refused before its values are made (it once asked for 30 GiB)
+    with pytest.raises(InputError, match="4,000,000,001 values, more than the 10,000"):
+        parse_grid("1:5:1e-9", "radius")
+    assert len(parse_grid("0:9999:1", "radius")) == 10_000
     # a grid given as text, one number or a list of numbers (as in a TOML run file)
     assert SweepParams(radius="1,2").radius == SweepParams(radius=[1, 2]).radius == (1.0, 2.0)
     assert SweepParams(radius=3).radius == (3.0,)
