@@ -232,6 +232,11 @@ def _add_config(p: argparse.ArgumentParser) -> None:
         help="run file: a TOML file of options (and input, out), or a results folder's "
         "run.json to repeat that run; flags given here override it",
     )  # fmt: skip
+    p.add_argument(
+        "--allow-changed-input", action="store_true",
+        help="with a run.json: rerun even though its input files changed since that run "
+        "(refused by default, since the results would no longer repeat it)",
+    )  # fmt: skip
 
 
 def _resolve(
@@ -241,6 +246,9 @@ def _resolve(
     options: dict[str, Any] = {}
     if args.config is not None:
         options = load_run_file(args.config, args.command, stages)
+    recorded = options.pop("input_digest", None)
+    if recorded is not None and not args.input and not args.allow_changed_input:
+        _check_unchanged(args.config, options.get("input", []), recorded)
     inputs = list(args.input) or options.pop("input", [])
     options.pop("input", None)
     out = args.out or (Path(options["out"]) if options.get("out") else None)
@@ -253,6 +261,23 @@ def _resolve(
     if out is None:
         raise InputError("no --out given; name the results folder to create")
     return (inputs[0] if len(inputs) == 1 else inputs), out, options
+
+
+def _check_unchanged(config: Path, inputs: list[str], recorded: str) -> None:
+    """Refuse to repeat a run whose input files no longer hold what that run read."""
+    from comove.io.provenance import input_digest
+
+    try:
+        now = input_digest(inputs if len(inputs) != 1 else inputs[0])
+    except OSError as exc:
+        raise InputError(f"{config}: cannot read the run's input again ({exc}); restore it, "
+                         "or give INPUT") from None  # fmt: skip
+    if now != recorded:
+        raise InputError(
+            f"{config}: the input files changed since that run (their digest is {now[:19]}…, "
+            f"the run read {recorded[:19]}…); restore them, or give --allow-changed-input to "
+            "run on them as they are now"
+        )
 
 
 def _add_common(p: argparse.ArgumentParser, merge: bool = True) -> None:

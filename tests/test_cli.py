@@ -388,6 +388,31 @@ def test_a_run_json_value_of_the_wrong_type_is_named(tracks_csv, tmp_path, capsy
     assert code == 2 and "radius = '3m' must be a number" in err and err.count("\n") == 1
 
 
+def test_a_run_json_refuses_an_input_changed_since_that_run(tracks_csv, tmp_path, capsys):
+    import shutil
+
+    source = tmp_path / "copy.csv"
+    shutil.copy(tracks_csv, source)
+    first = tmp_path / "first"
+    code, _, err = run(["mine", source, "--radius", 2, "--out", first, "--quiet",
+                        "--permutations", 0], capsys)  # fmt: skip
+    assert code == 0, err
+    again = ["mine", "--config", first / "run.json", "--quiet"]
+    code, _, err = run([*again, "--out", tmp_path / "same"], capsys)
+    assert code == 0, err  # unchanged: repeated
+    with source.open("a") as handle:  # one more row
+        handle.write(source.read_text().splitlines()[-1] + "\n")
+    code, _, err = run([*again, "--out", tmp_path / "changed"], capsys)
+    assert code == 2 and err.count("\n") == 1
+    assert "the input files changed since that run" in err and "--allow-changed-input" in err
+    assert not (tmp_path / "changed").exists()
+    code, _, err = run([*again, "--allow-changed-input", "--out", tmp_path / "changed"], capsys)
+    assert code == 0, err
+    # an input named on the command line is the user's choice: not compared
+    code, _, err = run([*again, source, "--out", tmp_path / "named"], capsys)
+    assert code == 0, err
+
+
 @pytest.mark.parametrize("command", ["mine", "groups"])
 def test_run_json_repeats_the_run_exactly(tracks_csv, tmp_path, capsys, command):
     first = tmp_path / "first"

@@ -122,7 +122,8 @@ def load_run_file(path: str | Path, command: str, stages: tuple[type, ...]) -> d
     -------
     dict
         Option name -> value; ``input`` (list of str), ``out`` and ``preset``
-        when given.
+        when given; from a ``run.json``, ``input_digest``, the digest of the
+        input that run read.
 
     Raises
     ------
@@ -192,6 +193,8 @@ def _from_run_json(p: Path, command: str, known: set[str], hints: dict[str, Any]
     if not isinstance(recorded, list):
         raise InputError(f"{p}: the run read an in-memory table ({recorded}); give INPUT")
     options["input"] = recorded
+    if isinstance(run.get("input_digest"), str):  # checked against the files by the caller
+        options["input_digest"] = run["input_digest"]
     if run.get("preset") is not None:
         options["preset"] = run["preset"]
     return options
