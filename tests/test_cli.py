@@ -487,3 +487,22 @@ def test_a_stray_time_stamp_is_refused_in_one_line_naming_it(chunk, command, tmp
     assert len(err.strip().splitlines()) == 1
     assert "1970-01-01T00:00:00Z lies 53.9 years before the other" in err
     assert not out_dir.exists()
+
+
+@pytest.mark.parametrize("chunk", ["whole", "60"])
+def test_rows_lost_in_numbers_get_a_note_even_when_quiet(chunk, tmp_path, capsys):
+    # half the times written another way: once dropped with exit 0 and only the quality
+    # report to tell; now a note line names the reason, share, an example row and the fix
+    n = 60
+    times = [f"2026-03-01T12:{i // 60:02d}:{i % 60:02d}Z" for i in range(n)]
+    times = [t if i % 2 else "01/03/2026 12:00" for i, t in enumerate(times)]
+    frame = pd.DataFrame({"id": ["a"] * n + ["b"] * n, "role": ["r"] * n + ["s"] * n,
+                          "time": times * 2, "x": 0.0, "y": 1.0})  # fmt: skip
+    frame.to_csv(tmp_path / "mixed.csv", index=False)
+    code, _, err = run(["mine", tmp_path / "mixed.csv", "--radius", 2, "--permutations", 0,
+                        "--chunk", chunk, "--quiet", "--out", tmp_path / "o"], capsys)  # fmt: skip
+    assert code == 0, err
+    notes = [line for line in err.splitlines() if "note:" in line]
+    assert len(notes) == 1
+    assert "60 of 120 rows (50.0%) were dropped for unparseable time" in notes[0]
+    assert "mixed.csv row 1" in notes[0] and "ISO 8601" in notes[0]

@@ -22,13 +22,14 @@ nothing tells which one is wrong.
 from __future__ import annotations
 
 import math
+import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
 import pyproj
 
-from comove.errors import InputError
+from comove.errors import ComoveNote, InputError
 from comove.io.projection import LonLatExtent, crs_to_lonlat, metric_crs_of, to_metric
 from comove.io.reading import RawTracks
 from comove.io.times import ParsedTimes, parse_times
@@ -311,7 +312,9 @@ def clean_fixes(
     if kept.rows.size == 0:
         raise _nothing_kept(raw, dropped, examples)
     fixes = _kept_fixes(rows, kept, metric_crs, input_crs)
-    return fixes, _quality_report(raw, params, rows, kept, fixes, dropped, examples, passes)
+    quality = _quality_report(raw, params, rows, kept, fixes, dropped, examples, passes)
+    note_drops(quality)
+    return fixes, quality
 
 
 @dataclass
@@ -603,6 +606,33 @@ def _drop_counts(
         rows = raw.source_rows(where).tolist() if "source" in frame else (where + 1).tolist()
         examples[name] = [{"source": str(f), "row": int(r)} for f, r in zip(src, rows, strict=True)]
     return dropped, examples
+
+
+#: Share of the rows read above which the rows dropped for one reason get a note, even
+#: with --quiet: more than a stray row or two is lost (common practice for a warning of
+#: data loss; exact duplicates are merged, not lost, and get none).
+DROP_NOTE_SHARE = 0.01
+
+
+def note_drops(quality: dict) -> None:
+    """Warn (:class:`ComoveNote`) of each reason that dropped more than a small share of rows.
+
+    Each note names the reason, the count and share, an example row and what to do.
+    """
+    read = int(quality["rows_read"])
+    for reason in DROP_REASONS:
+        n = int(quality["dropped"][reason])
+        if reason == "exact_duplicate" or n == 0 or n <= DROP_NOTE_SHARE * read:
+            continue
+        shown = quality["examples"].get(reason) or []
+        where = f" (e.g. {shown[0]['source']} row {shown[0]['row']})" if shown else ""
+        warnings.warn(
+            ComoveNote(
+                f"{n:,} of {read:,} rows ({n / read:.1%}) were dropped for "
+                f"{reason.replace('_', ' ')}{where}; {_ADVICE[reason]}"
+            ),
+            stacklevel=2,
+        )
 
 
 def _nothing_kept(raw: RawTracks, dropped: dict[str, int], examples: dict) -> InputError:

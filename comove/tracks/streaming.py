@@ -63,6 +63,7 @@ from comove.tracks.cleaning import (
     WindowPlan,
     WindowRows,
     clean_window,
+    note_drops,
     nothing_kept,
     row_checks,
 )
@@ -721,6 +722,7 @@ class _CleanPass:
             coords=plan.coords, crs=(plan.input_crs, plan.metric_crs),
             max_speed=self.params.max_speed, passes=passes, sources=spill.sources,
         )  # fmt: skip
+        note_drops(quality)
         step_ns, max_gap_ns = grid_ns(alignment, lambda: interval["median"])
         first_fix, last_fix = gaps.first[used_obj], gaps.last[used_obj]
         n_fixes = gaps.n + int(used_obj.sum())  # each object's gaps are its fixes less one

@@ -515,3 +515,21 @@ def test_rows_in_any_order_are_sorted_by_object_and_time(n_objects: int, layout:
     _check_invariants(fixes, quality)
     assert len(fixes.objects) == n_objects
     assert np.array_equal(fixes.x, np.arange(3.0 * n_objects))
+
+
+def test_a_stray_bad_row_gets_no_note_but_a_share_does() -> None:
+    import warnings
+
+    from comove.errors import ComoveNote
+
+    def frame(n_bad: int) -> pd.DataFrame:
+        x = [float(i) for i in range(200)]
+        x[:n_bad] = [np.nan] * n_bad
+        return pd.DataFrame({"id": ["a"] * 200, "t": [T0 + i for i in range(200)], "x": x,
+                             "y": 0.0, "role": "r"})  # fmt: skip
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", ComoveNote)
+        clean_fixes(read_tracks(frame(2)))  # 1 %: within the share, no note
+    with pytest.warns(ComoveNote, match=r"3 of 200 rows \(1.5%\) were dropped for missing coord"):
+        clean_fixes(read_tracks(frame(3)))
