@@ -506,3 +506,37 @@ def test_rows_lost_in_numbers_get_a_note_even_when_quiet(chunk, tmp_path, capsys
     assert len(notes) == 1
     assert "60 of 120 rows (50.0%) were dropped for unparseable time" in notes[0]
     assert "mixed.csv row 1" in notes[0] and "ISO 8601" in notes[0]
+
+
+@pytest.mark.parametrize("chunk", ["whole", "60"])
+@pytest.mark.parametrize(("column", "kind"), [("role", "role"), ("id", "object id")])
+def test_a_name_holding_the_separator_is_refused(column, kind, chunk, tmp_path, capsys):
+    # "r;x" would read as two roles in patterns.csv (and two members in episodes.csv)
+    frame = pd.DataFrame({"id": ["a", "b"] * 5, "role": ["r", "s"] * 5,
+                          "time": [1_700_000_000 + i // 2 for i in range(10)],
+                          "x": [0.0, 1.0] * 5, "y": 0.0})  # fmt: skip
+    frame.loc[0, column] = "r;x"
+    frame.to_csv(tmp_path / "semi.csv", index=False)
+    code, _, err = run(["mine", tmp_path / "semi.csv", "--radius", 2, "--permutations", 0,
+                        "--chunk", chunk, "--out", tmp_path / "o"], capsys)  # fmt: skip
+    assert code == 2 and err.count("\n") == 1
+    assert f"the {kind} 'r;x' holds ';'" in err and not (tmp_path / "o").exists()
+
+
+def test_a_role_named_like_a_formula_stays_text_in_csv_and_exact_elsewhere(tmp_path, capsys):
+    from comove.io.results import ResultsFolder
+
+    role = '=HYPERLINK("http://example.invalid")'
+    frame = pd.DataFrame({"id": ["a", "b"] * 20, "role": [role, "s"] * 20,
+                          "time": [1_700_000_000 + i // 2 for i in range(40)],
+                          "x": [0.0, 1.0] * 20, "y": 0.0})  # fmt: skip
+    frame.to_csv(tmp_path / "f.csv", index=False)
+    out = tmp_path / "o"
+    code, _, err = run(["mine", tmp_path / "f.csv", "--radius", 2, "--permutations", 0,
+                        "--quiet", "--out", out], capsys)  # fmt: skip
+    assert code == 0, err
+    raw = (out / "patterns.csv").read_text().splitlines()[1]
+    assert raw.startswith("\"'=HYPERLINK(") and ";s" in raw  # guarded in the file
+    assert ResultsFolder(out).table("patterns.csv")["roles"].iloc[0] == f"{role};s"
+    series = pd.read_parquet(out / "pi_series.parquet")
+    assert f"{role};s" in set(series["roles"].astype(str))  # Parquet keeps the value

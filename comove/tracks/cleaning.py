@@ -369,6 +369,7 @@ def _mark_invalid(raw: RawTracks, frame: pd.DataFrame) -> _Rows:
     reason = np.full(len(frame), -1, dtype=np.int8)
     obj, objects = _label_codes(frame["object"])
     role, roles = _label_codes(frame["role"])
+    check_names(objects, roles, raw.sources)
     _mark(reason, obj < 0, "missing_id")
     if raw.role_required:
         _mark(reason, role < 0, "missing_role")
@@ -606,6 +607,31 @@ def _drop_counts(
         rows = raw.source_rows(where).tolist() if "source" in frame else (where + 1).tolist()
         examples[name] = [{"source": str(f), "row": int(r)} for f, r in zip(src, rows, strict=True)]
     return dropped, examples
+
+
+#: The separator of role sets and member lists in the results' tables (the same as
+#: ``roles.persistence.ROLE_SEP`` and ``groups.episodes.MEMBER_SEP``): no id or role may
+#: hold it, or "a;b" would read as two roles.
+NAME_SEP = ";"
+
+
+def check_names(objects: np.ndarray, roles: np.ndarray, sources: list[str]) -> None:
+    """Refuse object ids or roles holding :data:`NAME_SEP`, naming the first of each.
+
+    Raises
+    ------
+    InputError
+        Naming the value and what to do.
+    """
+    for kind, names, flag in (("object id", objects, "--id"), ("role", roles, "--role")):
+        bad = [str(n) for n in names if NAME_SEP in str(n)]
+        if bad:
+            raise InputError(
+                f"{_describe_sources(sources)}: the {kind} {bad[0]!r}"
+                + (f" (and {len(bad) - 1} more)" if len(bad) > 1 else "")
+                + f" holds {NAME_SEP!r}, which separates {kind}s in the results; replace it "
+                f"in the data (or name another column with {flag})"
+            )
 
 
 #: Share of the rows read above which the rows dropped for one reason get a note, even

@@ -62,6 +62,7 @@ from comove.tracks.cleaning import (
     Fixes,
     WindowPlan,
     WindowRows,
+    check_names,
     clean_window,
     note_drops,
     nothing_kept,
@@ -451,6 +452,7 @@ class _SpillPass:
             import pyproj
 
             metric_crs = pyproj.CRS.from_user_input(raw.crs)
+        check_names(_union(self.objects), _union(self.roles), list(raw.sources))
         plan = WindowPlan(
             objects=_union(self.objects), roles=_union(self.roles), coords=raw.coords,
             input_crs="EPSG:4326" if raw.coords == "lonlat" else raw.crs,

@@ -132,3 +132,24 @@ def test_csv_text_is_pandas_text_byte_for_byte(seed, monkeypatch):
 )
 def test_csv_text_of_other_kinds_is_pandas_text(frame):
     assert "".join(csv_lines(frame)) == _pandas_text(frame)
+
+
+def test_text_a_spreadsheet_would_run_is_guarded_and_read_back_exactly(tmp_path):
+    # CSV injection: a cell starting = + - @, a tab or a CR is a formula to a spreadsheet;
+    # the guard's apostrophe is doubled on text that starts with one, so reading is exact
+    cells = ["=HYPERLINK(\"x\")", "+1", "-x", "@sum", "\tt", "'q", "''", "a;b",
+             "ok", "", None]  # fmt: skip
+    frame = pd.DataFrame({"roles": cells, "n": range(len(cells)), "v": -1.5})
+    path = tmp_path / "t.csv"
+    results.csv_writer(frame)(path)
+    import csv
+
+    with open(path, newline="", encoding="utf-8") as handle:
+        fields = [row[0] for row in csv.reader(handle)][1:]
+    assert fields[:7] == ["'" + c for c in cells[:7]]  # guarded, in the file
+    assert fields[7:] == ["a;b", "ok", "", ""]
+    # numbers are never touched: the negative float stays a number
+    back = results.formula_unguarded(pd.read_csv(path, keep_default_na=True))
+    expected = [c if c else np.nan for c in cells]
+    assert back["roles"].tolist()[:-2] == expected[:-2]
+    assert back["v"].tolist() == [-1.5] * len(cells)
