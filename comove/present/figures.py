@@ -12,6 +12,7 @@ Labels taken from the data (object ids, role names) are passed through
 from __future__ import annotations
 
 import io
+import re
 import textwrap
 from collections.abc import Iterator, Sequence
 from contextlib import contextmanager
@@ -92,6 +93,16 @@ def style() -> Iterator[None]:
         yield
 
 
+#: Control characters and the bidirectional controls, which could hide or reorder what
+#: a name shows (U+202A-U+202E, U+2066-U+2069, U+200E-U+200F, U+061C).
+_HIDDEN = re.compile("[\x00-\x08\x0b-\x1f\x7f-\x9f\u061c\u200e\u200f\u202a-\u202e\u2066-\u2069]")
+
+
+def visible(text: object) -> str:
+    """Return ``text`` with control and direction characters shown as ``<U+XXXX>`` codes."""
+    return _HIDDEN.sub(lambda m: f"<U+{ord(m.group()):04X}>", str(text))
+
+
 def plain_text(text: object, limit: int | None = None) -> str:
     """Return ``text`` as a label matplotlib shows literally (dollar signs escaped).
 
@@ -106,7 +117,7 @@ def plain_text(text: object, limit: int | None = None) -> str:
     -------
     str
     """
-    s = str(text)
+    s = visible(text)
     if limit is not None and len(s) > limit:
         s = s[: limit - 1] + "…"
     return s.replace("$", r"\$")

@@ -106,9 +106,21 @@ def _load(source: ResultsFolder) -> _Results:
 # ---------------------------------------------------------------- text helpers
 
 
+#: Characters of a name shown in full; a longer one is cut, whole in its tooltip.
+NAME_CHARS = 80
+
+
 def _e(value: object) -> str:
-    """Return ``value`` as HTML-escaped text."""
-    return html.escape(str(value), quote=True)
+    """Return ``value`` as HTML-escaped text, control and direction characters shown as codes."""
+    return html.escape(figures.visible(value), quote=True)
+
+
+def _name(value: object) -> str:
+    """Return a name (roles, members, an object id) escaped, long ones cut (whole in a tooltip)."""
+    text = str(value)
+    if len(text) <= NAME_CHARS:
+        return _e(text)
+    return f'<span title="{_e(text)}">{_e(text[: NAME_CHARS - 1])}…</span>'
 
 
 def _num(value: object, digits: int = 3) -> str:
@@ -349,7 +361,7 @@ def _patterns_section(res: _Results) -> tuple[str, list[_Picture]]:
     for i, row in patterns.head(TABLE_PATTERNS).iterrows():
         cells = [
             str(i + 1),
-            _e(_roles_text(row["roles"])),
+            _name(_roles_text(row["roles"])),
             _num(row.get("time_prevalence")),
             _e(_duration(row.get("prevalent_seconds"))),
             _e(_duration(row.get("longest_run_seconds"))),
@@ -467,8 +479,8 @@ def _timeline_section(res: _Results) -> tuple[str, list[_Picture]]:
             _e(row["episode"]), _e(_when(row["start"])), _e(_duration(row["duration_s"])),
             # results written before time together was recorded have no such column
             _e(_duration(row["together_s"])) if "together_s" in row else "",
-            _num(row["size"]), _e(_roles_text(row.get("roles", ""))),
-            _e(", ".join(str(row["members"]).split(";"))),
+            _num(row["size"]), _name(_roles_text(row.get("roles", ""))),
+            _name(", ".join(str(row["members"]).split(";"))),
         ])  # fmt: skip
     parts.append("<h3>The longest episodes</h3>")
     parts.append(_table(["episode", "start", "duration", "together", "size", "roles", "members"],
@@ -493,7 +505,7 @@ def _dyad_section(res: _Results) -> tuple[str, list[_Picture]]:
     )
     strongest = dyads.sort_values("half_weight_index", ascending=False).head(10)
     rows = [
-        [_e(r["object_a"]), _e(r["object_b"]), _num(r["half_weight_index"]),
+        [_name(r["object_a"]), _name(r["object_b"]), _num(r["half_weight_index"]),
          _e(_duration(r.get("together_seconds")))]
         for _, r in strongest.iterrows()
     ]  # fmt: skip

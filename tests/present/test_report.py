@@ -196,6 +196,25 @@ def test_names_with_html_are_escaped(tmp_path):
     assert {p.stem for p in (folder / "figures").iterdir()} == ALL_FIGURES
 
 
+def test_hidden_characters_are_shown_and_long_names_cut(tmp_path):
+    # a right-to-left override could make "gnp.exe" read "exe.png"; a bell or escape
+    # character shows nothing; a name of 300 characters would swamp the tables
+    spoof, long_role = "ab\u202egnp.exe\x07", "r" * 300
+    t = np.arange(0, 61)
+    scene = pd.concat([
+        pd.DataFrame({"id": spoof, "time": t, "x": t * 1.2, "y": 0.0, "role": long_role}),
+        pd.DataFrame({"id": "o2", "time": t, "x": t * 1.2, "y": 1.0, "role": "s"}),
+    ], ignore_index=True)  # fmt: skip
+    folder = tmp_path / "hidden"
+    groups(scene, radius=2.5, step=1.0, permutations=0).write(folder)
+    mine(scene, radius=2.5, step=1.0, permutations=0).write(folder, merge=True)
+    raw = build_report(folder).read_text(encoding="utf-8")
+    assert "\u202e" not in raw and "\x07" not in raw
+    assert "ab&lt;U+202E&gt;gnp.exe&lt;U+0007&gt;" in raw
+    assert f'title="{long_role} + s"' in raw  # the whole name in the tooltip
+    assert long_role + " + s<" not in raw  # and cut where shown
+
+
 def html_escaped(text: str) -> str:
     return (
         text.replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;").replace('"', "&quot;")
