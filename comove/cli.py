@@ -57,6 +57,7 @@ _COLUMN_HELP = {
     "role": "column of object roles (default: detected)",
     "crs": "CRS of the x/y columns when they are not planar metres, e.g. EPSG:32633",
     "time_unit": "unit of numeric times: s or ms (default: ms when values exceed 1e11)",
+    "layer": "layer of a GeoPackage that holds several (default: its only layer)",
 }
 _HIDDEN = {"require_role"}
 

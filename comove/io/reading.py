@@ -183,6 +183,9 @@ class ColumnSpec:
         :meth:`pyproj.CRS.from_user_input` accepts, e.g. ``"EPSG:3857"``.
     time_unit : {None, "s", "ms"}
         Unit of numeric epoch times (``--time-unit``); ``None`` detects it.
+    layer : str or None
+        The layer of a GeoPackage (``--layer``); needed only when the file holds
+        several, for a file of one layer it may be left out.
     require_role : bool
         Whether a role column is mandatory (co-location mining) or optional (group analyses,
         where a missing role column makes every role ``""``).
@@ -203,6 +206,7 @@ class ColumnSpec:
     role: str | None = None
     crs: str | None = None
     time_unit: str | None = None
+    layer: str | None = None
     require_role: bool = True
 
     def __post_init__(self) -> None:
@@ -844,8 +848,8 @@ def _read_plain_parquet(path: str) -> pd.DataFrame:
     return table.to_pandas(split_blocks=True, memory_pool=pool)
 
 
-def _read_table(table: _Table) -> _Table:
-    """Load a Parquet or geo file into ``table.data``."""
+def _read_table(table: _Table, spec: ColumnSpec) -> _Table:
+    """Load a Parquet or geo file into ``table.data`` (a GeoPackage's layer from ``spec``)."""
     path = table.name
     suffix = Path(path).suffix.lower()
     if suffix in PARQUET_SUFFIXES:
@@ -862,17 +866,48 @@ def _read_table(table: _Table) -> _Table:
     import geopandas
 
     kind = "GeoPackage" if suffix == ".gpkg" else "GeoJSON"
+    layer = _layer(table.name, path, spec.layer) if suffix == ".gpkg" else None
     try:
         if storage.is_address(path):  # the GDAL readers take the bytes, not the address
             with storage.open_input(path) as handle:
-                data = geopandas.read_file(io.BytesIO(handle.read()), engine="pyogrio")
+                data = geopandas.read_file(io.BytesIO(handle.read()), engine="pyogrio",
+                                           layer=layer)  # fmt: skip
         else:
-            data = geopandas.read_file(path, engine="pyogrio")
+            data = geopandas.read_file(path, engine="pyogrio", layer=layer)
     except InputError:
         raise
     except Exception as exc:  # noqa: BLE001 - any reader failure is a bad file to the user
         raise _read_error(table.name, kind, exc) from exc
     return _Table(table.name, table.resolved, data, geometry=True)
+
+
+def _layer(name: str, path: str, wanted: str | None) -> str | None:
+    """Return the GeoPackage layer to read: the one named, or the only one.
+
+    Raises
+    ------
+    InputError
+        When the file holds several layers and none is named, or the named one is
+        not there; the message lists the layers.
+    """
+    import pyogrio
+
+    try:
+        if storage.is_address(path):
+            with storage.open_input(path) as handle:
+                layers = [str(n) for n in pyogrio.list_layers(io.BytesIO(handle.read()))[:, 0]]
+        else:
+            layers = [str(n) for n in pyogrio.list_layers(path)[:, 0]]
+    except Exception as exc:  # noqa: BLE001 - any reader failure is a bad file to the user
+        raise _read_error(name, "GeoPackage", exc) from exc
+    listed = ", ".join(layers[:10]) + (f" and {len(layers) - 10} more" if len(layers) > 10 else "")
+    if wanted is not None:
+        if wanted not in layers:
+            raise InputError(f"{name}: has no layer {wanted!r}; its layers: {listed}")
+        return wanted
+    if len(layers) > 1:
+        raise InputError(f"{name}: holds {len(layers)} layers ({listed}); choose one with --layer")
+    return None
 
 
 # --------------------------------------------------------------------------- reading in blocks
@@ -1217,7 +1252,7 @@ def _load(
     if suffix in TEXT_SUFFIXES:
         data, mapping = _read_text(table, spec, reference)
         return _Table(table.name, table.resolved, data), mapping
-    return _read_table(table), {}
+    return _read_table(table, spec), {}
 
 
 def _bind_columns(

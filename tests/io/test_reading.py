@@ -564,3 +564,21 @@ def test_a_column_of_structs_is_refused_in_one_line(chunked, tmp_path: Path) -> 
     with pytest.raises(InputError, match="column 'role' holds lists or structs") as caught:
         list(read_blocks(str(path), rows=2)) if chunked else read_tracks(str(path))
     assert "--role" in str(caught.value) and "\n" not in str(caught.value)
+
+
+def test_a_geopackage_of_several_layers_needs_one_named(tmp_path: Path) -> None:
+    # once the first layer was read silently (and a library warning leaked)
+    frame = pd.DataFrame({"id": ["a", "a", "b"], "t": [1.0, 2.0, 1.0], "role": "r"})
+    geo = gpd.GeoDataFrame(frame, geometry=gpd.points_from_xy([0, 1, 2], [0, 0, 0]),
+                           crs="EPSG:3857")  # fmt: skip
+    path = tmp_path / "many.gpkg"
+    geo.to_file(path, layer="tracks", driver="GPKG")
+    geo.head(1).to_file(path, layer="stops", driver="GPKG")
+    with pytest.raises(InputError, match=r"holds 2 layers \(tracks, stops\); choose one with"):
+        read_tracks(str(path))
+    with pytest.raises(InputError, match="has no layer 'nope'; its layers: tracks, stops"):
+        read_tracks(str(path), ColumnSpec(layer="nope"))
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        assert len(read_tracks(str(path), ColumnSpec(layer="stops")).frame) == 1
+        assert len(read_tracks(str(path), ColumnSpec(layer="tracks")).frame) == 3
