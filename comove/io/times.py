@@ -41,12 +41,16 @@ class ParsedTimes:
     kind : str
         How the times were written, for the quality report (``"ISO 8601 text"``,
         ``"epoch seconds"``, ``"epoch milliseconds"``, ``"datetimes"``, ``"booleans"``).
+    out_of_range : numpy.ndarray or None
+        bool: not read, but a valid date or epoch outside the years 1678-2261 that
+        nanoseconds since the epoch in 64 bits can hold (``None``: no such value).
     """
 
     ns: np.ndarray
     ok: np.ndarray
     zone_less: np.ndarray
     kind: str
+    out_of_range: np.ndarray | None = None
 
 
 def _datetimes_to_ns(series: pd.Series) -> tuple[np.ndarray, np.ndarray]:
@@ -105,7 +109,8 @@ def _parse_numbers(values: pd.Series | np.ndarray, unit: str | None) -> ParsedTi
         del micro
         ns *= 1000
     kind = "epoch seconds" if unit == "s" else "epoch milliseconds"
-    return ParsedTimes(ns.astype(np.int64), ok, np.zeros(floats.size, dtype=bool), kind)
+    return ParsedTimes(ns.astype(np.int64), ok, np.zeros(floats.size, dtype=bool), kind,
+                       finite & ~ok)  # fmt: skip
 
 
 def _parse_text(values: pd.Series, unit: str | None) -> ParsedTimes:
@@ -139,7 +144,26 @@ def _parse_text(values: pd.Series, unit: str | None) -> ParsedTimes:
         return _parse_numbers(numbers, unit)
     has_zone = pc.fill_null(pc.match_substring_regex(text, _ZONE_PATTERN), False)
     zone_less = ok & ~has_zone.to_numpy(zero_copy_only=False)
-    return ParsedTimes(ns, ok, zone_less, "ISO 8601 text")
+    return ParsedTimes(ns, ok, zone_less, "ISO 8601 text", _iso_out_of_range(text, ok))
+
+
+#: An ISO 8601 date at the start of a text, its year captured.
+_ISO_YEAR = r"^[+-]?(?P<year>\d{4,})-\d{2}-\d{2}"
+
+
+def _iso_out_of_range(text: pa.Array, ok: np.ndarray) -> np.ndarray | None:
+    """Return which texts not read are ISO 8601 dates of years beyond 1678-2261 (or None)."""
+    failed = ~ok & pc.fill_null(pc.match_substring_regex(text, _ISO_YEAR), False).to_numpy(
+        zero_copy_only=False
+    )
+    if not failed.any():
+        return None
+    at = np.flatnonzero(failed)
+    years = pc.struct_field(pc.extract_regex(pc.take(text, pa.array(at)), _ISO_YEAR), "year")
+    year = np.asarray(years.to_numpy(zero_copy_only=False), dtype=object).astype(np.int64)
+    out = np.zeros(ok.size, dtype=bool)
+    out[at] = (year <= 1677) | (year >= 2262)
+    return out
 
 
 def parse_times(values: pd.Series, unit: str | None) -> ParsedTimes:

@@ -7,7 +7,9 @@ Each row is dropped for the first reason that applies, tested in this order:
 ``missing_id``; ``missing_role`` (only when roles are required; otherwise a missing role
 becomes ``""``); ``missing_coordinates`` (NaN or infinite); ``coordinates_out_of_range``
 (lon/lat input outside [-180, 180] x [-90, 90], "crs" input the transformation cannot
-take to lon/lat, or planar x/y beyond ``MAX_PLANAR_M`` metres); ``unparseable_time``;
+take to lon/lat, or planar x/y beyond ``MAX_PLANAR_M`` metres); ``time_out_of_range``
+(a valid ISO 8601 date or epoch outside the years 1678-2261 that int64 nanoseconds
+hold); ``unparseable_time``;
 ``exact_duplicate`` (same object, time, position and role as a kept row: merged into
 it); ``conflicting_duplicate`` (same object and time, different position or role: all
 such rows go, since the true position is unknown);
@@ -43,6 +45,7 @@ DROP_REASONS = (
     "missing_role",
     "missing_coordinates",
     "coordinates_out_of_range",
+    "time_out_of_range",
     "unparseable_time",
     "exact_duplicate",
     "conflicting_duplicate",
@@ -66,6 +69,10 @@ _ADVICE = {
     "coordinates_out_of_range": (
         "longitudes must lie in [-180, 180], latitudes in [-90, 90] and planar x/y within "
         "1e8 m; check --lon/--lat, or give projected x/y in metres with --x/--y and --crs"
+    ),
+    "time_out_of_range": (
+        "times must lie in the years 1678-2261 (what nanoseconds since 1970 in 64 bits "
+        "hold); correct those rows or leave them out"
     ),
     "unparseable_time": (
         "give times as ISO 8601 (e.g. 2026-03-01T12:00:00Z) or epoch seconds or "
@@ -379,6 +386,8 @@ def _mark_invalid(raw: RawTracks, frame: pd.DataFrame) -> _Rows:
         role = role + 1
     a, b, lon, lat = _mark_coordinates(raw, frame, reason)
     times = parse_times(frame["time"], raw.time_unit)
+    if times.out_of_range is not None:
+        _mark(reason, times.out_of_range, "time_out_of_range")
     _mark(reason, ~times.ok, "unparseable_time")
     return _Rows(reason, obj, objects, role, roles, a, b, lon, lat, times)
 

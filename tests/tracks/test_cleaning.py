@@ -69,6 +69,7 @@ def test_each_drop_reason_is_counted() -> None:
         "missing_role": 1,
         "missing_coordinates": 2,
         "coordinates_out_of_range": 0,
+        "time_out_of_range": 0,
         "unparseable_time": 1,
         "exact_duplicate": 1,
         "conflicting_duplicate": 2,
@@ -222,10 +223,25 @@ def test_epoch_numbers(values: list, unit: str | None, kind: str) -> None:
     assert quality["zone_less_times"] == 0
 
 
-def test_epoch_too_large_is_unparseable() -> None:
+def test_epoch_too_large_is_out_of_range() -> None:
     rows = [("a", T0, 0.0, 0.0, "r"), ("a", 1e30, 1.0, 0.0, "r")]
     _, quality = _planar(rows)
+    assert quality["dropped"]["time_out_of_range"] == 1
+    assert quality["dropped"]["unparseable_time"] == 0
+
+
+def test_valid_iso_years_beyond_nanoseconds_are_named_as_such() -> None:
+    # years 0001 and 9999 are valid ISO 8601 but beyond int64 nanoseconds: once called
+    # "unparseable"; a text that is no date stays unparseable
+    frame = pd.DataFrame({
+        "id": ["a"] * 5, "role": "r", "x": [0.0, 1.0, 2.0, 3.0, 4.0], "y": 0.0,
+        "t": ["2026-03-01T12:00:00Z", "0001-01-01T00:00:00Z", "9999-12-31",
+              "2026-03-01T12:00:01Z", "soon"],
+    })  # fmt: skip
+    _, quality = clean_fixes(read_tracks(frame))
+    assert quality["dropped"]["time_out_of_range"] == 2
     assert quality["dropped"]["unparseable_time"] == 1
+    assert [e["row"] for e in quality["examples"]["time_out_of_range"]] == [2, 3]
 
 
 def test_naive_datetime64_is_utc_and_counted_as_zone_less() -> None:
