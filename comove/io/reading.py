@@ -749,7 +749,7 @@ def _text_layout(path: str, name: str) -> tuple[str, list[str]]:
     try:
         with _open_text(path) as handle:
             sample = handle.read(65536)
-    except OSError as exc:
+    except (OSError, EOFError, ValueError) as exc:  # damaged or truncated compression too
         raise _read_error(name, "text", exc) from exc
     lines = sample.splitlines()
     header = next((ln for ln in lines if ln.strip()), "")

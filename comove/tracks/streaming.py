@@ -909,7 +909,20 @@ def _parquet_time_span(paths: list[str], column: str | None) -> int:
 
 
 def estimated_rows(source: Any) -> int | None:
-    """Return about how many rows the files of ``source`` hold (None: in memory or geo files)."""
+    """Return about how many rows the files of ``source`` hold (None: in memory or geo files).
+
+    A file that cannot be read here (damaged, truncated, not what its name says) gives
+    None too: the reader then names what is wrong with it, in one line.
+    """
+    try:
+        return _estimated_rows(source)
+    except InputError:
+        raise
+    except Exception:  # noqa: BLE001 - a damaged file: left for the reader to name
+        return None
+
+
+def _estimated_rows(source: Any) -> int | None:
     import pyarrow.parquet as pq
 
     from comove.io import storage
