@@ -471,7 +471,23 @@ def pair_keys(snaps: Snapshots, together: NeighbourPairs) -> np.ndarray:
 
 def together_keys(snaps: Snapshots, together: NeighbourPairs) -> np.ndarray:
     """Return the keys ``a * n_objects + b`` (a < b, sorted) of the pairs in ``together``."""
-    return np.unique(pair_keys(snaps, together))
+    return _distinct(pair_keys(snaps, together))
+
+
+def _distinct(keys: np.ndarray) -> np.ndarray:
+    """Return the sorted distinct values of int64 ``keys`` (sorted in place).
+
+    Sort-based: ``numpy.unique`` takes a hash path for int64 that is several times
+    slower on millions of keys (15 s against 2 s for the 50 M neighbour pairs of a
+    crowd of 2 000 over 25 snapshots).
+    """
+    keys.sort()
+    if keys.size == 0:
+        return keys
+    first = np.empty(keys.size, dtype=bool)
+    first[0] = True
+    np.not_equal(keys[1:], keys[:-1], out=first[1:])
+    return keys[first]
 
 
 def _subsample_sizes(n_a: np.ndarray, n_b: np.ndarray, cap: int) -> tuple[np.ndarray, np.ndarray]:
@@ -546,11 +562,11 @@ class TrackSamples:
             return np.zeros(0, dtype=np.int64)
         counts = np.asarray(counts, dtype=np.int64)
         m_a, m_b = _subsample_sizes(counts[a], counts[b], expected_cap(a.size, max_expected_pairs))
-        tracks = np.unique(np.concatenate([a * 2**32 + m_a, b * 2**32 + m_b]))
+        tracks = _distinct(np.concatenate([a * 2**32 + m_a, b * 2**32 + m_b]))
         keys = [o * 2**32 + _even_sample(int(counts[o]), m)
                 for o, m in zip((tracks >> 32).tolist(), (tracks & (2**32 - 1)).tolist(),
                                 strict=True)]  # fmt: skip
-        return np.unique(np.concatenate(keys))
+        return _distinct(np.concatenate(keys))
 
     @staticmethod
     def gather(snaps: Snapshots, before: np.ndarray, needed: np.ndarray) -> tuple[np.ndarray, ...]:
