@@ -17,7 +17,9 @@ from functools import partial
 import numpy as np
 from scipy.spatial import cKDTree
 
-from comove.tracks.alignment import Snapshots
+from comove.errors import InputError
+from comove.io.times import utc_iso
+from comove.tracks.alignment import Snapshots, available_memory
 
 #: Entries per k-d tree. Bounds the memory of the search; smaller trees are also
 #: built faster per entry (measured at 25 Hz with 23 objects: 0.25 s to build one
@@ -141,8 +143,10 @@ def neighbour_pairs(
 
     x0 = snaps.x - snaps.x.min()
     pitch = float(x0.max()) + 2.0 * radius + 1.0  # shift between consecutive snapshots
-    search = partial(_pair_keys, snaps, x0, pitch, radius)
     chunks = _chunks(snaps.offsets(), n, chunk_entries, workers)
+    # chunks searched at once share the memory
+    budget = available_memory() // max(1, min(workers, len(chunks)))
+    search = partial(_pair_keys, snaps, x0, pitch, radius, budget)
     if workers > 1 and len(chunks) > 1:
         with ThreadPoolExecutor(max_workers=min(workers, len(chunks))) as pool:
             found = list(pool.map(search, chunks))
@@ -165,8 +169,50 @@ def _chunks(offsets: np.ndarray, n: int, chunk_entries: int, workers: int) -> li
     return list(zip(bounds[:-1].tolist(), bounds[1:].tolist(), strict=True))
 
 
+#: Entries of a chunk whose neighbours are counted to estimate its pairs before the search.
+PAIR_SAMPLE = 500
+
+#: Bytes held per neighbour pair while a chunk is searched: the k-d tree's growing list
+#: of index pairs (up to twice 16 bytes) and its array copy (16), then the distance test
+#: and the key (about 16 more).
+BYTES_PER_PAIR = 64
+
+
+def _check_pairs(
+    snaps: Snapshots, tree: cKDTree, points: np.ndarray, radius: float, lo: int, budget: int
+) -> None:
+    """Refuse a chunk whose neighbour pairs could not be held, from a sample counted first.
+
+    In a dense crowd (thousands of objects within the radius of one another) the
+    pairs grow like the square of the crowd. The neighbours of ``PAIR_SAMPLE``
+    entries (a fixed, evenly spread sample) are counted, which costs a few
+    milliseconds; the chunk's pairs are estimated from their mean and compared with
+    ``budget``, the chunk's share of the available memory.
+    """
+    n = points.shape[0]
+    sample = np.unique(np.linspace(0, n - 1, min(PAIR_SAMPLE, n)).astype(np.int64))
+    counts = tree.query_ball_point(points[sample], radius, return_length=True)
+    estimate = n * max(float(np.mean(counts)) - 1.0, 0.0) / 2.0
+    need = estimate * BYTES_PER_PAIR
+    if need <= budget:
+        return
+    densest = int(sample[int(np.argmax(counts))]) + lo
+    at = (snaps.first_index + int(snaps.snap[densest])) * snaps.step_ns
+    raise InputError(
+        f"about {estimate:,.0f} pairs of objects within the radius (about "
+        f"{need / 2**30:.3g} GiB) in one stretch of snapshots, more than the "
+        f"{budget / 2**30:.3g} GiB of memory it may use: at {utc_iso(at)}, one object has "
+        f"{int(np.max(counts)) - 1:,} neighbours; give a smaller --radius"
+    )
+
+
 def _pair_keys(
-    snaps: Snapshots, x0: np.ndarray, pitch: float, radius: float, chunk: tuple[int, int]
+    snaps: Snapshots,
+    x0: np.ndarray,
+    pitch: float,
+    radius: float,
+    budget: int,
+    chunk: tuple[int, int],
 ) -> np.ndarray:
     """Return the sorted pair keys i * n + j (i < j) within ``radius`` of a chunk's entries.
 
@@ -178,7 +224,9 @@ def _pair_keys(
     widened = radius * (1.0 + 1e-9) + 1e-9
     s = snaps.snap[lo:hi]
     xs = x0[lo:hi] + (s - s[0]) * pitch
-    tree = cKDTree(np.column_stack([xs, snaps.y[lo:hi]]), balanced_tree=False, compact_nodes=False)
+    points = np.column_stack([xs, snaps.y[lo:hi]])
+    tree = cKDTree(points, balanced_tree=False, compact_nodes=False)
+    _check_pairs(snaps, tree, points, widened, lo, budget)
     pairs = tree.query_pairs(widened, output_type="ndarray")
     del tree
     a, b = pairs[:, 0] + lo, pairs[:, 1] + lo

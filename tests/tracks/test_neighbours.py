@@ -54,3 +54,20 @@ def test_no_pair_crosses_snapshots():
     present[np.arange(50), np.arange(50) % 2] = True  # one object per snapshot
     snaps = grid_scene(x, y, np.zeros((50, 2), int), present, 1)
     assert neighbour_pairs(snaps, 100.0).n_pairs == 0
+
+
+def test_a_crowd_whose_pairs_cannot_be_held_is_refused_before_the_search(monkeypatch):
+    # 300 objects within a metre of one another: about 45 000 pairs a snapshot, counted
+    # from a sample of entries before the k-d tree lists them
+    import comove.tracks.neighbours as neighbours
+    from comove.errors import InputError
+
+    rng = np.random.default_rng(3)
+    n, t = 300, 4
+    x, y = rng.uniform(0, 1, (t, n)), rng.uniform(0, 1, (t, n))
+    snaps = grid_scene(x, y, np.zeros((t, n), int), np.ones((t, n), bool), 1)
+    monkeypatch.setattr(neighbours, "available_memory", lambda: 2**20)  # 1 MiB
+    with pytest.raises(InputError, match="one object has 299 neighbours; give a smaller"):
+        neighbours.neighbour_pairs(snaps, 2.0)
+    monkeypatch.undo()  # with the machine's memory: every pair, 4 x C(300, 2)
+    assert neighbours.neighbour_pairs(snaps, 2.0).i.size == t * n * (n - 1) // 2
