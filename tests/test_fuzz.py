@@ -9,6 +9,7 @@ says in one line what is wrong (exit 2): never a traceback.
 
 from __future__ import annotations
 
+import gzip
 import math
 
 import pandas as pd
@@ -111,7 +112,10 @@ def test_the_command_line_never_shows_a_traceback(frame, options, command, tmp_p
         assert len(errors) == 1, err
 
 
-@pytest.mark.parametrize("content", [b"", b"\x1f\x8b", b"id,t,x,y\n", b"\xff\xfe\x00garbage"])
+@pytest.mark.parametrize(
+    "content",
+    [b"", b"\x1f\x8b", b"id,t,x,y\n", b"\xff\xfe\x00garbage", gzip.compress(b"id,t,x,y\n")],
+)
 @pytest.mark.parametrize("name", ["in.csv", "in.csv.gz", "in.parquet", "in.geojson"])
 def test_damaged_files_are_refused_in_one_line(content, name, tmp_path, capsys):
     path = tmp_path / name

@@ -14,7 +14,7 @@ import os
 import warnings
 from collections.abc import Callable
 from dataclasses import dataclass, field, replace
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pyproj
@@ -389,6 +389,7 @@ def check_grid(
     times_ns: np.ndarray,
     budget: int | None = None,
     n_fixes: int | None = None,
+    owners: Any = None,
 ) -> int:
     """Return the number of snapshots of the grid, refusing one too large for memory.
 
@@ -409,6 +410,9 @@ def check_grid(
     n_fixes : int, optional
         Number of fixes (default: the size of ``times_ns``). A grid of more than
         ``SPARSE_GRID`` snapshots per fix gets a note (:class:`ComoveNote`).
+    owners : indexable, optional
+        The object id of each of ``times_ns`` (``owners[i]``), to name with an
+        outlying fix.
 
     Raises
     ------
@@ -423,7 +427,7 @@ def check_grid(
         f"{human_seconds(step_ns / NS_PER_S)}"
     )
     if need > budget:
-        advice = outlying_times(times_ns)
+        advice = outlying_times(times_ns, owners=owners)
         raise InputError(
             f"the time grid would hold {n_snap:,} snapshots ({span}), about {_gib(need)} for "
             f"them alone, more than the {_gib(budget)} of memory available; "
@@ -431,7 +435,7 @@ def check_grid(
         )
     n_fixes = int(times_ns.size) if n_fixes is None else int(n_fixes)
     if n_snap > SPARSE_GRID * max(n_fixes, 1):
-        advice = outlying_times(times_ns)
+        advice = outlying_times(times_ns, owners=owners)
         warnings.warn(
             ComoveNote(
                 f"the time grid holds {n_snap:,} snapshots for {n_fixes:,} fixes ({span}); "
@@ -447,12 +451,15 @@ def _gib(n_bytes: int) -> str:
     return f"{n_bytes / 2**30:.3g} GiB" if n_bytes >= 2**30 else f"{n_bytes / 2**20:.3g} MiB"
 
 
-def outlying_times(times_ns: np.ndarray, counts: np.ndarray | None = None) -> str:
+def outlying_times(
+    times_ns: np.ndarray, counts: np.ndarray | None = None, owners: Any = None
+) -> str:
     """Return advice naming fixes far from the rest in time, or "" when there are none.
 
     Outlying: on the smaller side of a gap between consecutive times that is
     longer than ``OUTLYING_GAP_SHARE`` of the whole period. ``counts`` gives
-    how many fixes each time stands for (default one each).
+    how many fixes each time stands for (default one each); ``owners``, the
+    object id of each time, names the object of the first outlying fix.
     """
     times_ns = np.asarray(times_ns, dtype=np.int64)
     order = np.argsort(times_ns, kind="stable")
@@ -467,16 +474,29 @@ def outlying_times(times_ns: np.ndarray, counts: np.ndarray | None = None) -> st
     before, after = int(weight[: g + 1].sum()), int(weight[g + 1 :].sum())
     gap = human_seconds(int(gaps[g]) / NS_PER_S)
     if before <= after:
-        lone, first, other = before, utc_iso(int(t[0])), f"from {utc_iso(int(t[g + 1]))}"
+        lone, at, other = before, 0, f"from {utc_iso(int(t[g + 1]))}"
         side = "before"
     else:
-        lone, first, other = after, utc_iso(int(t[g + 1])), f"up to {utc_iso(int(t[g]))}"
+        lone, at, other = after, g + 1, f"up to {utc_iso(int(t[g]))}"
         side = "after"
+    first = utc_iso(int(t[at]))
+    if owners is not None:
+        first += f" (object {str(owners[int(order[at])])!r})"
     rows = f"1 fix at {first} lies" if lone == 1 else f"{lone:,} fixes from {first} lie"
     return (
         f"{rows} {gap} {side} the other {max(before, after):,} ({other}): correct or "
         "remove those rows"
     )
+
+
+class _Owners:
+    """The object id of each fix, looked up only where asked (``owners[i]``)."""
+
+    def __init__(self, fixes: Fixes) -> None:
+        self.obj, self.objects = fixes.obj, fixes.objects
+
+    def __getitem__(self, index: object) -> object:
+        return self.objects[self.obj[index]]
 
 
 def no_grid_point(step_ns: int) -> InputError:
@@ -527,7 +547,7 @@ def align(fixes: Fixes, params: AlignParams | None = None) -> Snapshots:
     step_ns, max_gap_ns = grid_ns(params or AlignParams(), lambda: _median_interval(fixes))
     if fixes.time.size:
         check_grid(int(fixes.time.min()), int(fixes.time.max()), step_ns, len(fixes.roles),
-                   fixes.time)  # fmt: skip
+                   fixes.time, owners=_Owners(fixes))  # fmt: skip
     first, count, on_grid, t_next = _owned_grid_points(fixes, step_ns, max_gap_ns)
     total = int(count.sum())
     if total == 0:

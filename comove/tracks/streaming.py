@@ -729,7 +729,8 @@ class _CleanPass:
         first_fix, last_fix = gaps.first[used_obj], gaps.last[used_obj]
         n_fixes = gaps.n + int(used_obj.sum())  # each object's gaps are its fixes less one
         check_grid(int(first_fix.min()), int(last_fix.max()), step_ns, int(roles.size),
-                   np.concatenate([first_fix, last_fix]), n_fixes=n_fixes)  # fmt: skip
+                   np.concatenate([first_fix, last_fix]), n_fixes=n_fixes,
+                   owners=np.concatenate([objects, objects]))  # fmt: skip
         return Cleaned(spill, objects, roles, remap_obj, remap_role, quality, step_ns,
                        max_gap_ns, gaps.first[used_obj], gaps.last[used_obj])  # fmt: skip
 
