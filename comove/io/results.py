@@ -219,6 +219,10 @@ def formula_unguarded(frame: pd.DataFrame) -> pd.DataFrame:
 def csv_lines(frame: pd.DataFrame) -> Iterator[str]:
     """Yield the text of ``frame.to_csv(index=False, float_format=FLOAT_FORMAT)`` in blocks.
 
+    The same bytes but for text holding a carriage return, which is quoted here
+    (see :func:`_quoted`); a frame that pandas writes itself (below) keeps
+    pandas' quoting.
+
     Columns of floats, integers, booleans and text are formatted here, a
     column at a time (pandas' writer formats value by value in Python, 2.4 s
     for the 232 000 rows of a fleet day's dyads). Text is quoted as the
@@ -275,13 +279,18 @@ _NEEDS_QUOTES = re.compile(r'[,"\r\n]')
 
 
 def _quoted(values: list[str]) -> list[str]:
-    """Return text fields quoted as the ``csv`` module quotes them (``QUOTE_MINIMAL``)."""
+    """Return text fields quoted as the ``csv`` module quotes them (``QUOTE_MINIMAL``).
+
+    A field holding a carriage return is quoted too (the ``csv`` module, and so
+    pandas, leaves it bare when lines end with a line feed, and a reader then
+    splits the row there).
+    """
     out = list(values)
     for i, v in enumerate(values):
         if _NEEDS_QUOTES.search(v):
             buffer = io.StringIO()
-            csv.writer(buffer, lineterminator="\n").writerow([v])
-            out[i] = buffer.getvalue()[:-1]
+            csv.writer(buffer, lineterminator="\r\n").writerow([v])
+            out[i] = buffer.getvalue()[:-2]
     return out
 
 

@@ -105,7 +105,8 @@ def test_csv_text_is_pandas_text_byte_for_byte(seed, monkeypatch):
     floats = rng.normal(0, 10.0 ** rng.integers(-12, 12, n), n)
     floats[rng.random(n) < 0.1] = np.nan
     floats[:6] = [np.inf, -np.inf, -0.0, 0.0, 1e300, 5e-324]
-    words = np.array(["a", "b,c", 'say "hi"', "two\nlines", "cr\rhere", "", " pad ", "é"])
+    # (text holding a carriage return is quoted, where pandas leaves it bare: tested below)
+    words = np.array(["a", "b,c", 'say "hi"', "two\nlines", "cr\r\nhere", "", " pad ", "é"])
     text = pd.Series(words[rng.integers(0, words.size, n)], dtype=object)
     text[rng.random(n) < 0.1] = None
     frame = pd.DataFrame({
@@ -153,3 +154,14 @@ def test_text_a_spreadsheet_would_run_is_guarded_and_read_back_exactly(tmp_path)
     expected = [c if c else np.nan for c in cells]
     assert back["roles"].tolist()[:-2] == expected[:-2]
     assert back["v"].tolist() == [-1.5] * len(cells)
+
+
+def test_text_holding_a_carriage_return_is_quoted_and_read_back(tmp_path):
+    # pandas' writer, with lines ending in a line feed, leaves "a\rb" bare, and readers
+    # split the row there; comove's writer quotes it
+    frame = pd.DataFrame({"name": ["a\rb", "plain", "c\r"], "n": [1, 2, 3]})
+    path = tmp_path / "cr.csv"
+    results.csv_writer(frame)(path)
+    assert path.read_bytes().startswith(b'name,n\n"a\rb",1\n')
+    back = pd.read_csv(path)
+    assert back["name"].tolist() == ["a\rb", "plain", "c\r"] and back["n"].tolist() == [1, 2, 3]
