@@ -543,3 +543,26 @@ def test_a_role_named_like_a_formula_stays_text_in_csv_and_exact_elsewhere(tmp_p
     assert ResultsFolder(out).table("patterns.csv")["roles"].iloc[0] == f"{role};s"
     series = pd.read_parquet(out / "pi_series.parquet")
     assert f"{role};s" in set(series["roles"].astype(str))  # Parquet keeps the value
+
+
+@pytest.mark.parametrize("command", ["mine", "groups"])
+def test_a_crowd_beyond_memory_is_refused_in_one_line(command, tmp_path, capsys, monkeypatch):
+    # 400 objects within a metre of one another: with little memory, both commands stop
+    # before the neighbour search in one line naming the crowd, leaving nothing
+    import numpy as np
+
+    import comove.tracks.neighbours as neighbours
+
+    rng = np.random.default_rng(5)
+    n, t = 400, 3
+    frame = pd.DataFrame({"id": np.repeat([f"o{i}" for i in range(n)], t),
+                          "role": np.repeat([f"r{i % 4}" for i in range(n)], t),
+                          "time": np.tile(1_700_000_000 + np.arange(t), n),
+                          "x": rng.uniform(0, 1, n * t), "y": rng.uniform(0, 1, n * t)})  # fmt: skip
+    frame.to_csv(tmp_path / "crowd.csv", index=False)
+    monkeypatch.setattr(neighbours, "available_memory", lambda: 2**20)
+    code, _, err = run([command, tmp_path / "crowd.csv", "--radius", 2, "--permutations", 0,
+                        "--quiet", "--out", tmp_path / "o"], capsys)  # fmt: skip
+    assert code == 2 and err.count("\n") == 1 and "Traceback" not in err
+    assert "one object has 399 neighbours; give a smaller --radius" in err
+    assert not (tmp_path / "o").exists()
