@@ -555,10 +555,12 @@ def test_a_crowd_beyond_memory_is_refused_in_one_line(command, tmp_path, capsys,
 
     rng = np.random.default_rng(5)
     n, t = 400, 3
-    frame = pd.DataFrame({"id": np.repeat([f"o{i}" for i in range(n)], t),
-                          "role": np.repeat([f"r{i % 4}" for i in range(n)], t),
-                          "time": np.tile(1_700_000_000 + np.arange(t), n),
-                          "x": rng.uniform(0, 1, n * t), "y": rng.uniform(0, 1, n * t)})  # fmt: skip
+    frame = pd.DataFrame({
+        "id": np.repeat([f"o{i}" for i in range(n)], t),
+        "role": np.repeat([f"r{i % 4}" for i in range(n)], t),
+        "time": np.tile(1_700_000_000 + np.arange(t), n),
+        "x": rng.uniform(0, 1, n * t), "y": rng.uniform(0, 1, n * t),
+    })  # fmt: skip
     frame.to_csv(tmp_path / "crowd.csv", index=False)
     monkeypatch.setattr(neighbours, "available_memory", lambda: 2**20)
     code, _, err = run([command, tmp_path / "crowd.csv", "--radius", 2, "--permutations", 0,
