@@ -139,11 +139,19 @@ def neighbour_pairs(
         return NeighbourPairs(empty, empty, float(radius))
     if n > MAX_ENTRIES:
         raise ValueError(f"more than {MAX_ENTRIES} entries: search them in time chunks")
-    workers = worker_count(workers)
+    keys = _searched_keys(snaps, float(radius), chunk_entries, worker_count(workers))
+    return NeighbourPairs(keys // n, keys % n, float(radius))
 
+
+def _searched_keys(snaps: Snapshots, radius: float, chunk_entries: int, workers: int) -> np.ndarray:
+    """Return the sorted pair keys ``i * n + j`` of all snapshots, chunk by chunk in threads.
+
+    Snapshots are laid side by side along x (``pitch`` apart, so that no pair
+    crosses two), and each chunk of consecutive snapshots is one k-d tree.
+    """
     x0 = snaps.x - snaps.x.min()
     pitch = float(x0.max()) + 2.0 * radius + 1.0  # shift between consecutive snapshots
-    chunks = _chunks(snaps.offsets(), n, chunk_entries, workers)
+    chunks = _chunks(snaps.offsets(), snaps.n_entries, chunk_entries, workers)
     # chunks searched at once share the memory
     budget = available_memory() // max(1, min(workers, len(chunks)))
     search = partial(_pair_keys, snaps, x0, pitch, radius, budget)
@@ -153,8 +161,7 @@ def neighbour_pairs(
     else:
         found = [search(chunk) for chunk in chunks]
     # chunks hold consecutive entries, so their sorted keys concatenate in order
-    keys = np.concatenate(found) if found else empty
-    return NeighbourPairs(keys // n, keys % n, float(radius))
+    return np.concatenate(found) if found else np.empty(0, dtype=np.int64)
 
 
 def _chunks(offsets: np.ndarray, n: int, chunk_entries: int, workers: int) -> list[tuple[int, int]]:
