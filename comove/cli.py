@@ -69,7 +69,17 @@ class _Parser(argparse.ArgumentParser):
         self.exit(EXIT_INPUT, f"{self.prog}: error: {message} (see {self.prog} --help)\n")
 
 
-def _scalar_type(annotation: Any) -> type:
+def _yes_no(text: str) -> bool:
+    """Return the truth value of a yes/no flag's text."""
+    words = {"yes": True, "true": True, "on": True, "1": True,
+             "no": False, "false": False, "off": False, "0": False}  # fmt: skip
+    value = words.get(text.strip().lower())
+    if value is None:
+        raise argparse.ArgumentTypeError(f"expected yes or no, not {text!r}")
+    return value
+
+
+def _scalar_type(annotation: Any) -> Any:
     """Return the type a flag's text is read as, from a field annotation.
 
     ``float | None`` is read as float; a grid (``tuple[float, ...]``, optional
@@ -81,6 +91,8 @@ def _scalar_type(annotation: Any) -> type:
         annotation = args[0]  # X | None
     if typing.get_origin(annotation) is tuple:
         return str
+    if annotation is bool:
+        return _yes_no
     return annotation
 
 
@@ -97,6 +109,8 @@ def _add_stage_options(
             help_text = f.metadata.get("help") or _COLUMN_HELP.get(f.name, "")
             if isinstance(default, tuple):
                 default = ",".join(f"{v:g}" for v in default) or None
+            if isinstance(default, bool):
+                default = "yes" if default else "no"
             if default is not None:
                 help_text += f" (default: {default})"
             group.add_argument(
@@ -105,7 +119,7 @@ def _add_stage_options(
                 type=_scalar_type(hints[f.name]),
                 default=None,
                 required=f.name in required,
-                metavar=f.name.upper(),
+                metavar="yes|no" if hints[f.name] is bool else f.name.upper(),
                 choices=f.metadata.get("choices"),
                 help=help_text,
             )

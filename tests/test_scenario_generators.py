@@ -324,3 +324,36 @@ def test_game_role_change_is_in_the_role_column() -> None:
         i = grid.ids.index(change["id"])
         assert set(grid.role[i, :k]) == {change["from"]}
         assert set(grid.role[i, k:]) == {change["to"]}
+
+
+def test_dense_crowd_generator_is_deterministic_and_committed(tmp_path: Path) -> None:
+    module = generator("dense_crowd")
+    first, truth_a = module.generate(seed=77)
+    second, truth_b = module.generate(seed=77)
+    pd.testing.assert_frame_equal(first, second)
+    assert truth_a == truth_b
+    module.write(tmp_path)
+    truth = truth_of("dense_crowd")
+    assert json.loads((tmp_path / "truth.json").read_text()) == truth
+    assert _data_texts(tmp_path, "people.csv.gz") == _data_texts(ROOT / "dense_crowd",
+                                                                 "people.csv.gz")  # fmt: skip
+
+
+def test_dense_crowd_is_dense_and_its_groups_keep_together() -> None:
+    truth = truth_of("dense_crowd")
+    frame = pd.read_csv(ROOT / "dense_crowd" / truth["input"])
+    strangers = {p for ids in truth["strangers"].values() for p in ids}
+    members = [set(g["members"]) for g in truth["groups"]]
+    assert len(members) == 24
+    assert len(strangers) >= 300 and not strangers & set().union(*members)
+    assert frame.groupby("t").size().mean() >= 40
+    assert {"stream", "stander", "queuer", "crosser"} <= set(truth["strangers"])
+    # planted members stay within 2 m of one another at every shared frame; a group
+    # queueing stands in line (0.75 m places), and steps out of it side by side
+    wide = frame.pivot(index="t", columns="person", values=["x", "y"])
+    for group in truth["groups"]:
+        size = len(group["members"])
+        bound = 2.0 if group["plan"] != "queue" else 0.75 * (size - 1) + 1.2
+        for a, b in itertools.combinations(group["members"], 2):
+            d = np.hypot(wide["x"][a] - wide["x"][b], wide["y"][a] - wide["y"][b]).dropna()
+            assert len(d) > 20 and d.max() < bound, (a, b, d.max())

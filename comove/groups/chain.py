@@ -7,9 +7,11 @@
 
 Over time chunks. Everything up to the per-snapshot groups is local to a
 snapshot, except velocities, which reach :func:`~comove.tracks.motion.half_window_snapshots`
-snapshots to each side: :func:`chunk_timeline` works on a chunk with that
-many snapshots of context on each side and keeps only its own snapshots, so
-its groups are exactly the whole run's. The chunks' timelines join
+snapshots to each side, and evidence links, which weigh
+:func:`~comove.groups.evidence.evidence_reach` snapshots to each side:
+:func:`chunk_timeline` works on a chunk with that much context on each side
+and keeps only its own snapshots, so its groups are exactly the whole run's.
+The chunks' timelines join
 (:meth:`~comove.groups.grouping.GroupTimeline.joined`: groups concatenated, each
 object's presence runs stitched where they meet at a chunk edge), and the
 episode search runs over the joined timeline, so episodes that cross chunk
@@ -31,6 +33,7 @@ import numpy as np
 
 from comove.groups.dyads import DyadTally, dyad_tally, pair_keys, together_keys
 from comove.groups.episodes import EpisodeParams, Episodes, find_episodes
+from comove.groups.evidence import evidence_links, evidence_reach
 from comove.groups.grouping import (
     GroupParams,
     GroupTimeline,
@@ -140,8 +143,34 @@ def group_chain(
 def _groups(
     snaps: Snapshots, pairs: NeighbourPairs, motion: Motion, grouping: GroupParams
 ) -> SnapshotGroups:
-    """Return the per-snapshot groups of the pairs that also move alike."""
-    return snapshot_groups(snaps, linked_pairs(pairs, motion, grouping), grouping)
+    """Return the per-snapshot groups of the linked pairs."""
+    return snapshot_groups(snaps, _links(snaps, pairs, motion, grouping), grouping)
+
+
+def _links(
+    snaps: Snapshots, pairs: NeighbourPairs, motion: Motion, grouping: GroupParams
+) -> NeighbourPairs:
+    """Return the pairs linked by the pair evidence or by the snapshot alone."""
+    if grouping.links == "evidence":
+        return evidence_links(snaps, pairs, motion, grouping)
+    return linked_pairs(pairs, motion, grouping)
+
+
+def link_reach(grouping: GroupParams, step_s: float) -> int:
+    """Return how many snapshots on each side a snapshot's links depend on (velocities aside)."""
+    if grouping.links == "evidence":
+        return evidence_reach(grouping.evidence_window, step_s)
+    return 0
+
+
+def _entries_between(pairs: NeighbourPairs, lo: int, hi: int) -> NeighbourPairs:
+    """Return the pairs of entries ``lo .. hi - 1``, renumbered from ``lo``.
+
+    Both ends of a pair lie in one snapshot, and entries are in snapshot
+    order, so they are the pairs whose first end lies there.
+    """
+    a, b = np.searchsorted(pairs.i, [lo, hi])
+    return NeighbourPairs(pairs.i[a:b] - lo, pairs.j[a:b] - lo, pairs.radius)
 
 
 def chunk_timeline(
@@ -181,9 +210,21 @@ def chunk_timeline_and_keys(
     The first pass of a run over time windows needs both; the chunk's
     neighbour pairs come third, for :func:`chunk_dyads` to reuse.
     """
-    chunk, motion = _chunk_motion(snaps, start, stop, grouping, workers)
-    pairs = neighbour_pairs(chunk, grouping.radius, workers=workers)
-    timeline = GroupTimeline.of(chunk, _groups(chunk, pairs, motion, grouping))
+    reach = link_reach(grouping, snaps.step_s)
+    if reach == 0:
+        chunk, motion = _chunk_motion(snaps, start, stop, grouping, workers)
+        pairs = neighbour_pairs(chunk, grouping.radius, workers=workers)
+        groups = _groups(chunk, pairs, motion, grouping)
+    else:  # links weigh the snapshots around: work on the chunk with that context
+        outer, around = _chunk_motion(snaps, start - reach, stop + reach, grouping, workers)
+        chunk = snaps.window(start, stop)
+        before = chunk.first_index - outer.first_index
+        lo, hi = (int(v) for v in outer.offsets()[[before, before + chunk.n_snapshots]])
+        outer_pairs = neighbour_pairs(outer, grouping.radius, workers=workers)
+        links = _entries_between(_links(outer, outer_pairs, around, grouping), lo, hi)
+        pairs = _entries_between(outer_pairs, lo, hi)
+        groups = snapshot_groups(chunk, links, grouping)
+    timeline = GroupTimeline.of(chunk, groups)
     return timeline, together_keys(chunk, pairs) if keys else None, pairs
 
 

@@ -31,6 +31,7 @@ from comove.tracks.motion import Motion
 from comove.tracks.neighbours import NeighbourPairs
 
 GROUP_MODES = ("clique", "component", "dbscan")
+LINK_RULES = ("evidence", "snapshot")
 
 
 @dataclass(frozen=True)
@@ -57,6 +58,27 @@ class GroupParams:
         link; ``None`` switches the predicate off.
     velocity_window : float, default 1.0
         Width in seconds of the window over which velocities are differenced.
+    links : {"evidence", "snapshot"}, default "evidence"
+        How a link is decided: from the pair's own evidence over a window of
+        time (:mod:`comove.groups.evidence`), or from the snapshot alone
+        (distance and the motion predicates at that moment).
+    evidence_window : float, default 8.0
+        ``"evidence"``: width in seconds of the centred window over which a
+        pair's evidence is gathered.
+    evidence_share : float, default 0.5
+        ``"evidence"``: least share of the window's co-present snapshots at
+        which the pair must be together.
+    nearest : int, default 3
+        ``"evidence"``: each of the pair must be among the other's ``nearest``
+        nearest neighbours to count as near (0: any distance within the radius).
+    min_abreast : float or None, default None
+        ``"evidence"``: least angle in degrees between the line joining two
+        moving objects and their common heading (side by side is 90); ``None``
+        switches the predicate off.
+    standing_counts : bool, default True
+        ``"evidence"``: whether nearness while both are slower than
+        ``min_speed`` counts as being together (as distance alone links slow
+        objects in ``"snapshot"`` links); presets for crowds switch it off.
     """
 
     radius: float = field(metadata={"help": "link distance in metres (inclusive)"})
@@ -83,10 +105,36 @@ class GroupParams:
     velocity_window: float = field(
         default=1.0, metadata={"help": "seconds over which velocities are differenced"}
     )
+    links: str = field(
+        default="evidence",
+        metadata={"help": "how links are decided: evidence (the pair's own history around "
+                  "each snapshot) or snapshot (that moment alone)"},
+    )  # fmt: skip
+    evidence_window: float = field(
+        default=8.0, metadata={"help": "evidence links: seconds of history weighed, centred"}
+    )
+    evidence_share: float = field(
+        default=0.5,
+        metadata={"help": "evidence links: least share of the window the pair is together"},
+    )
+    nearest: int = field(
+        default=3,
+        metadata={"help": "evidence links: each must be among the other's N nearest "
+                  "neighbours (0: off)"},
+    )  # fmt: skip
+    min_abreast: float | None = field(
+        default=None,
+        metadata={"help": "evidence links: least angle in degrees between the line joining "
+                  "two movers and their heading (negative: off)"},
+    )  # fmt: skip
+    standing_counts: bool = field(
+        default=True,
+        metadata={"help": "evidence links: nearness while both stand counts as together"},
+    )
 
     def __post_init__(self) -> None:
         # a negative value switches a predicate off, so that flags can say so too
-        for name in ("max_heading", "max_speed_ratio"):
+        for name in ("max_heading", "max_speed_ratio", "min_abreast"):
             value = getattr(self, name)
             if value is not None and value < 0:
                 object.__setattr__(self, name, None)
@@ -104,6 +152,17 @@ class GroupParams:
             raise bad_setting("max_speed_ratio", "must be at least 1")
         if not (np.isfinite(self.velocity_window) and self.velocity_window > 0):
             raise bad_setting("velocity_window", "must be a positive number of seconds")
+        if self.links not in LINK_RULES:
+            rules = ", ".join(LINK_RULES)
+            raise bad_setting("links", f"must be one of {rules}, not {self.links!r}")
+        if not (np.isfinite(self.evidence_window) and self.evidence_window >= 0):
+            raise bad_setting("evidence_window", "must be zero or a positive number of seconds")
+        if not (0 < self.evidence_share <= 1):
+            raise bad_setting("evidence_share", "must be a share above 0 and at most 1")
+        if int(self.nearest) != self.nearest or self.nearest < 0:
+            raise bad_setting("nearest", "must be a whole number, 0 to switch it off")
+        if self.min_abreast is not None and not (0 <= self.min_abreast <= 90):
+            raise bad_setting("min_abreast", "must be between 0 and 90 degrees")
 
 
 @dataclass

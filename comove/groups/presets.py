@@ -52,6 +52,12 @@ PRESETS: dict[str, Preset] = {
                 "min_size": 2,
                 "min_duration": 4.0,
                 "tolerance": 2.0,
+                "links": "evidence",
+                "evidence_window": 8.0,
+                "evidence_share": 0.5,
+                "nearest": 3,
+                "min_abreast": 15.0,
+                "standing_counts": False,
             },
             why={
                 "radius": "Hall's proxemics: personal distance, kept among companions, ends "
@@ -70,6 +76,22 @@ PRESETS: dict[str, Preset] = {
                 "in step for a moment are not a group (common practice)",
                 "tolerance": "brief occlusions or a step aside do not split a group "
                 "(common practice)",
+                "links": "a pair is judged on its own recent history, not on one moment: "
+                "wherever people stand, queue or crowd, a moment's nearness chains strangers",
+                "evidence_window": "8 s, about ten strides: longer than falling in step with "
+                "a stranger for a moment, shorter than a typical crossing of a scene (common "
+                "practice)",
+                "evidence_share": "together more often than not within the window (a "
+                "majority rule, common practice)",
+                "nearest": "companions are among each other's nearest: pedestrian groups are "
+                "mostly of two to four (Moussaid et al. 2010), so three nearest reach every "
+                "neighbour in a group of four; mutual nearest neighbours after Brito et al. 1997",
+                "min_abreast": "companions walk side by side or in a V (Moussaid et al. 2010), "
+                "strangers in a stream one behind another; a follower straight behind appears "
+                "within about 10 degrees of the line of walking (half a 0.45 m shoulder "
+                "breadth at 1.2 m) plus a few degrees of sway, hence 15 (common practice)",
+                "standing_counts": "no: people standing or queueing keep personal distances "
+                "from strangers too (Hall 1966), so nearness while standing is not evidence",
             },
         ),
         Preset(
@@ -85,6 +107,12 @@ PRESETS: dict[str, Preset] = {
                 "min_size": 2,
                 "min_duration": 5.0,
                 "tolerance": 1.0,
+                "links": "evidence",
+                "evidence_window": 6.0,
+                "evidence_share": 0.5,
+                "nearest": 3,
+                "min_abreast": None,
+                "standing_counts": True,
             },
             why={
                 "radius": "GNSS player tracking errs by about 1–1.5 m per position, so "
@@ -98,6 +126,16 @@ PRESETS: dict[str, Preset] = {
                 "velocity_window": "1 s smooths 10–25 Hz positional noise (common practice)",
                 "min_duration": "5 s: longer than a passing duel (common practice)",
                 "tolerance": "1 s (common practice)",
+                "links": "judged on the pair's last and next few seconds, so that a duel or "
+                "a crossing run does not link two players",
+                "evidence_window": "6 s: a few times a passing duel (common practice)",
+                "evidence_share": "together more often than not (common practice)",
+                "nearest": "in a crowded penalty area close means closer than the other "
+                "players: each among the other's three nearest (common practice)",
+                "min_abreast": "off: players run in file as often as abreast",
+                "standing_counts": "yes: a marker stays with a forward whether both run, jog or "
+                "stand, and stoppages are short against the window; the three-nearest rule "
+                "keeps a crowded set piece from linking everyone (common practice)",
             },
         ),
         Preset(
@@ -113,6 +151,12 @@ PRESETS: dict[str, Preset] = {
                 "min_size": 2,
                 "min_duration": 120.0,
                 "tolerance": 30.0,
+                "links": "evidence",
+                "evidence_window": 120.0,
+                "evidence_share": 0.5,
+                "nearest": 3,
+                "min_abreast": None,
+                "standing_counts": False,
             },
             why={
                 "radius": "the two-second following headway (common practice in driver "
@@ -123,6 +167,15 @@ PRESETS: dict[str, Preset] = {
                 "velocity_window": "20 s, a few GPS/AIS fixes (common practice)",
                 "min_duration": "2 minutes: longer than meeting at a junction (common practice)",
                 "tolerance": "30 s covers a missed fix or two (common practice)",
+                "links": "judged on the pair's last and next minute, so that overtaking or "
+                "sharing a junction does not link two vehicles",
+                "evidence_window": "2 minutes, the minimum duration (common practice)",
+                "evidence_share": "together more often than not (common practice)",
+                "nearest": "in dense traffic close means closer than the other vehicles: each "
+                "among the other's three nearest, the vehicles ahead and behind and one "
+                "alongside (common practice)",
+                "min_abreast": "off: convoys drive in file",
+                "standing_counts": "no: vehicles queueing at lights or parked are not a convoy",
             },
         ),
         Preset(
@@ -138,6 +191,12 @@ PRESETS: dict[str, Preset] = {
                 "min_size": 2,
                 "min_duration": 6 * 3600.0,
                 "tolerance": 6 * 3600.0,
+                "links": "evidence",
+                "evidence_window": 6 * 3600.0,
+                "evidence_share": 0.5,
+                "nearest": 0,
+                "min_abreast": None,
+                "standing_counts": True,
             },
             why={
                 "radius": "proximity thresholds of 50–100 m are widely used for "
@@ -151,6 +210,13 @@ PRESETS: dict[str, Preset] = {
                 "of three or four missed fixes are routine (common practice)",
                 "min_speed": "0: with the motion predicates off it does not matter",
                 "velocity_window": "two fixes at hourly sampling",
+                "links": "judged on the pair's last and next few hours, so that one fix "
+                "side by side at a waterhole does not link two animals",
+                "evidence_window": "6 hours, the minimum duration (common practice)",
+                "evidence_share": "together more often than not (common practice)",
+                "nearest": "off: a herd is a group, so every animal near is a companion",
+                "min_abreast": "off: no headings between hourly fixes",
+                "standing_counts": "yes: resting together is association for animals",
             },
         ),
     )

@@ -20,9 +20,19 @@ _MINE_SETTINGS = ("radius", "min_participation", "min_prevalence", "min_duration
                   "max_gap", "max_size", "max_speed")  # fmt: skip
 
 
-def scenario_names() -> list[str]:
-    """Return the names of the bundled scenarios."""
-    return sorted(p.parent.name for p in SCENARIOS_DIR.glob("*/truth.json"))
+def scenario_names(kind: str = "roles") -> list[str]:
+    """Return the names of the bundled scenarios of one kind.
+
+    ``"roles"``: scenarios with planted role sets, for ``comove mine`` (and
+    planted episodes for ``comove groups``); ``"groups"``: scenarios that plant
+    only groups of individuals among strangers, without roles.
+    """
+    names = []
+    for path in sorted(SCENARIOS_DIR.glob("*/truth.json")):
+        planted_roles = "planted" in json.loads(path.read_text())
+        if planted_roles == (kind == "roles"):
+            names.append(path.parent.name)
+    return names
 
 
 def load_truth(name: str) -> dict[str, Any]:

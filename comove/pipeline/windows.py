@@ -24,6 +24,7 @@ from comove.groups.chain import (
     chunk_dyads,
     chunk_episode_rows,
     chunk_timeline_and_keys,
+    link_reach,
 )
 from comove.groups.dyads import DyadParams, DyadTally, TrackSamples, dyad_rows, expected_distances
 from comove.groups.episodes import EpisodeParams, Episodes, find_episodes
@@ -295,15 +296,17 @@ def group_windows(
 ) -> WindowedGroups:
     """Return the episodes, episode table and dyads of the whole run, window by window.
 
-    Pass one: each window's group timeline (with the velocity window's context
-    on each side), the pairs ever together, and each object's entries; the
+    Pass one: each window's group timeline (with the velocity and evidence
+    windows' context on each side), the pairs ever together, and each object's entries; the
     timelines joined give the episodes. Pass two, while this process searches
     the episodes: each window's dyad counts of those pairs and the positions
     De reads. Pass three: each window's episode rows. With
     ``dyad_pairs="co-present"`` the pairs are known only after pass two, and
     a fourth pass reads De's positions.
     """
-    reach = half_window_snapshots(grouping.velocity_window, run.shell.step_s)
+    # context each side: the velocity window's, and the evidence window's around it
+    reach = (half_window_snapshots(grouping.velocity_window, run.shell.step_s)
+             + link_reach(grouping, run.shell.step_s))  # fmt: skip
     together = dyad_params.dyad_pairs == "together"
     found = run.map(_timeline_window, (grouping, reach, together), "groups (1/3)")
     run.count([counted for _, _, counted in found])

@@ -18,6 +18,7 @@ from scenes import (
 from comove.errors import InputError
 from comove.groups.dyads import dyad_table
 from comove.groups.episodes import EpisodeParams, find_episodes
+from comove.groups.evidence import evidence_links
 from comove.groups.grouping import GroupParams, GroupTimeline, linked_pairs, snapshot_groups
 from comove.groups.presets import preset_values
 from comove.groups.summary import episode_table, role_rollup
@@ -76,9 +77,11 @@ def test_crossing_decoys_are_not_reported(scenario):
         pytest.skip("no decoys planted in this scenario")
     # no minimum duration, so a moment of closeness would count if it were linked
     _, strict = run_scenario(name, min_duration=0.0, tolerance=0.0)
+    _, strict_moment = run_scenario(name, min_duration=0.0, tolerance=0.0, links="snapshot")
     _, loose = run_scenario(
-        name, min_duration=0.0, tolerance=0.0, max_heading=None, max_speed_ratio=None
-    )
+        name, min_duration=0.0, tolerance=0.0, max_heading=None, max_speed_ratio=None,
+        links="snapshot",
+    )  # fmt: skip
     for decoy in truth["decoys"]:
         pair = set(decoy["members"])
         t = pd.Timestamp(decoy["time"])
@@ -90,8 +93,10 @@ def test_crossing_decoys_are_not_reported(scenario):
                 & (table["end"] >= t)
             ]
 
-        assert covering(strict.episodes).empty, decoy
-        assert not covering(loose.episodes).empty, decoy  # the heading predicate did it
+        assert covering(strict.episodes).empty, decoy  # pair evidence: a moment is not enough
+        assert covering(strict_moment.episodes).empty, decoy
+        # judged on the moment alone, the heading predicate is what keeps the decoy out
+        assert not covering(loose.episodes).empty, decoy
 
 
 def test_outputs_have_the_documented_columns(scenario):
@@ -120,7 +125,8 @@ def test_groups_equals_its_stages_run_one_after_another():
     grouping, episode_params = split_options(GROUP_STAGES, options)[3:5]
     pairs = neighbour_pairs(snaps, grouping.radius)
     motion = entry_motion(snaps, grouping.velocity_window)
-    links = linked_pairs(pairs, motion, grouping)
+    assert grouping.links == "evidence"
+    links = evidence_links(snaps, pairs, motion, grouping)
     found = find_episodes(GroupTimeline.of(snaps, snapshot_groups(snaps, links, grouping)),
                           episode_params)  # fmt: skip
     table, _ = episode_table(snaps, found, motion, grouping.min_speed)

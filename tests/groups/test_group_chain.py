@@ -203,8 +203,11 @@ def test_any_cut_of_a_random_scene_gives_the_same_episodes(seed, tol, data):
     snaps = grid_scene(x, y, np.zeros((n_snap, n_obj), int), present, 1)
     # heading and speed predicates make the links depend on velocities, which reach
     # over chunk edges
+    # evidence links also weigh the snapshots around each one, across chunk edges too
+    links = data.draw(st.sampled_from(["evidence", "snapshot"]))
+    window = data.draw(st.sampled_from([0.0, 3.0, 8.0]))
     gp = GroupParams(radius=1.5, min_speed=0.1, max_heading=60.0, max_speed_ratio=2.0,
-                     velocity_window=4.0)  # fmt: skip
+                     velocity_window=4.0, links=links, evidence_window=window)  # fmt: skip
     params = EpisodeParams(tolerance=float(tol), min_duration=2.0)
     cuts = sorted(set(data.draw(st.lists(st.integers(1, snaps.n_snapshots - 1), max_size=8))))
     whole = group_chain(snaps, gp, params).episodes
