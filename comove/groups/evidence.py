@@ -56,27 +56,36 @@ def evidence_reach(window_s: float, step_s: float) -> int:
     return max(0, int(np.floor(window_s / 2 / step_s + 1e-9)))
 
 
-def _mutual_ranks(i: np.ndarray, j: np.ndarray, d: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Return, per pair, how many neighbours of ``i`` and of ``j`` are strictly closer.
+def _kth_nearest(ends: np.ndarray, dist: np.ndarray, n_entries: int, k: int) -> np.ndarray:
+    """Return per entry the k-th smallest of its neighbour distances (inf with fewer than k).
 
-    Ties share a rank, so the ranks do not depend on how objects are numbered.
+    ``ends`` and ``dist`` list each neighbour of each entry (both directions
+    of every pair). Ties count as often as they occur, so a partner at
+    distance d has fewer than k neighbours strictly closer exactly when
+    d <= the k-th smallest distance: the rank test needs no sort, only k
+    passes of a minimum per entry.
     """
-    n = i.size
-    ends = np.concatenate([i, j])
-    dist = np.concatenate([d, d])
-    order = np.lexsort((dist, ends))
-    e, dd = ends[order], dist[order]
-    pos = np.arange(e.size)
-    new_end = np.ones(e.size, dtype=bool)
-    new_end[1:] = e[1:] != e[:-1]
-    new_value = new_end.copy()
-    new_value[1:] |= dd[1:] != dd[:-1]
-    # rank = index of the first neighbour at this distance, counted from the entry's first
-    first_at = np.maximum.accumulate(np.where(new_value, pos, 0))
-    first_of_end = np.maximum.accumulate(np.where(new_end, pos, 0))
-    rank = np.empty(e.size, dtype=np.int64)
-    rank[order] = first_at - first_of_end
-    return rank[:n], rank[n:]
+    kth = np.full(n_entries, np.inf)
+    need = np.full(n_entries, k, dtype=np.int64)
+    degree = np.zeros(n_entries, dtype=np.int64)
+    np.add.at(degree, ends, 1)
+    # with k neighbours or fewer every partner is among the k nearest
+    alive = degree[ends] > k
+    for _ in range(k):
+        e, d = ends[alive], dist[alive]
+        if e.size == 0:
+            break
+        low = np.full(n_entries, np.inf)
+        np.minimum.at(low, e, d)
+        at_low = d == low[e]
+        count = np.zeros(n_entries, dtype=np.int64)
+        np.add.at(count, e[at_low], 1)
+        reached = (count >= need) & (need > 0)
+        kth[reached] = low[reached]
+        need = np.where(count >= need, 0, need - count)
+        keep = ~at_low & (need[e] > 0)
+        alive[np.flatnonzero(alive)[~keep]] = False
+    return kth
 
 
 def together_snapshots(
@@ -107,9 +116,10 @@ def together_snapshots(
     dy = snaps.y[j] - snaps.y[i]
     d = np.sqrt(dx * dx + dy * dy)
     near = d <= params.radius
-    if params.nearest:
-        rank_i, rank_j = _mutual_ranks(i, j, d)
-        near &= (rank_i < params.nearest) & (rank_j < params.nearest)
+    if params.nearest:  # each among the other's k nearest: fewer than k strictly closer
+        kth = _kth_nearest(np.concatenate([i, j]), np.concatenate([d, d]), snaps.n_entries,
+                           int(params.nearest))  # fmt: skip
+        near &= (d <= kth[i]) & (d <= kth[j])
     vxi, vyi, vxj, vyj = motion.vx[i], motion.vy[i], motion.vx[j], motion.vy[j]
     si, sj = motion.speed[i], motion.speed[j]
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -132,22 +142,23 @@ def together_snapshots(
     return together
 
 
-def _presence_runs(snaps: Snapshots) -> tuple[np.ndarray, np.ndarray]:
-    """Return, per entry, the first and last snapshot of its object's unbroken presence there."""
+def _presence_runs(snaps: Snapshots) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Return every unbroken run of presence: sorted keys ``object * width + first``, first, last.
+
+    ``width`` is ``n_snapshots + 1``; the run holding object o at snapshot t is
+    the last whose key is at most ``o * width + t``.
+    """
     order = snaps.object_order()
     if order.size == 0:
-        return np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64)
-    obj, snap = snaps.obj[order], snaps.snap[order]
+        empty = np.zeros(0, dtype=np.int64)
+        return empty, empty, empty
+    obj, snap = snaps.obj[order].astype(np.int64), snaps.snap[order]
     start = np.ones(order.size, dtype=bool)
     start[1:] = (obj[1:] != obj[:-1]) | (snap[1:] != snap[:-1] + 1)
-    run = np.cumsum(start) - 1
     starts = np.flatnonzero(start)
     ends = np.append(starts[1:] - 1, order.size - 1)
-    first = np.empty(order.size, dtype=np.int64)
-    last = np.empty(order.size, dtype=np.int64)
-    first[order] = snap[starts][run]
-    last[order] = snap[ends][run]
-    return first, last
+    width = np.int64(snaps.n_snapshots + 1)
+    return obj[starts] * width + snap[starts], snap[starts], snap[ends]
 
 
 def evidence_links(
@@ -199,20 +210,25 @@ def evidence_links(
     together = together_snapshots(snaps, pairs, motion, params)
     oi, oj = snaps.obj[i].astype(np.int64), snaps.obj[j].astype(np.int64)
     n_obj = np.int64(len(snaps.objects))
-    _, pair_id = np.unique(np.minimum(oi, oj) * n_obj + np.maximum(oi, oj), return_inverse=True)
-    t = snaps.snap[i].astype(np.int64)
     width = np.int64(snaps.n_snapshots + 1)
-    key = pair_id.astype(np.int64) * width + t
-    # pairs come in snapshot order: a stable sort by pair gives (pair, snapshot) order
-    order = np.argsort(pair_id, kind="stable")
-    key_sorted = key[order]
+    pair_key = np.minimum(oi, oj) * n_obj + np.maximum(oi, oj)
+    if float(n_obj) ** 2 * float(width) >= 2.0**62:  # too wide for one integer key: renumber
+        pair_key = np.unique(pair_key, return_inverse=True)[1].astype(np.int64)
+    t = snaps.snap[i].astype(np.int64)
+    # rows in (pair, snapshot) order: each pair's snapshots in time, searched in order
+    key = pair_key * width + t
+    order = np.argsort(key)
+    key, t, oi, oj = key[order], t[order], oi[order], oj[order]
     count = np.concatenate([[0], np.cumsum(together[order], dtype=np.int64)])
-    first, last = _presence_runs(snaps)
+    run_key, run_first, run_last = _presence_runs(snaps)
+    ri = np.searchsorted(run_key, oi * width + t, side="right") - 1
+    rj = np.searchsorted(run_key, oj * width + t, side="right") - 1
     h = evidence_reach(params.evidence_window, snaps.step_s)
-    lo = np.maximum(np.maximum(t - h, first[i]), first[j])
-    hi = np.minimum(np.minimum(t + h, last[i]), last[j])
+    lo = np.maximum(np.maximum(t - h, run_first[ri]), run_first[rj])
+    hi = np.minimum(np.minimum(t + h, run_last[ri]), run_last[rj])
     base = key - t
-    n_together = (count[np.searchsorted(key_sorted, base + hi, side="right")]
-                  - count[np.searchsorted(key_sorted, base + lo, side="left")])  # fmt: skip
-    link = n_together >= params.evidence_share * (hi - lo + 1) - 1e-9
+    n_together = (count[np.searchsorted(key, base + hi, side="right")]
+                  - count[np.searchsorted(key, base + lo, side="left")])  # fmt: skip
+    link = np.zeros(i.size, dtype=bool)
+    link[order] = n_together >= params.evidence_share * (hi - lo + 1) - 1e-9
     return NeighbourPairs(i[link], j[link], pairs.radius)
