@@ -16,13 +16,16 @@ that snapshot says so:
    ``min_abreast``, they walk side by side rather than in file: the line
    joining them makes at least that angle with their common heading
    (companions walk abreast or in a V, Moussaïd et al. 2010, while strangers
-   in a stream follow one another). When both are slower, nearness counts as
-   evidence only with ``standing_counts``: proximity of people standing,
-   queueing or parked says little about company.
+   in a stream follow one another). When both are slower, nearness is
+   weighed as ``standing`` says: ``"together"`` (resting animals, players
+   marking at a stoppage), ``"ignored"`` (neither for nor against: people who
+   walked together and stop keep their evidence, strangers standing side by
+   side gain none) or ``"apart"`` (queues of vehicles at lights).
 3. **Persistently.** A snapshot at which the pair is near and moves alike is a
    *together* snapshot. The pair is linked at snapshot t when together
    snapshots make up at least ``evidence_share`` of the snapshots within
-   ``evidence_window / 2`` of t at which both are present without a break.
+   ``evidence_window / 2`` of t at which both are present without a break
+   (ignored snapshots left out; with none left there is no evidence).
    The window is centred, so the rule reads the same forwards and backwards in
    time.
 
@@ -90,7 +93,7 @@ def _kth_nearest(ends: np.ndarray, dist: np.ndarray, n_entries: int, k: int) -> 
 
 def together_snapshots(
     snaps: Snapshots, pairs: NeighbourPairs, motion: Motion, params
-) -> np.ndarray:
+) -> tuple[np.ndarray, np.ndarray]:
     """Return, per neighbour pair, whether the pair is near and moves alike there.
 
     Parameters
@@ -104,12 +107,14 @@ def together_snapshots(
         Velocity of every entry.
     params : GroupParams
         ``radius``, ``nearest``, ``min_speed``, ``max_heading``,
-        ``max_speed_ratio``, ``min_abreast`` and ``standing_counts``.
+        ``max_speed_ratio``, ``min_abreast`` and ``standing``.
 
     Returns
     -------
-    ndarray of bool
-        One value per pair, in the order of ``pairs``.
+    together, ignored : ndarray of bool
+        Per pair, in the order of ``pairs``: whether the pair is together
+        there, and whether the snapshot is left out of its evidence (both
+        slow and near, with ``standing="ignored"``).
     """
     i, j = pairs.i, pairs.j
     dx = snaps.x[j] - snaps.x[i]
@@ -137,9 +142,12 @@ def together_snapshots(
             sine = np.abs(dx * hy - dy * hx) / (np.sqrt(hx * hx + hy * hy) * d)
             alike &= ~(sine < np.sin(np.radians(params.min_abreast)) - 1e-12)
     together = near & alike
-    if params.standing_counts:
-        together |= near & ~moving
-    return together
+    with np.errstate(invalid="ignore"):  # unknown speeds count as slow
+        resting = near & ~(si > params.min_speed) & ~(sj > params.min_speed)
+    if params.standing == "together":
+        together |= resting
+    ignored = resting if params.standing == "ignored" else np.zeros(i.size, dtype=bool)
+    return together, ignored
 
 
 def _presence_runs(snaps: Snapshots) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -177,7 +185,7 @@ def evidence_links(
     params : GroupParams
         Link distance, motion predicates and the evidence settings
         (``evidence_window``, ``evidence_share``, ``nearest``, ``min_abreast``,
-        ``standing_counts``).
+        ``standing``).
 
     Returns
     -------
@@ -187,10 +195,11 @@ def evidence_links(
     Notes
     -----
     With ``h`` = :func:`evidence_reach` snapshots, pair (a, b) at snapshot t is
-    linked when ``T >= evidence_share * P``, where P counts the snapshots
-    ``max(t - h, fa, fb) .. min(t + h, la, lb)`` (``[fa, la]`` and ``[fb, lb]``
-    are the unbroken presence runs of a and b that hold t) and T counts those of
-    them at which the pair is together (:func:`together_snapshots`). Every
+    linked when ``P > 0`` and ``T >= evidence_share * P``, where P counts the
+    snapshots ``max(t - h, fa, fb) .. min(t + h, la, lb)`` (``[fa, la]`` and
+    ``[fb, lb]`` are the unbroken presence runs of a and b that hold t) less
+    the ignored ones, and T counts those at which the pair is together
+    (:func:`together_snapshots`). Every
     pair of every snapshot is counted at once: the together flags are summed
     cumulatively per object pair, in time order, and each window is a
     difference of two cumulative sums found by binary search.
@@ -207,7 +216,7 @@ def evidence_links(
     i, j = pairs.i, pairs.j
     if i.size == 0:
         return NeighbourPairs(i, j, pairs.radius)
-    together = together_snapshots(snaps, pairs, motion, params)
+    together, ignored = together_snapshots(snaps, pairs, motion, params)
     oi, oj = snaps.obj[i].astype(np.int64), snaps.obj[j].astype(np.int64)
     n_obj = np.int64(len(snaps.objects))
     width = np.int64(snaps.n_snapshots + 1)
@@ -220,6 +229,7 @@ def evidence_links(
     order = np.argsort(key)
     key, t, oi, oj = key[order], t[order], oi[order], oj[order]
     count = np.concatenate([[0], np.cumsum(together[order], dtype=np.int64)])
+    left_out = np.concatenate([[0], np.cumsum(ignored[order], dtype=np.int64)])
     run_key, run_first, run_last = _presence_runs(snaps)
     ri = np.searchsorted(run_key, oi * width + t, side="right") - 1
     rj = np.searchsorted(run_key, oj * width + t, side="right") - 1
@@ -227,8 +237,10 @@ def evidence_links(
     lo = np.maximum(np.maximum(t - h, run_first[ri]), run_first[rj])
     hi = np.minimum(np.minimum(t + h, run_last[ri]), run_last[rj])
     base = key - t
-    n_together = (count[np.searchsorted(key, base + hi, side="right")]
-                  - count[np.searchsorted(key, base + lo, side="left")])  # fmt: skip
+    upper = np.searchsorted(key, base + hi, side="right")
+    lower = np.searchsorted(key, base + lo, side="left")
+    weighed = hi - lo + 1 - (left_out[upper] - left_out[lower])
     link = np.zeros(i.size, dtype=bool)
-    link[order] = n_together >= params.evidence_share * (hi - lo + 1) - 1e-9
+    link[order] = (weighed > 0) & (count[upper] - count[lower]
+                                   >= params.evidence_share * weighed - 1e-9)  # fmt: skip
     return NeighbourPairs(i[link], j[link], pairs.radius)

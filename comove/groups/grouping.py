@@ -32,6 +32,7 @@ from comove.tracks.neighbours import NeighbourPairs
 
 GROUP_MODES = ("clique", "component", "dbscan")
 LINK_RULES = ("evidence", "snapshot")
+STANDING = ("together", "ignored", "apart")
 
 
 @dataclass(frozen=True)
@@ -75,10 +76,10 @@ class GroupParams:
         ``"evidence"``: least angle in degrees between the line joining two
         moving objects and their common heading (side by side is 90); ``None``
         switches the predicate off.
-    standing_counts : bool, default True
-        ``"evidence"``: whether nearness while both are slower than
-        ``min_speed`` counts as being together (as distance alone links slow
-        objects in ``"snapshot"`` links); presets for crowds switch it off.
+    standing : {"together", "ignored", "apart"}, default "together"
+        ``"evidence"``: how a snapshot at which both are near and slower than
+        ``min_speed`` is weighed: as together (as distance alone links slow
+        objects in ``"snapshot"`` links), left out of the evidence, or as apart.
     """
 
     radius: float = field(metadata={"help": "link distance in metres (inclusive)"})
@@ -127,10 +128,11 @@ class GroupParams:
         metadata={"help": "evidence links: least angle in degrees between the line joining "
                   "two movers and their heading (negative: off)"},
     )  # fmt: skip
-    standing_counts: bool = field(
-        default=True,
-        metadata={"help": "evidence links: nearness while both stand counts as together"},
-    )
+    standing: str = field(
+        default="together",
+        metadata={"help": "evidence links: nearness while both are slow counts as together, "
+                  "is ignored, or counts as apart"},
+    )  # fmt: skip
 
     def __post_init__(self) -> None:
         # a negative value switches a predicate off, so that flags can say so too
@@ -161,6 +163,9 @@ class GroupParams:
             raise bad_setting("evidence_share", "must be a share above 0 and at most 1")
         if int(self.nearest) != self.nearest or self.nearest < 0:
             raise bad_setting("nearest", "must be a whole number, 0 to switch it off")
+        if self.standing not in STANDING:
+            raise bad_setting("standing", f"must be one of {', '.join(STANDING)}, "
+                              f"not {self.standing!r}")  # fmt: skip
         if self.min_abreast is not None and not (0 <= self.min_abreast <= 90):
             raise bad_setting("min_abreast", "must be between 0 and 90 degrees")
 

@@ -53,11 +53,11 @@ PRESETS: dict[str, Preset] = {
                 "min_duration": 4.0,
                 "tolerance": 2.0,
                 "links": "evidence",
-                "evidence_window": 8.0,
-                "evidence_share": 0.5,
+                "evidence_window": 30.0,
+                "evidence_share": 0.4,
                 "nearest": 3,
                 "min_abreast": 15.0,
-                "standing_counts": False,
+                "standing": "ignored",
             },
             why={
                 "radius": "Hall's proxemics: personal distance, kept among companions, ends "
@@ -78,11 +78,11 @@ PRESETS: dict[str, Preset] = {
                 "(common practice)",
                 "links": "a pair is judged on its own recent history, not on one moment: "
                 "wherever people stand, queue or crowd, a moment's nearness chains strangers",
-                "evidence_window": "8 s, about ten strides: longer than falling in step with "
-                "a stranger for a moment, shorter than a typical crossing of a scene (common "
-                "practice)",
-                "evidence_share": "together more often than not within the window (a "
-                "majority rule, common practice)",
+                "evidence_window": "half a minute, about 40 m at walking pace: strangers fall "
+                "in step for seconds, companions keep together for as long as both are in "
+                "view (common practice)",
+                "evidence_share": "together at 40 % of the window or more: companions weave "
+                "round others, fall behind or spread out much of the time (common practice)",
                 "nearest": "companions are among each other's nearest: pedestrian groups are "
                 "mostly of two to four (Moussaid et al. 2010), so three nearest reach every "
                 "neighbour in a group of four; mutual nearest neighbours after Brito et al. 1997",
@@ -90,8 +90,9 @@ PRESETS: dict[str, Preset] = {
                 "strangers in a stream one behind another; a follower straight behind appears "
                 "within about 10 degrees of the line of walking (half a 0.45 m shoulder "
                 "breadth at 1.2 m) plus a few degrees of sway, hence 15 (common practice)",
-                "standing_counts": "no: people standing or queueing keep personal distances "
-                "from strangers too (Hall 1966), so nearness while standing is not evidence",
+                "standing": "ignored: people standing or queueing keep personal distances "
+                "from strangers too (Hall 1966), so nearness at rest is no evidence either way; "
+                "companions who stop keep the evidence of their walk",
             },
         ),
         Preset(
@@ -112,7 +113,7 @@ PRESETS: dict[str, Preset] = {
                 "evidence_share": 0.5,
                 "nearest": 3,
                 "min_abreast": None,
-                "standing_counts": True,
+                "standing": "together",
             },
             why={
                 "radius": "GNSS player tracking errs by about 1–1.5 m per position, so "
@@ -133,7 +134,7 @@ PRESETS: dict[str, Preset] = {
                 "nearest": "in a crowded penalty area close means closer than the other "
                 "players: each among the other's three nearest (common practice)",
                 "min_abreast": "off: players run in file as often as abreast",
-                "standing_counts": "yes: a marker stays with a forward whether both run, jog or "
+                "standing": "together: a marker stays with a forward whether both run, jog or "
                 "stand, and stoppages are short against the window; the three-nearest rule "
                 "keeps a crowded set piece from linking everyone (common practice)",
             },
@@ -156,7 +157,7 @@ PRESETS: dict[str, Preset] = {
                 "evidence_share": 0.5,
                 "nearest": 3,
                 "min_abreast": None,
-                "standing_counts": False,
+                "standing": "apart",
             },
             why={
                 "radius": "the two-second following headway (common practice in driver "
@@ -175,7 +176,8 @@ PRESETS: dict[str, Preset] = {
                 "among the other's three nearest, the vehicles ahead and behind and one "
                 "alongside (common practice)",
                 "min_abreast": "off: convoys drive in file",
-                "standing_counts": "no: vehicles queueing at lights or parked are not a convoy",
+                "standing": "apart: vehicles queueing at lights or parked are not a convoy, and "
+                "a queue moving off in file would otherwise look like one",
             },
         ),
         Preset(
@@ -196,7 +198,7 @@ PRESETS: dict[str, Preset] = {
                 "evidence_share": 0.5,
                 "nearest": 0,
                 "min_abreast": None,
-                "standing_counts": True,
+                "standing": "together",
             },
             why={
                 "radius": "proximity thresholds of 50–100 m are widely used for "
@@ -216,7 +218,7 @@ PRESETS: dict[str, Preset] = {
                 "evidence_share": "together more often than not (common practice)",
                 "nearest": "off: a herd is a group, so every animal near is a companion",
                 "min_abreast": "off: no headings between hourly fixes",
-                "standing_counts": "yes: resting together is association for animals",
+                "standing": "together: resting together is association for animals",
             },
         ),
     )

@@ -27,6 +27,7 @@ def loop_links(x, y, present, vx, vy, gp: GroupParams) -> set[tuple[int, int, in
     n_snap, n_obj = x.shape
     h = evidence_reach(gp.evidence_window, 1.0)
     together = np.zeros((n_snap, n_obj, n_obj), dtype=bool)
+    ignored = np.zeros((n_snap, n_obj, n_obj), dtype=bool)
     near_any = np.zeros((n_snap, n_obj, n_obj), dtype=bool)
     for s in range(n_snap):
         here = np.flatnonzero(present[s])
@@ -49,7 +50,9 @@ def loop_links(x, y, present, vx, vy, gp: GroupParams) -> set[tuple[int, int, in
                     alike &= np.degrees(np.arccos(np.clip(cos, -1, 1))) <= gp.max_heading + 1e-6
                 if moving and gp.max_speed_ratio is not None:
                     alike &= max(sa, sb) / min(sa, sb) <= gp.max_speed_ratio * (1 + 1e-12)
-                together[s, a, b] = near and (alike or (gp.standing_counts and not moving))
+                slow = not sa > gp.min_speed and not sb > gp.min_speed  # NaN is slow
+                together[s, a, b] = near and (alike or (gp.standing == "together" and slow))
+                ignored[s, a, b] = near and slow and gp.standing == "ignored"
     links = set()
     for s, a, b in zip(*np.nonzero(near_any), strict=True):
         window = []
@@ -59,7 +62,11 @@ def loop_links(x, y, present, vx, vy, gp: GroupParams) -> set[tuple[int, int, in
                 window.append(k)
                 k += step
         window.append(s)
-        if sum(together[k, a, b] for k in window) >= gp.evidence_share * len(window) - 1e-9:
+        weighed = [k for k in window if not ignored[k, a, b]]
+        if (
+            weighed
+            and sum(together[k, a, b] for k in weighed) >= gp.evidence_share * len(weighed) - 1e-9
+        ):
             links.add((int(a), int(b), int(s)))
     return links
 
@@ -80,7 +87,7 @@ def velocity_grid(snaps, motion, shape):
 @settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(seed=st.integers(0, 10_000), nearest=st.integers(0, 3),
        window=st.sampled_from([0.0, 2.0, 5.0, 9.0]), share=st.sampled_from([0.3, 0.5, 0.8, 1.0]),
-       standing=st.booleans())  # fmt: skip
+       standing=st.sampled_from(["together", "ignored", "apart"]))  # fmt: skip
 def test_links_equal_a_loop_over_pairs_and_windows(seed, nearest, window, share, standing):
     rng = np.random.default_rng(seed)
     n_snap, n_obj = 30, 6
@@ -90,7 +97,7 @@ def test_links_equal_a_loop_over_pairs_and_windows(seed, nearest, window, share,
     snaps = grid_scene(x, y, np.zeros((n_snap, n_obj), int), present, 1)
     gp = GroupParams(radius=2.0, min_speed=0.3, max_heading=60.0, max_speed_ratio=2.0,
                      velocity_window=3.0, evidence_window=window, evidence_share=share,
-                     nearest=nearest, standing_counts=standing)  # fmt: skip
+                     nearest=nearest, standing=standing)  # fmt: skip
     motion = entry_motion(snaps, gp.velocity_window)
     links = evidence_links(snaps, neighbour_pairs(snaps, gp.radius), motion, gp)
     vx, vy = velocity_grid(snaps, motion, x.shape)
@@ -104,7 +111,7 @@ def test_ranks_count_ties_alike_whatever_the_numbering():
     snaps = grid_scene(x, y, np.zeros((1, 4), int), np.ones((1, 4), bool), 1)
     motion = entry_motion(snaps, 1.0)
     gp = GroupParams(radius=1.2, nearest=1, min_speed=0.0, evidence_window=0.0)
-    together = together_snapshots(snaps, neighbour_pairs(snaps, 1.2), motion, gp)
+    together, _ = together_snapshots(snaps, neighbour_pairs(snaps, 1.2), motion, gp)
     # the sides (length 1) tie as each corner's nearest: all four are near; no diagonal pair
     assert together.sum() == 4
 
@@ -154,7 +161,7 @@ def test_time_reversal_mirrors_the_links(seed):
     present = np.ones((n_snap, n_obj), dtype=bool)
     gp = GroupParams(radius=2.0, min_speed=0.3, max_heading=45.0, max_speed_ratio=1.5,
                      velocity_window=3.0, evidence_window=6.0, min_abreast=15.0,
-                     standing_counts=False)  # fmt: skip
+                     standing="ignored")  # fmt: skip
     found = []
     for xs, ys in ((x, y), (x[::-1], y[::-1])):
         snaps = grid_scene(xs, ys, np.zeros((n_snap, n_obj), int), present, 1)
@@ -186,13 +193,23 @@ def test_a_moment_together_is_not_a_link_and_a_walk_together_is():
     assert any("d" in m for m in moment.episodes["members"])  # the moment alone links d
 
 
-def test_strangers_standing_close_are_not_linked_unless_standing_counts():
-    t = np.arange(0.0, 30.0)
-    frame = pd.concat([pd.DataFrame({"id": k, "time": t, "x": 0.7 * i, "y": 0.0})
-                       for i, k in enumerate("abc")])  # fmt: skip
-    assert groups(frame, preset="pedestrians", step=1.0).episodes.empty
-    kept = groups(frame, preset="pedestrians", step=1.0, standing_counts=True)
-    assert set(kept.episodes["members"]) == {"a;b;c"}
+def test_standing_near_is_evidence_only_when_it_counts_as_together():
+    # three stand 0.7 m apart for a minute; a and b walked in together, c walked in alone
+    t = np.arange(0.0, 80.0)
+    walk = np.minimum(t, 20.0) * 1.2 - 24.0  # walk 20 s, then stand
+    frame = pd.concat([
+        pd.DataFrame({"id": "a", "time": t, "x": walk, "y": 0.0}),
+        pd.DataFrame({"id": "b", "time": t, "x": walk, "y": 0.7}),
+        pd.DataFrame({"id": "c", "time": t, "x": 0.0, "y": np.minimum(t, 20.0) * 1.2 - 22.6}),
+    ])  # fmt: skip
+    ignored = groups(frame, preset="pedestrians", step=1.0, permutations=0)
+    assert set(ignored.episodes["members"]) == {"a;b"}  # c gains nothing by standing there
+    apart = groups(frame, preset="pedestrians", step=1.0, standing="apart", permutations=0)
+    ends = apart.episodes.set_index("members")["end"]
+    assert ends["a;b"] < ignored.episodes.set_index("members")["end"]["a;b"]
+    together = groups(frame, preset="pedestrians", step=1.0, standing="together",
+                      permutations=0)  # fmt: skip
+    assert "a;b;c" in set(together.episodes["members"])
 
 
 def test_bad_evidence_settings():
@@ -200,6 +217,7 @@ def test_bad_evidence_settings():
 
     for bad in (dict(links="hunch"), dict(evidence_share=0.0), dict(evidence_share=1.5),
                 dict(nearest=-1), dict(nearest=1.5), dict(min_abreast=120.0),
+                dict(standing="sometimes"),
                 dict(evidence_window=float("nan"))):  # fmt: skip
         with pytest.raises(InputError):
             GroupParams(radius=1.0, **bad)

@@ -98,7 +98,7 @@ def test_dense_crowd_groups_are_told_from_strangers():
     precision, recall, f1 = scores(predicted_pairs(found, str), planted)
     print(f"\ndense crowd, preset pedestrians: precision {precision:.3f}, recall {recall:.3f}, "
           f"F1 {f1:.3f}")  # fmt: skip
-    assert recall >= 0.95 and f1 >= 0.80
+    assert precision >= 0.85 and recall >= 0.95
     # judged on the moment alone, strangers standing, queueing and streaming chain together
     moment = groups(source, preset="pedestrians", links="snapshot", **options)
     assert scores(predicted_pairs(moment, str), planted)[0] < 0.3
