@@ -16,8 +16,8 @@ that snapshot says so:
    ``min_abreast``, they walk side by side rather than in file: the line
    joining them makes at least that angle with their common heading
    (companions walk abreast or in a V, Moussaïd et al. 2010, while strangers
-   in a stream follow one another). When both are slower, nearness is
-   weighed as ``standing`` says: ``"together"`` (resting animals, players
+   in a stream follow one another). When they are not both moving, nearness
+   is weighed as ``standing`` says: ``"together"`` (resting animals, players
    marking at a stoppage), ``"ignored"`` (neither for nor against: people who
    walked together and stop keep their evidence, strangers standing side by
    side gain none) or ``"apart"`` (queues of vehicles at lights).
@@ -68,26 +68,32 @@ def _kth_nearest(ends: np.ndarray, dist: np.ndarray, n_entries: int, k: int) -> 
     d <= the k-th smallest distance: the rank test needs no sort, only k
     passes of a minimum per entry.
     """
+    degree = np.bincount(ends, minlength=n_entries)
+    # with k neighbours or fewer every partner is among the k nearest: only the
+    # busier entries are looked at, renumbered compactly
+    busy = np.flatnonzero(degree > k)
     kth = np.full(n_entries, np.inf)
-    need = np.full(n_entries, k, dtype=np.int64)
-    degree = np.zeros(n_entries, dtype=np.int64)
-    np.add.at(degree, ends, 1)
-    # with k neighbours or fewer every partner is among the k nearest
-    alive = degree[ends] > k
+    if busy.size == 0:
+        return kth
+    compact = np.full(n_entries, -1, dtype=np.int64)
+    compact[busy] = np.arange(busy.size)
+    rows = np.flatnonzero(degree[ends] > k)
+    e, d = compact[ends[rows]], dist[rows]
+    found = np.full(busy.size, np.inf)
+    need = np.full(busy.size, k, dtype=np.int64)
     for _ in range(k):
-        e, d = ends[alive], dist[alive]
         if e.size == 0:
             break
-        low = np.full(n_entries, np.inf)
+        low = np.full(busy.size, np.inf)
         np.minimum.at(low, e, d)
         at_low = d == low[e]
-        count = np.zeros(n_entries, dtype=np.int64)
-        np.add.at(count, e[at_low], 1)
+        count = np.bincount(e[at_low], minlength=busy.size)
         reached = (count >= need) & (need > 0)
-        kth[reached] = low[reached]
+        found[reached] = low[reached]
         need = np.where(count >= need, 0, need - count)
         keep = ~at_low & (need[e] > 0)
-        alive[np.flatnonzero(alive)[~keep]] = False
+        e, d = e[keep], d[keep]
+    kth[busy] = found
     return kth
 
 
@@ -113,8 +119,8 @@ def together_snapshots(
     -------
     together, ignored : ndarray of bool
         Per pair, in the order of ``pairs``: whether the pair is together
-        there, and whether the snapshot is left out of its evidence (both
-        slow and near, with ``standing="ignored"``).
+        there, and whether the snapshot is left out of its evidence (near,
+        not both moving, with ``standing="ignored"``).
     """
     i, j = pairs.i, pairs.j
     dx = snaps.x[j] - snaps.x[i]
@@ -142,8 +148,7 @@ def together_snapshots(
             sine = np.abs(dx * hy - dy * hx) / (np.sqrt(hx * hx + hy * hy) * d)
             alike &= ~(sine < np.sin(np.radians(params.min_abreast)) - 1e-12)
     together = near & alike
-    with np.errstate(invalid="ignore"):  # unknown speeds count as slow
-        resting = near & ~(si > params.min_speed) & ~(sj > params.min_speed)
+    resting = near & ~moving  # not both moving (unknown speeds count as slow)
     if params.standing == "together":
         together |= resting
     ignored = resting if params.standing == "ignored" else np.zeros(i.size, dtype=bool)

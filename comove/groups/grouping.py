@@ -77,8 +77,8 @@ class GroupParams:
         moving objects and their common heading (side by side is 90); ``None``
         switches the predicate off.
     standing : {"together", "ignored", "apart"}, default "together"
-        ``"evidence"``: how a snapshot at which both are near and slower than
-        ``min_speed`` is weighed: as together (as distance alone links slow
+        ``"evidence"``: how a snapshot at which the two are near but not both
+        faster than ``min_speed`` is weighed: as together (as distance alone links slow
         objects in ``"snapshot"`` links), left out of the evidence, or as apart.
     """
 
@@ -130,7 +130,7 @@ class GroupParams:
     )  # fmt: skip
     standing: str = field(
         default="together",
-        metadata={"help": "evidence links: nearness while both are slow counts as together, "
+        metadata={"help": "evidence links: nearness while not both move counts as together, "
                   "is ignored, or counts as apart"},
     )  # fmt: skip
 

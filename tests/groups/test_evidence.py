@@ -50,7 +50,7 @@ def loop_links(x, y, present, vx, vy, gp: GroupParams) -> set[tuple[int, int, in
                     alike &= np.degrees(np.arccos(np.clip(cos, -1, 1))) <= gp.max_heading + 1e-6
                 if moving and gp.max_speed_ratio is not None:
                     alike &= max(sa, sb) / min(sa, sb) <= gp.max_speed_ratio * (1 + 1e-12)
-                slow = not sa > gp.min_speed and not sb > gp.min_speed  # NaN is slow
+                slow = not moving  # one of them (or both) slow; NaN is slow
                 together[s, a, b] = near and (alike or (gp.standing == "together" and slow))
                 ignored[s, a, b] = near and slow and gp.standing == "ignored"
     links = set()
@@ -222,3 +222,24 @@ def test_bad_evidence_settings():
         with pytest.raises(InputError):
             GroupParams(radius=1.0, **bad)
     assert GroupParams(radius=1.0, min_abreast=-1).min_abreast is None
+
+
+@pytest.mark.parametrize("seed", [11, 12, 13])
+def test_without_history_the_evidence_rule_is_the_snapshot_rule(seed):
+    # a window of one snapshot, nearest off and standing counted as together: the
+    # links judged on the moment alone (grouping.linked_pairs), pair for pair
+    from comove.groups.grouping import linked_pairs
+
+    rng = np.random.default_rng(seed)
+    x, y, present = random_walkers(rng, 8, 40)
+    snaps = grid_scene(x * 0.7, y * 0.7, np.zeros((40, 8), int), present, 1)
+    gp = GroupParams(radius=2.0, min_speed=0.4, max_heading=50.0, max_speed_ratio=1.8,
+                     velocity_window=3.0, evidence_window=0.0, nearest=0,
+                     standing="together")  # fmt: skip
+    pairs = neighbour_pairs(snaps, gp.radius)
+    motion = entry_motion(snaps, gp.velocity_window)
+    evidence = evidence_links(snaps, pairs, motion, gp)
+    moment = linked_pairs(pairs, motion, gp)
+    np.testing.assert_array_equal(evidence.i, moment.i)
+    np.testing.assert_array_equal(evidence.j, moment.j)
+    assert 0 < moment.i.size < pairs.i.size
