@@ -60,6 +60,20 @@ QUIET_CLUSTER: dict[str, Any] = {
     "silence_logs": logging.CRITICAL,
 }
 
+
+def _quiet_console_logs() -> None:
+    """Keep dask.distributed's console logs in this process to critical ones, for good.
+
+    A local cluster silences them while it runs and puts them back as it closes;
+    a connection its loop closes a moment later (after a stopped run, say) then
+    printed an informational traceback below the run's one line. The cluster
+    runs in this process, so its logs stay quiet for the rest of it.
+    """
+    for handler in logging.getLogger("distributed").handlers:
+        if isinstance(handler, logging.StreamHandler):
+            handler.setLevel(logging.CRITICAL)
+
+
 #: What to install where, said by every message about a cluster's environment.
 _INSTALL = (
     'install the same comove (and the dask extra: pip install "comove[dask]") on the '
@@ -224,6 +238,7 @@ class DaskEngine:
             return
         from comove.stats.engine import resolve_jobs
 
+        _quiet_console_logs()
         with dask.config.set({"distributed.scheduler.allowed-failures": self.worker_deaths}):
             cluster = LocalCluster(
                 n_workers=resolve_jobs(self.jobs), threads_per_worker=1, processes=True,
