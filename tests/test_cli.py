@@ -226,9 +226,16 @@ def test_mine_significance_and_cross_k_options(tracks_csv, tmp_path, capsys):
     )
     assert code == 0, err
     patterns = pd.read_csv(out_dir / "patterns.csv")
-    assert {"p_value", "q_value", "null_mean", "null_sd", "effect", "significant"} <= set(
-        patterns.columns
-    )
+    assert {
+        "p_value",
+        "q_value",
+        "null_mean",
+        "null_sd",
+        "difference",
+        "standardised_effect",
+        "ratio",
+        "significant",
+    } <= set(patterns.columns)
     assert patterns["p_value"].between(1 / 50, 1).all()
     cross = pd.read_csv(out_dir / "cross_k.csv")
     assert sorted(cross["radius_m"].unique()) == [1.0, 2.0, 3.0]
@@ -273,7 +280,7 @@ def test_groups_tests_pairs_and_role_sets(tracks_csv, tmp_path, capsys):
     )
     assert code == 0, err
     dyads = pd.read_csv(out_dir / "dyads.csv").set_index(["object_a", "object_b"])
-    assert {"p_value", "q_value", "effect"} <= set(dyads.columns)
+    assert {"p_value", "q_value", "standardised_effect", "statistic"} <= set(dyads.columns)
     # each dog with its owner: together every snapshot, never so in a shifted replicate
     assert dyads.loc[("a0", "a2"), "p_value"] == pytest.approx(1 / 40)
     roles = pd.read_csv(out_dir / "episode_roles.csv")

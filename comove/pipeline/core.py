@@ -520,8 +520,8 @@ def groups(
             if pair_tests is not None:
                 dyads = dyads.merge(pair_tests, on=["object_a", "object_b"], how="left",
                                     validate="1:1")  # fmt: skip
-            roles = roles.merge(role_tests.drop(columns="episodes"), on="roles", how="left",
-                                validate="1:1")  # fmt: skip
+            roles = roles.merge(role_tests.drop(columns=["episodes", "together_s"]), on="roles",
+                                how="left", validate="1:1")  # fmt: skip
     finally:
         bar.close()
     settings = settings_record(columns, cleaning, _effective(snaps), *stages[3:8], run_params)

@@ -96,6 +96,7 @@ def role_chain(
     min_prevalent_snapshots: int = 0,
     pairs: NeighbourPairs | None = None,
     workers: int = 1,
+    only: dict[int, np.ndarray] | None = None,
 ) -> RoleTally:
     """Return the co-location tally of the role sets in ``snaps`` (a chunk or a whole run).
 
@@ -115,6 +116,10 @@ def role_chain(
         has them (a sweep takes them from one search at its largest radius).
     workers : int, default 1
         Threads of the neighbour search (-1: every core).
+    only : dict, optional
+        Size -> codes of the only sets of 3 or more roles to mine (see
+        :func:`~comove.roles.colocation.mine_levels`): what a null replicate
+        needs of the tested sets.
 
     Returns
     -------
@@ -143,7 +148,7 @@ def role_chain(
         pairs = neighbour_pairs(snaps, colocation.radius, workers=workers)
     presence = RolePresence(snaps)
     levels = mine_levels(snaps, pairs, colocation, min_prevalent_snapshots=min_prevalent_snapshots,
-                         presence=presence)  # fmt: skip
+                         presence=presence, only=only)  # fmt: skip
     return RoleTally(
         levels=[_without_instances(level) for level in levels],
         presence=presence,

@@ -388,6 +388,7 @@ def mine_levels(
     params: ColocationParams,
     min_prevalent_snapshots: int = 1,
     presence: RolePresence | None = None,
+    only: dict[int, np.ndarray] | None = None,
 ) -> list[LevelResult]:
     """Return per-snapshot co-location of every candidate role set, level by level.
 
@@ -406,6 +407,10 @@ def mine_levels(
         instance (what a time chunk needs, see :mod:`comove.roles.chain`).
     presence : RolePresence, optional
         Role presence of ``snaps``, when the caller already has it.
+    only : dict, optional
+        Size -> codes (:func:`encode_role_sets`) of the only sets of that size
+        (3 and more) to extend to; a family closed under subsets (a set of
+        tested role sets) keeps every one of its sets exact.
 
     Returns
     -------
@@ -453,6 +458,10 @@ def mine_levels(
     for _size in range(3, params.max_size + 1):  # one pass per set size
         keep = level.prevalent >= int(min_prevalent_snapshots)
         candidates = _candidates(level.roles, keep)
+        if only is not None:
+            allowed = only.get(_size, np.zeros(0, dtype=np.int64))
+            codes = encode_role_sets(candidates, len(snaps.roles))
+            candidates = candidates[np.isin(codes, allowed)]
         if candidates.shape[0] == 0:
             break
         level = _next_level(snaps, level, keep, candidates, edge_keys, role_counts, presence,

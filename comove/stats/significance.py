@@ -44,8 +44,10 @@ from comove.tracks.alignment import Snapshots
 NULL_MODELS = ("time-shift", "role-shuffle")
 
 #: Columns every family of tests adds to its table.
-TEST_COLUMNS = ["p_value", "q_value", "null_mean", "null_sd", "effect", "significant"]
+TEST_COLUMNS = ["statistic", "p_value", "q_value", "null_mean", "null_sd", "difference",
+                "standardised_effect", "ratio", "significant"]  # fmt: skip
 SHIFT_SPANS = ("period", "object")
+STATISTICS = ("continuous", "count")
 
 
 @dataclass(frozen=True)
@@ -68,6 +70,13 @@ class SignificanceParams:
         apart).
     alpha : float, default 0.05
         False discovery rate for the ``significant`` column.
+    statistic : {"continuous", "count"}, default "continuous"
+        What is tested of a role set: ``"continuous"``, its mean participation
+        index over the snapshots where all its roles are present (``mine``) and
+        the time together in its episodes (``groups``); ``"count"``, its time
+        prevalence and its number of episodes. A share of snapshots above a
+        threshold saturates near 1 (or 0) when the threshold is low (or high)
+        or crowding is high, and then has little power; the mean does not.
     """
 
     permutations: int = field(
@@ -86,6 +95,11 @@ class SignificanceParams:
                   "separator"},
     )  # fmt: skip
     alpha: float = field(default=0.05, metadata={"help": "false discovery rate for `significant`"})
+    statistic: str = field(
+        default="continuous",
+        metadata={"help": "what is tested of a role set: continuous (mean participation index; "
+                  "time together in episodes) or count (time prevalence; number of episodes)"},
+    )  # fmt: skip
 
     def __post_init__(self) -> None:
         if int(self.permutations) != self.permutations or self.permutations < 0:
@@ -98,6 +112,9 @@ class SignificanceParams:
             raise bad_setting("shuffle_strata", "must be a non-empty separator such as _")
         if not (0 < self.alpha < 1):
             raise bad_setting("alpha", "must be between 0 and 1")
+        if self.statistic not in STATISTICS:
+            raise bad_setting("statistic", f"must be one of {', '.join(STATISTICS)}, "
+                              f"not {self.statistic!r}")  # fmt: skip
 
 
 # --------------------------------------------------------------------------- null models
@@ -291,11 +308,18 @@ def monte_carlo_p(observed: np.ndarray, null: np.ndarray) -> np.ndarray:
     return (1.0 + exceed) / (1.0 + n)
 
 
-def summary_table(observed: np.ndarray, null: np.ndarray, alpha: float) -> pd.DataFrame:
-    """Return p_value, q_value, null_mean, null_sd, effect and significant per item.
+def summary_table(
+    observed: np.ndarray, null: np.ndarray, alpha: float, statistic: str
+) -> pd.DataFrame:
+    """Return the test columns (``TEST_COLUMNS``) per item; ``statistic`` names what was tested.
 
     ``q_value`` is the Benjamini–Hochberg adjusted p-value over all items, from
-    :func:`scipy.stats.false_discovery_control`.
+    :func:`scipy.stats.false_discovery_control`. Three effect sizes, each named
+    for what it is: ``difference`` = observed − null mean (in the statistic's
+    own unit), ``standardised_effect`` = difference / null sd (how many null
+    standard deviations above the null mean; infinite when the null never
+    varies and the observed differs, NaN when both agree) and ``ratio`` =
+    observed / null mean.
 
     References
     ----------
@@ -309,10 +333,17 @@ def summary_table(observed: np.ndarray, null: np.ndarray, alpha: float) -> pd.Da
     q = false_discovery_control(p, method="bh") if p.size else p.copy()
     mean = null.mean(axis=0) if null.size else np.full(observed.size, np.nan)
     sd = null.std(axis=0, ddof=1) if null.shape[0] > 1 else np.full(observed.size, np.nan)
+    difference = observed - mean
     with np.errstate(divide="ignore", invalid="ignore"):
-        effect = np.where(mean > 0, observed / mean, np.where(observed > 0, np.inf, np.nan))
+        ratio = np.where(mean > 0, observed / mean, np.where(observed > 0, np.inf, np.nan))
+        standardised = np.where(
+            sd > 0, difference / sd,
+            np.where(np.abs(difference) > 1e-12, np.sign(difference) * np.inf, np.nan),
+        )  # fmt: skip
     return pd.DataFrame({
-        "p_value": p, "q_value": q, "null_mean": mean, "null_sd": sd, "effect": effect,
+        "statistic": pd.Series([statistic] * p.size, dtype=object),
+        "p_value": p, "q_value": q, "null_mean": mean, "null_sd": sd, "difference": difference,
+        "standardised_effect": standardised, "ratio": ratio,
         # q-values of Monte Carlo p-values are exact fractions: one that equals alpha
         # is significant, whatever the last bit of its floating-point rounding
         "significant": q <= alpha * (1 + 1e-9),
@@ -323,31 +354,51 @@ def summary_table(observed: np.ndarray, null: np.ndarray, alpha: float) -> pd.Da
 
 
 @dataclass(frozen=True)
-class RoleSetPrevalence:
-    """Statistic: the time prevalence of fixed role sets in a replicate.
+class RoleSetStatistic:
+    """Statistic: the mean participation index or time prevalence of fixed role sets.
 
     Parameters
     ----------
     colocation : ColocationParams
         Radius, participation threshold and largest size.
     tested : tuple of ndarray
-        Role-code rows of the tested sets, one array per size (2, 3, ...).
+        Role-code rows of the tested sets, one array per size (2, 3, ...); a
+        family closed under subsets, as the sets with a prevalent snapshot are.
+    statistic : {"continuous", "count"}
+        Mean participation index, or time prevalence.
     """
 
     colocation: Any
     tested: tuple[np.ndarray, ...]
+    statistic: str = "continuous"
 
     def __call__(self, model: NullModel, rng: np.random.Generator) -> np.ndarray:
-        """Return the tested sets' time prevalence in one null replicate."""
+        """Return the tested sets' statistic in one null replicate.
+
+        Only the tested sets are mined beyond pairs; for the mean every set
+        with a row instance is extended, so that a tested set whose subsets
+        were never prevalent in the replicate still gets its mean.
+        """
         from comove.roles.chain import role_chain
 
         snaps, _ = model.draw(rng)
-        tally = role_chain(snaps, self.colocation, min_prevalent_snapshots=1)
-        return role_set_prevalence(tally.levels, self.tested, len(snaps.roles))
+        n_roles = len(snaps.roles)
+        only = {sets.shape[1]: encode_role_sets(sets, n_roles) for sets in self.tested}
+        continuous = self.statistic == "continuous"
+        tally = role_chain(snaps, self.colocation, min_prevalent_snapshots=0 if continuous else 1,
+                           only=only)  # fmt: skip
+        return role_set_values(tally.levels, self.tested, n_roles, self.statistic)
 
 
-def role_set_prevalence(levels: list, tested: tuple[np.ndarray, ...], n_roles: int) -> np.ndarray:
-    """Return the time prevalence of each tested role set in ``levels`` (0 where absent)."""
+def role_set_values(
+    levels: list, tested: tuple[np.ndarray, ...], n_roles: int, statistic: str = "count"
+) -> np.ndarray:
+    """Return each tested role set's statistic in ``levels`` (0 where absent).
+
+    ``"count"``: time prevalence, prevalent / present snapshots.
+    ``"continuous"``: mean participation index over the present snapshots
+    (the snapshots without a row instance count as 0).
+    """
     by_size = {lv.size: lv for lv in levels}
     out = []
     for sets in tested:
@@ -361,9 +412,13 @@ def role_set_prevalence(levels: list, tested: tuple[np.ndarray, ...], n_roles: i
             pos = np.minimum(pos, have.size - 1)
             hit = have[order][pos] == want
             rows = order[pos]
+            if statistic == "continuous":
+                total = np.bincount(level.set_id, weights=level.pi, minlength=level.roles.shape[0])
+            else:
+                total = level.prevalent.astype(np.float64)
             with np.errstate(invalid="ignore", divide="ignore"):
-                prevalence = level.prevalent / np.maximum(level.present, 1)
-            values[hit] = prevalence[rows[hit]]
+                value = np.where(level.present > 0, total / np.maximum(level.present, 1), 0.0)
+            values[hit] = value[rows[hit]]
         out.append(values)
     return np.concatenate(out) if out else np.empty(0)
 
@@ -403,22 +458,30 @@ def pattern_tests(
     Returns
     -------
     DataFrame
-        ``roles``, ``size``, ``time_prevalence`` and the columns of
-        :func:`summary_table`, sorted by p-value.
+        ``roles``, ``size``, ``time_prevalence``, ``mean_participation_index``
+        and the columns of :func:`summary_table` (``statistic`` names the one
+        tested), sorted by p-value.
     """
     from comove.roles.persistence import role_label
 
+    n_roles = len(snaps.roles)
     tested = tuple(lv.roles[lv.prevalent >= 1] for lv in observed.levels)
-    values = role_set_prevalence(observed.levels, tested, len(snaps.roles))
+    prevalence = role_set_values(observed.levels, tested, n_roles, "count")
+    mean_pi = role_set_values(observed.levels, tested, n_roles, "continuous")
     labels = [role_label(row, snaps.roles) for sets in tested for row in sets]
     sizes = [sets.shape[1] for sets in tested for _ in sets]
     model = NullModel(snaps, params)
-    null = null_distribution(model, RoleSetPrevalence(colocation, tested), params, run, progress,
+    statistic = RoleSetStatistic(colocation, tested, params.statistic)
+    null = null_distribution(model, statistic, params, run, progress,
                              label=f"{params.null} replicates")  # fmt: skip
-    table = summary_table(values, null, params.alpha)
+    if params.statistic == "continuous":
+        table = summary_table(mean_pi, null, params.alpha, "mean_participation_index")
+    else:
+        table = summary_table(prevalence, null, params.alpha, "time_prevalence")
     table.insert(0, "roles", pd.Series(labels, dtype=object))
     table.insert(1, "size", np.asarray(sizes, dtype=np.int64))
-    table.insert(2, "time_prevalence", values)
+    table.insert(2, "time_prevalence", prevalence)
+    table.insert(3, "mean_participation_index", mean_pi)
     return table.sort_values(["p_value", "roles"], kind="stable").reset_index(drop=True)
 
 
@@ -446,6 +509,7 @@ class GroupStatistic:
     labels: tuple[str, ...]
     vx: np.ndarray
     vy: np.ndarray
+    statistic: str = "continuous"
 
     def __call__(self, model: NullModel, rng: np.random.Generator) -> np.ndarray:
         """Return [time together of each pair, episodes of each role set] in one replicate."""
@@ -456,20 +520,32 @@ class GroupStatistic:
         vx = self.vx if order is None else self.vx[order]
         vy = self.vy if order is None else self.vy[order]
         tally = group_chain(snaps, self.grouping, self.episodes, motion=Motion(vx=vx, vy=vy))
-        return group_statistics(snaps, tally, self.pair_keys, self.labels)
+        return group_statistics(snaps, tally, self.pair_keys, self.labels, self.statistic)
 
 
 def group_statistics(
-    snaps: Snapshots, tally: Any, pair_keys: np.ndarray, labels: tuple[str, ...]
+    snaps: Snapshots,
+    tally: Any,
+    pair_keys: np.ndarray,
+    labels: tuple[str, ...],
+    statistic: str = "count",
 ) -> np.ndarray:
-    """Return [snapshots together per tested pair, episodes per tested role set]."""
+    """Return [snapshots together per tested pair, a value per tested role set].
+
+    Per role set of episodes: with ``"count"`` the number of its episodes,
+    with ``"continuous"`` the snapshots together summed over its episodes.
+    """
     from comove.groups.summary import episode_role_sets
 
     together = tally.together(snaps, pair_keys)
-    found = episode_role_sets(snaps, tally.episodes)
-    tally_by_label = pd.Series(found, dtype=object).value_counts()
-    episodes = tally_by_label.reindex(list(labels), fill_value=0).to_numpy(np.float64)
-    return np.concatenate([together, episodes])
+    found = pd.Series(episode_role_sets(snaps, tally.episodes), dtype=object)
+    if statistic == "continuous":
+        weights = np.asarray(tally.episodes.together, dtype=np.float64)
+        by_label = pd.Series(weights, index=found.to_numpy()).groupby(level=0).sum()
+    else:
+        by_label = found.value_counts()
+    per_set = by_label.reindex(list(labels), fill_value=0).to_numpy(np.float64)
+    return np.concatenate([together, per_set])
 
 
 def group_tests(
@@ -514,8 +590,8 @@ def group_tests(
         ``object_a``, ``object_b`` and the columns of :func:`summary_table`;
         None under the role shuffle.
     role_tests : DataFrame
-        ``roles``, ``episodes`` (observed count) and the columns of
-        :func:`summary_table`.
+        ``roles``, ``episodes`` (observed count), ``together_s`` (time
+        together in them) and the columns of :func:`summary_table`.
     """
     index = {str(name): k for k, name in enumerate(snaps.objects)}
     n_obj = len(snaps.objects)
@@ -526,17 +602,21 @@ def group_tests(
     )  # fmt: skip
     labels = tuple(sorted(set(episode_roles.astype(str))))
     stat = GroupStatistic(grouping, episodes, pair_keys, labels, observed.motion.vx,
-                          observed.motion.vy)  # fmt: skip
-    values = group_statistics(snaps, observed, pair_keys, labels)
+                          observed.motion.vy, params.statistic)  # fmt: skip
+    values = group_statistics(snaps, observed, pair_keys, labels, params.statistic)
+    counts = group_statistics(snaps, observed, pair_keys[:0], labels, "count")
+    times = group_statistics(snaps, observed, pair_keys[:0], labels, "continuous")
     null = null_distribution(NullModel(snaps, params), stat, params, run, progress,
                              label=f"{params.null} replicates")  # fmt: skip
     k = pair_keys.size
-    role_tests = summary_table(values[k:], null[:, k:], params.alpha)
+    name = "together_snapshots" if params.statistic == "continuous" else "episodes"
+    role_tests = summary_table(values[k:], null[:, k:], params.alpha, name)
     role_tests.insert(0, "roles", pd.Series(list(labels), dtype=object))
-    role_tests.insert(1, "episodes", values[k:].astype(np.int64))
+    role_tests.insert(1, "episodes", counts.astype(np.int64))
+    role_tests.insert(2, "together_s", times * snaps.step_s)
     if params.null != "time-shift":
         return None, role_tests
-    pair_tests = summary_table(values[:k], null[:, :k], params.alpha)
+    pair_tests = summary_table(values[:k], null[:, :k], params.alpha, "together_snapshots")
     pair_tests.insert(0, "object_a", dyads["object_a"].to_numpy(dtype=object))
     pair_tests.insert(1, "object_b", dyads["object_b"].to_numpy(dtype=object))
     return pair_tests, role_tests

@@ -27,7 +27,7 @@ def test_q_values_reject_as_in_the_published_worked_example():
     n = 9999  # replicates so that (1 + exceed) / (1 + n) hits each p exactly; observed 1
     exceed = np.round(p * (n + 1) - 1).astype(int)
     null = (np.arange(n)[:, None] < exceed[None, :]).astype(float)
-    table = summary_table(np.ones(p.size), null, alpha=0.05)
+    table = summary_table(np.ones(p.size), null, alpha=0.05, statistic="x")
     np.testing.assert_allclose(table["p_value"], (1 + exceed) / (n + 1))
     assert table["significant"].tolist() == [True] * 4 + [False] * 11
     # BH q-values by their definition: q_(i) = min_{j >= i} m p_(j) / j
@@ -99,9 +99,11 @@ def crowd_scene(seed=11, n_obj=16, n_snap=500):
     return xs, ys, roles
 
 
-def test_crowding_trap_role_shuffle_versus_time_shift():
+@pytest.mark.parametrize("statistic", ["continuous", "count"])
+def test_crowding_trap_role_shuffle_versus_time_shift(statistic):
     frame = frame_of(*crowd_scene())
-    options = dict(radius=3.0, step=1.0, min_prevalence=0.5, permutations=199, seed=5)
+    options = dict(radius=3.0, step=1.0, min_prevalence=0.5, permutations=199, seed=5,
+                   statistic=statistic)  # fmt: skip
     by_roles = mine(frame, null="role-shuffle", **options)
     by_time = mine(frame, null="time-shift", **options)
     # the crowd makes every role pair look durable...
@@ -112,7 +114,9 @@ def test_crowding_trap_role_shuffle_versus_time_shift():
     # while the objects are together far more than their separate movements imply
     pairs = by_time.tests[by_time.tests["size"] == 2]
     assert pairs["significant"].all()
-    assert (pairs["effect"] > 2).all()
+    assert (pairs["ratio"] > 2).all() and (pairs["standardised_effect"] > 3).all()
+    tested = {"continuous": "mean_participation_index", "count": "time_prevalence"}[statistic]
+    assert (by_time.tests["statistic"] == tested).all()
 
 
 def test_same_seed_same_results_and_jobs_do_not_matter():
@@ -228,6 +232,101 @@ def test_a_q_value_equal_to_alpha_is_significant():
     # two items with p = 1/40 and 2/40 out of 39 replicates: BH q = 0.05 for both
     null = np.zeros((39, 2))
     null[:1, 1] = 1.0
-    table = summary_table(np.array([1.0, 1.0]), null, alpha=0.05)
+    table = summary_table(np.array([1.0, 1.0]), null, alpha=0.05, statistic="x")
     np.testing.assert_allclose(table["q_value"], [0.05, 0.05])
     assert table["significant"].all()
+
+
+def waterhole_herd(seed=3, days=30, miss=0.10):
+    """An invented herd drawn to one drifting waterhole; each calf keeps to its mother.
+
+    8 cows, 6 calves (the first six cows are mothers), 5 bulls and 6 yearlings, hourly
+    fixes in metres for ``days`` days, ``miss`` of them missed at random. Every animal
+    wanders around the waterhole (Ornstein-Uhlenbeck, 500 m spread, 6 h memory); a calf
+    stays within about 60 m of its mother. Returns a DataFrame of id, time, x, y, role.
+    """
+    rng = np.random.default_rng(seed)
+    n_t = days * 24
+    hole = np.cumsum(rng.normal(0, 60.0, (n_t, 2)), axis=0)  # drifts about 300 m a day
+    roles = ["cow"] * 8 + ["calf"] * 6 + ["bull"] * 5 + ["yearling"] * 6
+    a = np.exp(-1 / 6.0)
+
+    def ou(spread):
+        out = np.empty((n_t, 2))
+        out[0] = rng.normal(0, spread, 2)
+        for t in range(1, n_t):  # a test scene generator, not library code
+            out[t] = a * out[t - 1] + rng.normal(0, spread * np.sqrt(1 - a * a), 2)
+        return out
+
+    own = [hole + ou(500.0) for _ in roles]
+    for calf in range(6):
+        own[8 + calf] = own[calf] + ou(40.0)
+    frames = []
+    for k, (role, pos) in enumerate(zip(roles, own, strict=True)):
+        kept = rng.random(n_t) >= miss
+        times = np.arange(n_t)[kept] * 3600.0
+        frames.append(pd.DataFrame({"id": f"a{k:02d}", "time": times, "x": pos[kept, 0],
+                                    "y": pos[kept, 1], "role": role}))  # fmt: skip
+    return pd.concat(frames, ignore_index=True)
+
+
+@pytest.mark.parametrize("null", ["role-shuffle", "time-shift"])
+def test_a_strong_pattern_in_a_crowd_at_one_waterhole_is_found(null):
+    # every animal is near every other often (shared waterhole), but calves keep to
+    # their mothers: the mean participation index tells calf;cow apart under both nulls,
+    # while the time prevalence at a low threshold saturates near 1 for it and the rest
+    herd = waterhole_herd()
+    options = dict(radius=300.0, step=3600.0, max_gap=3 * 3600.0, min_participation=0.2,
+                   min_prevalence=0.01, permutations=199, seed=4, null=null)  # fmt: skip
+    found = mine(herd, **options).tests.set_index("roles")
+    assert found.loc["calf;cow", "mean_participation_index"] > 0.7
+    others = found.drop(index="calf;cow")
+    assert found.loc["calf;cow", "mean_participation_index"] > others.loc[
+        others["size"] == 2, "mean_participation_index"].max() + 0.2  # fmt: skip
+    assert found.loc["calf;cow", "q_value"] < 0.05 and found.loc["calf;cow", "significant"]
+    assert found.loc["calf;cow", "standardised_effect"] > 3
+    if null == "role-shuffle":
+        # no role prefers another but for calves and cows: only sets holding both pass
+        kept = found.index[found["significant"]]
+        assert all({"calf", "cow"} <= set(roles.split(";")) for roles in kept)
+        prevalence = mine(herd, statistic="count", **options).tests.set_index("roles")
+        assert prevalence.loc["calf;cow", "time_prevalence"] > 0.95
+        assert not prevalence.loc["calf;cow", "significant"]  # the saturated share: no power
+    else:  # the shift breaks the shared waterhole too: every pair passes (crowding)
+        assert found.loc[found["size"] == 2, "significant"].all()
+
+
+@pytest.mark.parametrize("statistic", ["continuous", "count"])
+@pytest.mark.parametrize("seed", [1, 2])
+def test_a_replicate_mines_only_the_tested_sets_and_loses_nothing(statistic, seed):
+    # the replicate extends only the tested sets (and, for the mean, every set with a
+    # row instance): the values equal those of mining every set of the replicate
+    from comove.roles.chain import role_chain
+    from comove.roles.colocation import ColocationParams
+    from comove.stats.significance import RoleSetStatistic, role_set_values
+
+    xs, ys, roles = walkers(seed, n_obj=12, n_snap=150, side=14.0)
+    snaps = grid_scene(xs, ys, roles, np.ones(xs.shape, bool), 4)
+    colocation = ColocationParams(radius=3.0, min_participation=0.3, max_size=4)
+    observed = role_chain(snaps, colocation, min_prevalent_snapshots=1)
+    tested = tuple(lv.roles[lv.prevalent >= 1] for lv in observed.levels)
+    assert any(sets.shape[1] == 3 and sets.shape[0] for sets in tested)
+    model = NullModel(snaps, SignificanceParams(null="time-shift"))
+    got = RoleSetStatistic(colocation, tested, statistic)(model, np.random.default_rng(seed))
+    replicate, _ = model.draw(np.random.default_rng(seed))
+    every = role_chain(replicate, colocation, min_prevalent_snapshots=0)
+    want = role_set_values(every.levels, tested, 4, statistic)
+    np.testing.assert_allclose(got, want, rtol=0, atol=1e-12)
+    assert (want > 0).any()
+
+
+def test_the_tested_mean_is_the_patterns_mean_participation_index():
+    result = mine(frame_of(*walkers(5, n_snap=200)), **MINE, permutations=19, seed=2)
+    both = result.patterns.merge(result.tests, on="roles", suffixes=("", "_tested"))
+    assert len(both) == len(result.patterns) > 0
+    np.testing.assert_allclose(both["mean_participation_index"],
+                               both["mean_participation_index_tested"], rtol=1e-12)  # fmt: skip
+    assert (result.tests["statistic"] == "mean_participation_index").all()
+    tests = result.tests
+    np.testing.assert_allclose(tests["difference"],
+                               tests["mean_participation_index"] - tests["null_mean"])  # fmt: skip
