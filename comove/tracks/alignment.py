@@ -230,6 +230,31 @@ class Snapshots:
             y=self.y[lo:hi],
         )
 
+    def thinned(self, every: int) -> Snapshots:
+        """Return every ``every``-th snapshot (0, every, 2 every, ...) as snapshots of their own.
+
+        The step grows ``every`` times; snapshot ``s`` of the result is this run's
+        snapshot ``s * every``. For statistics that compare snapshots among
+        themselves (the Monte Carlo tests); the grid index of the first
+        snapshot is rounded down, so the absolute times of the result are not
+        meant to be read.
+        """
+        every = int(every)
+        if every <= 1:
+            return self
+        keep = self.snap % every == 0
+        return replace(
+            self,
+            step_ns=self.step_ns * every,
+            first_index=self.first_index // every,
+            n_snapshots=(self.n_snapshots - 1) // every + 1 if self.n_snapshots else 0,
+            snap=self.snap[keep] // every,
+            obj=self.obj[keep],
+            role=self.role[keep],
+            x=self.x[keep],
+            y=self.y[keep],
+        )
+
     def _derived(self, name: str, inputs: tuple, compute: Callable[[], np.ndarray]) -> np.ndarray:
         """Return ``compute()``, kept while the attributes it derives from are the same objects.
 

@@ -330,3 +330,34 @@ def test_the_tested_mean_is_the_patterns_mean_participation_index():
     tests = result.tests
     np.testing.assert_allclose(tests["difference"],
                                tests["mean_participation_index"] - tests["null_mean"])  # fmt: skip
+
+
+def test_tests_compare_every_kth_snapshot_of_a_fine_grid():
+    # 4 snapshots a second, compared every second: the observed statistic is that of
+    # every 4th snapshot, and so is every replicate's
+    frame = frame_of(*walkers(6, n_snap=400))
+    frame["time"] = frame["time"] / 4.0
+    options = dict(MINE, step=0.25, permutations=19, seed=3)
+    thinned = mine(frame, **options)
+    assert (thinned.tests["compared_step_s"] == 1.0).all()
+    every = mine(frame, null_step=0.0, **options)
+    assert (every.tests["compared_step_s"] == 0.25).all()
+    # the thinned observed value is that of the snapshots at whole seconds alone
+    whole = mine(frame[frame["time"] % 1.0 == 0], **dict(options, step=1.0, null_step=0.0))
+    both = thinned.tests.merge(whole.tests, on="roles", suffixes=("", "_whole"))
+    assert len(both) > 0
+    np.testing.assert_allclose(both["difference"] + both["null_mean"],
+                               both["difference_whole"] + both["null_mean_whole"])  # fmt: skip
+
+
+def test_thinned_snapshots_are_every_kth():
+    xs, ys, roles = walkers(8, n_obj=5, n_snap=23)
+    present = np.random.default_rng(1).random(xs.shape) < 0.8
+    snaps = grid_scene(xs, ys, roles, present, 4)
+    thin = snaps.thinned(4)
+    assert thin.n_snapshots == 6 and thin.step_ns == 4 * snaps.step_ns
+    keep = snaps.snap % 4 == 0
+    np.testing.assert_array_equal(thin.snap, snaps.snap[keep] // 4)
+    np.testing.assert_array_equal(thin.x, snaps.x[keep])
+    np.testing.assert_array_equal(thin.obj, snaps.obj[keep])
+    assert snaps.thinned(1) is snaps
