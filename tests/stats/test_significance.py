@@ -71,14 +71,16 @@ MINE = dict(radius=3.0, step=1.0, min_prevalence=0.01, min_participation=0.25)
 
 
 @pytest.mark.slow
-def test_p_values_are_calibrated_when_roles_move_independently():
+@pytest.mark.parametrize("null", ["time-shift", "role-shuffle"])
+def test_p_values_are_calibrated_when_roles_move_independently(null):
     # 24 independent scenes x 6 role pairs; under the null P(p <= 0.05) <= 0.05 (exactly
     # 0.05 for continuous statistics). With 144 p-values, correlated within a scene, a
     # binomial(144, 0.05) 99.9 % interval is [1, 17]; we allow 0..17 and also check that
     # the p-values are not piled up at 1 (which would hide a broken null).
     ps = []
     for seed in range(24):
-        result = mine(frame_of(*walkers(seed)), **MINE, permutations=99, seed=seed, jobs=1)
+        result = mine(frame_of(*walkers(seed)), **MINE, permutations=99, seed=seed, jobs=1,
+                      null=null)  # fmt: skip
         ps.extend(result.tests.loc[result.tests["size"] == 2, "p_value"].tolist())
     ps = np.asarray(ps)
     assert ps.size >= 100
