@@ -222,7 +222,8 @@ def main() -> None:
     parser.add_argument("--repeat", type=int, default=5, help="timed rounds of each; medians count")
     parser.add_argument(
         "--permutations", type=int, default=0,
-        help="also time `comove mine --permutations N` (one run; 199 takes minutes)",
+        help="also time `comove mine --permutations N` in every round, as a ratio to the "
+        "untested `mine` of the same round",
     )  # fmt: skip
     parser.add_argument("--out", type=Path, default=Path("bench-out"))
     parser.add_argument("--walls", type=Path, help="also write every round's wall times (JSON)")
@@ -244,8 +245,7 @@ def main() -> None:
     results = args.out / "results"
     cli = [sys.executable, "-m", "comove.cli"]
     common = ["--step", str(1 / args.hz), "--force", "--quiet", "--permutations", "0"]
-    measured = run_rounds(
-        {
+    commands = {
             "reference": [sys.executable, "-c", REFERENCE, str(data), str(RADIUS), str(args.hz)],
             # the same with OpenBLAS on one thread, as the command line runs it
             "reference_1blas": [sys.executable, "-c", ONE_BLAS_THREAD + REFERENCE, str(data),
@@ -254,9 +254,13 @@ def main() -> None:
                      *common, "--out", str(results)],
             "groups": [*cli, "groups", str(data), "--preset", "team-sport", *common,
                        "--out", str(args.out / "groups")],
-        },
-        args.repeat,
-    )  # fmt: skip
+    }  # fmt: skip
+    if args.permutations:
+        commands["tested"] = [*cli, "mine", str(data), "--radius", str(RADIUS), "--max-size",
+                              "3", "--step", str(1 / args.hz), "--force", "--quiet",
+                              "--permutations", str(args.permutations), "--seed", "1",
+                              "--out", str(args.out / "permuted")]  # fmt: skip
+    measured = run_rounds(commands, args.repeat)
     ref_walls, ref_peak, ref_out = measured["reference"]
     blas_walls = measured["reference_1blas"][0]
     mine_walls, mine_peak, _ = measured["mine"]
@@ -264,14 +268,7 @@ def main() -> None:
     ref_wall, mine_wall, groups_wall = map(_median, (ref_walls, mine_walls, groups_walls))
     mine_ratio = _median([m / r for m, r in zip(mine_walls, ref_walls, strict=True)])
     groups_ratio = _median([g / r for g, r in zip(groups_walls, ref_walls, strict=True)])
-    mine_args = [sys.executable, "-m", "comove.cli", "mine", str(data), "--radius", str(RADIUS),
-                 "--max-size", "3", "--step", str(1 / args.hz), "--force", "--quiet"]  # fmt: skip
-    perm_wall = None
-    if args.permutations:
-        perm_wall, _, _ = run_measured(
-            [*mine_args, "--permutations", str(args.permutations), "--seed", "1",
-             "--out", str(args.out / "permuted")]
-        )  # fmt: skip
+    perm_wall = _median(measured["tested"][0]) if args.permutations else None
     naive_wall, _, naive_out = run_measured(
         [sys.executable, "-c", NAIVE, str(data), str(RADIUS), str(args.naive_sample)]
     )
@@ -305,7 +302,10 @@ def main() -> None:
     print(f"groups / reference with OpenBLAS on one thread: {blas_ratio:.2f}x "
           f"(fastest / fastest: {min(groups_walls) / min(blas_walls):.2f}x)")  # fmt: skip
     if perm_wall is not None:
-        print(f"permuted / unpermuted mine: {perm_wall / mine_wall:.1f}x")
+        tested = [t / m for t, m in zip(measured["tested"][0], mine_walls, strict=True)]
+        print(f"mine --permutations {args.permutations} / untested mine: "
+              f"{_median(tested):.1f}x (median of {args.repeat} rounds: "
+              + ", ".join(f"{r:.1f}" for r in tested) + ")")  # fmt: skip
     print(
         f"mine / reference: {mine_ratio:.2f}x (fastest / fastest: "
         f"{min(mine_walls) / min(ref_walls):.2f}x); "
