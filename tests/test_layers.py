@@ -1,7 +1,8 @@
 """The package's layers: no module imports one of a higher layer.
 
 Order, lowest first: errors; io; tracks; roles and groups (side by side, neither
-imports the other); stats; pipeline; cli. The presentation layer (present)
+imports the other); stats; pipeline; cli; __main__ (``python -m comove``, which
+runs the command line). The presentation layer (present)
 reads results only through the results-folder module, and imports nothing
 else of comove but io's plain helpers and errors.
 """
@@ -18,7 +19,7 @@ PACKAGE = Path(__file__).resolve().parents[1] / "comove"
 #: Layer of each part of the package; a module may import its own layer and lower ones.
 LAYERS = {
     "errors": 0, "io": 1, "tracks": 2, "roles": 3, "groups": 3, "stats": 4, "present": 2,
-    "pipeline": 5, "cli": 6,
+    "pipeline": 5, "cli": 6, "__main__": 7,
 }  # fmt: skip
 
 #: Parts of one layer that must not import each other.

@@ -119,8 +119,9 @@ PRESETS: dict[str, Preset] = {
                 "radius": "GNSS player tracking errs by about 1–1.5 m per position, so "
                 "radii below ~2 m are noise on GNSS data; 5 m is within reach of a "
                 "challenge or a short pass (common practice)",
-                "min_speed": "1 m/s separates walking from standing in player-load "
-                "speed zones (common practice)",
+                "min_speed": "1 m/s: the upper edge of the standing-and-walking speed band "
+                "used when GNSS running loads are monitored; slower, a player's heading is "
+                "noise (common practice)",
                 "max_heading": "45 degrees keeps players running the same line together "
                 "and drops crossing runs (common practice)",
                 "max_speed_ratio": "2.0 (common practice)",

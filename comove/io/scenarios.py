@@ -12,7 +12,20 @@ from typing import Any
 
 from comove.errors import InputError
 
-SCENARIOS_DIR = Path(__file__).resolve().parents[2] / "synthetic_tracks"
+
+def _scenarios_dir() -> Path:
+    """Return the scenarios' folder: the checkout's ``synthetic_tracks``, else the package's copy.
+
+    A wheel carries them as ``comove/scenario_files`` (see pyproject.toml), so
+    that an installed comove runs its demo from any folder.
+    """
+    checkout = Path(__file__).resolve().parents[2] / "synthetic_tracks"
+    if checkout.is_dir():
+        return checkout
+    return Path(__file__).resolve().parents[1] / "scenario_files"
+
+
+SCENARIOS_DIR = _scenarios_dir()
 DEMO_SCENARIO = "small_sided_game"
 
 #: truth.json parameter names that are settings of ``comove mine``.
@@ -40,8 +53,8 @@ def load_truth(name: str) -> dict[str, Any]:
     path = SCENARIOS_DIR / name / "truth.json"
     if not path.is_file():
         raise InputError(
-            f"{path}: scenario not found; the demo needs the source checkout "
-            "(install with `pip install -e .` from the repository)"
+            f"{path}: scenario not found; reinstall comove (its package carries the "
+            "scenarios) or run from the source checkout"
         )
     return json.loads(path.read_text())
 

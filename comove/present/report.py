@@ -271,7 +271,12 @@ def _quality_html(quality: dict[str, dict]) -> str:
                                                for k, v in merged.items()))])  # fmt: skip
         rows += [
             ["objects", _num(q.get("objects"))],
-            ["roles", _num(q.get("roles"))],
+            [
+                "roles",
+                _num(q.get("roles"))
+                if (q.get("role_names") or [""]) != [""]
+                else "no role column: every object has one role",
+            ],
             [
                 "time span",
                 _e(

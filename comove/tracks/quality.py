@@ -257,10 +257,13 @@ def format_quality_summary(quality: dict) -> str:
             parts.append(f"{label} {count:,}")
         lines.append("dropped: " + ", ".join(parts))
     names = quality.get("role_names") or []
-    shown = ", ".join(repr(r) if r == "" else r for r in names[:8])
-    if len(names) > 8:
-        shown += ", …"
-    lines.append(f"objects: {quality['objects']:,}; roles: {quality['roles']:,} ({shown})")
+    if names in ([], [""]):  # read without a role column
+        lines.append(f"objects: {quality['objects']:,}; no role column: every object has one role")
+    else:
+        shown = ", ".join(repr(r) if r == "" else r for r in names[:8])
+        if len(names) > 8:
+            shown += ", …"
+        lines.append(f"objects: {quality['objects']:,}; roles: {quality['roles']:,} ({shown})")
     lines.append(
         f"time: {quality['time_start']} to {quality['time_end']} "
         f"({human_seconds(quality['time_span_s'])})"
