@@ -69,6 +69,11 @@ class _Parser(argparse.ArgumentParser):
         self.exit(EXIT_INPUT, f"{self.prog}: error: {message} (see {self.prog} --help)\n")
 
 
+def _plain(text: str) -> str:
+    """Return help text without the docstrings' code markup (double and single backquotes)."""
+    return text.replace("``", "").replace("`", "")
+
+
 def _yes_no(text: str) -> bool:
     """Return the truth value of a yes/no flag's text."""
     words = {"yes": True, "true": True, "on": True, "1": True,
@@ -100,13 +105,14 @@ def _add_stage_options(
     parser: argparse.ArgumentParser, stages: tuple[type, ...], required: set[str]
 ) -> None:
     for stage in stages:
-        group = parser.add_argument_group(stage.__doc__.splitlines()[0].rstrip("."))
+        group = parser.add_argument_group(_plain(stage.__doc__.splitlines()[0].rstrip(".")))
         hints = typing.get_type_hints(stage)
         for f in fields(stage):
             if f.name in _HIDDEN:
                 continue
             default = None if f.default is MISSING else f.default
-            help_text = f.metadata.get("help") or _COLUMN_HELP.get(f.name, "")
+            help_text = _plain(f.metadata.get("help") or _COLUMN_HELP.get(f.name, ""))
+            choices = f.metadata.get("choices")
             if isinstance(default, tuple):
                 default = ",".join(f"{v:g}" for v in default) or None
             if isinstance(default, bool):
@@ -119,8 +125,14 @@ def _add_stage_options(
                 type=_scalar_type(hints[f.name]),
                 default=None,
                 required=f.name in required,
-                metavar="yes|no" if hints[f.name] is bool else f.name.upper(),
-                choices=f.metadata.get("choices"),
+                metavar=(
+                    "yes|no"
+                    if hints[f.name] is bool
+                    else "|".join(choices)
+                    if choices
+                    else f.name.upper()
+                ),  # fmt: skip
+                choices=choices,
                 help=help_text,
             )
 
@@ -148,7 +160,7 @@ def _add_analysis(
     name: str,
     stages: tuple[type, ...],
     *,
-    input_help: str = "track file(s) or glob(s), as for `comove mine`",
+    input_help: str = "track file(s) or glob(s), as for comove mine",
     merge: bool = True,
     extra: Callable[[argparse.ArgumentParser], None] | None = None,
     **texts: str,
@@ -211,7 +223,7 @@ def _add_report(sub: Any) -> None:
     r = sub.add_parser(
         "report",
         help="an HTML report with figures of a results folder",
-        description="Turn a results folder of `comove mine`, `comove groups` or both into "
+        description="Turn a results folder of comove mine, comove groups or both into "
         "one self-contained DIR/report.html, with the figures also as PNG files in "
         "DIR/figures/.",
     )
@@ -230,7 +242,7 @@ def _add_demo(sub: Any) -> None:
     d = sub.add_parser(
         "demo",
         help="run the miner on a bundled invented scenario",
-        description="Run `comove mine` on the bundled small-sided game.",
+        description="Run comove mine on the bundled small-sided game.",
     )
     d.add_argument(
         "--out",

@@ -162,7 +162,7 @@ def test_groups_can_list_every_co_present_pair(tracks_csv, tmp_path, capsys):
     code, _, err = run(["groups", tracks_csv, "--radius", 2, "--dyad-pairs", "all",
                         "--out", tmp_path / "h"], capsys)  # fmt: skip
     assert code != 0
-    assert err.strip().splitlines()[-1].endswith("--dyad-pairs must be one of together, co-present")
+    assert "argument --dyad-pairs: invalid choice: 'all'" in err.strip().splitlines()[-1]
 
 
 def test_groups_preset_supplies_defaults_and_flags_override(tracks_csv, tmp_path, capsys):
@@ -192,7 +192,7 @@ def test_groups_preset_supplies_defaults_and_flags_override(tracks_csv, tmp_path
     [
         ([], "--radius is required: give it in metres, or a preset"),
         (["--preset", "robots"], "--preset"),
-        (["--radius", "2", "--mode", "blob"], "--mode must be one of"),
+        (["--radius", "2", "--mode", "blob"], "--mode: invalid choice: 'blob'"),
         (["--radius", "2", "--min-size", "1"], "--min-size"),
     ],
 )
@@ -290,7 +290,7 @@ def test_groups_tests_pairs_and_role_sets(tracks_csv, tmp_path, capsys):
 @pytest.mark.parametrize(
     ("options", "expected"),
     [
-        (["--null", "bootstrap"], "--null must be one of"),
+        (["--null", "bootstrap"], "--null: invalid choice: 'bootstrap'"),
         (["--permutations", "-2"], "--permutations"),
         (["--k-radii", "a:b"], "--k-radii must be"),
         (["--k-radii", "3,1"], "--k-radii must be strictly ascending"),
@@ -575,3 +575,39 @@ def test_a_crowd_beyond_memory_is_refused_in_one_line(command, tmp_path, capsys,
     assert code == 2 and err.count("\n") == 1 and "Traceback" not in err
     assert "one object has 399 neighbours; give a smaller --radius" in err
     assert not (tmp_path / "o").exists()
+
+
+COMMANDS = ["mine", "groups", "sweep", "report", "demo"]
+
+
+@pytest.mark.parametrize("command", [None, *COMMANDS])
+def test_help_has_no_leaked_markup_and_lists_every_choice(command, capsys):
+    import argparse
+    from dataclasses import fields
+
+    from comove.cli import build_parser
+
+    assert main([command, "--help"] if command else ["--help"]) == 0
+    text = capsys.readouterr().out
+    # docstring markup (double backquotes, backquotes, roles such as :func:) stays out
+    assert "`" not in text and ":func:" not in text and ":class:" not in text
+    if command is None:
+        return
+    parser = build_parser()
+    sub = next(a for a in parser._actions if isinstance(a, argparse._SubParsersAction))
+    for action in sub.choices[command]._actions:
+        if action.choices:  # every option with choices shows them in the usage and help
+            for choice in action.choices:
+                assert str(choice) in text, (action.option_strings, choice)
+    # each settings field validated against a list declares that list as its choices
+    from comove.groups.dyads import DyadParams
+    from comove.groups.grouping import GroupParams
+    from comove.roles.crossk import CrossKParams
+    from comove.stats.significance import SignificanceParams
+
+    listed = {"null", "shift_within", "statistic", "mode", "links", "standing", "dyad_pairs",
+              "k_correction"}  # fmt: skip
+    for stage in (DyadParams, GroupParams, CrossKParams, SignificanceParams):
+        for f in fields(stage):
+            if f.name in listed:
+                assert f.metadata.get("choices"), (stage.__name__, f.name)

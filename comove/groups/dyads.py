@@ -823,7 +823,8 @@ class DyadParams:
     dyad_pairs: str = field(
         default="together",
         metadata={"help": "pairs in dyads.csv: together (within the radius at least once) or "
-                  "co-present (every pair seen at one time; grows with objects squared)"},
+                  "co-present (every pair seen at one time; grows with objects squared)",
+                  "choices": PAIR_SELECTIONS},
     )  # fmt: skip
     max_expected_pairs: int = field(
         default=62_500,

@@ -85,7 +85,7 @@ class GroupParams:
     radius: float = field(metadata={"help": "link distance in metres (inclusive)"})
     mode: str = field(
         default="component",
-        metadata={"help": "group structure per snapshot: clique, component or dbscan"},
+        metadata={"help": "group structure per snapshot", "choices": GROUP_MODES},
     )
     min_members: int = field(
         default=2, metadata={"help": "dbscan: objects (itself included) linked to a core"}
@@ -109,7 +109,7 @@ class GroupParams:
     links: str = field(
         default="evidence",
         metadata={"help": "how links are decided: evidence (the pair's own history around "
-                  "each snapshot) or snapshot (that moment alone)"},
+                  "each snapshot) or snapshot (that moment alone)", "choices": LINK_RULES},
     )  # fmt: skip
     evidence_window: float = field(
         default=8.0, metadata={"help": "evidence links: seconds of history weighed, centred"}
@@ -131,7 +131,7 @@ class GroupParams:
     standing: str = field(
         default="together",
         metadata={"help": "evidence links: nearness while not both move counts as together, "
-                  "is ignored, or counts as apart"},
+                  "is ignored, or counts as apart", "choices": STANDING},
     )  # fmt: skip
 
     def __post_init__(self) -> None:

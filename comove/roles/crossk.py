@@ -88,7 +88,7 @@ class CrossKParams:
     )  # fmt: skip
     k_correction: str = field(
         default="translation",
-        metadata={"help": "cross-K edge correction: translation or border"},
+        metadata={"help": "cross-K edge correction", "choices": CORRECTIONS},
     )
 
     def __post_init__(self) -> None:

@@ -90,18 +90,23 @@ class SignificanceParams:
         default=199, metadata={"help": "null replicates for Monte Carlo p-values; 0: no test"}
     )
     null: str = field(
-        default="time-shift", metadata={"help": "null model: time-shift or role-shuffle"}
-    )
+        default="time-shift",
+        metadata={"help": "null model: tracks shifted in time, or role labels shuffled",
+                  "choices": NULL_MODELS},
+    )  # fmt: skip
     shift_within: str = field(
         default="period",
-        metadata={"help": "time-shift wraps around the whole period or each object's own span"},
-    )
+        metadata={"help": "time-shift wraps around the whole period or each object's own span",
+                  "choices": SHIFT_SPANS},
+    )  # fmt: skip
     shuffle_strata: str | None = field(
         default=None,
         metadata={"help": "role-shuffle only among roles sharing the text before this "
                   "separator"},
     )  # fmt: skip
-    alpha: float = field(default=0.05, metadata={"help": "false discovery rate for `significant`"})
+    alpha: float = field(
+        default=0.05, metadata={"help": "false discovery rate for the significant column"}
+    )
     null_step: float = field(
         default=1.0,
         metadata={"help": "seconds between the snapshots the tests compare; a finer grid is "
@@ -110,7 +115,8 @@ class SignificanceParams:
     statistic: str = field(
         default="continuous",
         metadata={"help": "what is tested of a role set: continuous (mean participation index; "
-                  "time together in episodes) or count (time prevalence; number of episodes)"},
+                  "time together in episodes) or count (time prevalence; number of episodes)",
+                  "choices": STATISTICS},
     )  # fmt: skip
 
     def __post_init__(self) -> None:
