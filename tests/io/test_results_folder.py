@@ -433,7 +433,8 @@ def test_sigterm_while_writing_leaves_the_folder_as_it_was(tmp_path, tracks_csv,
     assert run(["mine", tracks_csv, *QUICK, "--out", out], capsys)[0] == 0
     before = tree(out)
     writer = python(SLOW_CSV, "mine", tracks_csv, *QUICK, "--out", out, "--force")
-    assert writer.stdout.readline().strip() == "writing"
+    # writers run side by side: two may print on one line ("writingwriting")
+    assert writer.stdout.readline().strip().startswith("writing")
     writer.send_signal(signal.SIGTERM)
     _, err = writer.communicate(timeout=60)
     assert writer.returncode == 143
