@@ -395,7 +395,7 @@ def _run_groups(args: argparse.Namespace) -> None:
     listed = result.run["settings"]["DyadParams"]["dyad_pairs"]
     meaning = "together at least once" if listed == "together" else "seen at the same time"
     print(f"{len(result.dyads)} pairs of objects {meaning} in dyads.csv.")
-    _written(out, held)
+    _written(out, held, f" — for figures: comove report {out}")
     print(f"Caution: {CAUTION}")
 
 
