@@ -363,7 +363,7 @@ def _report(result: comove.pipeline.core.MiningResult, out: Path, quiet: bool, h
         top = result.patterns.head(10)[[c for c in shown if c in result.patterns]]
         print(top.to_string(index=False, float_format=lambda v: f"{v:.3f}"))
     _written(out, held, f" — for figures: comove report {out}")
-    print(f"Caution: {CAUTION}")
+    print(f"Caution: {result.run.get('caution', CAUTION)}")
 
 
 def _run_mine(args: argparse.Namespace) -> None:
@@ -396,7 +396,7 @@ def _run_groups(args: argparse.Namespace) -> None:
     meaning = "together at least once" if listed == "together" else "seen at the same time"
     print(f"{len(result.dyads)} pairs of objects {meaning} in dyads.csv.")
     _written(out, held, f" — for figures: comove report {out}")
-    print(f"Caution: {CAUTION}")
+    print(f"Caution: {result.run.get('caution', CAUTION)}")
 
 
 def _run_sweep(args: argparse.Namespace) -> None:

@@ -612,3 +612,19 @@ def test_help_has_no_leaked_markup_and_lists_every_choice(command, capsys):
         for f in fields(stage):
             if f.name in listed:
                 assert f.metadata.get("choices"), (stage.__name__, f.name)
+
+
+@pytest.mark.parametrize(
+    ("preset", "words"),
+    [("pedestrians", "tracked people"), ("vehicles", "drivers"), ("collars", "protected species"),
+     (None, "personal data (of people")],
+)  # fmt: skip
+def test_the_caution_speaks_of_what_was_tracked(tracks_csv, tmp_path, capsys, preset, words):
+    out_dir = tmp_path / "g"
+    flags = ["--preset", preset] if preset else []
+    code, out, err = run(["groups", tracks_csv, "--radius", 2, *flags, "--permutations", 0,
+                          "--out", out_dir], capsys)  # fmt: skip
+    assert code == 0, err
+    caution = json.loads((out_dir / "run.json").read_text())["caution"]
+    assert words in caution and "association, not interaction or cause" in caution
+    assert f"Caution: {caution}" in out

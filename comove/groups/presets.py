@@ -28,12 +28,15 @@ class Preset:
         Option name -> value.
     why : dict
         Option name -> where the value comes from.
+    subject : {"people", "vehicles", "animals"} or None
+        What is tracked, which the caution printed with the results speaks of.
     """
 
     name: str
     summary: str
     values: dict[str, Any]
     why: dict[str, str]
+    subject: str | None = None
 
 
 PRESETS: dict[str, Preset] = {
@@ -41,6 +44,7 @@ PRESETS: dict[str, Preset] = {
     for p in (
         Preset(
             name="pedestrians",
+            subject="people",
             summary="people walking together in a crowd (overhead video or indoor tracking)",
             values={
                 "radius": 1.5,
@@ -97,6 +101,7 @@ PRESETS: dict[str, Preset] = {
         ),
         Preset(
             name="team-sport",
+            subject="people",
             summary="players of a team sport tracked by optical or GNSS systems",
             values={
                 "radius": 5.0,
@@ -142,6 +147,7 @@ PRESETS: dict[str, Preset] = {
         ),
         Preset(
             name="vehicles",
+            subject="vehicles",
             summary="road vehicles or vessels travelling in convoy (GPS or AIS fixes)",
             values={
                 "radius": 60.0,
@@ -183,6 +189,7 @@ PRESETS: dict[str, Preset] = {
         ),
         Preset(
             name="collars",
+            subject="animals",
             summary="collared animals with fixes every few minutes to hours",
             values={
                 "radius": 100.0,
@@ -224,6 +231,11 @@ PRESETS: dict[str, Preset] = {
         ),
     )
 }
+
+
+def preset_subject(name: str | None) -> str | None:
+    """Return what preset ``name`` is for: people, vehicles or animals (None without one)."""
+    return PRESETS[name].subject if name in PRESETS else None
 
 
 def preset_values(name: str | None) -> dict[str, Any]:

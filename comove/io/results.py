@@ -47,11 +47,36 @@ from comove.errors import InputError
 
 Writer = Callable[[Path], None]
 
-#: Printed by the commands and recorded in every run.json.
-CAUTION = (
-    "Positions of tracked people are personal data; co-location is association, "
-    "not interaction or cause; results are for analysis, not for real-time safety decisions."
-)
+_ASSOCIATION = "co-location is association, not interaction or cause"
+
+#: Printed by the commands and recorded in every run.json, by what was tracked
+#: (``None``: not known).
+CAUTIONS = {
+    None: "Tracked positions can be personal data (of people, and of the drivers of "
+    "vehicles) or sensitive (the sites of protected species); "
+    + _ASSOCIATION
+    + "; results are for analysis, not for real-time safety decisions.",
+    "people": "Positions of tracked people are personal data: process them on a lawful "
+    "basis, keep only what the analysis needs and pseudonymise ids; "
+    + _ASSOCIATION
+    + "; results are for analysis, not for real-time safety decisions.",
+    "vehicles": "Positions of vehicles and vessels are personal data of their drivers and "
+    "crews; " + _ASSOCIATION + "; results are for analysis, not for real-time safety or "
+    "navigation decisions.",
+    "animals": "Locations of tracked animals can reveal sensitive sites (dens, nests, "
+    "roosts, refuges) of protected species: share them with care; "
+    + _ASSOCIATION
+    + "; results are for analysis, not for real-time management decisions.",
+}
+#: The caution when what was tracked is not known.
+CAUTION = CAUTIONS[None]
+
+
+def caution_for(subject: str | None) -> str:
+    """Return the caution for what was tracked: people, vehicles, animals, or None."""
+    return CAUTIONS.get(subject, CAUTION)
+
+
 #: The folder's record of the files comove wrote into it, per command.
 MANIFEST = ".comove-folder.json"
 #: Version of the record's layout.

@@ -30,13 +30,14 @@ from comove.groups.chain import GroupTally, group_chain
 from comove.groups.dyads import DyadParams, dyad_table
 from comove.groups.episodes import EpisodeParams
 from comove.groups.grouping import GroupParams
-from comove.groups.presets import preset_values
+from comove.groups.presets import preset_subject, preset_values
 from comove.groups.summary import episode_paths, episode_table, role_rollup
 from comove.io.projection import working_to_input
 from comove.io.provenance import input_digest, run_record, settings_record
 from comove.io.reading import ColumnSpec, read_tracks
 from comove.io.results import (
     CAUTION,
+    caution_for,
     csv_writer,
     geojson_writer,
     geoparquet_writer,
@@ -526,7 +527,8 @@ def groups(
         bar.close()
     settings = settings_record(columns, cleaning, _effective(snaps), *stages[3:8], run_params)
     run = run_record("groups", source, settings,
-                     extra={"preset": preset, "caution": CAUTION, **_windows_note(plan)},
+                     extra={"preset": preset, "caution": caution_for(preset_subject(preset)),
+                            **_windows_note(plan)},
                      digest=digest.result())  # fmt: skip
     return GroupsResult(table, roles, dyads, paths, display, quality, run, snaps, centroids,
                         sample)  # fmt: skip
