@@ -102,7 +102,10 @@ def _scalar_type(annotation: Any) -> Any:
 
 
 def _add_stage_options(
-    parser: argparse.ArgumentParser, stages: tuple[type, ...], required: set[str]
+    parser: argparse.ArgumentParser,
+    stages: tuple[type, ...],
+    required: set[str],
+    needed: str = "required: give it here or in the --config run file",
 ) -> None:
     for stage in stages:
         group = parser.add_argument_group(_plain(stage.__doc__.splitlines()[0].rstrip(".")))
@@ -119,6 +122,8 @@ def _add_stage_options(
                 default = "yes" if default else "no"
             if default is not None:
                 help_text += f" (default: {default})"
+            elif f.default is MISSING and f.default_factory is MISSING:
+                help_text += f" ({needed})"
             group.add_argument(
                 "--" + f.name.replace("_", "-"),
                 dest=f.name,
@@ -172,7 +177,11 @@ def _add_analysis(
     _add_config(p)
     if extra is not None:
         extra(p)
-    _add_stage_options(p, stages, required=set())
+    if extra is _add_preset:
+        needed = "required unless --preset or the --config run file gives it"
+        _add_stage_options(p, stages, required=set(), needed=needed)
+    else:
+        _add_stage_options(p, stages, required=set())
     _add_common(p, merge=merge)
 
 

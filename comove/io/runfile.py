@@ -216,8 +216,14 @@ def parse_grid(text: str, setting: str) -> tuple[float, ...]:
     try:
         if ":" in text:
             start, stop, step = (float(v) for v in text.split(":"))
-            if not (step > 0 and stop >= start and np.isfinite(start) and np.isfinite(stop)):
+            if not (np.isfinite(start) and np.isfinite(stop) and np.isfinite(step)):
                 raise ValueError
+            if step <= 0:
+                raise bad_setting(setting, f"{text}: the step must be above 0, as in 1:5:0.5")
+            if stop < start:
+                raise bad_setting(setting, f"{text} runs backwards: give start:stop:step with "
+                                  f"the stop at or above the start, as in {stop:g}:{start:g}:"
+                                  f"{step:g}")  # fmt: skip
             count = np.floor((stop - start) / step + 0.5) + 1
             if count > MAX_GRID_VALUES:  # counted before any value is made
                 raise bad_setting(

@@ -60,7 +60,7 @@ class SweepParams:
     )
     min_participation: tuple[float, ...] = field(
         default=(0.5,),
-        metadata={"help": "participation thresholds: start:stop:step or p1,p2,..."},
+        metadata={"help": "participation thresholds: start:stop:step (stop included) or p1,p2,..."},
     )
     max_size: int = field(default=3, metadata={"help": "largest role set mined"})
 

@@ -78,8 +78,8 @@ class CrossKParams:
 
     k_radii: tuple[float, ...] | None = field(
         default=None,
-        metadata={"help": "cross-K/L per role pair at these radii (m): start:stop:step or "
-                  "r1,r2,...; envelopes from time-shift replicates"},
+        metadata={"help": "cross-K/L per role pair at these radii (m): start:stop:step (stop "
+                  "included) or r1,r2,...; envelopes from time-shift replicates"},
     )  # fmt: skip
     k_window: tuple[float, ...] | None = field(
         default=None,

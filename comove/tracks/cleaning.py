@@ -86,7 +86,7 @@ _ADVICE = {
 
 @dataclass(frozen=True)
 class CleanParams:
-    """Cleaning: which implausible fixes to drop.
+    """Cleaning: fixes dropped as implausible.
 
     Options for :func:`clean_fixes`.
 
@@ -105,8 +105,8 @@ class CleanParams:
     max_speed: float | None = field(
         default=None,
         metadata={
-            "help": "largest plausible speed in m/s; fixes reached and left faster are dropped "
-            "(default: no speed filter)"
+            "help": "largest plausible speed in m/s: a fix that its track reaches and leaves "
+            "faster than this is a spike and is dropped (default: no speed filter)"
         },
     )
 

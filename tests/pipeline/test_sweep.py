@@ -63,6 +63,12 @@ def test_grid_text():
         with pytest.raises(InputError, match="^radius") as caught:
             parse_grid(bad, "radius")
         assert caught.value.worded_for().startswith("--radius ")
+    # a reversed grid and a step that does not advance say so
+    with pytest.raises(InputError, match="3:1:1 runs backwards.*as in 1:3:1"):
+        parse_grid("3:1:1", "radius")
+    for bad in ("1:3:0", "1:3:-1"):
+        with pytest.raises(InputError, match="the step must be above 0"):
+            parse_grid(bad, "radius")
     # a grid too fine is refused before its values are made (it once asked for 30 GiB)
     with pytest.raises(InputError, match="4,000,000,001 values, more than the 10,000"):
         parse_grid("1:5:1e-9", "radius")
