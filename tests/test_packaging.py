@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import os
+import shutil
 import subprocess
 import sys
 from pathlib import Path
@@ -15,12 +16,20 @@ ROOT = Path(__file__).resolve().parents[1]
 
 @pytest.mark.slow
 def test_a_built_wheel_runs_the_demo_and_groups_from_another_folder(tmp_path):
-    # build the wheel (pip's isolated build fetches setuptools from the registry) and
+    # build the wheel from a copy of the sources (the build leaves a build/ folder
+    # where it runs; pip's isolated build fetches setuptools from the registry) and
     # unpack it into a folder of its own; run it from elsewhere with that folder first
     # on the path, so that the installed files are used, not the checkout
+    source = tmp_path / "source"
+    source.mkdir()
+    for name in ("pyproject.toml", "README.md"):
+        shutil.copy(ROOT / name, source / name)
+    skip = shutil.ignore_patterns("__pycache__", "*.pyc")
+    for name in ("comove", "synthetic_tracks"):
+        shutil.copytree(ROOT / name, source / name, ignore=skip)
     wheels = tmp_path / "wheels"
     subprocess.run([sys.executable, "-m", "pip", "wheel", "--no-deps", "--quiet", "-w",
-                    str(wheels), str(ROOT)], check=True, capture_output=True)  # fmt: skip
+                    str(wheels), str(source)], check=True, capture_output=True)  # fmt: skip
     (wheel,) = wheels.glob("comove-*.whl")
     site = tmp_path / "site"
     install = [sys.executable, "-m", "pip", "install", "--no-deps", "--quiet", "--target"]
