@@ -19,7 +19,7 @@ from pathlib import Path
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 from benchmark_mine import RADIUS, invented_match, run_measured  # noqa: E402
 
-TABLES = ("patterns.csv", "participation.csv", "pi_series.parquet")
+TABLES = ("patterns.csv", "participation.csv", "participation_series.parquet")
 
 
 def main() -> None:

@@ -26,8 +26,8 @@ def test_mine_writes_the_results_folder(tracks_csv, tmp_path, capsys):
     code, out, err = run(["mine", tracks_csv, "--radius", 2, "--out", out_dir], capsys)
     assert code == 0, err
     assert sorted(p.name for p in out_dir.iterdir()) == [
-        MANIFEST, "participation.csv", "patterns.csv", "pi_series.parquet", "quality.json",
-        "run.json", "significance.csv", "track_sample.parquet",
+        MANIFEST, "participation.csv", "participation_series.parquet", "patterns.csv",
+        "quality.json", "run.json", "significance.csv", "track_sample.parquet",
     ]  # fmt: skip
     patterns = pd.read_csv(out_dir / "patterns.csv")
     assert patterns["roles"].tolist() == ["dog;owner"]
@@ -39,7 +39,7 @@ def test_mine_writes_the_results_folder(tracks_csv, tmp_path, capsys):
     assert run_json["versions"]["comove"]
     quality = json.loads((out_dir / "quality.json").read_text())
     assert quality["rows_read"] == 300
-    series = pd.read_parquet(out_dir / "pi_series.parquet")
+    series = pd.read_parquet(out_dir / "participation_series.parquet")
     assert len(series) == 60 and series["prevalent"].all()
     assert "dog;owner" in out and "personal data" in out
 
@@ -549,7 +549,7 @@ def test_a_role_named_like_a_formula_stays_text_in_csv_and_exact_elsewhere(tmp_p
     raw = (out / "patterns.csv").read_text().splitlines()[1]
     assert raw.startswith("\"'=HYPERLINK(") and ";s" in raw  # guarded in the file
     assert ResultsFolder(out).table("patterns.csv")["roles"].iloc[0] == f"{role};s"
-    series = pd.read_parquet(out / "pi_series.parquet")
+    series = pd.read_parquet(out / "participation_series.parquet")
     assert f"{role};s" in set(series["roles"].astype(str))  # Parquet keeps the value
 
 

@@ -174,7 +174,7 @@ class MiningResult:
     ) -> Path:
         """Write the results folder atomically and return its path.
 
-        Files: ``patterns.csv``, ``participation.csv``, ``pi_series.parquet``,
+        Files: ``patterns.csv``, ``participation.csv``, ``participation_series.parquet``,
         ``track_sample.parquet`` (thinned positions for maps),
         ``quality.json``, ``run.json``, ``significance.csv`` (every role set
         tested) when significance tests ran, and ``cross_k.csv`` when asked for.
@@ -183,7 +183,7 @@ class MiningResult:
             "track_sample.parquet": parquet_writer(self.sample),
             "patterns.csv": csv_writer(self.patterns),
             "participation.csv": csv_writer(self.participation),
-            "pi_series.parquet": parquet_writer(self.series),
+            "participation_series.parquet": parquet_writer(self.series),
             "quality.json": json_writer(self.quality),
             "run.json": json_writer(self.run),
         }

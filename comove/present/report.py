@@ -381,8 +381,10 @@ def _patterns_section(res: _Results) -> tuple[str, list[_Picture]]:
         parts.append(f'<p class="muted">The top {TABLE_PATTERNS} of {len(patterns):,} '
                      "patterns; all are in patterns.csv.</p>")  # fmt: skip
     parts.append(_table(header, rows, numeric))
-    name = "pi_series.parquet"
-    if not res.source.has(name):
+    # folders written before the file was renamed hold pi_series.parquet
+    name = next((n for n in ("participation_series.parquet", "pi_series.parquet")
+                 if res.source.has(n)), None)  # fmt: skip
+    if name is None:
         return "\n".join(parts), []
     top = [str(r) for r in patterns["roles"].head(TOP_PATTERNS)]
     columns = ["roles", "time", "participation_index", "prevalent"]

@@ -236,6 +236,7 @@ def large_folder(root, n: int = 1_000_000):
         "participation_index": np.concatenate([pi, pi[::-1]]).astype("float32"),
         "prevalent": np.concatenate([pi, pi[::-1]]) >= 0.5,
     })  # fmt: skip
+    # the file's name before it was spelled out: the report reads such older folders too
     series.to_parquet(folder / "pi_series.parquet", index=False)
     pd.DataFrame({
         "roles": ["alpha;beta", "beta;gamma"], "size": 2, "present_snapshots": snaps,
