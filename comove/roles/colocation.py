@@ -457,17 +457,23 @@ def mine_levels(
     edge_keys = pairs.keys(snaps.n_entries)
     for _size in range(3, params.max_size + 1):  # one pass per set size
         keep = level.prevalent >= int(min_prevalent_snapshots)
-        candidates = _candidates(level.roles, keep)
-        if only is not None:
-            allowed = only.get(_size, np.zeros(0, dtype=np.int64))
-            codes = encode_role_sets(candidates, len(snaps.roles))
-            candidates = candidates[np.isin(codes, allowed)]
+        candidates = _among(_candidates(level.roles, keep), only, _size, len(snaps.roles))
         if candidates.shape[0] == 0:
             break
         level = _next_level(snaps, level, keep, candidates, edge_keys, role_counts, presence,
                             params.min_participation)  # fmt: skip
         levels.append(level)
     return levels
+
+
+def _among(
+    candidates: np.ndarray, only: dict[int, np.ndarray] | None, size: int, n_roles: int
+) -> np.ndarray:
+    """Return the candidates of ``size`` roles that ``only`` allows (all when it is None)."""
+    if only is None:
+        return candidates
+    allowed = only.get(size, np.zeros(0, dtype=np.int64))
+    return candidates[np.isin(encode_role_sets(candidates, n_roles), allowed)]
 
 
 def _next_level(

@@ -191,10 +191,8 @@ def _formation(rng: np.random.Generator, anchor: np.ndarray, size: int) -> np.nd
     return out
 
 
-def generate(seed: int = SEED) -> tuple[pd.DataFrame, dict]:
-    """Return the tracks (person, t, x, y) and the truth of the dense-crowd scene."""
-    rng = np.random.default_rng(seed)
-    times = np.arange(0.0, DURATION + DT / 2, DT)
+def _people(rng: np.random.Generator, times: np.ndarray) -> tuple[list, list, dict, dict]:
+    """Return the strangers' paths and kinds, and each group's member paths and presence."""
     solo: list[_Path] = []
     kinds: list[str] = []
     walker_speed = lambda: float(np.clip(rng.normal(1.3, 0.15), 0.9, 1.8))  # noqa: E731
@@ -216,13 +214,15 @@ def generate(seed: int = SEED) -> tuple[pd.DataFrame, dict]:
              for k, t in zip(order, arrivals, strict=True)]  # fmt: skip
     queued = _queue_paths(rng, units)
     group_paths: dict[int, list[np.ndarray]] = {}
-    for (k, _), paths in zip(zip(order, arrivals, strict=True), queued, strict=True):
-        if k >= 40:
-            group_paths[queue_groups[k - 40]] = [p.at(times) for p in paths]
+    presence_of: dict[int, tuple[float, float]] = {}
+    for k, paths in zip(order, queued, strict=True):
+        if k >= 40:  # a queueing group: present from its first knot to its last
+            g = queue_groups[k - 40]
+            group_paths[g] = [p.at(times) for p in paths]
+            presence_of[g] = (min(p.knots[0][0] for p in paths), max(p.end[0] for p in paths))
         else:
             solo.append(paths[0])
             kinds.append("queuer")
-    presence_of = {}
     for g, (size, plan) in enumerate(zip(GROUP_SIZES, GROUP_PLANS, strict=True)):
         if plan == "queue":
             continue
@@ -235,66 +235,68 @@ def generate(seed: int = SEED) -> tuple[pd.DataFrame, dict]:
             anchor = _waiting(rng, t0, speed, _stand_spot(rng), rng.uniform(20, 60))
         group_paths[g] = list(_formation(rng, anchor.at(times), size))
         presence_of[g] = (anchor.knots[0][0], anchor.knots[-1][0])
-    # queue groups: present from their first knot to their last
-    for g, plan in enumerate(GROUP_PLANS):
-        if plan == "queue":
-            k = 40 + queue_groups.index(g)
-            paths = queued[int(np.flatnonzero(order == k)[0])]
-            presence_of[g] = (min(p.knots[0][0] for p in paths), max(p.end[0] for p in paths))
-    tracks, truth_groups, pid = [], [], 0
+    return solo, kinds, group_paths, presence_of
 
-    def add(xy: np.ndarray, first: float, last: float) -> int | None:
-        nonlocal pid
+
+class _Recorder:
+    """Turns paths into observed tracks (sway, noise, cut to the plaza) under running names."""
+
+    def __init__(self, rng: np.random.Generator, times: np.ndarray) -> None:
+        self.rng, self.times = rng, times
+        self.tracks: list[pd.DataFrame] = []
+
+    def add(self, xy: np.ndarray, first: float, last: float) -> str | None:
+        """Record one person's path between ``first`` and ``last``; return its name, if seen."""
+        times = self.times
         keep = (times >= first) & (times <= last)
         if keep.sum() < 2:
             return None
-        sway = kit.bounded_jitter(rng, times.size, DT, 0.8, 0.1)
-        xy = xy + sway + rng.normal(0, 0.03, xy.shape)
+        sway = kit.bounded_jitter(self.rng, times.size, DT, 0.8, 0.1)
+        xy = xy + sway + self.rng.normal(0, 0.03, xy.shape)
         on_plaza = (xy >= 0).all(axis=1) & (xy[:, 0] <= WIDTH) & (xy[:, 1] <= HEIGHT)
         inside = keep & on_plaza
         if inside.sum() < 2:
             return None
-        pid += 1
-        name = f"w{pid:04d}"
-        tracks.append(
-            pd.DataFrame(
-                {
-                    "person": name,
-                    "t": START + times[inside],
-                    "x": xy[inside, 0].round(3),
-                    "y": xy[inside, 1].round(3),
-                }
-            )
-        )
-        return pid
+        name = f"w{len(self.tracks) + 1:04d}"
+        self.tracks.append(pd.DataFrame({"person": name, "t": START + times[inside],
+                                         "x": xy[inside, 0].round(3),
+                                         "y": xy[inside, 1].round(3)}))  # fmt: skip
+        return name
 
+
+def generate(seed: int = SEED) -> tuple[pd.DataFrame, dict]:
+    """Return the tracks (person, t, x, y) and the truth of the dense-crowd scene."""
+    rng = np.random.default_rng(seed)
+    times = np.arange(0.0, DURATION + DT / 2, DT)
+    solo, kinds, group_paths, presence_of = _people(rng, times)
+    seen = _Recorder(rng, times)
     strangers: dict[str, list[str]] = {k: [] for k in dict.fromkeys(kinds)}
     for p, kind in zip(solo, kinds, strict=True):
-        if (i := add(p.at(times), p.knots[0][0], p.end[0])) is not None:
-            strangers[kind].append(f"w{i:04d}")
+        if (name := seen.add(p.at(times), p.knots[0][0], p.end[0])) is not None:
+            strangers[kind].append(name)
+    truth_groups = []
     for g in range(len(GROUP_SIZES)):
         first, last = presence_of[g]
-        ids = [add(xy, first, last) for xy in group_paths[g]]
-        ids = [f"w{i:04d}" for i in ids if i is not None]
+        ids = [n for xy in group_paths[g] if (n := seen.add(xy, first, last)) is not None]
         if len(ids) >= 2:
             truth_groups.append({"members": ids, "plan": GROUP_PLANS[g]})
     # names in a random order, so that nothing about a person shows in its name
-    shuffled = rng.permutation(pid) + 1
-    names = {f"w{k:04d}": f"w{v:04d}" for k, v in zip(range(1, pid + 1), shuffled, strict=True)}
-    frame = pd.concat(tracks, ignore_index=True)
+    count = len(seen.tracks)
+    shuffled = rng.permutation(count) + 1
+    names = {f"w{k:04d}": f"w{v:04d}" for k, v in zip(range(1, count + 1), shuffled, strict=True)}
+    frame = pd.concat(seen.tracks, ignore_index=True)
     frame["person"] = frame["person"].map(names)
     frame = frame.sort_values(["t", "person"], ignore_index=True)
     for group in truth_groups:
         group["members"] = sorted(names[m] for m in group["members"])
     strangers = {kind: sorted(names[m] for m in ids) for kind, ids in strangers.items()}
-    per_frame = frame.groupby("t").size()
     truth = {
         "input": "people.csv.gz",
         "columns": {"id": "person", "time": "t", "x": "x", "y": "y"},
         "parameters": PARAMETERS,
         "seed": seed,
         "people": int(frame["person"].nunique()),
-        "mean_people_per_frame": round(float(per_frame.mean()), 1),
+        "mean_people_per_frame": round(float(frame.groupby("t").size().mean()), 1),
         "groups": truth_groups,
         "strangers": strangers,
     }
