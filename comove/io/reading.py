@@ -636,7 +636,19 @@ def _find_named(name: str, cols: list[str], wanted: str, key: str) -> str:
     )
 
 
-def _find_auto(cols: list[str], names: Sequence[str], taken: set[str]) -> str | None:
+#: Parts of a time column's name that identify it when no name matches whole: vessel and
+#: collar exports spell it ``ais_pos_timestamp``, ``acquisition_datetime``, ...
+TIME_NAME_PARTS = ("timestamp", "datetime", "date_time")
+
+
+def _find_auto(
+    cols: list[str], names: Sequence[str], taken: set[str], parts: Sequence[str] = ()
+) -> str | None:
+    """Return the column named one of ``names`` (any case), else one holding a name part.
+
+    The second is the one column whose name holds one of ``parts``; None when
+    there is none, or several such columns.
+    """
     lower: dict[str, str] = {}
     for c in cols:
         if c not in taken:
@@ -644,7 +656,8 @@ def _find_auto(cols: list[str], names: Sequence[str], taken: set[str]) -> str | 
     for n in names:
         if n in lower:
             return lower[n]
-    return None
+    holding = [c for low, c in lower.items() if any(p in low for p in parts)]
+    return holding[0] if len(holding) == 1 else None
 
 
 def _missing(name: str, cols: list[str], key: str) -> InputError:
@@ -663,10 +676,11 @@ def _resolve(
 
     def pick(key: str, names: Sequence[str]) -> str | None:
         wanted = getattr(spec, key)
+        parts = TIME_NAME_PARTS if key == "time" else ()
         col = (
             _find_named(name, cols, wanted, key)
             if wanted is not None
-            else _find_auto(cols, names, taken)
+            else _find_auto(cols, names, taken, parts)
         )
         if col is not None:
             mapping[key] = col

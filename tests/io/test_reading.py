@@ -582,3 +582,15 @@ def test_a_geopackage_of_several_layers_needs_one_named(tmp_path: Path) -> None:
         warnings.simplefilter("error")
         assert len(read_tracks(str(path), ColumnSpec(layer="stops")).frame) == 1
         assert len(read_tracks(str(path), ColumnSpec(layer="tracks")).frame) == 3
+
+
+def test_a_time_column_named_with_timestamp_inside_is_found() -> None:
+    # vessel and collar exports spell it so (ais_pos_timestamp, acquisition_datetime)
+    df = pd.DataFrame({"ID": ["s1", "s1"], "ais_pos_timestamp": ["2021-03-20T00:22:00Z",
+                       "2021-03-20T00:23:00Z"], "longitude": [10.0, 10.01],
+                       "latitude": [50.0, 50.0]})  # fmt: skip
+    assert read_tracks(df, ColumnSpec(require_role=False)).columns["time"] == "ais_pos_timestamp"
+    # two such columns: neither is taken; the message asks to name one
+    both = df.assign(received_timestamp=df["ais_pos_timestamp"])
+    with pytest.raises(InputError, match="no time column found.*--time"):
+        read_tracks(both, ColumnSpec(require_role=False))
