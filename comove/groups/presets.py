@@ -64,6 +64,9 @@ PRESETS: dict[str, Preset] = {
                 "standing": "ignored",
             },
             why={
+                "mode": "component: members linked through one another are one group, as "
+                "groups walking in file or spread out are (common practice)",
+                "min_size": "2: a pair is the smallest group",
                 "radius": "Hall's proxemics: personal distance, kept among companions, ends "
                 "at about 1.2 m; social distance (1.2–3.6 m) is kept among strangers "
                 "(Hall 1966); plus about 0.3 m for the position error of person tracking "
@@ -121,6 +124,9 @@ PRESETS: dict[str, Preset] = {
                 "standing": "together",
             },
             why={
+                "mode": "component: members linked through one another are one group, as "
+                "groups walking in file or spread out are (common practice)",
+                "min_size": "2: a pair is the smallest group",
                 "radius": "GNSS player tracking errs by about 1–1.5 m per position, so "
                 "radii below ~2 m are noise on GNSS data; 5 m is within reach of a "
                 "challenge or a short pass (common practice)",
@@ -167,6 +173,9 @@ PRESETS: dict[str, Preset] = {
                 "standing": "apart",
             },
             why={
+                "mode": "component: members linked through one another are one group, as "
+                "groups walking in file or spread out are (common practice)",
+                "min_size": "2: a pair is the smallest group",
                 "radius": "the two-second following headway (common practice in driver "
                 "guidance) at about 30 m/s, i.e. 60 m",
                 "min_speed": "2 m/s: below it a vehicle is queueing or parked (common practice)",
@@ -185,6 +194,59 @@ PRESETS: dict[str, Preset] = {
                 "min_abreast": "off: convoys drive in file",
                 "standing": "apart: vehicles queueing at lights or parked are not a convoy, and "
                 "a queue moving off in file would otherwise look like one",
+            },
+        ),
+        Preset(
+            name="vessels",
+            subject="vehicles",
+            summary="ships and boats travelling together (AIS fixes)",
+            values={
+                "radius": 500.0,
+                "mode": "component",
+                "min_speed": 0.5,
+                "max_heading": 20.0,
+                "max_speed_ratio": 1.3,
+                "velocity_window": 60.0,
+                "min_size": 2,
+                "min_duration": 600.0,
+                "tolerance": 180.0,
+                "links": "evidence",
+                "evidence_window": 600.0,
+                "evidence_share": 0.5,
+                "nearest": 3,
+                "min_abreast": None,
+                "standing": "apart",
+            },
+            why={
+                "mode": "component: members linked through one another are one group, as "
+                "groups walking in file or spread out are (common practice)",
+                "min_size": "2: a pair is the smallest group",
+                "radius": "500 m, about 2.7 cables (1 cable = 185.2 m): ships sailing in "
+                "company or in convoy keep station a few cables apart, while anchored "
+                "neighbours in a roadstead lie closer (common practice)",
+                "min_speed": "0.5 m/s, about 1 knot of speed over ground: below it a vessel "
+                "is anchored, moored or drifting, and its course over ground is noise (common "
+                "practice in AIS analysis)",
+                "max_heading": "20 degrees of course over ground: ships in company steer the "
+                "same course within a few degrees; 20 allows for yawing in a seaway (common "
+                "practice)",
+                "max_speed_ratio": "1.3: ships in company keep one speed (common practice)",
+                "velocity_window": "60 s: several AIS reports of a vessel under way, which "
+                "Class A transponders send every 2 to 10 s and Class B every 30 s (ITU-R "
+                "M.1371, from memory)",
+                "min_duration": "10 minutes: longer than two ships passing or overtaking "
+                "(common practice)",
+                "tolerance": "3 minutes: one or two missed reports, and the 3-minute interval "
+                "of a slow or anchored ship (ITU-R M.1371, from memory)",
+                "links": "judged on the pair's last and next five minutes, so that an "
+                "overtaking or a crossing in a channel does not link two ships",
+                "evidence_window": "10 minutes, the minimum duration (common practice)",
+                "evidence_share": "together more often than not (common practice)",
+                "nearest": "in a busy channel close means closer than the other ships: each "
+                "among the other's three nearest (common practice)",
+                "min_abreast": "off: ships in company sail in line ahead as often as abreast",
+                "standing": "apart: ships at anchor or moored side by side are not sailing "
+                "together",
             },
         ),
         Preset(
@@ -209,6 +271,9 @@ PRESETS: dict[str, Preset] = {
                 "standing": "together",
             },
             why={
+                "mode": "component: members linked through one another are one group, as "
+                "groups walking in file or spread out are (common practice)",
+                "min_size": "2: a pair is the smallest group",
                 "radius": "proximity thresholds of 50–100 m are widely used for "
                 "association of ungulates from GPS collars, a little above collar "
                 "error and herd spacing (common practice)",

@@ -181,3 +181,22 @@ def test_velocity_equals_windowed_differences_clipped_to_presence_runs(workers):
         else:
             assert motion.vx[e] == pytest.approx((x[hi, o] - x[lo, o]) / (hi - lo))
             assert motion.vy[e] == pytest.approx((y[hi, o] - y[lo, o]) / (hi - lo))
+
+
+def test_every_preset_value_says_where_it_comes_from():
+    from pathlib import Path
+
+    from comove.groups.presets import PRESETS
+
+    table = (Path(__file__).resolve().parents[2] / "docs" / "groups.md").read_text()
+    header = next(line for line in table.splitlines() if line.startswith("| option |"))
+    for preset in PRESETS.values():
+        assert set(preset.values) <= set(preset.why), (
+            preset.name,
+            set(preset.values) - set(preset.why),
+        )
+        assert preset.subject in ("people", "vehicles", "animals"), preset.name
+        GroupParams(
+            **{k: v for k, v in preset.values.items() if k in GroupParams.__dataclass_fields__}
+        )
+        assert f"| {preset.name} |" in header, preset.name  # a column of the docs' table
