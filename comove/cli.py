@@ -57,6 +57,9 @@ _COLUMN_HELP = {
     "role": "column of object roles (default: detected)",
     "crs": "CRS of the x/y columns when they are not planar metres, e.g. EPSG:32633",
     "time_unit": "unit of numeric times: s or ms (default: ms when values exceed 1e11)",
+    "time_format": "strftime codes of the time text, e.g. %%d/%%m/%%Y %%H:%%M (default: ISO "
+    "8601, or local day-first or month-first dates when the dates tell which)",
+    "time_zone": "IANA zone of times written without one, e.g. Europe/Lisbon (default: UTC)",
     "layer": "layer of a GeoPackage that holds several (default: its only layer)",
 }
 _HIDDEN = {"require_role"}

@@ -15,6 +15,7 @@ import json
 import operator
 import os
 import sys
+import zoneinfo
 from collections.abc import Iterable, Iterator, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -183,6 +184,13 @@ class ColumnSpec:
         :meth:`pyproj.CRS.from_user_input` accepts, e.g. ``"EPSG:3857"``.
     time_unit : {None, "s", "ms"}
         Unit of numeric epoch times (``--time-unit``); ``None`` detects it.
+    time_format : str or None
+        The strftime codes the time text is written in (``--time-format``), e.g.
+        ``"%d/%m/%Y %H:%M"``; ``None`` reads ISO 8601, and local day-first or
+        month-first dates when the dates tell which.
+    time_zone : str or None
+        IANA zone of times written without one (``--time-zone``), e.g.
+        ``"Europe/Lisbon"``; ``None`` takes them as UTC.
     layer : str or None
         The layer of a GeoPackage (``--layer``); needed only when the file holds
         several, for a file of one layer it may be left out.
@@ -206,6 +214,8 @@ class ColumnSpec:
     role: str | None = None
     crs: str | None = None
     time_unit: str | None = None
+    time_format: str | None = None
+    time_zone: str | None = None
     layer: str | None = None
     require_role: bool = True
 
@@ -218,6 +228,14 @@ class ColumnSpec:
             raise InputError(
                 "give either --x/--y or --lon/--lat, not both; choose one coordinate pair"
             )
+        if self.time_zone is not None:
+            try:
+                zoneinfo.ZoneInfo(self.time_zone)
+            except (zoneinfo.ZoneInfoNotFoundError, ValueError):
+                raise InputError(
+                    f"--time-zone {self.time_zone!r} is not a time zone; give an IANA name "
+                    "such as Europe/Lisbon, or UTC"
+                ) from None
         if self.time_unit not in (None, "s", "ms"):
             raise InputError(
                 f"--time-unit {self.time_unit!r} is not supported; use s or ms "
@@ -260,6 +278,9 @@ class RawTracks:
         Whether missing roles are a reason to drop a row (copied from the column spec).
     time_unit : {None, "s", "ms"}
         Unit of numeric epoch times, ``None`` to detect it (copied from the column spec).
+    time_format, time_zone : str or None
+        How time text is written and the zone of zone-less times (copied from the
+        column spec).
     first_row : int
         For a block of :func:`read_blocks`: the 0-based row within its source of the block's
         first row; 0 for everything :func:`read_tracks` reads.
@@ -275,6 +296,8 @@ class RawTracks:
     columns: dict[str, str]
     role_required: bool = True
     time_unit: str | None = None
+    time_format: str | None = None
+    time_zone: str | None = None
     first_row: int = 0
     source_index: int = 0
 
@@ -377,6 +400,8 @@ def read_tracks(source: Any, columns: ColumnSpec | None = None) -> RawTracks:
         columns=parts[0].columns,
         role_required=spec.require_role,
         time_unit=spec.time_unit,
+        time_format=spec.time_format,
+        time_zone=spec.time_zone,
     )
 
 
@@ -480,6 +505,8 @@ def _blocks(tables: list[_Table], spec: ColumnSpec, rows: int) -> Iterator[RawTr
                 columns=dict(first.columns),
                 role_required=spec.require_role,
                 time_unit=spec.time_unit,
+                time_format=spec.time_format,
+                time_zone=spec.time_zone,
                 first_row=first_row,
                 source_index=index,
             )

@@ -7,12 +7,15 @@ into int64 nanoseconds since the Unix epoch and says which values it could not r
 
 from __future__ import annotations
 
+import warnings
 from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
 import pyarrow as pa
 import pyarrow.compute as pc
+
+from comove.errors import ComoveNote, InputError, bad_setting
 
 __all__ = ["MS_THRESHOLD", "ParsedTimes", "human_seconds", "parse_times", "utc_iso"]
 
@@ -166,7 +169,12 @@ def _iso_out_of_range(text: pa.Array, ok: np.ndarray) -> np.ndarray | None:
     return out
 
 
-def parse_times(values: pd.Series, unit: str | None) -> ParsedTimes:
+def parse_times(
+    values: pd.Series,
+    unit: str | None,
+    time_format: str | None = None,
+    time_zone: str | None = None,
+) -> ParsedTimes:
     """Turn the time column as read into int64 ns since the epoch, UTC.
 
     Parameters
@@ -175,6 +183,14 @@ def parse_times(values: pd.Series, unit: str | None) -> ParsedTimes:
         The time column as read: text, numbers, datetimes or a categorical of any of these.
     unit : {None, "s", "ms"}
         Unit of epoch numbers; ``None`` detects it.
+    time_format : str, optional
+        The standard strftime codes the times are written in (``"%d/%m/%Y %H:%M"``);
+        without it ISO 8601 text is read, and local day-first or month-first dates
+        (``20/03/2021 00:22``) when the dates themselves tell which (a note says
+        which was assumed; when they cannot, an error asks for the format).
+    time_zone : str, optional
+        IANA zone of times written without one (``"Europe/Lisbon"``); without it
+        they are UTC. Epoch numbers are UTC whatever it says.
 
     Returns
     -------
@@ -189,12 +205,22 @@ def parse_times(values: pd.Series, unit: str | None) -> ParsedTimes:
     A text column is read as epoch numbers or as ISO 8601, whichever reads more rows.
     A categorical column is parsed once per distinct value.
     """
-    values = values.reset_index(drop=True)
+    parsed = _parse_any(values.reset_index(drop=True), unit, time_format)
+    if time_zone is not None and parsed.zone_less.any():
+        parsed = _in_zone(parsed, time_zone)
+    return parsed
+
+
+def _parse_any(values: pd.Series, unit: str | None, time_format: str | None) -> ParsedTimes:
+    """Return :func:`parse_times` of ``values`` with zone-less times taken as UTC."""
+    if time_format is not None and not isinstance(values.dtype, pd.CategoricalDtype):
+        if not pd.api.types.is_datetime64_any_dtype(values.dtype):
+            return _parse_format(values, time_format)
     dtype = values.dtype
     if isinstance(dtype, pd.CategoricalDtype):
         # parse each distinct value once: fixes of one snapshot share their time text
         codes = values.cat.codes.to_numpy()
-        distinct = parse_times(pd.Series(np.asarray(values.cat.categories)), unit)
+        distinct = _parse_any(pd.Series(np.asarray(values.cat.categories)), unit, time_format)
         at = np.where(codes >= 0, codes, 0)
         ok = distinct.ok[at] & (codes >= 0)
         return ParsedTimes(
@@ -216,7 +242,72 @@ def parse_times(values: pd.Series, unit: str | None) -> ParsedTimes:
         parsed = pd.to_datetime(values, errors="coerce", utc=True)
         ns, ok = _datetimes_to_ns(parsed.dt.tz_localize(None))
         return ParsedTimes(ns, ok, np.zeros(len(values), dtype=bool), "datetimes")
-    return _parse_text(values, unit)
+    parsed = _parse_text(values, unit)
+    if parsed.kind == "ISO 8601 text" and not parsed.ok.all():
+        return _day_or_month_first(values, parsed)
+    return parsed
+
+
+def _parse_format(values: pd.Series, time_format: str) -> ParsedTimes:
+    """Return times written in ``time_format`` (strftime codes); the others are not read."""
+    text = values.astype("str").str.strip()
+    try:
+        parsed = pd.to_datetime(text, format=time_format, errors="coerce")
+    except ValueError as exc:  # a format pandas cannot use at all
+        problem = f"{time_format!r} is not a format of strftime codes pandas can read ({exc})"
+        raise bad_setting("time_format", problem + "; give e.g. %d/%m/%Y %H:%M") from None
+    if isinstance(parsed.dtype, pd.DatetimeTZDtype):
+        ns, ok = _datetimes_to_ns(parsed.dt.tz_convert("UTC").dt.tz_localize(None))
+        return ParsedTimes(ns, ok, np.zeros(len(values), dtype=bool), f"text as {time_format}")
+    ns, ok = _datetimes_to_ns(parsed)
+    return ParsedTimes(ns, ok, ok.copy(), f"text as {time_format}")
+
+
+#: A local date written day and month first or month and day first: 20/03/2021 00:22.
+_LOCAL_DATE = (
+    r"^\s*(\d{1,2})[/.-](\d{1,2})[/.-](\d{4})(?:[ T]\d{1,2}:\d{2}(?::\d{2}(?:\.\d+)?)?)?\s*$"
+)
+
+
+def _day_or_month_first(values: pd.Series, iso: ParsedTimes) -> ParsedTimes:
+    """Return ``iso``, or local d/m/y or m/d/y dates when most rows are written so."""
+    parts = values.astype("str").str.extract(_LOCAL_DATE)
+    dated = parts[0].notna().to_numpy()
+    present = int(values.notna().sum())
+    if dated.sum() <= iso.ok.sum() or 2 * dated.sum() <= present:  # not mostly such dates
+        return iso
+    first = parts[0][dated].astype(int)
+    second = parts[1][dated].astype(int)
+    day_first, month_first = bool((first > 12).any()), bool((second > 12).any())
+    example = str(values[dated].iloc[0]).strip()
+    if day_first == month_first:  # both days above 12 (not dates), or none: cannot tell
+        raise InputError(f"dates such as {example!r} may be day-first or month-first; give "
+                         "their format with --time-format, e.g. '%d/%m/%Y %H:%M'")  # fmt: skip
+    order = "day-first" if day_first else "month-first"
+    warnings.warn(ComoveNote(f"times such as {example!r} read as local {order} dates "
+                             "(the dates tell which); give --time-format to say otherwise"),
+                  stacklevel=3)  # fmt: skip
+    parsed = pd.to_datetime(values.astype("str").str.strip(), dayfirst=day_first,
+                            errors="coerce", format="mixed")  # fmt: skip
+    ns, ok = _datetimes_to_ns(parsed)
+    return ParsedTimes(ns, ok, ok.copy(), f"local {order} dates")
+
+
+def _in_zone(parsed: ParsedTimes, time_zone: str) -> ParsedTimes:
+    """Return ``parsed`` with its zone-less times read as local times of ``time_zone``."""
+    local = pd.Series(np.where(parsed.zone_less, parsed.ns, 0).astype("datetime64[ns]"))
+    try:
+        utc = local.dt.tz_localize(time_zone, ambiguous="NaT", nonexistent="NaT")
+    except Exception:  # pytz/zoneinfo raise several kinds for an unknown zone
+        raise bad_setting("time_zone", f"{time_zone!r} is not a time zone; give an IANA "
+                          "name such as Europe/Lisbon, or UTC") from None  # fmt: skip
+    ns, ok = _datetimes_to_ns(utc.dt.tz_convert("UTC").dt.tz_localize(None))
+    # a local time that the clock skipped or passed twice (a change of daylight
+    # saving time) has no single UTC time: it is not read
+    keep = ~parsed.zone_less | ok
+    return ParsedTimes(np.where(parsed.zone_less, ns, parsed.ns), parsed.ok & keep,
+                       np.zeros_like(parsed.zone_less), parsed.kind,
+                       parsed.out_of_range)  # fmt: skip
 
 
 # --------------------------------------------------------------------------- texts

@@ -76,7 +76,7 @@ _ADVICE = {
     ),
     "unparseable_time": (
         "give times as ISO 8601 (e.g. 2026-03-01T12:00:00Z) or epoch seconds or "
-        "milliseconds, or name another column with --time"
+        "milliseconds, or their format with --time-format, or name another column with --time"
     ),
     "exact_duplicate": "each object needs fixes at distinct times",
     "conflicting_duplicate": "each object needs one position per time",
@@ -385,7 +385,12 @@ def _mark_invalid(raw: RawTracks, frame: pd.DataFrame) -> _Rows:
         roles = np.append([""], roles)
         role = role + 1
     a, b, lon, lat = _mark_coordinates(raw, frame, reason)
-    times = parse_times(frame["time"], raw.time_unit)
+    try:
+        times = parse_times(frame["time"], raw.time_unit, raw.time_format, raw.time_zone)
+    except InputError as exc:  # say where: the file and its time column
+        where = raw.sources[raw.source_index] if raw.sources else "input"
+        raise InputError(f"{where}: time column {raw.columns.get('time', 'time')!r}: "
+                         f"{exc.worded_for()}") from None  # fmt: skip
     if times.out_of_range is not None:
         _mark(reason, times.out_of_range, "time_out_of_range")
     _mark(reason, ~times.ok, "unparseable_time")

@@ -594,3 +594,41 @@ def test_a_time_column_named_with_timestamp_inside_is_found() -> None:
     both = df.assign(received_timestamp=df["ais_pos_timestamp"])
     with pytest.raises(InputError, match="no time column found.*--time"):
         read_tracks(both, ColumnSpec(require_role=False))
+
+
+def _ais_like(times: list[str]) -> pd.DataFrame:
+    n = len(times)
+    lon = 10.0 + 0.001 * np.arange(n)
+    return pd.DataFrame({"ID": ["s1"] * n, "ais_pos_timestamp": times, "longitude": lon,
+                         "latitude": [50.0] * n})  # fmt: skip
+
+
+def test_local_day_first_dates_are_read_when_the_dates_tell_and_noted():
+    from comove.errors import ComoveNote
+    from comove.tracks.cleaning import CleanParams, clean_fixes
+
+    raw = read_tracks(_ais_like(["20/03/2021 00:22", "20/03/2021 00:23", "20/03/2021 00:24"]),
+                      ColumnSpec(require_role=False))  # fmt: skip
+    with pytest.warns(ComoveNote, match="day-first"):
+        fixes, quality = clean_fixes(raw, CleanParams())
+    assert quality["dropped"].get("unparseable_time", 0) == 0
+    assert fixes.time[0] == pd.Timestamp("2021-03-20T00:22:00Z").value
+    # the same dates given their format, as local times of a zone (CET, UTC+1 in March)
+    zoned = read_tracks(_ais_like(["20/03/2021 00:22", "20/03/2021 00:23"]),
+                        ColumnSpec(require_role=False, time_format="%d/%m/%Y %H:%M",
+                                   time_zone="Europe/Berlin"))  # fmt: skip
+    fixes, _ = clean_fixes(zoned, CleanParams())
+    assert fixes.time[0] == pd.Timestamp("2021-03-19T23:22:00Z").value
+
+
+def test_dates_that_cannot_tell_day_from_month_ask_for_the_format():
+    from comove.tracks.cleaning import CleanParams, clean_fixes
+
+    raw = read_tracks(_ais_like(["01/02/2021 00:22", "03/04/2021 00:23"]),
+                      ColumnSpec(require_role=False))  # fmt: skip
+    with pytest.raises(InputError, match="time column 'ais_pos_timestamp': dates such as "
+                       "'01/02/2021 00:22' may be day-first or month-first; give their "
+                       "format with --time-format"):  # fmt: skip
+        clean_fixes(raw, CleanParams())
+    with pytest.raises(InputError, match="--time-zone 'Mars/Olympus' is not a time zone"):
+        ColumnSpec(time_zone="Mars/Olympus")
