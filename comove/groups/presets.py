@@ -39,6 +39,13 @@ class Preset:
     subject: str | None = None
 
 
+#: Reasons that hold for the same value in every preset.
+_SHARED_WHY = {
+    "mode": "component: members linked through one another are one group, as groups "
+    "walking in file or spread out are (common practice)",
+    "min_size": "2: a pair is the smallest group",
+}
+
 PRESETS: dict[str, Preset] = {
     p.name: p
     for p in (
@@ -64,9 +71,7 @@ PRESETS: dict[str, Preset] = {
                 "standing": "ignored",
             },
             why={
-                "mode": "component: members linked through one another are one group, as "
-                "groups walking in file or spread out are (common practice)",
-                "min_size": "2: a pair is the smallest group",
+                **_SHARED_WHY,
                 "radius": "Hall's proxemics: personal distance, kept among companions, ends "
                 "at about 1.2 m; social distance (1.2–3.6 m) is kept among strangers "
                 "(Hall 1966); plus about 0.3 m for the position error of person tracking "
@@ -124,9 +129,7 @@ PRESETS: dict[str, Preset] = {
                 "standing": "together",
             },
             why={
-                "mode": "component: members linked through one another are one group, as "
-                "groups walking in file or spread out are (common practice)",
-                "min_size": "2: a pair is the smallest group",
+                **_SHARED_WHY,
                 "radius": "GNSS player tracking errs by about 1–1.5 m per position, so "
                 "radii below ~2 m are noise on GNSS data; 5 m is within reach of a "
                 "challenge or a short pass (common practice)",
@@ -173,9 +176,7 @@ PRESETS: dict[str, Preset] = {
                 "standing": "apart",
             },
             why={
-                "mode": "component: members linked through one another are one group, as "
-                "groups walking in file or spread out are (common practice)",
-                "min_size": "2: a pair is the smallest group",
+                **_SHARED_WHY,
                 "radius": "the two-second following headway (common practice in driver "
                 "guidance) at about 30 m/s, i.e. 60 m",
                 "min_speed": "2 m/s: below it a vehicle is queueing or parked (common practice)",
@@ -218,9 +219,7 @@ PRESETS: dict[str, Preset] = {
                 "standing": "apart",
             },
             why={
-                "mode": "component: members linked through one another are one group, as "
-                "groups walking in file or spread out are (common practice)",
-                "min_size": "2: a pair is the smallest group",
+                **_SHARED_WHY,
                 "radius": "500 m, about 2.7 cables (1 cable = 185.2 m): ships sailing in "
                 "company or in convoy keep station a few cables apart, while anchored "
                 "neighbours in a roadstead lie closer (common practice)",
@@ -271,9 +270,7 @@ PRESETS: dict[str, Preset] = {
                 "standing": "together",
             },
             why={
-                "mode": "component: members linked through one another are one group, as "
-                "groups walking in file or spread out are (common practice)",
-                "min_size": "2: a pair is the smallest group",
+                **_SHARED_WHY,
                 "radius": "proximity thresholds of 50–100 m are widely used for "
                 "association of ungulates from GPS collars, a little above collar "
                 "error and herd spacing (common practice)",
