@@ -467,19 +467,21 @@ def _stop_workers() -> None:
 
 
 @contextmanager
-def _stopping_on_signals() -> Iterator[None]:
+def _stopping_on_signals(seen: list[int]) -> Iterator[None]:
     """Turn SIGINT, SIGTERM and SIGHUP into exceptions that unwind the run and its cleanup.
 
-    The first signal kills the run's worker processes and raises
-    KeyboardInterrupt (SIGINT) or :class:`_Stopped`; later ones are ignored
-    while the run cleans up. A worker process forked with these handlers exits
-    at once, quietly. The previous handlers are restored afterwards.
+    The first signal kills the run's worker processes, is recorded in ``seen``
+    and raises KeyboardInterrupt (SIGINT) or :class:`_Stopped`; later ones are
+    ignored while the run cleans up. A worker process forked with these
+    handlers exits at once, quietly. When the exception is raised where Python
+    swallows exceptions (a garbage-collector or finaliser callback of a
+    library), it is not printed, and the caller learns of the signal from
+    ``seen``. The previous handlers are restored afterwards.
     """
     if threading.current_thread() is not threading.main_thread():
         yield
         return
     home = os.getpid()
-    seen: list[int] = []
 
     def stop(signum: int, _frame: Any) -> None:
         if os.getpid() != home:
@@ -492,10 +494,18 @@ def _stopping_on_signals() -> Iterator[None]:
             raise KeyboardInterrupt
         raise _Stopped(signum)
 
+    hook = sys.unraisablehook
+
+    def quiet(unraisable: Any) -> None:
+        if not issubclass(unraisable.exc_type, (_Stopped, KeyboardInterrupt)):
+            hook(unraisable)
+
     old = {s: signal.signal(s, stop) for s in _STOP_SIGNALS}
+    sys.unraisablehook = quiet
     try:
         yield
     finally:
+        sys.unraisablehook = hook
         for s, handler in old.items():
             signal.signal(s, signal.SIG_DFL if handler is None else handler)
 
@@ -522,27 +532,44 @@ def main(argv: list[str] | None = None) -> int:
     args.claims = []
     commands = {"mine": _run_mine, "groups": _run_groups, "sweep": _run_sweep,
                 "report": _run_report, "demo": _run_demo}  # fmt: skip
+    seen: list[int] = []
     try:
-        with _stopping_on_signals(), _notes_printed(args.command):
+        with _stopping_on_signals(seen), _notes_printed(args.command):
             commands[args.command](args)
-    except InputError as err:
+    except KeyboardInterrupt:
+        return _stopped(args, signal.SIGINT)
+    except _Stopped as stop:
+        return _stopped(args, stop.signum)
+    except (InputError, EngineError, OSError) as err:
+        if seen:  # a signal whose exception a library swallowed; what failed is its doing
+            return _stopped(args, seen[0])
+        return _failed(args, err)
+    if seen:  # the signal's exception was swallowed and the run went on to its end
+        return _stopped(args, seen[0])
+    return 0
+
+
+def _stopped(args: argparse.Namespace, signum: int) -> int:
+    """Print the one line of a run stopped by a signal; return its exit status."""
+    if signum == signal.SIGINT:
+        print(f"comove {args.command}: interrupted; {_left(args)}", file=sys.stderr)
+    else:
+        name = signal.Signals(signum).name
+        print(f"comove {args.command}: stopped by {name}; {_left(args)}", file=sys.stderr)
+    return 128 + int(signum)
+
+
+def _failed(args: argparse.Namespace, err: Exception) -> int:
+    """Print the one line of a failed run; return its exit status (2: the input, else 1)."""
+    if isinstance(err, InputError):
         print(f"comove {args.command}: error: {err.worded_for('--')}", file=sys.stderr)
         return EXIT_INPUT
-    except EngineError as err:
-        print(f"comove {args.command}: error: {err}", file=sys.stderr)
-        return 1
-    except KeyboardInterrupt:
-        print(f"comove {args.command}: interrupted; {_left(args)}", file=sys.stderr)
-        return 130
-    except _Stopped as stop:
-        name = signal.Signals(stop.signum).name
-        print(f"comove {args.command}: stopped by {name}; {_left(args)}", file=sys.stderr)
-        return 128 + stop.signum
-    except OSError as err:
+    if isinstance(err, OSError):
         where = f"{err.filename}: " if err.filename else ""
         print(f"comove {args.command}: error: {where}{err.strerror or err}", file=sys.stderr)
         return 1
-    return 0
+    print(f"comove {args.command}: error: {err}", file=sys.stderr)
+    return 1
 
 
 @contextmanager

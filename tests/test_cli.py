@@ -628,3 +628,27 @@ def test_the_caution_speaks_of_what_was_tracked(tracks_csv, tmp_path, capsys, pr
     caution = json.loads((out_dir / "run.json").read_text())["caution"]
     assert words in caution and "association, not interaction or cause" in caution
     assert f"Caution: {caution}" in out
+
+
+def test_a_signal_whose_exception_a_library_swallows_still_stops_the_run(monkeypatch, capsys):
+    # a signal that arrives inside a finaliser (as in a library's garbage-collector
+    # callback): Python swallows the handler's exception there; the run must still end
+    # as stopped, in one line, with 128 + the signal's number
+    import gc
+    import signal
+
+    import comove.cli as cli
+
+    class Finaliser:
+        def __del__(self):
+            os.kill(os.getpid(), signal.SIGTERM)
+
+    def command(args):
+        Finaliser()
+        gc.collect()  # the signal's exception is raised and swallowed here
+
+    monkeypatch.setattr(cli, "_run_report", command)
+    code = main(["report", "somewhere"])
+    err = capsys.readouterr().err
+    assert code == 128 + signal.SIGTERM
+    assert err == "comove report: stopped by SIGTERM; nothing was written\n"
