@@ -31,11 +31,14 @@ os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 _COLLECTING = gc.isenabled()  # a program that imports this module keeps its own setting
 gc.disable()
 
+import pandas as pd  # noqa: E402
+
 import comove  # noqa: E402
 from comove.errors import ComoveNote, EngineError, InputError  # noqa: E402
 from comove.groups.presets import PRESETS  # noqa: E402
 from comove.io.results import CAUTION, Claim, claim  # noqa: E402
 from comove.io.runfile import load_run_file  # noqa: E402
+from comove.io.times import human_seconds, utc_iso  # noqa: E402
 from comove.pipeline.core import GROUP_STAGES, MINE_STAGES, groups, mine  # noqa: E402
 from comove.pipeline.sweep import SWEEP_STAGES, sweep  # noqa: E402
 from comove.tracks.quality import format_quality_summary  # noqa: E402
@@ -372,7 +375,10 @@ def _report(result: comove.pipeline.core.MiningResult, out: Path, quiet: bool, h
     print(f"\n{n} durable role set{'s' if n != 1 else ''} kept.")
     if n:
         shown = ["roles", "time_prevalence", "longest_run_seconds", "p_value", "q_value"]
-        top = result.patterns.head(10)[[c for c in shown if c in result.patterns]]
+        top = result.patterns.head(10)[[c for c in shown if c in result.patterns]].copy()
+        # durations for people, as the report writes them; the files keep seconds
+        top["longest_run_seconds"] = top["longest_run_seconds"].map(human_seconds)
+        top = top.rename(columns={"longest_run_seconds": "longest_run"})
         print(top.to_string(index=False, float_format=lambda v: f"{v:.3f}"))
     _written(out, held, f" — for figures: comove report {out}")
     print(f"Caution: {result.run.get('caution', CAUTION)}")
@@ -402,8 +408,15 @@ def _run_groups(args: argparse.Namespace) -> None:
     print(f"\n{n} episode{'s' if n != 1 else ''} of objects moving together.")
     if n:
         top = result.episodes.sort_values("duration_s", ascending=False).head(10)
-        shown = ["episode", "start", "duration_s", "together_s", "members"]
-        print(top[shown].to_string(index=False))
+        # times and durations for people, as the quality summary writes them
+        table = pd.DataFrame({
+            "episode": top["episode"],
+            "start": [utc_iso(t.value) for t in top["start"]],
+            "duration": top["duration_s"].map(human_seconds),
+            "together": top["together_s"].map(human_seconds),
+            "members": top["members"],
+        })  # fmt: skip
+        print(table.to_string(index=False))
     listed = result.run["settings"]["DyadParams"]["dyad_pairs"]
     meaning = "together at least once" if listed == "together" else "seen at the same time"
     print(f"{len(result.dyads)} pairs of objects {meaning} in dyads.csv.")
