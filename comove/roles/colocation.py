@@ -450,14 +450,12 @@ def mine_levels(
         raise ValueError("neighbour pairs were computed at another radius")
     role_counts = RoleCounts(snaps)
     presence = presence or RolePresence(snaps)
-    role_sets, instances, instance_set = _pair_level(snaps, pairs)
-    level = _level_from_instances(snaps, role_sets, instances, instance_set, role_counts,
-                                  presence, params.min_participation)  # fmt: skip
-    levels = [level]
-    edge_keys = pairs.keys(snaps.n_entries)
-    for _size in range(3, params.max_size + 1):  # one pass per set size
+    level = _level_from_instances(snaps, *_pair_level(snaps, pairs), role_counts, presence,
+                                  params.min_participation)  # fmt: skip
+    levels, edge_keys = [level], pairs.keys(snaps.n_entries)
+    for size in range(3, params.max_size + 1):  # one pass per set size
         keep = level.prevalent >= int(min_prevalent_snapshots)
-        candidates = _among(_candidates(level.roles, keep), only, _size, len(snaps.roles))
+        candidates = _among(_candidates(level.roles, keep), only, size, len(snaps.roles))
         if candidates.shape[0] == 0:
             break
         level = _next_level(snaps, level, keep, candidates, edge_keys, role_counts, presence,
