@@ -255,14 +255,14 @@ def chunk_episode_rows(
     grouping : GroupParams
         Its velocity window and moving speed are used.
     workers : int, default 1
-        Threads of the velocities (-1: every core).
+        Threads of the velocities and of the rows (-1: every core).
     offset : int, optional
         The chunk's first snapshot counted from the run's first; ``start`` when
         ``snaps`` is the whole run (the default), else the caller says.
     """
     chunk, motion = _chunk_motion(snaps, start, stop, grouping, workers)
     offset = max(int(start), 0) if offset is None else int(offset)
-    return episode_rows(chunk, episodes, motion, grouping.min_speed, offset=offset)
+    return episode_rows(chunk, episodes, motion, grouping.min_speed, offset=offset, workers=workers)
 
 
 def _chunk_motion(

@@ -6,6 +6,8 @@ and the snapshots they were found in; nothing feeds back into the search.
 
 from __future__ import annotations
 
+from collections.abc import Callable
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from typing import Any
 
@@ -16,6 +18,7 @@ from comove.groups.episodes import MEMBER_SEP, Episodes
 from comove.io.projection import working_to_input
 from comove.tracks.alignment import Snapshots
 from comove.tracks.motion import Motion
+from comove.tracks.neighbours import worker_count
 
 
 class _EntryLookup:
@@ -119,17 +122,30 @@ class _RowStats:
         d += dy
         np.sqrt(d, out=d)
         d *= both
-        self.d_sum[rows] = d.sum(axis=0)
+        self.d_sum[rows] = _row_sum(d)
         self.n_both[rows] = both.sum(axis=0)
         self.d_max[rows] = d.max(axis=0)
         ex *= present
         ey *= present
         with np.errstate(invalid="ignore", divide="ignore"):
-            self.cx[rows] = ex.sum(axis=0) / n_present
-            self.cy[rows] = ey.sum(axis=0) / n_present
+            self.cx[rows] = _row_sum(ex) / n_present
+            self.cy[rows] = _row_sum(ey) / n_present
         # most present members faster than min_speed (NaN speeds count as not moving)
         fast = present & (motion.speed[safe] > min_speed)
         self.moving[rows] = 2 * fast.sum(axis=0) > n_present
+
+
+def _row_sum(values: np.ndarray) -> np.ndarray:
+    """Return the sums over axis 0, added in row order whatever the array's shape.
+
+    numpy sums a column of a one-column array pairwise but the columns of a
+    wider one row by row; adding row by row here keeps every sum the same
+    bit for bit however the rows are cut into blocks.
+    """
+    total = values[0].copy() if values.shape[0] else np.zeros(values.shape[1:])
+    for row in values[1:]:  # one pass per member or member pair
+        total += row
+    return total
 
 
 def _per_episode_mean(owner: np.ndarray, values: np.ndarray, use: np.ndarray, n: int) -> np.ndarray:
@@ -253,7 +269,12 @@ def _spans(episodes: Episodes) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
 
 
 def episode_rows(
-    snaps: Snapshots, episodes: Episodes, motion: Motion, min_speed: float, offset: int = 0
+    snaps: Snapshots,
+    episodes: Episodes,
+    motion: Motion,
+    min_speed: float,
+    offset: int = 0,
+    workers: int = 1,
 ) -> EpisodeRows:
     """Return the episode-table rows that fall in ``snaps``.
 
@@ -270,16 +291,29 @@ def episode_rows(
         Speed in m/s above which a member counts as moving.
     offset : int, default 0
         The run's snapshot at which ``snaps`` starts.
+    workers : int, default 1
+        Threads filling the rows (whole-array numpy, which releases the
+        interpreter lock; -1: one per core); the result does not depend on it.
 
     Returns
     -------
     EpisodeRows
     """
+    workers = worker_count(workers)
     row_ep, row_snap, _ = _spans(episodes)
     local = row_snap - offset
     rows = np.flatnonzero((local >= 0) & (local < snaps.n_snapshots))
     sizes = np.array([m.size for m in episodes.members], dtype=np.int64)
-    stats = _row_stats(snaps, episodes, sizes, row_ep[rows], local[rows], motion, min_speed)
+    blocks = _row_blocks(episodes, sizes, row_ep[rows], workers)
+    stats = _RowStats(rows.size)
+    fill = _block_filler(snaps, row_ep[rows], local[rows], motion, min_speed, stats)
+    if workers > 1 and len(blocks) > 1:  # each block fills rows of its own
+        with ThreadPoolExecutor(max_workers=workers) as pool:
+            role_keys = pool.submit(_role_keys, snaps, episodes, offset)
+            list(pool.map(fill, blocks))
+            return EpisodeRows(rows=rows, stats=stats, role_keys=role_keys.result())
+    for block in blocks:
+        fill(block)
     return EpisodeRows(rows=rows, stats=stats, role_keys=_role_keys(snaps, episodes, offset))
 
 
@@ -288,30 +322,49 @@ def _text_column(values: list[str]) -> pd.Series:
     return pd.Series(values, dtype="str")
 
 
-def _row_stats(
+#: A block of episode-table rows: the rows, the episodes of their size, and those
+#: episodes' members (shape (size, episodes)).
+_Block = tuple[np.ndarray, np.ndarray, np.ndarray]
+
+
+def _row_blocks(
+    episodes: Episodes, sizes: np.ndarray, row_ep: np.ndarray, workers: int = 1
+) -> list[_Block]:
+    """Return the blocks of (episode, snapshot) rows to fill, by episode size.
+
+    Rows of equal width, at most ``TABLE_BLOCK`` (row, member pair) cells a
+    block, and with several workers at least as many blocks of each size as
+    workers.
+    """
+    blocks = []
+    for size in np.unique(sizes).tolist():  # per episode size: rows of equal width
+        eps = np.flatnonzero(sizes == size)
+        members = np.stack([episodes.members[k] for k in eps], axis=1)
+        rows = np.flatnonzero(sizes[row_ep] == size)
+        step = max(1, TABLE_BLOCK // max(size, size * (size - 1) // 2))
+        step = min(step, max(1, -(-rows.size // workers)))
+        blocks += [(rows[r0 : r0 + step], eps, members) for r0 in range(0, rows.size, step)]
+    return blocks
+
+
+def _block_filler(
     snaps: Snapshots,
-    episodes: Episodes,
-    sizes: np.ndarray,
     row_ep: np.ndarray,
     row_snap: np.ndarray,
     motion: Motion,
     min_speed: float,
-) -> _RowStats:
-    """Return the statistics of every (episode, snapshot) row, by episode size, in blocks."""
-    stats = _RowStats(row_ep.size)
+    stats: _RowStats,
+) -> Callable[[_Block], None]:
+    """Return a function that fills the statistics of one block of :func:`_row_blocks`."""
     lookup = _EntryLookup(snaps)
-    for size in np.unique(sizes).tolist():  # per episode size: rows of equal width
-        eps = np.flatnonzero(sizes == size)
-        member_rows = np.stack([episodes.members[k] for k in eps], axis=1)  # (size, eps)
-        pairs = np.triu_indices(size, 1)
-        rows = np.flatnonzero(sizes[row_ep] == size)
-        step = max(1, TABLE_BLOCK // max(size, pairs[0].size))
-        for r0 in range(0, rows.size, step):  # per block of rows
-            r = rows[r0 : r0 + step]
-            owner = row_ep[r]
-            entry = lookup.entries(row_snap[r], member_rows[:, np.searchsorted(eps, owner)])
-            stats.fill(r, entry, pairs, snaps, motion, min_speed)
-    return stats
+
+    def fill(block: _Block) -> None:
+        rows, eps, members = block
+        # each row's members' entries: (size, rows), -1 where absent
+        entry = lookup.entries(row_snap[rows], members[:, np.searchsorted(eps, row_ep[rows])])
+        stats.fill(rows, entry, np.triu_indices(members.shape[0], 1), snaps, motion, min_speed)
+
+    return fill
 
 
 def episode_table(
@@ -320,6 +373,7 @@ def episode_table(
     motion: Motion,
     min_speed: float,
     rows: EpisodeRows | None = None,
+    workers: int = 1,
 ) -> tuple[pd.DataFrame, list[np.ndarray]]:
     """Return one row per episode and the centroid path of each.
 
@@ -337,6 +391,8 @@ def episode_table(
         The rows read chunk by chunk (:func:`episode_rows` of each chunk,
         joined); read from ``snaps`` and ``motion`` when omitted. Given, only
         the names, step and first snapshot of ``snaps`` are used.
+    workers : int, default 1
+        Threads reading the rows when ``rows`` is omitted (see :func:`episode_rows`).
 
     Returns
     -------
@@ -365,7 +421,7 @@ def episode_table(
     row_ep, row_snap, first_row = _spans(episodes)
     sizes = np.array([m.size for m in episodes.members], dtype=np.int64)
     if rows is None:
-        rows = episode_rows(snaps, episodes, motion, min_speed)
+        rows = episode_rows(snaps, episodes, motion, min_speed, workers=workers)
     stats = rows.stats.placed(rows.rows, row_ep.size)
     mean_spacing, max_spacing = _spacings(stats, row_ep, first_row, n_ep)
     observed = stats.n_present > 0  # in a tolerated gap no member may have data

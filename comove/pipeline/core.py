@@ -566,5 +566,6 @@ def _observed_groups(
 
         tally = group_chain(snaps, grouping, episode_params, workers=run_params.threads,
                             before_search=count_dyads)  # fmt: skip
-        table, centroids = episode_table(snaps, tally.episodes, tally.motion, grouping.min_speed)
+        table, centroids = episode_table(snaps, tally.episodes, tally.motion, grouping.min_speed,
+                                         workers=run_params.threads)  # fmt: skip
         return tally, table, centroids, counting[0].result()

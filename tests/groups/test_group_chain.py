@@ -10,6 +10,7 @@ from hypothesis import strategies as st
 from scenes import SCENARIO_RUNS, gap_midpoints, grid_scene, random_walkers, run_scenario
 from scipy.spatial.distance import cdist
 
+from comove.groups import summary
 from comove.groups.chain import (
     chunk_dyads,
     chunk_episode_rows,
@@ -190,6 +191,20 @@ def test_chunked_episode_table_equals_the_whole_on_every_scenario(scenario_group
     inside = [(int(s) + int(e)) // 2 for s, e in zip(runs.start, runs.end, strict=True)]
     for cuts in (list(range(n // 7, n, n // 7)), sorted(set(inside))[:40], gap_midpoints(snaps)):
         assert_same_table(chunked_table(snaps, grouping, tally, cuts), whole)
+
+
+@pytest.mark.parametrize(("block", "workers"), [(1, 3), (7, 3), (1_000_000, 3), (1_000_000, -1)])
+def test_episode_table_filled_in_threads_equals_one_thread(
+    scenario_groups, monkeypatch, block, workers
+):
+    # blocks of one row, of a few rows and of whole sizes, filled by three threads or
+    # one per core
+    snaps, grouping, episode_params = scenario_groups
+    tally = group_chain(snaps, grouping, episode_params)
+    whole = episode_table(snaps, tally.episodes, tally.motion, grouping.min_speed)
+    monkeypatch.setattr(summary, "TABLE_BLOCK", block)
+    found = episode_table(snaps, tally.episodes, tally.motion, grouping.min_speed, workers=workers)
+    assert_same_table(found, whole)
 
 
 @settings(max_examples=30, deadline=None, suppress_health_check=[HealthCheck.too_slow])
