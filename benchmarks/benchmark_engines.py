@@ -7,7 +7,7 @@ of one and of two worker processes. Prints the wall time of each, the speed-up
 of two dask workers over one, and whether every table written is identical
 (byte for byte) across the three.
 
-    python benchmarks/benchmark_engines.py --permutations 39
+    python benchmarks/benchmark_engines.py --replicates 39
 """
 
 from __future__ import annotations
@@ -26,14 +26,14 @@ def main() -> None:
     """Write the match, run the three engines, print times and whether the tables agree."""
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--minutes", type=float, default=90.0)
-    parser.add_argument("--permutations", type=int, default=39)
+    parser.add_argument("--replicates", type=int, default=39)
     parser.add_argument("--out", type=Path, default=Path("bench-engines"))
     args = parser.parse_args()
     args.out.mkdir(parents=True, exist_ok=True)
     data = args.out / "match.parquet"
     invented_match(args.minutes, 25.0).to_parquet(data, index=False)
     base = [sys.executable, "-m", "comove.cli", "mine", str(data), "--radius", str(RADIUS),
-            "--max-size", "3", "--step", "0.04", "--permutations", str(args.permutations),
+            "--max-size", "3", "--step", "0.04", "--replicates", str(args.replicates),
             "--seed", "1", "--force", "--quiet"]  # fmt: skip
     runs = {
         "local, 2 jobs": ["--engine", "local", "--jobs", "2"],

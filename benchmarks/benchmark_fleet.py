@@ -83,7 +83,7 @@ def main() -> None:
     del frame
 
     cli = [sys.executable, "-m", "comove.cli"]
-    common = [*COLUMNS, "--step", "60", "--permutations", "0", "--force", "--quiet"]
+    common = [*COLUMNS, "--step", "60", "--replicates", "0", "--force", "--quiet"]
     commands = {}
     for name, data in (("day", whole), ("half", half)):
         commands[f"reference_{name}"] = [sys.executable, "-c", REFERENCE, str(data), str(RADIUS)]

@@ -221,8 +221,8 @@ def main() -> None:
     parser.add_argument("--naive-sample", type=int, default=3000)
     parser.add_argument("--repeat", type=int, default=5, help="timed rounds of each; medians count")
     parser.add_argument(
-        "--permutations", type=int, default=0,
-        help="also time `comove mine --permutations N` in every round, as a ratio to the "
+        "--replicates", type=int, default=0,
+        help="also time `comove mine --replicates N` in every round, as a ratio to the "
         "untested `mine` of the same round",
     )  # fmt: skip
     parser.add_argument("--out", type=Path, default=Path("bench-out"))
@@ -244,7 +244,7 @@ def main() -> None:
 
     results = args.out / "results"
     cli = [sys.executable, "-m", "comove.cli"]
-    common = ["--step", str(1 / args.hz), "--force", "--quiet", "--permutations", "0"]
+    common = ["--step", str(1 / args.hz), "--force", "--quiet", "--replicates", "0"]
     commands = {
             "reference": [sys.executable, "-c", REFERENCE, str(data), str(RADIUS), str(args.hz)],
             # the same with OpenBLAS on one thread, as the command line runs it
@@ -255,10 +255,10 @@ def main() -> None:
             "groups": [*cli, "groups", str(data), "--preset", "team-sport", *common,
                        "--out", str(args.out / "groups")],
     }  # fmt: skip
-    if args.permutations:
+    if args.replicates:
         commands["tested"] = [*cli, "mine", str(data), "--radius", str(RADIUS), "--max-size",
                               "3", "--step", str(1 / args.hz), "--force", "--quiet",
-                              "--permutations", str(args.permutations), "--seed", "1",
+                              "--replicates", str(args.replicates), "--seed", "1",
                               "--out", str(args.out / "permuted")]  # fmt: skip
     measured = run_rounds(commands, args.repeat)
     ref_walls, ref_peak, ref_out = measured["reference"]
@@ -268,7 +268,7 @@ def main() -> None:
     ref_wall, mine_wall, groups_wall = map(_median, (ref_walls, mine_walls, groups_walls))
     mine_ratio = _median([m / r for m, r in zip(mine_walls, ref_walls, strict=True)])
     groups_ratio = _median([g / r for g, r in zip(groups_walls, ref_walls, strict=True)])
-    perm_wall = _median(measured["tested"][0]) if args.permutations else None
+    perm_wall = _median(measured["tested"][0]) if args.replicates else None
     naive_wall, _, naive_out = run_measured(
         [sys.executable, "-c", NAIVE, str(data), str(RADIUS), str(args.naive_sample)]
     )
@@ -293,7 +293,7 @@ def main() -> None:
         f"{naive_total:.0f} | — |"
     )
     if perm_wall is not None:
-        print(f"| `comove mine --permutations {args.permutations}` | {perm_wall:.1f} | — |")
+        print(f"| `comove mine --replicates {args.replicates}` | {perm_wall:.1f} | — |")
     print()
     each = ", ".join(f"{g / r:.2f}" for g, r in zip(groups_walls, ref_walls, strict=True))
     print(f"groups / reference: {groups_ratio:.2f}x (median of {args.repeat} rounds: {each}); "
@@ -303,7 +303,7 @@ def main() -> None:
           f"(fastest / fastest: {min(groups_walls) / min(blas_walls):.2f}x)")  # fmt: skip
     if perm_wall is not None:
         tested = [t / m for t, m in zip(measured["tested"][0], mine_walls, strict=True)]
-        print(f"mine --permutations {args.permutations} / untested mine: "
+        print(f"mine --replicates {args.replicates} / untested mine: "
               f"{_median(tested):.1f}x (median of {args.repeat} rounds: "
               + ", ".join(f"{r:.1f}" for r in tested) + ")")  # fmt: skip
     print(

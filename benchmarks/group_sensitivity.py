@@ -47,7 +47,7 @@ ROWS = [
     ("standing counts as apart", {"standing": "apart"}),
     ("radius 1.2 m", {"radius": 1.2}),
     ("radius 2.0 m", {"radius": 2.0}),
-    ("minimum duration 8 s", {"min_duration": 8.0}),
+    ("minimum duration 8 s", {"min_together_time": 8.0}),
 ]
 
 
@@ -78,7 +78,7 @@ def crowd_scene() -> tuple[str, dict, set]:
 
 def score(source, options: dict, truth: set) -> tuple[float, float, float]:
     """Return pairwise precision, recall and F1 of the preset with ``options``."""
-    found = groups(source, preset="pedestrians", permutations=0, **options)
+    found = groups(source, preset="pedestrians", replicates=0, **options)
     predicted = _pairs(m.split(";") for m in found.episodes["members"])
     tp = len(predicted & truth)
     precision = tp / max(len(predicted), 1)

@@ -43,15 +43,16 @@ SCENARIOS: dict[str, dict[str, list[str]]] = {
     "game": {
         "input": [str(DATA / "small_sided_game/players.csv.gz"), "--id", "player", "--time",
                   "t", "--x", "x", "--y", "y", "--role", "role"],
-        "mine": ["--radius", "3", "--step", "0.1", "--min-duration", "30", "--k-radii", "1:6:1"],
+        "mine": ["--radius", "3", "--step", "0.1", "--min-prevalent-time", "30",
+                 "--k-radii", "1:6:1"],
         "groups": ["--preset", "team-sport", "--radius", "3", "--step", "0.1"],
-        "roles": ["--radius", "3", "--step", "0.1", "--min-duration", "30",
+        "roles": ["--radius", "3", "--step", "0.1", "--min-prevalent-time", "30",
                   "--null", "role-shuffle", "--shuffle-strata", "_"],
         "sweep": ["--radius", "2:4:1", "--min-participation", "0.4,0.5", "--step", "0.1"],
     },
     "fleet": {
         "input": [str(DATA / "fleet/vehicles.csv")],
-        "mine": ["--radius", "150", "--max-speed", "60", "--min-duration", "600",
+        "mine": ["--radius", "150", "--max-speed", "60", "--min-prevalent-time", "600",
                  "--k-radii", "50:250:50"],
         "groups": ["--preset", "vehicles", "--radius", "150", "--max-speed", "60"],
         "roles": ["--radius", "150", "--max-speed", "60", "--null", "role-shuffle"],
@@ -60,7 +61,7 @@ SCENARIOS: dict[str, dict[str, list[str]]] = {
     "herd": {
         "input": [str(DATA / "herd/collars/*.csv"), "--role", "sex_age"],
         "mine": ["--radius", "300", "--step", "3600", "--max-gap", "10800",
-                 "--min-duration", "86400", "--k-radii", "100,300"],
+                 "--min-prevalent-time", "86400", "--k-radii", "100,300"],
         "groups": ["--preset", "collars", "--radius", "300"],
         "roles": ["--radius", "300", "--step", "3600", "--max-gap", "10800",
                   "--null", "role-shuffle"],
@@ -82,7 +83,7 @@ def _comove(args: list[str]) -> None:
 def run(out: Path) -> None:
     """Write the results folders of every scenario and command below ``out``."""
     out.mkdir(parents=True, exist_ok=False)
-    seed = ["--seed", "1", "--permutations", PERMUTATIONS, "--jobs", "2"]
+    seed = ["--seed", "1", "--replicates", PERMUTATIONS, "--jobs", "2"]
     for name, s in SCENARIOS.items():
         both = str(out / f"{name}-both")
         _comove(["mine", *s["input"], *s["mine"], *seed, "--out", both])

@@ -127,7 +127,7 @@ def calibration(scenes: int, replicates: int, n_obj: int, n_t: int) -> None:
                 rng = np.random.default_rng(seed)
                 roles = rng.permutation(np.arange(n_obj) % 4).astype(str)
                 found = mine(frame(model(rng, n_obj, n_t), np.char.add("r", roles)),
-                             null=null, permutations=replicates, seed=seed, jobs=1,
+                             null=null, replicates=replicates, seed=seed, jobs=1,
                              **OPTIONS).tests  # fmt: skip
                 ps.extend(found["p_value"].tolist())
             ps = np.asarray(ps)
@@ -150,7 +150,7 @@ def power(scenes: int, replicates: int, n_obj: int, n_t: int) -> None:
                 for seed in range(scenes):
                     rng = np.random.default_rng(1000 + seed)
                     found = mine(frame(planted(rng, share, n_obj, n_t), roles), null=null,
-                                 statistic=statistic, permutations=replicates, seed=seed,
+                                 statistic=statistic, replicates=replicates, seed=seed,
                                  jobs=1, **OPTIONS).tests.set_index("roles")  # fmt: skip
                     hits += bool("r0;r1" in found.index and found.loc["r0;r1", "p_value"] <= 0.05)
                 cells.append(f"{hits / scenes:.2f}")

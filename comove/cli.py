@@ -36,8 +36,8 @@ import pandas as pd  # noqa: E402
 import comove  # noqa: E402
 from comove.errors import ComoveNote, EngineError, InputError  # noqa: E402
 from comove.groups.presets import PRESETS  # noqa: E402
-from comove.io.results import CAUTION, Claim, claim  # noqa: E402
-from comove.io.runfile import load_run_file  # noqa: E402
+from comove.io.results import CAUTION, Claim, claim, flat_settings  # noqa: E402
+from comove.io.runfile import current_names, former_names, load_run_file  # noqa: E402
 from comove.io.times import human_seconds, utc_iso  # noqa: E402
 from comove.pipeline.core import GROUP_STAGES, MINE_STAGES, groups, mine  # noqa: E402
 from comove.pipeline.sweep import SWEEP_STAGES, sweep  # noqa: E402
@@ -146,11 +146,18 @@ def _add_stage_options(
                 choices=choices,
                 help=help_text,
             )
+        for old, new in getattr(stage, "FORMER_NAMES", {}).items():  # read for one release
+            group.add_argument("--" + old.replace("_", "-"), dest=old,
+                               type=_scalar_type(hints[new]), default=None,
+                               help=argparse.SUPPRESS)  # fmt: skip
 
 
 def _stage_options(args: argparse.Namespace, stages: tuple[type, ...]) -> dict[str, Any]:
+    """Return the settings given as flags, former flag names read as the new ones."""
     names = {f.name for stage in stages for f in fields(stage)} - _HIDDEN
-    return {n: getattr(args, n) for n in names if getattr(args, n) is not None}
+    names |= set(former_names(stages))
+    given = {n: getattr(args, n) for n in names if getattr(args, n) is not None}
+    return current_names(given, stages)
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -374,11 +381,11 @@ def _report(result: comove.pipeline.core.MiningResult, out: Path, quiet: bool, h
     n = len(result.patterns)
     print(f"\n{n} durable role set{'s' if n != 1 else ''} kept.")
     if n:
-        shown = ["roles", "time_prevalence", "longest_run_seconds", "p_value", "q_value"]
+        shown = ["roles", "time_prevalence", "longest_run_s", "p_value", "q_value"]
         top = result.patterns.head(10)[[c for c in shown if c in result.patterns]].copy()
         # durations for people, as the report writes them; the files keep seconds
-        top["longest_run_seconds"] = top["longest_run_seconds"].map(human_seconds)
-        top = top.rename(columns={"longest_run_seconds": "longest_run"})
+        top["longest_run_s"] = top["longest_run_s"].map(human_seconds)
+        top = top.rename(columns={"longest_run_s": "longest_run"})
         print(top.to_string(index=False, float_format=lambda v: f"{v:.3f}"))
     _written(out, held, f" — for figures: comove report {out}")
     print(f"Caution: {result.run.get('caution', CAUTION)}")
@@ -417,7 +424,7 @@ def _run_groups(args: argparse.Namespace) -> None:
             "members": top["members"],
         })  # fmt: skip
         print(table.to_string(index=False))
-    listed = result.run["settings"]["DyadParams"]["dyad_pairs"]
+    listed = flat_settings(result.run)["dyad_pairs"]
     meaning = "together at least once" if listed == "together" else "seen at the same time"
     print(f"{len(result.dyads)} pairs of objects {meaning} in dyads.csv.")
     _written(out, held, f" — for figures: comove report {out}")
@@ -434,7 +441,7 @@ def _run_sweep(args: argparse.Namespace) -> None:
         return
     print(format_quality_summary(result.quality))
     kept = result.table[result.table["kept"]]
-    grid = result.run["settings"]["SweepParams"]
+    grid = flat_settings(result.run)
     print(f"\n{len(grid['radius'])} radii x {len(grid['min_participation'])} thresholds; "
           f"{kept['roles'].nunique()} role sets kept somewhere on the grid.")  # fmt: skip
     print(f"Results written to {out}/ (sweep.csv, sweep.png)")

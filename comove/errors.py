@@ -41,6 +41,10 @@ class ComoveNote(UserWarning):
     """
 
 
+class RenamedSetting(ComoveNote, FutureWarning):
+    """A setting given by its former name: read as the new one, for one release more."""
+
+
 class EngineError(Exception):
     """A run that its engine could not carry out, explained in one line.
 

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import functools
 import itertools
+from pathlib import Path
 
 import networkx as nx
 import numpy as np
@@ -199,3 +200,14 @@ def gap_midpoints(snaps: Snapshots, most: int = 40) -> list[int]:
     gap = (obj[1:] == obj[:-1]) & (snap[1:] - snap[:-1] > 1)
     middle = (snap[:-1][gap] + snap[1:][gap]) // 2
     return sorted({int(m) for m in middle})[:most]
+
+
+def one_record(path) -> dict:
+    """Return the one command's record in a results folder's ``run.json`` or ``quality.json``."""
+    import json
+
+    from comove.io.results import by_command
+
+    records = by_command(json.loads(Path(path).read_text()))
+    assert len(records) == 1, f"{path} holds the records of {sorted(records)}"
+    return next(iter(records.values()))

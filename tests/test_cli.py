@@ -10,6 +10,7 @@ import sys
 
 import pandas as pd
 import pytest
+from scenes import one_record
 
 from comove.cli import main
 from comove.io.results import MANIFEST
@@ -32,12 +33,12 @@ def test_mine_writes_the_results_folder(tracks_csv, tmp_path, capsys):
     patterns = pd.read_csv(out_dir / "patterns.csv")
     assert patterns["roles"].tolist() == ["dog;owner"]
     assert patterns["time_prevalence"].iloc[0] == pytest.approx(1.0)
-    run_json = json.loads((out_dir / "run.json").read_text())
-    assert run_json["settings"]["ColocationParams"]["radius"] == 2.0
-    assert run_json["settings"]["AlignParams"]["step"] == 1.0
+    run_json = one_record(out_dir / "run.json")
+    assert run_json["settings"]["radius"] == 2.0
+    assert run_json["settings"]["step"] == 1.0
     assert run_json["input_digest"].startswith("sha256:")
     assert run_json["versions"]["comove"]
-    quality = json.loads((out_dir / "quality.json").read_text())
+    quality = one_record(out_dir / "quality.json")
     assert quality["rows_read"] == 300
     series = pd.read_parquet(out_dir / "participation_series.parquet")
     assert len(series) == 60 and series["prevalent"].all()
@@ -131,7 +132,7 @@ def test_real_process_exit_status_and_no_traceback(tmp_path):
 def test_groups_writes_episodes_dyads_and_paths(tracks_csv, tmp_path, capsys):
     out_dir = tmp_path / "g"
     code, out, err = run(
-        ["groups", tracks_csv, "--radius", 2, "--min-duration", 10, "--out", out_dir], capsys
+        ["groups", tracks_csv, "--radius", 2, "--min-together-time", 10, "--out", out_dir], capsys
     )
     assert code == 0, err
     assert f"for figures: comove report {out_dir}" in out  # as mine says it
@@ -147,10 +148,10 @@ def test_groups_writes_episodes_dyads_and_paths(tracks_csv, tmp_path, capsys):
     # by default the pairs ever within the radius: each dog with its owner
     assert sorted(dyads["object_a"] + ";" + dyads["object_b"]) == ["a0;a2", "a1;a3"]
     assert "2 pairs of objects together at least once in dyads.csv" in out
-    run_json = json.loads((out_dir / "run.json").read_text())
+    run_json = one_record(out_dir / "run.json")
     assert run_json["command"] == "groups"
-    assert run_json["settings"]["EpisodeParams"]["min_duration"] == 10.0
-    assert run_json["settings"]["DyadParams"]["dyad_pairs"] == "together"
+    assert run_json["settings"]["min_together_time"] == 10.0
+    assert run_json["settings"]["dyad_pairs"] == "together"
 
 
 def test_groups_can_list_every_co_present_pair(tracks_csv, tmp_path, capsys):
@@ -183,9 +184,9 @@ def test_groups_preset_supplies_defaults_and_flags_override(tracks_csv, tmp_path
         capsys,
     )
     assert code == 0, err
-    settings = json.loads((out_dir / "run.json").read_text())["settings"]
-    assert settings["GroupParams"]["radius"] == 1.5  # from the preset
-    assert settings["GroupParams"]["max_heading"] is None  # switched off by the flag
+    settings = one_record(out_dir / "run.json")["settings"]
+    assert settings["radius"] == 1.5  # from the preset
+    assert settings["max_heading"] is None  # switched off by the flag
 
 
 @pytest.mark.parametrize(
@@ -214,7 +215,7 @@ def test_mine_significance_and_cross_k_options(tracks_csv, tmp_path, capsys):
             "--out",
             out_dir,
             "--quiet",
-            "--permutations",
+            "--replicates",
             49,
             "--seed",
             3,
@@ -240,20 +241,16 @@ def test_mine_significance_and_cross_k_options(tracks_csv, tmp_path, capsys):
     assert patterns["p_value"].between(1 / 50, 1).all()
     cross = pd.read_csv(out_dir / "cross_k.csv")
     assert sorted(cross["radius_m"].unique()) == [1.0, 2.0, 3.0]
-    assert {"null_low", "null_high", "above", "below"} <= set(cross.columns)
-    settings = json.loads((out_dir / "run.json").read_text())["settings"]
-    assert settings["SignificanceParams"] == {
-        **settings["SignificanceParams"],
-        "null": "role-shuffle",
-        "permutations": 49,
-    }
-    assert settings["RunParams"]["seed"] == 3
+    assert {"null_low_m", "null_high_m", "above", "below"} <= set(cross.columns)
+    settings = one_record(out_dir / "run.json")["settings"]
+    assert (settings["null"], settings["replicates"]) == ("role-shuffle", 49)
+    assert settings["seed"] == 3
 
 
 def test_permutations_zero_switches_the_tests_off(tracks_csv, tmp_path, capsys):
     out_dir = tmp_path / "s"
     code, _, err = run(
-        ["mine", tracks_csv, "--radius", 2, "--out", out_dir, "--quiet", "--permutations", 0],
+        ["mine", tracks_csv, "--radius", 2, "--out", out_dir, "--quiet", "--replicates", 0],
         capsys,
     )
     assert code == 0, err
@@ -272,7 +269,7 @@ def test_groups_tests_pairs_and_role_sets(tracks_csv, tmp_path, capsys):
             "--out",
             out_dir,
             "--quiet",
-            "--permutations",
+            "--replicates",
             39,
             "--seed",
             1,
@@ -292,7 +289,7 @@ def test_groups_tests_pairs_and_role_sets(tracks_csv, tmp_path, capsys):
     ("options", "expected"),
     [
         (["--null", "bootstrap"], "--null: invalid choice: 'bootstrap'"),
-        (["--permutations", "-2"], "--permutations"),
+        (["--replicates", "-2"], "--replicates"),
         (["--k-radii", "a:b"], "--k-radii must be"),
         (["--k-radii", "3,1"], "--k-radii must be strictly ascending"),
     ],
@@ -307,7 +304,7 @@ def test_bad_significance_options(tracks_csv, tmp_path, capsys, options, expecte
 
 def test_mine_and_groups_results_merge_into_one_folder(tracks_csv, tmp_path, capsys):
     out_dir = tmp_path / "both"
-    base = ["--radius", 2, "--out", out_dir, "--quiet", "--permutations", 0]
+    base = ["--radius", 2, "--out", out_dir, "--quiet", "--replicates", 0]
     assert run(["mine", tracks_csv, *base], capsys)[0] == 0
     code, _, err = run(["groups", tracks_csv, *base], capsys)
     assert code == 2 and "--merge" in err  # never silently mixed in
@@ -335,9 +332,9 @@ def test_toml_run_file_and_flags_override(tracks_csv, tmp_path, capsys):
     )
     assert code == 0, err
     out_dir = tmp_path / "from-file"
-    settings = json.loads((out_dir / "run.json").read_text())["settings"]
-    assert settings["ColocationParams"]["radius"] == 2.0  # from the file
-    assert settings["PersistenceParams"]["min_prevalence"] == 0.5  # the flag wins
+    settings = one_record(out_dir / "run.json")["settings"]
+    assert settings["radius"] == 2.0  # from the file
+    assert settings["min_prevalence"] == 0.5  # the flag wins
 
 
 def test_unknown_run_file_key_is_named(tracks_csv, tmp_path, capsys):
@@ -354,8 +351,8 @@ def test_unknown_run_file_key_is_named(tracks_csv, tmp_path, capsys):
     [
         ('radius = "three"', "radius = 'three' must be a number"),
         ("radius = [3, 4]", "radius = [3, 4] must be a number"),
-        ('permutations = "zero"', "permutations = 'zero' must be a whole number"),
-        ("permutations = 9.5", "permutations = 9.5 must be a whole number"),
+        ('replicates = "zero"', "replicates = 'zero' must be a whole number"),
+        ("replicates = 9.5", "replicates = 9.5 must be a whole number"),
         ("jobs = true", "jobs = True must be a whole number or left out"),
         ("out = 42", "out = 42 must be text"),
         ('k_radii = [1, "x"]', "must be a list of numbers or grid text"),
@@ -377,18 +374,18 @@ def test_run_file_numbers_are_taken_as_their_settings_take_them(tracks_csv, tmp_
     code, _, err = run(["mine", tracks_csv, "--config", tmp_path / "run.toml", "--quiet",
                         "--out", tmp_path / "o"], capsys)  # fmt: skip
     assert code == 0, err
-    settings = json.loads((tmp_path / "o" / "run.json").read_text())["settings"]
-    assert settings["ColocationParams"]["radius"] == 2.0
-    assert settings["SignificanceParams"]["permutations"] == 0
-    assert settings["WindowParams"]["chunk"] == "3600"
+    settings = one_record(tmp_path / "o" / "run.json")["settings"]
+    assert settings["radius"] == 2.0
+    assert settings["replicates"] == 0
+    assert settings["chunk"] == "3600"
 
 
 def test_a_run_json_value_of_the_wrong_type_is_named(tracks_csv, tmp_path, capsys):
     first = tmp_path / "first"
     code, _, err = run(["mine", tracks_csv, "--radius", 2, "--out", first, "--quiet",
-                        "--permutations", 0], capsys)  # fmt: skip
+                        "--replicates", 0], capsys)  # fmt: skip
     assert code == 0, err
-    record = json.loads((first / "run.json").read_text())
+    record = one_record(first / "run.json")
     text = json.dumps(record).replace('"radius": 2.0', '"radius": "3m"')
     assert text != json.dumps(record)
     (tmp_path / "edited.json").write_text(text)
@@ -404,7 +401,7 @@ def test_a_run_json_refuses_an_input_changed_since_that_run(tracks_csv, tmp_path
     shutil.copy(tracks_csv, source)
     first = tmp_path / "first"
     code, _, err = run(["mine", source, "--radius", 2, "--out", first, "--quiet",
-                        "--permutations", 0], capsys)  # fmt: skip
+                        "--replicates", 0], capsys)  # fmt: skip
     assert code == 0, err
     again = ["mine", "--config", first / "run.json", "--quiet"]
     code, _, err = run([*again, "--out", tmp_path / "same"], capsys)
@@ -426,7 +423,7 @@ def test_a_run_json_refuses_an_input_changed_since_that_run(tracks_csv, tmp_path
 def test_run_json_repeats_the_run_exactly(tracks_csv, tmp_path, capsys, command):
     first = tmp_path / "first"
     code, _, err = run(
-        [command, tracks_csv, "--radius", 2, "--out", first, "--quiet", "--permutations", 19],
+        [command, tracks_csv, "--radius", 2, "--out", first, "--quiet", "--replicates", 19],
         capsys,
     )
     assert code == 0, err
@@ -436,8 +433,8 @@ def test_run_json_repeats_the_run_exactly(tracks_csv, tmp_path, capsys, command)
     for name in sorted(p.name for p in first.iterdir()):
         if name.endswith(".csv") or name.endswith(".geojson"):
             assert (first / name).read_bytes() == (again / name).read_bytes(), name
-    a = json.loads((first / "run.json").read_text())
-    b = json.loads((again / "run.json").read_text())
+    a = one_record(first / "run.json")
+    b = one_record(again / "run.json")
     assert a["settings"] == b["settings"] and a["input_digest"] == b["input_digest"]
 
 
@@ -490,7 +487,7 @@ def test_a_stray_time_stamp_is_refused_in_one_line_naming_it(chunk, command, tmp
     path = tmp_path / "stray.csv"
     frame.to_csv(path, index=False)
     out_dir = tmp_path / "out"
-    code, _, err = run([command, path, "--radius", 2, "--chunk", chunk, "--permutations", 0,
+    code, _, err = run([command, path, "--radius", 2, "--chunk", chunk, "--replicates", 0,
                         "--quiet", "--out", out_dir], capsys)  # fmt: skip
     assert code == 2 and "Traceback" not in err
     assert len(err.strip().splitlines()) == 1
@@ -510,7 +507,7 @@ def test_rows_lost_in_numbers_get_a_note_even_when_quiet(chunk, tmp_path, capsys
     frame = pd.DataFrame({"id": ["a"] * n + ["b"] * n, "role": ["r"] * n + ["s"] * n,
                           "time": times * 2, "x": 0.0, "y": 1.0})  # fmt: skip
     frame.to_csv(tmp_path / "mixed.csv", index=False)
-    code, _, err = run(["mine", tmp_path / "mixed.csv", "--radius", 2, "--permutations", 0,
+    code, _, err = run(["mine", tmp_path / "mixed.csv", "--radius", 2, "--replicates", 0,
                         "--chunk", chunk, "--quiet", "--out", tmp_path / "o"], capsys)  # fmt: skip
     assert code == 0, err
     notes = [line for line in err.splitlines() if "note:" in line]
@@ -528,7 +525,7 @@ def test_a_name_holding_the_separator_is_refused(column, kind, chunk, tmp_path, 
                           "x": [0.0, 1.0] * 5, "y": 0.0})  # fmt: skip
     frame.loc[0, column] = "r;x"
     frame.to_csv(tmp_path / "semi.csv", index=False)
-    code, _, err = run(["mine", tmp_path / "semi.csv", "--radius", 2, "--permutations", 0,
+    code, _, err = run(["mine", tmp_path / "semi.csv", "--radius", 2, "--replicates", 0,
                         "--chunk", chunk, "--out", tmp_path / "o"], capsys)  # fmt: skip
     assert code == 2 and err.count("\n") == 1
     assert f"the {kind} 'r;x' holds ';'" in err and not (tmp_path / "o").exists()
@@ -543,7 +540,7 @@ def test_a_role_named_like_a_formula_stays_text_in_csv_and_exact_elsewhere(tmp_p
                           "x": [0.0, 1.0] * 20, "y": 0.0})  # fmt: skip
     frame.to_csv(tmp_path / "f.csv", index=False)
     out = tmp_path / "o"
-    code, _, err = run(["mine", tmp_path / "f.csv", "--radius", 2, "--permutations", 0,
+    code, _, err = run(["mine", tmp_path / "f.csv", "--radius", 2, "--replicates", 0,
                         "--quiet", "--out", out], capsys)  # fmt: skip
     assert code == 0, err
     raw = (out / "patterns.csv").read_text().splitlines()[1]
@@ -571,7 +568,7 @@ def test_a_crowd_beyond_memory_is_refused_in_one_line(command, tmp_path, capsys,
     })  # fmt: skip
     frame.to_csv(tmp_path / "crowd.csv", index=False)
     monkeypatch.setattr(neighbours, "available_memory", lambda: 2**20)
-    code, _, err = run([command, tmp_path / "crowd.csv", "--radius", 2, "--permutations", 0,
+    code, _, err = run([command, tmp_path / "crowd.csv", "--radius", 2, "--replicates", 0,
                         "--quiet", "--out", tmp_path / "o"], capsys)  # fmt: skip
     assert code == 2 and err.count("\n") == 1 and "Traceback" not in err
     assert "one object has 399 neighbours; give a smaller --radius" in err
@@ -622,10 +619,10 @@ def test_help_has_no_leaked_markup_and_lists_every_choice(command, capsys):
 def test_the_caution_speaks_of_what_was_tracked(tracks_csv, tmp_path, capsys, preset, words):
     out_dir = tmp_path / "g"
     flags = ["--preset", preset] if preset else []
-    code, out, err = run(["groups", tracks_csv, "--radius", 2, *flags, "--permutations", 0,
+    code, out, err = run(["groups", tracks_csv, "--radius", 2, *flags, "--replicates", 0,
                           "--out", out_dir], capsys)  # fmt: skip
     assert code == 0, err
-    caution = json.loads((out_dir / "run.json").read_text())["caution"]
+    caution = one_record(out_dir / "run.json")["caution"]
     assert words in caution and "association, not interaction or cause" in caution
     assert f"Caution: {caution}" in out
 

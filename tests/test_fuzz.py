@@ -102,7 +102,7 @@ def test_the_command_line_never_shows_a_traceback(frame, options, command, tmp_p
         flags = [a for k, v in options.items()
                  if k not in ("--max-size", "--min-participation") for a in (k, v)]  # fmt: skip
     out = tmp_path / "out"
-    code = main([command, path, *flags, "--permutations", "0", "--quiet", "--force",
+    code = main([command, path, *flags, "--replicates", "0", "--quiet", "--force",
                  "--out", str(out)])  # fmt: skip
     err = capsys.readouterr().err
     assert "Traceback" not in err
@@ -120,7 +120,7 @@ def test_the_command_line_never_shows_a_traceback(frame, options, command, tmp_p
 def test_damaged_files_are_refused_in_one_line(content, name, tmp_path, capsys):
     path = tmp_path / name
     path.write_bytes(content)
-    code = main(["mine", str(path), "--radius", "2", "--permutations", "0", "--quiet",
+    code = main(["mine", str(path), "--radius", "2", "--replicates", "0", "--quiet",
                  "--out", str(tmp_path / "out")])  # fmt: skip
     err = capsys.readouterr().err
     assert code == 2 and "Traceback" not in err and err.count("\n") == 1, err

@@ -51,6 +51,6 @@ def test_a_built_wheel_runs_the_demo_and_groups_from_another_folder(tmp_path):
     assert (scenario / "players.csv.gz").is_file()
     found = run("-m", "comove", "groups", str(scenario / "players.csv.gz"), "--id", "player",
                 "--time", "t", "--role", "role", "--preset", "team-sport", "--radius", "3",
-                "--permutations", "0", "--quiet", "--out", "groups-out")  # fmt: skip
+                "--replicates", "0", "--quiet", "--out", "groups-out")  # fmt: skip
     assert found.returncode == 0, found.stderr
     assert len(pd.read_csv(work / "groups-out" / "episodes.csv")) > 0

@@ -178,7 +178,8 @@ def test_truth_has_every_field_and_small_files(name: str) -> None:
     assert truth["scenario"] == name
     assert set(truth["columns"]) <= {"id", "time", "x", "y", "lon", "lat", "role"}
     assert {"id", "time", "role"} <= set(truth["columns"])
-    for key in ("radius", "min_participation", "min_prevalence", "min_duration", "step", "max_gap"):
+    for key in ("radius", "min_participation", "min_prevalence", "min_prevalent_time", "step",
+                "max_gap"):  # fmt: skip
         assert truth["parameters"][key] > 0
     for p in truth["planted"]:
         assert p["roles"] == sorted(p["roles"]) and len(set(p["roles"])) == len(p["roles"]) >= 2

@@ -126,7 +126,7 @@ def group_chain(
     ...     x=t * 1.2 + np.tile([0.0, 0.0, 0.0, 500.0], 10),
     ...     y=np.tile([0.0, 1.0, 2.0, 0.0], 10),
     ...     objects=np.array(["a", "b", "c", "d"]), roles=np.array([""]), max_gap_ns=0)
-    >>> tally = group_chain(snaps, GroupParams(radius=1.5), EpisodeParams(min_duration=5))
+    >>> tally = group_chain(snaps, GroupParams(radius=1.5), EpisodeParams(min_together_time=5))
     >>> [m.tolist() for m in tally.episodes.members], tally.episodes.together.tolist()
     ([[0, 1, 2]], [10])
     """

@@ -48,7 +48,7 @@ Columns of the dyad table:
   one's most frequent role (ties: the first in ``snaps.roles``);
 - ``shared_snapshots`` (both present), ``together_snapshots`` (x),
   ``only_a_snapshots`` (y_a), ``only_b_snapshots`` (y_b);
-- ``together_seconds`` (x times the step), ``longest_together_seconds``
+- ``together_s`` (x times the step), ``longest_together_s``
   (longest run of consecutive grid snapshots together, times the step),
   ``first_together``, ``last_together`` (UTC; NaT when never together);
 - ``mean_distance_m`` (Do), ``expected_distance_m`` (De);
@@ -108,7 +108,7 @@ PAIR_SELECTIONS = ("together", "co-present")
 DYAD_COLUMNS = [
     "object_a", "object_b", "role_a", "role_b",
     "shared_snapshots", "together_snapshots", "only_a_snapshots", "only_b_snapshots",
-    "together_seconds", "longest_together_seconds", "first_together", "last_together",
+    "together_s", "longest_together_s", "first_together", "last_together",
     "mean_distance_m", "expected_distance_m",
     "simple_ratio_index", "half_weight_index", "proximity_index", "coefficient_of_sociality",
 ]  # fmt: skip
@@ -783,8 +783,8 @@ def _dyad_frame(tally: DyadTally, snaps: Snapshots, expected: np.ndarray) -> pd.
             "together_snapshots": x,
             "only_a_snapshots": only_a,
             "only_b_snapshots": only_b,
-            "together_seconds": x * step,
-            "longest_together_seconds": tally.longest * step,
+            "together_s": x * step,
+            "longest_together_s": tally.longest * step,
             "first_together": utc(tally.first),
             "last_together": utc(tally.last),
             "mean_distance_m": mean_dist,
@@ -906,7 +906,7 @@ def dyad_matrix(dyads: pd.DataFrame, index: str = "half_weight_index") -> pd.Dat
         Output of :func:`dyad_table` (or a subset of its rows).
     index : str, default "half_weight_index"
         Numeric column to spread, e.g. ``simple_ratio_index``,
-        ``proximity_index``, ``coefficient_of_sociality``, ``together_seconds``.
+        ``proximity_index``, ``coefficient_of_sociality``, ``together_s``.
 
     Returns
     -------

@@ -3,7 +3,7 @@
 An *episode* is a set S of at least ``min_size`` objects and a time span such
 that at every snapshot of the span all of S lie in one group (see
 :mod:`comove.groups.grouping`), except for separations no longer than ``tolerance``
-seconds, and whose members are together for at least ``min_duration``
+seconds, and whose members are together for at least ``min_together_time``
 seconds in all: a tolerated separation does not break an episode, but it does
 not count as time together either. A member with no data at a snapshot (a
 missed fix beyond the interpolation gap) is not taken to have left: while its
@@ -34,6 +34,7 @@ from collections.abc import Iterator
 from dataclasses import dataclass, field
 from functools import lru_cache
 from itertools import chain
+from typing import ClassVar
 
 import numpy as np
 
@@ -74,7 +75,7 @@ class EpisodeParams:
     ----------
     min_size : int, default 2
         Least number of objects in an episode.
-    min_duration : float, default 0.0
+    min_together_time : float, default 0.0
         Least time in seconds for which an episode's members are together;
         tolerated separations do not count towards it.
     tolerance : float, default 0.0
@@ -82,22 +83,25 @@ class EpisodeParams:
     """
 
     min_size: int = field(default=2, metadata={"help": "least number of objects in an episode"})
-    min_duration: float = field(
+    min_together_time: float = field(
         default=0.0,
         metadata={
-            "help": "least time together of an episode in seconds (separations "
-            "bridged by --tolerance do not count)"
+            "help": "least time together of an episode in seconds (together_s in "
+            "episodes.csv; separations bridged by --tolerance do not count)"
         },
     )
     tolerance: float = field(
         default=0.0, metadata={"help": "longest separation in seconds that does not break one"}
     )
 
+    #: Former names of settings, still read for one release.
+    FORMER_NAMES: ClassVar[dict[str, str]] = {"min_duration": "min_together_time"}
+
     def __post_init__(self) -> None:
         if int(self.min_size) != self.min_size or self.min_size < 2:
             raise bad_setting("min_size", "must be a whole number of at least 2")
-        if not (np.isfinite(self.min_duration) and self.min_duration >= 0):
-            raise bad_setting("min_duration", "must be zero or a positive number of seconds")
+        if not (np.isfinite(self.min_together_time) and self.min_together_time >= 0):
+            raise bad_setting("min_together_time", "must be zero or a positive number of seconds")
         if not (np.isfinite(self.tolerance) and self.tolerance >= 0):
             raise bad_setting("tolerance", "must be zero or a positive number of seconds")
 
@@ -526,7 +530,7 @@ def find_episodes(timeline: GroupTimeline, params: EpisodeParams) -> Episodes:
     data there, has had none for no longer than the tolerance, and was
     together with the set at its last fix. Runs of together snapshots joined
     across separations of at most the tolerance are episodes; only the
-    snapshots at which the set is together count towards ``min_duration``.
+    snapshots at which the set is together count towards ``min_together_time``.
     The result equals a brute-force search that tries every set of objects at
     every snapshot (``tests/scenes.py``).
 
@@ -553,7 +557,7 @@ def find_episodes(timeline: GroupTimeline, params: EpisodeParams) -> Episodes:
     ...     group_snap=np.arange(6), group_offsets=np.arange(0, 13, 2),
     ...     group_objects=np.tile([0, 1], 6), run_first=np.array([0, 0]),
     ...     run_last=np.array([7, 7]), run_bounds=np.array([0, 1, 2]))
-    >>> found = find_episodes(line, EpisodeParams(min_duration=3))
+    >>> found = find_episodes(line, EpisodeParams(min_together_time=3))
     >>> [m.tolist() for m in found.members], found.start.tolist(), found.end.tolist()
     ([[0, 1]], [0], [5])
 
@@ -568,7 +572,7 @@ def find_episodes(timeline: GroupTimeline, params: EpisodeParams) -> Episodes:
     """
     step = timeline.step_s
     tol_snaps = int(np.floor(params.tolerance / step + 1e-9))
-    min_snaps = max(1, int(np.ceil(params.min_duration / step - 1e-9)))
+    min_snaps = max(1, int(np.ceil(params.min_together_time / step - 1e-9)))
     min_size = int(params.min_size)
     line = _Timeline(timeline, min_size, tol_snaps)
 

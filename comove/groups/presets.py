@@ -61,7 +61,7 @@ PRESETS: dict[str, Preset] = {
                 "max_speed_ratio": 1.25,
                 "velocity_window": 1.2,
                 "min_size": 2,
-                "min_duration": 4.0,
+                "min_together_time": 4.0,
                 "tolerance": 2.0,
                 "links": "evidence",
                 "evidence_window": 30.0,
@@ -84,7 +84,7 @@ PRESETS: dict[str, Preset] = {
                 "either side of it, the spread of one walker's speed (common practice)",
                 "velocity_window": "about one stride pair, which averages out body sway "
                 "(common practice)",
-                "min_duration": "a few seconds together, so that passing strangers who fall "
+                "min_together_time": "a few seconds together, so that passing strangers who fall "
                 "in step for a moment are not a group (common practice)",
                 "tolerance": "brief occlusions or a step aside do not split a group "
                 "(common practice)",
@@ -119,7 +119,7 @@ PRESETS: dict[str, Preset] = {
                 "max_speed_ratio": 2.0,
                 "velocity_window": 1.0,
                 "min_size": 2,
-                "min_duration": 5.0,
+                "min_together_time": 5.0,
                 "tolerance": 1.0,
                 "links": "evidence",
                 "evidence_window": 6.0,
@@ -140,7 +140,7 @@ PRESETS: dict[str, Preset] = {
                 "and drops crossing runs (common practice)",
                 "max_speed_ratio": "2.0 (common practice)",
                 "velocity_window": "1 s smooths 10–25 Hz positional noise (common practice)",
-                "min_duration": "5 s: longer than a passing duel (common practice)",
+                "min_together_time": "5 s: longer than a passing duel (common practice)",
                 "tolerance": "1 s (common practice)",
                 "links": "judged on the pair's last and next few seconds, so that a duel or "
                 "a crossing run does not link two players",
@@ -166,7 +166,7 @@ PRESETS: dict[str, Preset] = {
                 "max_speed_ratio": 1.5,
                 "velocity_window": 20.0,
                 "min_size": 2,
-                "min_duration": 120.0,
+                "min_together_time": 120.0,
                 "tolerance": 30.0,
                 "links": "evidence",
                 "evidence_window": 120.0,
@@ -183,7 +183,8 @@ PRESETS: dict[str, Preset] = {
                 "max_heading": "30 degrees (common practice)",
                 "max_speed_ratio": "1.5 (common practice)",
                 "velocity_window": "20 s, a few GPS/AIS fixes (common practice)",
-                "min_duration": "2 minutes: longer than meeting at a junction (common practice)",
+                "min_together_time": "2 minutes: longer than meeting at a junction "
+                "(common practice)",
                 "tolerance": "30 s covers a missed fix or two (common practice)",
                 "links": "judged on the pair's last and next minute, so that overtaking or "
                 "sharing a junction does not link two vehicles",
@@ -209,7 +210,7 @@ PRESETS: dict[str, Preset] = {
                 "max_speed_ratio": 1.3,
                 "velocity_window": 60.0,
                 "min_size": 2,
-                "min_duration": 600.0,
+                "min_together_time": 600.0,
                 "tolerance": 180.0,
                 "links": "evidence",
                 "evidence_window": 600.0,
@@ -233,7 +234,7 @@ PRESETS: dict[str, Preset] = {
                 "velocity_window": "60 s: several AIS reports of a vessel under way, which "
                 "Class A transponders send every 2 to 10 s and Class B every 30 s (ITU-R "
                 "M.1371, from memory)",
-                "min_duration": "10 minutes: longer than two ships passing or overtaking "
+                "min_together_time": "10 minutes: longer than two ships passing or overtaking "
                 "(common practice)",
                 "tolerance": "3 minutes: one or two missed reports, and the 3-minute interval "
                 "of a slow or anchored ship (ITU-R M.1371, from memory)",
@@ -260,7 +261,7 @@ PRESETS: dict[str, Preset] = {
                 "max_speed_ratio": None,
                 "velocity_window": 7200.0,
                 "min_size": 2,
-                "min_duration": 6 * 3600.0,
+                "min_together_time": 6 * 3600.0,
                 "tolerance": 6 * 3600.0,
                 "links": "evidence",
                 "evidence_window": 6 * 3600.0,
@@ -277,7 +278,7 @@ PRESETS: dict[str, Preset] = {
                 "max_heading": "off: headings between hourly fixes say little about "
                 "moving together (common practice)",
                 "max_speed_ratio": "off, for the same reason",
-                "min_duration": "6 hours (common practice)",
+                "min_together_time": "6 hours (common practice)",
                 "tolerance": "6 hours: with hourly fixes and 10–30 % of them missed, runs "
                 "of three or four missed fixes are routine (common practice)",
                 "min_speed": "0: with the motion predicates off it does not matter",

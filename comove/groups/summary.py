@@ -546,23 +546,21 @@ def role_rollup(table: pd.DataFrame) -> pd.DataFrame:
     Returns
     -------
     DataFrame
-        Columns ``roles``, ``episodes``, ``total_seconds``, ``longest_seconds``,
+        Columns ``roles``, ``episodes``, ``total_s``, ``longest_s``,
         ``mean_size``; sorted by total time, descending.
     """
     if table.empty:
-        return pd.DataFrame(
-            columns=["roles", "episodes", "total_seconds", "longest_seconds", "mean_size"]
-        )
+        return pd.DataFrame(columns=["roles", "episodes", "total_s", "longest_s", "mean_size"])
     out = (
         table.groupby("roles", sort=True)
         .agg(
             episodes=("episode", "size"),
-            total_seconds=("duration_s", "sum"),
-            longest_seconds=("duration_s", "max"),
+            total_s=("duration_s", "sum"),
+            longest_s=("duration_s", "max"),
             mean_size=("size", "mean"),
         )
         .reset_index()
-        .sort_values(["total_seconds", "roles"], ascending=[False, True], kind="stable")
+        .sort_values(["total_s", "roles"], ascending=[False, True], kind="stable")
         .reset_index(drop=True)
     )
     return out

@@ -67,15 +67,48 @@ def input_digest(source: Any) -> str:
     raise TypeError(f"cannot hash an input of type {type(source).__name__}")
 
 
-def settings_record(*stage_params: Any) -> dict[str, dict[str, Any]]:
-    """Return the effective settings of each stage as plain values, keyed by stage."""
-    out: dict[str, dict[str, Any]] = {}
-    for params in stage_params:
-        if params is None:
+#: Settings recorded only when given: left out, they were not asked for (columns found
+#: by their names; no scratch folder, scheduler or number of jobs named).
+_RECORDED_WHEN_GIVEN = {
+    "ColumnSpec", "WindowParams.scratch", "RunParams.scheduler", "RunParams.jobs",
+}  # fmt: skip
+
+#: Settings never shown: fixed by the command, not by its user.
+_NOT_RECORDED = {"require_role"}
+
+
+def settings_record(*stage_params: Any) -> dict[str, Any]:
+    """Return the run's settings by their option names, as plain values.
+
+    The keys are the option names of the command line and the run file
+    (``min_prevalence`` for ``--min-prevalence``). Settings of stages that were
+    not asked for are left out: the tests' settings when no test ran
+    (``replicates`` 0; the seed too), cross-K's without ``k_radii``, and the
+    settings in ``_RECORDED_WHEN_GIVEN`` that were not given.
+    """
+    out: dict[str, Any] = {}
+    staged = [p for p in stage_params if p is not None]
+    if not all(is_dataclass(p) for p in staged):
+        raise TypeError("stage settings must be dataclasses")
+    names = {type(p).__name__: p for p in staged}
+    tests = names.get("SignificanceParams")
+    untested = tests is not None and getattr(tests, "replicates", 0) == 0
+    for params in staged:
+        stage = type(params).__name__
+        values = asdict(params)
+        if stage == "CrossKParams" and values.get("k_radii") is None:
             continue
-        if not is_dataclass(params):
-            raise TypeError("stage settings must be dataclasses")
-        out[type(params).__name__] = {f.name: asdict(params)[f.name] for f in fields(params)}
+        if stage == "SignificanceParams" and untested:
+            values = {"replicates": 0}
+        for f in fields(params):
+            if f.name not in values or f.name in _NOT_RECORDED:
+                continue
+            given = values[f.name] is not None
+            if not given and {stage, f"{stage}.{f.name}"} & _RECORDED_WHEN_GIVEN:
+                continue
+            if f.name == "seed" and untested:
+                continue
+            out[f.name] = values[f.name]
     return out
 
 

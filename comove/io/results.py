@@ -12,8 +12,8 @@ This module alone knows the folder's format (see ``docs/results-folder.md``):
   comove wrote there (:data:`MANIFEST`) is updated last.
 - **Reading.** :class:`ResultsFolder` returns the run records and quality
   reports per command and the tables; :func:`run_records` reads a ``run.json``.
-- **Merging by command.** ``run.json`` and ``quality.json`` of several commands
-  in one folder are combined as ``{"by_command": {command: content}}``.
+- **Records by command.** ``run.json`` and ``quality.json`` hold
+  ``{"by_command": {command: content}}``, one command's or, merged, several.
 
 A folder is comove's when it holds :data:`MANIFEST`; comove replaces or removes
 only the files listed there, and never a folder holding anything else
@@ -393,14 +393,27 @@ def _run_writers(jobs: list[tuple[Writer, Path]]) -> None:
 def by_command(content: Mapping[str, Any]) -> dict[str, dict]:
     """Return run or quality content keyed by command.
 
-    A folder written by one command holds that command's record itself; a
-    folder written by several holds ``{"by_command": {command: record}}``.
+    Folders hold ``{"by_command": {command: record}}``; those of earlier
+    versions written by one command hold that command's record itself.
     """
     if "by_command" in content and isinstance(content["by_command"], dict):
         return {str(k): v for k, v in content["by_command"].items() if isinstance(v, dict)}
     if not content:
         return {}
     return {str(content.get("command", "run")): dict(content)}
+
+
+def flat_settings(run: dict[str, Any]) -> dict[str, Any]:
+    """Return a run record's settings by option name, whichever layout it was written in.
+
+    Records of earlier versions keep the settings per stage
+    (``{"ColocationParams": {"radius": 2.0}, ...}``); today's list them by
+    option name (``{"radius": 2.0, ...}``).
+    """
+    settings = run.get("settings") or {}
+    if settings and all(isinstance(v, dict) for v in settings.values()):
+        return {k: v for values in settings.values() for k, v in values.items()}
+    return dict(settings)
 
 
 def _combined(existing: dict, new: dict, command: str, prior: str) -> dict:
@@ -416,6 +429,8 @@ def _prior_command(folder: Path) -> str:
         run = json.loads((folder / "run.json").read_text())
     except (OSError, ValueError):
         return "earlier"
+    if isinstance(run.get("by_command"), dict) and len(run["by_command"]) == 1:
+        return str(next(iter(run["by_command"])))
     return str(run.get("command", "earlier"))
 
 
@@ -448,6 +463,20 @@ def run_records(path: str | os.PathLike[str]) -> dict[str, dict]:
     return by_command(_read_json(p, "give a run.json written by comove"))
 
 
+#: Per table, the former names of renamed columns and their names now, so that the
+#: report still reads folders written before the renaming.
+FORMER_COLUMNS: dict[str, dict[str, str]] = {
+    "patterns.csv": {"prevalent_seconds": "prevalent_s", "longest_run_seconds": "longest_run_s"},
+    "sweep.csv": {"radius": "radius_m", "prevalent_seconds": "prevalent_s",
+                  "longest_run_seconds": "longest_run_s"},
+    "dyads.csv": {"together_seconds": "together_s",
+                  "longest_together_seconds": "longest_together_s"},
+    "episode_roles.csv": {"total_seconds": "total_s", "longest_seconds": "longest_s"},
+    "cross_k.csv": {"k": "k_m2", "l": "l_m", "l_minus_r": "l_minus_r_m", "null_low": "null_low_m",
+                    "null_high": "null_high_m", "null_mean": "null_mean_m"},
+}  # fmt: skip
+
+
 class ResultsFolder:
     """Read access to a results folder; every absent file reads as None (or empty).
 
@@ -473,12 +502,17 @@ class ResultsFolder:
         return by_command(_read_json(self.path / "quality.json", "rerun the command"))
 
     def table(self, name: str) -> pd.DataFrame | None:
-        """Return the CSV table ``name``, or None when absent."""
+        """Return the CSV table ``name``, or None when absent.
+
+        Columns of folders written before a column was renamed are read under
+        their current names (``FORMER_COLUMNS``).
+        """
         path = self.path / name
         if not path.is_file():
             return None
         try:
-            return formula_unguarded(pd.read_csv(path, keep_default_na=True))
+            table = formula_unguarded(pd.read_csv(path, keep_default_na=True))
+            return table.rename(columns=FORMER_COLUMNS.get(name, {}))
         except (OSError, ValueError) as exc:
             raise InputError(f"{path}: cannot be read as CSV ({_first_line(exc)}); "
                              "rerun the command") from None  # fmt: skip
@@ -950,7 +984,7 @@ class Claim:
         jobs = []
         for name, write in files.items():
             (staging / name).parent.mkdir(parents=True, exist_ok=True)
-            jobs.append((write, staging / name))
+            jobs.append((self._merged(name, write, Manifest({})), staging / name))
         _run_writers(jobs)
         (staging / MANIFEST).write_text(Manifest({self.command: list(files)}).text())
         with _signals_held():
@@ -999,15 +1033,21 @@ class Claim:
         return Manifest({self.command: names})
 
     def _merged(self, name: str, write: Writer, old: Manifest) -> Writer:
-        """Return the writer of ``name``, combined by command with the folder's copy."""
+        """Return the writer of ``name``: a run or quality record keyed by its command.
+
+        ``run.json`` and ``quality.json`` have one layout, ``{"by_command":
+        {command: record}}``, in a folder of one command as in one of several;
+        with ``--merge`` the folder's records of other commands are kept.
+        """
         current = self.path / name
         content = getattr(write, "content", None)
-        if (self.merge and name in SHARED_JSON and name in old.listed() and current.is_file()
-                and content is not None):  # fmt: skip
+        if name not in SHARED_JSON or not isinstance(content, dict) or "by_command" in content:
+            return write
+        if self.merge and name in old.listed() and current.is_file():
             existing = _read_json(current, "rerun the command that wrote it with --force")
             prior = _prior_command(self.path)
             return json_writer(_combined(existing, content, self.command, prior))
-        return write
+        return json_writer({"by_command": {self.command: content}})
 
     def _swap_in(
         self, staging: Path, names: list[str], obsolete: list[str], interim: Manifest | None

@@ -7,8 +7,8 @@ names as the long flags (``min_prevalence`` or ``min-prevalence``), plus
     input = "synthetic_tracks/fleet/vehicles.csv"
     out = "fleet-results"
     radius = 150
-    min_duration = 600
-    permutations = 199
+    min_prevalent_time = 600
+    replicates = 199
     seed = 7
 
 A results folder's ``run.json`` is accepted too: its recorded input and
@@ -19,6 +19,7 @@ line override the file. An unknown key is an error that names it.
 from __future__ import annotations
 
 import tomllib
+import warnings
 from dataclasses import fields
 from pathlib import Path
 from types import UnionType
@@ -26,8 +27,8 @@ from typing import Any, get_args, get_origin, get_type_hints
 
 import numpy as np
 
-from comove.errors import InputError, bad_setting
-from comove.io.results import run_records
+from comove.errors import InputError, RenamedSetting, bad_setting
+from comove.io.results import flat_settings, run_records
 
 #: Keys of a run file that are not stage settings.
 RUN_KEYS = ("input", "out", "preset")
@@ -35,6 +36,43 @@ RUN_KEYS = ("input", "out", "preset")
 
 def _stage_fields(stages: tuple[type, ...]) -> set[str]:
     return {f.name for stage in stages for f in fields(stage)}
+
+
+def former_names(stages: tuple[type, ...]) -> dict[str, str]:
+    """Return the former names of the stages' settings, each with its name now.
+
+    A stage lists them in its ``FORMER_NAMES``; each is read for one release
+    after the renaming, with a note.
+    """
+    return {old: new for stage in stages for old, new in getattr(stage, "FORMER_NAMES", {}).items()}
+
+
+def current_names(options: dict[str, Any], stages: tuple[type, ...]) -> dict[str, Any]:
+    """Return ``options`` with settings given by a former name under their name now.
+
+    Each former name gives a :class:`~comove.errors.RenamedSetting` note.
+
+    Raises
+    ------
+    InputError
+        When a setting is given under both names with different values.
+    """
+    former = former_names(stages)
+    out = {k: v for k, v in options.items() if k not in former}
+    for old, new in former.items():
+        if old not in options:
+            continue
+        if new in out and out[new] != options[old]:
+            raise bad_setting(new, f"is given twice, also by its former name {old}; keep one")
+        out[new] = options[old]
+        warnings.warn(
+            RenamedSetting(
+                f"{old} (--{old.replace('_', '-')}) is now {new} (--{new.replace('_', '-')}); "
+                "the former name is read until the next release"
+            ),
+            stacklevel=3,
+        )
+    return out
 
 
 def _stage_types(stages: tuple[type, ...]) -> dict[str, Any]:
@@ -136,10 +174,12 @@ def load_run_file(path: str | Path, command: str, stages: tuple[type, ...]) -> d
         p = p / "run.json"
     if not p.is_file():
         raise InputError(f"{p}: no such run file; give a .toml run file or a results run.json")
-    known = _stage_fields(stages)
+    former = former_names(stages)
+    known = _stage_fields(stages) | set(former)
     hints = _stage_types(stages)
+    hints.update({old: hints[new] for old, new in former.items() if new in hints})
     if p.suffix.lower() == ".json":
-        return _from_run_json(p, command, known, hints)
+        return current_names(_from_run_json(p, command, known, hints), stages)
     try:
         raw = tomllib.loads(p.read_text())
     except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
@@ -161,7 +201,7 @@ def load_run_file(path: str | Path, command: str, stages: tuple[type, ...]) -> d
         options["input"] = _inputs(options["input"], p)
     if isinstance(options.get("out"), str) and not Path(options["out"]).is_absolute():
         options["out"] = str(p.parent / options["out"])
-    return options
+    return current_names(options, stages)
 
 
 def _inputs(value: Any, source: Path) -> list[str]:
@@ -183,12 +223,11 @@ def _from_run_json(p: Path, command: str, known: set[str], hints: dict[str, Any]
                          f"{', '.join(runs) or 'none'}")  # fmt: skip
     run = runs[command]
     options: dict[str, Any] = {}
-    for stage, values in run.get("settings", {}).items():
-        for key, value in values.items():
-            if key not in known:
-                raise InputError(f"{p}: unknown setting {stage}.{key}; was it made by "
-                                 "another version of comove?")  # fmt: skip
-            options[key] = _typed(p, key, value, hints[key])
+    for key, value in flat_settings(run).items():
+        if key not in known:
+            raise InputError(f"{p}: unknown setting {key}; was it made by another version "
+                             "of comove?")  # fmt: skip
+        options[key] = _typed(p, key, value, hints[key])
     recorded = run.get("input")
     if not isinstance(recorded, list):
         raise InputError(f"{p}: the run read an in-memory table ({recorded}); give INPUT")

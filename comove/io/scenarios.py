@@ -29,7 +29,7 @@ SCENARIOS_DIR = _scenarios_dir()
 DEMO_SCENARIO = "small_sided_game"
 
 #: truth.json parameter names that are settings of ``comove mine``.
-_MINE_SETTINGS = ("radius", "min_participation", "min_prevalence", "min_duration", "step",
+_MINE_SETTINGS = ("radius", "min_participation", "min_prevalence", "min_prevalent_time", "step",
                   "max_gap", "max_size", "max_speed")  # fmt: skip
 
 

@@ -45,6 +45,7 @@ from comove.io.results import (
     parquet_writer,
     write_folder,
 )
+from comove.io.runfile import current_names
 from comove.pipeline.windows import (
     group_windows,
     mine_windows,
@@ -96,7 +97,13 @@ def split_options(stages: tuple[type, ...], options: dict[str, Any]) -> list[Any
     ------
     TypeError
         When an option belongs to no stage.
+
+    Notes
+    -----
+    A setting given by a former name (a stage's ``FORMER_NAMES``) is read as
+    the new one, with a :class:`~comove.errors.RenamedSetting` note.
     """
+    options = current_names(options, stages)
     known: dict[str, type] = {}
     for stage in stages:
         for f in fields(stage):
@@ -250,7 +257,7 @@ def mine(source: Any, *, progress: bool = False, **options: Any) -> MiningResult
                 tables = durable_patterns(tally, persistence, colocation.min_participation)
             tests = None
             patterns = tables.patterns
-            if significance.permutations > 0:
+            if significance.replicates > 0:
                 with bar.stage("significance"):
                     tests = pattern_tests(snaps, tally, colocation, significance, run_params,
                                           progress)  # fmt: skip
@@ -283,20 +290,20 @@ def _plan(
     Significance tests and cross-K read the whole period at once: with them an
     explicit ``chunk`` is refused, and ``auto`` keeps the run in one piece.
     """
-    tested = significance.permutations > 0 or (k_params is not None and k_params.k_radii)
+    tested = significance.replicates > 0 or (k_params is not None and k_params.k_radii)
     if tested:
         if window_params.chunk_ns() is not None:
             raise bad_setting(
                 "chunk",
                 "cannot be used with significance tests or cross-K yet: they read the whole "
-                "period at once; give --permutations 0 (and no --k-radii), or leave --chunk out",
+                "period at once; give --replicates 0 (and no --k-radii), or leave --chunk out",
             )
         if str(window_params.chunk).strip().lower() == "auto":
             if plan_windows(source, columns, window_params)[0] is not None:
                 warnings.warn(
                     "the input needs more memory in one piece than this run plans to use, but "
                     "significance tests and cross-K read the whole period at once, so it runs "
-                    "in one piece; give --permutations 0 (and no --k-radii) to run it in time "
+                    "in one piece; give --replicates 0 (and no --k-radii) to run it in time "
                     "windows (docs/long-inputs.md)",
                     ComoveNote,
                     stacklevel=3,
@@ -496,7 +503,7 @@ def groups(
     columns, cleaning, alignment, grouping, episode_params, dyad_params, significance = stages[:7]
     window_params, run_params = stages[7], stages[8].resolved()
     plan = _plan(source, columns, window_params, run_params, significance)
-    bar = _Progress(progress, total=6 if significance.permutations > 0 else 5)
+    bar = _Progress(progress, total=6 if significance.replicates > 0 else 5)
     digest = _digest_beside(source)
     try:
         if plan is not None:
@@ -512,7 +519,7 @@ def groups(
         with bar.stage("paths"):
             paths, display = episode_paths(snaps, table, centroids)
         roles = role_rollup(table)
-        if significance.permutations > 0:
+        if significance.replicates > 0:
             with bar.stage("significance"):
                 pair_tests, role_tests = group_tests(
                     snaps, tally, dyads, table["roles"], grouping, episode_params, significance,

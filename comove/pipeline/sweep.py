@@ -19,7 +19,7 @@ import pandas as pd
 
 from comove.errors import bad_setting
 from comove.io.reading import ColumnSpec
-from comove.io.results import csv_writer, json_writer, write_folder
+from comove.io.results import csv_writer, flat_settings, json_writer, write_folder
 from comove.io.runfile import as_grid
 from comove.roles.chain import role_chain
 from comove.roles.colocation import RATIO_EPS, ColocationParams
@@ -30,8 +30,8 @@ from comove.tracks.cleaning import CleanParams
 from comove.tracks.neighbours import NeighbourPairs, neighbour_pairs
 
 SWEEP_COLUMNS = [
-    "radius", "min_participation", "roles", "size", "time_prevalence", "prevalent_seconds",
-    "longest_run_seconds", "kept",
+    "radius_m", "min_participation", "roles", "size", "time_prevalence", "prevalent_s",
+    "longest_run_s", "kept",
 ]  # fmt: skip
 
 
@@ -131,8 +131,8 @@ class SweepResult:
     ----------
     table : DataFrame
         One row per (radius, min_participation, role set with a prevalent
-        snapshot): ``time_prevalence``, ``prevalent_seconds``,
-        ``longest_run_seconds`` and ``kept`` (meets the persistence
+        snapshot): ``time_prevalence``, ``prevalent_s``,
+        ``longest_run_s`` and ``kept`` (meets the persistence
         thresholds there).
     quality, run : dict
         As for ``comove mine``.
@@ -156,10 +156,10 @@ class SweepResult:
         lead = (first.groupby("roles")["time_prevalence"].max()
                 .sort_values(ascending=False).head(PLOTTED).index)  # fmt: skip
         for colour, roles in zip(palette, lead, strict=False):
-            rows = first[first["roles"] == roles].sort_values("radius")
-            ax.plot(rows["radius"], rows["time_prevalence"], marker="o", ms=3, color=colour,
+            rows = first[first["roles"] == roles].sort_values("radius_m")
+            ax.plot(rows["radius_m"], rows["time_prevalence"], marker="o", ms=3, color=colour,
                     label=roles)  # fmt: skip
-        threshold = self.run["settings"]["PersistenceParams"]["min_prevalence"]
+        threshold = flat_settings(self.run)["min_prevalence"]
         ax.axhline(threshold, color="#555555", lw=1, ls="--")
         ax.annotate("min. prevalence", (ax.get_xlim()[0], threshold), xytext=(4, 3),
                     textcoords="offset points", fontsize=7, color="#555555")  # fmt: skip

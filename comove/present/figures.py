@@ -743,22 +743,22 @@ def cross_l_curves(cross: pd.DataFrame, top: int = 6) -> tuple[Figure, list[tupl
     Parameters
     ----------
     cross : DataFrame
-        ``role_a``, ``role_b``, ``radius_m``, ``l``, ``l_minus_r`` and
-        optionally ``null_low``, ``null_high``, ``null_mean`` (envelopes of
-        ``l``).
+        ``role_a``, ``role_b``, ``radius_m``, ``l_m``, ``l_minus_r_m`` and
+        optionally ``null_low_m``, ``null_high_m``, ``null_mean_m`` (envelopes of
+        ``l_m``).
     top : int, default 6
-        Most role pairs drawn, by largest ``l_minus_r``.
+        Most role pairs drawn, by largest ``l_minus_r_m``.
 
     Returns
     -------
     Figure, list of (str, str)
         The figure and the pairs drawn, in panel order.
     """
-    peak = cross.groupby(["role_a", "role_b"], observed=True)["l_minus_r"].max()
+    peak = cross.groupby(["role_a", "role_b"], observed=True)["l_minus_r_m"].max()
     pairs = list(peak.sort_values(ascending=False, kind="stable").head(top).index)
     ncols = min(3, len(pairs))
     nrows = -(-len(pairs) // ncols)
-    has_env = {"null_low", "null_high"} <= set(cross.columns)
+    has_env = {"null_low_m", "null_high_m"} <= set(cross.columns)
     with style():
         fig = _figure(0.8 + 2.3 * nrows)
         axes = fig.subplots(nrows, ncols, squeeze=False).ravel()
@@ -766,13 +766,14 @@ def cross_l_curves(cross: pd.DataFrame, top: int = 6) -> tuple[Figure, list[tupl
             rows = cross[(cross["role_a"] == ra) & (cross["role_b"] == rb)].sort_values("radius_m")
             r = rows["radius_m"].to_numpy(dtype="float64")
             if has_env:
-                ax.fill_between(r, rows["null_low"] - r, rows["null_high"] - r, color=PALETTE[1],
-                                alpha=0.35, linewidth=0, label="null envelope")  # fmt: skip
-                if "null_mean" in rows:
-                    ax.plot(r, rows["null_mean"] - r, color=PALETTE[3], linewidth=0.9,
+                ax.fill_between(r, rows["null_low_m"] - r, rows["null_high_m"] - r,
+                                color=PALETTE[1], alpha=0.35, linewidth=0,
+                                label="null envelope")  # fmt: skip
+                if "null_mean_m" in rows:
+                    ax.plot(r, rows["null_mean_m"] - r, color=PALETTE[3], linewidth=0.9,
                             linestyle=":", label="null mean")  # fmt: skip
             ax.axhline(0.0, color=MUTED, linewidth=0.8, label="independence (0)")
-            ax.plot(r, rows["l_minus_r"], color=PALETTE[4], marker="o", markersize=3,
+            ax.plot(r, rows["l_minus_r_m"], color=PALETTE[4], marker="o", markersize=3,
                     linewidth=1.3, label="observed")  # fmt: skip
             ax.set_title(plain_text(f"{ra} – {rb}", 50))
             ax.set_xlabel("r (m)")

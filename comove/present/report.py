@@ -27,6 +27,7 @@ from comove.io.results import (
     ResultsFolder,
     bytes_writer,
     claim,
+    flat_settings,
     open_results,
     text_writer,
 )
@@ -222,17 +223,26 @@ def _run_section(res: _Results) -> str:
         ]
         if run.get("preset"):
             rows.append(["preset", _e(run["preset"])])
-        for stage, values in (run.get("settings") or {}).items():
-            if isinstance(values, dict):
-                shown = "; ".join(f"{k} = {v}" for k, v in values.items() if v is not None)
-            else:
-                shown = str(values)
-            rows.append([_e(stage), _e(shown or "defaults")])
+        for name, value in flat_settings(run).items():
+            rows.append([f"<code>--{_e(name.replace('_', '-'))}</code>", _e(_setting(value))])
         versions = run.get("versions") or {}
         rows.append(["versions", _e(", ".join(f"{k} {v}" for k, v in versions.items()))])
         parts.append(_table(["item", "value"], rows))
     parts.append(_quality_html(res.quality))
     return "\n".join(parts)
+
+
+def _setting(value: object) -> str:
+    """Return a setting's value as a user writes it: yes/no, a list joined by commas, off."""
+    if value is None:
+        return "off"
+    if isinstance(value, bool):
+        return "yes" if value else "no"
+    if isinstance(value, (list, tuple)):
+        return ",".join(f"{v:g}" if isinstance(v, float) else str(v) for v in value)
+    if isinstance(value, float):
+        return f"{value:g}"
+    return str(value)
 
 
 def _quality_html(quality: dict[str, dict]) -> str:
@@ -315,9 +325,9 @@ def _quality_html(quality: dict[str, dict]) -> str:
     return "\n".join(parts)
 
 
-def _mine_settings(res: _Results) -> dict[str, dict]:
-    """Return the settings of the mine run, or an empty dict."""
-    return (res.runs.get("mine") or {}).get("settings") or {}
+def _mine_settings(res: _Results) -> dict[str, Any]:
+    """Return the settings of the mine run by option name, or an empty dict."""
+    return flat_settings(res.runs.get("mine") or {})
 
 
 def _period(res: _Results, times: pd.Series | None) -> tuple[int, int, int]:
@@ -327,9 +337,7 @@ def _period(res: _Results, times: pd.Series | None) -> tuple[int, int, int]:
     if q.get("time_start") and q.get("time_end"):
         start = pd.Timestamp(q["time_start"]).as_unit("ns").value
         end = pd.Timestamp(q["time_end"]).as_unit("ns").value
-    step_s = (q.get("alignment") or {}).get("step_s") or (
-        _mine_settings(res).get("AlignParams") or {}
-    ).get("step")
+    step_s = (q.get("alignment") or {}).get("step_s") or _mine_settings(res).get("step")
     if times is not None and len(times):
         t = figures.ns_times(times)
         lo, hi = int(t.min()), int(t.max())
@@ -344,7 +352,7 @@ def _period(res: _Results, times: pd.Series | None) -> tuple[int, int, int]:
 
 def _ranked(patterns: pd.DataFrame) -> pd.DataFrame:
     """Return patterns ranked by time prevalence, then longest run, then prevalent time."""
-    keys = [c for c in ("time_prevalence", "longest_run_seconds", "prevalent_seconds")
+    keys = [c for c in ("time_prevalence", "longest_run_s", "prevalent_s")
             if c in patterns]  # fmt: skip
     if not keys:
         return patterns
@@ -368,8 +376,8 @@ def _patterns_section(res: _Results) -> tuple[str, list[_Picture]]:
             str(i + 1),
             _name(_roles_text(row["roles"])),
             _num(row.get("time_prevalence")),
-            _e(_duration(row.get("prevalent_seconds"))),
-            _e(_duration(row.get("longest_run_seconds"))),
+            _e(_duration(row.get("prevalent_s"))),
+            _e(_duration(row.get("longest_run_s"))),
             _e(_when(row.get("longest_run_start"))),
             _num(row.get("mean_participation_index")),
         ]
@@ -395,7 +403,7 @@ def _patterns_section(res: _Results) -> tuple[str, list[_Picture]]:
         series = series[series["roles"].astype(str).isin(top)]
     if series is None or series.empty:
         return "\n".join(parts), []
-    threshold = (_mine_settings(res).get("ColocationParams") or {}).get("min_participation")
+    threshold = _mine_settings(res).get("min_participation")
     start, end, step = _period(res, series["time"])
     labels = [f"time prevalence {_num(v)}" for v in patterns["time_prevalence"].head(len(top))]
     fig, note = figures.pi_timelines(
@@ -513,7 +521,7 @@ def _dyad_section(res: _Results) -> tuple[str, list[_Picture]]:
     strongest = dyads.sort_values("half_weight_index", ascending=False).head(10)
     rows = [
         [_name(r["object_a"]), _name(r["object_b"]), _num(r["half_weight_index"]),
-         _e(_duration(r.get("together_seconds")))]
+         _e(_duration(r.get("together_s")))]
         for _, r in strongest.iterrows()
     ]  # fmt: skip
     table = _table(["object", "object", "half-weight index", "together"], rows, {2})
@@ -526,9 +534,9 @@ def _dyad_section(res: _Results) -> tuple[str, list[_Picture]]:
 def _cross_section(res: _Results) -> tuple[str, list[_Picture]]:
     """Return the cross-L curves of the top role pairs."""
     cross = res.cross_k
-    if cross is None or cross.empty or not np.isfinite(cross["l_minus_r"]).any():
+    if cross is None or cross.empty or not np.isfinite(cross["l_minus_r_m"]).any():
         return "", []
-    cross = cross[np.isfinite(cross["l_minus_r"])]
+    cross = cross[np.isfinite(cross["l_minus_r_m"])]
     fig, pairs = figures.cross_l_curves(cross, CROSS_PAIRS)
     pic = _Picture(
         "cross_l",

@@ -49,10 +49,10 @@ from comove.tracks.neighbours import neighbour_pairs
 CORRECTIONS = ("translation", "border")
 
 CROSSK_COLUMNS = [
-    "role_a", "role_b", "radius_m", "k", "l", "l_minus_r", "pairs_counted", "snapshots_used",
+    "role_a", "role_b", "radius_m", "k_m2", "l_m", "l_minus_r_m", "pairs_counted", "snapshots_used",
 ]  # fmt: skip
 
-ENVELOPE_COLUMNS = ["null_low", "null_high", "null_mean", "above", "below"]
+ENVELOPE_COLUMNS = ["null_low_m", "null_high_m", "null_mean_m", "above", "below"]
 
 #: Columns that must agree row by row between an observed curve and its replicates.
 _KEY_COLUMNS = ["role_a", "role_b", "radius_m"]
@@ -136,9 +136,9 @@ def _empty_table() -> pd.DataFrame:
             "role_a": pd.Series([], dtype=str),
             "role_b": pd.Series([], dtype=str),
             "radius_m": pd.Series([], dtype=np.float64),
-            "k": pd.Series([], dtype=np.float64),
-            "l": pd.Series([], dtype=np.float64),
-            "l_minus_r": pd.Series([], dtype=np.float64),
+            "k_m2": pd.Series([], dtype=np.float64),
+            "l_m": pd.Series([], dtype=np.float64),
+            "l_minus_r_m": pd.Series([], dtype=np.float64),
             "pairs_counted": pd.Series([], dtype=np.int64),
             "snapshots_used": pd.Series([], dtype=np.int64),
         }
@@ -199,8 +199,8 @@ def cross_k(
     -------
     pandas.DataFrame
         One row per (role pair, radius), pairs in the order above and radii
-        ascending: ``role_a``, ``role_b`` (names), ``radius_m``, ``k`` (NaN
-        when no snapshot is used), ``l`` = sqrt(k / pi), ``l_minus_r``,
+        ascending: ``role_a``, ``role_b`` (names), ``radius_m``, ``k_m2`` (NaN
+        when no snapshot is used), ``l_m`` = sqrt(k_m2 / pi), ``l_minus_r_m``,
         ``pairs_counted`` (a-b pairs within the radius that entered the sum,
         unweighted), ``snapshots_used`` (snapshots with a counted centre of a
         and an object of b). ``attrs``: ``window`` (xmin, ymin, xmax, ymax),
@@ -242,7 +242,7 @@ def cross_k(
     ...                   y=np.full(2, 5.0), objects=np.array(["p", "q"]),
     ...                   roles=np.array(["a", "b"]), max_gap_ns=0)
     >>> params = CrossKParams(k_radii=(0.5, 2.0), k_window=(0, 0, 10, 10), k_correction="border")
-    >>> cross_k(snaps, params)[["radius_m", "k", "pairs_counted"]].to_dict("list")
+    >>> cross_k(snaps, params)[["radius_m", "k_m2", "pairs_counted"]].to_dict("list")
     {'radius_m': [0.5, 2.0], 'k': [0.0, 100.0], 'pairs_counted': [0, 1]}
     """
     if params.k_radii is None:
@@ -369,9 +369,9 @@ def _pooled_k(
             "role_a": np.repeat([str(names[a]) for a in a_codes], n_rad),
             "role_b": np.repeat([str(names[b]) for b in b_codes], n_rad),
             "radius_m": np.tile(radii, len(pairs)),
-            "k": k.ravel(),
-            "l": l_val.ravel(),
-            "l_minus_r": (l_val - radii[None, :]).ravel(),
+            "k_m2": k.ravel(),
+            "l_m": l_val.ravel(),
+            "l_minus_r_m": (l_val - radii[None, :]).ravel(),
             "pairs_counted": counted.ravel().astype(np.int64),
             "snapshots_used": used.ravel().astype(np.int64),
         }
@@ -467,10 +467,10 @@ def envelopes(
     Returns
     -------
     pandas.DataFrame
-        A copy of ``observed`` with columns ``null_low``, ``null_high`` (the
-        envelope of ``l``), ``null_mean`` (mean ``l`` over replicates) and
-        ``above`` / ``below`` (observed ``l`` strictly above ``null_high`` /
-        below ``null_low``). ``attrs`` gains ``envelope_replicates``,
+        A copy of ``observed`` with columns ``null_low_m``, ``null_high_m`` (the
+        envelope of ``l_m``), ``null_mean_m`` (mean ``l_m`` over replicates) and
+        ``above`` / ``below`` (observed ``l_m`` strictly above ``null_high_m`` /
+        below ``null_low_m``). ``attrs`` gains ``envelope_replicates``,
         ``envelope_level`` (as asked) and ``envelope_rank`` (the largest k below over the rows).
 
     Raises
@@ -483,11 +483,11 @@ def envelopes(
     Notes
     -----
     The envelopes are **pointwise**: at each radius separately, with m
-    finite replicate values sorted, ``null_low`` is the k-th smallest and
-    ``null_high`` the k-th largest, k = max(1, floor((m + 1)(1 - level) / 2)).
+    finite replicate values sorted, ``null_low_m`` is the k-th smallest and
+    ``null_high_m`` the k-th largest, k = max(1, floor((m + 1)(1 - level) / 2)).
     These rank-based limits are the empirical (1 - level)/2 and
     1 - (1 - level)/2 quantiles: when the observed data are exchangeable with
-    the replicates, the observed value falls above ``null_high`` with
+    the replicates, the observed value falls above ``null_high_m`` with
     probability at most k / (m + 1) at *that* radius [1]_ [2]_. Hence 39
     replicates give k = 1 (minimum and maximum) at level 0.95; with fewer, k is
     still 1 and the coverage is lower than asked. Checking many radii at once
@@ -505,14 +505,14 @@ def envelopes(
        doi:10.1201/b19708
     """
     _check_replicates(observed, replicates, level)
-    values = np.column_stack([rep["l"].to_numpy(dtype=np.float64) for rep in replicates])
+    values = np.column_stack([rep["l_m"].to_numpy(dtype=np.float64) for rep in replicates])
     low, high, mean, rank = _pointwise_limits(values, level)
 
     out = observed.copy()
-    obs = out["l"].to_numpy(dtype=np.float64)
-    out["null_low"] = low
-    out["null_high"] = high
-    out["null_mean"] = mean
+    obs = out["l_m"].to_numpy(dtype=np.float64)
+    out["null_low_m"] = low
+    out["null_high_m"] = high
+    out["null_mean_m"] = mean
     out["above"] = obs > high
     out["below"] = obs < low
     out.attrs.update(

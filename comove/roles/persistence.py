@@ -6,7 +6,7 @@ has at least one object present, and
     time_prevalence(C) = (snapshots at which C is prevalent) / |present(C)|.
 
 C is kept when its time prevalence reaches ``min_prevalence`` and its prevalent
-time (prevalent snapshots x step) reaches ``min_duration``. The longest run is
+time (prevalent snapshots x step) reaches ``min_prevalent_time``. The longest run is
 the longest stretch of consecutive grid snapshots at which C is prevalent.
 """
 
@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from typing import ClassVar
 
 import numpy as np
 import pandas as pd
@@ -34,7 +35,7 @@ class PersistenceParams:
     ----------
     min_prevalence : float, default 0.5
         Share of present(C) snapshots at which C must be prevalent, in (0, 1].
-    min_duration : float, default 0.0
+    min_prevalent_time : float, default 0.0
         Least total prevalent time in seconds.
     """
 
@@ -45,15 +46,20 @@ class PersistenceParams:
             "which a role set is prevalent, in (0, 1]"
         },
     )
-    min_duration: float = field(
-        default=0.0, metadata={"help": "least total prevalent time in seconds"}
-    )
+    min_prevalent_time: float = field(
+        default=0.0,
+        metadata={"help": "least total time in seconds at which a role set is prevalent "
+                  "(prevalent_s in patterns.csv)"},
+    )  # fmt: skip
+
+    #: Former names of settings, still read for one release.
+    FORMER_NAMES: ClassVar[dict[str, str]] = {"min_duration": "min_prevalent_time"}
 
     def __post_init__(self) -> None:
         if not (0 < self.min_prevalence <= 1):
             raise bad_setting("min_prevalence", "must be in (0, 1]")
-        if not (np.isfinite(self.min_duration) and self.min_duration >= 0):
-            raise bad_setting("min_duration", "must be zero or a positive number of seconds")
+        if not (np.isfinite(self.min_prevalent_time) and self.min_prevalent_time >= 0):
+            raise bad_setting("min_prevalent_time", "must be zero or a positive number of seconds")
 
     def keeps(self, prevalent: np.ndarray, present: np.ndarray, step_s: float) -> np.ndarray:
         """Return which role sets meet both thresholds, from their snapshot counts."""
@@ -66,11 +72,11 @@ class PersistenceParams:
     def min_prevalent_snapshots(self, step_s: float) -> int:
         """Return the fewest prevalent snapshots a kept set can have (at least 1).
 
-        Any set below this count fails ``min_duration``, and so do all its
+        Any set below this count fails ``min_prevalent_time``, and so do all its
         supersets (prevalent snapshots are anti-monotone), so the miner may stop
         extending it.
         """
-        return max(1, math.ceil(self.min_duration / step_s - RATIO_EPS))
+        return max(1, math.ceil(self.min_prevalent_time / step_s - RATIO_EPS))
 
 
 @dataclass
@@ -119,7 +125,7 @@ def durable_patterns(
     PatternTables
         ``patterns`` has columns ``roles`` (role names sorted, joined by ';'),
         ``size``, ``present_snapshots``, ``prevalent_snapshots``,
-        ``time_prevalence``, ``prevalent_seconds``, ``longest_run_seconds``,
+        ``time_prevalence``, ``prevalent_s``, ``longest_run_s``,
         ``longest_run_start`` (UTC), ``mean_participation_index`` (over
         present(C), absent instances counting as 0) and ``participation_ratios``
         (``role=mean PR`` joined by ';'); sorted by time prevalence, descending.
@@ -193,8 +199,8 @@ def _kept_rows(
             "present_snapshots": int(present[s]),
             "prevalent_snapshots": int(level.prevalent[s]),
             "time_prevalence": float(prevalence[s]),
-            "prevalent_seconds": float(level.prevalent[s] * step_s),
-            "longest_run_seconds": float(longest[s] * step_s),
+            "prevalent_s": float(level.prevalent[s] * step_s),
+            "longest_run_s": float(longest[s] * step_s),
             "longest_run_start": pd.Timestamp(int(tally.times(run_start[s : s + 1])[0]), tz="UTC"),
             "mean_participation_index": float(pi_sum[s] / present[s]),
             "participation_ratios": ROLE_SEP.join(
@@ -215,7 +221,7 @@ def _kept_rows(
 
 PATTERN_COLUMNS = [
     "roles", "size", "present_snapshots", "prevalent_snapshots", "time_prevalence",
-    "prevalent_seconds", "longest_run_seconds", "longest_run_start",
+    "prevalent_s", "longest_run_s", "longest_run_start",
     "mean_participation_index", "participation_ratios",
 ]  # fmt: skip
 PARTICIPATION_COLUMNS = [

@@ -31,7 +31,7 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from dataclasses import dataclass, field, replace
-from typing import Any
+from typing import Any, ClassVar
 
 import numpy as np
 import pandas as pd
@@ -56,7 +56,7 @@ class SignificanceParams:
 
     Parameters
     ----------
-    permutations : int, default 199
+    replicates : int, default 199
         Null replicates N; 0 switches the tests off. The smallest attainable
         p-value is 1 / (N + 1).
     null : {"time-shift", "role-shuffle"}, default "time-shift"
@@ -86,7 +86,7 @@ class SignificanceParams:
         or crowding is high, and then has little power; the mean does not.
     """
 
-    permutations: int = field(
+    replicates: int = field(
         default=199, metadata={"help": "null replicates for Monte Carlo p-values; 0: no test"}
     )
     null: str = field(
@@ -119,9 +119,12 @@ class SignificanceParams:
                   "choices": STATISTICS},
     )  # fmt: skip
 
+    #: Former names of settings, still read for one release.
+    FORMER_NAMES: ClassVar[dict[str, str]] = {"permutations": "replicates"}
+
     def __post_init__(self) -> None:
-        if int(self.permutations) != self.permutations or self.permutations < 0:
-            raise bad_setting("permutations", "must be a whole number, 0 or more")
+        if int(self.replicates) != self.replicates or self.replicates < 0:
+            raise bad_setting("replicates", "must be a whole number, 0 or more")
         if self.null not in NULL_MODELS:
             raise bad_setting("null", f"must be one of {', '.join(NULL_MODELS)}, not {self.null!r}")
         if self.shift_within not in SHIFT_SPANS:
@@ -274,7 +277,7 @@ def null_distribution(
     progress: bool = False,
     label: str = "null replicates",
 ) -> np.ndarray:
-    """Return the statistic on ``params.permutations`` null replicates.
+    """Return the statistic on ``params.replicates`` null replicates.
 
     Parameters
     ----------
@@ -284,7 +287,7 @@ def null_distribution(
         ``statistic(model, rng)`` returns a 1-d array (one value per tested
         item); it must be a picklable top-level function or partial.
     params : SignificanceParams
-        ``permutations``.
+        ``replicates``.
     run : RunParams
         The seed (must be resolved) and the engine that runs the replicates.
     progress : bool, default False
@@ -294,11 +297,11 @@ def null_distribution(
 
     Returns
     -------
-    ndarray, shape (permutations, n_items)
+    ndarray, shape (replicates, n_items)
         Row k is replicate k, whatever the engine and its number of workers:
         replicate k draws from ``SeedSequence(seed).spawn(N)[k]``.
     """
-    n = int(params.permutations)
+    n = int(params.replicates)
     if run.seed is None:
         raise ValueError("resolve the seed first (RunParams.resolved)")
     seeds = np.random.SeedSequence(run.seed).spawn(n)
@@ -674,7 +677,7 @@ class CrossLStatistic:
         from comove.roles.crossk import cross_k
 
         snaps, _ = model.draw(rng)
-        return cross_k(snaps, self.params, list(self.role_pairs))["l"].to_numpy(np.float64)
+        return cross_k(snaps, self.params, list(self.role_pairs))["l_m"].to_numpy(np.float64)
 
 
 def cross_k_tests(
@@ -694,7 +697,7 @@ def cross_k_tests(
     from comove.roles.crossk import cross_k, envelopes
 
     observed = cross_k(snaps, kparams)
-    if params.permutations == 0 or observed.empty:
+    if params.replicates == 0 or observed.empty:
         return observed
     codes = {str(name): k for k, name in enumerate(snaps.roles)}
     pairs = tuple(dict.fromkeys(

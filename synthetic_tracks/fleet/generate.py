@@ -45,7 +45,7 @@ PARAMETERS = {
     "radius": RADIUS,
     "min_participation": 0.5,
     "min_prevalence": 0.5,
-    "min_duration": 600.0,
+    "min_prevalent_time": 600.0,
     "step": float(STEP),
     "max_gap": float(MAX_GAP),
     # well above the fleet's 25 m/s top speed: only the planted position spike exceeds it

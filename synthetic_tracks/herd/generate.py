@@ -46,7 +46,7 @@ PARAMETERS = {
     "radius": RADIUS,
     "min_participation": 0.5,
     "min_prevalence": 0.5,
-    "min_duration": 86400.0,
+    "min_prevalent_time": 86400.0,
     "step": float(HOUR),
     "max_gap": float(MAX_GAP),
 }

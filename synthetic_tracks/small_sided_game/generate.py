@@ -46,7 +46,7 @@ PARAMETERS = {
     "radius": RADIUS,
     "min_participation": 0.5,
     "min_prevalence": 0.5,
-    "min_duration": 30.0,
+    "min_prevalent_time": 30.0,
     "step": 0.1,
     "max_gap": 1.0,
 }

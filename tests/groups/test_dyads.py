@@ -81,8 +81,8 @@ def test_hand_computed_association_indices():
     assert row["half_weight_index"] == pytest.approx(3 / (3 + 3 + 1.5))
     # Bertrand et al. 1996 (from memory), as reviewed by Joo et al. 2018: Prox = x / shared
     assert row["proximity_index"] == pytest.approx(3 / 6)
-    assert row["together_seconds"] == 3.0
-    assert row["longest_together_seconds"] == 2.0  # snapshots 2-3
+    assert row["together_s"] == 3.0
+    assert row["longest_together_s"] == 2.0  # snapshots 2-3
     assert row["first_together"] == pd.Timestamp(2, unit="s", tz="UTC")
     assert row["last_together"] == pd.Timestamp(6, unit="s", tz="UTC")
     # Do over the 6 shared snapshots: 3 at 1 m, 3 at 50 m
@@ -122,7 +122,7 @@ def test_never_together_and_never_shared():
     row = row_of(table, "obj00", "obj01")
     assert row["together_snapshots"] == 0
     assert row["simple_ratio_index"] == 0.0
-    assert row["longest_together_seconds"] == 0.0
+    assert row["longest_together_s"] == 0.0
     assert pd.isna(row["first_together"]) and pd.isna(row["last_together"])
     assert table["first_together"].dtype == "datetime64[ns, UTC]"
 
@@ -225,7 +225,7 @@ def test_counts_match_brute_force(seed: int, thin: bool, which: str):
         assert row["together_snapshots"] == e["together"]
         assert row["only_a_snapshots"] == e["only_a"]
         assert row["only_b_snapshots"] == e["only_b"]
-        assert row["longest_together_seconds"] == e["longest"] * step
+        assert row["longest_together_s"] == e["longest"] * step
         if e["first"] is None:
             assert pd.isna(row["first_together"])
         else:

@@ -76,10 +76,10 @@ def test_crossing_decoys_are_not_reported(scenario):
     if not truth["decoys"]:
         pytest.skip("no decoys planted in this scenario")
     # no minimum duration, so a moment of closeness would count if it were linked
-    _, strict = run_scenario(name, min_duration=0.0, tolerance=0.0)
-    _, strict_moment = run_scenario(name, min_duration=0.0, tolerance=0.0, links="snapshot")
+    _, strict = run_scenario(name, min_together_time=0.0, tolerance=0.0)
+    _, strict_moment = run_scenario(name, min_together_time=0.0, tolerance=0.0, links="snapshot")
     _, loose = run_scenario(
-        name, min_duration=0.0, tolerance=0.0, max_heading=None, max_speed_ratio=None,
+        name, min_together_time=0.0, tolerance=0.0, max_heading=None, max_speed_ratio=None,
         links="snapshot",
     )  # fmt: skip
     for decoy in truth["decoys"]:
@@ -113,13 +113,13 @@ def test_outputs_have_the_documented_columns(scenario):
     assert {"mean_spacing_m", "max_spacing_m", "moving_share"} <= set(result.episodes.columns)
     assert len(result.paths) == len(result.episodes)
     assert result.paths.geometry.geom_type.eq("LineString").all()
-    assert set(result.roles.columns) >= {"roles", "episodes", "total_seconds", "longest_seconds"}
+    assert set(result.roles.columns) >= {"roles", "episodes", "total_s", "longest_s"}
 
 
 def test_groups_equals_its_stages_run_one_after_another():
     # the pipeline overlaps the dyads with the episode search in a helper thread and
     # searches neighbours in several threads: the same tables as plain sequential calls
-    truth, result = run_scenario("small_sided_game", permutations=0, jobs=2)
+    truth, result = run_scenario("small_sided_game", replicates=0, jobs=2)
     snaps = result.snapshots
     options = dict(preset_values("team-sport"), radius=truth["parameters"]["radius"])
     grouping, episode_params = split_options(GROUP_STAGES, options)[3:5]
@@ -193,7 +193,7 @@ def test_tolerance_bridges_short_separations_only():
     snaps = walk_scene(x, y, 2)
     assert len(episodes_of(snaps, tolerance=3.0)[1]) == 1
     assert len(episodes_of(snaps, tolerance=2.0)[1]) == 2
-    assert len(episodes_of(snaps, tolerance=2.0, min_duration=11.0)[1]) == 1  # 17 s kept
+    assert len(episodes_of(snaps, tolerance=2.0, min_together_time=11.0)[1]) == 1  # 17 s kept
 
 
 def test_min_size_and_min_duration():
@@ -204,7 +204,7 @@ def test_min_size_and_min_duration():
     _, table = episodes_of(snaps, min_size=3)
     assert table["members"].tolist() == ["obj00;obj01;obj02"]
     assert table["duration_s"].tolist() == [4.0]
-    assert episodes_of(snaps, min_size=3, min_duration=5.0)[1].empty
+    assert episodes_of(snaps, min_size=3, min_together_time=5.0)[1].empty
 
 
 scenes = st.builds(
@@ -276,7 +276,8 @@ def test_episodes_equal_a_brute_force_search_of_the_definition(
                      min_members=3 if mode == "dbscan" else 2)  # fmt: skip
     groups_ = snapshot_groups(snaps, linked_pairs(neighbour_pairs(snaps, 1.5),
                                                   entry_motion(snaps), gp), gp)  # fmt: skip
-    params = EpisodeParams(min_size=min_size, min_duration=float(min_snaps), tolerance=float(tol))
+    params = EpisodeParams(min_size=min_size, min_together_time=float(min_snaps),
+                           tolerance=float(tol))  # fmt: skip
     found = find_episodes(GroupTimeline.of(snaps, groups_), params)
     assert found_set(found) == brute_force_episodes(snaps, groups_, min_size, min_snaps, tol)
 
@@ -298,7 +299,7 @@ def test_memory_bounds_of_the_search_do_not_change_its_episodes(scene, tol, p_pr
     gp = GroupParams(radius=1.5, max_heading=None, max_speed_ratio=None)
     groups_ = snapshot_groups(snaps, linked_pairs(neighbour_pairs(snaps, 1.5),
                                                   entry_motion(snaps), gp), gp)  # fmt: skip
-    params = EpisodeParams(min_duration=2.0, tolerance=float(tol))
+    params = EpisodeParams(min_together_time=2.0, tolerance=float(tol))
     names = ("PRUNE_ABOVE", "PRUNE_GROWTH", "FORGET_ABOVE", "INDEX_GROUPS_ABOVE", "OWNER_SPANS")
     old = {name: getattr(ep, name) for name in names}
     # pruning at every span; also the object -> group index always on, with the fewest
@@ -320,9 +321,9 @@ def test_time_apart_does_not_count_towards_the_minimum_duration():
     x = np.column_stack([t, t])
     y = np.column_stack([np.zeros(8), np.where(apart, 20.0, 0.5)])
     snaps = walk_scene(x, y, 2)
-    _, table = episodes_of(snaps, tolerance=2.0, min_duration=6.0)
+    _, table = episodes_of(snaps, tolerance=2.0, min_together_time=6.0)
     assert table[["duration_s", "together_s"]].values.tolist() == [[8.0, 6.0]]
-    assert episodes_of(snaps, tolerance=2.0, min_duration=7.0)[1].empty  # the span is 8 s
+    assert episodes_of(snaps, tolerance=2.0, min_together_time=7.0)[1].empty  # the span is 8 s
 
 
 def test_a_missing_member_is_excused_while_briefly_missing():
@@ -370,7 +371,7 @@ def test_a_part_keeps_its_missing_members():
     gp = GroupParams(radius=1.5, max_heading=None, max_speed_ratio=None)
     groups_ = snapshot_groups(snaps, linked_pairs(neighbour_pairs(snaps, 1.5),
                                                   entry_motion(snaps), gp), gp)  # fmt: skip
-    params = EpisodeParams(min_duration=4.0, tolerance=2.0)
+    params = EpisodeParams(min_together_time=4.0, tolerance=2.0)
     found = found_set(find_episodes(GroupTimeline.of(snaps, groups_), params))
     assert (frozenset({0, 1, 3}), 0, 5, 4) in found
     assert found == brute_force_episodes(snaps, groups_, 2, 4, 2)
@@ -384,12 +385,12 @@ def test_many_objects_give_the_same_episodes():
     present = rng.random((30, 5)) < 0.8
     present[0] = True
     snaps = walk_scene(x, y, 5, present)
-    found, _ = episodes_of(snaps, radius=1.5, tolerance=2.0, min_duration=2.0)
+    found, _ = episodes_of(snaps, radius=1.5, tolerance=2.0, min_together_time=2.0)
     n_far = 70
     far_x = np.tile(1000.0 * np.arange(1, n_far + 1), (30, 1))
     wide = walk_scene(np.hstack([far_x, x]), np.hstack([far_x, y]), n_far + 5,
                       np.hstack([np.ones((30, n_far), bool), present]))  # fmt: skip
-    found_wide, _ = episodes_of(wide, radius=1.5, tolerance=2.0, min_duration=2.0)
+    found_wide, _ = episodes_of(wide, radius=1.5, tolerance=2.0, min_together_time=2.0)
     shifted = {(frozenset(m + n_far for m in ms), s, e, c) for ms, s, e, c in found_set(found)}
     assert found.n_episodes > 0 and found_set(found_wide) == shifted
 

@@ -131,7 +131,7 @@ def episode_set(result, rename=None) -> set[tuple[frozenset, str, str]]:
 
 def test_relabelling_objects_changes_nothing():
     frame = crowd_frame()
-    options = dict(preset="pedestrians", step=0.4, id="person", time="t", permutations=0)
+    options = dict(preset="pedestrians", step=0.4, id="person", time="t", replicates=0)
     before = groups(frame, **options)
     people = sorted(frame["person"].unique())
     shuffled = np.random.default_rng(7).permutation(len(people))
@@ -188,7 +188,7 @@ def test_a_moment_together_is_not_a_link_and_a_walk_together_is():
     )
     result = groups(frame, preset="pedestrians", step=1.0)
     assert set(result.episodes["members"]) == {"a;b"}
-    moment = groups(frame, preset="pedestrians", step=1.0, links="snapshot", min_duration=0.0,
+    moment = groups(frame, preset="pedestrians", step=1.0, links="snapshot", min_together_time=0.0,
                     tolerance=0.0, max_speed_ratio=None)  # fmt: skip
     assert any("d" in m for m in moment.episodes["members"])  # the moment alone links d
 
@@ -202,13 +202,13 @@ def test_standing_near_is_evidence_only_when_it_counts_as_together():
         pd.DataFrame({"id": "b", "time": t, "x": walk, "y": 0.7}),
         pd.DataFrame({"id": "c", "time": t, "x": 0.0, "y": np.minimum(t, 20.0) * 1.2 - 22.6}),
     ])  # fmt: skip
-    ignored = groups(frame, preset="pedestrians", step=1.0, permutations=0)
+    ignored = groups(frame, preset="pedestrians", step=1.0, replicates=0)
     assert set(ignored.episodes["members"]) == {"a;b"}  # c gains nothing by standing there
-    apart = groups(frame, preset="pedestrians", step=1.0, standing="apart", permutations=0)
+    apart = groups(frame, preset="pedestrians", step=1.0, standing="apart", replicates=0)
     ends = apart.episodes.set_index("members")["end"]
     assert ends["a;b"] < ignored.episodes.set_index("members")["end"]["a;b"]
     together = groups(frame, preset="pedestrians", step=1.0, standing="together",
-                      permutations=0)  # fmt: skip
+                      replicates=0)  # fmt: skip
     assert "a;b;c" in set(together.episodes["members"])
 
 

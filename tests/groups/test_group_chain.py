@@ -53,7 +53,7 @@ def test_pair_counts_equal_a_brute_force_count_of_distances():
 def test_every_role_set_of_the_table_is_tested_when_a_role_changes():
     # in the game, player A06 changes role at 4:00: the table and the tests of episode
     # counts must name the episodes' role sets alike, so that every one gets a p-value
-    _, result = run_scenario("small_sided_game", permutations=19, seed=3, jobs=1)
+    _, result = run_scenario("small_sided_game", replicates=19, seed=3, jobs=1)
     snaps = result.snapshots
     assert (snaps.main_roles()[snaps.obj] != snaps.role).any()
     roles = result.roles
@@ -141,7 +141,7 @@ def assert_same_dyads(found, whole):
 
 @pytest.fixture(scope="module", params=["small_sided_game", "fleet", "herd"])
 def scenario_groups(request):
-    truth, result = run_scenario(request.param, permutations=0)
+    truth, result = run_scenario(request.param, replicates=0)
     options = dict(preset_values(SCENARIO_RUNS[request.param][0]),
                    radius=truth["parameters"]["radius"])  # fmt: skip
     grouping, episode_params = split_options(GROUP_STAGES, options)[3:5]
@@ -223,7 +223,7 @@ def test_any_cut_of_a_random_scene_gives_the_same_episodes(seed, tol, data):
     window = data.draw(st.sampled_from([0.0, 3.0, 8.0]))
     gp = GroupParams(radius=1.5, min_speed=0.1, max_heading=60.0, max_speed_ratio=2.0,
                      velocity_window=4.0, links=links, evidence_window=window)  # fmt: skip
-    params = EpisodeParams(tolerance=float(tol), min_duration=2.0)
+    params = EpisodeParams(tolerance=float(tol), min_together_time=2.0)
     cuts = sorted(set(data.draw(st.lists(st.integers(1, snaps.n_snapshots - 1), max_size=8))))
     whole = group_chain(snaps, gp, params).episodes
     assert episodes_as_tuples(chunked_episodes(snaps, gp, params, cuts)) == episodes_as_tuples(
@@ -252,7 +252,7 @@ def test_episode_role_sets_equal_a_loop_over_members_fixes(seed, data):
     role = np.where(np.cumsum(switch, axis=0) % 2 == 1, (role + 1) % 3, role)
     snaps = grid_scene(x, y, role, present, 3)
     gp = GroupParams(radius=1.5, max_heading=None, max_speed_ratio=None)
-    tally = group_chain(snaps, gp, EpisodeParams(tolerance=1.0, min_duration=2.0))
+    tally = group_chain(snaps, gp, EpisodeParams(tolerance=1.0, min_together_time=2.0))
     expected = []
     for members, start, end in zip(tally.episodes.members, tally.episodes.start,
                                    tally.episodes.end, strict=True):  # fmt: skip
@@ -277,7 +277,7 @@ def test_chunks_of_one_snapshot_each_give_the_whole_dyads_and_table():
     whole = dyad_table(snaps, neighbour_pairs(snaps, gp.radius))
     assert len(whole) > 20
     assert_same_dyads(chunked_dyads(snaps, gp.radius, cuts, "tree"), whole)
-    tally = group_chain(snaps, gp, EpisodeParams(min_duration=2.0))
+    tally = group_chain(snaps, gp, EpisodeParams(min_together_time=2.0))
     assert tally.episodes.n_episodes > 0
     assert_same_table(chunked_table(snaps, gp, tally, cuts),
                       episode_table(snaps, tally.episodes, tally.motion, gp.min_speed))  # fmt: skip

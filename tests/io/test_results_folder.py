@@ -30,7 +30,7 @@ from comove.io.results import (
 )
 from comove.io.scenarios import mine_options
 
-QUICK = ["--radius", "2", "--permutations", "0", "--quiet"]
+QUICK = ["--radius", "2", "--replicates", "0", "--quiet"]
 
 
 def run(argv, capsys):
@@ -121,7 +121,7 @@ def test_a_folder_without_comoves_record_is_left_untouched(tmp_path, tracks_csv,
 
 def test_force_replaces_only_the_listed_files_and_keeps_the_folder(tmp_path, tracks_csv, capsys):
     out = tmp_path / "res"
-    code, _, err = run(["mine", tracks_csv, "--radius", 2, "--permutations", 9, "--quiet",
+    code, _, err = run(["mine", tracks_csv, "--radius", 2, "--replicates", 9, "--quiet",
                         "--out", out], capsys)  # fmt: skip
     assert code == 0, err
     assert (out / "significance.csv").is_file()
@@ -171,7 +171,7 @@ def test_merge_keeps_everything_it_did_not_write_and_removes_the_outdated_report
     (out / "figures" / "mine.svg").write_text("<svg/>")
     (out / "notes").mkdir()
     (out / "notes" / "todo.txt").write_text("check the cat")
-    code, out_text, err = run(["groups", tracks_csv, "--radius", 2, "--permutations", 0,
+    code, out_text, err = run(["groups", tracks_csv, "--radius", 2, "--replicates", 0,
                                "--out", out, "--merge"], capsys)  # fmt: skip
     assert code == 0, err
     assert "report of the folder's earlier results was removed" in out_text
@@ -377,7 +377,7 @@ def test_signals_are_held_while_files_change_places():
 def game_args():
     source, options = mine_options("small_sided_game")
     flags = [x for k, v in options.items() for x in (f"--{k.replace('_', '-')}", str(v))]
-    return ["mine", source, *flags, "--permutations", "199", "--jobs", "2", "--quiet"]
+    return ["mine", source, *flags, "--replicates", "199", "--jobs", "2", "--quiet"]
 
 
 @pytest.mark.parametrize(

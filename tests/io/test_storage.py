@@ -3,13 +3,13 @@
 from __future__ import annotations
 
 import gzip
-import json
 import uuid
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 import pytest
+from scenes import one_record
 
 from comove.cli import main
 from comove.errors import InputError
@@ -154,7 +154,7 @@ def test_mine_reads_an_address_as_it_reads_a_local_file(tmp_path, capsys):
     source, options = mine_options("small_sided_game")
     address = "file://" + str(Path(source).resolve())
     flags = [a for k, v in options.items() for a in ("--" + k.replace("_", "-"), str(v))]
-    common = [*flags, "--permutations", "0", "--quiet"]
+    common = [*flags, "--replicates", "0", "--quiet"]
     outs = {}
     for label, where, extra in [
         ("local", source, []),
@@ -168,11 +168,9 @@ def test_mine_reads_an_address_as_it_reads_a_local_file(tmp_path, capsys):
     for label in ("address", "address-windows"):
         for name in ("patterns.csv", "participation.csv"):
             assert (outs[label] / name).read_bytes() == (outs["local"] / name).read_bytes()
-    run = json.loads((outs["address"] / "run.json").read_text())
+    run = one_record(outs["address"] / "run.json")
     assert run["input"] == [address]
-    assert (
-        run["input_digest"] == json.loads((outs["local"] / "run.json").read_text())["input_digest"]
-    )
+    assert run["input_digest"] == one_record(outs["local"] / "run.json")["input_digest"]
 
 
 def test_without_fsspec_the_message_says_what_to_install(monkeypatch):

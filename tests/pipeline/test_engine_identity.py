@@ -7,13 +7,12 @@ order, must give the local engine's tables exactly.
 
 from __future__ import annotations
 
-import json
 from dataclasses import fields
 
 import pandas as pd
 import pytest
 from dask_cluster import command_cluster, local_cluster
-from scenes import run_scenario
+from scenes import one_record, run_scenario
 
 from comove.cli import main
 from comove.io.scenarios import mine_options
@@ -46,7 +45,7 @@ def as_flags(options: dict) -> list[str]:
 
 def test_mine_command_writes_the_same_files_with_the_dask_engine(tmp_path, capsys):
     source, options = mine_options(SCENE)
-    base = ["mine", source, *as_flags(options), "--permutations", "19", "--seed", "5",
+    base = ["mine", source, *as_flags(options), "--replicates", "19", "--seed", "5",
             "--jobs", "2", "--quiet"]  # fmt: skip
     assert main([*base, "--out", str(tmp_path / "local")]) == 0
     # no --scheduler: the engine starts a local cluster of --jobs worker processes
@@ -57,12 +56,14 @@ def test_mine_command_writes_the_same_files_with_the_dask_engine(tmp_path, capsy
     assert "significance.csv" in tables and len(tables) >= 4
     for name in tables:
         assert (local / name).read_bytes() == (dask / name).read_bytes(), name
-    settings = json.loads((dask / "run.json").read_text())["settings"]["RunParams"]
-    assert settings == {"jobs": 2, "seed": 5, "engine": "dask", "scheduler": None}
+    settings = one_record(dask / "run.json")["settings"]
+    assert {k: settings[k] for k in ("jobs", "seed", "engine")} == {
+        "jobs": 2, "seed": 5, "engine": "dask"}  # fmt: skip
+    assert "scheduler" not in settings  # not named: a cluster on this machine
 
 
 def test_groups_tables_are_the_same_on_a_dask_cluster(cluster):
-    run = {"permutations": 19, "seed": 5, "jobs": 2}
+    run = {"replicates": 19, "seed": 5, "jobs": 2}
     _, local = run_scenario(SCENE, **run)
     _, dask = run_scenario(SCENE, **run, engine="dask", scheduler=cluster)
     assert assert_same_tables(local, dask) >= 3
@@ -81,26 +82,26 @@ def test_sweep_table_is_the_same_on_a_dask_cluster(cluster):
 @pytest.mark.slow
 def test_a_cluster_started_with_the_dask_commands_gives_the_same_tables():
     source, options = mine_options(SCENE)
-    run = {"permutations": 19, "seed": 8, "k_radii": "2,4"}
+    run = {"replicates": 19, "seed": 8, "k_radii": "2,4"}
     with command_cluster(workers=2) as address:
         on_cluster = mine(source, **options, **run, engine="dask", scheduler=address)
-        _, groups_on_cluster = run_scenario(SCENE, permutations=19, seed=8, engine="dask",
+        _, groups_on_cluster = run_scenario(SCENE, replicates=19, seed=8, engine="dask",
                                             scheduler=address)  # fmt: skip
     assert on_cluster.cross_k is not None and on_cluster.tests is not None
     assert assert_same_tables(mine(source, **options, **run, jobs=2), on_cluster) >= 5
-    _, groups_here = run_scenario(SCENE, permutations=19, seed=8, jobs=1)
+    _, groups_here = run_scenario(SCENE, replicates=19, seed=8, jobs=1)
     assert assert_same_tables(groups_here, groups_on_cluster) >= 3
 
 
 def test_windows_run_on_a_dask_cluster_give_the_local_tables(cluster):
     # the windows are the engine's tasks: cleaning, and both passes of groups
-    run = {"permutations": 0, "seed": 5, "chunk": "30min"}
+    run = {"replicates": 0, "seed": 5, "chunk": "30min"}
     _, local = run_scenario("fleet", **run, jobs=1)
     _, dask = run_scenario("fleet", **run, engine="dask", scheduler=cluster)
     assert dask.run["windows"] is not None and len(local.episodes) > 0
     assert assert_same_tables(local, dask) >= 3
     source, options = mine_options("fleet")
-    mined = [mine(source, chunk="2h", permutations=0, **options, **engine)
+    mined = [mine(source, chunk="2h", replicates=0, **options, **engine)
              for engine in ({"jobs": 1}, {"engine": "dask", "scheduler": cluster})]  # fmt: skip
     assert len(mined[0].patterns) > 0
     assert assert_same_tables(*mined) >= 3

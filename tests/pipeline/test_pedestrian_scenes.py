@@ -78,7 +78,7 @@ def test_pedestrian_preset_recovers_the_annotated_groups(name):
     if not (SHARED_DATASETS / name / "obsmat.txt").is_file():
         pytest.skip(f"{name} dataset not present")
     frame, truth = scene_tracks(name)
-    found = groups(frame, preset="pedestrians", step=0.4, permutations=0)
+    found = groups(frame, preset="pedestrians", step=0.4, replicates=0)
     precision, recall, f1 = scores(predicted_pairs(found), truth)
     print(f"\n{name}, preset pedestrians: {len(truth)} annotated pairs; precision "
           f"{precision:.3f}, recall {recall:.3f}, F1 {f1:.3f}")  # fmt: skip
@@ -93,7 +93,7 @@ def crowd() -> tuple[str, dict, set]:
 
 def test_dense_crowd_groups_are_told_from_strangers():
     source, truth, planted = crowd()
-    options = dict(truth["columns"], step=truth["parameters"]["step"], permutations=0)
+    options = dict(truth["columns"], step=truth["parameters"]["step"], replicates=0)
     found = groups(source, preset="pedestrians", **options)
     precision, recall, f1 = scores(predicted_pairs(found, str), planted)
     print(f"\ndense crowd, preset pedestrians: precision {precision:.3f}, recall {recall:.3f}, "

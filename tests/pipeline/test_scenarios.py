@@ -65,7 +65,7 @@ def test_demo_command_says_where_the_results_are(tmp_path, capsys):
 def test_planted_role_sets_are_significant_at_the_default_number_of_replicates(mined):
     # default 199 time-shift replicates: the smallest attainable p-value is 1/200
     truth, result = mined
-    assert result.run["settings"]["SignificanceParams"]["permutations"] == 199
+    assert result.run["settings"]["replicates"] == 199
     kept = result.patterns.set_index("roles")
     for planted in truth["planted"]:
         assert kept.loc[label(planted["roles"]), "p_value"] < 0.01

@@ -32,11 +32,11 @@ def test_each_grid_point_equals_a_separate_mine_run(game):
             alone = mine(
                 source,
                 **{**options, "radius": radius, "min_participation": threshold},
-                permutations=0,
+                replicates=0,
             )
             got = (
                 table[
-                    (table["radius"] == radius)
+                    (table["radius_m"] == radius)
                     & (table["min_participation"] == threshold)
                     & table["kept"]
                 ]
@@ -45,7 +45,7 @@ def test_each_grid_point_equals_a_separate_mine_run(game):
             )
             want = alone.patterns.set_index("roles").sort_index()
             assert list(got.index) == list(want.index), (radius, threshold)
-            for col in ("time_prevalence", "prevalent_seconds", "longest_run_seconds"):
+            for col in ("time_prevalence", "prevalent_s", "longest_run_s"):
                 np.testing.assert_allclose(got[col], want[col], rtol=1e-12, err_msg=col)
 
 
@@ -87,7 +87,7 @@ def test_sweep_takes_a_run_file(game, tmp_path, capsys):
     code = main(["sweep", "--config", str(config), "--quiet"])
     assert code == 0, capsys.readouterr().err
     table = pd.read_csv(tmp_path / "from-file" / "sweep.csv")
-    assert sorted(table["radius"].unique()) == [2.0, 3.0]
+    assert sorted(table["radius_m"].unique()) == [2.0, 3.0]
 
 
 def test_sweep_command_writes_table_and_plot(tmp_path, capsys):
@@ -118,7 +118,7 @@ def test_sweep_command_writes_table_and_plot(tmp_path, capsys):
     )
     assert code == 0, capsys.readouterr().err
     table = pd.read_csv(out / "sweep.csv")
-    assert sorted(table["radius"].unique()) == [1.0, 2.0, 3.0, 4.0]
+    assert sorted(table["radius_m"].unique()) == [1.0, 2.0, 3.0, 4.0]
     image = mpimg.imread(out / "sweep.png")
     assert image.shape[0] == 450 and image.shape[1] == 750
     assert {"run.json", "quality.json"} <= {p.name for p in out.iterdir()}

@@ -7,10 +7,11 @@ from dataclasses import fields
 
 import pandas as pd
 import pytest
-from scenes import run_scenario
+from scenes import one_record, run_scenario
 
 from comove.cli import main
 from comove.errors import InputError
+from comove.io.results import by_command
 from comove.io.scenarios import mine_options
 from comove.pipeline.core import mine
 
@@ -27,11 +28,10 @@ def assert_same_folders(whole, windowed) -> None:
         a, b = whole / name, windowed / name
         if name == "run.json":
             ra, rb = json.loads(a.read_text()), json.loads(b.read_text())
-            assert (
-                ra["settings"]["WindowParams"]["chunk"] != rb["settings"]["WindowParams"]["chunk"]
-            )
+            ra, rb = (by_command(r)[next(iter(by_command(r)))] for r in (ra, rb))
+            assert ra["settings"]["chunk"] != rb["settings"]["chunk"]
             for record in (ra, rb):
-                record["settings"].pop("WindowParams")
+                record["settings"].pop("chunk")
                 record.pop("windows")
                 record.pop("created", None)
             assert ra["settings"] == rb["settings"]
@@ -43,10 +43,10 @@ def assert_same_folders(whole, windowed) -> None:
 
 @pytest.mark.parametrize("name", sorted(CHUNKS))
 def test_groups_over_windows_write_the_whole_run_files(name, tmp_path):
-    _, whole = run_scenario(name, chunk="whole", permutations=0, seed=1)
+    _, whole = run_scenario(name, chunk="whole", replicates=0, seed=1)
     whole.write(tmp_path / "whole")
     for chunk in CHUNKS[name]:
-        _, windowed = run_scenario(name, chunk=chunk, permutations=0, seed=1)
+        _, windowed = run_scenario(name, chunk=chunk, replicates=0, seed=1)
         assert windowed.run["windows"]["bucket_s"] > 0
         windowed.write(tmp_path / chunk)
         assert_same_folders(tmp_path / "whole", tmp_path / chunk)
@@ -56,11 +56,11 @@ def test_groups_over_windows_write_the_whole_run_files(name, tmp_path):
 @pytest.mark.parametrize("name", sorted(CHUNKS))
 def test_mine_over_windows_writes_the_whole_run_files(name, tmp_path):
     source, options = mine_options(name)
-    whole = mine(source, chunk="whole", seed=1, permutations=0, **options)
+    whole = mine(source, chunk="whole", seed=1, replicates=0, **options)
     whole.write(tmp_path / "whole")
     assert len(whole.patterns) > 0
     for chunk in CHUNKS[name]:
-        mine(source, chunk=chunk, seed=1, permutations=0, **options).write(tmp_path / chunk)
+        mine(source, chunk=chunk, seed=1, replicates=0, **options).write(tmp_path / chunk)
         assert_same_folders(tmp_path / "whole", tmp_path / chunk)
 
 
@@ -70,10 +70,10 @@ def test_windows_in_this_process_and_in_two_workers_give_the_same_tables(command
     # are tasks of two worker processes, one thread each
     if command == "mine":
         source, options = mine_options("fleet")
-        one, two = (mine(source, chunk="30min", seed=1, permutations=0, jobs=j, **options)
+        one, two = (mine(source, chunk="30min", seed=1, replicates=0, jobs=j, **options)
                     for j in (1, 2))  # fmt: skip
     else:
-        (_, one), (_, two) = (run_scenario("fleet", chunk="30min", permutations=0, seed=1, jobs=j)
+        (_, one), (_, two) = (run_scenario("fleet", chunk="30min", replicates=0, seed=1, jobs=j)
                               for j in (1, 2))  # fmt: skip
     compared = 0
     for name, value in vars(one).items():
@@ -101,9 +101,9 @@ def test_a_window_without_its_scratch_folder_says_which_setting_to_give(tmp_path
 
 
 def test_co_present_dyads_over_windows_equal_the_whole_run():
-    _, whole = run_scenario("fleet", chunk="whole", dyad_pairs="co-present", permutations=0, seed=1)
+    _, whole = run_scenario("fleet", chunk="whole", dyad_pairs="co-present", replicates=0, seed=1)
     _, windowed = run_scenario(
-        "fleet", chunk="30min", dyad_pairs="co-present", permutations=0, seed=1
+        "fleet", chunk="30min", dyad_pairs="co-present", replicates=0, seed=1
     )
     pd.testing.assert_frame_equal(whole.dyads, windowed.dyads, check_exact=True)
 
@@ -111,7 +111,7 @@ def test_co_present_dyads_over_windows_equal_the_whole_run():
 def test_a_chunk_with_significance_tests_is_refused_in_one_line(capsys, tmp_path):
     source, options = mine_options("small_sided_game")
     flags = [a for k, v in options.items() for a in ("--" + k.replace("_", "-"), str(v))]
-    code = main(["mine", source, *flags, "--permutations", "9", "--chunk", "10s", "--quiet",
+    code = main(["mine", source, *flags, "--replicates", "9", "--chunk", "10s", "--quiet",
                  "--out", str(tmp_path / "out")])  # fmt: skip
     err = capsys.readouterr().err
     assert code != 0 and "--chunk" in err and "Traceback" not in err
@@ -136,16 +136,14 @@ def test_tests_that_keep_a_large_input_in_one_piece_say_so_first(capsys, tmp_pat
     monkeypatch.setattr(streaming, "memory_budget", lambda: 10_000)
     source, options = mine_options("small_sided_game")
     flags = [a for k, v in options.items() for a in ("--" + k.replace("_", "-"), str(v))]
-    assert main(["mine", source, *flags, "--permutations", "3", "--quiet", "--seed", "1",
+    assert main(["mine", source, *flags, "--replicates", "3", "--quiet", "--seed", "1",
                  "--out", str(tmp_path / "tested")]) == 0  # fmt: skip
     err = capsys.readouterr().err.strip().splitlines()
-    assert (
-        len(err) == 1 and err[0].startswith("comove mine: note: ") and "--permutations 0" in err[0]
-    )
-    run = json.loads((tmp_path / "tested" / "run.json").read_text())
+    assert len(err) == 1 and err[0].startswith("comove mine: note: ") and "--replicates 0" in err[0]
+    run = one_record(tmp_path / "tested" / "run.json")
     assert run["windows"] is None  # held in one piece
     # without tests the same machine cuts the run into windows, silently
-    assert main(["mine", source, *flags, "--permutations", "0", "--quiet",
+    assert main(["mine", source, *flags, "--replicates", "0", "--quiet",
                  "--out", str(tmp_path / "windows")]) == 0  # fmt: skip
     assert capsys.readouterr().err == ""
-    assert json.loads((tmp_path / "windows" / "run.json").read_text())["windows"] is not None
+    assert one_record(tmp_path / "windows" / "run.json")["windows"] is not None

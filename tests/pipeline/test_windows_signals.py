@@ -32,7 +32,7 @@ def test_a_signal_mid_run_removes_the_scratch_folder(signum, command, tmp_path):
     scratch.mkdir()
     out = tmp_path / "out"
     args = [sys.executable, "-m", "comove.cli", command, str(tmp_path / "tracks.parquet"),
-            "--radius", "3", "--step", "1", "--permutations", "0", "--chunk", "20s",
+            "--radius", "3", "--step", "1", "--replicates", "0", "--chunk", "20s",
             "--scratch", str(scratch), "--out", str(out), "--quiet"]  # fmt: skip
     program = subprocess.Popen(args, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
     deadline = time.monotonic() + 60

@@ -76,9 +76,9 @@ def scenario_folder(root, name: str, k_radii: str | None = None):
     source, options = mine_options(name)
     folder = root / name
     extra = {"k_radii": k_radii} if k_radii else {}
-    mine(source, permutations=19, **options, **extra).write(folder)
+    mine(source, replicates=19, **options, **extra).write(folder)
     gopts = {k: v for k, v in options.items() if k in GROUP_KEYS}
-    groups(source, permutations=0, **gopts).write(folder, merge=True)
+    groups(source, replicates=0, **gopts).write(folder, merge=True)
     return folder
 
 
@@ -156,11 +156,11 @@ def test_lonlat_scenario_reports(built, name):
 
 def test_mine_only_and_groups_only_folders(tmp_path):
     source, options = mine_options("small_sided_game")
-    mine(source, permutations=0, **options).write(tmp_path / "m")
+    mine(source, replicates=0, **options).write(tmp_path / "m")
     page = check_report(tmp_path / "m", build_report(tmp_path / "m"), {"patterns_pi", "track_map"})
     assert MAP in page.h2 and TIMELINE not in page.h2
     gopts = {k: v for k, v in options.items() if k in GROUP_KEYS}
-    groups(source, permutations=0, **gopts).write(tmp_path / "g")
+    groups(source, replicates=0, **gopts).write(tmp_path / "g")
     page = check_report(tmp_path / "g", build_report(tmp_path / "g"),
                         {"track_map", "episode_timeline", "dyad_matrix"})  # fmt: skip
     assert PATTERNS not in page.h2
@@ -183,8 +183,8 @@ def nasty_scene() -> pd.DataFrame:
 def test_names_with_html_are_escaped(tmp_path):
     scene = nasty_scene()
     folder = tmp_path / "nasty"
-    mine(scene, radius=2.5, step=1.0, permutations=0).write(folder)
-    groups(scene, radius=2.5, step=1.0, permutations=0).write(folder, merge=True)
+    mine(scene, radius=2.5, step=1.0, replicates=0).write(folder)
+    groups(scene, radius=2.5, step=1.0, replicates=0).write(folder, merge=True)
     report = build_report(folder)
     raw = report.read_text(encoding="utf-8")
     page = parse(report)
@@ -206,8 +206,8 @@ def test_hidden_characters_are_shown_and_long_names_cut(tmp_path):
         pd.DataFrame({"id": "o2", "time": t, "x": t * 1.2, "y": 1.0, "role": "s"}),
     ], ignore_index=True)  # fmt: skip
     folder = tmp_path / "hidden"
-    groups(scene, radius=2.5, step=1.0, permutations=0).write(folder)
-    mine(scene, radius=2.5, step=1.0, permutations=0).write(folder, merge=True)
+    groups(scene, radius=2.5, step=1.0, replicates=0).write(folder)
+    mine(scene, radius=2.5, step=1.0, replicates=0).write(folder, merge=True)
     raw = build_report(folder).read_text(encoding="utf-8")
     assert "\u202e" not in raw and "\x07" not in raw
     assert "ab&lt;U+202E&gt;gnp.exe&lt;U+0007&gt;" in raw
@@ -241,7 +241,7 @@ def large_folder(root, n: int = 1_000_000):
     pd.DataFrame({
         "roles": ["alpha;beta", "beta;gamma"], "size": 2, "present_snapshots": snaps,
         "prevalent_snapshots": [int((pi >= 0.5).sum())] * 2, "time_prevalence": [0.6, 0.5],
-        "prevalent_seconds": 1.0, "longest_run_seconds": 1.0,
+        "prevalent_s": 1.0, "longest_run_s": 1.0,
         "longest_run_start": "2026-03-01T00:00:00.000000Z", "mean_participation_index": 0.5,
     }).to_csv(folder / "patterns.csv", index=False)  # fmt: skip
     objects = np.repeat(np.arange(100), n // 100)
@@ -338,7 +338,7 @@ def test_missing_or_empty_folder_is_an_input_error(tmp_path):
 def test_failed_write_keeps_the_previous_report(tmp_path, monkeypatch):
     source, options = mine_options("small_sided_game")
     folder = tmp_path / "m"
-    mine(source, permutations=0, **options).write(folder)
+    mine(source, replicates=0, **options).write(folder)
     report = build_report(folder)
     before = report.read_bytes()
     figs_before = sorted((p.name, p.read_bytes()) for p in (folder / "figures").iterdir())

@@ -27,11 +27,9 @@ def report(tmp_path_factory):
 
     folder = tmp_path_factory.mktemp("res") / "game"
     source, options = mine_options("small_sided_game")
-    mine(source, **options, permutations=0).write(folder)
+    mine(source, **options, replicates=0).write(folder)
     cols = {k: options[k] for k in ("id", "time", "x", "y", "role", "step")}
-    groups(source, preset="team-sport", radius=3.0, permutations=0, **cols).write(
-        folder, merge=True
-    )
+    groups(source, preset="team-sport", radius=3.0, replicates=0, **cols).write(folder, merge=True)
     return build_report(folder)
 
 

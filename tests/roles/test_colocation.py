@@ -77,11 +77,11 @@ def test_pruning_loses_no_prevalent_snapshot(seed):
             assert ours[(roles, _snap)][0] == pytest.approx(pi, abs=1e-12)
 
 
-@pytest.mark.parametrize("min_duration", [0.0, 3.0, 7.0])
-def test_duration_pruning_gives_the_same_patterns_as_filtering_afterwards(min_duration):
+@pytest.mark.parametrize("min_prevalent_time", [0.0, 3.0, 7.0])
+def test_duration_pruning_gives_the_same_patterns_as_filtering_afterwards(min_prevalent_time):
     x, y, role, present, n_roles = random_scene(7, n_snap=60, n_roles=4, side=9.0)
     snaps = grid_scene(x, y, role, present, n_roles)
-    persistence = PersistenceParams(min_prevalence=0.1, min_duration=min_duration)
+    persistence = PersistenceParams(min_prevalence=0.1, min_prevalent_time=min_prevalent_time)
     bound = persistence.min_prevalent_snapshots(snaps.step_s)
     pruned, _ = mined(snaps, 4.0, 0.4, 4, min_prevalent=bound)
     unpruned, _ = mined(snaps, 4.0, 0.4, 4, min_prevalent=1)
@@ -223,7 +223,7 @@ def test_too_many_candidate_sets_are_refused_before_they_are_made(monkeypatch, t
     })  # fmt: skip
     frame.to_csv(tmp_path / "all.csv", index=False)
     code = main(["mine", str(tmp_path / "all.csv"), "--radius", "2", "--max-size", "6",
-                 "--permutations", "0", "--quiet", "--out", str(tmp_path / "out")])  # fmt: skip
+                 "--replicates", "0", "--quiet", "--out", str(tmp_path / "out")])  # fmt: skip
     err = capsys.readouterr().err
     assert code == 2 and len(err.strip().splitlines()) == 1
     assert "220 role sets of size 3 among 12 roles" in err and "495 candidate sets" in err

@@ -45,12 +45,12 @@ def batch_k(points, correction: str) -> tuple[np.ndarray, np.ndarray, np.ndarray
     batches = np.array(
         [
             cross_k(two_role_scene(*(p[b * size : (b + 1) * size] for p in points)), params)[
-                "k"
+                "k_m2"
             ].to_numpy()
             for b in range(N_BATCH)
         ]
     )
-    return pooled["k"].to_numpy(), pooled["l"].to_numpy(), batches
+    return pooled["k_m2"].to_numpy(), pooled["l_m"].to_numpy(), batches
 
 
 @pytest.mark.parametrize("correction", ["translation", "border"])
@@ -85,7 +85,7 @@ def test_uncorrected_k_is_biased_low(csr_points):
     assert np.all(np.abs(k_naive - expected) < 4 * se)
     assert k_naive[-1] < np.pi * r[-1] ** 2 - 4 * se[-1]  # biased low at large r
     params = CrossKParams(k_radii=CSR_RADII, k_window=WINDOW)
-    corrected = cross_k(two_role_scene(*csr_points), params)["k"].to_numpy()
+    corrected = cross_k(two_role_scene(*csr_points), params)["k_m2"].to_numpy()
     assert corrected[-1] - k_naive[-1] > 0.1 * np.pi * r[-1] ** 2
 
 
@@ -124,7 +124,7 @@ def brute_force_k(x, y, role, present, window, radii, pairs, correction):
             k = wx * wy * num / den if den else np.nan
             out.append((f"role{a}", f"role{b}", r, k, counted, used))
     return pd.DataFrame(
-        out, columns=["role_a", "role_b", "radius_m", "k", "pairs_counted", "snapshots_used"]
+        out, columns=["role_a", "role_b", "radius_m", "k_m2", "pairs_counted", "snapshots_used"]
     )
 
 
@@ -148,9 +148,9 @@ def test_matches_brute_force(correction):
     want = brute_force_k(x, y, role, present, window, radii, pairs, correction)
     for col in ["role_a", "role_b", "radius_m", "pairs_counted", "snapshots_used"]:
         assert got[col].tolist() == want[col].tolist(), col
-    np.testing.assert_allclose(got["k"], want["k"], rtol=1e-12)
-    np.testing.assert_allclose(got["l"], np.sqrt(want["k"] / np.pi), rtol=1e-12)
-    np.testing.assert_allclose(got["l_minus_r"], got["l"] - got["radius_m"], rtol=1e-12)
+    np.testing.assert_allclose(got["k_m2"], want["k_m2"], rtol=1e-12)
+    np.testing.assert_allclose(got["l_m"], np.sqrt(want["k_m2"] / np.pi), rtol=1e-12)
+    np.testing.assert_allclose(got["l_minus_r_m"], got["l_m"] - got["radius_m"], rtol=1e-12)
     assert got["pairs_counted"].max() > 0
     outside = present & ~((x >= 1) & (x <= 12) & (y >= 1) & (y <= 9))
     assert got.attrs["entries_outside_window"] == int(outside.sum()) > 0
@@ -158,7 +158,7 @@ def test_matches_brute_force(correction):
     # explicit, reversed pairs: border uses the first role as centres
     rev = cross_k(snaps, params, role_pairs=[(2, 0), (1, 0)])
     want_rev = brute_force_k(x, y, role, present, window, radii, [(2, 0), (1, 0)], correction)
-    np.testing.assert_allclose(rev["k"], want_rev["k"], rtol=1e-12)
+    np.testing.assert_allclose(rev["k_m2"], want_rev["k_m2"], rtol=1e-12)
     assert rev["role_a"].tolist()[:: len(radii)] == ["role2", "role1"]
 
 
@@ -170,10 +170,10 @@ def test_translation_symmetric_border_not():
     snaps = grid_scene(x, y, role, np.ones(x.shape, bool), 2)
     radii = (2.0, 4.0, 8.0)
     t = cross_k(snaps, CrossKParams(k_radii=radii), role_pairs=[(0, 1), (1, 0)])
-    np.testing.assert_allclose(t["k"][:3], t["k"][3:], rtol=1e-12)
+    np.testing.assert_allclose(t["k_m2"][:3], t["k_m2"][3:], rtol=1e-12)
     border = CrossKParams(k_radii=radii, k_correction="border")
     b = cross_k(snaps, border, role_pairs=[(0, 1), (1, 0)])
-    assert not np.allclose(b["k"][:3], b["k"][3:])
+    assert not np.allclose(b["k_m2"][:3], b["k_m2"][3:])
 
 
 def clustered_points(rng, n_snap: int, n_a: int, n_b: int, spread: float | None):
@@ -209,15 +209,15 @@ def test_clustered_scene_flags_above_envelope():
     params = CrossKParams(k_radii=ENV_RADII, k_window=WINDOW)
     obs = cross_k(two_role_scene(*points), params)
     small = obs["radius_m"] <= 3
-    assert np.all(obs.loc[small, "l_minus_r"] > 2.0)
+    assert np.all(obs.loc[small, "l_minus_r_m"] > 2.0)
     # 39 replicates: k = 1, min/max envelope at pointwise level 1 - 2/40 = 0.95
     # (Besag & Diggle 1977 rank rule)
     env = envelopes(obs, shifted_replicates(points, params, 39))
     assert env.attrs["envelope_rank"] == 1
     assert env.loc[small, "above"].all()
     assert not env["below"][small].any()
-    assert np.all(env["null_low"] <= env["null_mean"])
-    assert np.all(env["null_mean"] <= env["null_high"])
+    assert np.all(env["null_low_m"] <= env["null_mean_m"])
+    assert np.all(env["null_mean_m"] <= env["null_high_m"])
 
 
 def test_independent_scene_stays_inside_envelope():
@@ -230,29 +230,29 @@ def test_independent_scene_stays_inside_envelope():
     # pointwise 95% envelopes: a few exits at single radii are expected by design
     assert outside.mean() <= 0.25
     # and the replicates themselves scatter around L = r (Ripley 1977)
-    assert np.all(np.abs(env["null_mean"] - env["radius_m"]) < 0.1 * env["radius_m"] + 0.2)
+    assert np.all(np.abs(env["null_mean_m"] - env["radius_m"]) < 0.1 * env["radius_m"] + 0.2)
 
 
 def test_envelope_rank_rule():
     obs = pd.DataFrame(
-        {"role_a": ["a", "a"], "role_b": ["b", "b"], "radius_m": [1.0, 2.0], "l": [0.0, 200.0]}
+        {"role_a": ["a", "a"], "role_b": ["b", "b"], "radius_m": [1.0, 2.0], "l_m": [0.0, 200.0]}
     )
     rng = np.random.default_rng(0)
 
     def reps(n):
-        return [obs.assign(l=[v, 100 + v]) for v in rng.permutation(np.arange(1.0, n + 1))]
+        return [obs.assign(l_m=[v, 100 + v]) for v in rng.permutation(np.arange(1.0, n + 1))]
 
     # with m replicates the k-th smallest / largest bound a pointwise test of level
     # 1 - 2k/(m+1) (Besag & Diggle 1977): m = 99, level 0.95 -> k = 2
     env = envelopes(obs, reps(99), level=0.95)
-    assert env["null_low"].tolist() == [2.0, 102.0]
-    assert env["null_high"].tolist() == [98.0, 198.0]
-    assert env["null_mean"].tolist() == [50.0, 150.0]
+    assert env["null_low_m"].tolist() == [2.0, 102.0]
+    assert env["null_high_m"].tolist() == [98.0, 198.0]
+    assert env["null_mean_m"].tolist() == [50.0, 150.0]
     assert env["below"].tolist() == [True, False]
     assert env["above"].tolist() == [False, True]
     env = envelopes(obs, reps(19), level=0.9)  # k = 1: min and max
-    assert env["null_low"].tolist() == [1.0, 101.0]
-    assert env["null_high"].tolist() == [19.0, 119.0]
+    assert env["null_low_m"].tolist() == [1.0, 101.0]
+    assert env["null_high_m"].tolist() == [19.0, 119.0]
     with pytest.raises(ValueError, match="replicate 0"):
         envelopes(obs, [obs.iloc[:1]])
     with pytest.raises(InputError, match="level"):
@@ -290,7 +290,7 @@ def test_invariant_to_translation_and_relabelling(correction, window):
         grid_scene(x + sx, y + sy, role, present, 3),
         CrossKParams(k_radii=radii, k_window=moved_window, k_correction=correction),
     )
-    np.testing.assert_allclose(moved["k"], base["k"], rtol=1e-9)
+    np.testing.assert_allclose(moved["k_m2"], base["k_m2"], rtol=1e-9)
     assert moved["pairs_counted"].tolist() == base["pairs_counted"].tolist()
 
     perm = np.random.default_rng(1).permutation(x.shape[1])
@@ -298,7 +298,7 @@ def test_invariant_to_translation_and_relabelling(correction, window):
         grid_scene(x[:, perm], y[:, perm], role[:, perm], present[:, perm], 3),
         CrossKParams(k_radii=radii, k_window=window, k_correction=correction),
     )
-    np.testing.assert_allclose(relabelled["k"], base["k"], rtol=1e-12)
+    np.testing.assert_allclose(relabelled["k_m2"], base["k_m2"], rtol=1e-12)
     assert relabelled["pairs_counted"].tolist() == base["pairs_counted"].tolist()
     assert relabelled["snapshots_used"].tolist() == base["snapshots_used"].tolist()
 
@@ -312,7 +312,7 @@ def test_absent_role_pair_and_single_role():
         ["role0", "role1"]
     ]
     absent = cross_k(snaps, params, role_pairs=[(0, 2)])
-    assert absent["k"].isna().all() and (absent["snapshots_used"] == 0).all()
+    assert absent["k_m2"].isna().all() and (absent["snapshots_used"] == 0).all()
     one = grid_scene(x, y, np.zeros_like(role), present, 1)
     empty = cross_k(one, params)
     assert empty.empty and list(empty.columns) == CROSSK_COLUMNS
@@ -352,7 +352,7 @@ def test_radius_beyond_window_and_flat_window():
     # border correction: no centre lies 30 m from the edge, K is undefined there
     border = cross_k(snaps, CrossKParams(k_radii=(5.0, 30.0), k_window=(0, 0, 40, 25),
                                          k_correction="border"))  # fmt: skip
-    assert border.loc[border["radius_m"] == 30.0, "k"].isna().all()
+    assert border.loc[border["radius_m"] == 30.0, "k_m2"].isna().all()
     flat = grid_scene(x, np.zeros_like(y), role, present, 3)
     with pytest.raises(InputError, match="^k_window"):
         cross_k(flat, CrossKParams(k_radii=(1.0,)))

@@ -39,8 +39,8 @@ def test_hand_computed_prevalence_and_runs():
     assert row["present_snapshots"] == 10
     assert row["prevalent_snapshots"] == 7
     assert row["time_prevalence"] == pytest.approx(0.7)
-    assert row["prevalent_seconds"] == 7.0
-    assert row["longest_run_seconds"] == 4.0
+    assert row["prevalent_s"] == 7.0
+    assert row["longest_run_s"] == 4.0
     assert row["longest_run_start"].timestamp() == 5.0
     assert row["mean_participation_index"] == pytest.approx(0.7)
     series = tables.series
@@ -54,8 +54,8 @@ def test_thresholds_keep_and_drop():
     snaps = two_role_scene(together)
     assert len(patterns_of(snaps, PersistenceParams(0.7)).patterns) == 1
     assert len(patterns_of(snaps, PersistenceParams(0.71)).patterns) == 0
-    assert len(patterns_of(snaps, PersistenceParams(0.5, min_duration=7.0)).patterns) == 1
-    assert len(patterns_of(snaps, PersistenceParams(0.5, min_duration=7.5)).patterns) == 0
+    assert len(patterns_of(snaps, PersistenceParams(0.5, min_prevalent_time=7.0)).patterns) == 1
+    assert len(patterns_of(snaps, PersistenceParams(0.5, min_prevalent_time=7.5)).patterns) == 0
 
 
 def test_runs_pick_the_longest_and_earliest():
@@ -69,8 +69,8 @@ def test_runs_pick_the_longest_and_earliest():
 def test_bad_thresholds_are_input_errors():
     with pytest.raises(InputError, match="^min_prevalence"):
         PersistenceParams(min_prevalence=0)
-    with pytest.raises(InputError, match="^min_duration"):
-        PersistenceParams(min_duration=-1)
+    with pytest.raises(InputError, match="^min_prevalent_time"):
+        PersistenceParams(min_prevalent_time=-1)
     with pytest.raises(InputError, match="^min_participation"):
         ColocationParams(radius=1.0, min_participation=1.5)
     with pytest.raises(InputError, match="^radius"):

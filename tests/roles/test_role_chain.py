@@ -41,9 +41,9 @@ def scenario(request):
     names = ("radius", "min_participation", "max_size")
     colocation = ColocationParams(**{k: options[k] for k in names if k in options})
     persistence = PersistenceParams(
-        **{k: options[k] for k in ("min_prevalence", "min_duration") if k in options}
+        **{k: options[k] for k in ("min_prevalence", "min_prevalent_time") if k in options}
     )
-    snaps = mine(source, permutations=0, **options).snapshots
+    snaps = mine(source, replicates=0, **options).snapshots
     return snaps, colocation, persistence
 
 

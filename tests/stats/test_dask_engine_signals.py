@@ -54,7 +54,7 @@ def test_sigterm_stops_a_dask_run_in_one_line_leaving_nothing(tmp_path):
     source, options = mine_options("small_sided_game")
     flags = [a for k, v in options.items() for a in ("--" + k.replace("_", "-"), str(v))]
     out = tmp_path / "res"
-    command = [sys.executable, "-m", "comove.cli", "mine", source, *flags, "--permutations",
+    command = [sys.executable, "-m", "comove.cli", "mine", source, *flags, "--replicates",
                "2000", "--engine", "dask", "--jobs", "2", "--quiet", "--out", str(out)]  # fmt: skip
     program = subprocess.Popen(command, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE,
                                text=True, start_new_session=True)  # fmt: skip

@@ -79,7 +79,7 @@ def test_p_values_are_calibrated_when_roles_move_independently(null):
     # the p-values are not piled up at 1 (which would hide a broken null).
     ps = []
     for seed in range(24):
-        result = mine(frame_of(*walkers(seed)), **MINE, permutations=99, seed=seed, jobs=1,
+        result = mine(frame_of(*walkers(seed)), **MINE, replicates=99, seed=seed, jobs=1,
                       null=null)  # fmt: skip
         ps.extend(result.tests.loc[result.tests["size"] == 2, "p_value"].tolist())
     ps = np.asarray(ps)
@@ -104,7 +104,7 @@ def crowd_scene(seed=11, n_obj=16, n_snap=500):
 @pytest.mark.parametrize("statistic", ["continuous", "count"])
 def test_crowding_trap_role_shuffle_versus_time_shift(statistic):
     frame = frame_of(*crowd_scene())
-    options = dict(radius=3.0, step=1.0, min_prevalence=0.5, permutations=199, seed=5,
+    options = dict(radius=3.0, step=1.0, min_prevalence=0.5, replicates=199, seed=5,
                    statistic=statistic)  # fmt: skip
     by_roles = mine(frame, null="role-shuffle", **options)
     by_time = mine(frame, null="time-shift", **options)
@@ -123,19 +123,19 @@ def test_crowding_trap_role_shuffle_versus_time_shift(statistic):
 
 def test_same_seed_same_results_and_jobs_do_not_matter():
     frame = frame_of(*walkers(1, n_snap=150))
-    a = mine(frame, **MINE, permutations=40, seed=9, jobs=1)
-    b = mine(frame, **MINE, permutations=40, seed=9, jobs=2)
-    c = mine(frame, **MINE, permutations=40, seed=10, jobs=1)
+    a = mine(frame, **MINE, replicates=40, seed=9, jobs=1)
+    b = mine(frame, **MINE, replicates=40, seed=9, jobs=2)
+    c = mine(frame, **MINE, replicates=40, seed=10, jobs=1)
     pd.testing.assert_frame_equal(a.tests, b.tests)
     assert not a.tests["null_mean"].equals(c.tests["null_mean"])
-    assert a.run["settings"]["RunParams"]["seed"] == 9
+    assert a.run["settings"]["seed"] == 9
 
 
 def test_a_drawn_seed_is_recorded_and_repeats_the_run():
     frame = frame_of(*walkers(2, n_snap=120))
-    first = mine(frame, **MINE, permutations=20)
-    seed = first.run["settings"]["RunParams"]["seed"]
-    again = mine(frame, **MINE, permutations=20, seed=seed)
+    first = mine(frame, **MINE, replicates=20)
+    seed = first.run["settings"]["seed"]
+    again = mine(frame, **MINE, replicates=20, seed=seed)
     pd.testing.assert_frame_equal(first.tests, again.tests)
 
 
@@ -202,8 +202,8 @@ def test_role_shuffle_keeps_tracks_and_respects_strata():
 def test_bad_significance_settings():
     with pytest.raises(InputError, match="^null"):
         SignificanceParams(null="bootstrap")
-    with pytest.raises(InputError, match="^permutations"):
-        SignificanceParams(permutations=-1)
+    with pytest.raises(InputError, match="^replicates"):
+        SignificanceParams(replicates=-1)
     with pytest.raises(InputError, match="^alpha"):
         SignificanceParams(alpha=1.5)
     with pytest.raises(InputError, match="^jobs"):
@@ -218,12 +218,12 @@ def test_nothing_to_test_gives_empty_tables_not_errors(tmp_path):
         "x": np.r_[np.zeros(n), np.full(n, 100.0), np.full(n, 200.0)], "y": 0.0,
         "role": np.repeat(["r", "s", "t"], n),
     })  # fmt: skip
-    mined = mine(frame, radius=2.0, permutations=9, seed=1)
+    mined = mine(frame, radius=2.0, replicates=9, seed=1)
     assert mined.patterns.empty and mined.tests.empty
-    found = groups(frame, radius=2.0, permutations=9, seed=1)
+    found = groups(frame, radius=2.0, replicates=9, seed=1)
     assert found.episodes.empty and found.dyads.empty  # no pair ever together
     assert "p_value" in found.dyads.columns
-    listed = groups(frame, radius=2.0, permutations=9, seed=1, dyad_pairs="co-present")
+    listed = groups(frame, radius=2.0, replicates=9, seed=1, dyad_pairs="co-present")
     assert len(listed.dyads) == 3
     assert (listed.dyads["p_value"] == 1.0).all()  # never together, nor in any replicate
     mined.write(tmp_path / "r")
@@ -279,7 +279,7 @@ def test_a_strong_pattern_in_a_crowd_at_one_waterhole_is_found(null):
     # while the time prevalence at a low threshold saturates near 1 for it and the rest
     herd = waterhole_herd()
     options = dict(radius=300.0, step=3600.0, max_gap=3 * 3600.0, min_participation=0.2,
-                   min_prevalence=0.01, permutations=199, seed=4, null=null)  # fmt: skip
+                   min_prevalence=0.01, replicates=199, seed=4, null=null)  # fmt: skip
     found = mine(herd, **options).tests.set_index("roles")
     assert found.loc["calf;cow", "mean_participation_index"] > 0.7
     others = found.drop(index="calf;cow")
@@ -323,7 +323,7 @@ def test_a_replicate_mines_only_the_tested_sets_and_loses_nothing(statistic, see
 
 
 def test_the_tested_mean_is_the_patterns_mean_participation_index():
-    result = mine(frame_of(*walkers(5, n_snap=200)), **MINE, permutations=19, seed=2)
+    result = mine(frame_of(*walkers(5, n_snap=200)), **MINE, replicates=19, seed=2)
     both = result.patterns.merge(result.tests, on="roles", suffixes=("", "_tested"))
     assert len(both) == len(result.patterns) > 0
     np.testing.assert_allclose(both["mean_participation_index"],
@@ -339,7 +339,7 @@ def test_tests_compare_every_kth_snapshot_of_a_fine_grid():
     # every 4th snapshot, and so is every replicate's
     frame = frame_of(*walkers(6, n_snap=400))
     frame["time"] = frame["time"] / 4.0
-    options = dict(MINE, step=0.25, permutations=19, seed=3)
+    options = dict(MINE, step=0.25, replicates=19, seed=3)
     thinned = mine(frame, **options)
     assert (thinned.tests["compared_step_s"] == 1.0).all()
     every = mine(frame, null_step=0.0, **options)
