@@ -13,7 +13,10 @@ import pytest
 from scenes import one_record
 
 from comove.cli import main
+from comove.errors import InputError
 from comove.io.results import MANIFEST
+from comove.io.runfile import load_run_file
+from comove.pipeline.core import MINE_STAGES, mine
 
 
 def run(argv, capsys):
@@ -247,7 +250,7 @@ def test_mine_significance_and_cross_k_options(tracks_csv, tmp_path, capsys):
     assert settings["seed"] == 3
 
 
-def test_permutations_zero_switches_the_tests_off(tracks_csv, tmp_path, capsys):
+def test_replicates_zero_switches_the_tests_off(tracks_csv, tmp_path, capsys):
     out_dir = tmp_path / "s"
     code, _, err = run(
         ["mine", tracks_csv, "--radius", 2, "--out", out_dir, "--quiet", "--replicates", 0],
@@ -256,6 +259,40 @@ def test_permutations_zero_switches_the_tests_off(tracks_csv, tmp_path, capsys):
     assert code == 0, err
     assert "p_value" not in pd.read_csv(out_dir / "patterns.csv").columns
     assert not (out_dir / "significance.csv").exists()
+
+
+@pytest.mark.parametrize(
+    ("command", "former", "now", "value"),
+    [
+        ("mine", "--permutations", "replicates", 0),
+        ("mine", "--min-duration", "min_prevalent_time", 3.0),
+        ("groups", "--min-duration", "min_together_time", 3.0),
+    ],
+)
+def test_a_former_flag_name_is_read_as_the_new_one_with_a_note(
+    tracks_csv, tmp_path, capsys, command, former, now, value
+):
+    out_dir = tmp_path / "o"
+    argv = [command, tracks_csv, "--radius", 2, "--out", out_dir, former, value]
+    code, _, err = run([*argv, "--replicates", 0] if now != "replicates" else argv, capsys)
+    assert code == 0, err
+    flag = "--" + now.replace("_", "-")
+    assert f"note: {former.lstrip('-').replace('-', '_')} ({former}) is now {now} ({flag})" in err
+    assert one_record(out_dir / "run.json")["settings"][now] == value
+
+
+def test_a_former_name_in_a_run_file_or_a_keyword_is_read_with_a_note(tracks_csv, tmp_path):
+    from comove.errors import RenamedSetting
+
+    config = tmp_path / "run.toml"
+    config.write_text("radius = 2\nmin_duration = 4\npermutations = 0\n")
+    options = load_run_file(config, "mine", MINE_STAGES)
+    assert (options["min_prevalent_time"], options["replicates"]) == (4.0, 0)
+    with pytest.warns(RenamedSetting, match="permutations"):
+        result = mine(tracks_csv, radius=2, permutations=0)
+    assert result.run["settings"]["replicates"] == 0
+    with pytest.raises(InputError, match="^replicates is given twice"):
+        mine(tracks_csv, radius=2, permutations=0, replicates=9)
 
 
 def test_groups_tests_pairs_and_role_sets(tracks_csv, tmp_path, capsys):
