@@ -13,7 +13,6 @@ from __future__ import annotations
 
 import io
 import re
-import textwrap
 from collections.abc import Iterator, Sequence
 from contextlib import contextmanager
 from dataclasses import dataclass
@@ -312,7 +311,7 @@ def pi_timelines(
             width = int(binned["width"])
             downsampled |= bool(binned["downsampled"])
             _pi_panel(ax, binned, threshold, (start_ns, end_ns, step_ns))
-            title = " + ".join(roles.split(";"))
+            title = roles
             if labels is not None:
                 title = f"{title}  ({labels[i]})"
             ax.set_title(plain_text(title, 110))
@@ -323,13 +322,12 @@ def pi_timelines(
         if downsampled:
             note = (
                 f"Downsampled for drawing: {len(series):,} snapshot values in time bins of "
-                f"{human_seconds(width / 1e9)} (at most {max_bins:,} per pattern); "
+                f"{human_seconds(width / 1e9)} (at most {max_bins:,} per role set); "
                 "line = bin mean, "
                 "band = bin min–max, shading = bins with a prevalent snapshot."
             )
         else:
-            note = "Every snapshot drawn; shading marks prevalent snapshots; gaps = pattern absent."
-        _note(fig, note)
+            note = "Every snapshot drawn; shading marks prevalent snapshots; gaps: role set absent."
     return fig, note
 
 
@@ -362,9 +360,9 @@ def _pi_panel(
     ax.set_ylabel("participation\nindex")
 
 
-def _note(fig: Figure, note: str) -> None:
-    """Print ``note`` under the figure, wrapped to the figure's width."""
-    fig.supxlabel(textwrap.fill(note, 130), fontsize=7.5, color=MUTED)
+def count_of(n: int, noun: str, plural: str | None = None) -> str:
+    """Return ``n`` with its noun, singular or plural: ``"1 episode"``, ``"3 episodes"``."""
+    return f"{n:,} {noun if n == 1 else plural or noun + 's'}"
 
 
 def _nice_length(target: float) -> float:
@@ -405,7 +403,7 @@ def _thin_line(coords: np.ndarray, limit: int = PATH_VERTICES) -> np.ndarray:
 def _members_text(members: str, limit: int = 4) -> str:
     """Return a short listing of ``;``-joined members."""
     ids = [m for m in str(members).split(";") if m]
-    shown = ", ".join(ids[:limit])
+    shown = ";".join(ids[:limit])
     return shown + (f" +{len(ids) - limit} more" if len(ids) > limit else "")
 
 
@@ -463,8 +461,6 @@ def track_map(
             ax.set_title("Tracks, with the longest co-moving episodes (dot = start)")
         else:
             ax.set_title("Tracks")
-        fig.text(0.5, 0.1 / height, textwrap.fill(note, 130), ha="center", va="bottom",
-                 fontsize=7.5, color=MUTED)  # fmt: skip
     return fig, note
 
 
@@ -483,15 +479,15 @@ def _positions_drawn(
         keep = np.unique(np.linspace(0, n - 1, max(int(max_points), 1)).round().astype(int))
         x, y = x[keep], y[keep]
     stored = (
-        f"the folder keeps 1 snapshot in {stored_every}"
+        f" The track sample of the results folder holds 1 snapshot in {stored_every:,}."
         if stored_every > 1
-        else "the folder keeps every snapshot"
+        else ""
     )
     if n > max_points:
         note = (f"Positions thinned for drawing: {len(x):,} of {n:,} sampled positions "
-                f"drawn, evenly spaced ({stored}).")  # fmt: skip
+                f"drawn, evenly spaced.{stored}")  # fmt: skip
     else:
-        note = f"All {n:,} sampled positions drawn ({stored})."
+        note = f"{count_of(n, 'sampled position')} drawn.{stored}"
     return x, y, note
 
 
@@ -632,10 +628,9 @@ def episode_timeline(episodes: pd.DataFrame, top: int = 40) -> tuple[Figure, str
         _date_axis(ax)
         ax.set_title("Episodes from start to end, coloured by role set")
         if len(episodes) > len(chosen):
-            note = f"The {len(chosen)} longest of {len(episodes):,} episodes drawn."
+            note = f"The {len(chosen)} longest of {count_of(len(episodes), 'episode')} drawn."
         else:
-            note = f"All {len(episodes):,} episodes drawn."
-        _note(fig, note)
+            note = f"All {count_of(len(episodes), 'episode')} drawn."
     return fig, note
 
 
@@ -672,7 +667,7 @@ def association_matrix(
     b = dyads["object_b"].astype(str).to_numpy()
     v = dyads[column].to_numpy(dtype="float64")
     objects = np.unique(np.concatenate([a, b]))
-    note = f"All {len(objects):,} objects."
+    note = f"All {count_of(len(objects), 'object')}."
     if len(objects) > max_objects:
         strength = pd.Series(np.concatenate([np.nan_to_num(v)] * 2), index=np.concatenate([a, b]))
         keep = strength.groupby(level=0).sum().nlargest(max_objects).index.to_numpy()
@@ -696,19 +691,18 @@ def association_matrix(
     return pd.DataFrame(m[np.ix_(order, order)], index=ordered, columns=ordered), note
 
 
-def dyad_heatmap(matrix: pd.DataFrame, note: str = "") -> Figure:
+def dyad_heatmap(matrix: pd.DataFrame) -> tuple[Figure, str]:
     """Return a heatmap of an association matrix from :func:`association_matrix`.
 
     Parameters
     ----------
     matrix : DataFrame
         Square, index and columns the same objects in the same order.
-    note : str, optional
-        A line printed under the figure.
 
     Returns
     -------
-    Figure
+    Figure, str
+        The figure and a note on its labels and blank cells, for its caption.
     """
     n = len(matrix)
     cmap = ListedColormap(matplotlib.colormaps["viridis"](np.linspace(0, 1, 256)))
@@ -731,10 +725,8 @@ def dyad_heatmap(matrix: pd.DataFrame, note: str = "") -> Figure:
         ax.set_xlabel("object")
         ax.set_ylabel("object")
         ax.set_title("Dyad association, objects ordered by average-linkage clustering")
-        text = note + (f" 1 object in {every} labelled." if every > 1 else "")
-        text += " Blank: diagonal, or never present together."
-        _note(fig, text.strip())
-    return fig
+    labelled = f"1 object in {every} labelled. " if every > 1 else ""
+    return fig, labelled + "Blank: diagonal, or never present together."
 
 
 def cross_l_curves(cross: pd.DataFrame, top: int = 6) -> tuple[Figure, list[tuple[str, str]]]:
@@ -782,6 +774,4 @@ def cross_l_curves(cross: pd.DataFrame, top: int = 6) -> tuple[Figure, list[tupl
             ax.set_visible(False)
         handles, names = axes[0].get_legend_handles_labels()
         fig.legend(handles, names, loc="outside upper center", ncols=4)
-        if not has_env:
-            _note(fig, "No envelopes: significance tests were not run.")
     return fig, pairs

@@ -31,6 +31,7 @@ from comove.io.results import (
     open_results,
     text_writer,
 )
+from comove.io.times import human_seconds, utc_iso
 from comove.present import figures
 
 #: The report's page, beside the results.
@@ -138,23 +139,12 @@ def _num(value: object, digits: int = 3) -> str:
 
 
 def _duration(seconds: object) -> str:
-    """Return a duration in words, such as ``"5 min 59.9 s"`` or ``"2 d 3 h"``."""
+    """Return a duration as the console writes it (:func:`~comove.io.times.human_seconds`)."""
     try:
         s = float(seconds)  # type: ignore[arg-type]
     except (TypeError, ValueError):
         return "—"
-    if not np.isfinite(s):
-        return "—"
-    if s < 60:
-        return f"{s:.3g} s"
-    if s < 3600:
-        m, rest = divmod(s, 60)
-        return f"{int(m)} min {rest:.3g} s" if rest >= 0.05 else f"{int(m)} min"
-    if s < 86_400:
-        h, rest = divmod(s, 3600)
-        return f"{int(h)} h {int(rest // 60)} min" if rest >= 60 else f"{int(h)} h"
-    d, rest = divmod(s, 86_400)
-    return f"{int(d)} d {int(rest // 3600)} h" if rest >= 3600 else f"{int(d)} d"
+    return human_seconds(s) if np.isfinite(s) else "—"
 
 
 def _table(header: list[str], rows: list[list[str]], numeric: set[int] | None = None) -> str:
@@ -174,21 +164,20 @@ def _table(header: list[str], rows: list[list[str]], numeric: set[int] | None = 
 
 
 def _roles_text(roles: object) -> str:
-    """Return ``;``-joined roles as ``a + b`` text (not yet escaped); empty when missing."""
-    return " + ".join(roles.split(";")) if isinstance(roles, str) else ""
+    """Return a role set as the tables write it (names joined by ``;``); empty when missing."""
+    return roles if isinstance(roles, str) else ""
 
 
 def _when(value: object) -> str:
-    """Return a UTC time as ``2026-05-16 10:03:57.2 UTC`` (not yet escaped)."""
+    """Return a UTC time as the tables and the console write it (``...T10:03:57.2Z``)."""
     if not isinstance(value, str) or not value:
         return "—"
     try:
         ts = pd.Timestamp(value)
     except ValueError:
         return value
-    ts = ts.tz_convert("UTC") if ts.tzinfo else ts
-    text = ts.strftime("%Y-%m-%d %H:%M:%S.%f").rstrip("0").rstrip(".")
-    return f"{text} UTC"
+    ts = ts.tz_convert("UTC") if ts.tzinfo else ts.tz_localize("UTC")
+    return utc_iso(ts.value)
 
 
 def _figure_html(pic: _Picture) -> str:
@@ -360,11 +349,11 @@ def _ranked(patterns: pd.DataFrame) -> pd.DataFrame:
 
 
 def _patterns_section(res: _Results) -> tuple[str, list[_Picture]]:
-    """Return the ranked role patterns: table and PI timelines."""
+    """Return the durable role sets, ranked: table and participation-index timelines."""
     patterns = _ranked(res.patterns)  # type: ignore[arg-type]
-    parts = ["<h2>Ranked role patterns</h2>"]
+    parts = ["<h2>Durable role sets, ranked</h2>"]
     if patterns.empty:
-        parts.append("<p>No role pattern met the thresholds of this run.</p>")
+        parts.append("<p>No role set met the thresholds of this run.</p>")
         return "\n".join(parts), []
     tested = "p_value" in patterns
     header = ["rank", "roles", "time prevalence", "prevalent", "longest run", "from", "mean PI"]
@@ -387,7 +376,7 @@ def _patterns_section(res: _Results) -> tuple[str, list[_Picture]]:
     numeric = {0, 2, 6, 7, 8}
     if len(patterns) > TABLE_PATTERNS:
         parts.append(f'<p class="muted">The top {TABLE_PATTERNS} of {len(patterns):,} '
-                     "patterns; all are in patterns.csv.</p>")  # fmt: skip
+                     "durable role sets; all are in patterns.csv.</p>")  # fmt: skip
     parts.append(_table(header, rows, numeric))
     # folders written before the file was renamed hold pi_series.parquet
     name = next((n for n in ("participation_series.parquet", "pi_series.parquet")
@@ -413,12 +402,17 @@ def _patterns_section(res: _Results) -> tuple[str, list[_Picture]]:
     pic = _Picture(
         "patterns_pi",
         figures.to_png(fig),
-        "Participation index over time for the top role patterns",
-        f"Participation index of the top {len(top)} patterns over the whole period; shaded: "
-        f"prevalent (index at or above the threshold). {note}",
+        "Participation index over time of the leading durable role sets",
+        f"Participation index of {_leading(len(top), 'leading durable role set')} over the whole "
+        f"period; shaded: prevalent (index at or above the threshold). {note}",
     )
     parts.append(_figure_html(pic))
     return "\n".join(parts), [pic]
+
+
+def _leading(n: int, noun: str) -> str:
+    """Return ``"the 3 longest episodes"`` or ``"the longest episode"``, by ``n``."""
+    return f"the {noun}" if n == 1 else f"the {n:,} {noun}s"
 
 
 def _lonlat(res: _Results, paths: Any) -> bool:
@@ -463,12 +457,15 @@ def _map_section(res: _Results, max_points: int) -> tuple[str, list[_Picture]]:
         path_coords=coords or [],
     )  # fmt: skip
     what = "longitude/latitude, equal-distance aspect" if lonlat else "planar metres"
+    drawn = paths is not None and len(paths) > 0
+    lines = (f"; coloured lines: centroid paths of {_leading(len(paths), 'longest episode')}, "
+             "dot at the start") if drawn else ""  # fmt: skip
     pic = _Picture(
         "track_map",
         figures.to_png(fig),
-        "Map of the sampled track positions with the longest episodes' paths",
-        f"Positions of the results folder's track sample ({what}), grey; coloured lines: "
-        f"centroid paths of the longest episodes, dot at the start. {note}",
+        "Map of the sampled track positions"
+        + (" with the longest episodes' paths" if drawn else ""),
+        f"Positions of the results folder's track sample ({what}), grey{lines}. {note}",
     )
     return "<h2>Map of the tracks</h2>\n" + _figure_html(pic), [pic]
 
@@ -495,7 +492,7 @@ def _timeline_section(res: _Results) -> tuple[str, list[_Picture]]:
             # results written before time together was recorded have no such column
             _e(_duration(row["together_s"])) if "together_s" in row else "",
             _num(row["size"]), _name(_roles_text(row.get("roles", ""))),
-            _name(", ".join(str(row["members"]).split(";"))),
+            _name(str(row["members"])),
         ])  # fmt: skip
     parts.append("<h3>The longest episodes</h3>")
     parts.append(_table(["episode", "start", "duration", "together", "size", "roles", "members"],
@@ -511,12 +508,14 @@ def _dyad_section(res: _Results) -> tuple[str, list[_Picture]]:
     matrix, note = figures.association_matrix(dyads)
     if len(matrix) < 2:
         return "", []
+    heatmap, labels = figures.dyad_heatmap(matrix)
     pic = _Picture(
         "dyad_matrix",
-        figures.to_png(figures.dyad_heatmap(matrix, note)),
+        figures.to_png(heatmap),
         "Heatmap of the half-weight association index between objects",
         "Half-weight index of every pair of objects; objects ordered by average-linkage "
-        f"clustering on 1 − index, so groups that keep together show as bright blocks. {note}",
+        f"clustering on 1 − index, so groups that keep together show as bright blocks. {note} "
+        f"{labels}",
     )
     strongest = dyads.sort_values("half_weight_index", ascending=False).head(10)
     rows = [
@@ -524,7 +523,7 @@ def _dyad_section(res: _Results) -> tuple[str, list[_Picture]]:
          _e(_duration(r.get("together_s")))]
         for _, r in strongest.iterrows()
     ]  # fmt: skip
-    table = _table(["object", "object", "half-weight index", "together"], rows, {2})
+    table = _table(["object a", "object b", "half-weight index", "time together"], rows, {2})
     return (
         "<h2>Dyad association</h2>\n" + _figure_html(pic) + "<h3>Strongest pairs</h3>" + table,
         [pic],
@@ -538,12 +537,14 @@ def _cross_section(res: _Results) -> tuple[str, list[_Picture]]:
         return "", []
     cross = cross[np.isfinite(cross["l_minus_r_m"])]
     fig, pairs = figures.cross_l_curves(cross, CROSS_PAIRS)
+    band = ("band: pointwise null envelope." if {"null_low_m", "null_high_m"} <= set(cross.columns)
+            else "no envelope: no tests were run (--replicates 0).")  # fmt: skip
     pic = _Picture(
         "cross_l",
         figures.to_png(fig),
-        "Cross-L curves of the top role pairs",
-        f"L(r) − r of the {len(pairs)} role pairs with the largest departure; above 0: "
-        "closer than independent placement, band: pointwise null envelope.",
+        "Cross-L curves of the role pairs that depart most from independence",
+        f"L(r) − r of {_leading(len(pairs), 'role pair')} with the largest departure; above 0: "
+        f"closer than independent placement; {band}",
     )
     return "<h2>Cross-L curves of role pairs</h2>\n" + _figure_html(pic), [pic]
 

@@ -5,6 +5,7 @@ from __future__ import annotations
 import base64
 import json
 import os
+import re
 from html.parser import HTMLParser
 
 import matplotlib.image as mpimg
@@ -23,7 +24,7 @@ GROUP_KEYS = ("id", "time", "x", "y", "lon", "lat", "role", "step", "max_gap", "
               "radius")  # fmt: skip
 
 RUN = "The run"
-PATTERNS = "Ranked role patterns"
+PATTERNS = "Durable role sets, ranked"
 MAP = "Map of the tracks"
 TIMELINE = "Timeline of episodes"
 DYADS = "Dyad association"
@@ -39,22 +40,31 @@ class Page(HTMLParser):
         self.h2: list[str] = []
         self.images: list[dict[str, str]] = []
         self.text: list[str] = []
+        self.captions: list[str] = []
         self._in_h2 = False
+        self._in_caption = False
 
     def handle_starttag(self, tag: str, attrs: list[tuple[str, str | None]]) -> None:
         self.tags.append(tag)
         if tag == "img":
             self.images.append({k: v or "" for k, v in attrs})
         self._in_h2 = tag == "h2"
+        if tag == "figcaption":
+            self._in_caption = True
+            self.captions.append("")
 
     def handle_endtag(self, tag: str) -> None:
         if tag == "h2":
             self._in_h2 = False
+        if tag == "figcaption":
+            self._in_caption = False
 
     def handle_data(self, data: str) -> None:
         self.text.append(data)
         if self._in_h2:
             self.h2.append(data.strip())
+        if self._in_caption:
+            self.captions[-1] += data
 
     def all_text(self) -> str:
         return "".join(self.text)
@@ -139,11 +149,11 @@ def test_game_report_has_every_section(built):
     folder, report = built["small_sided_game"]
     page = check_report(folder, report, ALL_FIGURES | {"cross_l"})
     text = page.all_text()
-    assert "amber_back + teal_forward" in text
+    assert "amber_back;teal_forward" in text
     assert "comove mine" in text and "comove groups" in text
     assert "rows read" in text and "sampling interval" in text
     # the patterns table is ranked by time prevalence (planted 0.70 first, truth.json)
-    assert text.index("amber_back + teal_forward") < text.index("amber_pivot + amber_winger")
+    assert text.index("amber_back;teal_forward") < text.index("amber_pivot;amber_winger")
 
 
 @pytest.mark.parametrize("name", ["fleet", "herd"])
@@ -164,6 +174,24 @@ def test_mine_only_and_groups_only_folders(tmp_path):
     page = check_report(tmp_path / "g", build_report(tmp_path / "g"),
                         {"track_map", "episode_timeline", "dyad_matrix"})  # fmt: skip
     assert PATTERNS not in page.h2
+
+
+def test_captions_say_only_what_the_figures_show(tmp_path):
+    # a mine folder without tests: no episode paths on the map, no envelope on the
+    # cross-L curves; times, durations and role sets written as in the tables
+    source, options = mine_options("small_sided_game")
+    mine(source, replicates=0, k_radii="1,3", **options).write(tmp_path / "m")
+    page = parse(build_report(tmp_path / "m"))
+    captions = {img["alt"]: text for img, text in zip(page.images, page.captions, strict=True)}
+    track_map = next(text for alt, text in captions.items() if alt.startswith("Map"))
+    assert "episode" not in track_map
+    cross = next(text for alt, text in captions.items() if alt.startswith("Cross-L"))
+    assert "no envelope" in cross and "band" not in cross
+    text = page.all_text()
+    assert re.search(r"\d{4}-\d\d-\d\dT\d\d:\d\d:[\d.]+Z", text)  # ISO 8601, as in the files
+    assert " UTC<" not in text and "+00:00" not in text
+    assert " + " not in text  # role sets joined by ';' as in the files
+    assert "1 h 59 min" not in text
 
 
 NASTY_ROLE = '<b>x</b>&"'
@@ -211,8 +239,8 @@ def test_hidden_characters_are_shown_and_long_names_cut(tmp_path):
     raw = build_report(folder).read_text(encoding="utf-8")
     assert "\u202e" not in raw and "\x07" not in raw
     assert "ab&lt;U+202E&gt;gnp.exe&lt;U+0007&gt;" in raw
-    assert f'title="{long_role} + s"' in raw  # the whole name in the tooltip
-    assert long_role + " + s<" not in raw  # and cut where shown
+    assert f'title="{long_role};s"' in raw  # the whole name in the tooltip
+    assert long_role + ";s<" not in raw  # and cut where shown
 
 
 def html_escaped(text: str) -> str:
@@ -272,7 +300,7 @@ def test_large_input_gives_a_small_report_that_says_it_was_downsampled(tmp_path)
     text = page.all_text()
     assert "Downsampled for drawing: 1,000,000 snapshot values" in text
     assert "Positions thinned for drawing: 20,000 of 1,000,000" in text
-    assert "keeps 1 snapshot in 3" in text
+    assert "holds 1 snapshot in 3" in text
 
 
 def test_bin_series_matches_a_direct_groupby():
