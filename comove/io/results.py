@@ -84,7 +84,7 @@ MANIFEST_FORMAT = 1
 #: The command name under which the report's files are recorded.
 REPORT = "report"
 #: Files whose presence makes a folder a results folder of ``mine`` or ``groups``.
-RESULT_FILES = ("patterns.csv", "episodes.csv")
+RESULT_FILES = ("patterns.csv", "episodes.csv", "sweep.csv")
 #: Files that two commands' results in one folder share, combined per command.
 SHARED_JSON = ("run.json", "quality.json")
 #: Files both commands write with the same content for one input: the newer is kept.
@@ -547,19 +547,20 @@ def _first_line(exc: BaseException) -> str:
 
 
 def open_results(folder: str | os.PathLike[str]) -> ResultsFolder:
-    """Return a results folder of ``comove mine`` and/or ``comove groups`` for reading.
+    """Return a results folder of ``comove mine``, ``groups`` (or both) or ``sweep`` for reading.
 
     Raises
     ------
     InputError
-        When ``folder`` does not exist or holds neither ``patterns.csv`` nor
-        ``episodes.csv``, or when an earlier run was cut off while writing it.
+        When ``folder`` does not exist or holds none of ``patterns.csv``,
+        ``episodes.csv`` and ``sweep.csv``, or when an earlier run was cut off
+        while writing it.
     """
     path = Path(folder)
     if not path.is_dir() or not any((path / name).is_file() for name in RESULT_FILES):
         raise InputError(
-            f"{path}: no comove results found (patterns.csv or episodes.csv); "
-            "run comove mine or comove groups first"
+            f"{path}: no comove results found (patterns.csv, episodes.csv or sweep.csv); "
+            "run comove mine, groups or sweep first"
         )
     record = read_manifest(path)
     if record is not None and not record.complete:

@@ -35,10 +35,6 @@ SWEEP_COLUMNS = [
 ]  # fmt: skip
 
 
-#: Patterns drawn in the sweep plot.
-PLOTTED = 8
-
-
 @dataclass(frozen=True)
 class SweepParams:
     """The grid of a sweep.
@@ -143,42 +139,21 @@ class SweepResult:
     run: dict
 
     def plot(self) -> Any:
-        """Return a matplotlib Figure of time prevalence against radius for the leading sets."""
-        from matplotlib.figure import Figure
+        """Return a matplotlib Figure of time prevalence against radius, one panel per threshold.
 
-        fig = Figure(figsize=(7.5, 4.5), dpi=100)
-        ax = fig.add_subplot()
-        palette = ["#0072B2", "#E69F00", "#009E73", "#CC79A7", "#56B4E9", "#D55E00",
-                   "#F0E442", "#000000"]  # fmt: skip
-        table = self.table
-        thresholds = sorted(table["min_participation"].unique())
-        first = table[table["min_participation"] == thresholds[len(thresholds) // 2]]
-        lead = (first.groupby("roles")["time_prevalence"].max()
-                .sort_values(ascending=False).head(PLOTTED).index)  # fmt: skip
-        for colour, roles in zip(palette, lead, strict=False):
-            rows = first[first["roles"] == roles].sort_values("radius_m")
-            ax.plot(rows["radius_m"], rows["time_prevalence"], marker="o", ms=3, color=colour,
-                    label=roles)  # fmt: skip
-        threshold = flat_settings(self.run)["min_prevalence"]
-        ax.axhline(threshold, color="#555555", lw=1, ls="--")
-        ax.annotate("min. prevalence", (ax.get_xlim()[0], threshold), xytext=(4, 3),
-                    textcoords="offset points", fontsize=7, color="#555555")  # fmt: skip
-        ax.set_xlabel("radius (m)")
-        ax.set_ylabel("time prevalence")
-        ax.set_ylim(0, 1.02)
-        ax.set_title(f"Leading role sets by radius (min. participation "
-                     f"{thresholds[len(thresholds) // 2]:g})")  # fmt: skip
-        ax.grid(alpha=0.3)
-        if len(lead):
-            ax.legend(fontsize=7, loc="best", frameon=False)
-        fig.tight_layout()
-        return fig
+        Drawn as the report draws it (:func:`comove.present.figures.sweep_curves`).
+        """
+        from comove.present.figures import sweep_curves
+
+        return sweep_curves(self.table, flat_settings(self.run).get("min_prevalence"))[0]
 
     def write(self, out_dir: str | os.PathLike[str], force: bool = False) -> Path:
         """Write ``sweep.csv``, ``sweep.png``, ``quality.json`` and ``run.json`` atomically."""
 
         def write_png(path: Path) -> None:
-            self.plot().savefig(path)
+            from comove.present.figures import to_png
+
+            path.write_bytes(to_png(self.plot()).data)
 
         return write_folder(
             out_dir,

@@ -775,3 +775,73 @@ def cross_l_curves(cross: pd.DataFrame, top: int = 6) -> tuple[Figure, list[tupl
         handles, names = axes[0].get_legend_handles_labels()
         fig.legend(handles, names, loc="outside upper center", ncols=4)
     return fig, pairs
+
+
+#: Most participation thresholds drawn by :func:`sweep_curves`, one panel each.
+SWEEP_PANELS = 6
+
+
+def sweep_curves(
+    sweep: pd.DataFrame, min_prevalence: float | None = None, top: int = len(PALETTE)
+) -> tuple[Figure, str]:
+    """Return time prevalence against radius of the leading role sets, one panel per threshold.
+
+    Parameters
+    ----------
+    sweep : DataFrame
+        ``sweep.csv``: ``radius_m``, ``min_participation``, ``roles``,
+        ``time_prevalence``.
+    min_prevalence : float, optional
+        The persistence threshold, drawn as a dashed line.
+    top : int
+        Most role sets drawn: those with the highest time prevalence anywhere
+        on the grid, each in the same colour in every panel.
+
+    Returns
+    -------
+    Figure, str
+        The figure and a note for its caption (what was left out).
+    """
+    thresholds = sorted(float(v) for v in sweep["min_participation"].unique())
+    shown = thresholds
+    if len(thresholds) > SWEEP_PANELS:
+        shown = [thresholds[i] for i in np.linspace(0, len(thresholds) - 1, SWEEP_PANELS)
+                 .round().astype(int)]  # fmt: skip
+    best = sweep.groupby("roles", observed=True)["time_prevalence"].max()
+    lead = list(best.sort_values(ascending=False, kind="stable").head(top).index)
+    colour = dict(zip(lead, PALETTE, strict=False))
+    radii = np.sort(sweep["radius_m"].unique().astype("float64"))
+    ncols = min(3, len(shown))
+    nrows = -(-len(shown) // ncols)
+    with style():
+        fig = _figure(1.2 + 2.4 * nrows)
+        axes = fig.subplots(nrows, ncols, squeeze=False, sharex=True, sharey=True).ravel()
+        for ax, threshold in zip(axes, shown, strict=False):
+            at = sweep[np.isclose(sweep["min_participation"].astype("float64"), threshold)]
+            for roles in lead:
+                rows = at[at["roles"] == roles].set_index("radius_m")["time_prevalence"]
+                # a role set never prevalent at a radius has time prevalence 0 there
+                values = rows.reindex(radii).fillna(0.0).to_numpy(dtype="float64")
+                ax.plot(radii, values, color=colour[roles], marker="o", markersize=3,
+                        linewidth=1.2, label=plain_text(roles, 60))  # fmt: skip
+            if min_prevalence is not None:
+                ax.axhline(min_prevalence, color=MUTED, linewidth=0.8, linestyle="--",
+                           label=f"least time prevalence ({min_prevalence:g})")  # fmt: skip
+            ax.set_title(f"participation threshold {threshold:g}")
+            ax.set_ylim(0, 1.02)
+            ax.set_xlabel("radius (m)")
+            ax.set_ylabel("time prevalence")
+            ax.label_outer()
+        for ax in axes[len(shown) :]:
+            ax.set_visible(False)
+        handles, names = axes[0].get_legend_handles_labels()
+        # above the panels, never over the curves
+        fig.legend(handles, names, loc="outside upper center", ncols=2)
+    notes = []
+    if len(shown) < len(thresholds):
+        notes.append(f"{len(shown)} of {count_of(len(thresholds), 'participation threshold')} "
+                     "drawn, evenly spaced; sweep.csv holds them all.")  # fmt: skip
+    if best.size > len(lead):
+        notes.append(f"The {len(lead)} role sets with the highest time prevalence of "
+                     f"{best.size:,} drawn.")  # fmt: skip
+    return fig, " ".join(notes)

@@ -91,6 +91,7 @@ class _Results:
     cross_k: pd.DataFrame | None = None
     episodes: pd.DataFrame | None = None
     dyads: pd.DataFrame | None = None
+    sweep: pd.DataFrame | None = None
 
 
 def _load(source: ResultsFolder) -> _Results:
@@ -102,6 +103,7 @@ def _load(source: ResultsFolder) -> _Results:
     res.cross_k = source.table("cross_k.csv")
     res.episodes = source.table("episodes.csv")
     res.dyads = source.table("dyads.csv")
+    res.sweep = source.table("sweep.csv")
     return res
 
 
@@ -549,6 +551,37 @@ def _cross_section(res: _Results) -> tuple[str, list[_Picture]]:
     return "<h2>Cross-L curves of role pairs</h2>\n" + _figure_html(pic), [pic]
 
 
+def _sweep_section(res: _Results) -> tuple[str, list[_Picture]]:
+    """Return the sweep over radii and thresholds: curves, and role sets kept per grid point."""
+    sweep = res.sweep
+    parts = ["<h2>Role sets over a grid of radii and thresholds</h2>"]
+    if sweep is None or sweep.empty:
+        parts.append("<p>No role set was prevalent at any point of the grid.</p>")
+        return "\n".join(parts), []
+    settings = flat_settings(res.runs.get("sweep") or {})
+    fig, note = figures.sweep_curves(sweep, settings.get("min_prevalence"))
+    pic = _Picture(
+        "sweep_curves",
+        figures.to_png(fig),
+        "Time prevalence against radius of the leading role sets, per participation threshold",
+        "Time prevalence of the leading role sets at each radius of the grid, one panel per "
+        "participation threshold; dashed: the least time prevalence a durable role set needs. "
+        + note,
+    )
+    parts.append(_figure_html(pic))
+    kept = sweep[sweep["kept"].astype(bool)]
+    counts = kept.groupby(["radius_m", "min_participation"]).size()
+    # every grid point of the run, also those where no role set was prevalent
+    radii = settings.get("radius") or sorted(sweep["radius_m"].unique())
+    levels = settings.get("min_participation") or sorted(sweep["min_participation"].unique())
+    rows = [[_num(r), _num(m), _num(counts.get((float(r), float(m)), 0))]
+            for r in radii for m in levels]  # fmt: skip
+    parts.append("<h3>Durable role sets at each grid point</h3>")
+    parts.append(_table(["radius (m)", "participation threshold", "durable role sets"], rows,
+                        {0, 1, 2}))  # fmt: skip
+    return "\n".join(parts), [pic]
+
+
 # ---------------------------------------------------------------- assembly
 
 
@@ -621,6 +654,8 @@ def _assemble(res: _Results, max_points: int) -> tuple[str, list[_Picture]]:
     if res.episodes is not None:
         builders.append(lambda: _timeline_section(res))
     builders += [lambda: _dyad_section(res), lambda: _cross_section(res)]
+    if res.sweep is not None:
+        builders.append(lambda: _sweep_section(res))
     for build in builders:
         html_part, pics = build()
         if html_part:

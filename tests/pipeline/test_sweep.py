@@ -13,6 +13,7 @@ from comove.io.runfile import parse_grid
 from comove.io.scenarios import mine_options
 from comove.pipeline.core import mine
 from comove.pipeline.sweep import SweepParams, sweep
+from comove.present import figures
 
 GRID = SweepParams(radius=(1.5, 3.0, 5.0), min_participation=(0.3, 0.5))
 
@@ -120,8 +121,29 @@ def test_sweep_command_writes_table_and_plot(tmp_path, capsys):
     table = pd.read_csv(out / "sweep.csv")
     assert sorted(table["radius_m"].unique()) == [1.0, 2.0, 3.0, 4.0]
     image = mpimg.imread(out / "sweep.png")
-    assert image.shape[0] == 450 and image.shape[1] == 750
+    assert image.shape[1] == 800  # the report's width
     assert {"run.json", "quality.json"} <= {p.name for p in out.iterdir()}
+    # the report takes a sweep folder: the curves and the role sets kept per grid point
+    assert main(["report", str(out), "--quiet"]) == 0
+    page = (out / "report.html").read_text()
+    assert "Role sets over a grid of radii and thresholds" in page
+    assert (out / "figures" / "sweep_curves.png").is_file()
+
+
+def test_sweep_figure_draws_every_threshold_with_the_legend_off_the_curves(game):
+    source, _, base = game
+    result = sweep(source, radius="1:4:1", min_participation="0.3,0.4,0.5,0.6", **base)
+    fig, note = figures.sweep_curves(result.table, 0.5)
+    figures.to_png(fig)  # lays the figure out
+    panels = [ax for ax in fig.axes if ax.get_visible()]
+    assert [ax.get_title(loc="left") for ax in panels] == [
+        f"participation threshold {m:g}" for m in (0.3, 0.4, 0.5, 0.6)]  # fmt: skip
+    legend = fig.legends[0].get_window_extent()
+    for ax in panels:
+        assert not legend.overlaps(ax.get_window_extent())
+    # one colour per role set, the same in every panel
+    colours = [{line.get_label(): line.get_color() for line in ax.get_lines()} for ax in panels]
+    assert all(c == colours[0] for c in colours)
 
 
 def test_bad_sweep_grid_is_one_line(tmp_path, capsys):
