@@ -203,7 +203,7 @@ def _add_mine(sub: Any) -> None:
     _add_analysis(
         sub, "mine", MINE_STAGES,
         input_help="track file(s) or glob(s): CSV, TSV, Parquet, GeoParquet, GeoPackage, GeoJSON",
-        help="durable role co-location patterns of tracks",
+        help="durable role sets: which roles stay close together",
         description="Find the sets of roles whose objects stay close together.",
     )  # fmt: skip
 

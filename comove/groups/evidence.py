@@ -7,7 +7,7 @@ linked at a snapshot only when its own evidence over a window of time around
 that snapshot says so:
 
 1. **Close, and closer than the crowd.** At each snapshot the pair is *near*
-   when their distance is at most the link distance and, with ``nearest = k``,
+   when their distance is at most the neighbour distance and, with ``nearest = k``,
    each is among the other's k nearest neighbours (a mutual k-nearest-neighbour
    relation, Brito et al. 1997): in a crowd, close means closer than the
    strangers around.
@@ -29,7 +29,7 @@ that snapshot says so:
    The window is centred, so the rule reads the same forwards and backwards in
    time.
 
-Links exist only where the pair is within the link distance, so groups still
+Links exist only where the pair is within the neighbour distance, so groups still
 form, split and merge snapshot by snapshot (the per-snapshot groups and the
 episode search downstream are unchanged); a pair that meets for a moment, or
 walks beside a stranger for a moment, is not linked.
@@ -107,7 +107,7 @@ def together_snapshots(
     snaps : Snapshots
         Aligned snapshots.
     pairs : NeighbourPairs
-        Entry pairs within the link distance (every pair of a snapshot, so
+        Entry pairs within the neighbour distance (every pair of a snapshot, so
         that neighbour ranks are complete).
     motion : Motion
         Velocity of every entry.
@@ -184,11 +184,11 @@ def evidence_links(
     snaps : Snapshots
         Aligned snapshots.
     pairs : NeighbourPairs
-        Entry pairs within the link distance.
+        Entry pairs within the neighbour distance.
     motion : Motion
         Velocity of every entry.
     params : GroupParams
-        Link distance, motion predicates and the evidence settings
+        Neighbour distance, motion predicates and the evidence settings
         (``evidence_window``, ``evidence_share``, ``nearest``, ``min_abreast``,
         ``standing``).
 

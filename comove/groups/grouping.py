@@ -42,7 +42,7 @@ class GroupParams:
     Parameters
     ----------
     radius : float
-        Link distance in metres (inclusive).
+        Neighbour distance in metres (inclusive): only objects this close are linked.
     mode : {"clique", "component", "dbscan"}, default "component"
         How linked objects form a group at a snapshot.
     min_members : int, default 2
@@ -82,7 +82,10 @@ class GroupParams:
         objects in ``"snapshot"`` links), left out of the evidence, or as apart.
     """
 
-    radius: float = field(metadata={"help": "link distance in metres (inclusive)"})
+    radius: float = field(
+        metadata={"help": "neighbour distance in metres (inclusive): only objects this close "
+                  "can be linked into a group"}
+    )  # fmt: skip
     mode: str = field(
         default="component",
         metadata={"help": "group structure per snapshot", "choices": GROUP_MODES},

@@ -1,4 +1,4 @@
-"""The jobs end to end: raw tracks in, role patterns or co-moving groups out.
+"""The jobs end to end: raw tracks in, durable role sets or co-moving groups out.
 
 Stages run forward, each a plain function of the previous stage's output::
 
@@ -140,7 +140,7 @@ class _Progress:
 
 @dataclass
 class MiningResult:
-    """Durable role co-location patterns and everything needed to trust them.
+    """Durable role sets and everything needed to trust them.
 
     Attributes
     ----------
@@ -202,7 +202,7 @@ class MiningResult:
 
 
 def mine(source: Any, *, progress: bool = False, **options: Any) -> MiningResult:
-    """Return the durable role co-location patterns of the tracks in ``source``.
+    """Return the durable role sets of the tracks in ``source``.
 
     Parameters
     ----------

@@ -52,7 +52,9 @@ class SweepParams:
 
     radius: tuple[float, ...] = field(
         default=(),
-        metadata={"help": "radii in metres: start:stop:step (stop included) or r1,r2,..."},
+        metadata={
+            "help": "neighbour distances in metres: start:stop:step (stop included) or r1,r2,..."
+        },  # fmt: skip
     )
     min_participation: tuple[float, ...] = field(
         default=(0.5,),

@@ -38,9 +38,9 @@ from comove.present import figures
 PAGE = "report.html"
 #: The report's figures, each written as ``figures/<name>.png``.
 FIGURE_NAMES = ("patterns_pi", "track_map", "episode_timeline", "dyad_matrix", "cross_l")
-#: Most role patterns drawn as timelines.
+#: Most durable role sets drawn as timelines.
 TOP_PATTERNS = 8
-#: Most role patterns listed in the table.
+#: Most durable role sets listed in the table.
 TABLE_PATTERNS = 30
 #: Most episodes drawn on the map.
 MAP_EPISODES = 6
@@ -621,7 +621,7 @@ def build_report(folder: str | os.PathLike, *, max_points: int = 50_000) -> Path
     Notes
     -----
     Sections, each only when its data exist: the run (input, settings,
-    versions, data quality and the caution); ranked role patterns with
+    versions, data quality and the caution); the durable role sets, ranked, with
     participation-index timelines; a map of the tracks with the longest
     episodes' paths; a timeline of episodes; the dyad association matrix;
     cross-L curves with envelopes. The page is one self-contained file (PNG

@@ -60,7 +60,7 @@ _KEY_COLUMNS = ["role_a", "role_b", "radius_m"]
 
 @dataclass(frozen=True)
 class CrossKParams:
-    """Settings of the cross-K functions (``mine`` computes them when ``k_radii`` is given).
+    """Settings of the cross-K functions (``mine`` computes them when --k-radii is given).
 
     Parameters
     ----------
@@ -243,7 +243,7 @@ def cross_k(
     ...                   roles=np.array(["a", "b"]), max_gap_ns=0)
     >>> params = CrossKParams(k_radii=(0.5, 2.0), k_window=(0, 0, 10, 10), k_correction="border")
     >>> cross_k(snaps, params)[["radius_m", "k_m2", "pairs_counted"]].to_dict("list")
-    {'radius_m': [0.5, 2.0], 'k': [0.0, 100.0], 'pairs_counted': [0, 1]}
+    {'radius_m': [0.5, 2.0], 'k_m2': [0.0, 100.0], 'pairs_counted': [0, 1]}
     """
     if params.k_radii is None:
         raise ValueError("no cross-K radii: give CrossKParams(k_radii=...)")
