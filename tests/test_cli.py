@@ -140,7 +140,8 @@ def test_groups_writes_episodes_dyads_and_paths(tracks_csv, tmp_path, capsys):
     assert code == 0, err
     assert f"for figures: comove report {out_dir}" in out  # as mine says it
     assert sorted(p.name for p in out_dir.iterdir()) == [
-        MANIFEST, "dyads.csv", "episode_paths.geojson", "episode_paths.parquet",
+        MANIFEST, "association.graphml", "association_edges.csv", "dyads.csv",
+        "episode_paths.geojson", "episode_paths.parquet",
         "episode_roles.csv", "episodes.csv", "quality.json", "run.json", "track_sample.parquet",
     ]  # fmt: skip
     episodes = pd.read_csv(out_dir / "episodes.csv")

@@ -14,6 +14,10 @@ REPO = Path(__file__).resolve().parents[1]
 TUTORIALS = sorted((REPO / "docs" / "tutorials").glob("*.md"))
 
 
+def snippets(path: Path) -> list[str]:
+    return re.findall(r"```python\n(.*?)```", path.read_text(), flags=re.S)
+
+
 def commands(path: Path) -> list[str]:
     blocks = re.findall(r"```sh\n(.*?)```", path.read_text(), flags=re.S)
     return [line for block in blocks for line in block.splitlines() if line.startswith("comove ")]
@@ -40,3 +44,8 @@ def test_tutorial_commands_run(tutorial, tmp_path, monkeypatch, capsys):
     reports = [line.split()[-1] for line in lines if line.startswith("comove report")]
     for folder in reports:
         assert (tmp_path / folder / "report.html").is_file()
+    for code in snippets(tutorial):  # the Python steps run on what the commands wrote
+        names: dict = {}
+        exec(compile(code, f"{tutorial.name} (python block)", "exec"), names)
+        if "closest" in names:  # what the team-sport text says of the marking pairs
+            assert names["closest"]["A03"] == "T05" and names["closest"]["A02"] == "T04"

@@ -716,6 +716,41 @@ def _together_runs(
     return x, longest, head, tail, first_snap, last_snap
 
 
+#: Columns of the table of objects (the nodes of the association network).
+OBJECT_COLUMNS = ["object", "role", "present_snapshots", "present_s"]
+
+
+def object_rows(tally: DyadTally, snaps: Snapshots) -> pd.DataFrame:
+    """Return one row per object present in the run: its id, main role and time present.
+
+    Parameters
+    ----------
+    tally : DyadTally
+        Counts of the whole run (the tallies of its chunks joined).
+    snaps : Snapshots
+        The run or any chunk of it: only its object and role names and its step are read.
+
+    Returns
+    -------
+    DataFrame
+        ``object``, ``role`` (the object's most frequent role), ``present_snapshots``
+        and ``present_s`` (snapshots with the object present, and that times the
+        step), in object code order; objects never present are left out.
+    """
+    present = np.asarray(tally.present, dtype=np.int64)
+    seen = np.flatnonzero(present > 0)
+    roles = tally.main_roles()
+    return pd.DataFrame(
+        {
+            "object": pd.array(np.asarray(snaps.objects).astype(str)[seen], dtype=str),
+            "role": pd.array(np.asarray(snaps.roles).astype(str)[roles[seen]], dtype=str),
+            "present_snapshots": present[seen],
+            "present_s": present[seen] * snaps.step_s,
+        },
+        columns=OBJECT_COLUMNS,
+    )
+
+
 def dyad_rows(
     tally: DyadTally, snaps: Snapshots, expected: np.ndarray, max_expected_pairs: int
 ) -> pd.DataFrame:
@@ -889,12 +924,19 @@ def dyad_table(
     >>> int(row.together_snapshots), float(row.half_weight_index)
     (2, 0.5)
     """
+    return dyads_and_objects(snaps, together, params)[0]
+
+
+def dyads_and_objects(
+    snaps: Snapshots, together: NeighbourPairs, params: DyadParams | None = None
+) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Return :func:`dyad_table` and :func:`object_rows` from one tally."""
     params = params or DyadParams()
     tally = dyad_tally(snaps, together, pairs=params.dyad_pairs)
     cap = params.max_expected_pairs
     table = dyad_rows(tally, snaps, expected_distances(snaps, tally, cap), cap)
     table.attrs = {"radius_m": float(together.radius), **table.attrs}
-    return table
+    return table, object_rows(tally, snaps)
 
 
 def dyad_matrix(dyads: pd.DataFrame, index: str = "half_weight_index") -> pd.DataFrame:

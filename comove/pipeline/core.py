@@ -27,7 +27,7 @@ import pandas as pd
 
 from comove.errors import ComoveNote, bad_setting
 from comove.groups.chain import GroupTally, group_chain
-from comove.groups.dyads import DyadParams, dyad_table
+from comove.groups.dyads import DyadParams, dyads_and_objects
 from comove.groups.episodes import EpisodeParams
 from comove.groups.grouping import GroupParams
 from comove.groups.presets import preset_subject, preset_values
@@ -41,6 +41,7 @@ from comove.io.results import (
     csv_writer,
     geojson_writer,
     geoparquet_writer,
+    graphml_writer,
     json_writer,
     parquet_writer,
     write_folder,
@@ -391,6 +392,10 @@ class GroupsResult:
     dyads : DataFrame
         One row per pair of objects with shared presence; see
         :func:`comove.groups.dyads.dyad_table`.
+    objects : DataFrame
+        One row per object present: its main role and time present
+        (:func:`comove.groups.dyads.object_rows`); with the dyads, the
+        association network.
     paths : GeoDataFrame
         The centroid path of each episode as a LineString, in the input's CRS
         (lon/lat input gives lon/lat paths; planar input has no CRS), one
@@ -408,6 +413,7 @@ class GroupsResult:
     episodes: pd.DataFrame
     roles: pd.DataFrame
     dyads: pd.DataFrame
+    objects: pd.DataFrame
     paths: Any
     display_paths: Any
     quality: dict
@@ -422,7 +428,10 @@ class GroupsResult:
         """Write the results folder atomically and return its path.
 
         Files: ``episodes.csv``, ``episode_roles.csv``, ``dyads.csv``,
-        ``track_sample.parquet`` (thinned positions for maps),
+        ``association.graphml`` (objects as nodes, dyads as edges, every
+        column an attribute) and ``association_edges.csv`` (source, target,
+        half-weight index as weight), ``track_sample.parquet`` (thinned
+        positions for maps),
         ``episode_paths.parquet`` (GeoParquet, every snapshot),
         ``episode_paths.geojson`` (thinned for viewing),
         ``quality.json`` and ``run.json``.
@@ -434,6 +443,10 @@ class GroupsResult:
                 "episodes.csv": csv_writer(self.episodes),
                 "episode_roles.csv": csv_writer(self.roles),
                 "dyads.csv": csv_writer(self.dyads),
+                "association.graphml": graphml_writer(
+                    self.objects, "object", self.dyads, "object_a", "object_b"
+                ),
+                "association_edges.csv": csv_writer(association_edges(self.dyads)),
                 "episode_paths.parquet": geoparquet_writer(self.paths),
                 "episode_paths.geojson": geojson_writer(self.display_paths),
                 "quality.json": json_writer(self.quality),
@@ -507,13 +520,13 @@ def groups(
     digest = _digest_beside(source)
     try:
         if plan is not None:
-            snaps, quality, sample, table, centroids, dyads = _group_windows(
+            snaps, quality, sample, table, centroids, dyads, objects = _group_windows(
                 source, stages, plan, run_params, progress)  # fmt: skip
         else:
             snaps, quality, sample = _aligned(source, columns, cleaning, alignment, bar,
                                               run_params.threads)  # fmt: skip
             with bar.stage("groups, episodes and dyads"):
-                tally, table, centroids, dyads = _observed_groups(
+                tally, table, centroids, dyads, objects = _observed_groups(
                     snaps, grouping, episode_params, dyad_params, run_params
                 )
         with bar.stage("paths"):
@@ -537,8 +550,18 @@ def groups(
                      extra={"preset": preset, "caution": caution_for(preset_subject(preset)),
                             **_windows_note(plan)},
                      digest=digest.result())  # fmt: skip
-    return GroupsResult(table, roles, dyads, paths, display, quality, run, snaps, centroids,
-                        sample)  # fmt: skip
+    return GroupsResult(table, roles, dyads, objects, paths, display, quality, run, snaps,
+                        centroids, sample)  # fmt: skip
+
+
+def association_edges(dyads: pd.DataFrame) -> pd.DataFrame:
+    """Return the dyads as an edge list for network tools: ``source``, ``target``, ``weight``.
+
+    The weight is the half-weight index; every index is in ``dyads.csv`` and
+    ``association.graphml``.
+    """
+    return pd.DataFrame({"source": dyads["object_a"], "target": dyads["object_b"],
+                         "weight": dyads["half_weight_index"]})  # fmt: skip
 
 
 def _group_windows(source: Any, stages: list, plan: tuple[int, int | None],
@@ -548,7 +571,8 @@ def _group_windows(source: Any, stages: list, plan: tuple[int, int | None],
     with windowed_tracks(source, columns, cleaning, alignment, plan, stages[7].scratch,
                          run_params, progress) as run:  # fmt: skip
         found = group_windows(run, grouping, episode_params, dyad_params)
-        return run.shell, run.quality(), run.sample(), found.table, found.centroids, found.dyads
+        return (run.shell, run.quality(), run.sample(), found.table, found.centroids, found.dyads,
+                found.objects)  # fmt: skip
 
 
 def _observed_groups(
@@ -557,8 +581,8 @@ def _observed_groups(
     episode_params: EpisodeParams,
     dyad_params: DyadParams,
     run_params: RunParams,
-) -> tuple[GroupTally, pd.DataFrame, list, pd.DataFrame]:
-    """Return the group chain's tally, the episode table and paths, and the dyads.
+) -> tuple[GroupTally, pd.DataFrame, list, pd.DataFrame, pd.DataFrame]:
+    """Return the group chain's tally, the episode table and paths, the dyads and the objects.
 
     The dyads (whole-array numpy, which releases the interpreter lock) are
     counted in a helper thread while the episodes (mostly Python) are searched:
@@ -569,10 +593,10 @@ def _observed_groups(
         counting: list[Future] = []
 
         def count_dyads(pairs: NeighbourPairs, _motion: object) -> None:
-            counting.append(side.submit(dyad_table, snaps, pairs, dyad_params))
+            counting.append(side.submit(dyads_and_objects, snaps, pairs, dyad_params))
 
         tally = group_chain(snaps, grouping, episode_params, workers=run_params.threads,
                             before_search=count_dyads)  # fmt: skip
         table, centroids = episode_table(snaps, tally.episodes, tally.motion, grouping.min_speed,
                                          workers=run_params.threads)  # fmt: skip
-        return tally, table, centroids, counting[0].result()
+        return tally, table, centroids, *counting[0].result()

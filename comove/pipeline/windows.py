@@ -26,7 +26,14 @@ from comove.groups.chain import (
     chunk_timeline_and_keys,
     link_reach,
 )
-from comove.groups.dyads import DyadParams, DyadTally, TrackSamples, dyad_rows, expected_distances
+from comove.groups.dyads import (
+    DyadParams,
+    DyadTally,
+    TrackSamples,
+    dyad_rows,
+    expected_distances,
+    object_rows,
+)
 from comove.groups.episodes import EpisodeParams, Episodes, find_episodes
 from comove.groups.grouping import GroupParams, GroupTimeline
 from comove.groups.summary import EpisodeRows, episode_table
@@ -280,12 +287,13 @@ def _mine_window(shared: tuple[Windowed, ColocationParams], i: int) -> tuple:
 
 @dataclass
 class WindowedGroups:
-    """The episodes, episode table and centroid paths, and dyads of a run over windows."""
+    """The episodes, episode table and centroid paths, dyads and objects of a run over windows."""
 
     episodes: Episodes
     table: pd.DataFrame
     centroids: list
     dyads: pd.DataFrame
+    objects: pd.DataFrame
 
 
 def group_windows(
@@ -342,7 +350,8 @@ def group_windows(
         gathered = run.map(_gather_window, needed, "groups (De)", tasks=list(enumerate(before)))
     expected = expected_distances(TrackSamples.joined(run.counts, gathered), tally, cap)
     table, centroids = episode_table(run.shell, episodes, None, grouping.min_speed, rows=rows)
-    return WindowedGroups(episodes, table, centroids, dyad_rows(tally, run.shell, expected, cap))
+    return WindowedGroups(episodes, table, centroids, dyad_rows(tally, run.shell, expected, cap),
+                          object_rows(tally, run.shell))  # fmt: skip
 
 
 def _timeline_window(shared: tuple, i: int) -> tuple:

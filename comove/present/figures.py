@@ -845,3 +845,89 @@ def sweep_curves(
         notes.append(f"The {len(lead)} role sets with the highest time prevalence of "
                      f"{best.size:,} drawn.")  # fmt: skip
     return fig, " ".join(notes)
+
+
+#: Most objects drawn in the association network (the most associated).
+NETWORK_OBJECTS = 60
+#: Objects whose names are written beside their node when no more are drawn.
+NETWORK_LABELS = 40
+
+
+def association_network(
+    dyads: pd.DataFrame, column: str = "half_weight_index", max_objects: int = NETWORK_OBJECTS
+) -> tuple[Figure, str]:
+    """Return the association network of the most associated objects, drawn with a spring layout.
+
+    Parameters
+    ----------
+    dyads : DataFrame
+        ``dyads.csv``: ``object_a``, ``object_b``, ``role_a``, ``role_b`` and ``column``.
+    column : str, default "half_weight_index"
+        The index that weighs the layout and sets each edge's width.
+    max_objects : int
+        Most objects drawn: those with the largest sum of the index over their pairs.
+
+    Returns
+    -------
+    Figure, str
+        The figure and a note for its caption.
+
+    Notes
+    -----
+    Fruchterman–Reingold force-directed placement (``networkx.spring_layout``,
+    edges pulling by the index, a fixed seed so that a report draws the same
+    picture twice); nodes coloured by their role (the palette in the order of
+    the role names, grey beyond it); edge width grows with the index.
+
+    References
+    ----------
+    .. [1] T. M. J. Fruchterman, E. M. Reingold, "Graph drawing by force-directed
+       placement", Software: Practice and Experience 21(11), 1129-1164, 1991.
+       doi:10.1002/spe.4380211102
+    """
+    import networkx as nx
+
+    weight = dyads[column].to_numpy(dtype="float64")
+    a, b = dyads["object_a"].astype(str).to_numpy(), dyads["object_b"].astype(str).to_numpy()
+    linked = np.nan_to_num(weight) > 0
+    strength = pd.Series(np.concatenate([np.nan_to_num(weight)] * 2), index=np.concatenate([a, b]))
+    strength = strength.groupby(level=0).sum()
+    keep = set(strength[strength > 0].nlargest(max_objects).index)
+    drawn = linked & np.isin(a, list(keep)) & np.isin(b, list(keep))
+    ends = np.concatenate([a, b])
+    ends_role = np.concatenate([dyads["role_a"].astype(str), dyads["role_b"].astype(str)])
+    role_of = dict(zip(ends, ends_role, strict=True))
+    graph = nx.Graph()
+    graph.add_nodes_from(sorted(keep))
+    graph.add_weighted_edges_from(zip(a[drawn], b[drawn], weight[drawn], strict=True))
+    position = nx.spring_layout(graph, weight="weight", seed=7) if len(graph) else {}
+    roles = sorted({role_of[n] for n in graph})
+    colour = {r: PALETTE[k] if k < len(PALETTE) else MUTED for k, r in enumerate(roles)}
+    with style():
+        fig = _figure(6.4)
+        ax = fig.add_subplot()
+        for u, v, w in graph.edges(data="weight"):
+            (x0, y0), (x1, y1) = position[u], position[v]
+            ax.plot([x0, x1], [y0, y1], color=INK, alpha=0.25 + 0.5 * w, linewidth=0.4 + 3.6 * w,
+                    zorder=1, solid_capstyle="round")  # fmt: skip
+        for role in roles:
+            nodes = [n for n in graph if role_of[n] == role]
+            xy = np.array([position[n] for n in nodes])
+            ax.scatter(xy[:, 0], xy[:, 1], s=60, color=colour[role], edgecolors="white",
+                       linewidths=0.8, zorder=2, label=plain_text(role, 40))  # fmt: skip
+        if len(graph) <= NETWORK_LABELS:
+            for n, (x, y) in position.items():
+                ax.annotate(plain_text(n, 16), (x, y), xytext=(4, 4), textcoords="offset points",
+                            fontsize=7, color=INK, zorder=3)  # fmt: skip
+        ax.set_axis_off()
+        ax.set_title("Association network: objects pulled together by their half-weight index")
+        if roles:
+            fig.legend(loc="outside lower center", ncols=min(4, len(roles)), title="role")
+    note = (
+        f"All {count_of(len(keep), 'associated object')}."
+        if len(keep) == strength.gt(0).sum()
+        else f"The {len(keep)} most associated of {int(strength.gt(0).sum()):,} objects."
+    )
+    if len(roles) > len(PALETTE):
+        note += f" Roles beyond the first {len(PALETTE)} by name are grey."
+    return fig, note

@@ -526,9 +526,22 @@ def _dyad_section(res: _Results) -> tuple[str, list[_Picture]]:
         for _, r in strongest.iterrows()
     ]  # fmt: skip
     table = _table(["object a", "object b", "half-weight index", "time together"], rows, {2})
+    network, drawn = figures.association_network(dyads)
+    web = _Picture(
+        "association_network",
+        figures.to_png(network),
+        "Association network of the most associated objects",
+        "Objects placed by a force-directed layout in which pairs pull by their half-weight "
+        "index, so objects often together end up close; edge width grows with the index, "
+        f"colour: the object's role. {drawn} The whole network is in association.graphml.",
+    )
     return (
-        "<h2>Dyad association</h2>\n" + _figure_html(pic) + "<h3>Strongest pairs</h3>" + table,
-        [pic],
+        "<h2>Dyad association</h2>\n"
+        + _figure_html(pic)
+        + "<h3>Strongest pairs</h3>"
+        + table
+        + _figure_html(web),
+        [pic, web],
     )
 
 

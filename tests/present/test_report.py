@@ -142,7 +142,7 @@ def check_report(folder, report, figure_names: set[str]) -> Page:
     return page
 
 
-ALL_FIGURES = {"patterns_pi", "track_map", "episode_timeline", "dyad_matrix"}
+ALL_FIGURES = {"patterns_pi", "track_map", "episode_timeline", "dyad_matrix", "association_network"}
 
 
 def test_game_report_has_every_section(built):
@@ -172,7 +172,7 @@ def test_mine_only_and_groups_only_folders(tmp_path):
     gopts = {k: v for k, v in options.items() if k in GROUP_KEYS}
     groups(source, replicates=0, **gopts).write(tmp_path / "g")
     page = check_report(tmp_path / "g", build_report(tmp_path / "g"),
-                        {"track_map", "episode_timeline", "dyad_matrix"})  # fmt: skip
+                        ALL_FIGURES - {"patterns_pi"})  # fmt: skip
     assert PATTERNS not in page.h2
 
 
