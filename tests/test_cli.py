@@ -142,7 +142,8 @@ def test_groups_writes_episodes_dyads_and_paths(tracks_csv, tmp_path, capsys):
     assert sorted(p.name for p in out_dir.iterdir()) == [
         MANIFEST, "association.graphml", "association_edges.csv", "dyads.csv",
         "episode_paths.geojson", "episode_paths.parquet",
-        "episode_roles.csv", "episodes.csv", "quality.json", "run.json", "track_sample.parquet",
+        "episode_roles.csv", "episodes.csv", "leadership.csv", "leadership_roles.csv",
+        "quality.json", "run.json", "track_sample.parquet",
     ]  # fmt: skip
     episodes = pd.read_csv(out_dir / "episodes.csv")
     # each dog walks beside its owner for the whole minute; the cat sits apart

@@ -41,6 +41,7 @@ from comove.groups.grouping import (
     linked_pairs,
     snapshot_groups,
 )
+from comove.groups.leadership import LeadTally, lead_tally
 from comove.groups.summary import EpisodeRows, episode_rows
 from comove.tracks.alignment import Snapshots
 from comove.tracks.motion import Motion, entry_motion, half_window_snapshots
@@ -263,6 +264,23 @@ def chunk_episode_rows(
     chunk, motion = _chunk_motion(snaps, start, stop, grouping, workers)
     offset = max(int(start), 0) if offset is None else int(offset)
     return episode_rows(chunk, episodes, motion, grouping.min_speed, offset=offset, workers=workers)
+
+
+def chunk_lead_tally(
+    snaps: Snapshots, start: int, stop: int, grouping: GroupParams, lags: int, workers: int = 1
+) -> LeadTally:
+    """Return the heading correlations per pair and delay of snapshots ``start`` to ``stop - 1``.
+
+    The pairs together at those snapshots count; the partner's heading is read
+    up to ``lags`` snapshots beyond, with velocities as in the whole run, so
+    that the tallies of consecutive chunks joined (:meth:`LeadTally.then`)
+    equal the whole run's.
+    """
+    chunk, motion = _chunk_motion(snaps, start - lags, stop + lags, grouping, workers)
+    own = snaps.first_index + max(int(start), 0) - chunk.first_index
+    pairs = neighbour_pairs(chunk, grouping.radius, workers=workers)
+    width = min(int(stop), snaps.n_snapshots) - max(int(start), 0)
+    return lead_tally(chunk, motion, pairs, grouping.min_speed, lags, span=(own, own + width))
 
 
 def _chunk_motion(

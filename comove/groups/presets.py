@@ -69,6 +69,7 @@ PRESETS: dict[str, Preset] = {
                 "nearest": 3,
                 "min_abreast": 15.0,
                 "standing": "ignored",
+                "max_delay": 2.0,
             },
             why={
                 **_SHARED_WHY,
@@ -102,6 +103,8 @@ PRESETS: dict[str, Preset] = {
                 "strangers in a stream one behind another; a follower straight behind appears "
                 "within about 10 degrees of the line of walking (half a 0.45 m shoulder "
                 "breadth at 1.2 m) plus a few degrees of sway, hence 15 (common practice)",
+                "max_delay": "2 s: a walker follows a companion's turn within a step "
+                "or two (about 1 s), so twice that covers it (common practice)",
                 "standing": "ignored: people standing or queueing keep personal distances "
                 "from strangers too (Hall 1966), so nearness at rest is no evidence either way; "
                 "companions who stop keep the evidence of their walk",
@@ -127,6 +130,7 @@ PRESETS: dict[str, Preset] = {
                 "nearest": 3,
                 "min_abreast": None,
                 "standing": "together",
+                "max_delay": 2.0,
             },
             why={
                 **_SHARED_WHY,
@@ -149,6 +153,8 @@ PRESETS: dict[str, Preset] = {
                 "nearest": "in a crowded penalty area close means closer than the other "
                 "players: each among the other's three nearest (common practice)",
                 "min_abreast": "off: players run in file as often as abreast",
+                "max_delay": "2 s: a player reacts to a teammate's or an opponent's run "
+                "within about a second (common practice)",
                 "standing": "together: a marker stays with a forward whether both run, jog or "
                 "stand, and stoppages are short against the window; the three-nearest rule "
                 "keeps a crowded set piece from linking everyone (common practice)",
@@ -174,6 +180,7 @@ PRESETS: dict[str, Preset] = {
                 "nearest": 3,
                 "min_abreast": None,
                 "standing": "apart",
+                "max_delay": 120.0,
             },
             why={
                 **_SHARED_WHY,
@@ -194,6 +201,8 @@ PRESETS: dict[str, Preset] = {
                 "among the other's three nearest, the vehicles ahead and behind and one "
                 "alongside (common practice)",
                 "min_abreast": "off: convoys drive in file",
+                "max_delay": "2 minutes: a following vehicle takes the same turn a few headways "
+                "later (common practice)",
                 "standing": "apart: vehicles queueing at lights or parked are not a convoy, and "
                 "a queue moving off in file would otherwise look like one",
             },
@@ -218,6 +227,7 @@ PRESETS: dict[str, Preset] = {
                 "nearest": 3,
                 "min_abreast": None,
                 "standing": "apart",
+                "max_delay": 1800.0,
             },
             why={
                 **_SHARED_WHY,
@@ -245,6 +255,8 @@ PRESETS: dict[str, Preset] = {
                 "nearest": "in a busy channel close means closer than the other ships: each "
                 "among the other's three nearest (common practice)",
                 "min_abreast": "off: ships in company sail in line ahead as often as abreast",
+                "max_delay": "30 minutes: a ship in convoy turns where the ship ahead "
+                "turned, a few nautical miles later at 10–15 knots (common practice)",
                 "standing": "apart: ships at anchor or moored side by side are not sailing "
                 "together",
             },
@@ -269,6 +281,7 @@ PRESETS: dict[str, Preset] = {
                 "nearest": 0,
                 "min_abreast": None,
                 "standing": "together",
+                "max_delay": 6 * 3600.0,
             },
             why={
                 **_SHARED_WHY,
@@ -289,6 +302,8 @@ PRESETS: dict[str, Preset] = {
                 "evidence_share": "together more often than not (common practice)",
                 "nearest": "off: a herd is a group, so every animal near is a companion",
                 "min_abreast": "off: no headings between hourly fixes",
+                "max_delay": "6 hours: a few GPS fixes; herd members set off after an initiator "
+                "within hours at collar rates (common practice)",
                 "standing": "together: resting together is association for animals",
             },
         ),

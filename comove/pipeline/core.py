@@ -30,6 +30,7 @@ from comove.groups.chain import GroupTally, group_chain
 from comove.groups.dyads import DyadParams, dyads_and_objects
 from comove.groups.episodes import EpisodeParams
 from comove.groups.grouping import GroupParams
+from comove.groups.leadership import LeadershipParams, leadership
 from comove.groups.presets import preset_subject, preset_values
 from comove.groups.summary import episode_paths, episode_table, role_rollup
 from comove.io.projection import working_to_input
@@ -75,6 +76,7 @@ from comove.tracks.alignment import (
     track_sample,
 )
 from comove.tracks.cleaning import CleanParams, clean_fixes
+from comove.tracks.motion import Motion
 from comove.tracks.neighbours import NeighbourPairs
 from comove.tracks.streaming import WindowParams, plan_windows
 
@@ -87,7 +89,7 @@ MINE_STAGES: tuple[type, ...] = (
 #: The stage settings of ``groups``, in pipeline order.
 GROUP_STAGES: tuple[type, ...] = (
     ColumnSpec, CleanParams, AlignParams, GroupParams, EpisodeParams, DyadParams,
-    SignificanceParams, WindowParams, RunParams,
+    LeadershipParams, SignificanceParams, WindowParams, RunParams,
 )  # fmt: skip
 
 
@@ -396,6 +398,10 @@ class GroupsResult:
         One row per object present: its main role and time present
         (:func:`comove.groups.dyads.object_rows`); with the dyads, the
         association network.
+    leaders, leader_roles : DataFrame
+        Who leads whom: the directional correlation delay of every pair that
+        moves together long enough, and its roll-up by role pair
+        (:func:`comove.groups.leadership.leadership_tables`).
     paths : GeoDataFrame
         The centroid path of each episode as a LineString, in the input's CRS
         (lon/lat input gives lon/lat paths; planar input has no CRS), one
@@ -414,6 +420,8 @@ class GroupsResult:
     roles: pd.DataFrame
     dyads: pd.DataFrame
     objects: pd.DataFrame
+    leaders: pd.DataFrame
+    leader_roles: pd.DataFrame
     paths: Any
     display_paths: Any
     quality: dict
@@ -430,8 +438,9 @@ class GroupsResult:
         Files: ``episodes.csv``, ``episode_roles.csv``, ``dyads.csv``,
         ``association.graphml`` (objects as nodes, dyads as edges, every
         column an attribute) and ``association_edges.csv`` (source, target,
-        half-weight index as weight), ``track_sample.parquet`` (thinned
-        positions for maps),
+        half-weight index as weight), ``leadership.csv`` and
+        ``leadership_roles.csv`` (who leads whom), ``track_sample.parquet``
+        (thinned positions for maps),
         ``episode_paths.parquet`` (GeoParquet, every snapshot),
         ``episode_paths.geojson`` (thinned for viewing),
         ``quality.json`` and ``run.json``.
@@ -447,6 +456,8 @@ class GroupsResult:
                     self.objects, "object", self.dyads, "object_a", "object_b"
                 ),
                 "association_edges.csv": csv_writer(association_edges(self.dyads)),
+                "leadership.csv": csv_writer(self.leaders),
+                "leadership_roles.csv": csv_writer(self.leader_roles),
                 "episode_paths.parquet": geoparquet_writer(self.paths),
                 "episode_paths.geojson": geojson_writer(self.display_paths),
                 "quality.json": json_writer(self.quality),
@@ -513,30 +524,29 @@ def groups(
     if merged.get("radius") is None:
         raise bad_setting("radius", "is required: give it in metres, or a preset that sets one")
     stages = split_options(GROUP_STAGES, merged)
-    columns, cleaning, alignment, grouping, episode_params, dyad_params, significance = stages[:7]
-    window_params, run_params = stages[7], stages[8].resolved()
+    columns, cleaning, alignment, grouping, episode_params, dyad_params = stages[:6]
+    lead_params, significance, window_params = stages[6:9]
+    run_params = stages[9].resolved()
     plan = _plan(source, columns, window_params, run_params, significance)
     bar = _Progress(progress, total=6 if significance.replicates > 0 else 5)
     digest = _digest_beside(source)
     try:
         if plan is not None:
-            snaps, quality, sample, table, centroids, dyads, objects = _group_windows(
+            snaps, quality, sample, found = _group_windows(
                 source, stages, plan, run_params, progress)  # fmt: skip
         else:
             snaps, quality, sample = _aligned(source, columns, cleaning, alignment, bar,
                                               run_params.threads)  # fmt: skip
-            with bar.stage("groups, episodes and dyads"):
-                tally, table, centroids, dyads, objects = _observed_groups(
-                    snaps, grouping, episode_params, dyad_params, run_params
-                )
+            with bar.stage("groups, episodes, dyads and leaders"):
+                found = _observed_groups(snaps, stages, run_params)
         with bar.stage("paths"):
-            paths, display = episode_paths(snaps, table, centroids)
-        roles = role_rollup(table)
+            paths, display = episode_paths(snaps, found.table, found.centroids)
+        roles, dyads = role_rollup(found.table), found.dyads
         if significance.replicates > 0:
             with bar.stage("significance"):
                 pair_tests, role_tests = group_tests(
-                    snaps, tally, dyads, table["roles"], grouping, episode_params, significance,
-                    run_params, progress,
+                    snaps, found.tally, dyads, found.table["roles"], grouping, episode_params,
+                    significance, run_params, progress,
                 )  # fmt: skip
             if pair_tests is not None:
                 dyads = dyads.merge(pair_tests, on=["object_a", "object_b"], how="left",
@@ -545,13 +555,14 @@ def groups(
                                 how="left", validate="1:1")  # fmt: skip
     finally:
         bar.close()
-    settings = settings_record(columns, cleaning, _effective(snaps), *stages[3:8], run_params)
+    settings = settings_record(columns, cleaning, _effective(snaps), *stages[3:9], run_params)
     run = run_record("groups", source, settings,
                      extra={"preset": preset, "caution": caution_for(preset_subject(preset)),
                             **_windows_note(plan)},
                      digest=digest.result())  # fmt: skip
-    return GroupsResult(table, roles, dyads, objects, paths, display, quality, run, snaps,
-                        centroids, sample)  # fmt: skip
+    return GroupsResult(found.table, roles, dyads, found.objects, found.leaders,
+                        found.leader_roles, paths, display, quality, run, snaps, found.centroids,
+                        sample)  # fmt: skip
 
 
 def association_edges(dyads: pd.DataFrame) -> pd.DataFrame:
@@ -567,36 +578,52 @@ def association_edges(dyads: pd.DataFrame) -> pd.DataFrame:
 def _group_windows(source: Any, stages: list, plan: tuple[int, int | None],
                    run_params: RunParams, progress: bool) -> tuple:  # fmt: skip
     """Return what ``groups`` needs of a run over time windows."""
-    columns, cleaning, alignment, grouping, episode_params, dyad_params = stages[:6]
-    with windowed_tracks(source, columns, cleaning, alignment, plan, stages[7].scratch,
+    columns, cleaning, alignment, grouping, episode_params, dyad_params, lead = stages[:7]
+    with windowed_tracks(source, columns, cleaning, alignment, plan, stages[8].scratch,
                          run_params, progress) as run:  # fmt: skip
-        found = group_windows(run, grouping, episode_params, dyad_params)
-        return (run.shell, run.quality(), run.sample(), found.table, found.centroids, found.dyads,
-                found.objects)  # fmt: skip
+        found = group_windows(run, grouping, episode_params, dyad_params, lead)
+        leaders, leader_roles = found.leaders
+        return (
+            run.shell,
+            run.quality(),
+            run.sample(),
+            _Found(found.table, found.centroids, found.dyads, found.objects, leaders, leader_roles),
+        )
 
 
-def _observed_groups(
-    snaps: Snapshots,
-    grouping: GroupParams,
-    episode_params: EpisodeParams,
-    dyad_params: DyadParams,
-    run_params: RunParams,
-) -> tuple[GroupTally, pd.DataFrame, list, pd.DataFrame, pd.DataFrame]:
-    """Return the group chain's tally, the episode table and paths, the dyads and the objects.
+@dataclass
+class _Found:
+    """What ``groups`` finds before the tests: episodes, dyads, objects and leaders."""
 
-    The dyads (whole-array numpy, which releases the interpreter lock) are
-    counted in a helper thread while the episodes (mostly Python) are searched:
-    both only read the snapshots and pairs, so the results are those of one
-    after the other.
+    table: pd.DataFrame
+    centroids: list
+    dyads: pd.DataFrame
+    objects: pd.DataFrame
+    leaders: pd.DataFrame
+    leader_roles: pd.DataFrame
+    tally: GroupTally | None = None
+
+
+def _observed_groups(snaps: Snapshots, stages: list, run_params: RunParams) -> _Found:
+    """Return the episode table and paths, the dyads, objects and leaders, and the chain's tally.
+
+    The dyads and then the leaders (whole-array numpy, which releases the
+    interpreter lock) are counted in a helper thread while the episodes (mostly
+    Python) are searched: all only read the snapshots, pairs and velocities, so
+    the results are those of one after the other.
     """
+    grouping, episode_params, dyad_params, lead_params = stages[3:7]
     with ThreadPoolExecutor(max_workers=1) as side:
         counting: list[Future] = []
 
-        def count_dyads(pairs: NeighbourPairs, _motion: object) -> None:
+        def count_dyads(pairs: NeighbourPairs, motion: Motion) -> None:
             counting.append(side.submit(dyads_and_objects, snaps, pairs, dyad_params))
+            counting.append(side.submit(leadership, snaps, motion, pairs, grouping.min_speed,
+                                        lead_params))  # fmt: skip
 
         tally = group_chain(snaps, grouping, episode_params, workers=run_params.threads,
                             before_search=count_dyads)  # fmt: skip
         table, centroids = episode_table(snaps, tally.episodes, tally.motion, grouping.min_speed,
                                          workers=run_params.threads)  # fmt: skip
-        return tally, table, centroids, *counting[0].result()
+        dyads, leaders = (done.result() for done in counting)
+        return _Found(table, centroids, *dyads, *leaders, tally=tally)

@@ -23,6 +23,7 @@ from comove.errors import bad_setting
 from comove.groups.chain import (
     chunk_dyads,
     chunk_episode_rows,
+    chunk_lead_tally,
     chunk_timeline_and_keys,
     link_reach,
 )
@@ -36,6 +37,7 @@ from comove.groups.dyads import (
 )
 from comove.groups.episodes import EpisodeParams, Episodes, find_episodes
 from comove.groups.grouping import GroupParams, GroupTimeline
+from comove.groups.leadership import LeadershipParams, LeadTally, leadership_tables
 from comove.groups.summary import EpisodeRows, episode_table
 from comove.io.projection import working_to_input
 from comove.io.reading import ColumnSpec
@@ -294,6 +296,7 @@ class WindowedGroups:
     centroids: list
     dyads: pd.DataFrame
     objects: pd.DataFrame
+    leaders: tuple[pd.DataFrame, pd.DataFrame]
 
 
 def group_windows(
@@ -301,6 +304,7 @@ def group_windows(
     grouping: GroupParams,
     episode_params: EpisodeParams,
     dyad_params: DyadParams,
+    lead_params: LeadershipParams,
 ) -> WindowedGroups:
     """Return the episodes, episode table and dyads of the whole run, window by window.
 
@@ -310,7 +314,8 @@ def group_windows(
     the episodes: each window's dyad counts of those pairs and the positions
     De reads. Pass three: each window's episode rows. With
     ``dyad_pairs="co-present"`` the pairs are known only after pass two, and
-    a fourth pass reads De's positions.
+    a fourth pass reads De's positions. A last pass counts each window's
+    heading correlations for the leadership table.
     """
     # context each side: the velocity window's, and the evidence window's around it
     reach = (half_window_snapshots(grouping.velocity_window, run.shell.step_s)
@@ -350,8 +355,11 @@ def group_windows(
         gathered = run.map(_gather_window, needed, "groups (De)", tasks=list(enumerate(before)))
     expected = expected_distances(TrackSamples.joined(run.counts, gathered), tally, cap)
     table, centroids = episode_table(run.shell, episodes, None, grouping.min_speed, rows=rows)
+    lags = lead_params.lags(run.shell.step_s)
+    leads = run.map(_lead_window, (grouping, lags), "groups (leaders)")
+    leaders = leadership_tables(reduce(LeadTally.then, leads), run.shell, lead_params)
     return WindowedGroups(episodes, table, centroids, dyad_rows(tally, run.shell, expected, cap),
-                          object_rows(tally, run.shell))  # fmt: skip
+                          object_rows(tally, run.shell), leaders)  # fmt: skip
 
 
 def _timeline_window(shared: tuple, i: int) -> tuple:
@@ -401,6 +409,17 @@ def _rows_window(shared: tuple, i: int) -> EpisodeRows:
     del outer
     release_memory()
     return rows
+
+
+def _lead_window(shared: tuple, i: int) -> LeadTally:
+    """Return window ``i``'s heading correlations per pair and delay (a task of ``groups``)."""
+    run, (grouping, lags) = shared
+    reach = half_window_snapshots(grouping.velocity_window, run.shell.step_s)
+    outer, start, stop = run.outer(i, lags + reach)
+    tally = chunk_lead_tally(outer, start, stop, grouping, lags, run.threads)
+    del outer
+    release_memory()
+    return tally
 
 
 def _gather_window(shared: tuple, task: tuple[int, np.ndarray]) -> tuple:

@@ -1,0 +1,177 @@
+"""Who leads whom: planted delays recovered, a loop over pairs and delays, chunks joined."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+from scenes import random_walkers
+
+from comove.errors import ComoveNote
+from comove.groups.chain import chunk_lead_tally
+from comove.groups.grouping import GroupParams
+from comove.groups.leadership import (
+    FIXED_BITS,
+    MAX_LAGS,
+    LeadershipParams,
+    lead_tally,
+    leadership,
+    peak_delays,
+)
+from comove.io.reading import read_tracks
+from comove.pipeline.core import groups
+from comove.tracks.alignment import AlignParams, align
+from comove.tracks.cleaning import clean_fixes
+from comove.tracks.motion import entry_motion
+from comove.tracks.neighbours import neighbour_pairs
+
+STEP = 0.1
+
+
+def wandering_path(rng: np.random.Generator, n: int, speed: float = 1.5) -> np.ndarray:
+    """Return (n, 2) positions of a walker turning smoothly at random, STEP s apart."""
+    heading = np.cumsum(rng.normal(0.0, 0.08, n))
+    return np.cumsum(speed * STEP * np.column_stack([np.cos(heading), np.sin(heading)]), axis=0)
+
+
+def planted_scene(seed: int = 1, n: int = 3000) -> pd.DataFrame:
+    """A guide, two followers walking the guide's path 0.7 s and 1.2 s later, and a twin.
+
+    The followers walk where the guide walked (beside the path), so their
+    headings are the guide's, ``delay`` later; the twin walks beside the guide
+    at the same time, with no lead either way.
+    """
+    rng = np.random.default_rng(seed)
+    margin = 50
+    path = wandering_path(rng, n + margin)
+    t = np.arange(n) * STEP
+    walkers = {
+        "guide": (path[margin:], "leader"),
+        "late7": (path[margin - 7 : margin - 7 + n] + [0.6, 0.0], "follower"),
+        "late12": (path[margin - 12 : margin - 12 + n] + [0.0, 0.6], "follower"),
+        "twin": (path[margin:] + [-0.5, 0.3], "follower"),
+    }
+    return pd.concat(
+        pd.DataFrame({"id": name, "time": t, "x": xy[:, 0], "y": xy[:, 1], "role": role})
+        for name, (xy, role) in walkers.items()
+    )
+
+
+def test_planted_delays_are_recovered_within_one_snapshot_and_the_leader_named():
+    result = groups(planted_scene(), radius=3.0, step=STEP, links="snapshot", replicates=0,
+                    max_delay=2.0)  # fmt: skip
+    table = result.leaders.set_index(["leader", "follower"])
+    for follower, delay in (("late7", 0.7), ("late12", 1.2)):
+        row = table.loc[("guide", follower)]
+        assert bool(row["clear_leader"])
+        assert abs(row["delay_s"] - delay) <= STEP
+        assert row["correlation"] > 0.95
+    # the two followers: the one 0.7 s behind leads the one 1.2 s behind by 0.5 s
+    assert abs(table.loc[("late7", "late12"), "delay_s"] - 0.5) <= STEP
+    # side by side: no clear leader
+    rows = result.leaders
+    ends = rows["leader"] + "," + rows["follower"]
+    guide_twin = rows[ends.isin(["guide,twin", "twin,guide"])].iloc[0]
+    assert not guide_twin["clear_leader"] and guide_twin["delay_s"] < 0.5 * STEP
+    roles = result.leader_roles.set_index(["leader_role", "follower_role"])
+    assert roles.loc[("leader", "follower"), "pairs"] == 2
+
+
+def loop_correlations(snaps, motion, pairs, min_speed, lags):
+    """C_ab(τ) by a plain loop over pairs, snapshots and delays (Nagy et al. 2010)."""
+    where = {
+        (int(o), int(s)): e for e, (o, s) in enumerate(zip(snaps.obj, snaps.snap, strict=True))
+    }
+    speed = np.hypot(motion.vx, motion.vy)
+    out: dict[tuple[int, int], dict[int, list[float]]] = {}
+    for i, j in zip(pairs.i, pairs.j, strict=True):
+        if not (speed[i] > min_speed and speed[j] > min_speed):
+            continue
+        ea, eb = (i, j) if snaps.obj[i] < snaps.obj[j] else (j, i)
+        a, b, t = int(snaps.obj[ea]), int(snaps.obj[eb]), int(snaps.snap[ea])
+        for tau in range(-lags, lags + 1):
+            e = where.get((b, t + tau))
+            if e is None or not speed[e] > min_speed:
+                continue
+            dot = (motion.vx[ea] * motion.vx[e] + motion.vy[ea] * motion.vy[e]) / (
+                speed[ea] * speed[e]
+            )
+            out.setdefault((a, b), {}).setdefault(tau, []).append(dot)
+    return out
+
+
+def random_scene(seed: int, n_obj: int = 6, n_snap: int = 50):
+    rng = np.random.default_rng(seed)
+    x, y, present = random_walkers(rng, n_obj, n_snap)
+    frame = pd.DataFrame({
+        "id": np.tile(np.arange(n_obj), n_snap).astype(str),
+        "time": np.repeat(np.arange(n_snap), n_obj),
+        "x": x.ravel(), "y": y.ravel(), "role": np.tile(np.arange(n_obj) % 2, n_snap).astype(str),
+    })[present.ravel()]  # fmt: skip
+    return align(clean_fixes(read_tracks(frame))[0], AlignParams(step=1.0, max_gap=2.0))
+
+
+@settings(max_examples=20, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(seed=st.integers(0, 10_000), lags=st.integers(0, 4))
+def test_correlations_equal_a_loop_over_pairs_and_delays(seed, lags):
+    snaps = random_scene(seed)
+    motion = entry_motion(snaps, 2.0)
+    pairs = neighbour_pairs(snaps, 4.0)
+    tally = lead_tally(snaps, motion, pairs, 0.1, lags)
+    expected = loop_correlations(snaps, motion, pairs, 0.1, lags)
+    keys = [(int(k) // len(snaps.objects), int(k) % len(snaps.objects)) for k in tally.key]
+    assert sorted(keys) == sorted(expected)
+    for row, pair in enumerate(keys):
+        for k, tau in enumerate(range(-lags, lags + 1)):
+            values = expected[pair].get(tau, [])
+            assert tally.counts[row, k] == len(values)
+            if values:  # summed as integers of 2**-32: within half a unit per term
+                assert (
+                    abs(tally.sums[row, k] / 2.0**FIXED_BITS - sum(values))
+                    <= len(values) * 2.0**-32
+                )
+
+
+def test_peak_delay_prefers_zero_on_ties_and_refines_between_snapshots():
+    sums = np.array([[1.0, 2.0, 2.0, 2.0, 1.0], [0.0, 0.5, 0.8, 1.0, 0.9]]) * 2.0**FIXED_BITS
+    counts = np.ones_like(sums)
+    delay, peak = peak_delays(sums, counts, 2)
+    assert delay[0] == 0.0 and peak[0] == 2.0
+    # parabola through (0, 0.8), (1, 1.0), (2, 0.9): vertex at 1 + 0.5 * (0.8 - 0.9) / -0.3
+    assert delay[1] == pytest.approx(1 + 1 / 6)
+
+
+@settings(max_examples=15, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(seed=st.integers(0, 10_000), lags=st.integers(1, 3), data=st.data())
+def test_tallies_of_chunks_joined_equal_the_whole_run(seed, lags, data):
+    snaps = random_scene(seed, n_snap=40)
+    grouping = GroupParams(radius=4.0, velocity_window=2.0, min_speed=0.1)
+    whole = lead_tally(snaps, entry_motion(snaps, 2.0), neighbour_pairs(snaps, 4.0), 0.1, lags)
+    cuts = sorted(data.draw(st.sets(st.integers(1, snaps.n_snapshots - 1), max_size=4)))
+    edges = [0, *cuts, snaps.n_snapshots]
+    spans = zip(edges[:-1], edges[1:], strict=True)
+    parts = [chunk_lead_tally(snaps, a, b, grouping, lags) for a, b in spans]
+    joined = parts[0]
+    for part in parts[1:]:
+        joined = joined.then(part)
+    np.testing.assert_array_equal(joined.key, whole.key)
+    for name in ("sums", "counts", "moving", "role_key", "role_count"):
+        np.testing.assert_array_equal(getattr(joined, name), getattr(whole, name), err_msg=name)
+
+
+def test_pairs_moving_together_too_briefly_are_not_judged():
+    frame = planted_scene(n=300)  # 30 s together
+    snaps = align(clean_fixes(read_tracks(frame))[0], AlignParams(step=STEP, max_gap=0.2))
+    motion, pairs = entry_motion(snaps, 1.0), neighbour_pairs(snaps, 3.0)
+    kept, _ = leadership(snaps, motion, pairs, 0.3, LeadershipParams(max_delay=1.0))
+    assert len(kept) == 6  # every pair of the four, 30 s against the 10 s least time
+    none, roles = leadership(snaps, motion, pairs, 0.3,
+                             LeadershipParams(max_delay=1.0, min_moving_together=60.0))  # fmt: skip
+    assert none.empty and roles.empty and list(none.columns) == list(kept.columns)
+
+
+def test_a_delay_beyond_the_limit_is_looked_at_up_to_it_with_a_note():
+    with pytest.warns(ComoveNote, match="--max-delay is 2,000 snapshots; delays up to 1,000"):
+        assert LeadershipParams(max_delay=200.0).lags(0.1) == MAX_LAGS
