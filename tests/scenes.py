@@ -8,6 +8,7 @@ from pathlib import Path
 
 import networkx as nx
 import numpy as np
+import pandas as pd
 
 from comove.io.scenarios import SCENARIOS_DIR, load_truth
 from comove.pipeline import groups
@@ -211,3 +212,37 @@ def one_record(path) -> dict:
     records = by_command(json.loads(Path(path).read_text()))
     assert len(records) == 1, f"{path} holds the records of {sorted(records)}"
     return next(iter(records.values()))
+
+
+#: Snapshot step of :func:`planted_leads`, seconds.
+LEAD_STEP = 0.1
+
+
+def wandering_path(rng: np.random.Generator, n: int, speed: float = 1.5) -> np.ndarray:
+    """Return (n, 2) positions of a walker turning smoothly at random, LEAD_STEP s apart."""
+    heading = np.cumsum(rng.normal(0.0, 0.08, n))
+    velocity = speed * np.column_stack([np.cos(heading), np.sin(heading)])
+    return np.cumsum(velocity * LEAD_STEP, axis=0)
+
+
+def planted_leads(seed: int = 1, n: int = 3000) -> pd.DataFrame:
+    """A guide, two followers walking the guide's path 0.7 s and 1.2 s later, and a twin.
+
+    The followers walk where the guide walked (beside the path), so their
+    headings are the guide's, ``delay`` later; the twin walks beside the guide
+    at the same time, with no lead either way.
+    """
+    rng = np.random.default_rng(seed)
+    margin = 50
+    path = wandering_path(rng, n + margin)
+    t = np.arange(n) * LEAD_STEP
+    walkers = {
+        "guide": (path[margin:], "leader"),
+        "late7": (path[margin - 7 : margin - 7 + n] + [0.6, 0.0], "follower"),
+        "late12": (path[margin - 12 : margin - 12 + n] + [0.0, 0.6], "follower"),
+        "twin": (path[margin:] + [-0.5, 0.3], "follower"),
+    }
+    return pd.concat(
+        pd.DataFrame({"id": name, "time": t, "x": xy[:, 0], "y": xy[:, 1], "role": role})
+        for name, (xy, role) in walkers.items()
+    )

@@ -931,3 +931,53 @@ def association_network(
     if len(roles) > len(PALETTE):
         note += f" Roles beyond the first {len(PALETTE)} by name are grey."
     return fig, note
+
+
+#: Most pairs drawn in the leadership figure.
+LEADERSHIP_PAIRS = 20
+
+
+def leadership_bars(leaders: pd.DataFrame, top: int = LEADERSHIP_PAIRS) -> tuple[Figure, str]:
+    """Return the delays of the pairs with a clear leader, one bar per pair.
+
+    Parameters
+    ----------
+    leaders : DataFrame
+        ``leadership.csv``: ``leader``, ``follower``, ``leader_role``,
+        ``delay_s``, ``correlation``, ``moving_together_s``, ``clear_leader``.
+    top : int
+        Most pairs drawn: the clear leads with the highest heading correlation.
+
+    Returns
+    -------
+    Figure, str
+        The figure and a note for its caption.
+    """
+    clear = leaders[leaders["clear_leader"].astype(bool)]
+    shown = clear.sort_values(["correlation", "delay_s"], ascending=False, kind="stable").head(top)
+    roles = sorted(shown["leader_role"].astype(str).unique())
+    colour = {r: PALETTE[k] if k < len(PALETTE) else MUTED for k, r in enumerate(roles)}
+    with style():
+        fig = _figure(max(2.4, 1.2 + 0.28 * len(shown)))
+        ax = fig.add_subplot()
+        y = np.arange(len(shown))[::-1]
+        for role in roles:
+            rows = shown["leader_role"].astype(str).to_numpy() == role
+            ax.barh(y[rows], shown["delay_s"].to_numpy(dtype="float64")[rows], height=0.7,
+                    color=colour[role], label=plain_text(role, 40))  # fmt: skip
+        labels = [plain_text(f"{a} → {b}", 40)
+                  for a, b in zip(shown["leader"], shown["follower"], strict=True)]  # fmt: skip
+        ax.set_yticks(y, labels)
+        for yy, (delay, corr) in zip(y, zip(shown["delay_s"], shown["correlation"], strict=True),
+                                     strict=True):  # fmt: skip
+            ax.annotate(f"r = {corr:.2f}", (delay, yy), xytext=(3, 0), textcoords="offset points",
+                        va="center", fontsize=7, color=INK)  # fmt: skip
+        ax.set_xlabel("delay of the follower's heading behind the leader's (s)")
+        ax.set_title("Who leads whom: pairs with a clear leader, leader → follower")
+        if roles:
+            fig.legend(loc="outside lower center", ncols=min(4, len(roles)), title="leader's role")
+    note = (f"The {len(shown)} clear leads with the highest heading correlation of "
+            f"{count_of(len(clear), 'pair')} with a clear leader."
+            if len(clear) > len(shown) else f"All {count_of(len(clear), 'pair')} with a clear "
+            "leader.")  # fmt: skip
+    return fig, note

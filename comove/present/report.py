@@ -92,6 +92,8 @@ class _Results:
     episodes: pd.DataFrame | None = None
     dyads: pd.DataFrame | None = None
     sweep: pd.DataFrame | None = None
+    leaders: pd.DataFrame | None = None
+    leader_roles: pd.DataFrame | None = None
 
 
 def _load(source: ResultsFolder) -> _Results:
@@ -104,6 +106,8 @@ def _load(source: ResultsFolder) -> _Results:
     res.episodes = source.table("episodes.csv")
     res.dyads = source.table("dyads.csv")
     res.sweep = source.table("sweep.csv")
+    res.leaders = source.table("leadership.csv")
+    res.leader_roles = source.table("leadership_roles.csv")
     return res
 
 
@@ -545,6 +549,39 @@ def _dyad_section(res: _Results) -> tuple[str, list[_Picture]]:
     )
 
 
+def _leader_section(res: _Results) -> tuple[str, list[_Picture]]:
+    """Return who leads whom: the clear leads as bars, and their roll-up by role pair."""
+    leaders = res.leaders
+    if leaders is None:
+        return "", []
+    parts = ["<h2>Who leads whom</h2>"]
+    clear = leaders[leaders["clear_leader"].astype(bool)] if len(leaders) else leaders
+    if clear.empty:
+        judged = figures.count_of(len(leaders), "pair")
+        parts.append(f"<p>No clear leader among the {_e(judged)} moving together long enough "
+                     "(see leadership.csv).</p>")  # fmt: skip
+        return "\n".join(parts), []
+    fig, note = figures.leadership_bars(leaders)
+    pic = _Picture(
+        "leadership",
+        figures.to_png(fig),
+        "Delays of the pairs with a clear leader",
+        "Each bar: how long after the leader the follower heads the same way (directional "
+        "correlation delay); r: their heading correlation at that delay. A lead says who turns "
+        f"first, not who causes the turn. {note}",
+    )
+    parts.append(_figure_html(pic))
+    roles = res.leader_roles
+    if roles is not None and len(roles):
+        rows = [[_name(r["leader_role"]), _name(r["follower_role"]), _num(r["pairs"]),
+                 _e(_duration(r["median_delay_s"])), _num(r["mean_correlation"])]
+                for _, r in roles.iterrows()]  # fmt: skip
+        parts.append("<h3>Leads by role pair</h3>")
+        parts.append(_table(["leader's role", "follower's role", "pairs", "median delay",
+                             "mean correlation"], rows, {2, 4}))  # fmt: skip
+    return "\n".join(parts), [pic]
+
+
 def _cross_section(res: _Results) -> tuple[str, list[_Picture]]:
     """Return the cross-L curves of the top role pairs."""
     cross = res.cross_k
@@ -666,7 +703,11 @@ def _assemble(res: _Results, max_points: int) -> tuple[str, list[_Picture]]:
         builders.append(lambda: _map_section(res, max_points))
     if res.episodes is not None:
         builders.append(lambda: _timeline_section(res))
-    builders += [lambda: _dyad_section(res), lambda: _cross_section(res)]
+    builders += [
+        lambda: _dyad_section(res),
+        lambda: _leader_section(res),
+        lambda: _cross_section(res),
+    ]
     if res.sweep is not None:
         builders.append(lambda: _sweep_section(res))
     for build in builders:

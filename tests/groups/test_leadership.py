@@ -7,6 +7,7 @@ import pandas as pd
 import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
+from scenes import planted_leads as planted_scene
 from scenes import random_walkers
 
 from comove.errors import ComoveNote
@@ -27,36 +28,7 @@ from comove.tracks.cleaning import clean_fixes
 from comove.tracks.motion import entry_motion
 from comove.tracks.neighbours import neighbour_pairs
 
-STEP = 0.1
-
-
-def wandering_path(rng: np.random.Generator, n: int, speed: float = 1.5) -> np.ndarray:
-    """Return (n, 2) positions of a walker turning smoothly at random, STEP s apart."""
-    heading = np.cumsum(rng.normal(0.0, 0.08, n))
-    return np.cumsum(speed * STEP * np.column_stack([np.cos(heading), np.sin(heading)]), axis=0)
-
-
-def planted_scene(seed: int = 1, n: int = 3000) -> pd.DataFrame:
-    """A guide, two followers walking the guide's path 0.7 s and 1.2 s later, and a twin.
-
-    The followers walk where the guide walked (beside the path), so their
-    headings are the guide's, ``delay`` later; the twin walks beside the guide
-    at the same time, with no lead either way.
-    """
-    rng = np.random.default_rng(seed)
-    margin = 50
-    path = wandering_path(rng, n + margin)
-    t = np.arange(n) * STEP
-    walkers = {
-        "guide": (path[margin:], "leader"),
-        "late7": (path[margin - 7 : margin - 7 + n] + [0.6, 0.0], "follower"),
-        "late12": (path[margin - 12 : margin - 12 + n] + [0.0, 0.6], "follower"),
-        "twin": (path[margin:] + [-0.5, 0.3], "follower"),
-    }
-    return pd.concat(
-        pd.DataFrame({"id": name, "time": t, "x": xy[:, 0], "y": xy[:, 1], "role": role})
-        for name, (xy, role) in walkers.items()
-    )
+STEP = 0.1  # the planted scene's step
 
 
 def test_planted_delays_are_recovered_within_one_snapshot_and_the_leader_named():

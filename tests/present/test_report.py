@@ -12,6 +12,7 @@ import matplotlib.image as mpimg
 import numpy as np
 import pandas as pd
 import pytest
+from scenes import planted_leads
 
 from comove.errors import InputError
 from comove.io.results import MANIFEST
@@ -28,6 +29,7 @@ PATTERNS = "Durable role sets, ranked"
 MAP = "Map of the tracks"
 TIMELINE = "Timeline of episodes"
 DYADS = "Dyad association"
+LEADERS = "Who leads whom"
 CROSS = "Cross-L curves of role pairs"
 
 
@@ -113,6 +115,8 @@ def expected_sections(folder) -> list[str]:
         sections.append(TIMELINE)
     if "dyads.csv" in names:
         sections.append(DYADS)
+    if "leadership.csv" in names:
+        sections.append(LEADERS)
     if "cross_k.csv" in names:
         sections.append(CROSS)
     return sections
@@ -123,6 +127,9 @@ def check_report(folder, report, figure_names: set[str]) -> Page:
     page = parse(report)
     assert "script" not in page.tags
     assert page.h2 == expected_sections(folder)
+    leaders = folder / "leadership.csv"
+    if leaders.is_file() and pd.read_csv(leaders)["clear_leader"].any():
+        figure_names = figure_names | {"leadership"}  # drawn when some pair has a clear leader
     assert len(page.images) == len(figure_names)
     files = {p.stem: p for p in (folder / "figures").iterdir()}
     assert set(files) == figure_names
@@ -142,7 +149,13 @@ def check_report(folder, report, figure_names: set[str]) -> Page:
     return page
 
 
-ALL_FIGURES = {"patterns_pi", "track_map", "episode_timeline", "dyad_matrix", "association_network"}
+ALL_FIGURES = {
+    "patterns_pi",
+    "track_map",
+    "episode_timeline",
+    "dyad_matrix",
+    "association_network",
+}
 
 
 def test_game_report_has_every_section(built):
@@ -174,6 +187,18 @@ def test_mine_only_and_groups_only_folders(tmp_path):
     page = check_report(tmp_path / "g", build_report(tmp_path / "g"),
                         ALL_FIGURES - {"patterns_pi"})  # fmt: skip
     assert PATTERNS not in page.h2
+
+
+def test_leadership_section_draws_the_planted_leads(tmp_path):
+    # the invented guide and its followers of tests/groups/test_leadership.py
+    groups(planted_leads(), radius=3.0, step=0.1, links="snapshot", replicates=0,
+           max_delay=2.0).write(tmp_path / "g")  # fmt: skip
+    page = parse(build_report(tmp_path / "g"))
+    assert LEADERS in page.h2
+    assert (tmp_path / "g" / "figures" / "leadership.png").is_file()
+    text = page.all_text()
+    assert "guide → late12" not in text  # drawn in the figure, named in its alt text only
+    assert "Leads by role pair" in text and "who turns first, not who causes the turn" in text
 
 
 def test_captions_say_only_what_the_figures_show(tmp_path):
