@@ -341,22 +341,31 @@ def geoparquet_writer(frame: Any) -> Writer:
 #: return, lone surrogates, U+FFFE and U+FFFF): written as ``<U+XXXX>`` text instead.
 _NOT_XML = re.compile("[\x00-\x08\x0b\x0c\x0e-\x1f\ud800-\udfff\ufffe\uffff]")
 
+#: Any character that XML text or an attribute value cannot hold as it is.
+_XML_SPECIAL = re.compile('[&<>"' + _NOT_XML.pattern[1:])
+
 #: Rows of a GraphML file built as text at once; bounds the writer's memory.
 GRAPHML_BLOCK = 50_000
 
 
 def _xml_text(values: pd.Series) -> pd.Series:
-    """Return text values escaped for XML content and attributes (missing stays missing)."""
-    text = values.astype(object).where(values.notna())
-    return (
-        text.astype(str)
-        .str.replace(_NOT_XML, lambda m: f"<U+{ord(m.group()):04X}>", regex=True)
-        .str.replace("&", "&amp;", regex=False)
-        .str.replace("<", "&lt;", regex=False)
-        .str.replace(">", "&gt;", regex=False)
-        .str.replace('"', "&quot;", regex=False)
-        .where(text.notna())
-    )
+    """Return text values escaped for XML content and attributes (missing stays missing).
+
+    Most ids and names hold nothing to escape: the text is searched once, and
+    only a column that holds such a character is rewritten.
+    """
+    present = values.notna()
+    text = values.astype(str)
+    # searched with Python's re, which takes any code point (Arrow's refuses surrogates)
+    if any(_XML_SPECIAL.search(str(v)) for v in values[present].tolist()):
+        text = (
+            text.str.replace(_NOT_XML, lambda m: f"<U+{ord(m.group()):04X}>", regex=True)
+            .str.replace("&", "&amp;", regex=False)
+            .str.replace("<", "&lt;", regex=False)
+            .str.replace(">", "&gt;", regex=False)
+            .str.replace('"', "&quot;", regex=False)
+        )
+    return text.where(present)
 
 
 def _graphml_type(values: pd.Series) -> str:
@@ -374,12 +383,18 @@ def _graphml_values(values: pd.Series, kind: str) -> pd.Series:
     """Return a column's values as GraphML text (None where a string is missing)."""
     if kind == "boolean":
         return values.map({True: "true", False: "false"})
-    if kind == "double":  # NaN is a value of its own, written nan
-        return values.astype("float64").map(lambda v: repr(float(v)))
-    if kind == "long":
-        return values.astype(object).where(values.notna()).map(str, na_action="ignore")
+    if kind in ("double", "long"):
+        # Arrow's cast, outside the interpreter lock: floats as the shortest text that
+        # reads back exactly (NaN written nan), missing integers missing
+        import pyarrow as pa
+
+        array = pa.array(values.to_numpy(dtype="float64") if kind == "double" else values,
+                         from_pandas=kind == "long")  # fmt: skip
+        return pd.Series(
+            array.cast(pa.string()), index=values.index, dtype=pd.ArrowDtype(pa.string())
+        )
     if isinstance(values.dtype, pd.DatetimeTZDtype):
-        values = _iso_text(values)
+        return _iso_text(values)  # digits, '-', ':', '.', 'T' and 'Z': nothing to escape
     return _xml_text(values)
 
 
@@ -416,8 +431,8 @@ def graphml_writer(
     Written as text, column by column over blocks of ``GRAPHML_BLOCK`` rows,
     so that memory stays that of a block: a graph library's writer holds every
     node and edge as objects first (measured with networkx: 200,000 edges of 20
-    attributes, 47 s and 2.9 GB). Booleans, integers, floats (``repr``, so
-    they read back exactly; NaN as ``nan``) and text get the GraphML types
+    attributes, 47 s and 2.9 GB). Booleans, integers, floats (the shortest text
+    that reads back exactly; NaN as ``nan``) and text get the GraphML types
     ``boolean``, ``long``, ``double`` and ``string``; times are ISO 8601 UTC
     text; a missing text value is left out. Characters XML cannot hold are
     written as ``<U+XXXX>``.
