@@ -267,20 +267,31 @@ def chunk_episode_rows(
 
 
 def chunk_lead_tally(
-    snaps: Snapshots, start: int, stop: int, grouping: GroupParams, lags: int, workers: int = 1
+    snaps: Snapshots,
+    start: int,
+    stop: int,
+    grouping: GroupParams,
+    lags: int,
+    workers: int = 1,
+    pairs: NeighbourPairs | None = None,
 ) -> LeadTally:
     """Return the heading correlations per pair and delay of snapshots ``start`` to ``stop - 1``.
 
     The pairs together at those snapshots count; the partner's heading is read
     up to ``lags`` snapshots beyond, with velocities as in the whole run, so
     that the tallies of consecutive chunks joined (:meth:`LeadTally.then`)
-    equal the whole run's.
+    equal the whole run's. ``pairs``, when given, are the neighbour pairs of
+    ``snaps.window(start, stop)`` (numbered from its first entry), as a first
+    pass kept them; otherwise they are searched.
     """
     chunk, motion = _chunk_motion(snaps, start - lags, stop + lags, grouping, workers)
     own = snaps.first_index + max(int(start), 0) - chunk.first_index
-    pairs = neighbour_pairs(chunk, grouping.radius, workers=workers)
     width = min(int(stop), snaps.n_snapshots) - max(int(start), 0)
-    return lead_tally(chunk, motion, pairs, grouping.min_speed, lags, span=(own, own + width))
+    if pairs is None:
+        pairs = neighbour_pairs(chunk.window(own, own + width), grouping.radius, workers=workers)
+    first = int(chunk.offsets()[own])  # the window's first entry within the chunk
+    shifted = NeighbourPairs(pairs.i + first, pairs.j + first, pairs.radius)
+    return lead_tally(chunk, motion, shifted, grouping.min_speed, lags, span=(own, own + width))
 
 
 def _chunk_motion(

@@ -314,12 +314,15 @@ def group_windows(
     the episodes: each window's dyad counts of those pairs and the positions
     De reads. Pass three: each window's episode rows. With
     ``dyad_pairs="co-present"`` the pairs are known only after pass two, and
-    a fourth pass reads De's positions. A last pass counts each window's
+    a fourth pass reads De's positions. Pass three also counts each window's
     heading correlations for the leadership table.
     """
     # context each side: the velocity window's, and the evidence window's around it
-    reach = (half_window_snapshots(grouping.velocity_window, run.shell.step_s)
-             + link_reach(grouping, run.shell.step_s))  # fmt: skip
+    velocity_reach = half_window_snapshots(grouping.velocity_window, run.shell.step_s)
+    lags = lead_params.lags(run.shell.step_s)
+    # one context serves every pass, so each window is aligned once: the links' and
+    # the leaders' (headings read up to ``lags`` snapshots beyond the window)
+    reach = velocity_reach + max(link_reach(grouping, run.shell.step_s), lags)
     together = dyad_params.dyad_pairs == "together"
     found = run.map(_timeline_window, (grouping, reach, together), "groups (1/3)")
     run.count([counted for _, _, counted in found])
@@ -347,17 +350,16 @@ def group_windows(
     tally = reduce(DyadTally.then, [t for t, _ in parts])
     gathered = [g for _, g in parts if g is not None]
     del parts
-    rows = reduce(
-        EpisodeRows.then, run.map(_rows_window, (episodes, grouping, reach), "groups (3/3)")
-    )
+    third = run.map(_rows_window, (episodes, grouping, reach, lags), "groups (3/3)")
+    rows = reduce(EpisodeRows.then, [r for r, _ in third])
+    leads = reduce(LeadTally.then, [lead for _, lead in third])
+    del third
     if needed is None:  # co-present pairs: known only now
         needed = TrackSamples.needed(*tally.pairs(), run.counts, cap)
         gathered = run.map(_gather_window, needed, "groups (De)", tasks=list(enumerate(before)))
     expected = expected_distances(TrackSamples.joined(run.counts, gathered), tally, cap)
     table, centroids = episode_table(run.shell, episodes, None, grouping.min_speed, rows=rows)
-    lags = lead_params.lags(run.shell.step_s)
-    leads = run.map(_lead_window, (grouping, lags), "groups (leaders)")
-    leaders = leadership_tables(reduce(LeadTally.then, leads), run.shell, lead_params)
+    leaders = leadership_tables(leads, run.shell, lead_params)
     return WindowedGroups(episodes, table, centroids, dyad_rows(tally, run.shell, expected, cap),
                           object_rows(tally, run.shell), leaders)  # fmt: skip
 
@@ -400,26 +402,21 @@ def _dyads_window(shared: tuple, task: tuple[int, np.ndarray]) -> tuple:
     return tally, gathered
 
 
-def _rows_window(shared: tuple, i: int) -> EpisodeRows:
-    """Return the episode-table rows of window ``i`` (a task of ``groups``, after the search)."""
-    run, (episodes, grouping, reach) = shared
+def _rows_window(shared: tuple, i: int) -> tuple[EpisodeRows, LeadTally]:
+    """Return the episode-table rows and the heading correlations of window ``i``.
+
+    A task of ``groups``, after the search. The leaders' correlations reuse
+    the window's aligned snapshots and the neighbour pairs of the first pass.
+    """
+    run, (episodes, grouping, reach, lags) = shared
     outer, start, stop = run.outer(i, reach, keep=True)
     offset = outer.first_index + start - run.span[0]
     rows = chunk_episode_rows(outer, start, stop, episodes, grouping, run.threads, offset)
+    lead = chunk_lead_tally(outer, start, stop, grouping, lags, run.threads,
+                            run.kept_pairs(i, grouping.radius))  # fmt: skip
     del outer
     release_memory()
-    return rows
-
-
-def _lead_window(shared: tuple, i: int) -> LeadTally:
-    """Return window ``i``'s heading correlations per pair and delay (a task of ``groups``)."""
-    run, (grouping, lags) = shared
-    reach = half_window_snapshots(grouping.velocity_window, run.shell.step_s)
-    outer, start, stop = run.outer(i, lags + reach)
-    tally = chunk_lead_tally(outer, start, stop, grouping, lags, run.threads)
-    del outer
-    release_memory()
-    return tally
+    return rows, lead
 
 
 def _gather_window(shared: tuple, task: tuple[int, np.ndarray]) -> tuple:

@@ -51,6 +51,7 @@ def test_groups_over_windows_write_the_whole_run_files(name, tmp_path):
         windowed.write(tmp_path / chunk)
         assert_same_folders(tmp_path / "whole", tmp_path / chunk)
     assert len(whole.episodes) > 0 and len(whole.dyads) > 0
+    assert len(whole.leaders) > 0 or name != "small_sided_game"  # leadership.csv compared too
 
 
 @pytest.mark.parametrize("name", sorted(CHUNKS))
