@@ -224,11 +224,9 @@ def lead_tally(
         if pair.size:
             sums[:, k] = np.add.reduceat(fixed[by_pair], starts)
             counts[:, k] = np.add.reduceat(ok[by_pair].astype(np.int64), starts)
-    own = (snaps.snap >= lo) & (snaps.snap < hi)
-    role_key, role_count = np.unique(
-        snaps.obj[own].astype(np.int64) * snaps.n_roles + snaps.role[own], return_counts=True
-    )
-    return LeadTally(lags, n_obj, snaps.n_roles, key, sums, counts,
+    own = snaps.window(lo, hi)  # the roles held at the counted snapshots
+    role_key, role_count = own.role_counts()
+    return LeadTally(lags, n_obj, own.n_roles, key, sums, counts,
                      np.bincount(pair, minlength=key.size).astype(np.int64), role_key,
                      role_count.astype(np.int64))  # fmt: skip
 

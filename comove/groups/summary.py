@@ -415,41 +415,52 @@ def episode_table(
     snapshots (with two or more members present) of the mean pairwise distance.
     """
     n_ep = episodes.n_episodes
-    ids = [f"E{k + 1:04d}" for k in range(n_ep)]
     start = np.asarray(episodes.start, dtype=np.int64)
     length = np.asarray(episodes.end, dtype=np.int64) - start + 1
     row_ep, row_snap, first_row = _spans(episodes)
-    sizes = np.array([m.size for m in episodes.members], dtype=np.int64)
     if rows is None:
         rows = episode_rows(snaps, episodes, motion, min_speed, workers=workers)
     stats = rows.stats.placed(rows.rows, row_ep.size)
     mean_spacing, max_spacing = _spacings(stats, row_ep, first_row, n_ep)
     observed = stats.n_present > 0  # in a tolerated gap no member may have data
-    names = np.array([str(o) for o in snaps.objects], dtype=object)
-    text = _text_column
+    text = _episode_text(snaps, episodes, rows.role_keys)
 
     def utc(snapshot: np.ndarray) -> pd.DatetimeIndex:
         return pd.to_datetime(snaps.times(snapshot).astype("datetime64[ns]"), utc=True)
 
     table = pd.DataFrame(
         {
-            "episode": text(ids),
+            "episode": text["episode"],
             "start": utc(start),
             "end": utc(episodes.end),
             "duration_s": length * snaps.step_s,
-            "size": sizes,
-            "members": text([MEMBER_SEP.join(names[m]) for m in episodes.members]),
-            "roles": text(_role_labels(snaps, rows.role_keys, n_ep)),
+            "size": np.array([m.size for m in episodes.members], dtype=np.int64),
+            "members": text["members"],
+            "roles": text["roles"],
             "together_s": np.asarray(episodes.together, dtype=np.int64) * snaps.step_s,
             "mean_spacing_m": mean_spacing,
             "max_spacing_m": max_spacing,
             "moving_share": _per_episode_mean(row_ep, stats.moving, observed, n_ep),
-            "came_from": text([MEMBER_SEP.join(ids[f] for f in c) for c in episodes.came_from]),
-            "went_into": text([MEMBER_SEP.join(ids[f] for f in w) for w in episodes.went_into]),
+            "came_from": text["came_from"],
+            "went_into": text["went_into"],
         },
         columns=EPISODE_COLUMNS,
     )
     return table, _centroid_paths(snaps, stats, row_ep, row_snap, n_ep)
+
+
+def _episode_text(snaps: Snapshots, episodes: Episodes, role_keys: np.ndarray) -> dict:
+    """Return the episode table's text columns: ids, members, roles and lineage."""
+    ids = [f"E{k + 1:04d}" for k in range(episodes.n_episodes)]
+    names = np.array([str(o) for o in snaps.objects], dtype=object)
+    text = _text_column
+    return {
+        "episode": text(ids),
+        "members": text([MEMBER_SEP.join(names[m]) for m in episodes.members]),
+        "roles": text(_role_labels(snaps, role_keys, episodes.n_episodes)),
+        "came_from": text([MEMBER_SEP.join(ids[f] for f in c) for c in episodes.came_from]),
+        "went_into": text([MEMBER_SEP.join(ids[f] for f in w) for w in episodes.went_into]),
+    }
 
 
 def _spacings(
