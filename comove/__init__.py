@@ -14,10 +14,14 @@ except PackageNotFoundError:  # running from a source tree that is not installed
 
 if TYPE_CHECKING:
     from comove.pipeline.core import GroupsResult, MiningResult, groups, mine
+    from comove.pipeline.focal import FocalResult, focal
 
-__all__ = ["GroupsResult", "InputError", "MiningResult", "__version__", "groups", "mine"]
+__all__ = [
+    "FocalResult", "GroupsResult", "InputError", "MiningResult", "__version__", "focal", "groups",
+    "mine",
+]  # fmt: skip
 
-_FROM_PIPELINE = {"GroupsResult", "MiningResult", "groups", "mine"}
+_FROM_PIPELINE = {"FocalResult", "GroupsResult", "MiningResult", "focal", "groups", "mine"}
 
 
 def __getattr__(name: str) -> Any:

@@ -40,6 +40,7 @@ from comove.io.results import CAUTION, Claim, claim, flat_settings  # noqa: E402
 from comove.io.runfile import current_names, former_names, load_run_file  # noqa: E402
 from comove.io.times import human_seconds, utc_iso  # noqa: E402
 from comove.pipeline.core import GROUP_STAGES, MINE_STAGES, groups, mine  # noqa: E402
+from comove.pipeline.focal import FOCAL_STAGES, focal  # noqa: E402
 from comove.pipeline.sweep import SWEEP_STAGES, sweep  # noqa: E402
 from comove.tracks.quality import format_quality_summary  # noqa: E402
 
@@ -167,6 +168,7 @@ def build_parser() -> argparse.ArgumentParser:
     sub = parser.add_subparsers(dest="command", required=True, parser_class=_Parser)
     _add_mine(sub)
     _add_groups(sub)
+    _add_focal(sub)
     _add_sweep(sub)
     _add_report(sub)
     _add_demo(sub)
@@ -226,6 +228,17 @@ def _add_groups(sub: Any) -> None:
         description="Find which objects travel together, when groups form and split, and "
         "how strongly each pair is associated. A preset supplies defaults; flags override "
         "them.",
+    )  # fmt: skip
+
+
+def _add_focal(sub: Any) -> None:
+    """Add the ``comove focal`` command to the subcommands ``sub``."""
+    _add_analysis(
+        sub, "focal", FOCAL_STAGES,
+        help="what surrounds one role: the role sets around its objects",
+        description="For every object of the focal role at every snapshot, take the roles of "
+        "its neighbours; find which role sets surround the focal role, how much of the time "
+        "and for how long at a stretch.",
     )  # fmt: skip
 
 
@@ -431,6 +444,33 @@ def _run_groups(args: argparse.Namespace) -> None:
     print(f"Caution: {result.run.get('caution', CAUTION)}")
 
 
+def _run_focal(args: argparse.Namespace) -> None:
+    source, out_dir, options = _resolve(args, FOCAL_STAGES)
+    options.pop("preset", None)
+    for name, flag in (("focal_role", "--focal-role ROLE"), ("radius", "--radius (metres)")):
+        if options.get(name) is None:
+            raise InputError(f"give {flag}, or {name} in the --config file")
+    with _claimed(args, out_dir, "focal", source) as held:
+        result = focal(source, progress=not args.quiet, **options)
+        out = result.write(out_dir, force=args.force, merge=args.merge)
+    if args.quiet:
+        return
+    print(format_quality_summary(result.quality))
+    role, n = options["focal_role"], len(result.sets)
+    print(f"\n{n} role set{'s' if n != 1 else ''} durably around {role}.")
+    if n:
+        shown = ["around", "time_prevalence", "mean_share", "longest_run_s", "p_value", "q_value"]
+        top = result.sets.head(10)[[c for c in shown if c in result.sets]].copy()
+        top["longest_run_s"] = top["longest_run_s"].map(human_seconds)
+        top = top.rename(columns={"longest_run_s": "longest_run"})
+        print(top.to_string(index=False, float_format=lambda v: f"{v:.3f}"))
+    hoods = result.neighbourhoods
+    alone = hoods.loc[hoods["size"] == 0, "share"].sum()
+    print(f"Alone (no object within the neighbour distance): {alone:.1%} of the time.")
+    _written(out, held, f" — for figures: comove report {out}")
+    print(f"Caution: {result.run.get('caution', CAUTION)}")
+
+
 def _run_sweep(args: argparse.Namespace) -> None:
     source, out_dir, options = _resolve(args, SWEEP_STAGES)
     options.pop("preset", None)
@@ -550,7 +590,8 @@ def main(argv: list[str] | None = None) -> int:
     except SystemExit as done:  # --help, --version, or a usage error already printed
         return int(done.code or 0)
     args.claims = []
-    commands = {"mine": _run_mine, "groups": _run_groups, "sweep": _run_sweep,
+    commands = {"mine": _run_mine, "groups": _run_groups, "focal": _run_focal,
+                "sweep": _run_sweep,
                 "report": _run_report, "demo": _run_demo}  # fmt: skip
     seen: list[int] = []
     try:

@@ -54,6 +54,18 @@ def folders(tmp_path_factory):
         "mine": ["mine", GAME, "--radius", "3", "--replicates", "9", "--k-radii", "1,3"],
         "groups": ["groups", GAME, "--preset", "team-sport", "--replicates", "9"],
         "sweep": ["sweep", GAME, "--radius", "2:3:1"],
+        "focal": [
+            "focal",
+            GAME,
+            "--focal-role",
+            "teal_forward",
+            "--radius",
+            "3",
+            "--replicates",
+            "9",
+            "--min-prevalence",
+            "0.1",
+        ],
     }
     for name, argv in runs.items():
         assert main([*argv, "--quiet", "--out", str(root / name)]) == 0

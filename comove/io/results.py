@@ -83,8 +83,8 @@ MANIFEST = ".comove-folder.json"
 MANIFEST_FORMAT = 1
 #: The command name under which the report's files are recorded.
 REPORT = "report"
-#: Files whose presence makes a folder a results folder of ``mine`` or ``groups``.
-RESULT_FILES = ("patterns.csv", "episodes.csv", "sweep.csv")
+#: Files whose presence makes a folder a results folder of a command.
+RESULT_FILES = ("patterns.csv", "episodes.csv", "focal.csv", "sweep.csv")
 #: Files that two commands' results in one folder share, combined per command.
 SHARED_JSON = ("run.json", "quality.json")
 #: Files both commands write with the same content for one input: the newer is kept.
@@ -702,8 +702,8 @@ def open_results(folder: str | os.PathLike[str]) -> ResultsFolder:
     path = Path(folder)
     if not path.is_dir() or not any((path / name).is_file() for name in RESULT_FILES):
         raise InputError(
-            f"{path}: no comove results found (patterns.csv, episodes.csv or sweep.csv); "
-            "run comove mine, groups or sweep first"
+            f"{path}: no comove results found (patterns.csv, episodes.csv, focal.csv or "
+            "sweep.csv); run comove mine, groups, focal or sweep first"
         )
     record = read_manifest(path)
     if record is not None and not record.complete:

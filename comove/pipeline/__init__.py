@@ -1,4 +1,4 @@
-"""What a user runs: :func:`mine`, :func:`groups` and :func:`sweep`, each stage forward.
+"""What a user runs: :func:`mine`, :func:`groups`, :func:`focal`, :func:`sweep`; stages forward.
 
 The command line (:mod:`comove.cli`) is a thin layer over these functions.
 """
@@ -12,9 +12,11 @@ from comove.pipeline.core import (
     mine,
     split_options,
 )
+from comove.pipeline.focal import FOCAL_STAGES, FocalResult, focal
 from comove.pipeline.sweep import SWEEP_STAGES, SweepParams, SweepResult, sweep
 
 __all__ = [
-    "GROUP_STAGES", "MINE_STAGES", "SWEEP_STAGES", "GroupsResult", "MiningResult", "SweepParams",
-    "SweepResult", "groups", "mine", "split_options", "sweep",
+    "FOCAL_STAGES", "GROUP_STAGES", "MINE_STAGES", "SWEEP_STAGES", "FocalResult", "GroupsResult",
+    "MiningResult", "SweepParams", "SweepResult", "focal", "groups", "mine", "split_options",
+    "sweep",
 ]  # fmt: skip

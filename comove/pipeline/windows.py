@@ -1,4 +1,4 @@
-"""``mine`` and ``groups`` over time windows: each window in memory in turn, the tallies joined.
+"""``mine``, ``groups`` and ``focal`` over time windows: each window in turn, tallies joined.
 
 The tracks are read once into buckets of time, cleaned and aligned window by
 window (:mod:`comove.tracks.streaming`); the role chain, and the group chain's
@@ -43,6 +43,7 @@ from comove.io.projection import working_to_input
 from comove.io.reading import ColumnSpec
 from comove.roles.chain import RoleTally, combine_role_tallies, prune_levels, role_chain
 from comove.roles.colocation import ColocationParams
+from comove.roles.focal import FocalParams, FocalTally, focal_chain
 from comove.stats.engine import LocalEngine, RunParams, resolve_jobs
 from comove.tracks.alignment import NS_PER_S, AlignParams, Snapshots, sample_every, track_sample
 from comove.tracks.cleaning import CleanParams
@@ -281,6 +282,26 @@ def _mine_window(shared: tuple[Windowed, ColocationParams], i: int) -> tuple:
     chunk = outer.window(start, stop)
     del outer
     tally = role_chain(chunk, colocation, workers=run.threads)
+    counted = run.counted(chunk)
+    del chunk
+    release_memory()
+    return tally, counted
+
+
+def focal_windows(run: Windowed, params: FocalParams) -> FocalTally:
+    """Return the focal role's neighbourhoods over the whole run, window by window."""
+    found = run.map(_focal_window, params, "surroundings")
+    run.count([part for _, part in found])
+    return FocalTally.joined([tally for tally, _ in found])
+
+
+def _focal_window(shared: tuple[Windowed, FocalParams], i: int) -> tuple:
+    """Count window ``i``'s neighbourhoods (a task): its tally, entries per object, sample."""
+    run, params = shared
+    outer, start, stop = run.outer(i)
+    chunk = outer.window(start, stop)
+    del outer
+    tally = focal_chain(chunk, params, workers=run.threads)
     counted = run.counted(chunk)
     del chunk
     release_memory()

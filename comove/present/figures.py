@@ -981,3 +981,61 @@ def leadership_bars(leaders: pd.DataFrame, top: int = LEADERSHIP_PAIRS) -> tuple
             if len(clear) > len(shown) else f"All {count_of(len(clear), 'pair')} with a clear "
             "leader.")  # fmt: skip
     return fig, note
+
+
+#: Most role sets drawn around the focal role, and most exact neighbourhoods.
+FOCAL_SETS = 15
+
+
+def focal_bars(
+    sets: pd.DataFrame, neighbourhoods: pd.DataFrame, top: int = FOCAL_SETS
+) -> tuple[Figure, str]:
+    """Return what surrounds the focal role: durable sets, and exact neighbourhoods.
+
+    Parameters
+    ----------
+    sets : DataFrame
+        ``focal.csv``: ``around``, ``time_prevalence``, ``mean_share``.
+    neighbourhoods : DataFrame
+        ``focal_neighbourhoods.csv``: ``around`` (empty: nobody around), ``share``.
+    top : int
+        Most bars in each panel.
+
+    Returns
+    -------
+    Figure, str
+        The figure and a note for its caption.
+    """
+    shown = sets.head(top)
+    hoods = neighbourhoods.head(top)
+    rows = max(len(shown), len(hoods), 1)
+    with style():
+        fig = _figure(max(2.6, 1.3 + 0.26 * rows))
+        left, right = fig.subplots(1, 2, width_ratios=[1, 1])
+        y = np.arange(len(shown))[::-1]
+        left.barh(y, shown["time_prevalence"].to_numpy(dtype="float64"), height=0.7,
+                  color=PALETTE[1], label="time prevalence")  # fmt: skip
+        left.plot(shown["mean_share"].to_numpy(dtype="float64"), y, "o", color=PALETTE[4],
+                  markersize=4, label="mean share")  # fmt: skip
+        left.set_yticks(y, [plain_text(a, 36) for a in shown["around"]])
+        left.set_xlim(0, 1)
+        left.set_title("Durable role sets around it")
+        fig.legend(*left.get_legend_handles_labels(), loc="outside lower center", ncols=2)
+        y = np.arange(len(hoods))[::-1]
+        labels = [plain_text(a, 36) if isinstance(a, str) and a else "(nobody)"
+                  for a in hoods["around"]]  # fmt: skip
+        right.barh(y, hoods["share"].to_numpy(dtype="float64"), height=0.7, color=PALETTE[2])
+        right.set_yticks(y, labels)
+        right.set_xlim(0, 1)
+        right.set_title("Exactly these roles around it")
+        for ax in (left, right):
+            ax.set_xlabel("share")
+    parts = []
+    if len(sets) > len(shown):
+        parts.append(f"the {len(shown)} of {count_of(len(sets), 'durable role set')} with the "
+                     "highest time prevalence")  # fmt: skip
+    if len(neighbourhoods) > len(hoods):
+        parts.append(f"the {len(hoods)} most frequent of "
+                     f"{count_of(len(neighbourhoods), 'neighbourhood')}")  # fmt: skip
+    note = ("Shown: " + "; ".join(parts) + ".") if parts else ""
+    return fig, note

@@ -94,6 +94,8 @@ class _Results:
     sweep: pd.DataFrame | None = None
     leaders: pd.DataFrame | None = None
     leader_roles: pd.DataFrame | None = None
+    focal: pd.DataFrame | None = None
+    neighbourhoods: pd.DataFrame | None = None
 
 
 def _load(source: ResultsFolder) -> _Results:
@@ -108,6 +110,8 @@ def _load(source: ResultsFolder) -> _Results:
     res.sweep = source.table("sweep.csv")
     res.leaders = source.table("leadership.csv")
     res.leader_roles = source.table("leadership_roles.csv")
+    res.focal = source.table("focal.csv")
+    res.neighbourhoods = source.table("focal_neighbourhoods.csv")
     return res
 
 
@@ -582,6 +586,44 @@ def _leader_section(res: _Results) -> tuple[str, list[_Picture]]:
     return "\n".join(parts), [pic]
 
 
+def _focal_section(res: _Results) -> tuple[str, list[_Picture]]:
+    """Return what surrounds the focal role: bars, and the durable sets as a table."""
+    sets, hoods = res.focal, res.neighbourhoods
+    if sets is None or hoods is None:
+        return "", []
+    role = flat_settings(res.runs.get("focal") or {}).get("focal_role", "the focal role")
+    parts = [f"<h2>What surrounds {_e(role)}</h2>"]
+    if hoods.empty:
+        parts.append(f"<p>No object of the role {_e(role)} was present.</p>")
+        return "\n".join(parts), []
+    hoods = hoods.assign(around=hoods["around"].fillna(""))
+    fig, note = figures.focal_bars(sets, hoods)
+    pic = _Picture(
+        "focal",
+        figures.to_png(fig),
+        f"Role sets around the objects of {role}",
+        f"Left: role sets durably around {role}: bar, the share of the snapshots at which at "
+        "least --min-share of its objects have every role of the set among their neighbours "
+        "(time prevalence); dot, the mean of that share. Right: how often an object of "
+        f"{role} has exactly these roles around it, each object and snapshot counted once. " + note,
+    )
+    parts.append(_figure_html(pic))
+    if sets.empty:
+        parts.append("<p>No role set is durably around it at these thresholds.</p>")
+        return "\n".join(parts), [pic]
+    tested = "p_value" in sets.columns
+    rows = []
+    for _, r in sets.head(TABLE_PATTERNS).iterrows():
+        row = [_roles_text(r["around"]), _num(r["time_prevalence"]), _num(r["mean_share"]),
+               _e(_duration(r["longest_run_s"])), _num(r["exact_share"])]  # fmt: skip
+        if tested:
+            row += [_num(r["p_value"]), _num(r["q_value"])]
+        rows.append(row)
+    header = ["around", "time prevalence", "mean share", "longest run", "exactly these"]
+    parts.append(_table(header + (["p", "q"] if tested else []), rows, {1, 2, 4, 5, 6}))
+    return "\n".join(parts), [pic]
+
+
 def _cross_section(res: _Results) -> tuple[str, list[_Picture]]:
     """Return the cross-L curves of the top role pairs."""
     cross = res.cross_k
@@ -706,6 +748,7 @@ def _assemble(res: _Results, max_points: int) -> tuple[str, list[_Picture]]:
     builders += [
         lambda: _dyad_section(res),
         lambda: _leader_section(res),
+        lambda: _focal_section(res),
         lambda: _cross_section(res),
     ]
     if res.sweep is not None:

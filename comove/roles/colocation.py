@@ -274,8 +274,16 @@ def _pair_level(
     return role_sets, np.column_stack([lo, hi]).astype(np.int64), instance_set.astype(np.int64)
 
 
-def _candidates(prev_roles: np.ndarray, keep: np.ndarray) -> np.ndarray:
+def apriori_candidates(
+    prev_roles: np.ndarray,
+    keep: np.ndarray,
+    size_setting: str = "--max-size",
+    threshold_setting: str = "--min-participation",
+) -> np.ndarray:
     """Return the size-k candidates all of whose (k-1)-subsets are kept (Apriori-gen).
+
+    ``size_setting`` and ``threshold_setting`` name the options the error
+    below suggests.
 
     Raises
     ------
@@ -294,8 +302,8 @@ def _candidates(prev_roles: np.ndarray, keep: np.ndarray) -> np.ndarray:
         roles = len({r for row in kept for r in row})
         raise InputError(
             f"{len(kept):,} role sets of size {k - 1} among {roles:,} roles are prevalent, "
-            f"which makes {joins:,} candidate sets of size {k} to try; give --max-size "
-            f"{k - 1} or less, or a higher --min-participation"
+            f"which makes {joins:,} candidate sets of size {k} to try; give {size_setting} "
+            f"{k - 1} or less, or a higher {threshold_setting}"
         )
     out = []
     for prefix, lasts in by_prefix.items():
@@ -455,7 +463,7 @@ def mine_levels(
     levels, edge_keys = [level], pairs.keys(snaps.n_entries)
     for size in range(3, params.max_size + 1):  # one pass per set size
         keep = level.prevalent >= int(min_prevalent_snapshots)
-        candidates = _among(_candidates(level.roles, keep), only, size, len(snaps.roles))
+        candidates = _among(apriori_candidates(level.roles, keep), only, size, len(snaps.roles))
         if candidates.shape[0] == 0:
             break
         level = _next_level(snaps, level, keep, candidates, edge_keys, role_counts, presence,

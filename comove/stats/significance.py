@@ -666,6 +666,102 @@ def group_tests(
 
 
 @dataclass(frozen=True)
+class FocalStatistic:
+    """Statistic: the mean share or time prevalence of fixed role sets around the focal role.
+
+    Parameters
+    ----------
+    params : FocalParams
+        Focal role, radius and share threshold.
+    tested : tuple of ndarray
+        Role-code rows of the tested sets, one array per size (1, 2, ...).
+    statistic : {"continuous", "count"}
+        Mean share over present(S), or time prevalence.
+    """
+
+    params: Any
+    tested: tuple[np.ndarray, ...]
+    statistic: str = "continuous"
+
+    def __call__(self, model: NullModel, rng: np.random.Generator) -> np.ndarray:
+        """Return the tested sets' statistic in one null replicate (0 where absent)."""
+        from comove.roles.focal import focal_chain, focal_values, surrounding_sets
+
+        snaps, _ = model.draw(rng)
+        if not (snaps.role == self.params.code(snaps.roles)).any():
+            return np.zeros(sum(t.shape[0] for t in self.tested))
+        tally = focal_chain(snaps, self.params)
+        levels = surrounding_sets(tally, self.params, only=self.tested)
+        return focal_values(levels, self.tested, self.statistic)
+
+
+def focal_tests(
+    snaps: Snapshots,
+    observed: Any,
+    levels: list,
+    focal: Any,
+    params: SignificanceParams,
+    run: RunParams,
+    progress: bool = False,
+) -> pd.DataFrame:
+    """Return Monte Carlo tests of every role set that surrounds the focal role at a snapshot.
+
+    Parameters
+    ----------
+    snaps : Snapshots
+        The observed aligned snapshots.
+    observed : FocalTally
+        The observed neighbourhoods (:func:`comove.roles.focal.focal_chain`).
+    levels : list of FocalLevel
+        The observed sets (:func:`comove.roles.focal.surrounding_sets`); the
+        family tested is every one with a snapshot at which it surrounds the
+        focal role.
+    focal : FocalParams
+        Focal role, radius and threshold, reused for every replicate.
+    params : SignificanceParams
+        Null model, replicates and statistic (``continuous``: mean share;
+        ``count``: time prevalence).
+    run : RunParams
+        Seed (resolved) and engine.
+    progress : bool, default False
+        Show a progress bar.
+
+    Returns
+    -------
+    DataFrame
+        ``around``, ``size``, ``time_prevalence``, ``mean_share`` and the
+        columns of :func:`summary_table`, sorted by p-value.
+    """
+    from comove.roles.focal import focal_chain, focal_values, surrounding_sets
+    from comove.roles.persistence import role_label
+
+    tested = tuple(lv.roles[lv.prevalent >= 1] for lv in levels)
+    counted = surrounding_sets(observed, focal, only=tested)
+    prevalence = focal_values(counted, tested, "count")
+    mean_share = focal_values(counted, tested, "continuous")
+    statistic = FocalStatistic(focal, tested, params.statistic)
+    every = params.thinning(snaps.step_s)
+    compared = snaps.thinned(every)
+    if every > 1:  # the observed statistic on the snapshots the replicates use
+        thinned = focal_chain(compared, focal)
+        values = focal_values(surrounding_sets(thinned, focal, only=tested), tested,
+                              params.statistic)  # fmt: skip
+    else:
+        values = mean_share if params.statistic == "continuous" else prevalence
+    null = null_distribution(NullModel(compared, params), statistic, params, run, progress,
+                             label=f"{params.null} replicates")  # fmt: skip
+    name = "mean_share" if params.statistic == "continuous" else "time_prevalence"
+    table = summary_table(values, null, params.alpha, name, compared.step_s)
+    table.insert(0, "around", pd.Series([role_label(row, snaps.roles) for sets in tested
+                                         for row in sets], dtype=object))  # fmt: skip
+    table.insert(1, "size", np.asarray([sets.shape[1] for sets in tested for _ in sets],
+                                       dtype=np.int64))  # fmt: skip
+    table.insert(2, "time_prevalence", prevalence)
+    table.insert(3, "mean_share", mean_share)
+    return table.sort_values(["p_value", "around"], kind="stable").reset_index(drop=True)
+
+
+@dataclass(frozen=True)
 class CrossLStatistic:
     """Statistic: the cross-L values of a cross-K table in one replicate."""
 

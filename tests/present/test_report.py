@@ -378,8 +378,8 @@ def test_lonlat_map_uses_equal_distance_aspect():
 
 def test_missing_or_empty_folder_is_an_input_error(tmp_path):
     message = (
-        "no comove results found (patterns.csv, episodes.csv or sweep.csv); run comove "
-        "mine, groups or sweep first"
+        "no comove results found (patterns.csv, episodes.csv, focal.csv or sweep.csv); run comove "
+        "mine, groups, focal or sweep first"
     )
     for folder in (tmp_path / "absent", tmp_path):
         with pytest.raises(InputError) as err:

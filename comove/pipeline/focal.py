@@ -1,0 +1,176 @@
+"""What surrounds one role: raw tracks in, the role sets around its objects out.
+
+Stages run forward, each a plain function of the previous stage's output::
+
+    read_tracks -> clean_fixes -> align -> neighbour_pairs
+        -> focal_chain -> surrounding_sets -> focal_tables       (focal)
+
+:func:`focal` runs them and returns a :class:`FocalResult`, whose ``write``
+stores a results folder.
+"""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import pandas as pd
+
+from comove.io.reading import ColumnSpec
+from comove.io.results import CAUTION, csv_writer, json_writer, parquet_writer, write_folder
+from comove.roles.focal import FocalParams, FocalTables, focal_chain, focal_tables, surrounding_sets
+from comove.roles.persistence import PersistenceParams
+from comove.stats.engine import RunParams
+from comove.stats.significance import TEST_COLUMNS, SignificanceParams, focal_tests
+from comove.tracks.alignment import AlignParams, Snapshots
+from comove.tracks.cleaning import CleanParams
+from comove.tracks.streaming import WindowParams
+
+#: The stage settings of ``focal``, in pipeline order.
+FOCAL_STAGES: tuple[type, ...] = (
+    ColumnSpec, CleanParams, AlignParams, FocalParams, PersistenceParams, SignificanceParams,
+    WindowParams, RunParams,
+)  # fmt: skip
+
+
+@dataclass
+class FocalResult:
+    """What surrounds the focal role, and everything needed to trust it.
+
+    Attributes
+    ----------
+    sets : DataFrame
+        One row per kept role set around the focal role; see
+        :func:`comove.roles.focal.focal_tables`. With tests, their columns too.
+    neighbourhoods : DataFrame
+        Every exact neighbourhood of the focal role's objects and its share.
+    series : DataFrame
+        The share of each kept set at each snapshot where it could surround.
+    quality, run : dict
+        As for :class:`comove.pipeline.core.MiningResult`.
+    snapshots : Snapshots
+        The aligned tracks (a run over time windows keeps only their names,
+        step and span).
+    tests : DataFrame or None
+        Monte Carlo tests of every set that surrounds the focal role at a
+        snapshot (:func:`comove.stats.significance.focal_tests`); None when
+        not run.
+    """
+
+    sets: pd.DataFrame
+    neighbourhoods: pd.DataFrame
+    series: pd.DataFrame
+    quality: dict
+    run: dict
+    snapshots: Snapshots = field(repr=False)
+    tests: pd.DataFrame | None = None
+    sample: Any = field(default=None, repr=False)
+
+    def write(
+        self, out_dir: str | os.PathLike[str], force: bool = False, merge: bool = False
+    ) -> Path:
+        """Write the results folder atomically and return its path.
+
+        Files: ``focal.csv``, ``focal_neighbourhoods.csv``,
+        ``focal_series.parquet``, ``track_sample.parquet``, ``quality.json``,
+        ``run.json``, and ``focal_significance.csv`` when tests ran.
+        """
+        files = {
+            "track_sample.parquet": parquet_writer(self.sample),
+            "focal.csv": csv_writer(self.sets),
+            "focal_neighbourhoods.csv": csv_writer(self.neighbourhoods),
+            "focal_series.parquet": parquet_writer(self.series),
+            "quality.json": json_writer(self.quality),
+            "run.json": json_writer(self.run),
+        }
+        if self.tests is not None:
+            files["focal_significance.csv"] = csv_writer(self.tests)
+        return write_folder(out_dir, files, force=force, merge="focal" if merge else None)
+
+
+def focal(source: Any, *, progress: bool = False, **options: Any) -> FocalResult:
+    """Return the role sets that surround the objects of one role, and how durably.
+
+    Parameters
+    ----------
+    source : path, glob, list of paths, DataFrame, GeoDataFrame or TrajectoryCollection
+        The tracks; see :func:`comove.io.reading.read_tracks`.
+    progress : bool, default False
+        Show a progress bar over the stages.
+    **options
+        Any field of :class:`~comove.io.reading.ColumnSpec`,
+        :class:`~comove.tracks.cleaning.CleanParams`,
+        :class:`~comove.tracks.alignment.AlignParams`,
+        :class:`~comove.roles.focal.FocalParams` (``focal_role`` and
+        ``radius`` are required),
+        :class:`~comove.roles.persistence.PersistenceParams`,
+        :class:`~comove.stats.significance.SignificanceParams`,
+        :class:`~comove.tracks.streaming.WindowParams` or
+        :class:`~comove.stats.engine.RunParams`.
+
+    Returns
+    -------
+    FocalResult
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> tracks = pd.DataFrame({
+    ...     "id": ["c", "c", "m", "m", "y", "y"], "time": [0, 10, 0, 10, 0, 10],
+    ...     "x": [0.0, 10.0, 1.0, 11.0, 50.0, 10.5], "y": [0.0] * 6,
+    ...     "role": ["calf", "calf", "mother", "mother", "yearling", "yearling"]})
+    >>> result = focal(tracks, focal_role="calf", radius=2.0, step=10.0)
+    >>> result.sets[["around", "time_prevalence", "exact_share"]].to_dict("records")
+    [{'around': 'mother', 'time_prevalence': 1.0, 'exact_share': 0.5}]
+    """
+    from comove.io.provenance import run_record, settings_record
+    from comove.pipeline.core import (
+        _aligned,
+        _digest_beside,
+        _effective,
+        _plan,
+        _Progress,
+        _windows_note,
+        split_options,
+    )
+    from comove.pipeline.windows import focal_windows, windowed_tracks
+
+    stages = split_options(FOCAL_STAGES, options)
+    columns, cleaning, alignment, params, persistence, significance, window_params = stages[:7]
+    run_params = stages[7].resolved()
+    plan = _plan(source, columns, window_params, run_params, significance)
+    bar = _Progress(progress, total=6)
+    digest = _digest_beside(source)
+    tests = None
+    try:
+        if plan is not None:
+            with windowed_tracks(source, columns, cleaning, alignment, plan,
+                                 window_params.scratch, run_params, progress) as run:  # fmt: skip
+                tally = focal_windows(run, params)
+                snaps, quality, sample = run.shell, run.quality(), run.sample()
+        else:
+            snaps, quality, sample = _aligned(source, columns, cleaning, alignment, bar,
+                                              run_params.threads)  # fmt: skip
+            with bar.stage("surroundings"):
+                tally = focal_chain(snaps, params, workers=run_params.threads)
+        with bar.stage("persistence"):
+            bound = persistence.min_prevalent_snapshots(snaps.step_s)
+            levels = surrounding_sets(tally, params, bound)
+            tables: FocalTables = focal_tables(tally, levels, params, persistence)
+        sets = tables.sets
+        if significance.replicates > 0:
+            with bar.stage("significance"):
+                every = surrounding_sets(tally, params, 1)  # the family: sets seen surrounding
+                tests = focal_tests(snaps, tally, every, params, significance, run_params,
+                                    progress)  # fmt: skip
+            sets = sets.merge(tests[["around", *TEST_COLUMNS]], on="around", how="left",
+                              validate="1:1")  # fmt: skip
+    finally:
+        bar.close()
+    settings = settings_record(columns, cleaning, _effective(snaps), *stages[3:7], run_params)
+    run = run_record("focal", source, settings, extra={"caution": CAUTION, **_windows_note(plan)},
+                     digest=digest.result())  # fmt: skip
+    return FocalResult(sets, tables.neighbourhoods, tables.series, quality, run, snaps, tests,
+                       sample)  # fmt: skip
