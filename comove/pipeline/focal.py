@@ -122,8 +122,11 @@ def focal(source: Any, *, progress: bool = False, **options: Any) -> FocalResult
     ...     "x": [0.0, 10.0, 1.0, 11.0, 50.0, 10.5], "y": [0.0] * 6,
     ...     "role": ["calf", "calf", "mother", "mother", "yearling", "yearling"]})
     >>> result = focal(tracks, focal_role="calf", radius=2.0, step=10.0)
-    >>> result.sets[["around", "time_prevalence", "exact_share"]].to_dict("records")
-    [{'around': 'mother', 'time_prevalence': 1.0, 'exact_share': 0.5}]
+    >>> print(result.sets[["around", "time_prevalence", "exact_share"]].to_string(index=False))
+             around  time_prevalence  exact_share
+             mother              1.0          0.5
+           yearling              0.5          0.0
+    mother;yearling              0.5          0.5
     """
     from comove.io.provenance import run_record, settings_record
     from comove.pipeline.core import (

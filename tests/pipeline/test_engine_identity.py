@@ -17,6 +17,7 @@ from scenes import one_record, run_scenario
 from comove.cli import main
 from comove.io.scenarios import mine_options
 from comove.pipeline.core import mine
+from comove.pipeline.focal import focal
 from comove.pipeline.sweep import sweep
 
 SCENE = "small_sided_game"
@@ -105,3 +106,14 @@ def test_windows_run_on_a_dask_cluster_give_the_local_tables(cluster):
              for engine in ({"jobs": 1}, {"engine": "dask", "scheduler": cluster})]  # fmt: skip
     assert len(mined[0].patterns) > 0
     assert assert_same_tables(*mined) >= 3
+
+
+def test_focal_tables_are_the_same_on_a_dask_cluster(cluster):
+    # the null replicates, and the windows of a run cut in time, as the cluster's tasks
+    source, options = mine_options("fleet")
+    kept = {k: v for k, v in options.items() if k not in ("min_participation", "max_size")}
+    for run in ({"replicates": 19, "seed": 5}, {"replicates": 0, "chunk": "30min"}):
+        local = focal(source, focal_role="hauler", **kept, **run, jobs=2)
+        dask = focal(source, focal_role="hauler", **kept, **run, engine="dask", scheduler=cluster)
+        assert len(local.sets) > 0
+        assert assert_same_tables(local, dask) >= 3
