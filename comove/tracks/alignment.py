@@ -230,6 +230,16 @@ class Snapshots:
             y=self.y[lo:hi],
         )
 
+    def subset(self, keep: np.ndarray) -> Snapshots:
+        """Return only the entries where ``keep`` is true, on the same snapshot grid.
+
+        Object and role codes and names are kept, so results on subsets of one
+        run read alike (the periods and areas of :mod:`comove.tracks.zones`).
+        """
+        keep = np.asarray(keep, dtype=bool)
+        return replace(self, snap=self.snap[keep], obj=self.obj[keep], role=self.role[keep],
+                       x=self.x[keep], y=self.y[keep])  # fmt: skip
+
     def thinned(self, every: int) -> Snapshots:
         """Return every ``every``-th snapshot (0, every, 2 every, ...) as snapshots of their own.
 
