@@ -39,7 +39,7 @@ from comove.groups.presets import PRESETS  # noqa: E402
 from comove.io.results import CAUTION, Claim, claim, flat_settings  # noqa: E402
 from comove.io.runfile import current_names, former_names, load_run_file  # noqa: E402
 from comove.io.times import human_seconds, utc_iso  # noqa: E402
-from comove.pipeline.core import GROUP_STAGES, MINE_STAGES, groups, mine  # noqa: E402
+from comove.pipeline.core import GROUP_STAGES, MINE_STAGES, groups, mine, overall  # noqa: E402
 from comove.pipeline.focal import FOCAL_STAGES, focal  # noqa: E402
 from comove.pipeline.sweep import SWEEP_STAGES, sweep  # noqa: E402
 from comove.tracks.quality import format_quality_summary  # noqa: E402
@@ -391,17 +391,27 @@ def _report(result: comove.pipeline.core.MiningResult, out: Path, quiet: bool, h
     if quiet:
         return
     print(format_quality_summary(result.quality))
-    n = len(result.patterns)
-    print(f"\n{n} durable role set{'s' if n != 1 else ''} kept.")
+    patterns = overall(result.patterns)
+    n = len(patterns)
+    print(f"\n{n} durable role set{'s' if n != 1 else ''} kept{_over_all(result.patterns)}.")
     if n:
         shown = ["roles", "time_prevalence", "longest_run_s", "p_value", "q_value"]
-        top = result.patterns.head(10)[[c for c in shown if c in result.patterns]].copy()
+        top = patterns.head(10)[[c for c in shown if c in patterns]].copy()
         # durations for people, as the report writes them; the files keep seconds
         top["longest_run_s"] = top["longest_run_s"].map(human_seconds)
         top = top.rename(columns={"longest_run_s": "longest_run"})
         print(top.to_string(index=False, float_format=lambda v: f"{v:.3f}"))
     _written(out, held, f" — for figures: comove report {out}")
     print(f"Caution: {result.run.get('caution', CAUTION)}")
+
+
+def _over_all(table: pd.DataFrame) -> str:
+    """Return what the console adds when a table is split by period and area."""
+    if "period" not in table.columns:
+        return ""
+    zones = len(table[["period", "area"]].drop_duplicates())
+    return (" over every period and area (the files also give them per period and area"
+            f", {zones} parts in all)" if zones > 1 else " over every period and area")  # fmt: skip
 
 
 def _run_mine(args: argparse.Namespace) -> None:
@@ -424,10 +434,12 @@ def _run_groups(args: argparse.Namespace) -> None:
     if args.quiet:
         return
     print(format_quality_summary(result.quality))
-    n = len(result.episodes)
-    print(f"\n{n} episode{'s' if n != 1 else ''} of objects moving together.")
+    episodes = overall(result.episodes)
+    n = len(episodes)
+    print(f"\n{n} episode{'s' if n != 1 else ''} of objects moving together"
+          f"{_over_all(result.episodes)}.")  # fmt: skip
     if n:
-        top = result.episodes.sort_values("duration_s", ascending=False).head(10)
+        top = episodes.sort_values("duration_s", ascending=False).head(10)
         # times and durations for people, as the quality summary writes them
         table = pd.DataFrame({
             "episode": top["episode"],
@@ -439,7 +451,7 @@ def _run_groups(args: argparse.Namespace) -> None:
         print(table.to_string(index=False))
     listed = flat_settings(result.run)["dyad_pairs"]
     meaning = "together at least once" if listed == "together" else "seen at the same time"
-    print(f"{len(result.dyads)} pairs of objects {meaning} in dyads.csv.")
+    print(f"{len(overall(result.dyads))} pairs of objects {meaning} in dyads.csv.")
     _written(out, held, f" — for figures: comove report {out}")
     print(f"Caution: {result.run.get('caution', CAUTION)}")
 
@@ -456,15 +468,17 @@ def _run_focal(args: argparse.Namespace) -> None:
     if args.quiet:
         return
     print(format_quality_summary(result.quality))
-    role, n = options["focal_role"], len(result.sets)
-    print(f"\n{n} role set{'s' if n != 1 else ''} durably around {role}.")
+    sets = overall(result.sets)
+    role, n = options["focal_role"], len(sets)
+    print(f"\n{n} role set{'s' if n != 1 else ''} durably around {role}"
+          f"{_over_all(result.sets)}.")  # fmt: skip
     if n:
         shown = ["around", "time_prevalence", "mean_share", "longest_run_s", "p_value", "q_value"]
-        top = result.sets.head(10)[[c for c in shown if c in result.sets]].copy()
+        top = sets.head(10)[[c for c in shown if c in sets]].copy()
         top["longest_run_s"] = top["longest_run_s"].map(human_seconds)
         top = top.rename(columns={"longest_run_s": "longest_run"})
         print(top.to_string(index=False, float_format=lambda v: f"{v:.3f}"))
-    hoods = result.neighbourhoods
+    hoods = overall(result.neighbourhoods)
     alone = hoods.loc[hoods["size"] == 0, "share"].sum()
     print(f"Alone (no object within the neighbour distance): {alone:.1%} of the time.")
     _written(out, held, f" — for figures: comove report {out}")

@@ -70,7 +70,7 @@ def input_digest(source: Any) -> str:
 #: Settings recorded only when given: left out, they were not asked for (columns found
 #: by their names; no scratch folder, scheduler or number of jobs named).
 _RECORDED_WHEN_GIVEN = {
-    "ColumnSpec", "WindowParams.scratch", "RunParams.scheduler", "RunParams.jobs",
+    "ColumnSpec", "WindowParams.scratch", "RunParams.scheduler", "RunParams.jobs", "ZoneParams",
 }  # fmt: skip
 
 #: Settings never shown: fixed by the command, not by its user.
@@ -83,7 +83,8 @@ def settings_record(*stage_params: Any) -> dict[str, Any]:
     The keys are the option names of the command line and the run file
     (``min_prevalence`` for ``--min-prevalence``). Settings of stages that were
     not asked for are left out: the tests' settings when no test ran
-    (``replicates`` 0; the seed too), cross-K's without ``k_radii``, and the
+    (``replicates`` 0; the seed too), cross-K's without ``k_radii``, the areas'
+    name column without areas, and the
     settings in ``_RECORDED_WHEN_GIVEN`` that were not given.
     """
     out: dict[str, Any] = {}
@@ -100,6 +101,8 @@ def settings_record(*stage_params: Any) -> dict[str, Any]:
             continue
         if stage == "SignificanceParams" and untested:
             values = {"replicates": 0}
+        if stage == "ZoneParams" and values.get("areas") is None:
+            values.pop("area_name", None)
         for f in fields(params):
             if f.name not in values or f.name in _NOT_RECORDED:
                 continue

@@ -79,17 +79,19 @@ from comove.tracks.cleaning import CleanParams, clean_fixes
 from comove.tracks.motion import Motion
 from comove.tracks.neighbours import NeighbourPairs
 from comove.tracks.streaming import WindowParams, plan_windows
+from comove.tracks.zones import ALL, Zone, ZoneParams, plan_zones
 
-#: The stage settings of ``mine``, in pipeline order.
+#: The stage settings of ``mine``, in pipeline order; the periods and areas the
+#: results are split by come last (:mod:`comove.tracks.zones`).
 MINE_STAGES: tuple[type, ...] = (
     ColumnSpec, CleanParams, AlignParams, ColocationParams, PersistenceParams, SignificanceParams,
-    CrossKParams, WindowParams, RunParams,
+    CrossKParams, WindowParams, RunParams, ZoneParams,
 )  # fmt: skip
 
-#: The stage settings of ``groups``, in pipeline order.
+#: The stage settings of ``groups``, in pipeline order (periods and areas last).
 GROUP_STAGES: tuple[type, ...] = (
     ColumnSpec, CleanParams, AlignParams, GroupParams, EpisodeParams, DyadParams,
-    LeadershipParams, SignificanceParams, WindowParams, RunParams,
+    LeadershipParams, SignificanceParams, WindowParams, RunParams, ZoneParams,
 )  # fmt: skip
 
 
@@ -237,47 +239,94 @@ def mine(source: Any, *, progress: bool = False, **options: Any) -> MiningResult
     """
     stages = split_options(MINE_STAGES, options)
     columns, cleaning, alignment, colocation, persistence, significance, k_params = stages[:7]
-    window_params, run_params = stages[7], stages[8].resolved()
+    window_params, run_params, zone_params = stages[7], stages[8].resolved(), stages[9]
     plan = _plan(source, columns, window_params, run_params, significance, k_params)
     bar = _Progress(progress, total=7)
     digest = _digest_beside(source)
     try:
         if plan is not None:
-            patterns, tables, snaps, quality, sample = _mine_windows(
-                source, stages, plan, run_params, progress)  # fmt: skip
-            tests = cross = None
+            parts, snaps, quality, sample = _mine_windows(source, stages, plan, run_params,
+                                                          progress)  # fmt: skip
         else:
             snaps, quality, sample = _aligned(source, columns, cleaning, alignment, bar,
                                               run_params.threads)  # fmt: skip
-            with bar.stage("co-location"):
-                tally = role_chain(
-                    snaps,
-                    colocation,
-                    min_prevalent_snapshots=persistence.min_prevalent_snapshots(snaps.step_s),
-                    workers=run_params.threads,
-                )
-            with bar.stage("persistence"):
-                tables = durable_patterns(tally, persistence, colocation.min_participation)
-            tests = None
-            patterns = tables.patterns
-            if significance.replicates > 0:
-                with bar.stage("significance"):
-                    tests = pattern_tests(snaps, tally, colocation, significance, run_params,
-                                          progress)  # fmt: skip
-                    patterns = patterns.merge(
-                        tests[["roles", *TEST_COLUMNS]], on="roles", how="left", validate="1:1"
-                    )
-            cross = None
-            if k_params.k_radii is not None:
-                with bar.stage("cross-K"):
-                    cross = cross_k_tests(snaps, k_params, significance, run_params, progress)
+            zones = plan_zones(zone_params, snaps, columns.time_zone)
+            parts = [(zone, _mine_snaps(zone.apply(snaps), stages, run_params,
+                                        bar if zone.everything else _Progress(False, 0),
+                                        progress))
+                     for zone in zones]  # fmt: skip
     finally:
         bar.close()
-    settings = settings_record(columns, cleaning, _effective(snaps), *stages[3:8], run_params)
+    settings = settings_record(columns, cleaning, _effective(snaps), *stages[3:8], run_params,
+                               zone_params)  # fmt: skip
     run = run_record("mine", source, settings, extra={"caution": CAUTION, **_windows_note(plan)},
                      digest=digest.result())  # fmt: skip
-    return MiningResult(patterns, tables.participation, tables.series, quality, run, snaps, tests,
-                        cross, sample)  # fmt: skip
+    mined = [_Mined(*(zoned_table(zone, getattr(m, f.name), zone_params.split)
+                      for f in fields(_Mined))) for zone, m in parts]  # fmt: skip
+    tables = [joined_tables([getattr(m, f.name) for m in mined]) for f in fields(_Mined)]
+    return MiningResult(*tables[:3], quality, run, snaps, *tables[3:], sample)
+
+
+@dataclass
+class _Mined:
+    """What ``mine`` finds on the snapshots of one zone (or of the whole run)."""
+
+    patterns: pd.DataFrame
+    participation: pd.DataFrame
+    series: pd.DataFrame
+    tests: pd.DataFrame | None = None
+    cross_k: pd.DataFrame | None = None
+
+
+def _mine_snaps(snaps: Snapshots, stages: list, run_params: RunParams, bar: _Progress,
+                progress: bool) -> _Mined:  # fmt: skip
+    """Return the durable role sets of ``snaps``, with their tests and cross-K when asked for."""
+    colocation, persistence, significance, k_params = stages[3:7]
+    with bar.stage("co-location"):
+        tally = role_chain(snaps, colocation,
+                           min_prevalent_snapshots=persistence.min_prevalent_snapshots(snaps.step_s),
+                           workers=run_params.threads)  # fmt: skip
+    with bar.stage("persistence"):
+        tables = durable_patterns(tally, persistence, colocation.min_participation)
+    found = _Mined(tables.patterns, tables.participation, tables.series)
+    if significance.replicates > 0:
+        with bar.stage("significance"):
+            found.tests = pattern_tests(snaps, tally, colocation, significance, run_params,
+                                        progress)  # fmt: skip
+            found.patterns = found.patterns.merge(
+                found.tests[["roles", *TEST_COLUMNS]], on="roles", how="left", validate="1:1"
+            )
+    if k_params.k_radii is not None:
+        with bar.stage("cross-K"):
+            found.cross_k = cross_k_tests(snaps, k_params, significance, run_params, progress)
+    return found
+
+
+def zoned_table(zone: Zone, table: Any, split: bool) -> Any:
+    """Return ``table`` with the zone's ``period`` and ``area`` as its first columns.
+
+    Unchanged when results are not split by period or area (``split`` false),
+    or when there is no table.
+    """
+    if table is None or not split:
+        return table
+    table = table.copy()
+    table.insert(0, "period", pd.Series([zone.period] * len(table), index=table.index,
+                                        dtype=object))  # fmt: skip
+    table.insert(1, "area", pd.Series([zone.area] * len(table), index=table.index, dtype=object))
+    return table
+
+
+def joined_tables(tables: list[Any]) -> Any:
+    """Return the zones' tables one after the other (None when none exists)."""
+    present = [t for t in tables if t is not None]
+    if len(present) <= 1:
+        return present[0] if present else None
+    joined = pd.concat(present, ignore_index=True)
+    for column, dtype in present[0].dtypes.items():  # categories differ between zones
+        if isinstance(dtype, pd.CategoricalDtype):
+            joined[column] = joined[column].astype("category")
+    return joined
 
 
 def _plan(
@@ -326,14 +375,18 @@ def _windows_note(plan: tuple[int, int | None] | None) -> dict:
 
 def _mine_windows(source: Any, stages: list, plan: tuple[int, int | None],
                   run_params: RunParams, progress: bool) -> tuple:  # fmt: skip
-    """Return what ``mine`` needs of a run over time windows."""
-    columns, cleaning, alignment, colocation, persistence, _, _, window_params, _ = stages
+    """Return what ``mine`` needs of a run over time windows: per zone, what it found."""
+    columns, cleaning, alignment, colocation, persistence = stages[:5]
+    window_params, zone_params = stages[7], stages[9]
     with windowed_tracks(source, columns, cleaning, alignment, plan, window_params.scratch,
                          run_params, progress) as run:  # fmt: skip
         bound = persistence.min_prevalent_snapshots(run.shell.step_s)
-        tally = mine_windows(run, colocation, bound)
-        tables = durable_patterns(tally, persistence, colocation.min_participation)
-        return tables.patterns, tables, run.shell, run.quality(), run.sample()
+        parts = []
+        for n, zone in enumerate(plan_zones(zone_params, run.shell, columns.time_zone)):
+            tally = mine_windows(run.zoned(zone, n), colocation, bound)
+            tables = durable_patterns(tally, persistence, colocation.min_participation)
+            parts.append((zone, _Mined(tables.patterns, tables.participation, tables.series)))
+        return parts, run.shell, run.quality(), run.sample()
 
 
 def _digest_beside(source: Any) -> Future[str]:
@@ -453,7 +506,7 @@ class GroupsResult:
                 "episode_roles.csv": csv_writer(self.roles),
                 "dyads.csv": csv_writer(self.dyads),
                 "association.graphml": graphml_writer(
-                    self.objects, "object", self.dyads, "object_a", "object_b"
+                    overall(self.objects), "object", overall(self.dyads), "object_a", "object_b"
                 ),
                 "association_edges.csv": csv_writer(association_edges(self.dyads)),
                 "leadership.csv": csv_writer(self.leaders),
@@ -468,15 +521,21 @@ class GroupsResult:
         )
 
     def to_trajectories(self) -> Any:
-        """Return the episode centroid paths as a movingpandas ``TrajectoryCollection``."""
+        """Return the episode centroid paths as a movingpandas ``TrajectoryCollection``.
+
+        With periods or areas, an episode's trajectory id is ``period/area/episode``.
+        """
         import geopandas as gpd
         import movingpandas as mpd
 
         frames = []
         for (_, row), path in zip(self.episodes.iterrows(), self.centroids, strict=True):
             x, y = working_to_input(self.snapshots, path[:, 1], path[:, 2])
+            name = row["episode"]
+            if "period" in row:
+                name = f"{row['period']}/{row['area']}/{name}"
             frames.append(pd.DataFrame({
-                "episode": row["episode"],
+                "episode": name,
                 "time": pd.to_datetime(path[:, 0].astype("int64"), utc=True).tz_localize(None),
                 "x": x, "y": y,
             }))  # fmt: skip
@@ -524,45 +583,85 @@ def groups(
     if merged.get("radius") is None:
         raise bad_setting("radius", "is required: give it in metres, or a preset that sets one")
     stages = split_options(GROUP_STAGES, merged)
-    columns, cleaning, alignment, grouping, episode_params, dyad_params = stages[:6]
-    lead_params, significance, window_params = stages[6:9]
+    columns, cleaning, alignment = stages[:3]
+    significance, window_params, zone_params = stages[7], stages[8], stages[10]
     run_params = stages[9].resolved()
     plan = _plan(source, columns, window_params, run_params, significance)
     bar = _Progress(progress, total=6 if significance.replicates > 0 else 5)
     digest = _digest_beside(source)
     try:
         if plan is not None:
-            snaps, quality, sample, found = _group_windows(
-                source, stages, plan, run_params, progress)  # fmt: skip
+            snaps, quality, sample, found = _group_windows(source, stages, plan, run_params,
+                                                           progress)  # fmt: skip
         else:
             snaps, quality, sample = _aligned(source, columns, cleaning, alignment, bar,
                                               run_params.threads)  # fmt: skip
-            with bar.stage("groups, episodes, dyads and leaders"):
-                found = _observed_groups(snaps, stages, run_params)
-        with bar.stage("paths"):
-            paths, display = episode_paths(snaps, found.table, found.centroids)
-        roles, dyads = role_rollup(found.table), found.dyads
-        if significance.replicates > 0:
-            with bar.stage("significance"):
-                pair_tests, role_tests = group_tests(
-                    snaps, found.tally, dyads, found.table["roles"], grouping, episode_params,
-                    significance, run_params, progress,
-                )  # fmt: skip
-            if pair_tests is not None:
-                dyads = dyads.merge(pair_tests, on=["object_a", "object_b"], how="left",
-                                    validate="1:1")  # fmt: skip
-            roles = roles.merge(role_tests.drop(columns=["episodes", "together_s"]), on="roles",
-                                how="left", validate="1:1")  # fmt: skip
+            found = []
+            for zone in plan_zones(zone_params, snaps, columns.time_zone):
+                seen = zone.apply(snaps)
+                with _bar_of(zone, bar).stage("groups, episodes, dyads and leaders"):
+                    found.append((zone, seen, _observed_groups(seen, stages, run_params)))
+        parts = [(zone, _group_tables(seen, one, stages, run_params, _bar_of(zone, bar), progress))
+                 for zone, seen, one in found]  # fmt: skip
     finally:
         bar.close()
-    settings = settings_record(columns, cleaning, _effective(snaps), *stages[3:9], run_params)
+    settings = settings_record(columns, cleaning, _effective(snaps), *stages[3:9], run_params,
+                               zone_params)  # fmt: skip
     run = run_record("groups", source, settings,
                      extra={"preset": preset, "caution": caution_for(preset_subject(preset)),
                             **_windows_note(plan)},
                      digest=digest.result())  # fmt: skip
-    return GroupsResult(found.table, roles, dyads, found.objects, found.leaders,
-                        found.leader_roles, paths, display, quality, run, snaps, found.centroids,
+    tables = {f.name: joined_tables([zoned_table(zone, getattr(g, f.name), zone_params.split)
+                                     for zone, g in parts])
+              for f in fields(_Grouped) if f.name != "centroids"}  # fmt: skip
+    centroids = [c for _, g in parts for c in g.centroids]
+    return GroupsResult(tables["episodes"], tables["roles"], tables["dyads"], tables["objects"],
+                        tables["leaders"], tables["leader_roles"], tables["paths"],
+                        tables["display_paths"], quality, run, snaps, centroids,
                         sample)  # fmt: skip
+
+
+def _bar_of(zone: Zone, bar: _Progress) -> _Progress:
+    """Return the run's progress bar for the whole run, and a silent one for each zone."""
+    return bar if zone.everything else _Progress(False, 0)
+
+
+@dataclass
+class _Grouped:
+    """The tables ``groups`` gives of one zone (or of the whole run)."""
+
+    episodes: pd.DataFrame
+    roles: pd.DataFrame
+    dyads: pd.DataFrame
+    objects: pd.DataFrame
+    leaders: pd.DataFrame
+    leader_roles: pd.DataFrame
+    paths: Any
+    display_paths: Any
+    centroids: list
+
+
+def _group_tables(snaps: Snapshots, found: _Found, stages: list, run_params: RunParams,
+                  bar: _Progress, progress: bool) -> _Grouped:  # fmt: skip
+    """Return the tables of what ``groups`` found on ``snaps``: paths, roll-up, tests."""
+    grouping, episode_params = stages[3:5]
+    significance = stages[7]
+    with bar.stage("paths"):
+        paths, display = episode_paths(snaps, found.table, found.centroids)
+    roles, dyads = role_rollup(found.table), found.dyads
+    if significance.replicates > 0:
+        with bar.stage("significance"):
+            pair_tests, role_tests = group_tests(
+                snaps, found.tally, dyads, found.table["roles"], grouping, episode_params,
+                significance, run_params, progress,
+            )  # fmt: skip
+        if pair_tests is not None:
+            dyads = dyads.merge(pair_tests, on=["object_a", "object_b"], how="left",
+                                validate="1:1")  # fmt: skip
+        roles = roles.merge(role_tests.drop(columns=["episodes", "together_s"]), on="roles",
+                            how="left", validate="1:1")  # fmt: skip
+    return _Grouped(found.table, roles, dyads, found.objects, found.leaders, found.leader_roles,
+                    paths, display, found.centroids)  # fmt: skip
 
 
 def association_edges(dyads: pd.DataFrame) -> pd.DataFrame:
@@ -571,24 +670,49 @@ def association_edges(dyads: pd.DataFrame) -> pd.DataFrame:
     The weight is the half-weight index; every index is in ``dyads.csv`` and
     ``association.graphml``.
     """
-    return pd.DataFrame({"source": dyads["object_a"], "target": dyads["object_b"],
+    zones = [c for c in ("period", "area") if c in dyads.columns]
+    return pd.DataFrame({**{c: dyads[c] for c in zones}, "source": dyads["object_a"],
+                         "target": dyads["object_b"],
                          "weight": dyads["half_weight_index"]})  # fmt: skip
+
+
+def overall(table: pd.DataFrame) -> pd.DataFrame:
+    """Return the rows of a table split by period and area that are over everything.
+
+    A table that is not split is returned as it is; the ``period`` and
+    ``area`` columns are dropped.
+    """
+    if "period" not in table.columns:
+        return table
+    rows = (table["period"] == ALL) & (table["area"] == ALL)
+    return table[rows.to_numpy()].drop(columns=["period", "area"]).reset_index(drop=True)
 
 
 def _group_windows(source: Any, stages: list, plan: tuple[int, int | None],
                    run_params: RunParams, progress: bool) -> tuple:  # fmt: skip
-    """Return what ``groups`` needs of a run over time windows."""
+    """Return what ``groups`` needs of a run over time windows: per zone, what it found."""
     columns, cleaning, alignment, grouping, episode_params, dyad_params, lead = stages[:7]
     with windowed_tracks(source, columns, cleaning, alignment, plan, stages[8].scratch,
                          run_params, progress) as run:  # fmt: skip
-        found = group_windows(run, grouping, episode_params, dyad_params, lead)
-        leaders, leader_roles = found.leaders
-        return (
-            run.shell,
-            run.quality(),
-            run.sample(),
-            _Found(found.table, found.centroids, found.dyads, found.objects, leaders, leader_roles),
-        )
+        parts = []
+        for n, zone in enumerate(plan_zones(stages[10], run.shell, columns.time_zone)):
+            found = group_windows(run.zoned(zone, n), grouping, episode_params, dyad_params, lead)
+            leaders, leader_roles = found.leaders
+            parts.append(
+                (
+                    zone,
+                    run.shell,
+                    _Found(
+                        found.table,
+                        found.centroids,
+                        found.dyads,
+                        found.objects,
+                        leaders,
+                        leader_roles,
+                    ),
+                )
+            )
+        return run.shell, run.quality(), run.sample(), parts
 
 
 @dataclass

@@ -20,18 +20,19 @@ import pandas as pd
 
 from comove.io.reading import ColumnSpec
 from comove.io.results import CAUTION, csv_writer, json_writer, parquet_writer, write_folder
-from comove.roles.focal import FocalParams, FocalTables, focal_chain, focal_tables, surrounding_sets
+from comove.roles.focal import FocalParams, FocalTally, focal_chain, focal_tables, surrounding_sets
 from comove.roles.persistence import PersistenceParams
 from comove.stats.engine import RunParams
 from comove.stats.significance import TEST_COLUMNS, SignificanceParams, focal_tests
 from comove.tracks.alignment import AlignParams, Snapshots
 from comove.tracks.cleaning import CleanParams
 from comove.tracks.streaming import WindowParams
+from comove.tracks.zones import ZoneParams, plan_zones
 
 #: The stage settings of ``focal``, in pipeline order.
 FOCAL_STAGES: tuple[type, ...] = (
     ColumnSpec, CleanParams, AlignParams, FocalParams, PersistenceParams, SignificanceParams,
-    WindowParams, RunParams,
+    WindowParams, RunParams, ZoneParams,
 )  # fmt: skip
 
 
@@ -131,49 +132,69 @@ def focal(source: Any, *, progress: bool = False, **options: Any) -> FocalResult
     from comove.io.provenance import run_record, settings_record
     from comove.pipeline.core import (
         _aligned,
+        _bar_of,
         _digest_beside,
         _effective,
         _plan,
         _Progress,
         _windows_note,
+        joined_tables,
         split_options,
+        zoned_table,
     )
     from comove.pipeline.windows import focal_windows, windowed_tracks
 
     stages = split_options(FOCAL_STAGES, options)
-    columns, cleaning, alignment, params, persistence, significance, window_params = stages[:7]
+    columns, cleaning, alignment, params = stages[:4]
+    significance, window_params, zone_params = stages[5], stages[6], stages[8]
     run_params = stages[7].resolved()
     plan = _plan(source, columns, window_params, run_params, significance)
     bar = _Progress(progress, total=6)
     digest = _digest_beside(source)
-    tests = None
     try:
         if plan is not None:
             with windowed_tracks(source, columns, cleaning, alignment, plan,
                                  window_params.scratch, run_params, progress) as run:  # fmt: skip
-                tally = focal_windows(run, params)
+                found = [(zone, run.shell, focal_windows(run.zoned(zone, n), params))
+                         for n, zone in enumerate(plan_zones(zone_params, run.shell,
+                                                             columns.time_zone))]  # fmt: skip
                 snaps, quality, sample = run.shell, run.quality(), run.sample()
         else:
             snaps, quality, sample = _aligned(source, columns, cleaning, alignment, bar,
                                               run_params.threads)  # fmt: skip
-            with bar.stage("surroundings"):
-                tally = focal_chain(snaps, params, workers=run_params.threads)
-        with bar.stage("persistence"):
-            bound = persistence.min_prevalent_snapshots(snaps.step_s)
-            levels = surrounding_sets(tally, params, bound)
-            tables: FocalTables = focal_tables(tally, levels, params, persistence)
-        sets = tables.sets
-        if significance.replicates > 0:
-            with bar.stage("significance"):
-                every = surrounding_sets(tally, params, 1)  # the family: sets seen surrounding
-                tests = focal_tests(snaps, tally, every, params, significance, run_params,
-                                    progress)  # fmt: skip
-            sets = sets.merge(tests[["around", *TEST_COLUMNS]], on="around", how="left",
-                              validate="1:1")  # fmt: skip
+            found = []
+            for zone in plan_zones(zone_params, snaps, columns.time_zone):
+                seen = zone.apply(snaps)
+                with _bar_of(zone, bar).stage("surroundings"):
+                    found.append((zone, seen, focal_chain(seen, params,
+                                                          workers=run_params.threads)))  # fmt: skip
+        parts = [(zone, _focal_tables(seen, tally, stages, run_params, _bar_of(zone, bar),
+                                      progress)) for zone, seen, tally in found]  # fmt: skip
     finally:
         bar.close()
-    settings = settings_record(columns, cleaning, _effective(snaps), *stages[3:7], run_params)
+    settings = settings_record(columns, cleaning, _effective(snaps), *stages[3:7], run_params,
+                               zone_params)  # fmt: skip
     run = run_record("focal", source, settings, extra={"caution": CAUTION, **_windows_note(plan)},
                      digest=digest.result())  # fmt: skip
-    return FocalResult(sets, tables.neighbourhoods, tables.series, quality, run, snaps, tests,
-                       sample)  # fmt: skip
+    sets, hoods, series, tests = (
+        joined_tables([zoned_table(zone, part[k], zone_params.split) for zone, part in parts])
+        for k in range(4)
+    )
+    return FocalResult(sets, hoods, series, quality, run, snaps, tests, sample)
+
+
+def _focal_tables(snaps: Snapshots, tally: FocalTally, stages: list, run_params: RunParams,
+                  bar: Any, progress: bool) -> tuple:  # fmt: skip
+    """Return the kept sets, neighbourhoods, series and tests of one zone's neighbourhoods."""
+    params, persistence, significance = stages[3:6]
+    with bar.stage("persistence"):
+        bound = persistence.min_prevalent_snapshots(snaps.step_s)
+        tables = focal_tables(tally, surrounding_sets(tally, params, bound), params, persistence)
+    sets, tests = tables.sets, None
+    if significance.replicates > 0:
+        with bar.stage("significance"):
+            every = surrounding_sets(tally, params, 1)  # the family: sets seen surrounding
+            tests = focal_tests(snaps, tally, every, params, significance, run_params, progress)
+        sets = sets.merge(tests[["around", *TEST_COLUMNS]], on="around", how="left",
+                          validate="1:1")  # fmt: skip
+    return sets, tables.neighbourhoods, tables.series, tests

@@ -14,6 +14,7 @@ from collections.abc import Callable, Iterator
 from contextlib import AbstractContextManager, ExitStack, contextmanager, nullcontext
 from dataclasses import dataclass, field, replace
 from functools import reduce
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -50,6 +51,7 @@ from comove.tracks.cleaning import CleanParams
 from comove.tracks.motion import half_window_snapshots
 from comove.tracks.neighbours import NeighbourPairs
 from comove.tracks.streaming import Cleaned, release_memory, spill_tracks
+from comove.tracks.zones import Zone
 
 
 @dataclass
@@ -90,6 +92,8 @@ class Windowed:
     engine: Any = None
     threads: int = 1
     progress: bool = False
+    zone: Zone | None = None
+    zone_index: int = 0
     counts: np.ndarray = field(init=False)
     samples: list[pd.DataFrame] = field(init=False, default_factory=list)
 
@@ -99,6 +103,17 @@ class Windowed:
     def __getstate__(self) -> dict:
         # what a task needs: not the engine, nor what the windows counted
         return {**self.__dict__, "engine": None, "samples": []}
+
+    def zoned(self, zone: Zone, index: int) -> Windowed:
+        """Return the run seen through ``zone`` (``index``: its place among the run's zones).
+
+        Each window keeps only the zone's entries; the aligned windows the
+        scratch folder keeps are shared, the neighbour pairs are the zone's own.
+        ``all``/``all`` returns the run itself.
+        """
+        if zone.everything:
+            return self
+        return replace(self, zone=zone, zone_index=index)
 
     def map(self, work: Any, shared: Any, label: str, tasks: list | None = None) -> list:
         """Return ``[work((self, shared), task)]`` for each window, run by the engine.
@@ -145,24 +160,30 @@ class Windowed:
                 np.savez(path, first_index=outer.first_index, n_snapshots=outer.n_snapshots,
                          snap=outer.snap, obj=outer.obj, role=outer.role, x=outer.x,
                          y=outer.y)  # fmt: skip
+        if self.zone is not None:
+            outer = self.zone.apply(outer)
         start = g0 - outer.first_index
         return outer, start, start + (g1 - g0)
 
     def keep_pairs(self, i: int, pairs: NeighbourPairs) -> None:
         """Keep window ``i``'s own neighbour pairs in the scratch folder, for a later pass."""
         small = np.int32 if pairs.j.size == 0 or pairs.j[-1] < 2**31 else np.int64
-        np.savez(self.cleaned.spill.folder / f"pairs-{i}.npz", i=pairs.i.astype(small),
+        np.savez(self._pairs_path(i), i=pairs.i.astype(small),
                  j=pairs.j.astype(small), radius=pairs.radius)  # fmt: skip
 
     def kept_pairs(self, i: int, radius: float) -> NeighbourPairs | None:
         """Return window ``i``'s neighbour pairs within ``radius`` if a pass kept them."""
-        path = self.cleaned.spill.folder / f"pairs-{i}.npz"
+        path = self._pairs_path(i)
         if not path.exists():
             return None
         with np.load(path) as data:
             if float(data["radius"]) != radius:
                 return None
             return NeighbourPairs(data["i"].astype(np.int64), data["j"].astype(np.int64), radius)
+
+    def _pairs_path(self, i: int) -> Path:
+        """Return where window ``i``'s neighbour pairs (of this zone's entries) are kept."""
+        return self.cleaned.spill.folder / f"pairs-{self.zone_index}-{i}.npz"
 
     def _load(self, path) -> Snapshots:
         with np.load(path) as data:
@@ -269,19 +290,23 @@ def mine_windows(
     Each window is mined without pruning; the tallies joined are pruned with
     the whole period's bound, as :func:`comove.roles.chain.role_chain` mines it in one piece.
     """
-    found = run.map(_mine_window, colocation, "co-location")
+    found = run.map(_chain_window, (role_chain, colocation), "co-location")
     run.count([part for _, part in found])
     return prune_levels(combine_role_tallies([tally for tally, _ in found]),
                         min_prevalent_snapshots)  # fmt: skip
 
 
-def _mine_window(shared: tuple[Windowed, ColocationParams], i: int) -> tuple:
-    """Mine window ``i`` (a task): its tally, entries per object and track sample."""
-    run, colocation = shared
+def _chain_window(shared: tuple[Windowed, tuple[Callable, Any]], i: int) -> tuple:
+    """Run a chain on window ``i`` (a task): its tally, entries per object and track sample.
+
+    The chain is :func:`~comove.roles.chain.role_chain` or
+    :func:`~comove.roles.focal.focal_chain`, with its settings.
+    """
+    run, (chain, params) = shared
     outer, start, stop = run.outer(i)
     chunk = outer.window(start, stop)
     del outer
-    tally = role_chain(chunk, colocation, workers=run.threads)
+    tally = chain(chunk, params, workers=run.threads)
     counted = run.counted(chunk)
     del chunk
     release_memory()
@@ -290,22 +315,9 @@ def _mine_window(shared: tuple[Windowed, ColocationParams], i: int) -> tuple:
 
 def focal_windows(run: Windowed, params: FocalParams) -> FocalTally:
     """Return the focal role's neighbourhoods over the whole run, window by window."""
-    found = run.map(_focal_window, params, "surroundings")
+    found = run.map(_chain_window, (focal_chain, params), "surroundings")
     run.count([part for _, part in found])
     return FocalTally.joined([tally for tally, _ in found])
-
-
-def _focal_window(shared: tuple[Windowed, FocalParams], i: int) -> tuple:
-    """Count window ``i``'s neighbourhoods (a task): its tally, entries per object, sample."""
-    run, params = shared
-    outer, start, stop = run.outer(i)
-    chunk = outer.window(start, stop)
-    del outer
-    tally = focal_chain(chunk, params, workers=run.threads)
-    counted = run.counted(chunk)
-    del chunk
-    release_memory()
-    return tally, counted
 
 
 @dataclass

@@ -117,3 +117,13 @@ def test_focal_tables_are_the_same_on_a_dask_cluster(cluster):
         dask = focal(source, focal_role="hauler", **kept, **run, engine="dask", scheduler=cluster)
         assert len(local.sets) > 0
         assert assert_same_tables(local, dask) >= 3
+
+
+def test_periods_over_windows_are_the_same_on_a_dask_cluster(cluster):
+    # each zone's windows are the cluster's tasks, the zone travelling with them
+    source, options = mine_options("herd")
+    run = {"replicates": 0, "chunk": "5 days", "periods": "day-night"}
+    local = mine(source, **options, **run, jobs=2)
+    dask = mine(source, **options, **run, engine="dask", scheduler=cluster)
+    assert {"day", "night"} < set(local.patterns["period"])
+    assert assert_same_tables(local, dask) >= 3
