@@ -131,7 +131,6 @@ def focal(source: Any, *, progress: bool = False, **options: Any) -> FocalResult
     """
     from comove.io.provenance import run_record, settings_record
     from comove.pipeline.core import (
-        _aligned,
         _bar_of,
         _digest_beside,
         _effective,
@@ -142,7 +141,6 @@ def focal(source: Any, *, progress: bool = False, **options: Any) -> FocalResult
         split_options,
         zoned_table,
     )
-    from comove.pipeline.windows import focal_windows, windowed_tracks
 
     stages = split_options(FOCAL_STAGES, options)
     columns, cleaning, alignment, params = stages[:4]
@@ -152,22 +150,8 @@ def focal(source: Any, *, progress: bool = False, **options: Any) -> FocalResult
     bar = _Progress(progress, total=6)
     digest = _digest_beside(source)
     try:
-        if plan is not None:
-            with windowed_tracks(source, columns, cleaning, alignment, plan,
-                                 window_params.scratch, run_params, progress) as run:  # fmt: skip
-                found = [(zone, run.shell, focal_windows(run.zoned(zone, n), params))
-                         for n, zone in enumerate(plan_zones(zone_params, run.shell,
-                                                             columns.time_zone))]  # fmt: skip
-                snaps, quality, sample = run.shell, run.quality(), run.sample()
-        else:
-            snaps, quality, sample = _aligned(source, columns, cleaning, alignment, bar,
-                                              run_params.threads)  # fmt: skip
-            found = []
-            for zone in plan_zones(zone_params, snaps, columns.time_zone):
-                seen = zone.apply(snaps)
-                with _bar_of(zone, bar).stage("surroundings"):
-                    found.append((zone, seen, focal_chain(seen, params,
-                                                          workers=run_params.threads)))  # fmt: skip
+        snaps, quality, sample, found = _neighbourhoods(source, stages, plan, run_params, bar,
+                                                        progress)  # fmt: skip
         parts = [(zone, _focal_tables(seen, tally, stages, run_params, _bar_of(zone, bar),
                                       progress)) for zone, seen, tally in found]  # fmt: skip
     finally:
@@ -181,6 +165,31 @@ def focal(source: Any, *, progress: bool = False, **options: Any) -> FocalResult
         for k in range(4)
     )
     return FocalResult(sets, hoods, series, quality, run, snaps, tests, sample)
+
+
+def _neighbourhoods(source: Any, stages: list, plan: Any, run_params: RunParams, bar: Any,
+                    progress: bool) -> tuple:  # fmt: skip
+    """Return the snapshots (or their shell), quality, sample, and each zone's neighbourhoods."""
+    from comove.pipeline.core import _aligned, _bar_of
+    from comove.pipeline.windows import focal_windows, windowed_tracks
+
+    columns, cleaning, alignment, params = stages[:4]
+    window_params, zone_params = stages[6], stages[8]
+    if plan is not None:
+        with windowed_tracks(source, columns, cleaning, alignment, plan, window_params.scratch,
+                             run_params, progress) as run:  # fmt: skip
+            zones = plan_zones(zone_params, run.shell, columns.time_zone)
+            found = [(zone, run.shell, focal_windows(run.zoned(zone, n), params))
+                     for n, zone in enumerate(zones)]  # fmt: skip
+            return run.shell, run.quality(), run.sample(), found
+    snaps, quality, sample = _aligned(source, columns, cleaning, alignment, bar,
+                                      run_params.threads)  # fmt: skip
+    found = []
+    for zone in plan_zones(zone_params, snaps, columns.time_zone):
+        seen = zone.apply(snaps)
+        with _bar_of(zone, bar).stage("surroundings"):
+            found.append((zone, seen, focal_chain(seen, params, workers=run_params.threads)))
+    return snaps, quality, sample, found
 
 
 def _focal_tables(snaps: Snapshots, tally: FocalTally, stages: list, run_params: RunParams,
