@@ -119,3 +119,36 @@ def test_no_table_keeps_a_former_column_name():
         now = {c for c, _ in tables[name]}
         assert not set(former) & now, name
         assert set(former.values()) <= now, name
+
+
+def test_with_periods_every_table_starts_with_period_and_area(tmp_path):
+    # docs/results-folder.md: with --periods or --areas every table (and GeoJSON) gains
+    # period and area as its first columns, then the documented ones
+    periods = tmp_path / "periods.csv"
+    start = 1778925600  # the game's first time, epoch seconds
+    periods.write_text(f"name,start,end\nearly,{start},{start + 300}\n"
+                       f"late,{start + 300},{start + 3600}\n")  # fmt: skip
+    runs = {
+        "mine": ["mine", GAME, "--radius", "3"],
+        "groups": ["groups", GAME, "--preset", "team-sport"],
+        "focal": ["focal", GAME, "--focal-role", "teal_forward", "--radius", "3"],
+    }
+    tables, with_tests = documented()
+    tests = [c for c, _ in tables.pop("(tests)")]
+    seen = 0
+    for name, argv in runs.items():
+        out = tmp_path / name
+        assert main([*argv, "--periods", str(periods), "--replicates", "9", "--quiet",
+                     "--out", str(out)]) == 0  # fmt: skip
+        for path in sorted(p for p in out.rglob("*")
+                           if p.suffix in {".csv", ".parquet", ".geojson"}):  # fmt: skip
+            if path.name == "track_sample.parquet":  # the tracks themselves, not split
+                continue
+            columns = written_columns(path)
+            assert columns[:2] == ["period", "area"], path.name
+            expected = [c for c, _ in tables[path.name]]
+            if path.name in with_tests or path.name == "significance.csv":
+                expected += tests
+            assert columns[2:] == expected, path.name
+            seen += 1
+    assert seen >= 14
