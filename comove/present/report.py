@@ -96,6 +96,7 @@ class _Results:
     leader_roles: pd.DataFrame | None = None
     focal: pd.DataFrame | None = None
     neighbourhoods: pd.DataFrame | None = None
+    by_part: dict[str, pd.DataFrame] = field(default_factory=dict)
 
 
 def _load(source: ResultsFolder) -> _Results:
@@ -103,6 +104,10 @@ def _load(source: ResultsFolder) -> _Results:
     res = _Results(source)
     res.runs = source.runs()
     res.quality = source.quality()
+    for name in ("patterns.csv", "focal.csv", "episodes.csv"):  # split by period and area
+        table = source.table(name)
+        if table is not None and "period" in table.columns:
+            res.by_part[name] = table
     res.patterns = _over_all(source.table("patterns.csv"))
     res.cross_k = _over_all(source.table("cross_k.csv"))
     res.episodes = _over_all(source.table("episodes.csv"))
@@ -635,6 +640,47 @@ def _focal_section(res: _Results) -> tuple[str, list[_Picture]]:
     return "\n".join(parts), [pic]
 
 
+#: Most role sets compared across periods and areas.
+PART_SETS = 12
+
+
+def _parts_section(res: _Results) -> tuple[str, list[_Picture]]:
+    """Return the comparison of periods and areas: the leading sets' time prevalence per part."""
+    if not res.by_part:
+        return "", []
+    parts = ["<h2>By period and area</h2>",
+             "<p class=\"muted\">Each part is analysed on its own entries (an object counts in "
+             "an area while inside it; episodes are cut at a period's ends); the sections "
+             "above describe the rows over everything (all / all). Blank: not kept there."
+             "</p>"]  # fmt: skip
+    compared = (
+        ("patterns.csv", "roles", "Durable role sets"),
+        ("focal.csv", "around", "Role sets around the focal role"),
+    )
+    for name, key, title in compared:
+        table = res.by_part.get(name)
+        if table is None or table.empty:
+            continue
+        label = table["period"].astype(str) + " / " + table["area"].astype(str)
+        zones = list(dict.fromkeys(label))
+        shown = list(dict.fromkeys(table.loc[label == "all / all", key].astype(str)))[:PART_SETS]
+        value = dict(zip(zip(table[key].astype(str), label, strict=True),
+                         table["time_prevalence"], strict=True))  # fmt: skip
+        rows = [[_roles_text(s)] + [_num(value[(s, z)]) if (s, z) in value else ""
+                                    for z in zones] for s in shown]  # fmt: skip
+        parts.append(f"<h3>{_e(title)}: time prevalence in each part</h3>")
+        parts.append(_table(["role set", *zones], rows, set(range(1, len(zones) + 1))))
+    episodes = res.by_part.get("episodes.csv")
+    if episodes is not None:
+        label = episodes["period"].astype(str) + " / " + episodes["area"].astype(str)
+        rows = [[_e(z), _num(int((label == z).sum())),
+                 _e(_duration(episodes.loc[label == z, "together_s"].sum()))]
+                for z in dict.fromkeys(label)]  # fmt: skip
+        parts.append("<h3>Episodes in each part</h3>")
+        parts.append(_table(["period / area", "episodes", "time together, summed"], rows, {1}))
+    return "\n".join(parts), []
+
+
 def _cross_section(res: _Results) -> tuple[str, list[_Picture]]:
     """Return the cross-L curves of the top role pairs."""
     cross = res.cross_k
@@ -760,6 +806,7 @@ def _assemble(res: _Results, max_points: int) -> tuple[str, list[_Picture]]:
         lambda: _dyad_section(res),
         lambda: _leader_section(res),
         lambda: _focal_section(res),
+        lambda: _parts_section(res),
         lambda: _cross_section(res),
     ]
     if res.sweep is not None:

@@ -42,6 +42,12 @@ def test_a_period_boundary_cuts_an_episode_and_the_overall_rows_stay(tmp_path):
         assert (part["start"] == pd.Timestamp((T0 + first) * 10**9, tz="UTC")).all()
         assert (part["end"] == pd.Timestamp((T0 + last) * 10**9, tz="UTC")).all()
     assert (split.episodes["area"] == "all").all()
+    # the report describes the run over everything, and compares the parts in a section
+    from comove.present.report import build_report
+
+    page = build_report(split.write(tmp_path / "res")).read_text()
+    assert "By period and area" in page and "early / all" in page and "late / all" in page
+    assert page.count("<h2>Episodes") <= 1
 
 
 def test_an_object_counts_in_an_area_only_while_inside(tmp_path):
