@@ -36,10 +36,10 @@ import pandas as pd  # noqa: E402
 import comove  # noqa: E402
 from comove.errors import ComoveNote, EngineError, InputError  # noqa: E402
 from comove.groups.presets import PRESETS  # noqa: E402
-from comove.io.results import CAUTION, Claim, claim, flat_settings  # noqa: E402
+from comove.io.results import CAUTION, Claim, claim, flat_settings, overall  # noqa: E402
 from comove.io.runfile import current_names, former_names, load_run_file  # noqa: E402
 from comove.io.times import human_seconds, utc_iso  # noqa: E402
-from comove.pipeline.core import GROUP_STAGES, MINE_STAGES, groups, mine, overall  # noqa: E402
+from comove.pipeline.core import GROUP_STAGES, MINE_STAGES, groups, mine  # noqa: E402
 from comove.pipeline.focal import FOCAL_STAGES, focal  # noqa: E402
 from comove.pipeline.sweep import SWEEP_STAGES, sweep  # noqa: E402
 from comove.tracks.quality import format_quality_summary  # noqa: E402
@@ -393,7 +393,7 @@ def _report(result: comove.pipeline.core.MiningResult, out: Path, quiet: bool, h
     print(format_quality_summary(result.quality))
     patterns = overall(result.patterns)
     n = len(patterns)
-    print(f"\n{n} durable role set{'s' if n != 1 else ''} kept{_over_all(result.patterns)}.")
+    print(f"\n{n} durable role set{'s' if n != 1 else ''} kept{_parts_note(result.patterns)}.")
     if n:
         shown = ["roles", "time_prevalence", "longest_run_s", "p_value", "q_value"]
         top = patterns.head(10)[[c for c in shown if c in patterns]].copy()
@@ -405,7 +405,7 @@ def _report(result: comove.pipeline.core.MiningResult, out: Path, quiet: bool, h
     print(f"Caution: {result.run.get('caution', CAUTION)}")
 
 
-def _over_all(table: pd.DataFrame) -> str:
+def _parts_note(table: pd.DataFrame) -> str:
     """Return what the console adds when a table is split by period and area."""
     if "period" not in table.columns:
         return ""
@@ -437,7 +437,7 @@ def _run_groups(args: argparse.Namespace) -> None:
     episodes = overall(result.episodes)
     n = len(episodes)
     print(f"\n{n} episode{'s' if n != 1 else ''} of objects moving together"
-          f"{_over_all(result.episodes)}.")  # fmt: skip
+          f"{_parts_note(result.episodes)}.")  # fmt: skip
     if n:
         top = episodes.sort_values("duration_s", ascending=False).head(10)
         # times and durations for people, as the quality summary writes them
@@ -471,7 +471,7 @@ def _run_focal(args: argparse.Namespace) -> None:
     sets = overall(result.sets)
     role, n = options["focal_role"], len(sets)
     print(f"\n{n} role set{'s' if n != 1 else ''} durably around {role}"
-          f"{_over_all(result.sets)}.")  # fmt: skip
+          f"{_parts_note(result.sets)}.")  # fmt: skip
     if n:
         shown = ["around", "time_prevalence", "mean_share", "longest_run_s", "p_value", "q_value"]
         top = sets.head(10)[[c for c in shown if c in sets]].copy()

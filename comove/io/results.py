@@ -546,6 +546,22 @@ def by_command(content: Mapping[str, Any]) -> dict[str, dict]:
     return {str(content.get("command", "run")): dict(content)}
 
 
+#: The name of the rows over every period or every area (``--periods``, ``--areas``).
+ALL_PARTS = "all"
+
+
+def overall(table: Any) -> Any:
+    """Return the rows of a table split by period and area that are over everything.
+
+    The ``period`` and ``area`` columns are dropped; a table that is not split
+    (or None) is returned as it is.
+    """
+    if table is None or "period" not in table.columns:
+        return table
+    rows = ((table["period"] == ALL_PARTS) & (table["area"] == ALL_PARTS)).to_numpy()
+    return table[rows].drop(columns=["period", "area"]).reset_index(drop=True)
+
+
 def flat_settings(run: dict[str, Any]) -> dict[str, Any]:
     """Return a run record's settings by option name, whichever layout it was written in.
 

@@ -44,6 +44,7 @@ from comove.io.results import (
     geoparquet_writer,
     graphml_writer,
     json_writer,
+    overall,
     parquet_writer,
     write_folder,
 )
@@ -79,7 +80,7 @@ from comove.tracks.cleaning import CleanParams, clean_fixes
 from comove.tracks.motion import Motion
 from comove.tracks.neighbours import NeighbourPairs
 from comove.tracks.streaming import WindowParams, plan_windows
-from comove.tracks.zones import ALL, Zone, ZoneParams, plan_zones
+from comove.tracks.zones import Zone, ZoneParams, plan_zones
 
 #: The stage settings of ``mine``, in pipeline order; the periods and areas the
 #: results are split by come last (:mod:`comove.tracks.zones`).
@@ -674,18 +675,6 @@ def association_edges(dyads: pd.DataFrame) -> pd.DataFrame:
     return pd.DataFrame({**{c: dyads[c] for c in zones}, "source": dyads["object_a"],
                          "target": dyads["object_b"],
                          "weight": dyads["half_weight_index"]})  # fmt: skip
-
-
-def overall(table: pd.DataFrame) -> pd.DataFrame:
-    """Return the rows of a table split by period and area that are over everything.
-
-    A table that is not split is returned as it is; the ``period`` and
-    ``area`` columns are dropped.
-    """
-    if "period" not in table.columns:
-        return table
-    rows = (table["period"] == ALL) & (table["area"] == ALL)
-    return table[rows.to_numpy()].drop(columns=["period", "area"]).reset_index(drop=True)
 
 
 def _group_windows(source: Any, stages: list, plan: tuple[int, int | None],

@@ -196,14 +196,17 @@ def _focal_tables(snaps: Snapshots, tally: FocalTally, stages: list, run_params:
                   bar: Any, progress: bool) -> tuple:  # fmt: skip
     """Return the kept sets, neighbourhoods, series and tests of one zone's neighbourhoods."""
     params, persistence, significance = stages[3:6]
+    tested = significance.replicates > 0
     with bar.stage("persistence"):
-        bound = persistence.min_prevalent_snapshots(snaps.step_s)
-        tables = focal_tables(tally, surrounding_sets(tally, params, bound), params, persistence)
+        # with tests, every set seen surrounding (the family) is grown; the kept ones are
+        # the same, since a kept set has at least the bound's prevalent snapshots
+        bound = 1 if tested else persistence.min_prevalent_snapshots(snaps.step_s)
+        levels = surrounding_sets(tally, params, bound)
+        tables = focal_tables(tally, levels, params, persistence)
     sets, tests = tables.sets, None
-    if significance.replicates > 0:
+    if tested:
         with bar.stage("significance"):
-            every = surrounding_sets(tally, params, 1)  # the family: sets seen surrounding
-            tests = focal_tests(snaps, tally, every, params, significance, run_params, progress)
+            tests = focal_tests(snaps, tally, levels, params, significance, run_params, progress)
         sets = sets.merge(tests[["around", *TEST_COLUMNS]], on="around", how="left",
                           validate="1:1")  # fmt: skip
     return sets, tables.neighbourhoods, tables.series, tests

@@ -29,6 +29,7 @@ from comove.io.results import (
     claim,
     flat_settings,
     open_results,
+    overall,
     text_writer,
 )
 from comove.io.times import human_seconds, utc_iso
@@ -108,27 +109,16 @@ def _load(source: ResultsFolder) -> _Results:
         table = source.table(name)
         if table is not None and "period" in table.columns:
             res.by_part[name] = table
-    res.patterns = _over_all(source.table("patterns.csv"))
-    res.cross_k = _over_all(source.table("cross_k.csv"))
-    res.episodes = _over_all(source.table("episodes.csv"))
-    res.dyads = _over_all(source.table("dyads.csv"))
+    res.patterns = overall(source.table("patterns.csv"))
+    res.cross_k = overall(source.table("cross_k.csv"))
+    res.episodes = overall(source.table("episodes.csv"))
+    res.dyads = overall(source.table("dyads.csv"))
     res.sweep = source.table("sweep.csv")
-    res.leaders = _over_all(source.table("leadership.csv"))
-    res.leader_roles = _over_all(source.table("leadership_roles.csv"))
-    res.focal = _over_all(source.table("focal.csv"))
-    res.neighbourhoods = _over_all(source.table("focal_neighbourhoods.csv"))
+    res.leaders = overall(source.table("leadership.csv"))
+    res.leader_roles = overall(source.table("leadership_roles.csv"))
+    res.focal = overall(source.table("focal.csv"))
+    res.neighbourhoods = overall(source.table("focal_neighbourhoods.csv"))
     return res
-
-
-def _over_all(table: Any) -> Any:
-    """Return the rows over every period and area of a table split by them (else the table).
-
-    The report describes the run over everything; the files keep each period and area.
-    """
-    if table is None or "period" not in table.columns:
-        return table
-    rows = ((table["period"] == "all") & (table["area"] == "all")).to_numpy()
-    return table[rows].drop(columns=["period", "area"]).reset_index(drop=True)
 
 
 # ---------------------------------------------------------------- text helpers
@@ -464,7 +454,7 @@ def _map_section(res: _Results, max_points: int) -> tuple[str, list[_Picture]]:
         stored_every = int(sample.attrs.get("every", 1) or 1)
     paths = coords = geo = None
     if res.episodes is not None and len(res.episodes):
-        geo = _over_all(res.source.geoparquet("episode_paths.parquet"))
+        geo = overall(res.source.geoparquet("episode_paths.parquet"))
     if geo is not None:
         import shapely
 

@@ -283,6 +283,29 @@ def _distinct_rows(snap: np.ndarray, masks: np.ndarray) -> tuple[np.ndarray, ...
     return snap[starts].astype(np.int64), masks[starts], np.diff(np.append(starts, snap.size))
 
 
+def _focal_counts(tally: FocalTally) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Return the snapshots with focal objects, each row's place among them, and their counts."""
+    snapshots, inverse = np.unique(tally.snap, return_inverse=True)
+    focal_n = np.bincount(inverse, weights=tally.count, minlength=snapshots.size).astype(np.int64)
+    return snapshots, inverse, focal_n
+
+
+def _present(
+    tally: FocalTally, roles: np.ndarray, snapshots: np.ndarray, focal_n: np.ndarray
+) -> np.ndarray:
+    """Return which of ``snapshots`` are in present(S) for the role set ``roles``.
+
+    The focal role and every other role of S have an object there; two focal
+    objects when S holds the focal role.
+    """
+    others = roles[roles != tally.focal]
+    present = focal_n >= 1 + int(others.size < roles.size)
+    if others.size:
+        bits = np.unpackbits(tally.presence.mask(others), count=tally.presence.n_snapshots)
+        present &= bits[snapshots].astype(bool)
+    return present
+
+
 @dataclass
 class FocalLevel:
     """The sets of one size around the focal role, with their per-snapshot shares.
@@ -333,8 +356,7 @@ def surrounding_sets(
         candidate generation): what a null replicate needs of the tested sets.
     """
     n_roles = len(tally.roles)
-    snapshots, inverse = np.unique(tally.snap, return_inverse=True)
-    focal_n = np.bincount(inverse, weights=tally.count, minlength=snapshots.size).astype(np.int64)
+    snapshots, inverse, focal_n = _focal_counts(tally)
     bound = max(int(min_prevalent_snapshots), 1)
     levels: list[FocalLevel] = []
     sets = np.arange(n_roles, dtype=np.int64)[:, None] if only is None else None
@@ -373,12 +395,7 @@ def _count_level(
         hit = ((tally.masks & wanted[s]) == wanted[s]).all(axis=1)
         hits = np.bincount(inverse[hit], weights=tally.count[hit], minlength=n_snap)
         share = hits / np.maximum(focal_n, 1)
-        others = sets[s][sets[s] != tally.focal]
-        is_present = focal_n >= 1 + int(others.size < sets.shape[1])
-        if others.size:
-            bits = np.unpackbits(tally.presence.mask(others), count=tally.presence.n_snapshots)
-            is_present &= bits[snapshots].astype(bool)
-        present[s] = int(is_present.sum())
+        present[s] = int(_present(tally, sets[s], snapshots, focal_n).sum())
         prevalent[s] = int((share >= min_share - RATIO_EPS).sum())
         rows = np.flatnonzero(hits > 0)
         parts.append((np.full(rows.size, s, dtype=np.int64), snapshots[rows],
@@ -435,8 +452,9 @@ def focal_tables(
     """
     names, step_s, focal_name = tally.roles, tally.step_s, str(tally.roles[tally.focal])
     rows, series = [], []
-    exact = _exact_counts(tally)
-    total = max(int(tally.count.sum()), 1)
+    hoods = neighbourhood_table(tally)
+    exact = dict(zip(hoods["around"], hoods["share"], strict=True))
+    snapshots, _, focal_n = _focal_counts(tally)
     for level in levels:
         kept = persistence.keeps(level.prevalent, level.present, step_s)
         n_sets = level.roles.shape[0]
@@ -454,9 +472,10 @@ def focal_tables(
                 "longest_run_s": float(longest[s] * step_s),
                 "longest_run_start": pd.Timestamp(int(tally.times(start[s : s + 1])[0]), tz="UTC"),
                 "mean_share": float(share_sum[s] / max(present, 1)),
-                "exact_share": exact.get(level.roles[s].tobytes(), 0) / total,
+                "exact_share": float(exact.get(label, 0.0)),
             })  # fmt: skip
-            series.append(_series(tally, level, s, label, params.min_share))
+            present_at = snapshots[_present(tally, level.roles[s], snapshots, focal_n)]
+            series.append(_series(tally, level, s, label, present_at, params.min_share))
     sets = pd.DataFrame(rows, columns=FOCAL_COLUMNS)
     if len(sets):
         sets = sets.sort_values(["time_prevalence", "size", "around"],
@@ -468,15 +487,7 @@ def focal_tables(
         else pd.DataFrame({c: pd.Series(dtype=t) for c, t in FOCAL_SERIES_DTYPES.items()})
     )
     frame["around"] = frame["around"].astype("category")
-    return FocalTables(sets, neighbourhood_table(tally), frame)
-
-
-def _exact_counts(tally: FocalTally) -> dict[bytes, int]:
-    """Return focal object-snapshots per exact neighbourhood, keyed by its role codes' bytes."""
-    out: dict[bytes, int] = {}
-    for roles, count in zip(*_neighbourhoods(tally), strict=True):
-        out[roles.tobytes()] = int(count)
-    return out
+    return FocalTables(sets, hoods, frame)
 
 
 def _neighbourhoods(tally: FocalTally) -> tuple[list[np.ndarray], np.ndarray]:
@@ -513,18 +524,9 @@ def neighbourhood_table(tally: FocalTally) -> pd.DataFrame:
 
 
 def _series(
-    tally: FocalTally, level: FocalLevel, s: int, label: str, min_share: float
+    tally: FocalTally, level: FocalLevel, s: int, label: str, snap: np.ndarray, min_share: float
 ) -> pd.DataFrame:
-    """Return the share of set ``s`` at every snapshot of present(S), zeros included."""
-    roles = level.roles[s]
-    others = roles[roles != tally.focal]
-    snapshots, inverse = np.unique(tally.snap, return_inverse=True)
-    focal_n = np.bincount(inverse, weights=tally.count, minlength=snapshots.size)
-    present = focal_n >= 1 + int(others.size < roles.size)
-    if others.size:
-        bits = np.unpackbits(tally.presence.mask(others), count=tally.presence.n_snapshots)
-        present &= bits[snapshots].astype(bool)
-    snap = snapshots[present]
+    """Return the share of set ``s`` at every snapshot ``snap`` of present(S), zeros included."""
     lo, hi = np.searchsorted(level.set_id, [s, s + 1])
     share = np.zeros(snap.size)
     share[np.searchsorted(snap, level.snap[lo:hi])] = level.share[lo:hi]

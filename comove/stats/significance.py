@@ -688,8 +688,6 @@ class FocalStatistic:
         from comove.roles.focal import focal_chain, focal_values, surrounding_sets
 
         snaps, _ = model.draw(rng)
-        if not (snaps.role == self.params.code(snaps.roles)).any():
-            return np.zeros(sum(t.shape[0] for t in self.tested))
         tally = focal_chain(snaps, self.params)
         levels = surrounding_sets(tally, self.params, only=self.tested)
         return focal_values(levels, self.tested, self.statistic)

@@ -9,8 +9,9 @@ import pandas as pd
 import pytest
 from test_windows import assert_same_folders
 
+from comove.io.results import overall
 from comove.io.scenarios import mine_options
-from comove.pipeline.core import groups, mine, overall
+from comove.pipeline.core import groups, mine
 
 T0 = 1_800_000_000  # epoch seconds of the scene's start
 
