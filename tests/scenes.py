@@ -246,3 +246,25 @@ def planted_leads(seed: int = 1, n: int = 3000) -> pd.DataFrame:
         pd.DataFrame({"id": name, "time": t, "x": xy[:, 0], "y": xy[:, 1], "role": role})
         for name, (xy, role) in walkers.items()
     )
+
+
+def shared_course_pairs(seed: int = 1, n_pairs: int = 60, n: int = 1500) -> pd.DataFrame:
+    """Pairs walking one course side by side, each with its own smooth wobble: no lead.
+
+    Both members of a pair are the pair's wandering path plus an independent
+    smooth wobble (about 0.3 m), so neither heads where the other headed
+    before any more than the reverse; pairs are 1 km apart.
+    """
+    from scipy.ndimage import gaussian_filter1d
+
+    rng = np.random.default_rng(seed)
+    t = np.arange(n) * LEAD_STEP
+    frames = []
+    for k in range(n_pairs):
+        path = wandering_path(rng, n) + [0.0, 1000.0 * k]
+        for m in range(2):
+            wobble = gaussian_filter1d(rng.normal(0.0, 1.0, (n, 2)), 15, axis=0)
+            xy = path + wobble * (0.3 / wobble.std()) + [0.0, 0.5 * m]
+            frames.append(pd.DataFrame({"id": f"p{k:02d}{'ab'[m]}", "time": t, "x": xy[:, 0],
+                                        "y": xy[:, 1], "role": "walker"}))  # fmt: skip
+    return pd.concat(frames)

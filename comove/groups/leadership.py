@@ -26,6 +26,7 @@ References
 from __future__ import annotations
 
 import warnings
+from collections.abc import Iterator
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -46,7 +47,7 @@ FIXED_BITS = 32
 
 LEADERSHIP_COLUMNS = [
     "leader", "follower", "leader_role", "follower_role", "delay_s", "correlation",
-    "moving_together_s", "clear_leader",
+    "lead_asymmetry", "moving_together_s", "clear_leader",
 ]  # fmt: skip
 LEADERSHIP_ROLE_COLUMNS = [
     "leader_role", "follower_role", "pairs", "median_delay_s", "mean_correlation",
@@ -190,15 +191,7 @@ def lead_tally(
     so time is O(rows × delays) and memory O(rows + pairs × delays).
     """
     lo, hi = span if span is not None else (0, snaps.n_snapshots)
-    i, j = np.asarray(together.i), np.asarray(together.j)
-    t = snaps.snap[i]
-    speed = motion.speed
-    with np.errstate(invalid="ignore"):
-        rows = (t >= lo) & (t < hi) & (speed[i] > min_speed) & (speed[j] > min_speed)
-    i, j, t = i[rows], j[rows], t[rows]
-    swap = snaps.obj[i] > snaps.obj[j]  # a: the lower object code
-    ea, eb = np.where(swap, j, i), np.where(swap, i, j)
-    a, b = snaps.obj[ea].astype(np.int64), snaps.obj[eb].astype(np.int64)
+    t, ea, _, a, b = _moving_rows(snaps, motion, together, min_speed, lo, hi)
     n_obj = len(snaps.objects)
     key, pair = np.unique(a * n_obj + b, return_inverse=True)
     width = 2 * lags + 1
@@ -207,18 +200,8 @@ def lead_tally(
     # rows grouped by pair, so that each pair's sum is one reduceat segment
     by_pair = np.argsort(pair, kind="stable")
     starts = np.flatnonzero(np.r_[True, np.diff(pair[by_pair]) != 0]) if pair.size else pair
-    ux, uy = motion.vx[ea] / speed[ea], motion.vy[ea] / speed[ea]
     lookup = _EntryLookup(snaps)
-    for k, tau in enumerate(range(-lags, lags + 1)):  # one pass per delay
-        later = t + tau
-        inside = np.flatnonzero((later >= 0) & (later < snaps.n_snapshots))
-        e = np.full(t.size, -1, dtype=np.int64)
-        e[inside] = lookup.entries(later[inside], b[None, inside])[0]
-        with np.errstate(invalid="ignore"):
-            ok = (e >= 0) & (speed[np.maximum(e, 0)] > min_speed)
-        safe = np.where(ok, e, 0)
-        with np.errstate(invalid="ignore", divide="ignore"):  # rows not ok are left out
-            dot = (ux * motion.vx[safe] + uy * motion.vy[safe]) / speed[safe]
+    for k, dot, ok in _heading_products(snaps, motion, lookup, t, ea, b, min_speed, lags):
         # in units of 2**-FIXED_BITS as integers: sums of stretches add up exactly
         fixed = np.where(ok, np.rint(dot * 2.0**FIXED_BITS), 0).astype(np.int64)
         if pair.size:
@@ -229,6 +212,57 @@ def lead_tally(
     return LeadTally(lags, n_obj, own.n_roles, key, sums, counts,
                      np.bincount(pair, minlength=key.size).astype(np.int64), role_key,
                      role_count.astype(np.int64))  # fmt: skip
+
+
+def _moving_rows(
+    snaps: Snapshots, motion: Motion, together: NeighbourPairs, min_speed: float, lo: int, hi: int
+) -> tuple[np.ndarray, ...]:
+    """Return the pairs together with both moving at snapshots lo..hi-1.
+
+    Returns ``t`` (snapshot), ``ea``, ``eb`` (entries of a and b) and ``a``,
+    ``b`` (object codes, a < b) per row.
+    """
+    i, j = np.asarray(together.i), np.asarray(together.j)
+    t = snaps.snap[i]
+    speed = motion.speed
+    with np.errstate(invalid="ignore"):
+        rows = (t >= lo) & (t < hi) & (speed[i] > min_speed) & (speed[j] > min_speed)
+    i, j, t = i[rows], j[rows], t[rows]
+    swap = snaps.obj[i] > snaps.obj[j]  # a: the lower object code
+    ea, eb = np.where(swap, j, i), np.where(swap, i, j)
+    return t, ea, eb, snaps.obj[ea].astype(np.int64), snaps.obj[eb].astype(np.int64)
+
+
+def _heading_products(
+    snaps: Snapshots,
+    motion: Motion,
+    lookup: _EntryLookup,
+    t: np.ndarray,
+    first: np.ndarray,
+    second: np.ndarray,
+    min_speed: float,
+    lags: int,
+) -> Iterator[tuple[int, np.ndarray, np.ndarray]]:
+    """Yield per delay the heading products of rows, one pass per delay.
+
+    Row r's product at delay τ (column k = τ + lags) is the dot product of the
+    heading of entry ``first[r]`` (at snapshot ``t[r]``) and that of object
+    ``second[r]`` at snapshot ``t[r] + τ``; ``ok`` says where that object is
+    present and moving (elsewhere the product is meaningless).
+    """
+    speed = motion.speed
+    ux, uy = motion.vx[first] / speed[first], motion.vy[first] / speed[first]
+    for k, tau in enumerate(range(-lags, lags + 1)):
+        later = t + tau
+        inside = np.flatnonzero((later >= 0) & (later < snaps.n_snapshots))
+        e = np.full(t.size, -1, dtype=np.int64)
+        e[inside] = lookup.entries(later[inside], second[None, inside])[0]
+        with np.errstate(invalid="ignore"):
+            ok = (e >= 0) & (speed[np.maximum(e, 0)] > min_speed)
+        safe = np.where(ok, e, 0)
+        with np.errstate(invalid="ignore", divide="ignore"):  # rows not ok are left out
+            dot = (ux * motion.vx[safe] + uy * motion.vy[safe]) / speed[safe]
+        yield k, dot, ok
 
 
 def peak_delays(sums: np.ndarray, counts: np.ndarray, lags: int) -> tuple[np.ndarray, np.ndarray]:
@@ -259,6 +293,137 @@ def peak_delays(sums: np.ndarray, counts: np.ndarray, lags: int) -> tuple[np.nda
     return best - lags + shift, np.where(np.isfinite(peak), peak, np.nan)
 
 
+@dataclass
+class LeadBlocks:
+    """Heading correlation sums of judged pairs per block of time, both ways round.
+
+    For the swap test of a lead (:func:`comove.stats.significance.lead_tests`):
+    in a block, ``forward`` sums u_a(t) · u_b(t + τ) (as counted for the
+    table) and ``reverse`` sums u_b(t) · u_a(t + τ) (a and b swapped).
+
+    Attributes
+    ----------
+    lags : int
+        Delays -lags .. lags snapshots are counted.
+    block : int
+        Snapshots per block (2 lags + 1: a block holds every delay's span).
+    key : ndarray of int64
+        ``a * n_objects + b`` (a < b) of each pair, sorted.
+    starts : ndarray of int64
+        Index of each pair's first block in the block arrays (blocks of a pair
+        are consecutive).
+    forward, forward_n, reverse, reverse_n : ndarray of float64, shape (blocks, 2 lags + 1)
+        Summed heading products per block and delay, and how many.
+    """
+
+    lags: int
+    block: int
+    key: np.ndarray
+    starts: np.ndarray
+    forward: np.ndarray
+    forward_n: np.ndarray
+    reverse: np.ndarray
+    reverse_n: np.ndarray
+
+    def swapped(self, swap: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Return per pair the sums and counts per delay with the blocks ``swap`` swapped."""
+        if self.key.size == 0:
+            empty = np.zeros((0, 2 * self.lags + 1))
+            return empty, empty
+        pick = swap[:, None]
+        sums = np.add.reduceat(np.where(pick, self.reverse, self.forward), self.starts)
+        counts = np.add.reduceat(np.where(pick, self.reverse_n, self.forward_n), self.starts)
+        return sums, counts
+
+
+def lead_blocks(
+    snaps: Snapshots,
+    motion: Motion,
+    together: NeighbourPairs,
+    min_speed: float,
+    lags: int,
+    keys: np.ndarray,
+) -> LeadBlocks:
+    """Return the heading correlation sums of the pairs ``keys`` per block of time, both ways.
+
+    Parameters
+    ----------
+    snaps, motion, together, min_speed, lags
+        As for :func:`lead_tally` (a whole run).
+    keys : ndarray of int64
+        ``a * n_objects + b`` (a < b) of the pairs wanted (the judged ones).
+
+    Returns
+    -------
+    LeadBlocks
+        Blocks are snapshots ``[k B, (k + 1) B)`` with B = 2 lags + 1; a block
+        a pair is never together and moving in is left out.
+
+    Notes
+    -----
+    Two passes per delay over the wanted pairs' rows, so time is
+    O(rows × delays) and memory O(rows + blocks × delays).
+    """
+    t, ea, eb, a, b = _moving_rows(snaps, motion, together, min_speed, 0, snaps.n_snapshots)
+    n_obj = len(snaps.objects)
+    keys = np.unique(np.asarray(keys, dtype=np.int64))
+    wanted = np.isin(a * n_obj + b, keys)
+    t, ea, eb, a, b = t[wanted], ea[wanted], eb[wanted], a[wanted], b[wanted]
+    key, pair = np.unique(a * n_obj + b, return_inverse=True)
+    size = 2 * lags + 1
+    n_blocks = snaps.n_snapshots // size + 1
+    block, row_block = np.unique(pair * n_blocks + t // size, return_inverse=True)
+    order = np.argsort(row_block, kind="stable")
+    first = np.flatnonzero(np.r_[True, np.diff(row_block[order]) != 0]) if t.size else t
+    sums = {name: np.zeros((block.size, size)) for name in ("f", "fn", "r", "rn")}
+    lookup = _EntryLookup(snaps)
+    ways = (("f", "fn", ea, b), ("r", "rn", eb, a))
+    for total, count, entry, other in ways:
+        for k, dot, ok in _heading_products(snaps, motion, lookup, t, entry, other, min_speed,
+                                            lags):  # fmt: skip
+            if t.size:
+                sums[total][:, k] = np.add.reduceat(np.where(ok, dot, 0.0)[order], first)
+                sums[count][:, k] = np.add.reduceat(ok[order].astype(np.float64), first)
+    starts = np.flatnonzero(np.r_[True, np.diff(block // n_blocks) != 0]) if block.size else block
+    return LeadBlocks(lags, size, key, starts.astype(np.int64), sums["f"], sums["fn"], sums["r"],
+                      sums["rn"])  # fmt: skip
+
+
+def table_keys(leaders: pd.DataFrame, snaps: Snapshots) -> np.ndarray:
+    """Return ``a * n_objects + b`` (a < b) of each row of a leadership table."""
+    index = {str(name): k for k, name in enumerate(snaps.objects)}
+    one = leaders["leader"].map(index).to_numpy(np.int64)
+    two = leaders["follower"].map(index).to_numpy(np.int64)
+    return np.minimum(one, two) * len(snaps.objects) + np.maximum(one, two)
+
+
+def lead_asymmetry(sums: np.ndarray, counts: np.ndarray, lags: int) -> np.ndarray:
+    """Return per pair how much more the headings agree at the lead than at the mirrored delay.
+
+    A = C(τ̂) − C(−τ̂), with τ̂ the whole-snapshot delay of the largest
+    correlation C (ties to the delay nearest zero, as for the table). A is 0
+    when τ̂ = 0 (no lead), and at most 2; a delay at which C is undefined
+    counts as C = −1 at the mirrored side.
+
+    Parameters
+    ----------
+    sums, counts : ndarray, shape (..., 2 lags + 1)
+        Summed heading products per delay and how many.
+    lags : int
+        Delays -lags .. lags snapshots.
+    """
+    with np.errstate(invalid="ignore", divide="ignore"):
+        corr = np.asarray(sums, dtype=np.float64) / counts
+    filled = np.where(np.isfinite(corr), corr, -np.inf)
+    delays = np.arange(-lags, lags + 1)
+    order = np.argsort(np.abs(delays), kind="stable")
+    best = order[np.argmax(filled[..., order], axis=-1)]
+    peak = np.take_along_axis(filled, best[..., None], axis=-1)[..., 0]
+    mirror = np.take_along_axis(filled, (2 * lags - best)[..., None], axis=-1)[..., 0]
+    mirror = np.where(np.isfinite(mirror), mirror, -1.0)
+    return np.where(np.isfinite(peak), peak - mirror, 0.0)
+
+
 def leadership_tables(
     tally: LeadTally, snaps: Snapshots, params: LeadershipParams
 ) -> tuple[pd.DataFrame, pd.DataFrame]:
@@ -279,8 +444,9 @@ def leadership_tables(
         One row per pair judged (columns ``LEADERSHIP_COLUMNS``): ``leader``
         and ``follower`` (object ids; with no clear leader, the pair in id
         code order), their most frequent roles, ``delay_s`` (≥ 0),
-        ``correlation`` (the peak of C, in [-1, 1]), ``moving_together_s`` and
-        ``clear_leader`` (the peak lies at least half a snapshot from zero).
+        ``correlation`` (the peak of C, in [-1, 1]), ``lead_asymmetry``
+        (:func:`lead_asymmetry`), ``moving_together_s`` and ``clear_leader``
+        (the peak lies at least half a snapshot from zero).
         Sorted by correlation, then delay, descending.
     roles : DataFrame
         Per (leader role, follower role) of the pairs with a clear leader:
@@ -310,6 +476,9 @@ def leadership_tables(
             "follower_role": pd.array(role_names[roles[follower]], dtype=str),
             "delay_s": np.abs(delay) * step,
             "correlation": corr,
+            "lead_asymmetry": lead_asymmetry(
+                tally.sums[judged] / 2.0**FIXED_BITS, tally.counts[judged], tally.lags
+            ),
             "moving_together_s": tally.moving[judged] * step,
             "clear_leader": clear,
         },
@@ -344,3 +513,19 @@ def leadership(
     """Return :func:`leadership_tables` of a whole run (one :func:`lead_tally`)."""
     tally = lead_tally(snaps, motion, together, min_speed, params.lags(snaps.step_s))
     return leadership_tables(tally, snaps, params)
+
+
+def tested_leadership(
+    snaps: Snapshots,
+    motion: Motion,
+    together: NeighbourPairs,
+    min_speed: float,
+    params: LeadershipParams,
+) -> tuple[pd.DataFrame, pd.DataFrame, LeadBlocks]:
+    """Return :func:`leadership` and the judged pairs' :func:`lead_blocks` for their tests."""
+    table, roles = leadership(snaps, motion, together, min_speed, params)
+    with warnings.catch_warnings():  # the note on a long --max-delay is given once, above
+        warnings.simplefilter("ignore", ComoveNote)
+        lags = params.lags(snaps.step_s)
+    blocks = lead_blocks(snaps, motion, together, min_speed, lags, table_keys(table, snaps))
+    return table, roles, blocks

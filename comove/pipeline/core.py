@@ -30,7 +30,7 @@ from comove.groups.chain import GroupTally, group_chain
 from comove.groups.dyads import DyadParams, dyads_and_objects
 from comove.groups.episodes import EpisodeParams
 from comove.groups.grouping import GroupParams
-from comove.groups.leadership import LeadershipParams, leadership
+from comove.groups.leadership import LeadBlocks, LeadershipParams, leadership, tested_leadership
 from comove.groups.presets import preset_subject, preset_values
 from comove.groups.summary import episode_paths, episode_table, role_rollup
 from comove.io.projection import working_to_input
@@ -65,6 +65,7 @@ from comove.stats.significance import (
     SignificanceParams,
     cross_k_tests,
     group_tests,
+    lead_tests,
     pattern_tests,
 )
 from comove.tracks.alignment import (
@@ -649,19 +650,21 @@ def _group_tables(snaps: Snapshots, found: _Found, stages: list, run_params: Run
     significance = stages[7]
     with bar.stage("paths"):
         paths, display = episode_paths(snaps, found.table, found.centroids)
-    roles, dyads = role_rollup(found.table), found.dyads
+    roles, dyads, leaders = role_rollup(found.table), found.dyads, found.leaders
     if significance.replicates > 0:
         with bar.stage("significance"):
             pair_tests, role_tests = group_tests(
                 snaps, found.tally, dyads, found.table["roles"], grouping, episode_params,
                 significance, run_params, progress,
             )  # fmt: skip
+            leaders = lead_tests(found.lead_blocks, leaders, snaps, significance,
+                                 run_params.seed)  # fmt: skip
         if pair_tests is not None:
             dyads = dyads.merge(pair_tests, on=["object_a", "object_b"], how="left",
                                 validate="1:1")  # fmt: skip
         roles = roles.merge(role_tests.drop(columns=["episodes", "together_s"]), on="roles",
                             how="left", validate="1:1")  # fmt: skip
-    return _Grouped(found.table, roles, dyads, found.objects, found.leaders, found.leader_roles,
+    return _Grouped(found.table, roles, dyads, found.objects, leaders, found.leader_roles,
                     paths, display, found.centroids)  # fmt: skip
 
 
@@ -714,6 +717,7 @@ class _Found:
     objects: pd.DataFrame
     leaders: pd.DataFrame
     leader_roles: pd.DataFrame
+    lead_blocks: LeadBlocks | None = None
     tally: GroupTally | None = None
 
 
@@ -726,12 +730,14 @@ def _observed_groups(snaps: Snapshots, stages: list, run_params: RunParams) -> _
     the results are those of one after the other.
     """
     grouping, episode_params, dyad_params, lead_params = stages[3:7]
+    tested = stages[7].replicates > 0  # the leads' tests need their sums per block of time
     with ThreadPoolExecutor(max_workers=1) as side:
         counting: list[Future] = []
 
         def count_dyads(pairs: NeighbourPairs, motion: Motion) -> None:
             counting.append(side.submit(dyads_and_objects, snaps, pairs, dyad_params))
-            counting.append(side.submit(leadership, snaps, motion, pairs, grouping.min_speed,
+            lead = tested_leadership if tested else leadership
+            counting.append(side.submit(lead, snaps, motion, pairs, grouping.min_speed,
                                         lead_params))  # fmt: skip
 
         tally = group_chain(snaps, grouping, episode_params, workers=run_params.threads,

@@ -944,7 +944,8 @@ def leadership_bars(leaders: pd.DataFrame, top: int = LEADERSHIP_PAIRS) -> tuple
     ----------
     leaders : DataFrame
         ``leadership.csv``: ``leader``, ``follower``, ``leader_role``,
-        ``delay_s``, ``correlation``, ``moving_together_s``, ``clear_leader``.
+        ``delay_s``, ``correlation``, ``moving_together_s``, ``clear_leader``,
+        and ``p_value``, ``significant`` when the leads were tested.
     top : int
         Most pairs drawn: the clear leads with the highest heading correlation.
 
@@ -961,16 +962,24 @@ def leadership_bars(leaders: pd.DataFrame, top: int = LEADERSHIP_PAIRS) -> tuple
         fig = _figure(max(2.4, 1.2 + 0.28 * len(shown)))
         ax = fig.add_subplot()
         y = np.arange(len(shown))[::-1]
+        tested = "significant" in shown.columns
+        strong = shown["significant"].astype(bool).to_numpy() if tested else np.ones(len(y), bool)
         for role in roles:
             rows = shown["leader_role"].astype(str).to_numpy() == role
-            ax.barh(y[rows], shown["delay_s"].to_numpy(dtype="float64")[rows], height=0.7,
-                    color=colour[role], label=plain_text(role, 40))  # fmt: skip
+            for sure, fade in ((True, 1.0), (False, 0.35)):
+                ax.barh(y[rows & (strong == sure)],
+                        shown["delay_s"].to_numpy(dtype="float64")[rows & (strong == sure)],
+                        height=0.7, color=colour[role], alpha=fade,
+                        label=plain_text(role, 40)
+                        if sure == (rows & strong).any() else None)  # fmt: skip
         labels = [plain_text(f"{a} → {b}", 40)
                   for a, b in zip(shown["leader"], shown["follower"], strict=True)]  # fmt: skip
         ax.set_yticks(y, labels)
-        for yy, (delay, corr) in zip(y, zip(shown["delay_s"], shown["correlation"], strict=True),
-                                     strict=True):  # fmt: skip
-            ax.annotate(f"r = {corr:.2f}", (delay, yy), xytext=(3, 0), textcoords="offset points",
+        p_values = shown["p_value"] if tested else [None] * len(y)
+        for yy, delay, corr, p in zip(y, shown["delay_s"], shown["correlation"], p_values,
+                                      strict=True):  # fmt: skip
+            text = f"r = {corr:.2f}" + ("" if p is None else f", p = {p:.2g}")
+            ax.annotate(text, (delay, yy), xytext=(3, 0), textcoords="offset points",
                         va="center", fontsize=7, color=INK)  # fmt: skip
         ax.set_xlabel("delay of the follower's heading behind the leader's (s)")
         ax.set_title("Who leads whom: pairs with a clear leader, leader → follower")
@@ -980,6 +989,10 @@ def leadership_bars(leaders: pd.DataFrame, top: int = LEADERSHIP_PAIRS) -> tuple
             f"{count_of(len(clear), 'pair')} with a clear leader."
             if len(clear) > len(shown) else f"All {count_of(len(clear), 'pair')} with a clear "
             "leader.")  # fmt: skip
+    if tested:
+        note += (" p: Monte Carlo p-value of the lead under the swap of leader and follower in "
+                 "blocks of time; faded bars: not significant after the false discovery rate "
+                 "control.")  # fmt: skip
     return fig, note
 
 

@@ -8,7 +8,7 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from scenes import planted_leads as planted_scene
-from scenes import random_walkers
+from scenes import random_walkers, shared_course_pairs
 
 from comove.errors import ComoveNote
 from comove.groups.chain import chunk_lead_tally
@@ -17,6 +17,8 @@ from comove.groups.leadership import (
     FIXED_BITS,
     MAX_LAGS,
     LeadershipParams,
+    lead_asymmetry,
+    lead_blocks,
     lead_tally,
     leadership,
     peak_delays,
@@ -51,8 +53,12 @@ def test_planted_delays_are_recovered_within_one_snapshot_and_the_leader_named()
     assert roles.loc[("leader", "follower"), "pairs"] == 2
 
 
-def loop_correlations(snaps, motion, pairs, min_speed, lags):
-    """C_ab(τ) by a plain loop over pairs, snapshots and delays (Nagy et al. 2010)."""
+def loop_correlations(snaps, motion, pairs, min_speed, lags, reverse=False):
+    """C_ab(τ) by a plain loop over pairs, snapshots and delays (Nagy et al. 2010).
+
+    With ``reverse``, the products u_b(t) · u_a(t + τ) of the same rows (a and
+    b swapped), keyed by the row's block of 2 lags + 1 snapshots too.
+    """
     where = {
         (int(o), int(s)): e for e, (o, s) in enumerate(zip(snaps.obj, snaps.snap, strict=True))
     }
@@ -63,14 +69,16 @@ def loop_correlations(snaps, motion, pairs, min_speed, lags):
             continue
         ea, eb = (i, j) if snaps.obj[i] < snaps.obj[j] else (j, i)
         a, b, t = int(snaps.obj[ea]), int(snaps.obj[eb]), int(snaps.snap[ea])
+        first, other = (eb, a) if reverse else (ea, b)
         for tau in range(-lags, lags + 1):
-            e = where.get((b, t + tau))
+            e = where.get((other, t + tau))
             if e is None or not speed[e] > min_speed:
                 continue
-            dot = (motion.vx[ea] * motion.vx[e] + motion.vy[ea] * motion.vy[e]) / (
-                speed[ea] * speed[e]
+            dot = (motion.vx[first] * motion.vx[e] + motion.vy[first] * motion.vy[e]) / (
+                speed[first] * speed[e]
             )
-            out.setdefault((a, b), {}).setdefault(tau, []).append(dot)
+            key = (a, b, t // (2 * lags + 1)) if reverse else (a, b)
+            out.setdefault(key, {}).setdefault(tau, []).append(dot)
     return out
 
 
@@ -147,3 +155,66 @@ def test_pairs_moving_together_too_briefly_are_not_judged():
 def test_a_delay_beyond_the_limit_is_looked_at_up_to_it_with_a_note():
     with pytest.warns(ComoveNote, match="--max-delay is 2,000 snapshots; delays up to 1,000"):
         assert LeadershipParams(max_delay=200.0).lags(0.1) == MAX_LAGS
+
+
+@settings(max_examples=15, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(seed=st.integers(0, 10_000), lags=st.integers(0, 3))
+def test_block_sums_both_ways_round_equal_a_loop_over_rows_and_delays(seed, lags):
+    snaps = random_scene(seed)
+    motion, pairs = entry_motion(snaps, 2.0), neighbour_pairs(snaps, 4.0)
+    tally = lead_tally(snaps, motion, pairs, 0.1, lags)
+    wanted = tally.key[::2]  # every other pair
+    blocks = lead_blocks(snaps, motion, pairs, 0.1, lags, wanted)
+    np.testing.assert_array_equal(blocks.key, wanted)
+    # not swapped: the table's sums, pair for pair
+    sums, counts = blocks.swapped(np.zeros(blocks.forward.shape[0], dtype=bool))
+    np.testing.assert_array_equal(counts, tally.counts[::2])
+    np.testing.assert_allclose(sums, tally.sums[::2] / 2.0**FIXED_BITS, atol=1e-6)
+    # swapped: u_b(t) · u_a(t + τ) per block of 2 lags + 1 snapshots, from the definition
+    expected = loop_correlations(snaps, motion, pairs, 0.1, lags, reverse=True)
+    n_obj = len(snaps.objects)
+    cells = sorted((a, b, k) for a, b, k in expected if a * n_obj + b in set(wanted.tolist()))
+    assert blocks.forward.shape[0] == len(cells)
+    assert list(blocks.starts) == [
+        i for i, c in enumerate(cells) if i == 0 or c[:2] != cells[i - 1][:2]
+    ]
+    for row, cell in enumerate(cells):
+        for k, tau in enumerate(range(-lags, lags + 1)):
+            values = expected[cell].get(tau, [])
+            assert blocks.reverse_n[row, k] == len(values)
+            assert blocks.reverse[row, k] == pytest.approx(sum(values), abs=1e-9)
+
+
+def test_lead_asymmetry_is_the_peak_less_its_mirror_and_zero_at_a_zero_delay():
+    sums = np.array([
+        [0.2, 0.5, 0.9, 0.5, 0.2],  # symmetric, peak at 0
+        [0.1, 0.3, 0.6, 0.8, 0.7],  # peak at +1: 0.8 - 0.3
+        [0.9, 0.2, 0.1, 0.0, 0.0],  # peak at -2: 0.9 - 0.0
+    ])  # fmt: skip
+    counts = np.ones_like(sums)
+    counts[2, 4] = 0  # C(+2) undefined: counts as -1 beside the peak at -2
+    np.testing.assert_allclose(lead_asymmetry(sums, counts, 2), [0.0, 0.5, 1.9])
+
+
+def test_planted_leads_are_significant_under_the_swap_and_the_twin_is_not():
+    result = groups(planted_scene(), radius=3.0, step=STEP, links="snapshot", replicates=99,
+                    max_delay=2.0, seed=3)  # fmt: skip
+    table = result.leaders.set_index(["leader", "follower"])
+    for pair in (("guide", "late7"), ("guide", "late12"), ("late7", "late12")):
+        row = table.loc[pair]
+        assert row["statistic"] == "lead_asymmetry" and row["p_value"] == pytest.approx(0.01)
+        assert row["lead_asymmetry"] > 0.01 and row["significant"]
+    twin = result.leaders[result.leaders["leader"].isin(["guide", "twin"])
+                          & result.leaders["follower"].isin(["guide", "twin"])].iloc[0]  # fmt: skip
+    assert twin["lead_asymmetry"] == 0.0 and twin["p_value"] == 1.0 and not twin["significant"]
+
+
+def test_the_swap_test_holds_its_level_on_pairs_that_share_a_course():
+    # 60 pairs with no lead either way: p-values of a valid test are at most as small as
+    # uniform ones, so about 3 of 60 fall below 0.05 (binomial: 8 or more has chance < 0.05)
+    result = groups(shared_course_pairs(seed=1), radius=3.0, step=STEP, links="snapshot",
+                    replicates=99, max_delay=2.0, seed=2)  # fmt: skip
+    table = result.leaders
+    assert len(table) == 60
+    assert (table["p_value"] < 0.05).sum() <= 7
+    assert (table["p_value"] < 0.5).mean() <= 0.65
