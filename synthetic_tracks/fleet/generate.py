@@ -1,7 +1,8 @@
 """Vehicle fleet: 18 invented vehicles on closed circuits in open country, two hours, lon/lat.
 
-Run ``python synthetic_tracks/fleet/generate.py`` to rewrite ``vehicles.csv`` and
-``truth.json`` next to this file; import it and call ``generate(seed)`` for variants.
+Run ``python synthetic_tracks/fleet/generate.py`` to rewrite ``vehicles.csv``,
+``truth.json`` and ``depots.geojson`` next to this file; import it and call
+``generate(seed)`` (or ``depot_areas(seed)``) for variants.
 
 Layout (local east/north kilometres around an arbitrary point in open country):
 
@@ -16,6 +17,11 @@ Layout (local east/north kilometres around an arbitrary point in open country):
   travelling in opposite directions: a short head-on pass (the decoys).
 * Fixes come every 5-20 s with a few 2-10 minute dropouts per vehicle; three rows are
   broken on purpose (missing latitude, exact duplicate, a position several km off).
+* Two depot areas, for results by area (``--areas``), are placed from the circuits
+  themselves: ``north_yard`` is a disc midway between the circuits of haulers 2 and 3,
+  reaching 1.5 km past each road's closest point, so both convoys cross it every lap;
+  ``south_yard`` is a disc of 1.5 km around the point where patrol 2's circuit touches
+  van 3's, where the two pass head-on and no convoy ever runs.
 """
 
 from __future__ import annotations
@@ -27,6 +33,8 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
+import shapely
+from shapely.geometry.polygon import orient
 
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 import scenario_kit as kit  # noqa: E402
@@ -34,6 +42,7 @@ import scenario_kit as kit  # noqa: E402
 SEED = 20260421
 HERE = Path(__file__).resolve().parent
 DATA_FILE = "vehicles.csv"
+DEPOTS_FILE = "depots.geojson"
 START = int(datetime(2026, 4, 21, 6, 0, tzinfo=UTC).timestamp())
 DURATION = 7200
 LON0, LAT0 = 66.40, 47.60
@@ -55,6 +64,7 @@ LANE_GAP = 30.0  # metres between two circuits where they touch
 CONVOY_LAG = 40.0
 APART_RAMP = 330.0
 SPEEDS = {"hauler": (10.0, 16.0), "service_van": (11.0, 20.0), "patrol": (12.0, 22.0)}
+YARD_REACH = 1500.0  # metres a depot disc reaches past each road's closest point to the other
 
 
 def _vehicles() -> dict[str, str]:
@@ -142,11 +152,17 @@ def _dropouts(rng: np.random.Generator, keep_clear: list[float]) -> list[tuple[i
     return out
 
 
-def _build(seed: int) -> dict[str, object]:
+def _layout(seed: int) -> tuple[np.random.Generator, dict[str, Circuit], dict[str, float]]:
+    """The seeded generator and the circuits it draws first (shared by tracks and depots)."""
     rng = np.random.default_rng(seed)
+    circuits, contact = _circuits(rng)
+    return rng, circuits, contact
+
+
+def _build(seed: int) -> dict[str, object]:
+    rng, circuits, contact = _layout(seed)
     n = DURATION + 1
     t = np.arange(n, dtype=float)
-    circuits, contact = _circuits(rng)
     decoy_pairs = [("PT-01", "SV-01"), ("PT-02", "SV-03"), ("PT-03", "SV-05"), ("HL-05", "PT-04")]
     # Decoy moments sit on the mining grid, so the head-on pass shows in the snapshots.
     decoy_time = {
@@ -373,12 +389,65 @@ def generate(seed: int = SEED) -> tuple[pd.DataFrame, dict]:
     return out, truth
 
 
+def _yard(circuits: dict[str, Circuit], a: str, b: str, reach: float) -> shapely.Polygon:
+    """A disc midway between the closest points of two circuits, reaching ``reach`` past each.
+
+    It holds a stretch of both roads where they come closest; for touching circuits, the
+    two roads within about ``reach`` of the touching point.
+    """
+    road_a, road_b = shapely.LineString(circuits[a].xy), shapely.LineString(circuits[b].xy)
+    near_a, near_b = shapely.shortest_line(road_a, road_b).coords
+    centre = shapely.Point((np.asarray(near_a) + np.asarray(near_b)) / 2)
+    return centre.buffer(shapely.distance(road_a, road_b) / 2 + reach, quad_segs=16)
+
+
+def depot_areas(seed: int = SEED) -> dict:
+    """The depot areas of the fleet's layout, as a GeoJSON feature collection in lon/lat.
+
+    ``north_yard`` lies midway between the circuits of haulers 2 and 3, so both escorted
+    convoys cross it on every lap; ``south_yard`` lies around the point where the circuits
+    of patrol 2 and service van 3 touch, where the two pass head-on and no convoy runs.
+
+    Parameters
+    ----------
+    seed : int
+        Seed of the numpy generator; the default gives the committed ``depots.geojson``.
+
+    Returns
+    -------
+    dict
+        A GeoJSON ``FeatureCollection`` (WGS84 longitude/latitude, exterior rings
+        counter-clockwise) whose features carry the properties ``name`` and ``about``.
+    """
+    _, circuits, _ = _layout(seed)
+    yards = [
+        ("north_yard", ("HL-02", "HL-03"),
+         "between the circuits of haulers HL-02 and HL-03, crossed by both convoys every lap"),
+        ("south_yard", ("PT-02", "SV-03"),
+         "around the point where the circuits of patrol PT-02 and service van SV-03 touch"),
+    ]  # fmt: skip
+    features = []
+    for name, (a, b), about in yards:
+        shape = orient(_yard(circuits, a, b, YARD_REACH), sign=1.0)  # counter-clockwise
+        lon, lat = kit.local_to_lonlat(np.asarray(shape.exterior.coords), LON0, LAT0)
+        ring = [[round(float(x), 6), round(float(y), 6)] for x, y in zip(lon, lat, strict=True)]
+        features.append(
+            {
+                "type": "Feature",
+                "properties": {"name": name, "about": about},
+                "geometry": {"type": "Polygon", "coordinates": [ring]},
+            }
+        )
+    return {"type": "FeatureCollection", "features": features}
+
+
 def write(out_dir: Path = HERE, seed: int = SEED) -> None:
-    """Write the data file and truth.json into ``out_dir``."""
+    """Write the data file, truth.json and the depot areas into ``out_dir``."""
     frame, truth = generate(seed)
     out_dir.mkdir(parents=True, exist_ok=True)
     frame.to_csv(out_dir / DATA_FILE, index=False)
     (out_dir / "truth.json").write_text(json.dumps(truth, indent=2) + "\n")
+    (out_dir / DEPOTS_FILE).write_text(json.dumps(depot_areas(seed), indent=1) + "\n")
 
 
 if __name__ == "__main__":
