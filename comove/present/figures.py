@@ -729,6 +729,53 @@ def dyad_heatmap(matrix: pd.DataFrame) -> tuple[Figure, str]:
     return fig, labelled + "Blank: diagonal, or never present together."
 
 
+def part_heatmap(matrix: pd.DataFrame, what: str) -> tuple[Figure, str]:
+    """Return the time prevalence of role sets (rows) in each period and area (columns).
+
+    Parameters
+    ----------
+    matrix : DataFrame
+        Time prevalence in [0, 1], index the role sets, columns the parts
+        ("period / area"); NaN where a set is not kept in a part.
+    what : str
+        What the rows are, for the title (e.g. "durable role sets").
+
+    Returns
+    -------
+    Figure, str
+        The figure and a note on its blank cells, for its caption.
+    """
+    n_rows, n_cols = matrix.shape
+    cmap = ListedColormap(matplotlib.colormaps["viridis"](np.linspace(0, 1, 256)))
+    cmap = cmap.with_extremes(bad="white")
+    values = matrix.to_numpy(dtype="float64")
+    with style():
+        fig = _figure(max(2.4, 1.4 + 0.32 * n_rows))
+        ax = fig.add_subplot()
+        im = ax.imshow(np.ma.masked_invalid(values), cmap=cmap, vmin=0, vmax=1, aspect="auto",
+                       interpolation="nearest")  # fmt: skip
+        ax.set_xticks(
+            np.arange(n_cols),
+            [plain_text(c, 24) for c in matrix.columns],
+            rotation=30 if n_cols > 4 else 0,
+            ha="right" if n_cols > 4 else "center",
+        )
+        ax.set_yticks(np.arange(n_rows), [plain_text(r, 40) for r in matrix.index])
+        ax.tick_params(length=2)
+        if n_rows * n_cols <= 200:  # the value in each cell, dark text on the light end
+            for (r, c), v in np.ndenumerate(values):
+                if np.isfinite(v):
+                    ax.text(c, r, f"{v:.2f}", ha="center", va="center", fontsize=7,
+                            color=INK if v > 0.55 else "white")  # fmt: skip
+        for side in ("top", "right"):
+            ax.spines[side].set_visible(True)
+        bar = fig.colorbar(im, ax=ax, shrink=0.9)
+        bar.set_label("time prevalence")
+        ax.set_xlabel("period / area")
+        ax.set_title(f"Time prevalence of the leading {what} in each part")
+    return fig, "Blank: not kept in that part at these thresholds."
+
+
 def cross_l_curves(cross: pd.DataFrame, top: int = 6) -> tuple[Figure, list[tuple[str, str]]]:
     """Return L(r) − r curves, with null envelopes when present, for the top role pairs.
 

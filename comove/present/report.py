@@ -644,10 +644,12 @@ def _parts_section(res: _Results) -> tuple[str, list[_Picture]]:
              "above describe the rows over everything (all / all). Blank: not kept there."
              "</p>"]  # fmt: skip
     compared = (
-        ("patterns.csv", "roles", "Durable role sets"),
-        ("focal.csv", "around", "Role sets around the focal role"),
-    )
-    for name, key, title in compared:
+        ("patterns.csv", "roles", "Durable role sets", "durable role sets"),
+        ("focal.csv", "around", "Role sets around the focal role",
+         "role sets around the focal role"),
+    )  # fmt: skip
+    pictures = []
+    for name, key, title, what in compared:
         table = res.by_part.get(name)
         if table is None or table.empty:
             continue
@@ -656,9 +658,22 @@ def _parts_section(res: _Results) -> tuple[str, list[_Picture]]:
         shown = list(dict.fromkeys(table.loc[label == "all / all", key].astype(str)))[:PART_SETS]
         value = dict(zip(zip(table[key].astype(str), label, strict=True),
                          table["time_prevalence"], strict=True))  # fmt: skip
+        parts.append(f"<h3>{_e(title)}: time prevalence in each part</h3>")
+        if shown:
+            matrix = pd.DataFrame(
+                [[value.get((s, z), np.nan) for z in zones] for s in shown],
+                index=[s.replace(";", ", ") for s in shown],
+                columns=zones,
+            )
+            fig, note = figures.part_heatmap(matrix, what)
+            pic = _Picture(f"parts_{key}", figures.to_png(fig),
+                           f"{title}: time prevalence in each period and area",
+                           f"Rows: the leading {what} over everything (all / all); columns: "
+                           f"the parts. {note}")  # fmt: skip
+            parts.append(_figure_html(pic))
+            pictures.append(pic)
         rows = [[_roles_text(s)] + [_num(value[(s, z)]) if (s, z) in value else ""
                                     for z in zones] for s in shown]  # fmt: skip
-        parts.append(f"<h3>{_e(title)}: time prevalence in each part</h3>")
         parts.append(_table(["role set", *zones], rows, set(range(1, len(zones) + 1))))
     episodes = res.by_part.get("episodes.csv")
     if episodes is not None:
@@ -668,7 +683,7 @@ def _parts_section(res: _Results) -> tuple[str, list[_Picture]]:
                 for z in dict.fromkeys(label)]  # fmt: skip
         parts.append("<h3>Episodes in each part</h3>")
         parts.append(_table(["period / area", "episodes", "time together, summed"], rows, {1}))
-    return "\n".join(parts), []
+    return "\n".join(parts), pictures
 
 
 def _cross_section(res: _Results) -> tuple[str, list[_Picture]]:

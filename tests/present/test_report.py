@@ -201,6 +201,47 @@ def test_leadership_section_draws_the_planted_leads(tmp_path):
     assert "Leads by role pair" in text and "who turns first, not who causes the turn" in text
 
 
+def test_tested_leads_carry_their_p_values_in_the_caption(tmp_path):
+    groups(planted_leads(), radius=3.0, step=0.1, links="snapshot", replicates=19,
+           max_delay=2.0, seed=3).write(tmp_path / "g")  # fmt: skip
+    page = parse(build_report(tmp_path / "g"))
+    captions = {img["alt"]: text for img, text in zip(page.images, page.captions, strict=True)}
+    lead = next(text for alt, text in captions.items() if alt.startswith("Delays"))
+    assert "swap of leader and follower" in lead and "faded bars" in lead
+
+
+def test_periods_are_compared_in_a_heatmap_with_the_table_under_it(tmp_path):
+    source, options = mine_options("small_sided_game")
+    periods = tmp_path / "periods.csv"
+    start = 1778925600  # the game's first time, epoch seconds (truth.json)
+    periods.write_text(f"name,start,end\nfirst,{start},{start + 180}\n"
+                       f"second,{start + 180},{start + 400}\n")  # fmt: skip
+    mine(source, replicates=0, periods=str(periods), **options).write(tmp_path / "m")
+    page = parse(build_report(tmp_path / "m"))
+    assert "By period and area" in page.h2
+    assert (tmp_path / "m" / "figures" / "parts_roles.png").is_file()
+    captions = {img["alt"]: text for img, text in zip(page.images, page.captions, strict=True)}
+    heat = next(text for alt, text in captions.items() if "each period and area" in alt)
+    assert "Blank: not kept in that part" in heat
+    text = page.all_text()
+    assert "first / all" in text and "second / all" in text
+
+
+def test_part_heatmap_draws_one_cell_per_set_and_part_and_leaves_missing_ones_blank():
+    matrix = pd.DataFrame([[0.7, 0.6, np.nan], [0.2, np.nan, 0.9]], index=["a, b", "a, c"],
+                          columns=["all / all", "day / all", "night / all"])  # fmt: skip
+    fig, note = figures.part_heatmap(matrix, "durable role sets")
+    ax = fig.axes[0]
+    drawn = ax.images[0].get_array()
+    assert drawn.shape == (2, 3) and drawn.mask.tolist() == [
+        [False, False, True],
+        [False, True, False],
+    ]
+    assert sorted(t.get_text() for t in ax.texts) == ["0.20", "0.60", "0.70", "0.90"]
+    assert [t.get_text() for t in ax.get_xticklabels()] == list(matrix.columns)
+    assert "Blank" in note
+
+
 def test_captions_say_only_what_the_figures_show(tmp_path):
     # a mine folder without tests: no episode paths on the map, no envelope on the
     # cross-L curves; times, durations and role sets written as in the tables
