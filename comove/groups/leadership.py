@@ -87,9 +87,13 @@ class LeadershipParams:
             if value is not None and not (np.isfinite(value) and value >= 0):
                 raise bad_setting(name, "must be zero or a positive number of seconds")
 
+    def _asked(self, step_s: float) -> int:
+        """Return the delays asked for each way, in snapshots (before the limit)."""
+        return 10 if self.max_delay is None else int(np.floor(self.max_delay / step_s + 1e-9))
+
     def lags(self, step_s: float) -> int:
-        """Return the delays looked for each way, in snapshots."""
-        lags = 10 if self.max_delay is None else int(np.floor(self.max_delay / step_s + 1e-9))
+        """Return the delays looked for each way, in snapshots (a note when limited)."""
+        lags = self._asked(step_s)
         if lags > MAX_LAGS:
             warnings.warn(ComoveNote(
                 f"leadership: --max-delay is {lags:,} snapshots; delays up to {MAX_LAGS:,} "
@@ -102,7 +106,7 @@ class LeadershipParams:
         """Return the least time together and moving, in seconds."""
         if self.min_moving_together is not None:
             return float(self.min_moving_together)
-        return 10.0 * self.lags(step_s) * step_s
+        return 10.0 * min(self._asked(step_s), MAX_LAGS) * step_s
 
 
 @dataclass
@@ -524,8 +528,6 @@ def tested_leadership(
 ) -> tuple[pd.DataFrame, pd.DataFrame, LeadBlocks]:
     """Return :func:`leadership` and the judged pairs' :func:`lead_blocks` for their tests."""
     table, roles = leadership(snaps, motion, together, min_speed, params)
-    with warnings.catch_warnings():  # the note on a long --max-delay is given once, above
-        warnings.simplefilter("ignore", ComoveNote)
-        lags = params.lags(snaps.step_s)
+    lags = min(params._asked(snaps.step_s), MAX_LAGS)  # the note on a limit was given above
     blocks = lead_blocks(snaps, motion, together, min_speed, lags, table_keys(table, snaps))
     return table, roles, blocks
