@@ -2,7 +2,7 @@
 
 Stages run forward, each a plain function of the previous stage's output::
 
-    read_tracks -> clean_fixes -> align -> neighbour_pairs
+    read_tracks -> clean_fixes -> align -> neighbours_of (from the focal entries)
         -> focal_chain -> surrounding_sets -> focal_tables       (focal)
 
 :func:`focal` runs them and returns a :class:`FocalResult`, whose ``write``

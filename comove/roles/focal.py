@@ -54,7 +54,12 @@ from comove.errors import InputError, bad_setting
 from comove.roles.colocation import RATIO_EPS, RolePresence, apriori_candidates
 from comove.roles.persistence import PersistenceParams, role_label
 from comove.tracks.alignment import Snapshots, longest_runs
-from comove.tracks.neighbours import NeighbourPairs, neighbour_pairs
+from comove.tracks.neighbours import NeighbourPairs, neighbour_pairs, neighbours_of
+
+#: Largest share of focal entries for which the neighbours are searched from the focal
+#: entries only (``neighbours_of``); above it every pair is searched. Measured on 300
+#: snapshots of uniform scenes: 2.0x faster at 2 % focal, 1.08x at 20 %, 0.68x at 50 %.
+FROM_FOCAL_SHARE = 0.25
 
 #: Bits per word of a neighbourhood mask.
 WORD = 64
@@ -247,15 +252,19 @@ def focal_chain(
     ([0, 1], [2, 6], [1, 1])
     """
     focal = params.code(snaps.roles)
-    if pairs is None:
-        pairs = neighbour_pairs(snaps, params.radius, workers=workers)
     n_roles = len(snaps.roles)
     is_focal = snaps.role == focal
     entries = np.flatnonzero(is_focal)
-    # directed (focal entry, role of a neighbour), each pair at most once
-    from_i, from_j = is_focal[pairs.i], is_focal[pairs.j]
-    around = np.concatenate([pairs.i[from_i], pairs.j[from_j]])
-    role = np.concatenate([snaps.role[pairs.j[from_i]], snaps.role[pairs.i[from_j]]])
+    # directed (focal entry, a neighbour), each pair at most once
+    if pairs is None and entries.size <= FROM_FOCAL_SHARE * snaps.n_entries:
+        around, other = neighbours_of(snaps, params.radius, is_focal, workers=workers)
+    else:
+        if pairs is None:
+            pairs = neighbour_pairs(snaps, params.radius, workers=workers)
+        from_i, from_j = is_focal[pairs.i], is_focal[pairs.j]
+        around = np.concatenate([pairs.i[from_i], pairs.j[from_j]])
+        other = np.concatenate([pairs.j[from_i], pairs.i[from_j]])
+    role = snaps.role[other]
     key = np.unique(around * np.int64(n_roles) + role.astype(np.int64))
     at = np.searchsorted(entries, key // n_roles)
     role = key % n_roles

@@ -186,7 +186,13 @@ BYTES_PER_PAIR = 64
 
 
 def _check_pairs(
-    snaps: Snapshots, tree: cKDTree, points: np.ndarray, radius: float, lo: int, budget: int
+    snaps: Snapshots,
+    tree: cKDTree,
+    points: np.ndarray,
+    radius: float,
+    lo: int,
+    budget: int,
+    centres: np.ndarray | None = None,
 ) -> None:
     """Refuse a chunk whose neighbour pairs could not be held, from a sample counted first.
 
@@ -194,12 +200,15 @@ def _check_pairs(
     pairs grow like the square of the crowd. The neighbours of ``PAIR_SAMPLE``
     entries (a fixed, evenly spread sample) are counted, which costs a few
     milliseconds; the chunk's pairs are estimated from their mean and compared with
-    ``budget``, the chunk's share of the available memory.
+    ``budget``, the chunk's share of the available memory. With ``centres``
+    (indices into ``points``), only the pairs from them are counted, each
+    direction once.
     """
-    n = points.shape[0]
-    sample = np.unique(np.linspace(0, n - 1, min(PAIR_SAMPLE, n)).astype(np.int64))
+    among = np.arange(points.shape[0]) if centres is None else centres
+    n = among.size
+    sample = among[np.unique(np.linspace(0, n - 1, min(PAIR_SAMPLE, n)).astype(np.int64))]
     counts = tree.query_ball_point(points[sample], radius, return_length=True)
-    estimate = n * max(float(np.mean(counts)) - 1.0, 0.0) / 2.0
+    estimate = n * max(float(np.mean(counts)) - 1.0, 0.0) / (2.0 if centres is None else 1.0)
     need = estimate * BYTES_PER_PAIR
     if need <= budget:
         return
@@ -240,5 +249,92 @@ def _pair_keys(
     keep = (snaps.x[a] - snaps.x[b]) ** 2 + (snaps.y[a] - snaps.y[b]) ** 2 <= radius * radius
     a, b = a[keep], b[keep]
     keys = np.minimum(a, b).astype(np.int64) * n + np.maximum(a, b)
+    keys.sort()
+    return keys
+
+
+def neighbours_of(
+    snaps: Snapshots,
+    radius: float,
+    centres: np.ndarray,
+    chunk_entries: int = DEFAULT_CHUNK_ENTRIES,
+    workers: int = 1,
+) -> tuple[np.ndarray, np.ndarray]:
+    """Return every entry within ``radius`` metres of each centre entry, in the same snapshot.
+
+    The search of :func:`neighbour_pairs` from the centres only: when they are
+    a small share of the entries (one role of a large fleet), it costs a tree
+    of every entry but queries from the centres alone.
+
+    Parameters
+    ----------
+    snaps : Snapshots
+        Aligned snapshots.
+    radius : float
+        Distance in metres; inclusive.
+    centres : ndarray of bool, shape (n_entries,)
+        The entries whose neighbours are wanted.
+    chunk_entries, workers
+        As for :func:`neighbour_pairs`; the result does not depend on them.
+
+    Returns
+    -------
+    centre, other : ndarray of int64
+        Directed pairs (a centre, an entry within the radius of it, not
+        itself), sorted by centre then other. Two centres within the radius
+        give both directions.
+    """
+    if not (np.isfinite(radius) and radius > 0):
+        raise ValueError("radius must be a positive number of metres")
+    n = snaps.n_entries
+    empty = np.empty(0, dtype=np.int64)
+    if n < 2 or not np.any(centres):
+        return empty, empty
+    if n > MAX_ENTRIES:
+        raise ValueError(f"more than {MAX_ENTRIES} entries: search them in time chunks")
+    workers = worker_count(workers)
+    x0 = snaps.x - snaps.x.min()
+    pitch = float(x0.max()) + 2.0 * radius + 1.0
+    chunks = _chunks(snaps.offsets(), n, chunk_entries, workers)
+    budget = available_memory() // max(1, min(workers, len(chunks)))
+    search = partial(_keys_around, snaps, np.asarray(centres, dtype=bool), x0, pitch,
+                     float(radius), budget)  # fmt: skip
+    if workers > 1 and len(chunks) > 1:
+        with ThreadPoolExecutor(max_workers=min(workers, len(chunks))) as pool:
+            found = list(pool.map(search, chunks))
+    else:
+        found = [search(chunk) for chunk in chunks]
+    keys = np.concatenate(found) if found else empty
+    return keys // n, keys % n
+
+
+def _keys_around(
+    snaps: Snapshots,
+    centres: np.ndarray,
+    x0: np.ndarray,
+    pitch: float,
+    radius: float,
+    budget: int,
+    chunk: tuple[int, int],
+) -> np.ndarray:
+    """Return the sorted keys centre * n + other of a chunk's centres (see :func:`_pair_keys`)."""
+    lo, hi = chunk
+    n = snaps.n_entries
+    mine = np.flatnonzero(centres[lo:hi])
+    if mine.size == 0:
+        return np.empty(0, dtype=np.int64)
+    widened = radius * (1.0 + 1e-9) + 1e-9
+    s = snaps.snap[lo:hi]
+    points = np.column_stack([x0[lo:hi] + (s - s[0]) * pitch, snaps.y[lo:hi]])
+    tree = cKDTree(points, balanced_tree=False, compact_nodes=False)
+    _check_pairs(snaps, tree, points, widened, lo, budget, centres=mine)
+    around = cKDTree(points[mine], balanced_tree=False, compact_nodes=False)
+    pairs = around.sparse_distance_matrix(tree, widened, output_type="ndarray")
+    del tree, around
+    a, b = mine[pairs["i"]].astype(np.int64) + lo, pairs["j"].astype(np.int64) + lo
+    keep = (a != b) & (
+        (snaps.x[a] - snaps.x[b]) ** 2 + (snaps.y[a] - snaps.y[b]) ** 2 <= radius * radius
+    )
+    keys = a[keep] * n + b[keep]
     keys.sort()
     return keys

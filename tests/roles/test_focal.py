@@ -13,6 +13,7 @@ from comove.errors import InputError
 from comove.roles.chain import role_chain
 from comove.roles.colocation import ColocationParams
 from comove.roles.focal import (
+    FROM_FOCAL_SHARE,
     FocalParams,
     FocalTally,
     focal_chain,
@@ -64,10 +65,16 @@ def tally_shares(levels) -> dict:
 
 
 @pytest.mark.parametrize("seed", range(6))
-def test_shares_and_kept_sets_equal_a_brute_force_count(seed):
+@pytest.mark.parametrize("which", ["commonest", "rarest"])
+def test_shares_and_kept_sets_equal_a_brute_force_count(seed, which):
     x, y, role, present, n_roles = random_scene(seed, n_snap=25, n_obj=12, n_roles=4, side=10)
     snaps = grid_scene(x, y, role, present, n_roles)
-    focal = int(np.bincount(snaps.role).argmax())
+    counts = np.bincount(snaps.role, minlength=n_roles)
+    held = np.where(counts > 0, counts, counts.sum() + 1)  # roles some entry holds
+    focal = int(counts.argmax() if which == "commonest" else held.argmin())
+    # the rarest role's neighbours are searched from its entries only, the commonest's
+    # among every pair (FROM_FOCAL_SHARE)
+    assert (counts[focal] <= FROM_FOCAL_SHARE * counts.sum()) == (which == "rarest")
     params = FocalParams(focal_role=str(snaps.roles[focal]), radius=3.0, min_share=0.4,
                          max_around=3)  # fmt: skip
     truth = brute_force_shares(snaps, focal, 3.0, 3)

@@ -7,7 +7,7 @@ import pytest
 from scenes import grid_scene
 from sklearn.neighbors import radius_neighbors_graph
 
-from comove.tracks.neighbours import neighbour_pairs
+from comove.tracks.neighbours import neighbour_pairs, neighbours_of
 
 
 @pytest.mark.parametrize("seed", range(4))
@@ -71,3 +71,46 @@ def test_a_crowd_whose_pairs_cannot_be_held_is_refused_before_the_search(monkeyp
         neighbours.neighbour_pairs(snaps, 2.0)
     monkeypatch.undo()  # with the machine's memory: every pair, 4 x C(300, 2)
     assert neighbours.neighbour_pairs(snaps, 2.0).i.size == t * n * (n - 1) // 2
+
+
+@pytest.mark.parametrize("seed", range(4))
+@pytest.mark.parametrize(("chunk", "workers"), [(7, 1), (7, 3), (4_000_000, 1), (50, -1)])
+def test_neighbours_of_centres_equal_scikit_learn_radius_neighbors_graph(seed, chunk, workers):
+    # reference: sklearn.neighbors.radius_neighbors_graph per snapshot, rows of the centres
+    rng = np.random.default_rng(seed)
+    n_snap, n_obj, radius = 25, 12, 3.0
+    x = rng.uniform(-20, 20, (n_snap, n_obj))
+    y = rng.uniform(-20, 20, (n_snap, n_obj))
+    present = rng.random((n_snap, n_obj)) < 0.85
+    snaps = grid_scene(x, y, np.zeros_like(present, dtype=int), present, 1)
+    centres = np.isin(snaps.obj, rng.choice(n_obj, 4, replace=False))
+    centre, other = neighbours_of(snaps, radius, centres, chunk_entries=chunk, workers=workers)
+    expected = set()
+    offsets = snaps.offsets()
+    for s in range(snaps.n_snapshots):
+        lo, hi = offsets[s], offsets[s + 1]
+        pts = np.column_stack([snaps.x[lo:hi], snaps.y[lo:hi]])
+        g = radius_neighbors_graph(pts, radius, mode="connectivity").tocoo()
+        expected |= {(lo + a, lo + b) for a, b in zip(g.row, g.col, strict=True)
+                     if centres[lo + a] and a != b}  # fmt: skip
+    assert set(zip(centre.tolist(), other.tolist(), strict=True)) == expected
+    assert len(expected) > 0 and centre.size == len(expected)
+    assert np.all(np.diff(centre * snaps.n_entries + other) > 0)  # sorted, no repeats
+    none = neighbours_of(snaps, radius, np.zeros(snaps.n_entries, bool))
+    assert none[0].size == 0 and none[1].size == 0
+
+
+def test_a_crowd_around_the_centres_that_cannot_be_held_is_refused(monkeypatch):
+    import comove.tracks.neighbours as neighbours
+    from comove.errors import InputError
+
+    rng = np.random.default_rng(3)
+    n, t = 300, 4
+    x, y = rng.uniform(0, 1, (t, n)), rng.uniform(0, 1, (t, n))
+    snaps = grid_scene(x, y, np.zeros((t, n), int), np.ones((t, n), bool), 1)
+    centres = snaps.obj < 100
+    monkeypatch.setattr(neighbours, "available_memory", lambda: 2**18)  # 256 KiB
+    with pytest.raises(InputError, match="one object has 299 neighbours"):
+        neighbours.neighbours_of(snaps, 2.0, centres)
+    monkeypatch.undo()
+    assert neighbours.neighbours_of(snaps, 2.0, centres)[0].size == t * 100 * (n - 1)
