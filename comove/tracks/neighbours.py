@@ -131,30 +131,39 @@ def neighbour_pairs(
     >>> snaps.objects[snaps.obj[[0, 1]]].tolist()
     ['a', 'b']
     """
-    if not (np.isfinite(radius) and radius > 0):
-        raise ValueError("radius must be a positive number of metres")
+    keys = _searched_keys(snaps, radius, chunk_entries, workers)
     n = snaps.n_entries
-    empty = np.empty(0, dtype=np.int64)
-    if n < 2:
-        return NeighbourPairs(empty, empty, float(radius))
-    if n > MAX_ENTRIES:
-        raise ValueError(f"more than {MAX_ENTRIES} entries: search them in time chunks")
-    keys = _searched_keys(snaps, float(radius), chunk_entries, worker_count(workers))
     return NeighbourPairs(keys // n, keys % n, float(radius))
 
 
-def _searched_keys(snaps: Snapshots, radius: float, chunk_entries: int, workers: int) -> np.ndarray:
+def _searched_keys(
+    snaps: Snapshots,
+    radius: float,
+    chunk_entries: int,
+    workers: int,
+    centres: np.ndarray | None = None,
+) -> np.ndarray:
     """Return the sorted pair keys ``i * n + j`` of all snapshots, chunk by chunk in threads.
 
     Snapshots are laid side by side along x (``pitch`` apart, so that no pair
     crosses two), and each chunk of consecutive snapshots is one k-d tree.
+    Without ``centres`` the pairs are undirected (i < j); with them, directed
+    from each centre entry (see :func:`_pair_keys`).
     """
+    if not (np.isfinite(radius) and radius > 0):
+        raise ValueError("radius must be a positive number of metres")
+    if snaps.n_entries > MAX_ENTRIES:
+        raise ValueError(f"more than {MAX_ENTRIES} entries: search them in time chunks")
+    if snaps.n_entries < 2 or (centres is not None and not np.any(centres)):
+        return np.empty(0, dtype=np.int64)
+    workers = worker_count(workers)
     x0 = snaps.x - snaps.x.min()
     pitch = float(x0.max()) + 2.0 * radius + 1.0  # shift between consecutive snapshots
     chunks = _chunks(snaps.offsets(), snaps.n_entries, chunk_entries, workers)
     # chunks searched at once share the memory
     budget = available_memory() // max(1, min(workers, len(chunks)))
-    search = partial(_pair_keys, snaps, x0, pitch, radius, budget)
+    search = partial(_pair_keys, snaps, x0, pitch, float(radius), budget,
+                     None if centres is None else np.asarray(centres, dtype=bool))  # fmt: skip
     if workers > 1 and len(chunks) > 1:
         with ThreadPoolExecutor(max_workers=min(workers, len(chunks))) as pool:
             found = list(pool.map(search, chunks))
@@ -228,12 +237,14 @@ def _pair_keys(
     pitch: float,
     radius: float,
     budget: int,
+    centres: np.ndarray | None,
     chunk: tuple[int, int],
 ) -> np.ndarray:
-    """Return the sorted pair keys i * n + j (i < j) within ``radius`` of a chunk's entries.
+    """Return the sorted pair keys i * n + j within ``radius`` of a chunk's entries.
 
     ``x0`` is x shifted to start at 0 and ``pitch`` the shift between consecutive
-    snapshots laid side by side.
+    snapshots laid side by side. Without ``centres``, every pair once (i < j);
+    with them, (centre i, any other entry j), queried from the centres' own tree.
     """
     lo, hi = chunk
     n = snaps.n_entries
@@ -241,14 +252,24 @@ def _pair_keys(
     s = snaps.snap[lo:hi]
     xs = x0[lo:hi] + (s - s[0]) * pitch
     points = np.column_stack([xs, snaps.y[lo:hi]])
+    mine = None if centres is None else np.flatnonzero(centres[lo:hi])
+    if mine is not None and mine.size == 0:
+        return np.empty(0, dtype=np.int64)
     tree = cKDTree(points, balanced_tree=False, compact_nodes=False)
-    _check_pairs(snaps, tree, points, widened, lo, budget)
-    pairs = tree.query_pairs(widened, output_type="ndarray")
+    _check_pairs(snaps, tree, points, widened, lo, budget, centres=mine)
+    if mine is None:
+        pairs = tree.query_pairs(widened, output_type="ndarray")
+        a, b = pairs[:, 0] + lo, pairs[:, 1] + lo
+    else:
+        around = cKDTree(points[mine], balanced_tree=False, compact_nodes=False)
+        pairs = around.sparse_distance_matrix(tree, widened, output_type="ndarray")
+        a, b = mine[pairs["i"]].astype(np.int64) + lo, pairs["j"].astype(np.int64) + lo
     del tree
-    a, b = pairs[:, 0] + lo, pairs[:, 1] + lo
-    keep = (snaps.x[a] - snaps.x[b]) ** 2 + (snaps.y[a] - snaps.y[b]) ** 2 <= radius * radius
+    keep = (a != b) & ((snaps.x[a] - snaps.x[b]) ** 2 + (snaps.y[a] - snaps.y[b]) ** 2
+                       <= radius * radius)  # fmt: skip
     a, b = a[keep], b[keep]
-    keys = np.minimum(a, b).astype(np.int64) * n + np.maximum(a, b)
+    keys = (a.astype(np.int64) * n + b if mine is not None
+            else np.minimum(a, b).astype(np.int64) * n + np.maximum(a, b))  # fmt: skip
     keys.sort()
     return keys
 
@@ -284,57 +305,6 @@ def neighbours_of(
         itself), sorted by centre then other. Two centres within the radius
         give both directions.
     """
-    if not (np.isfinite(radius) and radius > 0):
-        raise ValueError("radius must be a positive number of metres")
+    keys = _searched_keys(snaps, radius, chunk_entries, workers, centres)
     n = snaps.n_entries
-    empty = np.empty(0, dtype=np.int64)
-    if n < 2 or not np.any(centres):
-        return empty, empty
-    if n > MAX_ENTRIES:
-        raise ValueError(f"more than {MAX_ENTRIES} entries: search them in time chunks")
-    workers = worker_count(workers)
-    x0 = snaps.x - snaps.x.min()
-    pitch = float(x0.max()) + 2.0 * radius + 1.0
-    chunks = _chunks(snaps.offsets(), n, chunk_entries, workers)
-    budget = available_memory() // max(1, min(workers, len(chunks)))
-    search = partial(_keys_around, snaps, np.asarray(centres, dtype=bool), x0, pitch,
-                     float(radius), budget)  # fmt: skip
-    if workers > 1 and len(chunks) > 1:
-        with ThreadPoolExecutor(max_workers=min(workers, len(chunks))) as pool:
-            found = list(pool.map(search, chunks))
-    else:
-        found = [search(chunk) for chunk in chunks]
-    keys = np.concatenate(found) if found else empty
     return keys // n, keys % n
-
-
-def _keys_around(
-    snaps: Snapshots,
-    centres: np.ndarray,
-    x0: np.ndarray,
-    pitch: float,
-    radius: float,
-    budget: int,
-    chunk: tuple[int, int],
-) -> np.ndarray:
-    """Return the sorted keys centre * n + other of a chunk's centres (see :func:`_pair_keys`)."""
-    lo, hi = chunk
-    n = snaps.n_entries
-    mine = np.flatnonzero(centres[lo:hi])
-    if mine.size == 0:
-        return np.empty(0, dtype=np.int64)
-    widened = radius * (1.0 + 1e-9) + 1e-9
-    s = snaps.snap[lo:hi]
-    points = np.column_stack([x0[lo:hi] + (s - s[0]) * pitch, snaps.y[lo:hi]])
-    tree = cKDTree(points, balanced_tree=False, compact_nodes=False)
-    _check_pairs(snaps, tree, points, widened, lo, budget, centres=mine)
-    around = cKDTree(points[mine], balanced_tree=False, compact_nodes=False)
-    pairs = around.sparse_distance_matrix(tree, widened, output_type="ndarray")
-    del tree, around
-    a, b = mine[pairs["i"]].astype(np.int64) + lo, pairs["j"].astype(np.int64) + lo
-    keep = (a != b) & (
-        (snaps.x[a] - snaps.x[b]) ** 2 + (snaps.y[a] - snaps.y[b]) ** 2 <= radius * radius
-    )
-    keys = a[keep] * n + b[keep]
-    keys.sort()
-    return keys

@@ -10,17 +10,15 @@ from sklearn.neighbors import radius_neighbors_graph
 from comove.tracks.neighbours import neighbour_pairs, neighbours_of
 
 
-@pytest.mark.parametrize("seed", range(4))
-@pytest.mark.parametrize(("chunk", "workers"), [(7, 1), (7, 3), (4_000_000, 1), (50, -1)])
-def test_pairs_equal_scikit_learn_radius_neighbors_graph(seed, chunk, workers):
-    # reference: sklearn.neighbors.radius_neighbors_graph per snapshot (distances <= radius)
-    rng = np.random.default_rng(seed)
-    n_snap, n_obj, radius = 25, 12, 3.0
+def random_snapshots(rng: np.random.Generator, n_snap: int = 25, n_obj: int = 12):
     x = rng.uniform(-20, 20, (n_snap, n_obj))
     y = rng.uniform(-20, 20, (n_snap, n_obj))
     present = rng.random((n_snap, n_obj)) < 0.85
-    snaps = grid_scene(x, y, np.zeros_like(present, dtype=int), present, 1)
-    pairs = neighbour_pairs(snaps, radius, chunk_entries=chunk, workers=workers)
+    return grid_scene(x, y, np.zeros_like(present, dtype=int), present, 1)
+
+
+def reference_pairs(snaps, radius: float) -> set[tuple[int, int]]:
+    """Directed entry pairs (a, b), a != b, from sklearn's radius_neighbors_graph per snapshot."""
     expected = set()
     offsets = snaps.offsets()
     for s in range(snaps.n_snapshots):
@@ -29,7 +27,18 @@ def test_pairs_equal_scikit_learn_radius_neighbors_graph(seed, chunk, workers):
             continue
         pts = np.column_stack([snaps.x[lo:hi], snaps.y[lo:hi]])
         g = radius_neighbors_graph(pts, radius, mode="connectivity").tocoo()
-        expected |= {(lo + a, lo + b) for a, b in zip(g.row, g.col, strict=True) if a < b}
+        expected |= {(lo + a, lo + b) for a, b in zip(g.row, g.col, strict=True) if a != b}
+    return expected
+
+
+@pytest.mark.parametrize("seed", range(4))
+@pytest.mark.parametrize(("chunk", "workers"), [(7, 1), (7, 3), (4_000_000, 1), (50, -1)])
+def test_pairs_equal_scikit_learn_radius_neighbors_graph(seed, chunk, workers):
+    # reference: sklearn.neighbors.radius_neighbors_graph per snapshot (distances <= radius)
+    radius = 3.0
+    snaps = random_snapshots(np.random.default_rng(seed))
+    pairs = neighbour_pairs(snaps, radius, chunk_entries=chunk, workers=workers)
+    expected = {(a, b) for a, b in reference_pairs(snaps, radius) if a < b}
     assert set(zip(pairs.i.tolist(), pairs.j.tolist(), strict=True)) == expected
     assert len(expected) > 0
     assert np.all(snaps.snap[pairs.i] == snaps.snap[pairs.j])
@@ -78,21 +87,11 @@ def test_a_crowd_whose_pairs_cannot_be_held_is_refused_before_the_search(monkeyp
 def test_neighbours_of_centres_equal_scikit_learn_radius_neighbors_graph(seed, chunk, workers):
     # reference: sklearn.neighbors.radius_neighbors_graph per snapshot, rows of the centres
     rng = np.random.default_rng(seed)
-    n_snap, n_obj, radius = 25, 12, 3.0
-    x = rng.uniform(-20, 20, (n_snap, n_obj))
-    y = rng.uniform(-20, 20, (n_snap, n_obj))
-    present = rng.random((n_snap, n_obj)) < 0.85
-    snaps = grid_scene(x, y, np.zeros_like(present, dtype=int), present, 1)
-    centres = np.isin(snaps.obj, rng.choice(n_obj, 4, replace=False))
+    radius = 3.0
+    snaps = random_snapshots(rng)
+    centres = np.isin(snaps.obj, rng.choice(12, 4, replace=False))
     centre, other = neighbours_of(snaps, radius, centres, chunk_entries=chunk, workers=workers)
-    expected = set()
-    offsets = snaps.offsets()
-    for s in range(snaps.n_snapshots):
-        lo, hi = offsets[s], offsets[s + 1]
-        pts = np.column_stack([snaps.x[lo:hi], snaps.y[lo:hi]])
-        g = radius_neighbors_graph(pts, radius, mode="connectivity").tocoo()
-        expected |= {(lo + a, lo + b) for a, b in zip(g.row, g.col, strict=True)
-                     if centres[lo + a] and a != b}  # fmt: skip
+    expected = {(a, b) for a, b in reference_pairs(snaps, radius) if centres[a]}
     assert set(zip(centre.tolist(), other.tolist(), strict=True)) == expected
     assert len(expected) > 0 and centre.size == len(expected)
     assert np.all(np.diff(centre * snaps.n_entries + other) > 0)  # sorted, no repeats
