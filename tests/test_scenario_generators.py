@@ -327,6 +327,40 @@ def test_game_role_change_is_in_the_role_column() -> None:
         assert set(grid.role[i, k:]) == {change["to"]}
 
 
+def _largest_turn(lead: np.ndarray, follow: np.ndarray, a: int, b: int, shift: int) -> float:
+    """Largest angle (rad) between the follower's heading at a..b and the leader's shift before."""
+    diff = follow[a:b] - lead[a - shift : b - shift]
+    return float(np.abs(np.angle(np.exp(1j * diff))).max())
+
+
+def test_game_leads_follower_heads_where_the_leader_headed_delay_earlier() -> None:
+    # in every planted window: the two within the radius, both running, and the follower's
+    # heading at t the leader's at t - delay (to a few degrees of rounding), while one
+    # snapshot more or less already differs by far more
+    truth = truth_of("small_sided_game")
+    grid = committed_grid("small_sided_game")
+    p = truth["parameters"]
+    assert truth["leads"]
+    for lead in truth["leads"]:
+        i, j = grid.ids.index(lead["leader"]), grid.ids.index(lead["follower"])
+        lag = int(round(lead["delay_s"] / p["step"]))
+        assert lag >= 1
+        vi, vj = velocities(grid, i), velocities(grid, j)
+        heading_i, heading_j = np.arctan2(vi[:, 1], vi[:, 0]), np.arctan2(vj[:, 1], vj[:, 0])
+        assert lead["when"]
+        for when in lead["when"]:
+            a, b = grid.index(when["start"]), grid.index(when["end"]) + 1
+            assert b - a >= 50, when
+            gap = np.hypot(*(grid.xy[i, a:b] - grid.xy[j, a:b]).T)
+            assert gap.max() <= p["radius"], when
+            assert min(np.hypot(*vi[a:b].T).min(), np.hypot(*vj[a:b].T).min()) > 2.0, when
+            turns = {
+                s: _largest_turn(heading_i, heading_j, a, b, s) for s in (lag - 1, lag, lag + 1)
+            }
+            assert turns[lag] < np.radians(3.0), (when, turns)
+            assert min(turns[lag - 1], turns[lag + 1]) > 3 * np.radians(3.0), (when, turns)
+
+
 def test_dense_crowd_generator_is_deterministic_and_committed(tmp_path: Path) -> None:
     module = generator("dense_crowd")
     first, truth_a = module.generate(seed=77)

@@ -49,3 +49,8 @@ def test_tutorial_commands_run(tutorial, tmp_path, monkeypatch, capsys):
         exec(compile(code, f"{tutorial.name} (python block)", "exec"), names)
         if "closest" in names:  # what the team-sport text says of the marking pairs
             assert names["closest"]["A03"] == "T05" and names["closest"]["A02"] == "T04"
+        if "clear_leads" in names:  # and of who leads in the counter-attacks
+            leads = names["clear_leads"]
+            assert list(zip(leads["leader"], leads["follower"], strict=True)) == [("T02", "T03")]
+            assert round(float(leads["delay_s"].iloc[0]), 2) == 0.62
+            assert bool(leads["significant"].iloc[0])  # tested in the tutorial's run

@@ -16,6 +16,13 @@ Layout (x along the pitch, amber defends x = 0, teal defends x = 60):
   third forward, and his role changes to amber_back; the pivot and winger keep pressing
   as a pair.
 * Keepers stay in their goal areas, more than 50 m apart.
+* Eight counter-attacks (as many as there is room for, at least six): teal wins the ball
+  and back T02 breaks upfield, 6 s at 4.5 m/s, cutting from side to side every 1-1.8 s;
+  back T03 runs about 1 m behind him and 1.3 m to one side, heading where T02 headed
+  0.6 s earlier (T02 leads, T03 follows 0.6 s later). T03 closes in on T02 over 5 s, T02
+  speeds up over 2 s, both ease off over 2 s and drop back to their own paths over 10 s.
+  Each break lies where both stay at least 4 m from every other player until they stop,
+  away from the decoy crossings.
 """
 
 from __future__ import annotations
@@ -71,6 +78,18 @@ MARK_RAMP = 4.0
 PRESS_RAMP = 3.0
 STRIKER_LAST_PRESS_END = 232.0
 DROP_START, DROP_LENGTH = 234.0, 8.0
+# Counter-attacks: leader, follower, and how much later (seconds) the follower takes the
+# leader's heading.
+LEAD = ("T02", "T03", 0.6)
+COUNTERS, FEWEST_COUNTERS = 8, 6  # as many as there is room for, at least the fewest
+COUNTER_LENGTH, COUNTER_SPEED = 6.0, 4.5  # seconds at full speed, m/s
+CUT_ANGLE, CUT_EVERY, CUT_TIME = 0.4, (1.0, 1.8), 0.3  # rad off the line; seconds
+COUNTER_BEHIND, COUNTER_SIDE = 1.0, 1.3  # metres: where the follower runs, on average
+# seconds in which the follower closes in, the leader speeds up, both ease off, both drop back
+CLOSE, JOIN, EASE, REJOIN = 5.0, 2.0, 2.0, 10.0
+COUNTER_CLEAR = RADIUS + 1.0  # least distance to every other player until the two stop
+TOP_SPEED = 8.5  # m/s, fastest a player may run at any moment of a break
+DECOY_MARGIN = 6.0  # seconds kept free of counter-attacks around a decoy crossing
 
 
 def _crossing(
@@ -119,6 +138,131 @@ def _crossing(
     w = kit.plateau_weight(t, [(t[k] - hold, t[k] + hold)], ramp)[:, None]
     pos[b] = (1 - w) * pos[b] + w * run
     return b, a, k
+
+
+def _cuts(rng: np.random.Generator, n: int) -> np.ndarray:
+    """Heading offsets (rad) of a run with cuts: from side to side of its line, at random times.
+
+    Offsets hold between cuts at 60-100 % of ``CUT_ANGLE`` on alternating sides; cuts come
+    every ``CUT_EVERY`` seconds and each turns over ``CUT_TIME`` seconds.
+    """
+    span = n * DT
+    cut_at = np.cumsum(rng.uniform(*CUT_EVERY, size=int(span / CUT_EVERY[0]) + 2))
+    cut_at -= rng.uniform(0.0, CUT_EVERY[1])
+    side = (-1.0) ** (np.arange(cut_at.size + 1) + rng.integers(2))
+    level = CUT_ANGLE * rng.uniform(0.6, 1.0, size=cut_at.size + 1) * side
+    local = np.arange(n) * DT
+    turns = kit.smoothstep((local[None, :] - cut_at[:, None]) / CUT_TIME)  # (cuts, samples)
+    return level[0] + np.diff(level) @ turns
+
+
+def _counter_attacks(
+    rng: np.random.Generator,
+    pos: dict[str, np.ndarray],
+    t: np.ndarray,
+    busy: list[int],
+) -> list[dict[str, float]]:
+    """Plant the counter-attacks: the leader breaks upfield, the follower takes his headings.
+
+    In each break the leader runs along a line within 40 degrees of upfield, cutting from
+    side to side of it (:func:`_cuts`): from where he is, his speed rises to
+    ``COUNTER_SPEED`` over ``JOIN`` seconds, holds for ``COUNTER_LENGTH`` and falls to
+    nothing over ``EASE``, and over ``REJOIN`` seconds he drops back to his own path. The
+    follower's target is the leader's position ``delay`` earlier plus a constant shift
+    that puts him, at full speed, on average ``COUNTER_BEHIND`` behind the leader and
+    ``COUNTER_SIDE`` to one side: while he is on it his heading at t is the leader's at
+    t - delay. He blends onto it over ``CLOSE`` seconds before the leader speeds up,
+    keeps to it until both stop, and drops back to his own path from where he stopped.
+
+    Start times (every 0.5 s, ``DECOY_MARGIN`` clear of the ``busy`` sample indices),
+    lines and sides are tried together; a break must keep both on the pitch, the two
+    0.5-2.6 m apart at full speed and under the radius until they stop, everyone else
+    ``COUNTER_CLEAR`` away until they stop, and nobody over ``TOP_SPEED``; of those the
+    one with the lowest top speed is taken. Breaks are placed one after another without
+    overlap, up to ``COUNTERS`` of them while there is room, and at least
+    ``FEWEST_COUNTERS``.
+
+    Returns
+    -------
+    list of dict
+        Per break, ``start`` and ``end`` (seconds) of the full-speed stretch.
+    """
+    leader, follower, delay = LEAD
+    lag = int(round(delay * RATE_HZ))
+    n_close, n_join, n_run, n_ease, n_back = (
+        int(round(s * RATE_HZ)) for s in (CLOSE, JOIN, COUNTER_LENGTH, EASE, REJOIN)
+    )
+    n_pre = n_close + n_join  # window samples before full speed
+    n_win = n_pre + n_run + n_ease + n_back  # one break, from closing in to back in place
+    # The leader's path is built from ``lag`` samples before the window, for the follower.
+    local = (np.arange(-lag, n_win) - n_pre) * DT  # seconds from the start of full speed
+    speed = COUNTER_SPEED * kit.smoothstep((local + JOIN) / JOIN)
+    speed *= kit.smoothstep((COUNTER_LENGTH + EASE - local) / EASE)
+    back = kit.smoothstep((COUNTER_LENGTH + EASE + REJOIN - local) / REJOIN)
+    on_lead = (kit.smoothstep((local + JOIN) / JOIN) * back)[:, None]
+    on_follow = (kit.smoothstep((local + JOIN + CLOSE) / CLOSE) * back)[lag:, None]
+    full = slice(lag + n_pre, lag + n_pre + n_run)  # leader samples at full speed
+    running = slice(n_pre, n_pre + n_run + n_ease)  # window samples from full speed to stop
+    others = np.stack([pos[p] for p in PLAYERS if p not in (leader, follower)])
+    starts = np.arange(n_pre + lag, len(t) - n_win + n_pre, 5)  # first full-speed sample
+    free = np.ones(starts.size, dtype=bool)
+    margin = int(DECOY_MARGIN * RATE_HZ)
+    for k in busy:
+        free &= (starts - n_pre + n_win < k - margin) | (starts - n_pre > k + margin)
+    counters = []
+    while len(counters) < COUNTERS:
+        cuts = _cuts(rng, lag + n_win)
+        ks = starts[free]
+        span = ks[:, None] - n_pre - lag + np.arange(lag + n_win)  # (candidates, samples)
+        win = span[:, lag:]
+        best: tuple[float, int, np.ndarray, np.ndarray] = (np.inf, -1, np.empty(0), np.empty(0))
+        for line in np.pi + np.linspace(-0.7, 0.7, 8):
+            heading = line + cuts
+            run = np.cumsum(speed[:, None] * np.column_stack([np.cos(heading), np.sin(heading)]),
+                            axis=0) * DT  # fmt: skip
+            # from where the leader is as he starts to speed up (his speed is nil before)
+            target = pos[leader][ks - n_join][:, None] + run - run[0]
+            lead = (1 - on_lead) * pos[leader][span] + on_lead * target
+            gap = (run[full] - run[n_pre : n_pre + n_run]).mean(axis=0)  # run in one delay
+            ahead = gap / np.linalg.norm(gap)
+            for side in (-1.0, 1.0):
+                beside = side * COUNTER_SIDE * np.array([-ahead[1], ahead[0]])
+                shift = gap - COUNTER_BEHIND * ahead + beside
+                # on the leader's heading until they stop, then back to his own path
+                follow = lead[:, :-lag] + shift
+                follow[:, running.stop :] = follow[:, running.stop - 1 : running.stop]
+                trail = (1 - on_follow) * pos[follower][win] + on_follow * follow
+                both = np.stack([lead[:, lag:], trail])  # (2, candidates, samples, 2)
+                apart = np.linalg.norm(both[0, :, running] - both[1, :, running], axis=-1)
+                top = np.linalg.norm(np.diff(both, axis=2), axis=-1).max(axis=(0, 2)) / DT
+                ok = (
+                    (both.min(axis=(0, 2, 3)) > 1.0)
+                    & (both[..., 0].max(axis=(0, 2)) < 59.0)
+                    & (both[..., 1].max(axis=(0, 2)) < 39.0)
+                    & (apart[:, :n_run].max(axis=1) <= 2.6)
+                    & (apart[:, :n_run].min(axis=1) >= 0.5)
+                    & (apart.max(axis=1) < RADIUS)
+                    & (top <= TOP_SPEED)
+                )
+                cand = np.flatnonzero(ok)
+                if cand.size == 0:
+                    continue
+                near = others[:, win[cand][:, running]]  # (others, cand, samples, 2)
+                gaps = np.linalg.norm(near[None] - both[:, None, cand][:, :, :, running], axis=-1)
+                cand = cand[gaps.min(axis=(0, 1, 3)) >= COUNTER_CLEAR]
+                if cand.size and top[cand].min() < best[0]:
+                    i = cand[np.argmin(top[cand])]
+                    best = (float(top[i]), int(ks[i]), both[0, i], both[1, i])
+        _, k, lead_path, trail_path = best
+        if k < 0:
+            break
+        window = slice(k - n_pre, k - n_pre + n_win)
+        pos[leader][window], pos[follower][window] = lead_path, trail_path
+        counters.append({"start": k * DT, "end": (k + n_run) * DT})
+        free &= (starts - n_pre > k - n_pre + n_win) | (starts - n_pre + n_win < k - n_pre)
+    if len(counters) < FEWEST_COUNTERS:
+        raise RuntimeError(f"room for {len(counters)} counter-attacks only")
+    return sorted(counters, key=lambda c: c["start"])
 
 
 def _build(seed: int) -> dict[str, object]:
@@ -181,6 +325,7 @@ def _build(seed: int) -> dict[str, object]:
         options = [(b, a, busy) for b in ("T02", "T03") for a, busy in passed]
         b, a, k = _crossing(pos, options, t, lo, hi)
         decoys.append({"members": sorted([a, b]), "index": k})
+    counters = _counter_attacks(rng, pos, t, [d["index"] for d in decoys])
 
     return {
         "t": t,
@@ -189,6 +334,7 @@ def _build(seed: int) -> dict[str, object]:
         "press": press,
         "striker_press": striker_press,
         "decoys": decoys,
+        "counters": counters,
     }
 
 
@@ -200,9 +346,9 @@ def _episodes(plan: dict[str, object]) -> list[dict[str, object]]:
     end = (N_SAMPLES - 1) * DT
     out = []
 
-    def add(members: list[str], a: float, b: float, how: str) -> None:
+    def add(members: list[str], a: float, b: float, how: str, shortest: float = 10.0) -> None:
         a, b = max(a, 0.0), min(b, end)
-        if b - a >= 10.0:
+        if b - a >= shortest:
             out.append({"members": sorted(members), "start": _iso(a), "end": _iso(b), "how": how})
 
     for back, fwd in (("A02", "T04"), ("A03", "T05")):
@@ -214,6 +360,14 @@ def _episodes(plan: dict[str, object]) -> list[dict[str, object]]:
         if (a, b) not in plan["striker_press"] and a > STRIKER_LAST_PRESS_END:
             add(["A04", "A05"], a, b, "pivot and winger press as a pair after 4:00")
     add(["A06", "T06"], DROP_START + DROP_LENGTH, end, "former striker marks the third forward")
+    for run in plan["counters"]:
+        add(
+            list(LEAD[:2]),
+            run["start"],
+            run["end"],
+            "counter-attack: the two backs break upfield together",
+            shortest=COUNTER_LENGTH / 2,
+        )
     return sorted(out, key=lambda e: (e["start"], e["members"]))
 
 
@@ -310,6 +464,19 @@ def generate(seed: int = SEED) -> tuple[pd.DataFrame, dict]:
                 "how": "crossing paths, opposite headings",
             }
             for d in plan["decoys"]
+        ],
+        "leads": [
+            {
+                "leader": LEAD[0],
+                "follower": LEAD[1],
+                "delay_s": LEAD[2],
+                "when": [
+                    {"start": _iso(r["start"]), "end": _iso(r["end"])} for r in plan["counters"]
+                ],
+                "how": "counter-attacks: the leader breaks upfield, cutting from side to "
+                "side; the follower runs about 1 m behind him and 1.3 m to one side and heads "
+                "where the leader headed delay_s earlier",
+            }
         ],
         "role_changes": [
             {
