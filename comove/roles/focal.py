@@ -57,8 +57,9 @@ from comove.tracks.alignment import Snapshots, longest_runs
 from comove.tracks.neighbours import NeighbourPairs, neighbour_pairs, neighbours_of
 
 #: Largest share of focal entries for which the neighbours are searched from the focal
-#: entries only (``neighbours_of``); above it every pair is searched. Measured on 300
-#: snapshots of uniform scenes: 2.0x faster at 2 % focal, 1.08x at 20 %, 0.68x at 50 %.
+#: entries only (``neighbours_of``); above it every pair is searched. Measured by
+#: benchmarks/focal_search.py (docs/performance.md): 2.3x faster at 2 % focal, 1.11x at
+#: 25 %, 1.04x at 35 % (within noise), 0.88x at 50 %.
 FROM_FOCAL_SHARE = 0.25
 
 #: Bits per word of a neighbourhood mask.
