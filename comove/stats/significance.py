@@ -389,6 +389,31 @@ def summary_table(
     })  # fmt: skip
 
 
+def _compared_tests(
+    snaps: Snapshots,
+    statistic: Statistic,
+    values: np.ndarray,
+    thinned_values: Callable[[Snapshots], np.ndarray],
+    name: str,
+    params: SignificanceParams,
+    run: RunParams,
+    progress: bool,
+) -> pd.DataFrame:
+    """Return :func:`summary_table` of ``statistic`` against its null replicates.
+
+    With ``params.null_step`` above the step, observed and null values are
+    compared on every k-th snapshot: the observed statistic is then
+    ``thinned_values`` of the thinned snapshots, not ``values`` (of all).
+    """
+    every = params.thinning(snaps.step_s)
+    compared = snaps.thinned(every)
+    if every > 1:  # the observed statistic on the snapshots the replicates use
+        values = thinned_values(compared)
+    null = null_distribution(NullModel(compared, params), statistic, params, run, progress,
+                             label=f"{params.null} replicates")  # fmt: skip
+    return summary_table(values, null, params.alpha, name, compared.step_s)
+
+
 # --------------------------------------------------------------------------- statistics
 
 
@@ -514,18 +539,16 @@ def pattern_tests(
     labels = [role_label(row, snaps.roles) for sets in tested for row in sets]
     sizes = [sets.shape[1] for sets in tested for _ in sets]
     statistic = RoleSetStatistic(colocation, tested, params.statistic)
-    every = params.thinning(snaps.step_s)
-    compared = snaps.thinned(every)
-    if every > 1:  # the observed statistic on the snapshots the replicates use
+
+    def thinned_values(compared: Snapshots) -> np.ndarray:
         mined = role_chain(compared, colocation, min_prevalent_snapshots=0,
                            only=statistic.only(n_roles))  # fmt: skip
-        values = role_set_values(mined.levels, tested, n_roles, params.statistic)
-    else:
-        values = mean_pi if params.statistic == "continuous" else prevalence
-    null = null_distribution(NullModel(compared, params), statistic, params, run, progress,
-                             label=f"{params.null} replicates")  # fmt: skip
+        return role_set_values(mined.levels, tested, n_roles, params.statistic)
+
     name = "mean_participation_index" if params.statistic == "continuous" else "time_prevalence"
-    table = summary_table(values, null, params.alpha, name, compared.step_s)
+    table = _compared_tests(snaps, statistic, mean_pi if params.statistic == "continuous"
+                            else prevalence, thinned_values, name, params, run,
+                            progress)  # fmt: skip
     table.insert(0, "roles", pd.Series(labels, dtype=object))
     table.insert(1, "size", np.asarray(sizes, dtype=np.int64))
     table.insert(2, "time_prevalence", prevalence)
@@ -744,18 +767,16 @@ def focal_tests(
     prevalence = focal_values(counted, tested, "count")
     mean_share = focal_values(counted, tested, "continuous")
     statistic = FocalStatistic(focal, tested, params.statistic)
-    every = params.thinning(snaps.step_s)
-    compared = snaps.thinned(every)
-    if every > 1:  # the observed statistic on the snapshots the replicates use
+
+    def thinned_values(compared: Snapshots) -> np.ndarray:
         thinned = focal_chain(compared, focal)
-        values = focal_values(surrounding_sets(thinned, focal, only=tested), tested,
-                              params.statistic)  # fmt: skip
-    else:
-        values = mean_share if params.statistic == "continuous" else prevalence
-    null = null_distribution(NullModel(compared, params), statistic, params, run, progress,
-                             label=f"{params.null} replicates")  # fmt: skip
+        return focal_values(surrounding_sets(thinned, focal, only=tested), tested,
+                            params.statistic)  # fmt: skip
+
     name = "mean_share" if params.statistic == "continuous" else "time_prevalence"
-    table = summary_table(values, null, params.alpha, name, compared.step_s)
+    table = _compared_tests(snaps, statistic, mean_share if params.statistic == "continuous"
+                            else prevalence, thinned_values, name, params, run,
+                            progress)  # fmt: skip
     table.insert(0, "around", pd.Series([role_label(row, snaps.roles) for sets in tested
                                          for row in sets], dtype=object))  # fmt: skip
     table.insert(1, "size", np.asarray([sets.shape[1] for sets in tested for _ in sets],

@@ -65,6 +65,31 @@ def test_independent_walkers_are_not_called_significant():
     assert (result.tests["p_value"] < 0.05).sum() <= 1
 
 
+def test_focal_tests_compare_every_kth_snapshot_of_a_fine_grid():
+    # 4 snapshots a second, compared every second (--null-step 1): the observed statistic is
+    # that of the snapshots at whole seconds alone, as in a run on those snapshots only
+    rng = np.random.default_rng(5)
+    n_obj, n_snap = 16, 400
+    pos = rng.normal(0, 0.4, (n_snap, n_obj, 2)).cumsum(axis=0) + rng.uniform(0, 12, (1, n_obj, 2))
+    frame = pd.DataFrame({
+        "id": np.tile([f"w{i:02d}" for i in range(n_obj)], n_snap),
+        "time": np.repeat(np.arange(n_snap) / 4.0, n_obj),
+        "x": pos[..., 0].ravel(), "y": pos[..., 1].ravel(),
+        "role": np.tile(rng.choice(["a", "b", "c"], n_obj), n_snap),
+    })  # fmt: skip
+    options = dict(focal_role="a", radius=4.0, min_share=0.3, min_prevalence=0.05,
+                   replicates=19, seed=3)  # fmt: skip
+    thinned = focal(frame, step=0.25, **options)
+    assert len(thinned.tests) > 0 and (thinned.tests["compared_step_s"] == 1.0).all()
+    every = focal(frame, step=0.25, null_step=0.0, **options)
+    assert (every.tests["compared_step_s"] == 0.25).all()
+    whole = focal(frame[frame["time"] % 1.0 == 0], step=1.0, null_step=0.0, **options)
+    both = thinned.tests.merge(whole.tests, on="around", suffixes=("", "_whole"))
+    assert len(both) == len(thinned.tests)
+    np.testing.assert_allclose(both["difference"] + both["null_mean"],
+                               both["difference_whole"] + both["null_mean_whole"])  # fmt: skip
+
+
 @pytest.mark.parametrize("name, role, chunk", [("fleet", "hauler", "20min"),
                                                ("herd", "calf", "5 days")])  # fmt: skip
 def test_focal_over_windows_writes_the_whole_run_files(name, role, chunk, tmp_path):
