@@ -617,10 +617,8 @@ def groups(
                                      for zone, g in parts])
               for f in fields(_Grouped) if f.name != "centroids"}  # fmt: skip
     centroids = [c for _, g in parts for c in g.centroids]
-    return GroupsResult(tables["episodes"], tables["roles"], tables["dyads"], tables["objects"],
-                        tables["leaders"], tables["leader_roles"], tables["paths"],
-                        tables["display_paths"], quality, run, snaps, centroids,
-                        sample)  # fmt: skip
+    return GroupsResult(**tables, quality=quality, run=run, snapshots=snaps, centroids=centroids,
+                        sample=sample)  # fmt: skip
 
 
 def _bar_of(zone: Zone, bar: _Progress) -> _Progress:
@@ -630,7 +628,10 @@ def _bar_of(zone: Zone, bar: _Progress) -> _Progress:
 
 @dataclass
 class _Grouped:
-    """The tables ``groups`` gives of one zone (or of the whole run)."""
+    """The tables ``groups`` gives of one zone (or of the whole run).
+
+    Its fields but ``centroids`` are those of :class:`GroupsResult`, by name.
+    """
 
     episodes: pd.DataFrame
     roles: pd.DataFrame
