@@ -16,7 +16,7 @@ from __future__ import annotations
 
 import os
 import warnings
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from concurrent.futures import Future, ThreadPoolExecutor
 from contextlib import contextmanager
 from dataclasses import dataclass, field, fields
@@ -145,6 +145,25 @@ class _Progress:
             self.bar.close()
 
 
+def folder_files(
+    sample: Any,
+    tables: dict[str, Callable],
+    quality: dict,
+    run: dict,
+    optional: dict[str, pd.DataFrame | None] | None = None,
+) -> dict[str, Callable]:
+    """Return the writers of a command's results folder, in the order they are written.
+
+    The track sample, the command's own ``tables`` (name -> writer), its
+    quality and run records, then each ``optional`` table that was computed
+    (None: left out).
+    """
+    files = {"track_sample.parquet": parquet_writer(sample), **tables,
+             "quality.json": json_writer(quality), "run.json": json_writer(run)}  # fmt: skip
+    files.update({name: csv_writer(t) for name, t in (optional or {}).items() if t is not None})
+    return files
+
+
 @dataclass
 class MiningResult:
     """Durable role sets and everything needed to trust them.
@@ -193,18 +212,18 @@ class MiningResult:
         ``quality.json``, ``run.json``, ``significance.csv`` (every role set
         tested) when significance tests ran, and ``cross_k.csv`` when asked for.
         """
-        files = {
-            "track_sample.parquet": parquet_writer(self.sample),
+        tables = {
             "patterns.csv": csv_writer(self.patterns),
             "participation.csv": csv_writer(self.participation),
             "participation_series.parquet": parquet_writer(self.series),
-            "quality.json": json_writer(self.quality),
-            "run.json": json_writer(self.run),
         }
-        if self.tests is not None:
-            files["significance.csv"] = csv_writer(self.tests)
-        if self.cross_k is not None:
-            files["cross_k.csv"] = csv_writer(self.cross_k)
+        files = folder_files(
+            self.sample,
+            tables,
+            self.quality,
+            self.run,
+            {"significance.csv": self.tests, "cross_k.csv": self.cross_k},
+        )
         return write_folder(out_dir, files, force=force, merge="mine" if merge else None)
 
 
@@ -500,27 +519,21 @@ class GroupsResult:
         ``episode_paths.geojson`` (thinned for viewing),
         ``quality.json`` and ``run.json``.
         """
-        return write_folder(
-            out_dir,
-            {
-                "track_sample.parquet": parquet_writer(self.sample),
-                "episodes.csv": csv_writer(self.episodes),
-                "episode_roles.csv": csv_writer(self.roles),
-                "dyads.csv": csv_writer(self.dyads),
-                "association.graphml": graphml_writer(
-                    overall(self.objects), "object", overall(self.dyads), "object_a", "object_b"
-                ),
-                "association_edges.csv": csv_writer(association_edges(self.dyads)),
-                "leadership.csv": csv_writer(self.leaders),
-                "leadership_roles.csv": csv_writer(self.leader_roles),
-                "episode_paths.parquet": geoparquet_writer(self.paths),
-                "episode_paths.geojson": geojson_writer(self.display_paths),
-                "quality.json": json_writer(self.quality),
-                "run.json": json_writer(self.run),
-            },
-            force=force,
-            merge="groups" if merge else None,
-        )
+        tables = {
+            "episodes.csv": csv_writer(self.episodes),
+            "episode_roles.csv": csv_writer(self.roles),
+            "dyads.csv": csv_writer(self.dyads),
+            "association.graphml": graphml_writer(
+                overall(self.objects), "object", overall(self.dyads), "object_a", "object_b"
+            ),
+            "association_edges.csv": csv_writer(association_edges(self.dyads)),
+            "leadership.csv": csv_writer(self.leaders),
+            "leadership_roles.csv": csv_writer(self.leader_roles),
+            "episode_paths.parquet": geoparquet_writer(self.paths),
+            "episode_paths.geojson": geojson_writer(self.display_paths),
+        }
+        files = folder_files(self.sample, tables, self.quality, self.run)
+        return write_folder(out_dir, files, force=force, merge="groups" if merge else None)
 
     def to_trajectories(self) -> Any:
         """Return the episode centroid paths as a movingpandas ``TrajectoryCollection``.

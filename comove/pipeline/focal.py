@@ -19,7 +19,7 @@ from typing import Any
 import pandas as pd
 
 from comove.io.reading import ColumnSpec
-from comove.io.results import CAUTION, csv_writer, json_writer, parquet_writer, write_folder
+from comove.io.results import CAUTION, csv_writer, parquet_writer, write_folder
 from comove.roles.focal import FocalParams, FocalTally, focal_chain, focal_tables, surrounding_sets
 from comove.roles.persistence import PersistenceParams
 from comove.stats.engine import RunParams
@@ -78,16 +78,16 @@ class FocalResult:
         ``focal_series.parquet``, ``track_sample.parquet``, ``quality.json``,
         ``run.json``, and ``focal_significance.csv`` when tests ran.
         """
-        files = {
-            "track_sample.parquet": parquet_writer(self.sample),
+        from comove.pipeline.core import folder_files
+
+        tables = {
             "focal.csv": csv_writer(self.sets),
             "focal_neighbourhoods.csv": csv_writer(self.neighbourhoods),
             "focal_series.parquet": parquet_writer(self.series),
-            "quality.json": json_writer(self.quality),
-            "run.json": json_writer(self.run),
         }
-        if self.tests is not None:
-            files["focal_significance.csv"] = csv_writer(self.tests)
+        files = folder_files(
+            self.sample, tables, self.quality, self.run, {"focal_significance.csv": self.tests}
+        )
         return write_folder(out_dir, files, force=force, merge="focal" if merge else None)
 
 
