@@ -218,3 +218,21 @@ def test_the_swap_test_holds_its_level_on_pairs_that_share_a_course():
     assert len(table) == 60
     assert (table["p_value"] < 0.05).sum() <= 7
     assert (table["p_value"] < 0.5).mean() <= 0.65
+
+
+def test_with_tests_on_and_no_pair_judged_the_table_keeps_every_column():
+    from comove.stats.significance import TEST_COLUMNS
+
+    frame = planted_scene(n=300)  # 30 s together, against 60 s asked for
+    result = groups(frame, radius=3.0, step=STEP, links="snapshot", replicates=9, max_delay=1.0,
+                    min_moving_together=60.0, seed=1)  # fmt: skip
+    assert result.leaders.empty
+    assert list(result.leaders.columns)[-len(TEST_COLUMNS) :] == TEST_COLUMNS
+
+
+def test_with_no_delay_looked_for_no_pair_has_a_lead_to_test():
+    result = groups(planted_scene(n=600), radius=3.0, step=STEP, links="snapshot", replicates=9,
+                    max_delay=0.0, min_moving_together=5.0, seed=1)  # fmt: skip
+    table = result.leaders
+    assert len(table) == 6 and not table["clear_leader"].any()
+    assert (table["lead_asymmetry"] == 0).all() and (table["p_value"] == 1).all()
