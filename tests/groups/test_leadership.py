@@ -236,3 +236,27 @@ def test_with_no_delay_looked_for_no_pair_has_a_lead_to_test():
     table = result.leaders
     assert len(table) == 6 and not table["clear_leader"].any()
     assert (table["lead_asymmetry"] == 0).all() and (table["p_value"] == 1).all()
+
+
+def test_sums_of_a_pair_always_together_equal_scipy_cross_correlation():
+    # reference: scipy.signal.correlate of the unit heading components. For a pair together
+    # and moving at every snapshot, sum_t u_a(t) . u_b(t + tau) is the full cross-correlation
+    # of b's components with a's at lag tau, over the n - |tau| overlapping snapshots
+    from scipy.signal import correlate
+
+    frame = planted_scene(n=400)
+    frame = frame[frame["id"].isin(["guide", "late7"])]
+    snaps = align(clean_fixes(read_tracks(frame))[0], AlignParams(step=STEP, max_gap=0.2))
+    motion, pairs = entry_motion(snaps, 1.0), neighbour_pairs(snaps, 3.0)
+    lags = 12
+    tally = lead_tally(snaps, motion, pairs, 0.3, lags)
+    assert tally.key.size == 1 and tally.moving[0] == snaps.n_snapshots  # always together
+    a, b = (snaps.obj == k for k in range(2))  # one entry per snapshot each, in time order
+    ux, uy = motion.vx / motion.speed, motion.vy / motion.speed
+    full = correlate(ux[b], ux[a], mode="full") + correlate(uy[b], uy[a], mode="full")
+    middle = snaps.n_snapshots - 1  # lag 0 of the "full" output
+    expected = full[middle - lags : middle + lags + 1]
+    np.testing.assert_allclose(tally.sums[0] / 2.0**FIXED_BITS, expected, atol=1e-6)
+    np.testing.assert_array_equal(
+        tally.counts[0], snaps.n_snapshots - np.abs(np.arange(-lags, lags + 1))
+    )
