@@ -490,21 +490,30 @@ def leadership_tables(
     )
     table = table.sort_values(["correlation", "delay_s", "leader", "follower"],
                               ascending=[False, False, True, True], kind="stable")  # fmt: skip
-    return table.reset_index(drop=True), _role_rollup(table)
+    return table.reset_index(drop=True), lead_rollup(table)
 
 
-def _role_rollup(table: pd.DataFrame) -> pd.DataFrame:
-    """Return the pairs with a clear leader rolled up by (leader role, follower role)."""
-    clear = table[table["clear_leader"]]
+def lead_rollup(table: pd.DataFrame) -> pd.DataFrame:
+    """Return the pairs with a clear leader rolled up by (leader role, follower role).
+
+    Columns ``LEADERSHIP_ROLE_COLUMNS``; when the leads were tested (the table
+    has ``significant``), also ``significant_pairs``: how many of those pairs
+    lead significantly.
+    """
+    tested = "significant" in table.columns
+    columns = LEADERSHIP_ROLE_COLUMNS + (["significant_pairs"] if tested else [])
+    clear = table[table["clear_leader"].astype(bool)]
     if clear.empty:
-        return pd.DataFrame(columns=LEADERSHIP_ROLE_COLUMNS)
+        return pd.DataFrame(columns=columns)
+    sums = {"significant_pairs": ("significant", "sum")} if tested else {}
     out = clear.groupby(["leader_role", "follower_role"], sort=True).agg(
         pairs=("leader", "size"),
         median_delay_s=("delay_s", "median"),
         mean_correlation=("correlation", "mean"),
         moving_together_s=("moving_together_s", "sum"),
+        **sums,
     )
-    return out.reset_index()[LEADERSHIP_ROLE_COLUMNS]
+    return out.reset_index()[columns]
 
 
 def leadership(

@@ -30,7 +30,13 @@ from comove.groups.chain import GroupTally, group_chain
 from comove.groups.dyads import DyadParams, dyads_and_objects
 from comove.groups.episodes import EpisodeParams
 from comove.groups.grouping import GroupParams
-from comove.groups.leadership import LeadBlocks, LeadershipParams, leadership, tested_leadership
+from comove.groups.leadership import (
+    LeadBlocks,
+    LeadershipParams,
+    lead_rollup,
+    leadership,
+    tested_leadership,
+)
 from comove.groups.presets import preset_subject, preset_values
 from comove.groups.summary import episode_paths, episode_table, role_rollup
 from comove.io.projection import working_to_input
@@ -665,6 +671,7 @@ def _group_tables(snaps: Snapshots, found: _Found, stages: list, run_params: Run
     with bar.stage("paths"):
         paths, display = episode_paths(snaps, found.table, found.centroids)
     roles, dyads, leaders = role_rollup(found.table), found.dyads, found.leaders
+    leader_roles = found.leader_roles
     if significance.replicates > 0:
         with bar.stage("significance"):
             pair_tests, role_tests = group_tests(
@@ -673,13 +680,14 @@ def _group_tables(snaps: Snapshots, found: _Found, stages: list, run_params: Run
             )  # fmt: skip
             leaders = lead_tests(found.lead_blocks, leaders, snaps, significance,
                                  run_params.seed)  # fmt: skip
+            leader_roles = lead_rollup(leaders)
         if pair_tests is not None:
             dyads = dyads.merge(pair_tests, on=["object_a", "object_b"], how="left",
                                 validate="1:1")  # fmt: skip
         roles = roles.merge(role_tests.drop(columns=["episodes", "together_s"]), on="roles",
                             how="left", validate="1:1")  # fmt: skip
-    return _Grouped(found.table, roles, dyads, found.objects, leaders, found.leader_roles,
-                    paths, display, found.centroids)  # fmt: skip
+    return _Grouped(found.table, roles, dyads, found.objects, leaders, leader_roles, paths,
+                    display, found.centroids)  # fmt: skip
 
 
 def association_edges(dyads: pd.DataFrame) -> pd.DataFrame:

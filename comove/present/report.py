@@ -583,12 +583,15 @@ def _leader_section(res: _Results) -> tuple[str, list[_Picture]]:
     parts.append(_figure_html(pic))
     roles = res.leader_roles
     if roles is not None and len(roles):
+        tested = "significant_pairs" in roles.columns
         rows = [[_name(r["leader_role"]), _name(r["follower_role"]), _num(r["pairs"]),
                  _e(_duration(r["median_delay_s"])), _num(r["mean_correlation"])]
+                + ([_num(r["significant_pairs"])] if tested else [])
                 for _, r in roles.iterrows()]  # fmt: skip
         parts.append("<h3>Leads by role pair</h3>")
         parts.append(_table(["leader's role", "follower's role", "pairs", "median delay",
-                             "mean correlation"], rows, {2, 4}))  # fmt: skip
+                             "mean correlation"] + (["significant"] if tested else []), rows,
+                            {2, 4, 5}))  # fmt: skip
     return "\n".join(parts), [pic]
 
 

@@ -51,6 +51,7 @@ def test_planted_delays_are_recovered_within_one_snapshot_and_the_leader_named()
     assert not guide_twin["clear_leader"] and guide_twin["delay_s"] < 0.5 * STEP
     roles = result.leader_roles.set_index(["leader_role", "follower_role"])
     assert roles.loc[("leader", "follower"), "pairs"] == 2
+    assert "significant_pairs" not in roles.columns  # no tests, no count of significant leads
 
 
 def loop_correlations(snaps, motion, pairs, min_speed, lags, reverse=False):
@@ -204,6 +205,11 @@ def test_planted_leads_are_significant_under_the_swap_and_the_twin_is_not():
         row = table.loc[pair]
         assert row["statistic"] == "lead_asymmetry" and row["p_value"] == pytest.approx(0.01)
         assert row["lead_asymmetry"] > 0.01 and row["significant"]
+    # the roll-up counts the significant leads among the clear ones, per role pair
+    roles = result.leader_roles.set_index(["leader_role", "follower_role"])
+    assert roles.loc[("leader", "follower"), "pairs"] == 2
+    assert roles.loc[("leader", "follower"), "significant_pairs"] == 2
+    assert roles["significant_pairs"].sum() == result.leaders["significant"].sum()
     twin = result.leaders[result.leaders["leader"].isin(["guide", "twin"])
                           & result.leaders["follower"].isin(["guide", "twin"])].iloc[0]  # fmt: skip
     assert twin["lead_asymmetry"] == 0.0 and twin["p_value"] == 1.0 and not twin["significant"]
