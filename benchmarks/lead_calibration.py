@@ -6,8 +6,11 @@ Run from the repository root::
 
 Each scene holds ``--pairs`` pairs of walkers 1 km apart, 10 Hz for 150 s. A
 pair walks one wandering course (1.5 m/s, smooth random turns); each walker
-adds its own smooth wobble of about ``--wobble`` metres, so their headings
-agree closely but not exactly.
+adds its own smooth wobble of about ``--wobble`` metres (white noise smoothed
+over ``--smooth`` seconds, its memory), so their headings agree closely but
+not exactly. The swap test's blocks are 4.1 s long here (2 s delays each way):
+a ``--smooth`` well beyond that checks the test when headings remember longer
+than a block.
 
 - Calibration: both walk the course at the same time (no lead). The share of
   pairs with p at most 0.05 and 0.10 should be at most those levels, within
@@ -37,8 +40,13 @@ SAMPLES = 1500
 MARGIN = 50  # samples of course walked before the first snapshot (for a late follower)
 
 
-def pairs_scene(rng: np.random.Generator, n_pairs: int, delay_s: float, wobble_m: float):
-    """Return tracks of ``n_pairs`` pairs: the follower walks the course ``delay_s`` later."""
+def pairs_scene(
+    rng: np.random.Generator, n_pairs: int, delay_s: float, wobble_m: float, smooth_s: float
+) -> pd.DataFrame:
+    """Return tracks of ``n_pairs`` pairs: the follower walks the course ``delay_s`` later.
+
+    Each walker's wobble is white noise smoothed by a Gaussian of ``smooth_s`` seconds.
+    """
     lag = int(round(delay_s / STEP))
     t = np.arange(SAMPLES) * STEP
     frames = []
@@ -48,7 +56,7 @@ def pairs_scene(rng: np.random.Generator, n_pairs: int, delay_s: float, wobble_m
         course = np.cumsum(step, axis=0) + [0.0, 1000.0 * k]
         walked = {"lead": course[MARGIN:], "follow": course[MARGIN - lag : MARGIN - lag + SAMPLES]}
         for m, (name, xy) in enumerate(walked.items()):
-            shake = gaussian_filter1d(rng.normal(0.0, 1.0, (SAMPLES, 2)), 15, axis=0)
+            shake = gaussian_filter1d(rng.normal(0.0, 1.0, (SAMPLES, 2)), smooth_s / STEP, axis=0)
             xy = xy + shake * (wobble_m / shake.std()) + [0.0, 0.5 * m]
             frames.append(pd.DataFrame({"id": f"p{k:03d}{name}", "time": t, "x": xy[:, 0],
                                         "y": xy[:, 1], "role": name}))  # fmt: skip
@@ -71,17 +79,25 @@ def main() -> None:
     parser.add_argument("--scenes", type=int, default=3)
     parser.add_argument("--replicates", type=int, default=99)
     parser.add_argument("--wobble", type=float, default=0.3)
+    parser.add_argument(
+        "--smooth",
+        type=float,
+        default=1.5,
+        help="seconds over which a walker's wobble is smoothed (its memory)",
+    )
     args = parser.parse_args()
     rng = np.random.default_rng(20261204)
 
     p_values = []
     for scene in range(args.scenes):
-        table = run(pairs_scene(rng, args.pairs, 0.0, args.wobble), args.replicates, scene + 1)
+        table = run(
+            pairs_scene(rng, args.pairs, 0.0, args.wobble, args.smooth), args.replicates, scene + 1
+        )
         p_values.append(table["p_value"].to_numpy())
     p = np.concatenate(p_values)
     n = p.size
     print(f"Calibration: {n} pairs with no lead, {args.replicates} replicates, wobble "
-          f"{args.wobble:g} m\n")  # fmt: skip
+          f"{args.wobble:g} m smoothed over {args.smooth:g} s\n")  # fmt: skip
     print("| level | share with p at or below it | binomial 95 % upper bound |")
     print("|---:|---:|---:|")
     for level in (0.05, 0.10):
@@ -92,7 +108,9 @@ def main() -> None:
     print("| delay (s) | clear leader | leader named right | p at most 0.05 |")
     print("|---:|---:|---:|---:|")
     for delay in (0.1, 0.2, 0.3, 0.5, 1.0):
-        table = run(pairs_scene(rng, args.pairs, delay, args.wobble), args.replicates, 7)
+        table = run(
+            pairs_scene(rng, args.pairs, delay, args.wobble, args.smooth), args.replicates, 7
+        )
         right = table["clear_leader"] & table["leader"].str.endswith("lead")
         print(f"| {delay:g} | {table['clear_leader'].mean():.2f} | {right.mean():.2f} | "
               f"{(right & (table['p_value'] <= 0.05)).mean():.2f} |")  # fmt: skip
