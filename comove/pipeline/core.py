@@ -271,17 +271,13 @@ def mine(source: Any, *, progress: bool = False, **options: Any) -> MiningResult
     bar = _Progress(progress, total=7)
     digest = _digest_beside(source)
     try:
-        if plan is not None:
-            parts, snaps, quality, sample = _mine_windows(source, stages, plan, run_params,
-                                                          progress)  # fmt: skip
-        else:
-            snaps, quality, sample = _aligned(source, columns, cleaning, alignment, bar,
-                                              run_params.threads)  # fmt: skip
-            zones = plan_zones(zone_params, snaps, columns.time_zone)
-            parts = [(zone, _mine_snaps(zone.apply(snaps), stages, run_params,
-                                        bar if zone.everything else _Progress(False, 0),
-                                        progress))
-                     for zone in zones]  # fmt: skip
+        snaps, quality, sample, found = _over_zones(
+            source, stages, plan, run_params, bar, progress,
+            windowed=lambda run: _mine_windowed(run, colocation, persistence),
+            whole=lambda zone, seen: _mine_snaps(seen, stages, run_params, _bar_of(zone, bar),
+                                                 progress),
+        )  # fmt: skip
+        parts = [(zone, mined) for zone, _, mined in found]
     finally:
         bar.close()
     settings = settings_record(columns, cleaning, _effective(snaps), *stages[3:8], run_params,
@@ -400,20 +396,49 @@ def _windows_note(plan: tuple[int, int | None] | None) -> dict:
     return {"windows": {"bucket_s": plan[0] / 1e9, "max_rows": plan[1]}}
 
 
-def _mine_windows(source: Any, stages: list, plan: tuple[int, int | None],
-                  run_params: RunParams, progress: bool) -> tuple:  # fmt: skip
-    """Return what ``mine`` needs of a run over time windows: per zone, what it found."""
-    columns, cleaning, alignment, colocation, persistence = stages[:5]
-    window_params, zone_params = stages[7], stages[9]
-    with windowed_tracks(source, columns, cleaning, alignment, plan, window_params.scratch,
-                         run_params, progress) as run:  # fmt: skip
-        bound = persistence.min_prevalent_snapshots(run.shell.step_s)
-        parts = []
-        for n, zone in enumerate(plan_zones(zone_params, run.shell, columns.time_zone)):
-            tally = mine_windows(run.zoned(zone, n), colocation, bound)
-            tables = durable_patterns(tally, persistence, colocation.min_participation)
-            parts.append((zone, _Mined(tables.patterns, tables.participation, tables.series)))
-        return parts, run.shell, run.quality(), run.sample()
+def _mine_windowed(run: Any, colocation: Any, persistence: PersistenceParams) -> _Mined:
+    """Return the durable role sets of one zone of a run over time windows."""
+    tally = mine_windows(run, colocation, persistence.min_prevalent_snapshots(run.shell.step_s))
+    tables = durable_patterns(tally, persistence, colocation.min_participation)
+    return _Mined(tables.patterns, tables.participation, tables.series)
+
+
+def _over_zones(
+    source: Any,
+    stages: list,
+    plan: tuple[int, int | None] | None,
+    run_params: RunParams,
+    bar: _Progress,
+    progress: bool,
+    windowed: Callable[[Any], Any],
+    whole: Callable[[Zone, Snapshots], Any],
+) -> tuple[Snapshots, dict, Any, list[tuple[Zone, Snapshots, Any]]]:
+    """Return the snapshots, quality, track sample, and what a command found in each zone.
+
+    The first three stages are the columns, cleaning and alignment; the
+    windows' and zones' settings are found among the rest by their types.
+    Over time windows (``plan``), ``windowed(run)`` finds a zone's part on
+    its windows (``Windowed.zoned``) and the snapshots are the windows' shell;
+    in one piece, ``whole(zone, snaps)`` finds it on the zone's own
+    snapshots (``Zone.apply``). Zone ``all``/``all`` comes first.
+    """
+    columns, cleaning, alignment = stages[:3]
+    window_params = next(s for s in stages if isinstance(s, WindowParams))
+    zone_params = next(s for s in stages if isinstance(s, ZoneParams))
+    if plan is not None:
+        with windowed_tracks(source, columns, cleaning, alignment, plan, window_params.scratch,
+                             run_params, progress) as run:  # fmt: skip
+            zones = plan_zones(zone_params, run.shell, columns.time_zone)
+            found = [(zone, run.shell, windowed(run.zoned(zone, n)))
+                     for n, zone in enumerate(zones)]  # fmt: skip
+            return run.shell, run.quality(), run.sample(), found
+    snaps, quality, sample = _aligned(source, columns, cleaning, alignment, bar,
+                                      run_params.threads)  # fmt: skip
+    found = []
+    for zone in plan_zones(zone_params, snaps, columns.time_zone):
+        seen = zone.apply(snaps)
+        found.append((zone, seen, whole(zone, seen)))
+    return snaps, quality, sample, found
 
 
 def _digest_beside(source: Any) -> Future[str]:
@@ -610,18 +635,16 @@ def groups(
     plan = _plan(source, columns, window_params, run_params, significance)
     bar = _Progress(progress, total=6 if significance.replicates > 0 else 5)
     digest = _digest_beside(source)
+
+    def observed(zone: Zone, seen: Snapshots) -> _Found:
+        with _bar_of(zone, bar).stage("groups, episodes, dyads and leaders"):
+            return _observed_groups(seen, stages, run_params)
+
     try:
-        if plan is not None:
-            snaps, quality, sample, found = _group_windows(source, stages, plan, run_params,
-                                                           progress)  # fmt: skip
-        else:
-            snaps, quality, sample = _aligned(source, columns, cleaning, alignment, bar,
-                                              run_params.threads)  # fmt: skip
-            found = []
-            for zone in plan_zones(zone_params, snaps, columns.time_zone):
-                seen = zone.apply(snaps)
-                with _bar_of(zone, bar).stage("groups, episodes, dyads and leaders"):
-                    found.append((zone, seen, _observed_groups(seen, stages, run_params)))
+        snaps, quality, sample, found = _over_zones(
+            source, stages, plan, run_params, bar, progress,
+            windowed=lambda run: _groups_windowed(run, stages), whole=observed,
+        )  # fmt: skip
         parts = [(zone, _group_tables(seen, one, stages, run_params, _bar_of(zone, bar), progress))
                  for zone, seen, one in found]  # fmt: skip
     finally:
@@ -702,31 +725,10 @@ def association_edges(dyads: pd.DataFrame) -> pd.DataFrame:
                          "weight": dyads["half_weight_index"]})  # fmt: skip
 
 
-def _group_windows(source: Any, stages: list, plan: tuple[int, int | None],
-                   run_params: RunParams, progress: bool) -> tuple:  # fmt: skip
-    """Return what ``groups`` needs of a run over time windows: per zone, what it found."""
-    columns, cleaning, alignment, grouping, episode_params, dyad_params, lead = stages[:7]
-    with windowed_tracks(source, columns, cleaning, alignment, plan, stages[8].scratch,
-                         run_params, progress) as run:  # fmt: skip
-        parts = []
-        for n, zone in enumerate(plan_zones(stages[10], run.shell, columns.time_zone)):
-            found = group_windows(run.zoned(zone, n), grouping, episode_params, dyad_params, lead)
-            leaders, leader_roles = found.leaders
-            parts.append(
-                (
-                    zone,
-                    run.shell,
-                    _Found(
-                        found.table,
-                        found.centroids,
-                        found.dyads,
-                        found.objects,
-                        leaders,
-                        leader_roles,
-                    ),
-                )
-            )
-        return run.shell, run.quality(), run.sample(), parts
+def _groups_windowed(run: Any, stages: list) -> _Found:
+    """Return what ``groups`` finds in one zone of a run over time windows, before the tests."""
+    found = group_windows(run, *stages[3:7])
+    return _Found(found.table, found.centroids, found.dyads, found.objects, *found.leaders)
 
 
 @dataclass

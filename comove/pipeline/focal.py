@@ -20,6 +20,20 @@ import pandas as pd
 
 from comove.io.reading import ColumnSpec
 from comove.io.results import CAUTION, csv_writer, parquet_writer, write_folder
+from comove.pipeline.core import (
+    _bar_of,
+    _digest_beside,
+    _effective,
+    _over_zones,
+    _plan,
+    _Progress,
+    _windows_note,
+    folder_files,
+    joined_tables,
+    split_options,
+    zoned_table,
+)
+from comove.pipeline.windows import focal_windows
 from comove.roles.focal import FocalParams, FocalTally, focal_chain, focal_tables, surrounding_sets
 from comove.roles.persistence import PersistenceParams
 from comove.stats.engine import RunParams
@@ -27,7 +41,7 @@ from comove.stats.significance import TEST_COLUMNS, SignificanceParams, focal_te
 from comove.tracks.alignment import AlignParams, Snapshots
 from comove.tracks.cleaning import CleanParams
 from comove.tracks.streaming import WindowParams
-from comove.tracks.zones import ZoneParams, plan_zones
+from comove.tracks.zones import Zone, ZoneParams
 
 #: The stage settings of ``focal``, in pipeline order.
 FOCAL_STAGES: tuple[type, ...] = (
@@ -78,8 +92,6 @@ class FocalResult:
         ``focal_series.parquet``, ``track_sample.parquet``, ``quality.json``,
         ``run.json``, and ``focal_significance.csv`` when tests ran.
         """
-        from comove.pipeline.core import folder_files
-
         tables = {
             "focal.csv": csv_writer(self.sets),
             "focal_neighbourhoods.csv": csv_writer(self.neighbourhoods),
@@ -130,17 +142,6 @@ def focal(source: Any, *, progress: bool = False, **options: Any) -> FocalResult
     mother;yearling              0.5          0.5
     """
     from comove.io.provenance import run_record, settings_record
-    from comove.pipeline.core import (
-        _bar_of,
-        _digest_beside,
-        _effective,
-        _plan,
-        _Progress,
-        _windows_note,
-        joined_tables,
-        split_options,
-        zoned_table,
-    )
 
     stages = split_options(FOCAL_STAGES, options)
     columns, cleaning, alignment, params = stages[:4]
@@ -149,9 +150,16 @@ def focal(source: Any, *, progress: bool = False, **options: Any) -> FocalResult
     plan = _plan(source, columns, window_params, run_params, significance)
     bar = _Progress(progress, total=6)
     digest = _digest_beside(source)
+
+    def surroundings(zone: Zone, seen: Snapshots) -> FocalTally:
+        with _bar_of(zone, bar).stage("surroundings"):
+            return focal_chain(seen, params, workers=run_params.threads)
+
     try:
-        snaps, quality, sample, found = _neighbourhoods(source, stages, plan, run_params, bar,
-                                                        progress)  # fmt: skip
+        snaps, quality, sample, found = _over_zones(
+            source, stages, plan, run_params, bar, progress,
+            windowed=lambda run: focal_windows(run, params), whole=surroundings,
+        )  # fmt: skip
         parts = [(zone, _focal_tables(seen, tally, stages, run_params, _bar_of(zone, bar),
                                       progress)) for zone, seen, tally in found]  # fmt: skip
     finally:
@@ -165,31 +173,6 @@ def focal(source: Any, *, progress: bool = False, **options: Any) -> FocalResult
         for k in range(4)
     )
     return FocalResult(sets, hoods, series, quality, run, snaps, tests, sample)
-
-
-def _neighbourhoods(source: Any, stages: list, plan: Any, run_params: RunParams, bar: Any,
-                    progress: bool) -> tuple:  # fmt: skip
-    """Return the snapshots (or their shell), quality, sample, and each zone's neighbourhoods."""
-    from comove.pipeline.core import _aligned, _bar_of
-    from comove.pipeline.windows import focal_windows, windowed_tracks
-
-    columns, cleaning, alignment, params = stages[:4]
-    window_params, zone_params = stages[6], stages[8]
-    if plan is not None:
-        with windowed_tracks(source, columns, cleaning, alignment, plan, window_params.scratch,
-                             run_params, progress) as run:  # fmt: skip
-            zones = plan_zones(zone_params, run.shell, columns.time_zone)
-            found = [(zone, run.shell, focal_windows(run.zoned(zone, n), params))
-                     for n, zone in enumerate(zones)]  # fmt: skip
-            return run.shell, run.quality(), run.sample(), found
-    snaps, quality, sample = _aligned(source, columns, cleaning, alignment, bar,
-                                      run_params.threads)  # fmt: skip
-    found = []
-    for zone in plan_zones(zone_params, snaps, columns.time_zone):
-        seen = zone.apply(snaps)
-        with _bar_of(zone, bar).stage("surroundings"):
-            found.append((zone, seen, focal_chain(seen, params, workers=run_params.threads)))
-    return snaps, quality, sample, found
 
 
 def _focal_tables(snaps: Snapshots, tally: FocalTally, stages: list, run_params: RunParams,
