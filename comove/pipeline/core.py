@@ -487,7 +487,25 @@ def _effective(snaps: Snapshots) -> AlignParams:
 
 
 @dataclass
-class GroupsResult:
+class _Grouped:
+    """The tables ``groups`` gives of one zone (or of the whole run), and its episodes' paths.
+
+    :class:`GroupsResult` is these and the run's records.
+    """
+
+    episodes: pd.DataFrame
+    roles: pd.DataFrame
+    dyads: pd.DataFrame
+    objects: pd.DataFrame
+    leaders: pd.DataFrame
+    leader_roles: pd.DataFrame
+    paths: Any
+    display_paths: Any
+    centroids: list = field(repr=False)
+
+
+@dataclass
+class GroupsResult(_Grouped):
     """Co-moving groups of objects: episodes, their role roll-up, and dyads.
 
     Attributes
@@ -514,6 +532,9 @@ class GroupsResult:
     display_paths : GeoDataFrame
         The same paths thinned to about one vertex per second for viewing
         (written as GeoJSON); see :func:`comove.groups.summary.episode_paths`.
+    centroids : list of ndarray
+        Each episode's centroid path, row for row with ``episodes``: time (ns),
+        x and y in the working plane.
     quality, run : dict
         As in :class:`MiningResult`.
     snapshots : Snapshots
@@ -521,18 +542,9 @@ class GroupsResult:
         step and span).
     """
 
-    episodes: pd.DataFrame
-    roles: pd.DataFrame
-    dyads: pd.DataFrame
-    objects: pd.DataFrame
-    leaders: pd.DataFrame
-    leader_roles: pd.DataFrame
-    paths: Any
-    display_paths: Any
     quality: dict
     run: dict
     snapshots: Snapshots = field(repr=False)
-    centroids: list = field(repr=False, default_factory=list)
     sample: Any = field(default=None, repr=False)
 
     def write(
@@ -666,24 +678,6 @@ def groups(
 def _bar_of(zone: Zone, bar: _Progress) -> _Progress:
     """Return the run's progress bar for the whole run, and a silent one for each zone."""
     return bar if zone.everything else _Progress(False, 0)
-
-
-@dataclass
-class _Grouped:
-    """The tables ``groups`` gives of one zone (or of the whole run).
-
-    Its fields but ``centroids`` are those of :class:`GroupsResult`, by name.
-    """
-
-    episodes: pd.DataFrame
-    roles: pd.DataFrame
-    dyads: pd.DataFrame
-    objects: pd.DataFrame
-    leaders: pd.DataFrame
-    leader_roles: pd.DataFrame
-    paths: Any
-    display_paths: Any
-    centroids: list
 
 
 def _group_tables(snaps: Snapshots, found: _Found, stages: list, run_params: RunParams,

@@ -22,6 +22,7 @@ import pandas as pd
 
 from comove.errors import InputError
 from comove.io.results import (
+    ALL_PARTS,
     CAUTION,
     REPORT,
     ResultsFolder,
@@ -658,7 +659,8 @@ def _parts_section(res: _Results) -> tuple[str, list[_Picture]]:
             continue
         label = table["period"].astype(str) + " / " + table["area"].astype(str)
         zones = list(dict.fromkeys(label))
-        shown = list(dict.fromkeys(table.loc[label == "all / all", key].astype(str)))[:PART_SETS]
+        everything = label == f"{ALL_PARTS} / {ALL_PARTS}"
+        shown = list(dict.fromkeys(table.loc[everything, key].astype(str)))[:PART_SETS]
         value = dict(zip(zip(table[key].astype(str), label, strict=True),
                          table["time_prevalence"], strict=True))  # fmt: skip
         parts.append(f"<h3>{_e(title)}: time prevalence in each part</h3>")

@@ -38,12 +38,10 @@ import pyproj
 
 from comove.errors import ComoveNote, InputError, bad_setting
 from comove.io.projection import to_lonlat
-from comove.io.results import ALL_PARTS
+from comove.io.results import ALL_PARTS as ALL
 from comove.io.zonefiles import Areas, Periods, read_areas, read_periods
 from comove.tracks.alignment import Snapshots
 
-#: The name of the rows over every period or every area.
-ALL = ALL_PARTS
 #: ``--periods`` value that splits by the sun's elevation.
 DAY_NIGHT = "day-night"
 #: Geometric solar elevation (degrees) above which it is day: upper limb on the horizon.

@@ -217,7 +217,8 @@ def test_planted_leads_are_significant_under_the_swap_and_the_twin_is_not():
 
 def test_the_swap_test_holds_its_level_on_pairs_that_share_a_course():
     # 60 pairs with no lead either way: p-values of a valid test are at most as small as
-    # uniform ones, so about 3 of 60 fall below 0.05 (binomial: 8 or more has chance < 0.05)
+    # uniform ones, so about 3 of 60 fall below 0.05; 8 or more has chance 0.01
+    # (scipy.stats.binom.sf(7, 60, 0.05))
     result = groups(shared_course_pairs(seed=1), radius=3.0, step=STEP, links="snapshot",
                     replicates=99, max_delay=2.0, seed=2)  # fmt: skip
     table = result.leaders
